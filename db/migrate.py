@@ -1,0 +1,58 @@
+"""Schema version and forward migrations.
+
+A new database gets every table of :mod:`db.schema` and version ``SCHEMA_VERSION``.
+An older database is brought forward one step at a time by the functions in ``STEPS``
+(``STEPS[n]`` takes a database from version ``n - 1`` to ``n``), each in its own
+transaction, and each recorded in ``schema_version``. A database newer than this software
+is refused rather than written to.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Callable
+
+import sqlalchemy as sa
+
+from db import schema
+
+
+class SchemaTooNewError(RuntimeError):
+    pass
+
+
+# version -> function(connection) bringing the store from version-1 to version.
+STEPS: dict[int, Callable[[sa.Connection], None]] = {}
+
+
+def _now() -> str:
+    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+
+
+def current_version(conn: sa.Connection) -> int | None:
+    if not sa.inspect(conn).has_table("schema_version"):
+        return None
+    return conn.execute(sa.select(sa.func.max(schema.schema_version.c.version))).scalar()
+
+
+def upgrade(engine: sa.Engine, target: int = schema.SCHEMA_VERSION) -> int:
+    """Create or migrate the schema of ``engine`` to ``target``; return the version reached."""
+    with engine.begin() as conn:
+        version = current_version(conn)
+        if version is None:
+            schema.metadata.create_all(conn)
+            conn.execute(schema.schema_version.insert().values(
+                version=target, applied_utc=_now(), note="created"))
+            return target
+    if version > target:
+        raise SchemaTooNewError(
+            f"the database has schema version {version}, this heliaudit knows up to {target}; "
+            "upgrade heliaudit before using this database")
+    for step in range(version + 1, target + 1):
+        with engine.begin() as conn:
+            STEPS[step](conn)
+            conn.execute(schema.schema_version.insert().values(
+                version=step, applied_utc=_now(), note=STEPS[step].__doc__ or ""))
+    # tables added in later versions without data changes
+    schema.metadata.create_all(engine)
+    return target

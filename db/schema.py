@@ -1,0 +1,210 @@
+"""The store's tables, as SQLAlchemy 2 Core metadata (dialect-neutral: SQLite and PostgreSQL).
+
+Keys are compact on purpose: readings are keyed by ``(channel_id, ts_s)`` where ``ts_s`` is
+integer UTC epoch seconds of the **interval start** (ingest converts every logger's
+convention to this), and ``channel_id`` is one quantity of one device. On SQLite the readings
+table is ``WITHOUT ROWID`` so the primary key is the table (see PERFORMANCE.md).
+
+Each topic owns its block below; add columns there and bump ``SCHEMA_VERSION`` with a
+forward step in :mod:`db.migrate`.
+"""
+
+from __future__ import annotations
+
+import sqlalchemy as sa
+
+SCHEMA_VERSION = 1
+
+metadata = sa.MetaData()
+
+schema_version = sa.Table(
+    "schema_version", metadata,
+    sa.Column("version", sa.Integer, primary_key=True),
+    sa.Column("applied_utc", sa.String(32), nullable=False),
+    sa.Column("note", sa.Text),
+)
+
+# ---------------------------------------------------------------- plant
+site = sa.Table(
+    "site", metadata,
+    sa.Column("site_id", sa.String(64), primary_key=True),
+    sa.Column("name", sa.Text, nullable=False),
+    sa.Column("owner", sa.Text),
+    sa.Column("timezone", sa.String(64), nullable=False),
+    sa.Column("latitude_deg", sa.Float, nullable=False),
+    sa.Column("longitude_deg", sa.Float, nullable=False),
+    sa.Column("altitude_m", sa.Float, nullable=False),
+    sa.Column("tilt_deg", sa.Float, nullable=False),
+    sa.Column("azimuth_deg", sa.Float, nullable=False),
+    sa.Column("albedo", sa.Float, nullable=False),
+    sa.Column("config_toml", sa.Text, nullable=False),  # the whole file, as last loaded
+    sa.Column("config_sha256", sa.String(64), nullable=False),
+    sa.Column("updated_utc", sa.String(32), nullable=False),
+)
+
+device = sa.Table(
+    "device", metadata,
+    sa.Column("device_pk", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), nullable=False),
+    sa.Column("device_id", sa.String(64), nullable=False),
+    sa.Column("kind", sa.String(16), nullable=False),  # 'inverter' | 'sensor'
+    sa.UniqueConstraint("site_id", "device_id", name="uq_device_site_device"),
+)
+
+inverter = sa.Table(
+    "inverter", metadata,
+    sa.Column("device_pk", sa.Integer, sa.ForeignKey("device.device_pk"), primary_key=True),
+    sa.Column("p_dc_kwp", sa.Float, nullable=False),
+    sa.Column("p_ac_max_kw", sa.Float, nullable=False),
+    sa.Column("gamma_pmp_per_c", sa.Float, nullable=False),
+    sa.Column("eta_inv_nom", sa.Float, nullable=False),
+    sa.Column("mounting", sa.String(48), nullable=False),
+    sa.Column("commissioned", sa.Date, nullable=False),
+    sa.Column("poa_sensor_id", sa.String(64), nullable=False),
+    sa.Column("t_module_sensor_id", sa.String(64), nullable=False),
+    sa.Column("t_amb_sensor_id", sa.String(64)),
+    sa.Column("wind_sensor_id", sa.String(64)),
+    sa.Column("peer_group", sa.String(64), nullable=False),
+)
+
+sensor = sa.Table(
+    "sensor", metadata,
+    sa.Column("device_pk", sa.Integer, sa.ForeignKey("device.device_pk"), primary_key=True),
+    sa.Column("quantity", sa.String(32), nullable=False),
+    sa.Column("instrument", sa.String(32)),  # thermopile_pyranometer | reference_cell (POA/GHI)
+)
+
+channel = sa.Table(
+    "channel", metadata,
+    sa.Column("channel_id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("device_pk", sa.Integer, sa.ForeignKey("device.device_pk"), nullable=False),
+    sa.Column("quantity", sa.String(32), nullable=False),  # p_ac_kw, poa_wm2, ... (stored unit)
+    sa.UniqueConstraint("device_pk", "quantity", name="uq_channel_device_quantity"),
+)
+
+# ---------------------------------------------------------------- readings
+reading = sa.Table(
+    "reading", metadata,
+    sa.Column("channel_id", sa.Integer, primary_key=True),
+    sa.Column("ts_s", sa.BigInteger().with_variant(sa.Integer, "sqlite"), primary_key=True),
+    sa.Column("value", sa.Float, nullable=False),
+    sa.Column("batch_id", sa.Integer, nullable=False),  # the ingest batch that last wrote it
+    sqlite_with_rowid=False,
+)
+
+# ---------------------------------------------------------------- ingest log
+ingest_batch = sa.Table(
+    "ingest_batch", metadata,
+    sa.Column("batch_id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), nullable=False),
+    sa.Column("source_name", sa.String(64), nullable=False),
+    sa.Column("file_name", sa.Text, nullable=False),
+    sa.Column("file_path", sa.Text, nullable=False),
+    sa.Column("sha256", sa.String(64), nullable=False),
+    sa.Column("size_bytes", sa.BigInteger, nullable=False),
+    sa.Column("rows_read", sa.Integer, nullable=False, default=0),
+    sa.Column("rows_loaded", sa.Integer, nullable=False, default=0),
+    sa.Column("rows_duplicate", sa.Integer, nullable=False, default=0),
+    sa.Column("rows_rejected", sa.Integer, nullable=False, default=0),
+    sa.Column("values_loaded", sa.Integer, nullable=False, default=0),
+    sa.Column("values_duplicate", sa.Integer, nullable=False, default=0),
+    sa.Column("values_conflict", sa.Integer, nullable=False, default=0),
+    sa.Column("values_rejected", sa.Integer, nullable=False, default=0),
+    sa.Column("ts_first_s", sa.BigInteger),
+    sa.Column("ts_last_s", sa.BigInteger),
+    sa.Column("interval_s", sa.Text),  # e.g. "900" or "900->300" when it changes mid-file
+    sa.Column("started_utc", sa.String(32), nullable=False),
+    sa.Column("finished_utc", sa.String(32)),
+    sa.Column("status", sa.String(16), nullable=False),  # loaded | failed | unchanged
+    sa.Column("message", sa.Text),
+    sa.Column("notes_json", sa.Text),  # what was done: DST repeats/gaps, counter resets, ...
+)
+
+rejected_row = sa.Table(
+    "rejected_row", metadata,
+    sa.Column("rejected_id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("batch_id", sa.Integer, sa.ForeignKey("ingest_batch.batch_id"), nullable=False,
+              index=True),
+    sa.Column("line_no", sa.Integer, nullable=False),
+    sa.Column("column_name", sa.Text),  # None when the whole line is rejected
+    sa.Column("reason", sa.Text, nullable=False),
+    sa.Column("raw_text", sa.Text),
+)
+
+# ---------------------------------------------------------------- computations
+computation = sa.Table(
+    "computation", metadata,
+    sa.Column("computation_id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), nullable=False),
+    sa.Column("kind", sa.String(32), nullable=False),  # daily | flags | degradation
+    sa.Column("software_version", sa.String(32), nullable=False),
+    sa.Column("params_json", sa.Text, nullable=False),
+    sa.Column("started_utc", sa.String(32), nullable=False),
+    sa.Column("finished_utc", sa.String(32)),
+    sa.Column("scope", sa.Text),  # e.g. "full" or "days 2024-05-01..2024-05-07"
+)
+
+# daily_inverter: owned by the analytics-core issue (#4). One row per inverter and day in
+# local standard time. Sums are stored so a PR over any period is a ratio of sums.
+daily_inverter = sa.Table(
+    "daily_inverter", metadata,
+    sa.Column("device_pk", sa.Integer, sa.ForeignKey("device.device_pk"), primary_key=True),
+    sa.Column("day", sa.Date, primary_key=True),  # local standard time (no DST), see README
+    sa.Column("n_intervals", sa.Integer, nullable=False),  # intervals with any reading
+    sa.Column("n_daylight", sa.Integer, nullable=False),  # sun above the horizon
+    sa.Column("n_valid", sa.Integer, nullable=False),  # passed every filter, enter pi
+    sa.Column("e_ac_kwh", sa.Float),  # measured AC energy, all intervals
+    sa.Column("h_poa_kwhm2", sa.Float),  # POA insolation, daylight intervals with valid POA
+    sa.Column("e_ref_kwh", sa.Float),  # p_dc_kwp * h_poa_kwhm2 / 1 kW/m2 (PR denominator)
+    sa.Column("e_ref_stc_kwh", sa.Float),  # sum C_k p_dc_kwp G_k tau_k / 1000, C_k = 1+gamma(T_k-25)
+    sa.Column("e_ref_tcell_kwhc", sa.Float),  # sum p_dc_kwp G_k T_cell,k tau_k / 1000 [kWh*degC]
+    sa.Column("e_exp_kwh", sa.Float),  # expected AC energy (model), daylight intervals with inputs
+    sa.Column("e_ac_valid_kwh", sa.Float),  # measured AC energy over valid intervals
+    sa.Column("e_exp_valid_kwh", sa.Float),  # expected AC energy over valid intervals
+    sa.Column("pr", sa.Float),  # IEC 61724-1 performance ratio, e_ac_kwh / e_ref_kwh
+    sa.Column("pr_stc", sa.Float),  # temperature-corrected to 25 degC cell
+    sa.Column("pi", sa.Float),  # performance index e_ac_valid_kwh / e_exp_valid_kwh
+    sa.Column("t_cell_wavg_c", sa.Float),  # irradiance-weighted mean cell temperature
+    sa.Column("coverage", sa.Float),  # share of the day's insolation in valid intervals
+    sa.Column("day_valid", sa.Boolean, nullable=False),  # coverage >= minimum: use for trends
+    sa.Column("t_daylight_h", sa.Float),  # hours with G >= 50 W/m2 (availability base)
+    sa.Column("t_unavailable_h", sa.Float),
+    sa.Column("e_lost_kwh", sa.Float),  # expected energy during unavailable intervals
+    sa.Column("avail_time", sa.Float),  # time-based availability (fraction)
+    sa.Column("avail_energy", sa.Float),  # energy-based availability (fraction)
+    sa.Column("t_clipped_h", sa.Float),  # hours at the AC limit
+    sa.Column("computation_id", sa.Integer, sa.ForeignKey("computation.computation_id")),
+    sa.Column("details_json", sa.Text),  # excluded-interval counts by reason, etc.
+)
+
+# flag: owned by the flags issue (#5).
+flag = sa.Table(
+    "flag", metadata,
+    sa.Column("flag_id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), nullable=False),
+    sa.Column("device_id", sa.String(64)),  # None for a site-wide flag
+    sa.Column("kind", sa.String(32), nullable=False),
+    sa.Column("start_s", sa.BigInteger, nullable=False),
+    sa.Column("end_s", sa.BigInteger, nullable=False),
+    sa.Column("severity", sa.String(16), nullable=False),  # info | warning | alarm
+    sa.Column("lost_kwh", sa.Float),
+    sa.Column("details_json", sa.Text),
+    sa.Column("computation_id", sa.Integer, sa.ForeignKey("computation.computation_id")),
+    sa.Index("ix_flag_site_kind_start", "site_id", "kind", "start_s"),
+)
+
+# degradation_result: owned by the degradation issue (#7).
+degradation_result = sa.Table(
+    "degradation_result", metadata,
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), primary_key=True),
+    sa.Column("device_id", sa.String(64), primary_key=True),  # inverter id, or "(site)"
+    sa.Column("method", sa.String(32), primary_key=True),
+    sa.Column("rate_pct_per_yr", sa.Float),
+    sa.Column("ci_low", sa.Float),
+    sa.Column("ci_high", sa.Float),
+    sa.Column("confidence", sa.Float),
+    sa.Column("n_points", sa.Integer),
+    sa.Column("reason", sa.Text),  # why not computed, when rate is None
+    sa.Column("details_json", sa.Text),
+    sa.Column("computation_id", sa.Integer, sa.ForeignKey("computation.computation_id")),
+)

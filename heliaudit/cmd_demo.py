@@ -1,0 +1,3 @@
+"""Subcommands (filled by the owning issue)."""
+
+COMMANDS: list = []

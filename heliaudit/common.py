@@ -1,0 +1,21 @@
+"""Helpers shared by the subcommands: the engine from ``--db``, and error rendering."""
+
+from __future__ import annotations
+
+import click
+import sqlalchemy as sa
+
+from db.engine import make_engine
+
+
+def engine_from_ctx(ctx: click.Context) -> sa.Engine:
+    """The engine named by the group's ``--db`` (or ``$HELIAUDIT_DB`` / the default file)."""
+    root = ctx.find_root()
+    obj = root.obj or {}
+    if "engine" not in obj:
+        try:
+            obj["engine"] = make_engine(obj.get("db_url"))
+        except Exception as exc:  # noqa: BLE001 - any driver error becomes one line
+            raise click.ClickException(f"cannot open database: {exc}") from None
+        root.obj = obj
+    return obj["engine"]
