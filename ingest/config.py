@@ -114,6 +114,20 @@ class TimestampSpec:
 
 
 @dataclass(frozen=True)
+class ClockCorrection:
+    """Shift applied at ingest to timestamps a logger wrote wrongly (e.g. an hour off).
+
+    ``start``/``end`` are in the export's own (wrong) time, inclusive; ``shift_minutes`` is
+    added to each timestamp in that range before conversion to UTC.
+    """
+
+    start: dt.datetime
+    end: dt.datetime
+    shift_minutes: int
+    note: str = ""
+
+
+@dataclass(frozen=True)
 class LongSpec:
     device_column: str = "device"
     quantity_column: str = "quantity"
@@ -137,6 +151,7 @@ class Source:
     long: LongSpec | None = None  # long layout: which columns hold device/quantity/value
     quantity_names: dict[str, tuple[str, str]] = field(default_factory=dict)  # long: name -> (quantity, unit)
     counter_rollover_kwh: float | None = None  # wrap-around value of e_ac_total_kwh counters
+    clock_corrections: tuple[ClockCorrection, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -465,6 +480,21 @@ class _Validator:
             except LookupError:
                 self.bad(f"{key}.encoding", f"unknown text encoding {enc!r} (utf-8, utf-16, latin-1)")
             miss = self.get(s, "missing_values", key, list, list(Source.missing_values))
+            corrections = []
+            for m, c in enumerate(self._list(s.get("clock_corrections", []), f"{key}.clock_corrections")):
+                ckey = f"{key}.clock_corrections[{m}]"
+                start = self.get(c, "start", ckey, (dt.datetime, dt.date))
+                end = self.get(c, "end", ckey, (dt.datetime, dt.date))
+                shift = self.get(c, "shift_minutes", ckey, int, lo=-1440, hi=1440)
+                start, end = (x if isinstance(x, dt.datetime) or x is None
+                              else dt.datetime.combine(x, dt.time()) for x in (start, end))
+                if isinstance(end, dt.datetime) and end.time() == dt.time() and not isinstance(
+                        c.get("end"), dt.datetime):
+                    end = end + dt.timedelta(days=1, seconds=-1)  # a date means the whole day
+                if start and end and end < start:
+                    self.bad(ckey, "end is before start")
+                if start and end and shift is not None:
+                    corrections.append(ClockCorrection(start, end, shift, self.get(c, "note", ckey, str, "")))
             out.append(Source(
                 name=self.get(s, "name", key, str, f"source{n}"),
                 pattern=self.get(s, "pattern", key, str, "*.csv*"),
@@ -474,6 +504,7 @@ class _Validator:
                 missing_values=tuple(str(x) for x in miss),
                 timestamp=tspec, columns=tuple(columns), long=long_spec, quantity_names=qnames,
                 counter_rollover_kwh=self.get(s, "counter_rollover_kwh", key, float, None, 1.0, 1e15),
+                clock_corrections=tuple(corrections),
             ))
         return out
 
