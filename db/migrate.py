@@ -25,6 +25,16 @@ class SchemaTooNewError(RuntimeError):
 STEPS: dict[int, Callable[[sa.Connection], None]] = {}
 
 
+def _v2_daily_e_ac_pr(conn: sa.Connection) -> None:
+    """daily_inverter.e_ac_pr_kwh: AC energy over the PR intervals (#4)."""
+    cols = {c["name"] for c in sa.inspect(conn).get_columns("daily_inverter")}
+    if "e_ac_pr_kwh" not in cols:
+        conn.execute(sa.text("ALTER TABLE daily_inverter ADD COLUMN e_ac_pr_kwh FLOAT"))
+
+
+STEPS[2] = _v2_daily_e_ac_pr
+
+
 def _now() -> str:
     return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2  # 2: daily_inverter.e_ac_pr_kwh (#4)
 
 metadata = sa.MetaData()
 
@@ -175,6 +175,10 @@ daily_inverter = sa.Table(
     sa.Column("t_clipped_h", sa.Float),  # hours at the AC limit
     sa.Column("computation_id", sa.Integer, sa.ForeignKey("computation.computation_id")),
     sa.Column("details_json", sa.Text),  # excluded-interval counts by reason, etc.
+    # v2: measured AC energy over the PR set (intervals with a plausible POA reading and an
+    # energy value): the numerator matching e_ref_kwh / e_ref_stc_kwh / e_ref_tcell_kwhc.
+    # pr = e_ac_pr_kwh / e_ref_kwh; equals e_ac_kwh when no POA reading is missing.
+    sa.Column("e_ac_pr_kwh", sa.Float),
 )
 
 # flag: owned by the flags issue (#5).

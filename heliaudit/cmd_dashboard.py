@@ -1,3 +1,65 @@
-"""Subcommands (filled by the owning issue)."""
+"""``heliaudit dashboard``: start the browser dashboard (Streamlit) against the database."""
 
-COMMANDS: list = []
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import click
+
+from db.engine import ENV_VAR, resolve_url
+
+APP = Path(__file__).resolve().parents[1] / "dashboard" / "app.py"
+
+
+def streamlit_command(port: int = 8501, host: str = "127.0.0.1",
+                      headless: bool = True) -> list[str]:
+    """The ``streamlit run`` command line for the dashboard, theme flags included."""
+    from dashboard.theme import STREAMLIT_THEME
+
+    cmd = [sys.executable, "-m", "streamlit", "run", str(APP),
+           "--server.address", host, "--server.port", str(port),
+           "--server.headless", "true" if headless else "false",
+           "--browser.gatherUsageStats", "false",
+           "--client.toolbarMode", "minimal"]
+    for key, value in STREAMLIT_THEME.items():
+        cmd += [f"--{key}", value]
+    return cmd
+
+
+@click.command("dashboard")
+@click.option("--port", default=8501, show_default=True, type=click.IntRange(1, 65535),
+              help="TCP port to serve on.")
+@click.option("--host", default="127.0.0.1", show_default=True,
+              help="Address to listen on (0.0.0.0 for every interface: only behind a proxy "
+                   "with authentication, the dashboard has no login).")
+@click.option("--no-browser", is_flag=True, help="Do not open a browser window.")
+@click.pass_context
+def dashboard(ctx: click.Context, port: int, host: str, no_browser: bool) -> None:
+    """Open the browser dashboard: weekly check, trends, degradation, drill-down, data quality.
+
+    Serves the dashboard on http://HOST:PORT against the database of --db (or
+    $HELIAUDIT_DB) until interrupted with Ctrl-C.
+
+    \b
+    Example:
+        heliaudit --db heliaudit.sqlite dashboard --port 8502 --no-browser
+    """
+    url = resolve_url((ctx.find_root().obj or {}).get("db_url"))
+    env = dict(os.environ, **{ENV_VAR: url})
+    cmd = streamlit_command(port, host, headless=no_browser)
+    click.echo(f"heliaudit dashboard on http://{host}:{port} (database {url}); Ctrl-C stops it",
+               err=True)
+    try:
+        proc = subprocess.run(cmd, env=env, check=False)
+    except KeyboardInterrupt:  # Streamlit stops with the same signal
+        return
+    except OSError as exc:
+        raise click.ClickException(f"cannot start streamlit: {exc}") from None
+    if proc.returncode not in (0, -2, 130):
+        raise click.ClickException(f"streamlit exited with code {proc.returncode}")
+
+
+COMMANDS = [dashboard]

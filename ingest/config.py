@@ -152,6 +152,7 @@ class Source:
     quantity_names: dict[str, tuple[str, str]] = field(default_factory=dict)  # long: name -> (quantity, unit)
     counter_rollover_kwh: float | None = None  # wrap-around value of e_ac_total_kwh counters
     clock_corrections: tuple[ClockCorrection, ...] = ()
+    ignore_columns: tuple[str, ...] = ()  # header names deliberately not loaded (status codes, ...)
 
 
 @dataclass(frozen=True)
@@ -505,6 +506,7 @@ class _Validator:
                 timestamp=tspec, columns=tuple(columns), long=long_spec, quantity_names=qnames,
                 counter_rollover_kwh=self.get(s, "counter_rollover_kwh", key, float, None, 1.0, 1e15),
                 clock_corrections=tuple(corrections),
+                ignore_columns=tuple(str(x) for x in self.get(s, "ignore_columns", key, list, [])),
             ))
         return out
 

@@ -1,0 +1,101 @@
+"""Inverter availability, time-based and energy-based (METHODS §5; IEC TS 63019 categories).
+
+Definitions (common practice, as METHODS §5):
+
+* **daylight base**: intervals with POA G >= 50 W/m² *and* a power reading. Intervals
+  with no power reading are "information unavailable" in IEC TS 63019:2019 and are left out
+  of numerator and denominator (they are counted separately as missing data, which
+  IEC 61724-1 asks to report).
+* **unavailable** interval: P_ac <= 1 % of the AC rating while G >= 50 W/m². We cannot tell
+  from SCADA power alone which IEC TS 63019 category applies (forced outage, scheduled
+  maintenance, grid/curtailment outside the plant's control, force majeure); all count as
+  unavailable here, and an operator's log is needed to reassign them.
+* time-based availability A_t = 1 - t_unavailable / t_daylight;
+* energy-based availability A_E = E_meas / (E_meas + E_lost), with
+  E_lost = Σ P_ac,exp τ over unavailable intervals (expected power from :mod:`analytics.power`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from analytics.temperature import _arr, _restore_type
+
+
+def _bool_like(mask, *inputs):
+    out = _restore_type(mask.astype(float), *inputs)
+    if hasattr(out, "astype"):
+        return out.astype(bool)
+    return bool(out)
+
+
+def daylight_mask(poa_wm2, poa_min_wm2: float = 50.0):
+    """True where G >= ``poa_min_wm2`` (availability base, METHODS §5). NaN -> False.
+
+    Examples
+    --------
+    >>> daylight_mask([0.0, 49.0, 50.0, float("nan")]).tolist()
+    [False, False, True, False]
+    """
+    return _bool_like(_arr(poa_wm2) >= poa_min_wm2, poa_wm2)
+
+
+def unavailable_mask(p_ac_kw, poa_wm2, p_ac_max_kw: float, outage_fraction: float = 0.01,
+                     poa_min_wm2: float = 50.0):
+    """True where the inverter is out: P_ac <= ``outage_fraction`` · P_ac,max while G >= 50 W/m².
+
+    Missing power or irradiance gives False (information unavailable, not an outage).
+
+    Examples
+    --------
+    >>> unavailable_mask([0.0, 0.0, 50.0], [0.0, 600.0, 600.0], 100.0).tolist()
+    [False, True, False]
+    """
+    m = (_arr(p_ac_kw) <= outage_fraction * p_ac_max_kw) & (_arr(poa_wm2) >= poa_min_wm2)
+    return _bool_like(m, p_ac_kw, poa_wm2)
+
+
+def availability_time(unavailable, daylight, interval_h=1.0) -> float:
+    """Time-based availability A_t = 1 - Σ τ (unavailable) / Σ τ (daylight) (METHODS §5). [fraction]
+
+    ``daylight`` is the base (G >= 50 W/m² with a power reading); unavailable intervals
+    outside it are ignored. NaN when the base is empty.
+
+    Examples
+    --------
+    >>> availability_time([True, False, False, False], [True, True, True, True], 0.25)
+    0.75
+    """
+    u, d, tau = np.broadcast_arrays(_arr(unavailable) > 0, _arr(daylight) > 0, _arr(interval_h))
+    base = tau[d].sum()
+    return float(1.0 - tau[d & u].sum() / base) if base > 0 else float("nan")
+
+
+def lost_energy_kwh(p_ac_exp_kw, interval_h, unavailable) -> float:
+    """E_lost = Σ P_ac,exp τ over unavailable intervals (METHODS §5). [kWh]
+
+    Examples
+    --------
+    >>> lost_energy_kwh([80.0, 80.0], 0.25, [True, False])
+    20.0
+    """
+    p, tau, u = np.broadcast_arrays(_arr(p_ac_exp_kw), _arr(interval_h), _arr(unavailable) > 0)
+    ok = u & np.isfinite(p) & np.isfinite(tau)
+    return float((p[ok] * tau[ok]).sum())
+
+
+def availability_energy(e_ac_kwh, e_lost_kwh):
+    """Energy-based availability A_E = E / (E + E_lost), elementwise (METHODS §5). [fraction]
+
+    NaN when E + E_lost <= 0 (no production expected).
+
+    Examples
+    --------
+    >>> availability_energy(380.0, 20.0)
+    0.95
+    """
+    e, lost = _arr(e_ac_kwh), _arr(e_lost_kwh)
+    tot = e + lost
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = np.where(tot > 0, e / np.where(tot > 0, tot, 1.0), np.nan)
+    return _restore_type(a, e_ac_kwh, e_lost_kwh)

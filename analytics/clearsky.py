@@ -1,0 +1,210 @@
+"""Clear-sky performance index: a degradation cross-check that does not use the POA sensor.
+
+A drifting irradiance sensor maps one to one into a sensor-based degradation rate (METHODS
+§6 pitfalls). Here the expected power comes from modelled clear-sky irradiance instead, on
+periods identified as clear without the sensor under test:
+
+1. Clear-sky irradiance: Ineichen–Perez model with monthly Linke turbidity
+   (``pvlib.location.Location.get_clearsky(model='ineichen')``), transposed to the plane of
+   array with ``pvlib.irradiance.get_total_irradiance`` (Hay–Davies sky diffuse by default),
+   evaluated at interval mid-points (METHODS §10).
+2. Clear periods: the Reno & Hansen (2016) test (``pvlib.clearsky.detect_clearsky``, with the
+   thresholds of Jordan & Hansen 2023 for 1–30-minute data, ``infer_limits=True``) applied to
+   GHI when a GHI sensor is logged, otherwise to the *shape* of the fleet's AC power scaled
+   to W/m² (1000·ΣP_ac/ΣP0). The test fits a scale factor between the measured and the
+   clear-sky curve in every window set, then compares means, maxima, line length and
+   variability, so it judges shape, not level: the fleet's PR and slow degradation do not
+   decide clarity. It runs month by month so that the scale factor follows seasonal
+   clear-sky-model bias and long-term change.
+3. Clear-sky index per day: PI_cs,d = Σ P_ac τ / Σ P0 (G_cs/1000)(1 + γ (T_cell − 25)) η τ
+   over clear, unclipped intervals with G_cs ≥ 200 W/m² (METHODS §4–5), for days where such
+   intervals carry at least half of the day's clear-sky insolation.
+
+Its year-on-year rate (:func:`analytics.degradation.degradation_yoy`) has the clear-sky
+model's absolute bias (5–10 %, from memory) cancelled because each pair compares the same
+season; aerosol trends, soiling and the temperature sensor still enter.
+
+References
+----------
+.. [1] P. Ineichen, R. Perez, "A new airmass independent formulation for the Linke turbidity
+   coefficient," Solar Energy 73(3):151-157, 2002, doi:10.1016/S0038-092X(02)00045-2.
+.. [2] M. J. Reno, C. W. Hansen, "Identification of periods of clear sky irradiance in time
+   series of GHI measurements," Renewable Energy 90:520-531, 2016,
+   doi:10.1016/j.renene.2015.12.031.
+.. [3] D. C. Jordan, C. Hansen, "Clear-sky detection for PV degradation analysis using
+   multiple regression," Renewable Energy 209:393-400, 2023, doi:10.1016/j.renene.2023.04.035.
+.. [4] J. E. Hay, J. A. Davies, "Calculations of the solar radiation incident on an inclined
+   surface," Proc. First Canadian Solar Radiation Data Workshop, 1980 (via pvlib docs).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pvlib
+
+
+def _step(idx: pd.DatetimeIndex) -> pd.Timedelta:
+    """Median spacing of a time index (unit-safe across pandas datetime resolutions)."""
+    return pd.Series(idx).diff().median()
+
+
+def clearsky_poa(times: pd.DatetimeIndex, *, latitude_deg: float, longitude_deg: float,
+                 altitude_m: float, tilt_deg: float, azimuth_deg: float, albedo: float = 0.2,
+                 interval_h: float | None = None, transposition: str = "haydavies") -> pd.DataFrame:
+    """Modelled clear-sky irradiance on the plane of array.
+
+    Parameters
+    ----------
+    times : DatetimeIndex
+        Interval starts, tz-aware (UTC).
+    interval_h : float, optional
+        Interval length; the model is evaluated at ``times + interval_h/2`` (the centre of
+        each averaging interval). Default: inferred from the median spacing.
+    transposition : str, default 'haydavies'
+        ``pvlib.irradiance.get_total_irradiance`` sky-diffuse model ('isotropic', 'haydavies',
+        'perez').
+
+    Returns
+    -------
+    DataFrame
+        Indexed like ``times``: ``ghi_clearsky_wm2``, ``dni_clearsky_wm2``, ``dhi_clearsky_wm2``,
+        ``poa_clearsky_wm2`` [W/m²], ``solar_zenith_deg``.
+    """
+    if times.tz is None:
+        raise ValueError("times must be tz-aware (UTC interval starts)")
+    if interval_h is None:
+        interval_h = _step(times) / pd.Timedelta(hours=1) if len(times) > 1 else 0.0
+    mid = times + pd.Timedelta(hours=interval_h / 2)
+    loc = pvlib.location.Location(latitude_deg, longitude_deg, tz="UTC", altitude=altitude_m)
+    sp = loc.get_solarposition(mid)
+    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
+    extra = pvlib.irradiance.get_extra_radiation(mid)
+    poa = pvlib.irradiance.get_total_irradiance(
+        tilt_deg, azimuth_deg, sp["apparent_zenith"], sp["azimuth"], cs["dni"], cs["ghi"],
+        cs["dhi"], dni_extra=extra, airmass=loc.get_airmass(mid, solar_position=sp)["airmass_relative"],
+        albedo=albedo, model=transposition)
+    out = pd.DataFrame({
+        "ghi_clearsky_wm2": cs["ghi"].to_numpy(), "dni_clearsky_wm2": cs["dni"].to_numpy(),
+        "dhi_clearsky_wm2": cs["dhi"].to_numpy(),
+        "poa_clearsky_wm2": np.nan_to_num(poa["poa_global"].to_numpy(), nan=0.0),
+        "solar_zenith_deg": sp["apparent_zenith"].to_numpy()}, index=times)
+    return out
+
+
+def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
+                         min_clearsky_wm2: float = 50.0) -> pd.Series:
+    """Clear intervals by the Reno & Hansen (2016) test, month by month.
+
+    Parameters
+    ----------
+    measured : Series
+        GHI [W/m²] (then ``clearsky`` is clear-sky GHI), or a power-shape signal in W/m²
+        equivalents, e.g. 1000·ΣP_ac/ΣP0, with ``clearsky`` = clear-sky POA. Regular
+        1–30-minute intervals (thresholds of Jordan & Hansen 2023, ``infer_limits=True``).
+    clearsky : Series
+        Clear-sky reference on the same plane and index. [W/m²]
+    The test and its scale factor run per calendar month (UTC).
+
+    Returns
+    -------
+    Series of bool
+        True where the interval lies in a clear window and the clear-sky reference is at least
+        ``min_clearsky_wm2``; False elsewhere (including missing data).
+    """
+    m = measured.astype(float)
+    c = clearsky.reindex(m.index).astype(float)
+    out = pd.Series(False, index=m.index)
+    step = _step(m.index)
+    for _, mm in m.groupby([m.index.year, m.index.month]):
+        if mm.notna().sum() < 10:
+            continue
+        grid = pd.date_range(mm.index[0], mm.index[-1], freq=step)
+        mg = mm.reindex(grid)
+        cg = c.reindex(grid).fillna(0.0)
+        try:
+            flag = pvlib.clearsky.detect_clearsky(mg.fillna(0.0), cg, infer_limits=True)
+        except ValueError:
+            continue
+        flag &= mg.notna() & (cg >= min_clearsky_wm2)
+        out.loc[mm.index] = flag.reindex(mm.index).fillna(False).to_numpy(dtype=bool)
+    return out
+
+
+def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd.Series, *,
+                      p_dc_kwp: float, gamma_pmp_per_c: float, eta_inv_nom: float = 0.96,
+                      p_ac_max_kw: float | None = None, t_cell_c: pd.Series | None = None,
+                      interval_h: float | None = None, utc_offset_h: float = 0.0,
+                      min_poa_wm2: float = 200.0, min_clear_fraction: float = 0.5) -> pd.DataFrame:
+    """Daily clear-sky performance index of one inverter (Notes step 3 of this module).
+
+    Parameters
+    ----------
+    p_ac_kw : Series
+        Mean AC power per interval, index ``ts_utc`` (interval start). [kW]
+    poa_clearsky_wm2 : Series
+        Clear-sky POA at the same intervals (:func:`clearsky_poa`). [W/m²]
+    clear : Series of bool
+        Clear intervals (:func:`detect_clear_periods`).
+    t_cell_c : Series, optional
+        Cell temperature [°C]; without it no temperature correction is made (the seasonal
+        temperature effect then cancels in year-on-year pairs, but year-to-year weather does
+        not).
+    p_ac_max_kw : float, optional
+        Intervals at or above 0.98 of it are clipped and excluded (METHODS §5).
+    utc_offset_h : float
+        Site standard-time offset: days are local standard time (METHODS §10).
+
+    Returns
+    -------
+    DataFrame indexed by day
+        ``pi_clearsky`` [fraction] (NaN on days that are not clear enough), ``clear_fraction``
+        (share of the day's clear-sky insolation above ``min_poa_wm2`` in clear intervals),
+        ``n_clear``.
+
+    Examples
+    --------
+    >>> t = pd.date_range("2021-06-01 10:00", periods=4, freq="1h", tz="UTC")
+    >>> g = pd.Series(800.0, t)
+    >>> out = clearsky_daily_pi(pd.Series(76.8, t), g, pd.Series(True, t), p_dc_kwp=100,
+    ...                         gamma_pmp_per_c=-0.004, eta_inv_nom=0.96)
+    >>> round(float(out["pi_clearsky"].iloc[0]), 4)   # 76.8 / (100 * 0.8 * 0.96)
+    1.0
+    """
+    idx = p_ac_kw.index
+    if interval_h is None:
+        interval_h = _step(idx) / pd.Timedelta(hours=1) if len(idx) > 1 else 1.0
+    g = poa_clearsky_wm2.reindex(idx).astype(float)
+    temp = 1.0 if t_cell_c is None else 1 + gamma_pmp_per_c * (t_cell_c.reindex(idx) - 25.0)
+    p_exp = p_dc_kwp * g / 1000.0 * temp * eta_inv_nom
+    day = (idx + pd.Timedelta(hours=utc_offset_h)).tz_localize(None).normalize()
+    window = g >= min_poa_wm2
+    use = window & clear.reindex(idx).fillna(False).astype(bool) & p_ac_kw.notna() & p_exp.notna()
+    if p_ac_max_kw is not None:
+        use &= p_ac_kw < 0.98 * p_ac_max_kw
+    df = pd.DataFrame({"num": (p_ac_kw * interval_h).where(use, 0.0),
+                       "den": (p_exp * interval_h).where(use, 0.0),
+                       "h_all": g.where(window, 0.0), "h_clear": g.where(use, 0.0),
+                       "n": use.astype(int)}, index=idx)
+    d = df.groupby(day).sum()
+    frac = d["h_clear"] / d["h_all"].where(d["h_all"] > 0)
+    pi = (d["num"] / d["den"].where(d["den"] > 0)).where(frac >= min_clear_fraction)
+    out = pd.DataFrame({"pi_clearsky": pi, "clear_fraction": frac, "n_clear": d["n"]})
+    out.index.name = "day"
+    return out
+
+
+def densify_clear_days(pi_clearsky: pd.Series, *, window_days: int = 15,
+                       min_days: int = 2) -> pd.Series:
+    """Centred rolling median of the clear-day index over ``window_days`` calendar days.
+
+    Clear days one year apart rarely coincide, so pairing raw clear days leaves few pairs;
+    METHODS §6 step 1 allows weekly or monthly medians of a noisy index. Windows with fewer
+    than ``min_days`` clear days are NaN.
+    """
+    s = pi_clearsky.dropna()
+    if s.empty:
+        return s
+    s.index = pd.DatetimeIndex(s.index)
+    full = s.reindex(pd.date_range(s.index[0], s.index[-1], freq="D"))
+    return full.rolling(window_days, center=True, min_periods=min_days).median().dropna()

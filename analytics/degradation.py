@@ -1,0 +1,680 @@
+"""Degradation rates with uncertainty from the daily performance index (METHODS §6, §7).
+
+Every estimator here returns a :class:`RateResult`: a rate ``rd_pct_per_yr`` (negative = loss),
+its confidence interval, the number of points or pairs it rests on, the warnings raised, and
+details for the dashboard (distribution, fitted parameters). Too little data raises
+:class:`InsufficientDataError` (a ``ValueError``) with the reason in words; fewer than three
+years is valid but warned about.
+
+Methods
+-------
+* :func:`degradation_yoy` — year-on-year (Jordan et al. 2018): the median of the rates of all
+  pairs of days one year apart, with a moving-block bootstrap interval (Künsch 1989) whose
+  block length comes from the autocorrelation of the pair rates.
+* :func:`degradation_rlm` — robust regression (statsmodels RLM, Huber's T norm) of the
+  monthly insolation-weighted index on time with annual harmonics.
+* :func:`degradation_stl` — RLM of the trend of a robust STL decomposition (Cleveland et al.
+  1990), the variant Lindig et al. 2018 found most accurate among simple models.
+* :func:`peer_relative_pi` — each inverter's index divided by the median of its peers, whose
+  rate is the inverter's rate relative to the fleet (irradiance and sensor effects common to
+  the site cancel).
+* :func:`compare_methods` — verdict on whether the methods agree within their intervals.
+
+Field data at system level are screening evidence: they include balance-of-system losses,
+soiling and sensor drift. A warranty claim follows its contract and the test procedure it
+names (IEC 60891 flash tests), see :mod:`analytics.warranty`.
+
+References
+----------
+.. [1] D. C. Jordan, C. Deline, S. R. Kurtz, G. M. Kimball, M. Anderson, "Robust PV
+   degradation methodology and application," IEEE J. Photovolt. 8(2):525-531, 2018,
+   doi:10.1109/JPHOTOV.2017.2779779.
+.. [2] H. R. Künsch, "The jackknife and the bootstrap for general stationary observations,"
+   Ann. Statist. 17(3):1217-1241, 1989, doi:10.1214/aos/1176347265.
+.. [3] R. B. Cleveland, W. S. Cleveland, J. E. McRae, I. Terpenning, "STL: a seasonal-trend
+   decomposition procedure based on loess," J. Official Statistics 6(1):3-73, 1990.
+.. [4] S. Lindig, I. Kaaya, K.-A. Weiss, D. Moser, M. Topic, "Review of statistical and
+   analytical degradation models for photovoltaic modules and systems as well as related
+   improvements," IEEE J. Photovolt. 8(6):1773-1786, 2018, doi:10.1109/JPHOTOV.2018.2870532.
+.. [5] W. K. Newey, K. D. West, "A simple, positive semi-definite, heteroskedasticity and
+   autocorrelation consistent covariance matrix," Econometrica 55(3):703-708, 1987.
+.. [6] D. C. Jordan, S. R. Kurtz, "Photovoltaic degradation rates — an analytical review,"
+   Prog. Photovolt. 21(1):12-29, 2013, doi:10.1002/pip.1182.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+import pandas as pd
+import scipy.stats
+import statsmodels.api as sm
+from statsmodels.tsa.seasonal import STL
+
+DAYS_PER_YEAR = 365.25
+
+
+class InsufficientDataError(ValueError):
+    """Too little usable data for a rate; the message says how much there is and is needed."""
+
+
+@dataclass
+class RateResult:
+    """One degradation estimate. ``rate_pct_per_yr`` is negative for a loss [%/yr]."""
+
+    method: str
+    rate_pct_per_yr: float | None
+    ci_low: float | None = None
+    ci_high: float | None = None
+    confidence: float | None = None
+    n_points: int = 0
+    reason: str | None = None
+    warnings: list[str] = field(default_factory=list)
+    details: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    @classmethod
+    def refused(cls, method: str, reason: str, **details) -> RateResult:
+        return cls(method=method, rate_pct_per_yr=None, reason=reason, details=details)
+
+
+def _warn(result: RateResult, message: str) -> None:
+    result.warnings.append(message)
+    warnings.warn(message, stacklevel=3)
+
+
+# ---------------------------------------------------------------- input preparation
+
+
+def _as_daily(pi: pd.Series) -> pd.Series:
+    """``pi`` with a daily DatetimeIndex (dates accepted), sorted, NaN removed."""
+    if not isinstance(pi, pd.Series):
+        raise ValueError("pi must be a pandas Series indexed by day")
+    s = pi.astype(float).copy()
+    s.index = pd.DatetimeIndex(pd.to_datetime(s.index)).normalize()
+    if s.index.tz is not None:
+        s.index = s.index.tz_localize(None)
+    if s.index.has_duplicates:
+        raise ValueError("pi has duplicate days")
+    return s.sort_index().dropna()
+
+
+def usable_daily_pi(pi: pd.Series, day_valid: pd.Series | None = None, *,
+                    commissioned=None, stabilisation_days: int = 180,
+                    pi_min: float = 0.3, pi_max: float = 1.3) -> tuple[pd.Series, dict]:
+    """Select the days that enter a degradation fit, and count what survived each step.
+
+    Parameters
+    ----------
+    pi : Series
+        Daily performance index, measured / expected energy, indexed by day. [fraction]
+    day_valid : Series of bool, optional
+        The daily table's coverage verdict (METHODS §5: ≥80 % of insolation in valid intervals).
+    commissioned : date, optional
+        Commissioning date; the first ``stabilisation_days`` after it are skipped.
+    stabilisation_days : int, default 180
+        Days skipped after commissioning for light-induced and metastable effects (LID, LeTID,
+        CdTe): METHODS §6 step 1, first 3–6 months (from memory); 180 d is the upper end.
+    pi_min, pi_max : float
+        Plausibility window for a daily index, METHODS §5 (common practice).
+
+    Returns
+    -------
+    (Series, dict)
+        The usable daily index, and ``{"n_days_input", "n_days_valid", "n_days_after_stabilisation",
+        "n_days_used", "fraction_used"}``.
+    """
+    s = pd.Series(np.asarray(pi, dtype=float), index=pd.DatetimeIndex(pd.to_datetime(pi.index)))
+    report = {"n_days_input": int(len(s))}
+    keep = s.notna().to_numpy().copy()
+    if day_valid is not None:
+        keep &= np.asarray(day_valid, dtype=bool)
+    report["n_days_valid"] = int(keep.sum())
+    if commissioned is not None:
+        first = pd.Timestamp(commissioned) + pd.Timedelta(days=stabilisation_days)
+        keep &= (s.index >= first)
+        report["stabilisation_until"] = first.date().isoformat()
+    report["n_days_after_stabilisation"] = int(keep.sum())
+    keep &= ((s >= pi_min) & (s <= pi_max)).to_numpy()
+    report["n_days_used"] = int(keep.sum())
+    report["fraction_used"] = round(report["n_days_used"] / max(1, len(s)), 4)
+    return _as_daily(s[keep]), report
+
+
+def check_span(days: pd.DatetimeIndex, *, min_years: float = 2.0, warn_years: float = 3.0,
+               what: str = "daily index") -> tuple[float, str | None]:
+    """Years spanned by ``days``; raise below ``min_years``, return a warning below ``warn_years``.
+
+    Two years give one year of year-on-year pairs, the hard minimum; three or more are
+    recommended (METHODS §6, from memory).
+    """
+    if len(days) < 2:
+        raise InsufficientDataError(f"{what}: {len(days)} usable days; at least "
+                                    f"{min_years:g} years are needed")
+    span = ((days.max() - days.min()).days + 1) / DAYS_PER_YEAR
+    if span < min_years:
+        raise InsufficientDataError(
+            f"{what}: usable data span {span:.2f} years ({len(days)} days); at least "
+            f"{min_years:g} years are needed for a degradation rate")
+    msg = None
+    if span < warn_years:
+        msg = (f"{what}: only {span:.2f} years of usable data; {warn_years:g} or more are "
+               "recommended, the interval is wide and seasonal effects may not average out")
+    return span, msg
+
+
+# ---------------------------------------------------------------- year-on-year
+
+
+def yoy_rates(pi: pd.Series, *, lag_days: int = 365, reference: str = "pairwise") -> pd.Series:
+    """Rate of every pair of days ``lag_days`` apart, indexed by the earlier day [%/yr].
+
+    Notes
+    -----
+    METHODS §6 steps 2–3 (Jordan et al. 2018):
+    ``r_d = 100 (PI_{d+365} - PI_d) / PI_ref``, ``PI_ref = PI_d`` (``reference='pairwise'``)
+    or the median of the first 365 days (``'year0'``). The lag is fixed at 365 days, so a
+    pair spanning 29 February is one day short of a calendar year; the rate is still
+    expressed per 365 days (0.07 % relative, negligible).
+
+    Examples
+    --------
+    >>> days = pd.date_range("2020-01-01", periods=731, freq="D")
+    >>> t = np.arange(731)
+    >>> r = yoy_rates(pd.Series(0.995 ** (t / 365), index=days))
+    >>> round(float(r.median()), 6)
+    -0.5
+    """
+    if reference not in ("pairwise", "year0"):
+        raise ValueError("reference must be 'pairwise' or 'year0'")
+    s = _as_daily(pi)
+    if s.empty:
+        return pd.Series(dtype=float, name="rd_pct_per_yr")
+    full = s.reindex(pd.date_range(s.index[0], s.index[-1], freq="D"))
+    later = full.shift(-lag_days)
+    if reference == "pairwise":
+        ref = full
+    else:
+        ref = float(full.iloc[:365].median())
+    r = 100.0 * (later - full) / ref * (365.0 / lag_days)
+    return r.dropna().rename("rd_pct_per_yr")
+
+
+def acf_block_length(x, *, threshold: float = 0.2, max_block: int | None = None) -> int:
+    """Smallest lag at which the autocorrelation of ``x`` falls below ``threshold`` (≥ 1).
+
+    The block of a moving-block bootstrap must be long enough that observations in different
+    blocks are nearly independent (Künsch 1989); the 0.2 threshold is METHODS §6 step 5
+    (common practice). Capped at ``max_block`` (default n/4) so enough blocks remain.
+
+    Examples
+    --------
+    >>> acf_block_length(np.arange(10) % 2 * 1.0)  # lag-1 ACF is -0.9 < 0.2
+    1
+    """
+    x = np.asarray(x, dtype=float)
+    x = x[np.isfinite(x)]
+    n = len(x)
+    if n < 4:
+        return 1
+    cap = max(1, n // 4 if max_block is None else max_block)
+    d = x - x.mean()
+    denom = float(d @ d)
+    if denom == 0:
+        return 1
+    # ACF by FFT: O(n log n) for long series
+    nfft = 1 << (2 * n - 1).bit_length()
+    f = np.fft.rfft(d, nfft)
+    acf = np.fft.irfft(f * np.conj(f), nfft)[: cap + 1] / denom
+    below = np.nonzero(acf[1:] < threshold)[0]
+    return int(min(cap, below[0] + 1)) if below.size else cap
+
+
+def block_bootstrap(x, stat=np.median, *, n_resamples: int = 1000, block_length: int | None = None,
+                    rng: np.random.Generator | int | None = None) -> tuple[np.ndarray, int]:
+    """Moving-block bootstrap (Künsch 1989) distribution of ``stat`` over resamples of ``x``.
+
+    Each resample concatenates blocks of ``block_length`` consecutive values whose starts are
+    drawn uniformly from ``0 .. n - block_length`` and is cut to ``n`` values. ``stat`` must
+    accept ``axis=1``; for ``np.median`` a faster exact path works on ranks (same result).
+    Returns ``(values, block_length)``; pass a seed or a ``numpy.random.Generator`` for
+    reproducible results.
+
+    Examples
+    --------
+    >>> vals, b = block_bootstrap(np.arange(100.0), n_resamples=200, block_length=5, rng=1)
+    >>> b, bool(40 < np.median(vals) < 60)
+    (5, True)
+    """
+    x = np.asarray(x, dtype=float)
+    n = len(x)
+    if n < 2:
+        raise InsufficientDataError(f"{n} values; a bootstrap needs at least 2")
+    b = acf_block_length(x) if block_length is None else int(block_length)
+    b = max(1, min(b, n))
+    gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
+    n_blocks = -(-n // b)
+    starts = gen.integers(0, n - b + 1, size=(n_resamples, n_blocks), dtype=np.int32)
+    idx = (starts[:, :, None] + np.arange(b, dtype=np.int32)).reshape(n_resamples, -1)[:, :n]
+    if stat is not np.median:
+        return stat(x[idx], axis=1), b
+    # median on ranks: partitioning small integers is faster than floats; exact.
+    order = np.argsort(x, kind="stable")
+    xs = x[order]
+    rank = np.empty(n, dtype=np.int16 if n < 32_000 else np.int32)
+    rank[order] = np.arange(n)
+    r = rank[idx]
+    k = n // 2
+    if n % 2:
+        return xs[np.partition(r, k, axis=1)[:, k]], b
+    p = np.partition(r, [k - 1, k], axis=1)
+    return (xs[p[:, k - 1]] + xs[p[:, k]]) / 2, b
+
+
+def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int = 1000,
+                    rng: np.random.Generator | int | None = 0, lag_days: int = 365,
+                    reference: str = "pairwise", block_length: int | None = None,
+                    min_years: float = 2.0, warn_years: float = 3.0, min_pairs: int = 90,
+                    hist_bin_pct: float = 0.25, breaks=None, method: str = "yoy") -> RateResult:
+    """Year-on-year degradation rate with a moving-block bootstrap interval.
+
+    Parameters
+    ----------
+    pi : Series
+        Usable daily (temperature-corrected) performance index indexed by day, e.g. from
+        :func:`usable_daily_pi`. [fraction]
+    confidence : float, default 0.95
+        Two-sided level of the percentile interval.
+    n_resamples : int, default 1000
+        Bootstrap resamples (METHODS §6: ≥ 1000).
+    rng : Generator or int, default 0
+        Seed or generator: the same seed gives the same interval.
+    block_length : int, optional
+        Default: :func:`acf_block_length` of the pair rates in time order.
+    min_years, warn_years : float
+        Refuse below, warn below (METHODS §6 minimum data).
+    min_pairs : int, default 90
+        Refuse with fewer pairs (a season's worth; common practice).
+    breaks : list of dates, optional
+        Change points (:mod:`analytics.changepoint`): pairs whose year spans one are dropped,
+        giving the rate within stable segments.
+
+    Returns
+    -------
+    RateResult
+        ``rate_pct_per_yr`` = median pair rate [%/yr]; ``n_points`` = number of pairs;
+        ``details``: histogram of the pair rates, block length, 68.2 % interval, P90/P95
+        exceedance (10th/5th percentile of the bootstrap rates, METHODS §6).
+
+    Notes
+    -----
+    Jordan et al. 2018: each pair compares the same season, so seasonal temperature,
+    spectral, angle-of-incidence and soiling patterns cancel to first order; the median
+    tolerates up to half the pairs being bad. A consecutive pair rate is correlated with its
+    neighbours (weather regimes, soiling), so the bootstrap resamples blocks whose length is
+    the lag at which the pair rates' autocorrelation drops below 0.2 (Künsch 1989).
+
+    Examples
+    --------
+    >>> days = pd.date_range("2020-01-01", periods=3 * 365, freq="D")
+    >>> t = np.arange(len(days))
+    >>> pi = pd.Series(0.995 ** (t / 365) * (1 + 0.02 * np.sin(2 * np.pi * t / 365)), days)
+    >>> res = degradation_yoy(pi)
+    >>> round(res.rate_pct_per_yr, 3), res.n_points
+    (-0.5, 730)
+    """
+    if not 0 < confidence < 1:
+        raise ValueError("confidence must be between 0 and 1")
+    s = _as_daily(pi)
+    span, msg = check_span(s.index, min_years=min_years, warn_years=warn_years)
+    r = yoy_rates(s, lag_days=lag_days, reference=reference)
+    n_spanning = 0
+    if breaks:
+        first = r.index.to_numpy()
+        spans = np.zeros(len(r), dtype=bool)
+        for bday in pd.DatetimeIndex(pd.to_datetime(list(breaks))).to_numpy():
+            spans |= (first < bday) & (first + np.timedelta64(lag_days, "D") >= bday)
+        n_spanning = int(spans.sum())
+        r = r[~spans]
+    if len(r) < min_pairs:
+        raise InsufficientDataError(
+            f"{len(r)} year-on-year pairs (days with a valid day {lag_days} days later); "
+            f"at least {min_pairs} are needed")
+    vals = r.to_numpy()
+    boot, b = block_bootstrap(vals, np.median, n_resamples=n_resamples,
+                              block_length=block_length, rng=rng)
+    alpha = 1 - confidence
+    lo, hi = np.quantile(boot, [alpha / 2, 1 - alpha / 2])
+    lo68, hi68 = np.quantile(boot, [0.159, 0.841])
+    rd = float(np.median(vals))
+    res = RateResult(method=method, rate_pct_per_yr=rd, ci_low=float(lo), ci_high=float(hi),
+                     confidence=confidence, n_points=int(len(vals)))
+    if msg:
+        _warn(res, msg)
+    _sanity(res)
+    edges = _hist_edges(vals, hist_bin_pct)
+    counts, edges = np.histogram(np.clip(vals, edges[0], edges[-1]), bins=edges)
+    res.details = {
+        "n_days": int(len(s)), "span_years": round(span, 3), "lag_days": lag_days,
+        "reference": reference, "block_length": b, "n_resamples": n_resamples,
+        "n_pairs_spanning_breaks_dropped": n_spanning,
+        "ci_68": [float(lo68), float(hi68)],
+        "p90_pct_per_yr": float(np.quantile(boot, 0.10)),
+        "p95_pct_per_yr": float(np.quantile(boot, 0.05)),
+        "first_pair_day": r.index[0].date().isoformat(),
+        "last_pair_day": (r.index[-1] + pd.Timedelta(days=lag_days)).date().isoformat(),
+        "histogram": {"edges_pct_per_yr": [round(float(e), 4) for e in edges],
+                      "counts": [int(c) for c in counts]},
+    }
+    return res
+
+
+def _hist_edges(vals: np.ndarray, width: float) -> np.ndarray:
+    """Histogram edges of fixed ``width`` covering the 1st-99th percentile (tails clipped in)."""
+    lo, hi = np.quantile(vals, [0.01, 0.99])
+    lo = np.floor(lo / width) * width
+    hi = max(np.ceil(hi / width) * width, lo + width)
+    n = min(400, int(round((hi - lo) / width)))
+    return np.linspace(lo, hi, n + 1)
+
+
+def _sanity(res: RateResult, *, low: float = -2.0, high: float = 0.5) -> None:
+    """Flag rates outside the review band of METHODS §6 (common practice; Jordan & Kurtz 2013)."""
+    rd = res.rate_pct_per_yr
+    if rd is not None and not low <= rd <= high:
+        _warn(res, f"{res.method}: rate {rd:+.2f} %/yr is outside {low:+.1f}..{high:+.1f} %/yr, "
+                   "the range of published field rates (Jordan & Kurtz 2013): review the data "
+                   "(steps, sensor drift, soiling, outages) before using it")
+
+
+# ---------------------------------------------------------------- regression
+
+
+def monthly_pi(pi: pd.Series, weights: pd.Series | None = None, *, min_days: int = 10) -> pd.Series:
+    """Monthly insolation-weighted performance index, ``Σ w_d PI_d / Σ w_d`` per month.
+
+    With ``weights`` = the day's expected energy over valid intervals (``e_exp_valid_kwh``)
+    this equals Σ measured / Σ expected energy, the ratio of sums METHODS §5 asks for.
+    Months with fewer than ``min_days`` usable days are NaN (common practice). The index is
+    the first day of each month.
+
+    Examples
+    --------
+    >>> d = pd.date_range("2021-01-01", periods=31)
+    >>> round(float(monthly_pi(pd.Series(0.9, d), pd.Series(2.0, d)).iloc[0]), 6)
+    0.9
+    """
+    s = _as_daily(pi)
+    w = (pd.Series(1.0, index=s.index) if weights is None
+         else _as_daily(weights).reindex(s.index).fillna(0.0))
+    if (w < 0).any():
+        raise ValueError("weights must be non-negative")
+    month = s.index.to_period("M")
+    num = (s * w).groupby(month).sum()
+    den = w.groupby(month).sum()
+    n = s.groupby(month).count()
+    out = (num / den.where(den > 0)).where(n >= min_days)
+    full = pd.period_range(month.min(), month.max(), freq="M") if len(s) else month.unique()
+    out = out.reindex(full)
+    out.index = out.index.to_timestamp()
+    return out.rename("pi")
+
+
+def _hac_lags(resid: np.ndarray) -> int:
+    """HAC truncation lag: the larger of the Newey–West rule floor(4 (T/100)^(2/9)) (the
+    statsmodels ``cov_hac`` default) and the lag where the residual ACF drops below 0.2,
+    so that long soiling or weather correlations are not cut off."""
+    t = len(resid)
+    nw = int(np.floor(4 * (t / 100.0) ** (2.0 / 9.0)))
+    return int(max(1, nw, acf_block_length(resid)))
+
+
+def rlm_rate(t_yr, y, *, harmonics: int = 1, confidence: float = 0.95, weights=None,
+             hac: bool = True, hac_maxlags: int | None = None, method: str = "rlm") -> RateResult:
+    """Robust (Huber) regression rate of ``y`` on time with annual harmonic terms.
+
+    Parameters
+    ----------
+    t_yr : array
+        Time in years from the start of the series (t = 0 at the first point). [yr]
+    y : array
+        Performance index. [fraction]
+    harmonics : int, default 1
+        Number of annual harmonic pairs sin(2πkt), cos(2πkt); 0 for none.
+    weights : array, optional
+        Not used by the fit; recorded for callers that aggregate.
+    hac : bool, default True
+        Interval from a Newey–West (HAC) covariance, see Notes; False gives statsmodels' RLM
+        'H1' covariance, which assumes independent residuals.
+
+    Returns
+    -------
+    RateResult
+        Rate = 100 β1/β0 [%/yr], β0 the de-seasonalised level at t = 0 (the start),
+        interval by the delta method (METHODS §7).
+
+    Notes
+    -----
+    Model A of METHODS §7: PI = β0 + β1 t + Σ_k (a_k sin 2πkt + b_k cos 2πkt), fitted with
+    ``statsmodels.api.RLM(y, X, M=HuberT(t=1.345))`` (statsmodels docs). Interval: RLM's own
+    covariances assume independent errors, but monthly residuals are serially correlated
+    (soiling, weather regimes), which makes them too narrow. We therefore re-fit the
+    converged IRLS step — weighted least squares with RLM's final weights, which reproduces
+    RLM's coefficients — with ``cov_type='HAC'`` (Newey & West 1987, Bartlett kernel) and a
+    lag that is the larger of the Newey–West rule and the residual-ACF lag
+    (:func:`_hac_lags`). HAC was chosen over a block bootstrap because it costs one extra
+    fit instead of ~1000 RLM refits per inverter, and because with ~60 monthly points a
+    block bootstrap has too few blocks to be reliable. Student-t quantiles with the residual
+    degrees of freedom are used. Var(Rd) by the delta method:
+    (100/β0)² [Var β1 − 2 (β1/β0) Cov(β0, β1) + (β1/β0)² Var β0].
+
+    Examples
+    --------
+    >>> t = np.arange(60) / 12
+    >>> round(rlm_rate(t, 1 - 0.005 * t + 0.02 * np.sin(2 * np.pi * t)).rate_pct_per_yr, 4)
+    -0.5
+    """
+    t = np.asarray(t_yr, dtype=float)
+    y = np.asarray(y, dtype=float)
+    ok = np.isfinite(t) & np.isfinite(y)
+    t, y = t[ok], y[ok]
+    n_par = 2 + 2 * harmonics
+    if len(y) < n_par + 3:
+        raise InsufficientDataError(f"{len(y)} points; a fit with {n_par} parameters needs "
+                                    f"at least {n_par + 3}")
+    cols = [np.ones_like(t), t]
+    for k in range(1, harmonics + 1):
+        cols += [np.sin(2 * np.pi * k * t), np.cos(2 * np.pi * k * t)]
+    X = np.column_stack(cols)
+    fit = sm.RLM(y, X, M=sm.robust.norms.HuberT(t=1.345)).fit(
+        maxiter=50, tol=1e-8, scale_est="mad", cov="H1", conv="dev")
+    b0, b1 = float(fit.params[0]), float(fit.params[1])
+    if hac:
+        lags = hac_maxlags if hac_maxlags is not None else _hac_lags(fit.resid)
+        w = np.clip(fit.weights, 1e-6, None)
+        wls = sm.WLS(y, X, weights=w).fit(cov_type="HAC", cov_kwds={"maxlags": lags})
+        cov = np.asarray(wls.cov_params())[:2, :2]
+        cov_kind = f"HAC (Newey-West, maxlags={lags}) on RLM weights"
+    else:
+        cov = np.asarray(fit.cov_params())[:2, :2]
+        cov_kind = "RLM H1 (independent errors)"
+        lags = 0
+    g = np.array([-100 * b1 / b0 ** 2, 100 / b0])  # gradient of Rd = 100 b1/b0 wrt (b0, b1)
+    se = float(np.sqrt(max(g @ cov @ g, 0.0)))
+    rd = 100 * b1 / b0
+    q = scipy.stats.t.ppf(0.5 + confidence / 2, df=max(1, len(y) - n_par))
+    res = RateResult(method=method, rate_pct_per_yr=rd, ci_low=float(rd - q * se), ci_high=float(rd + q * se),
+                     confidence=confidence, n_points=int(len(y)))
+    res.details = {
+        "params": [float(p) for p in fit.params], "se_pct_per_yr": se, "covariance": cov_kind,
+        "hac_maxlags": lags, "harmonics": harmonics,
+        "n_downweighted": int((fit.weights < 0.999).sum()),
+        "level_at_start": b0,
+    }
+    return res
+
+
+def _decimal_years(idx: pd.DatetimeIndex) -> np.ndarray:
+    return ((idx - idx[0]) / pd.Timedelta(days=1)).to_numpy(dtype=float) / DAYS_PER_YEAR
+
+
+def degradation_rlm(pi: pd.Series, weights: pd.Series | None = None, *,
+                    aggregate: str = "monthly", harmonics: int = 1, confidence: float = 0.95,
+                    min_years: float = 2.0, warn_years: float = 3.0, min_days_per_month: int = 10,
+                    method: str = "rlm") -> RateResult:
+    """Robust-regression degradation rate of the daily index (METHODS §7 model A).
+
+    ``aggregate='monthly'`` first forms the monthly insolation-weighted index
+    (:func:`monthly_pi`) — fewer, less correlated points; ``'daily'`` fits every usable day.
+    Time is in decimal years from the first point, so the rate is relative to the fitted
+    start level. See :func:`rlm_rate` for the fit and its HAC interval.
+    """
+    s = _as_daily(pi)
+    span, msg = check_span(s.index, min_years=min_years, warn_years=warn_years)
+    if aggregate == "monthly":
+        m = monthly_pi(s, weights, min_days=min_days_per_month).dropna()
+        # months are placed at their mid-point
+        idx = m.index + pd.Timedelta(days=14.5)
+        t = ((idx - s.index[0]) / pd.Timedelta(days=1)).to_numpy(dtype=float) / DAYS_PER_YEAR
+        y = m.to_numpy()
+    elif aggregate == "daily":
+        t, y = _decimal_years(s.index), s.to_numpy()
+    else:
+        raise ValueError("aggregate must be 'monthly' or 'daily'")
+    res = rlm_rate(t, y, harmonics=harmonics, confidence=confidence, method=method)
+    if msg:
+        _warn(res, msg)
+    _sanity(res)
+    res.details.update({"aggregate": aggregate, "span_years": round(span, 3), "n_days": len(s)})
+    return res
+
+
+def degradation_stl(pi: pd.Series, weights: pd.Series | None = None, *, confidence: float = 0.95,
+                    seasonal: int = 7, min_years: float = 2.0, warn_years: float = 3.0,
+                    min_days_per_month: int = 10, max_missing_fraction: float = 0.25,
+                    method: str = "stl") -> RateResult:
+    """Degradation rate from the trend of a robust STL decomposition (METHODS §7 model B).
+
+    Steps: monthly insolation-weighted index; months without enough data linearly
+    interpolated (STL needs a regular series; refused above ``max_missing_fraction``);
+    ``statsmodels.tsa.seasonal.STL(x, period=12, seasonal=7, robust=True)`` (Cleveland et al.
+    1990); RLM (Huber) of the trend on time; rate relative to the fitted start level.
+
+    Interval: the STL trend is a smoother, so its residuals about a line are strongly
+    autocorrelated by construction and any covariance computed from them is meaningless.
+    The half-width is therefore taken from the HAC RLM fit of the de-seasonalised series
+    (trend + remainder = index − seasonal), whose scatter is the data's own, and centred on
+    the trend rate. ``n_points`` counts the months with real data.
+    """
+    s = _as_daily(pi)
+    span, msg = check_span(s.index, min_years=min_years, warn_years=warn_years)
+    m = monthly_pi(s, weights, min_days=min_days_per_month)
+    n_real = int(m.notna().sum())
+    missing = 1 - n_real / len(m)
+    if len(m) < 24:
+        raise InsufficientDataError(f"{len(m)} months; STL with a 12-month period needs 24")
+    if missing > max_missing_fraction:
+        raise InsufficientDataError(
+            f"{missing:.0%} of months lack {min_days_per_month} usable days; STL needs a "
+            f"regular series (at most {max_missing_fraction:.0%} may be interpolated)")
+    x = m.interpolate(limit_direction="both")
+    dec = STL(x.to_numpy(), period=12, seasonal=seasonal, robust=True).fit()
+    t = _decimal_years(x.index)
+    trend_fit = rlm_rate(t, dec.trend, harmonics=0, hac=False, method=method)
+    real = m.notna().to_numpy()
+    deseason = (x.to_numpy() - dec.seasonal)[real]
+    spread = rlm_rate(t[real], deseason, harmonics=0, confidence=confidence, method=method)
+    rd = trend_fit.rate_pct_per_yr
+    half = (spread.ci_high - spread.ci_low) / 2
+    res = RateResult(method=method, rate_pct_per_yr=rd, ci_low=float(rd - half), ci_high=float(rd + half),
+                     confidence=confidence, n_points=n_real)
+    if msg:
+        _warn(res, msg)
+    _sanity(res)
+    res.details = {"span_years": round(span, 3), "n_months": len(m), "n_months_interpolated":
+                   len(m) - n_real, "seasonal": seasonal, "interval_from": "HAC RLM of the "
+                   "de-seasonalised monthly index", "deseasonalised_rate_pct_per_yr":
+                   spread.rate_pct_per_yr, "hac_maxlags": spread.details["hac_maxlags"],
+                   "trend_level_at_start": trend_fit.details["level_at_start"]}
+    return res
+
+
+# ---------------------------------------------------------------- peers and comparison
+
+
+def peer_relative_pi(pi_frame: pd.DataFrame, *, min_peers: int = 3) -> pd.DataFrame:
+    """Each inverter's daily index divided by the median of its peers' on the same day.
+
+    Parameters
+    ----------
+    pi_frame : DataFrame
+        Daily index, one column per inverter of one peer group, NaN where not usable.
+    min_peers : int, default 3
+        Days with fewer usable peers (excluding the inverter itself) are NaN. METHODS §9 asks
+        for ≥ 5 peers for outlier alarms; a degradation trend averages over years, so 3 is
+        accepted here (common practice).
+
+    Returns
+    -------
+    DataFrame
+        Same shape: R_i,d = PI_i,d / median_{j≠i} PI_j,d (METHODS §9). Its year-on-year
+        rate is the inverter's rate relative to the fleet; what the site shares (irradiance
+        sensor, weather, clear-sky model) cancels, so a drifting site sensor does not appear
+        in it — but neither does degradation common to the whole fleet.
+
+    Examples
+    --------
+    >>> f = pd.DataFrame({"a": [0.9], "b": [1.0], "c": [1.0], "d": [1.1]})
+    >>> peer_relative_pi(f, min_peers=3).round(4).iloc[0].tolist()
+    [0.9, 1.0, 1.0, 1.1]
+    """
+    arr = pi_frame.to_numpy(dtype=float)
+    out = np.full_like(arr, np.nan)
+    for i in range(arr.shape[1]):
+        peers = np.delete(arr, i, axis=1)
+        n = np.isfinite(peers).sum(axis=1)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows
+            med = np.nanmedian(peers, axis=1)
+        out[:, i] = np.where(n >= min_peers, arr[:, i] / med, np.nan)
+    return pd.DataFrame(out, index=pi_frame.index, columns=pi_frame.columns)
+
+
+SENSOR_METHODS = ("yoy", "rlm", "stl")
+DRIFT_WARNING = ("sensor-based and clear-sky rates disagree: check POA sensor calibration "
+                 "(drift) before using the sensor-based rate")
+
+
+def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "clearsky_yoy"
+                    ) -> dict:
+    """Verdict on whether absolute-rate methods agree within their intervals.
+
+    Two methods agree when their intervals overlap (a lenient, easily explained rule; the
+    methods share data, so their errors are positively correlated). The peer-relative rate is
+    relative to the fleet and is not compared with absolute rates. Returns
+    ``{"agree": bool | None, "compared": [...], "disagreements": [[a, b], ...],
+    "warnings": [...]}``; ``agree`` is None when fewer than two methods have an interval.
+    """
+    have = {k: r for k, r in results.items()
+            if k != "peer_relative" and r is not None and r.rate_pct_per_yr is not None
+            and r.ci_low is not None and r.ci_high is not None}
+    names = sorted(have)
+    bad = []
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            ra, rb = have[a], have[b]
+            if ra.ci_high < rb.ci_low or rb.ci_high < ra.ci_low:
+                bad.append([a, b])
+    msgs = []
+    if any(clearsky_method in p and (set(p) & set(SENSOR_METHODS)) for p in bad):
+        msgs.append(DRIFT_WARNING)
+    sensor_bad = [p for p in bad if set(p) <= set(SENSOR_METHODS)]
+    if sensor_bad:
+        msgs.append("sensor-based methods disagree (" + "; ".join(" vs ".join(p) for p in sensor_bad)
+                    + "): look for steps (change points), soiling or seasonal artefacts")
+    return {"agree": None if len(names) < 2 else not bad, "compared": names,
+            "disagreements": bad, "warnings": msgs}

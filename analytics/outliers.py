@@ -1,0 +1,265 @@
+"""Fleet outliers: inverters that produce less than their peers under the same sky.
+
+Each inverter's daily performance index ``pi`` (measured / expected energy, already
+temperature-corrected by the expected-power model) is divided by the median ``pi`` of its
+peer group on that day (the *peer ratio*). Weather, soiling and sensor errors shared by
+the group cancel in the ratio; what is left is the inverter's own deficit. Each day the
+peer ratios are turned into robust z-scores (median and scaled median absolute deviation),
+and a persistence rule turns low days into dated events, so that one cloudy-edge day is
+not an alarm while a failed string is.
+
+Flag frames returned here (and by the other detectors of :mod:`analytics`) have the columns
+:data:`FLAG_COLUMNS`; ``details`` holds a dict of the evidence.
+
+References
+----------
+.. [1] B. Iglewicz and D. Hoaglin, *How to Detect and Handle Outliers*, ASQC, 1993
+   (modified z-score; via the NIST/SEMATECH e-Handbook of Statistical Methods).
+.. [2] SciPy documentation, ``scipy.stats.median_abs_deviation(scale='normal')``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+#: Columns of every flag frame the detectors return (``details`` is a dict).
+FLAG_COLUMNS = ("device_id", "kind", "start_s", "end_s", "severity", "lost_kwh", "details")
+
+#: Shown in the details of flags that send someone to the field.
+FIELD_CAUTION = (
+    "PV arrays are energised whenever they are lit, and disconnecting an inverter does not "
+    "de-energise its DC side. Inspection and repair are for qualified people working under "
+    "local electrical codes and lockout/tagout procedures.")
+
+#: sqrt(pi/2): mean absolute deviation -> standard deviation for normal data (METHODS §9).
+MEAN_AD_TO_SIGMA = 1.253314
+
+
+def flag_frame(records: list[dict]) -> pd.DataFrame:
+    """Build a flag frame (columns :data:`FLAG_COLUMNS`) from a list of dicts."""
+    df = pd.DataFrame.from_records(records, columns=list(FLAG_COLUMNS))
+    df["start_s"] = df["start_s"].astype("int64")
+    df["end_s"] = df["end_s"].astype("int64")
+    df["lost_kwh"] = df["lost_kwh"].astype("float64")
+    df["device_id"] = df["device_id"].astype(object)
+    return df
+
+
+def epoch_s(index) -> np.ndarray:
+    """Integer UTC epoch seconds of a DatetimeIndex, whatever its resolution (s, ms, us, ns)."""
+    idx = pd.DatetimeIndex(index)
+    if idx.tz is not None:
+        idx = idx.tz_convert("UTC").tz_localize(None)
+    return idx.values.astype("datetime64[s]").astype("int64")
+
+
+def day_start_s(days, std_offset_s: int = 0) -> np.ndarray:
+    """UTC epoch seconds of the start of each local-standard-time ``day``.
+
+    ``std_offset_s`` is the site's standard UTC offset (east positive), e.g. +3600 for
+    Central Europe: local midnight is 23:00 UTC the day before.
+    """
+    d = pd.to_datetime(pd.Index(days)).values.astype("datetime64[s]").astype("int64")
+    return d - int(std_offset_s)
+
+
+def robust_z(x, axis=None, *, mad_zero_fallback: bool = True):
+    """Robust z-score: distance from the median in units of the scaled MAD.
+
+    Parameters
+    ----------
+    x : array-like or Series or DataFrame
+        Values. NaN are ignored in the median and MAD and stay NaN.
+    axis : int, optional
+        Axis along which median and MAD are taken (``None``: all values; a DataFrame
+        with ``axis=1`` gives one z per cell relative to its row).
+    mad_zero_fallback : bool
+        When the MAD is 0 (more than half the values identical, e.g. clipping or zeros)
+        use 1.253314 * mean absolute deviation instead (METHODS §9); if that is 0 too the
+        z-score is 0 where x equals the median and ±inf elsewhere.
+
+    Returns
+    -------
+    Same type as ``x``. [-]
+
+    Notes
+    -----
+    z = (x - median) / (1.4826 MAD), 1.4826 = 1/Φ⁻¹(0.75) makes the MAD a consistent
+    estimate of σ for normal data ([1], [2]).
+
+    Examples
+    --------
+    >>> robust_z([1, 2, 3, 4, 100]).round(3)
+    array([-1.349, -0.674,  0.   ,  0.674, 65.428])
+    """
+    is_pd = isinstance(x, pd.Series | pd.DataFrame)
+    a = np.asarray(x, dtype=float)
+    if a.size == 0:
+        return x.astype(float) if is_pd else a
+    with np.errstate(all="ignore"):
+        med = np.nanmedian(a, axis=axis, keepdims=True)
+        mad = stats.median_abs_deviation(a, axis=axis, scale="normal", nan_policy="omit")
+        mad = np.asarray(mad, dtype=float)
+        mad = mad.reshape(med.shape) if mad.ndim else np.full(med.shape, float(mad))
+        if mad_zero_fallback:
+            mean_ad = MEAN_AD_TO_SIGMA * np.nanmean(np.abs(a - med), axis=axis, keepdims=True)
+            mad = np.where(mad > 0, mad, mean_ad)
+        dev = a - med
+        z = np.where(dev == 0, 0.0, dev / mad)
+        z = np.where(np.isnan(a), np.nan, z)
+    if isinstance(x, pd.DataFrame):
+        return pd.DataFrame(z, index=x.index, columns=x.columns)
+    if isinstance(x, pd.Series):
+        return pd.Series(z, index=x.index, name=x.name)
+    return z
+
+
+def peer_ratio(pi_wide: pd.DataFrame, *, min_peers: int = 5) -> pd.DataFrame:
+    """Each inverter's daily ``pi`` divided by the median of its peer group that day.
+
+    Parameters
+    ----------
+    pi_wide : DataFrame
+        Index ``day``, one column per inverter of one peer group; NaN where the day is not
+        valid for that inverter. [-]
+    min_peers : int
+        Days with fewer valid inverters give NaN (METHODS §9: at least 5 valid peers,
+        common practice).
+
+    Returns
+    -------
+    DataFrame like ``pi_wide``. [-]
+
+    Notes
+    -----
+    R_i,d = PI_i,d / median_j PI_j,d (METHODS §9). The median includes the inverter itself
+    (a robust group level: one low inverter among five moves it little).
+    """
+    med = pi_wide.median(axis=1, skipna=True)
+    n = pi_wide.notna().sum(axis=1)
+    out = pi_wide.div(med.where(n >= min_peers), axis=0)
+    return out
+
+
+def persistent_low_events(low: pd.Series, valid: pd.Series, *, window: int = 5,
+                          k_required: int = 3, clear_days: int = 3) -> list[tuple]:
+    """Dated events from a daily "low" indicator with a persistence rule.
+
+    An event opens when at least ``k_required`` of the last ``window`` valid days are low;
+    it starts on the first low day of that window. It closes after ``clear_days``
+    consecutive normal valid days and ends on its last low day (common practice,
+    METHODS §9: z < −3 on ≥3 of the last 5 valid days; clear after 3 normal days).
+
+    Parameters
+    ----------
+    low, valid : Series of bool
+        Same index (days, ascending). Invalid days are skipped, neither low nor normal.
+
+    Returns
+    -------
+    list of (first_day, last_day, n_low_days) for each event, in order.
+    """
+    idx = low.index[valid.to_numpy(bool)]
+    lo = low.to_numpy(bool)[valid.to_numpy(bool)]
+    events, recent = [], []
+    open_start = last_low = None
+    n_low = normal_run = 0
+    for i, is_low in enumerate(lo):
+        recent.append(i)
+        if len(recent) > window:
+            recent.pop(0)
+        if open_start is None:
+            if is_low and sum(lo[j] for j in recent) >= k_required:
+                first = next(j for j in recent if lo[j])
+                open_start, last_low = idx[first], idx[i]
+                n_low, normal_run = int(sum(lo[j] for j in recent)), 0
+        else:
+            if is_low:
+                last_low, normal_run = idx[i], 0
+                n_low += 1
+            else:
+                normal_run += 1
+                if normal_run >= clear_days:
+                    events.append((open_start, last_low, n_low))
+                    open_start, recent = None, []
+    if open_start is not None:
+        events.append((open_start, last_low, n_low))
+    return events
+
+
+def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = None,
+                           z_threshold: float = -3.0, min_deficit: float = 0.02,
+                           min_peers: int = 5, window: int = 5, k_required: int = 3,
+                           escalate_days: int = 14, clear_days: int = 3,
+                           std_offset_s: int = 0) -> pd.DataFrame:
+    """Underperformance flags from the daily inverter table.
+
+    Parameters
+    ----------
+    daily : DataFrame
+        Long daily table with columns ``device_id``, ``day``, ``pi``, ``day_valid``,
+        ``e_exp_kwh`` (the ``daily_inverter`` columns).
+    peer_group : dict, optional
+        device_id -> peer group name; default: all inverters in one group.
+    z_threshold : float
+        A day is low when its robust z across peers is below this (METHODS §9: −3) ...
+    min_deficit : float
+        ... and its peer ratio is at least this far below 1 (a statistically clear but
+        tiny deficit, e.g. a 1 % nameplate mismatch, is not a field problem; common
+        practice). [-]
+    escalate_days : int
+        Severity 'warning' becomes 'alarm' once an event spans this many days (METHODS §9).
+    std_offset_s : int
+        Site standard UTC offset for converting days to ``start_s``/``end_s``. [s]
+
+    Returns
+    -------
+    DataFrame with :data:`FLAG_COLUMNS`; ``lost_kwh`` = Σ e_exp_kwh · (1 − R) over the
+    event's valid days with R < 1.
+    """
+    need = {"device_id", "day", "pi", "day_valid", "e_exp_kwh"}
+    if missing := need - set(daily.columns):
+        raise ValueError(f"daily table lacks columns {sorted(missing)}")
+    d = daily.copy()
+    d["pi_v"] = d["pi"].where(d["day_valid"].astype(bool))
+    pi_wide = d.pivot_table(index="day", columns="device_id", values="pi_v", aggfunc="first",
+                            dropna=False).sort_index()
+    e_exp = d.pivot_table(index="day", columns="device_id", values="e_exp_kwh",
+                          aggfunc="first", dropna=False).reindex_like(pi_wide)
+    groups = peer_group or {c: "site" for c in pi_wide.columns}
+    records = []
+    for _g, cols in pd.Series(groups).groupby(pd.Series(groups)):
+        cols = [c for c in cols.index if c in pi_wide.columns]
+        ratio = peer_ratio(pi_wide[cols], min_peers=min_peers)
+        z = robust_z(ratio, axis=1)
+        for dev in cols:
+            r, zd = ratio[dev], z[dev]
+            valid = r.notna() & zd.notna()
+            low = (zd < z_threshold) & (r < 1.0 - min_deficit)
+            for first, last, n_low in persistent_low_events(
+                    low, valid, window=window, k_required=k_required, clear_days=clear_days):
+                span = (r.index >= first) & (r.index <= last)
+                rs, zs = r[span], zd[span]
+                lost = float((e_exp.loc[span, dev] * (1.0 - rs).clip(lower=0)).sum())
+                n_days = (pd.Timestamp(last) - pd.Timestamp(first)).days + 1
+                start_s = int(day_start_s([first], std_offset_s)[0])
+                end_s = int(day_start_s([last], std_offset_s)[0]) + 86400
+                records.append(dict(
+                    device_id=dev, kind="underperformance", start_s=start_s, end_s=end_s,
+                    severity="alarm" if n_days >= escalate_days else "warning",
+                    lost_kwh=lost,
+                    details=dict(
+                        first_day=str(pd.Timestamp(first).date()),
+                        last_day=str(pd.Timestamp(last).date()), n_days=n_days,
+                        n_low_days=int(n_low), n_valid_days=int(rs.notna().sum()),
+                        median_peer_ratio=float(np.nanmedian(rs)),
+                        min_robust_z=float(np.nanmin(zs)),
+                        rule=(f"robust z < {z_threshold} and peer ratio < {1 - min_deficit:g} "
+                              f"on >= {k_required} of the last {window} valid days; cleared "
+                              f"after {clear_days} normal days; alarm from {escalate_days} days"),
+                        method="peer ratio to the peer-group median of daily pi; robust z "
+                               "with 1.4826 MAD (Iglewicz & Hoaglin 1993)",
+                        caution=FIELD_CAUTION)))
+    return flag_frame(records)

@@ -1,0 +1,374 @@
+"""Soiling from yield: cleaning/rain events, soiling rates, soiling ratio, when to clean.
+
+Dust builds up between rains or cleanings and lowers the performance index ``pi`` slowly;
+a rain or a cleaning brings it back in one step. Following the stochastic rate and
+recovery idea (Deceglie, Micheli and Muller 2018):
+
+1. the site-median daily ``pi`` (soiling is plant-wide: the median over inverters keeps
+   one faulty inverter out of the soiling signal) is the input, with daily insolation H;
+2. cleanings are days where a forward rolling median of ``pi`` sits clearly above the
+   backward one (an upper Tukey-fence outlier among those steps), or where the rain
+   sensor reads at least 5 mm that day;
+3. within each dry interval a Theil–Sen line (``scipy.stats.theilslopes(y, x)``) gives
+   the soiling rate, relative to the line's clean level at the interval start; intervals
+   with a positive slope or fewer than 10 valid days count as unsoiled;
+4. the soiling ratio SR_d = 1 + rate · (d − d_start) is weighted by insolation,
+   SR_iw = Σ SR_d H_d / Σ H_d, with a Monte-Carlo interval from the slopes' confidence
+   intervals and a partial-to-full recovery at each cleaning.
+
+Degradation (≈0.5 %/yr, i.e. ≈0.04 % per month) is negligible inside dry intervals of
+weeks and is not removed here; seasonal model artefacts can mimic soiling (METHODS §8,
+pitfalls) and are the main limitation.
+
+References
+----------
+.. [1] M. G. Deceglie, L. Micheli, M. Muller, "Quantifying soiling loss directly from PV
+   yield," IEEE J. Photovolt. 8(2):547–551, 2018, doi:10.1109/JPHOTOV.2017.2784682.
+.. [2] SciPy documentation, ``scipy.stats.theilslopes``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from analytics.outliers import day_start_s, flag_frame
+
+
+def soiling_ratio_iw(sr, h_kwhm2) -> float:
+    """Insolation-weighted soiling ratio SR_iw = Σ SR_d H_d / Σ H_d (METHODS §8).
+
+    NaN days are left out of both sums.
+
+    Examples
+    --------
+    >>> round(soiling_ratio_iw([1.0, 0.99, 0.98], [2, 4, 6]), 5)
+    0.98667
+    """
+    sr = np.asarray(sr, dtype=float)
+    h = np.asarray(h_kwhm2, dtype=float)
+    ok = np.isfinite(sr) & np.isfinite(h)
+    if not ok.any() or h[ok].sum() <= 0:
+        return float("nan")
+    return float(np.sum(sr[ok] * h[ok]) / np.sum(h[ok]))
+
+
+def cleaning_interval_days(cleaning_cost: float, tariff_per_kwh: float, e_day_kwh: float,
+                           soiling_rate_per_day: float) -> float:
+    """Cleaning interval that minimises cost per day, T* = √(2C / (p E_d r)) (METHODS §8).
+
+    With a linear soiling rate r the revenue lost T days after a cleaning is
+    L(T) = p E_d r T² / 2; (C + L(T)) / T is smallest where L(T*) = C.
+
+    Parameters
+    ----------
+    cleaning_cost : float
+        C, cost of one cleaning. [currency]
+    tariff_per_kwh : float
+        p. [currency/kWh]
+    e_day_kwh : float
+        E_d, daily energy of the clean plant. [kWh]
+    soiling_rate_per_day : float
+        r, loss of SR per day (either sign; the magnitude is used). [1/day]
+
+    Returns
+    -------
+    float, days; inf when the rate or the energy is zero.
+
+    Examples
+    --------
+    >>> round(cleaning_interval_days(1500, 0.08, 4500, 0.001), 1)
+    91.3
+    """
+    r = abs(soiling_rate_per_day)
+    denom = tariff_per_kwh * e_day_kwh * r
+    if not denom > 0:
+        return float("inf")
+    return math.sqrt(2.0 * cleaning_cost / denom)
+
+
+def _fwd_bwd_step(pi: pd.Series, window: int) -> pd.Series:
+    """median(pi[d .. d+w-1]) − median(pi[d-w .. d-1]): the step into day d."""
+    back = pi.rolling(window, min_periods=max(3, window // 2)).median().shift(1)
+    fwd = pi[::-1].rolling(window, min_periods=max(3, window // 2)).median()[::-1]
+    return fwd - back
+
+
+def detect_cleanings(pi: pd.Series, *, rain_mm: pd.Series | None = None,
+                     window: int = 7, min_step: float = 0.01,
+                     rain_threshold_mm: float = 5.0, fence_k: float = 1.5) -> pd.DataFrame:
+    """Cleaning and rain events: upward steps of the daily ``pi`` and rainy days.
+
+    Parameters
+    ----------
+    pi : Series
+        Daily performance index, index = consecutive days (NaN for invalid days). [-]
+    rain_mm : Series, optional
+        Daily rainfall on the same index. [mm]
+    window : int
+        Days in the backward and forward rolling medians (METHODS §8: 1–3 weeks). [d]
+    min_step : float
+        Smallest step of ``pi`` counted as a cleaning, besides the fence. [-]
+    rain_threshold_mm : float
+        Daily rain that cleans (METHODS §8: 5 mm, site-tunable). [mm]
+    fence_k : float
+        Tukey fence Q3 + k·IQR on the steps (METHODS §8: 1.5).
+
+    Returns
+    -------
+    DataFrame indexed by day with columns ``step`` (pi step, NaN for rain-only events),
+    ``source`` ('pi_step', 'rain' or 'pi_step+rain') and ``rain_mm``.
+    """
+    pi = pi.astype(float)
+    step = _fwd_bwd_step(pi, window)
+    q1, q3 = np.nanpercentile(step, [25, 75]) if step.notna().sum() >= 4 else (np.nan, np.nan)
+    fence = max(q3 + fence_k * (q3 - q1), min_step) if np.isfinite(q3) else np.inf
+    cand = step > fence
+    # one event per step: keep the day with the largest step in each run of candidates
+    keep = []
+    vals = step.where(cand)
+    run_id = (cand != cand.shift()).cumsum()
+    for _rid, grp in vals[cand].groupby(run_id[cand]):
+        keep.append(grp.idxmax())
+    # merge candidates closer than a window (the two medians see the same step)
+    merged = []
+    for d in keep:
+        if merged and (pd.Timestamp(d) - pd.Timestamp(merged[-1])).days < window:
+            if step[d] > step[merged[-1]]:
+                merged[-1] = d
+        else:
+            merged.append(d)
+    events = {d: dict(step=float(step[d]), source="pi_step", rain_mm=np.nan) for d in merged}
+    if rain_mm is not None:
+        rain = rain_mm.reindex(pi.index)
+        for d in rain.index[rain.to_numpy(float) >= rain_threshold_mm]:
+            near = [e for e in events if abs((pd.Timestamp(e) - pd.Timestamp(d)).days) <= 1]
+            if near:
+                events[near[0]]["source"] = "pi_step+rain"
+                events[near[0]]["rain_mm"] = float(rain[d])
+            else:
+                events[d] = dict(step=np.nan, source="rain", rain_mm=float(rain[d]))
+    out = pd.DataFrame.from_dict(events, orient="index", columns=["step", "source", "rain_mm"])
+    return out.sort_index()
+
+
+def soiling_intervals(pi: pd.Series, cleanings, *, min_days: int = 10,
+                      alpha: float = 0.95) -> pd.DataFrame:
+    """Theil–Sen soiling rate of each dry interval between cleanings.
+
+    Parameters
+    ----------
+    pi : Series
+        Daily performance index over consecutive days. [-]
+    cleanings : sequence of days
+        First clean days; each starts a new interval (so does the first day of ``pi``).
+    min_days : int
+        Intervals with fewer valid days are treated as unsoiled (METHODS §8). [d]
+    alpha : float
+        Confidence of the slope interval (``theilslopes(..., alpha)``).
+
+    Returns
+    -------
+    DataFrame, one row per interval: ``start``, ``end`` (days, inclusive), ``n_valid``,
+    ``soiling_rate_per_day`` and its ``rate_low``/``rate_high`` (slope / clean level,
+    [1/day]; 0 where unsoiled), ``clean_level`` (the line's pi at the start), ``soiled``.
+
+    Notes
+    -----
+    ``scipy.stats.theilslopes(y, x, alpha, method='separate')`` returns the median of the
+    pairwise slopes and its confidence bounds (argument order y, x: SciPy docs). The rate
+    is relative to the fitted clean level so that a model bias in ``pi`` (a clean plant
+    at pi = 0.97) does not count as soiling.
+    """
+    days = pd.DatetimeIndex(pi.index)
+    bounds = sorted({pd.Timestamp(c) for c in cleanings if days[0] < pd.Timestamp(c) <= days[-1]})
+    starts = [days[0], *bounds]
+    ends = [*(b - pd.Timedelta(days=1) for b in bounds), days[-1]]
+    rows = []
+    for s, e in zip(starts, ends, strict=True):
+        seg = pi[(days >= s) & (days <= e)].dropna()
+        row = dict(start=s, end=e, n_valid=len(seg), soiling_rate_per_day=0.0, rate_low=0.0,
+                   rate_high=0.0, clean_level=np.nan, soiled=False)
+        if len(seg) >= max(min_days, 3):
+            x = (pd.DatetimeIndex(seg.index) - s).days.to_numpy(float)
+            res = stats.theilslopes(seg.to_numpy(float), x, alpha=alpha, method="separate")
+            level = res.intercept  # line value at x = 0 (interval start)
+            row["clean_level"] = float(level)
+            if res.slope < 0 and level > 0:
+                row.update(soiling_rate_per_day=float(res.slope / level),
+                           rate_low=float(res.low_slope / level),
+                           rate_high=float(min(res.high_slope, 0.0) / level), soiled=True)
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def soiling_ratio_series(index, intervals: pd.DataFrame) -> pd.Series:
+    """Daily SR_d = 1 + rate_j · (d − start_j) within each interval, floored at 0.
+
+    Examples
+    --------
+    A 30-day interval at −0.001/day: SR = 1, 0.999, ..., 0.971, mean 0.9855 (METHODS §8).
+    """
+    days = pd.DatetimeIndex(index)
+    sr = pd.Series(1.0, index=days, name="sr")
+    for row in intervals.itertuples():
+        m = (days >= row.start) & (days <= row.end)
+        t = (days[m] - row.start).days.to_numpy(float)
+        sr[m] = np.clip(1.0 + row.soiling_rate_per_day * t, 0.0, 1.0)
+    return sr
+
+
+def soiling_ratio_iw_mc(index, intervals: pd.DataFrame, h_kwhm2, *, n_runs: int = 1000,
+                        recovery_min: float = 0.5, seed: int = 0,
+                        percentiles=(2.5, 50.0, 97.5)) -> dict:
+    """Monte-Carlo distribution of the insolation-weighted SR (Deceglie et al. 2018, step 4).
+
+    Each run draws every interval's rate from a normal whose ±1.96 σ span its 95 %
+    Theil–Sen confidence interval (truncated at 0), and the
+    recovery at each cleaning uniformly between ``recovery_min`` (partial) and 1 (full);
+    SR(t) is rebuilt piecewise linearly and weighted by insolation.
+
+    Returns
+    -------
+    dict with ``sr_iw_median``, ``sr_iw_low``, ``sr_iw_high`` (the given percentiles) and
+    ``n_runs``.
+    """
+    rng = np.random.default_rng(seed)
+    days = pd.DatetimeIndex(index)
+    h = np.nan_to_num(np.asarray(h_kwhm2, dtype=float), nan=0.0)
+    sr = np.ones((n_runs, len(days)))
+    level = np.ones(n_runs)
+    for j, row in enumerate(intervals.itertuples()):
+        m = (days >= row.start) & (days <= row.end)
+        t = (days[m] - row.start).days.to_numpy(float)
+        if j > 0:
+            f = rng.uniform(recovery_min, 1.0, n_runs)
+            level = level + f * (1.0 - level)
+        lo, hi = sorted((row.rate_low, row.rate_high))
+        # the 95 % slope interval read as ±1.96 σ of a normal, truncated at 0 (no gain)
+        sigma = (hi - lo) / (2 * 1.959964)
+        rate = (np.minimum(rng.normal(row.soiling_rate_per_day, sigma, n_runs), 0.0)
+                if row.soiled else np.zeros(n_runs))
+        seg = np.clip(level[:, None] + rate[:, None] * t[None, :], 0.0, 1.0)
+        sr[:, m] = seg
+        if len(t):
+            level = seg[:, -1] + rate * 1.0  # one more day of soiling before the cleaning
+    w = h.sum()
+    sr_iw = (sr * h[None, :]).sum(axis=1) / w if w > 0 else np.full(n_runs, np.nan)
+    lo, med, hi = np.percentile(sr_iw, percentiles)
+    return dict(sr_iw_median=float(med), sr_iw_low=float(lo), sr_iw_high=float(hi),
+                n_runs=int(n_runs))
+
+
+def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
+                  rain_mm: pd.Series | None = None, tariff_per_kwh: float = 0.05,
+                  cleaning_cost: float = 0.0, currency: str = "EUR",
+                  window: int = 7, min_days: int = 10, rain_threshold_mm: float = 5.0,
+                  min_loss: float = 0.01, horizon_days: int = 30, n_runs: int = 1000,
+                  std_offset_s: int = 0, device_id: str | None = None) -> pd.DataFrame:
+    """Soiling and cleaning flags of a site from its daily series.
+
+    Parameters
+    ----------
+    pi : Series
+        Site-median daily performance index, index = days (local standard time). [-]
+    h_kwhm2 : Series
+        Daily POA insolation. [kWh/m²]
+    e_exp_kwh : Series
+        Daily expected AC energy of the whole site (the clean plant's energy). [kWh]
+    rain_mm : Series, optional
+        Daily rainfall. [mm]
+    tariff_per_kwh, cleaning_cost, currency
+        Site economics (configuration ``[economics]``).
+    min_loss : float
+        A dry interval is flagged when its soiling loss reaches this at its end. [-]
+    horizon_days : int
+        Look-ahead for the cleaning recommendation: cleaning now is worth it when the
+        current loss, held over this horizon, costs more than a cleaning,
+        p · E_d · (1 − SR_now) · horizon > C (common practice; a dry interval restarts
+        the same build-up after a cleaning, so the saving is the present loss). [d]
+
+    Returns
+    -------
+    DataFrame with :data:`~analytics.outliers.FLAG_COLUMNS`: kind 'cleaning' (info) for
+    each detected cleaning/rain, kind 'soiling' for each soiled dry interval ('warning' if
+    a cleaning is recommended, else 'info'); the last soiling flag carries the current
+    loss, the site SR_iw with its Monte-Carlo interval, T* and the recommendation.
+    """
+    days = pd.date_range(pd.Timestamp(pi.index.min()), pd.Timestamp(pi.index.max()), freq="D")
+    pi = pi.reindex(days).astype(float)
+    h = h_kwhm2.reindex(days).astype(float)
+    e_exp = e_exp_kwh.reindex(days).astype(float)
+    rain = rain_mm.reindex(days) if rain_mm is not None else None
+    cl = detect_cleanings(pi, rain_mm=rain, window=window, min_step=0.01,
+                          rain_threshold_mm=rain_threshold_mm)
+    iv = soiling_intervals(pi, cl.index, min_days=min_days)
+    sr = soiling_ratio_series(days, iv)
+    records = []
+    for d, row in cl.iterrows():
+        s0 = int(day_start_s([d], std_offset_s)[0])
+        records.append(dict(
+            device_id=device_id, kind="cleaning", start_s=s0, end_s=s0 + 86400,
+            severity="info", lost_kwh=np.nan,
+            details=dict(day=str(pd.Timestamp(d).date()), source=row["source"],
+                         pi_step=None if np.isnan(row["step"]) else float(row["step"]),
+                         rain_mm=None if np.isnan(row["rain_mm"]) else float(row["rain_mm"]),
+                         method="forward minus backward rolling median of site pi above the "
+                                "Tukey fence Q3 + 1.5 IQR, or rain >= "
+                                f"{rain_threshold_mm:g} mm/day (Deceglie et al. 2018)")))
+    mc = soiling_ratio_iw_mc(days, iv, h, n_runs=n_runs) if n_runs else {}
+    sr_iw = soiling_ratio_iw(sr, h)
+    e_day = float(np.nanmedian(e_exp.iloc[-30:])) if e_exp.notna().any() else float("nan")
+    for k, row in enumerate(iv.itertuples()):
+        if not row.soiled:
+            continue
+        m = (days >= row.start) & (days <= row.end)
+        loss_end = 1.0 - float(sr[m].iloc[-1])
+        if loss_end < min_loss:
+            continue
+        lost = float(np.nansum(e_exp[m] * (1.0 - sr[m])))
+        last = k == len(iv) - 1
+        t_star = cleaning_interval_days(cleaning_cost, tariff_per_kwh, e_day,
+                                        row.soiling_rate_per_day)
+        details = dict(
+            first_day=str(row.start.date()), last_day=str(row.end.date()),
+            n_valid_days=int(row.n_valid),
+            soiling_rate_pct_per_day=100 * row.soiling_rate_per_day,
+            soiling_rate_ci_pct_per_day=[100 * row.rate_low, 100 * row.rate_high],
+            loss_at_end_pct=100 * loss_end,
+            lost_revenue=lost * tariff_per_kwh, currency=currency,
+            method="Theil-Sen slope of site-median daily pi in the dry interval, relative to "
+                   "its clean level (Deceglie et al. 2018; scipy.stats.theilslopes)")
+        sev = "info"
+        if last:
+            saving = tariff_per_kwh * e_day * loss_end * horizon_days
+            recommend = bool(cleaning_cost > 0 and saving > cleaning_cost) or (
+                cleaning_cost == 0 and loss_end >= min_loss)
+            details.update(
+                current_loss_pct=100 * loss_end, ongoing=True,
+                sr_iw_site=sr_iw, sr_iw_period=[str(days[0].date()), str(days[-1].date())],
+                sr_iw_mc=mc, cleaning_interval_days_opt=t_star,
+                expected_saving_next_days=saving, horizon_days=horizon_days,
+                cleaning_cost=cleaning_cost, tariff_per_kwh=tariff_per_kwh,
+                recommend_cleaning=recommend,
+                recommendation=(
+                    f"clean: the present loss of {100 * loss_end:.1f} % costs about "
+                    f"{saving:.0f} {currency} over the next {horizon_days} days, more than a "
+                    f"cleaning ({cleaning_cost:.0f} {currency}); optimal interval "
+                    f"T* = {t_star:.0f} days" if recommend else
+                    f"no cleaning yet: the present loss of {100 * loss_end:.1f} % costs about "
+                    f"{saving:.0f} {currency} over the next {horizon_days} days, less than a "
+                    f"cleaning ({cleaning_cost:.0f} {currency}); optimal interval "
+                    f"T* = {t_star:.0f} days"),
+                economics="T* = sqrt(2C/(p E_d r)) (METHODS §8)",
+                caution="Cleaning is work at height near energised equipment; follow the "
+                        "site's safety rules and the module maker's cleaning instructions.")
+            sev = "warning" if recommend else "info"
+        s0 = int(day_start_s([row.start], std_offset_s)[0])
+        e0 = int(day_start_s([row.end], std_offset_s)[0]) + 86400
+        records.append(dict(device_id=device_id, kind="soiling", start_s=s0, end_s=e0,
+                            severity=sev, lost_kwh=lost, details=details))
+    return flag_frame(records)

@@ -1,0 +1,72 @@
+"""heliaudit dashboard: entry point (``streamlit run dashboard/app.py``).
+
+Builds the menu with ``st.navigation`` and the selectors every page shares (site and date
+range, in the sidebar), then runs the chosen page. Pages are thin: they read widgets, call
+:mod:`dashboard.data` and render :mod:`dashboard.charts` figures.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import streamlit as st
+
+from dashboard import data, ui
+
+st.set_page_config(page_title="heliaudit", page_icon=":material/solar_power:", layout="wide")
+
+pages = [
+    st.Page(ui.PAGES["weekly"], title="Weekly check", icon=":material/calendar_view_week:",
+            url_path="weekly", default=True),
+    st.Page(ui.PAGES["trends"], title="Inverter trends", icon=":material/show_chart:",
+            url_path="trends"),
+    st.Page(ui.PAGES["degradation"], title="Degradation & warranty",
+            icon=":material/trending_down:", url_path="degradation"),
+    st.Page(ui.PAGES["drilldown"], title="Alarm drill-down", icon=":material/zoom_in:",
+            url_path="drilldown"),
+    st.Page(ui.PAGES["quality"], title="Data quality", icon=":material/fact_check:",
+            url_path="quality"),
+]
+page = st.navigation(pages)
+
+url = data.db_url()
+sites = data.site_list(url)
+qp = st.query_params
+
+
+def _reset_window() -> None:
+    st.session_state.pop("window", None)
+
+
+with st.sidebar:
+    st.markdown("### heliaudit")
+    if sites.empty:
+        st.caption(f"Database: `{url}` — no site loaded.")
+    else:
+        ids = list(sites["site_id"])
+        if "site" not in st.session_state or st.session_state["site"] not in ids:
+            st.session_state["site"] = qp.get("site") if qp.get("site") in ids else ids[0]
+        names = dict(zip(sites["site_id"], sites["name"], strict=True))
+        site_id = st.selectbox("Site", ids, key="site", format_func=lambda s: f"{names[s]} ({s})",
+                               on_change=_reset_window)
+        first, last = data.data_span(url, site_id)
+        if "window" not in st.session_state:
+            start, end = data.default_window(url, site_id)
+            try:
+                start = dt.date.fromisoformat(qp.get("start", "")) if qp.get("start") else start
+                end = dt.date.fromisoformat(qp.get("end", "")) if qp.get("end") else end
+            except ValueError:
+                pass
+            st.session_state["window"] = (start, end)
+        st.date_input("Date range (local standard time)", key="window",
+                      min_value=first, max_value=last, format="YYYY-MM-DD",
+                      help="Shared by every page. The weekly check uses the 7 days ending on "
+                           "the last day of the range.")
+        window = st.session_state["window"]
+        qp["site"] = site_id
+        if len(window) == 2:
+            qp["start"], qp["end"] = window[0].isoformat(), window[1].isoformat()
+        st.caption(f"{names[site_id]} · data {first} → {last}")
+    st.caption("Colours: Okabe & Ito (2008) and Paul Tol (2021) colour-blind-safe schemes.")
+
+page.run()

@@ -1,0 +1,384 @@
+"""Plotly figures of the dashboard: each takes DataFrames and returns a ``go.Figure``.
+
+No Streamlit here, so the functions are tested on their own (tests/test_dashboard_charts.py).
+Every numeric axis title carries its unit in brackets ("POA irradiance [W/m²]"). Colours come
+from :mod:`dashboard.theme` (Okabe & Ito 2008; Tol 2021).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+from plotly.subplots import make_subplots
+
+from dashboard import theme
+
+TEMPLATE = "heliaudit"
+
+
+def _tz_label(std_offset_s: int) -> str:
+    h, m = divmod(abs(int(std_offset_s)) // 60, 60)
+    sign = "+" if std_offset_s >= 0 else "−"
+    return f"Local standard time (UTC{sign}{h:02d}:{m:02d})"
+
+
+def _local(ts: pd.Series | pd.DatetimeIndex, std_offset_s: int):
+    """tz-aware UTC -> naive local standard time, for display."""
+    idx = pd.DatetimeIndex(ts)
+    if idx.tz is not None:
+        idx = idx.tz_convert("UTC").tz_localize(None)
+    return idx + pd.Timedelta(seconds=int(std_offset_s))
+
+
+def empty(message: str, x_title: str = "", y_title: str = "") -> go.Figure:
+    fig = go.Figure(layout=dict(template=TEMPLATE, height=220))
+    fig.add_annotation(text=message, showarrow=False, x=0.5, y=0.5, xref="paper",
+                       yref="paper", font=dict(size=14, color="#666"))
+    fig.update_xaxes(title_text=x_title, showticklabels=False)
+    fig.update_yaxes(title_text=y_title, showticklabels=False)
+    return fig
+
+
+# ---------------------------------------------------------------- weekly check
+
+
+def pr_heatmap(heat: pd.DataFrame, limit_pct: float = 10.0) -> go.Figure:
+    """Calendar heatmap: inverter x day of PR_STC relative to the site median that day.
+
+    ``heat`` is :func:`dashboard.data.pr_relative_heatmap` (index device_id, columns days, %).
+    The scale is diverging and symmetric about 0 (Tol's BuRd, red = below the median),
+    saturating at ± ``limit_pct``.
+    """
+    if heat.empty:
+        return empty("No daily results in this window", "Day (local standard time)", "Inverter")
+    z = heat.to_numpy(dtype=float)
+    text = np.where(np.isnan(z), "not valid", np.char.mod("%+.1f %%", np.nan_to_num(z)))
+    fig = go.Figure(go.Heatmap(
+        z=z, x=pd.to_datetime(pd.Index(heat.columns)), y=list(heat.index),
+        colorscale=theme.DIVERGING, zmid=0, zmin=-limit_pct, zmax=limit_pct,
+        customdata=text, hoverongaps=False, xgap=1, ygap=1,
+        hovertemplate="%{y} · %{x|%Y-%m-%d}<br>PR_STC vs site median: %{customdata}"
+                      "<extra></extra>",
+        colorbar=dict(title=dict(text="PR_STC vs<br>site median [%]", side="right"),
+                      ticksuffix=" %", thickness=14)))
+    n = len(heat.index)
+    fig.update_layout(template=TEMPLATE, height=min(1400, 140 + 16 * n),
+                      plot_bgcolor=theme.MISSING, hovermode="closest",
+                      title="Daily temperature-corrected PR relative to the site median")
+    fig.update_xaxes(title_text="Day (local standard time)", showgrid=False)
+    fig.update_yaxes(title_text="Inverter", autorange="reversed", showgrid=False,
+                     type="category", tickfont=dict(size=10 if n > 40 else 12))
+    return fig
+
+
+def fleet_quadrant(fleet: pd.DataFrame) -> go.Figure:
+    """Last week's PR_STC against the inverter's own trailing weeks (x) and its peers (y).
+
+    Each marker is one inverter, sized by last week's energy; the lower-left quadrant
+    (worse than its own history and its peers) is where problems sit.
+    """
+    f = fleet.dropna(subset=["d_trailing_pct", "d_peers_pct"])
+    if f.empty:
+        return empty("No inverter has a valid week and trailing weeks",
+                     "PR_STC vs own trailing weeks [%]", "PR_STC vs peer median [%]")
+    size = f["e_ac_kwh"].fillna(0).to_numpy()
+    size = 8 + 14 * size / size.max() if size.max() > 0 else np.full(len(f), 10)
+    colour = np.where(f["n_flags"] > 0, theme.OKABE_ITO["vermillion"], theme.MEASURED)
+    fig = go.Figure(go.Scatter(
+        x=f["d_trailing_pct"], y=f["d_peers_pct"], mode="markers+text",
+        text=np.where((f["d_peers_pct"] < -3) | (f["d_trailing_pct"] < -3), f["device_id"], ""),
+        textposition="top center", textfont=dict(size=10),
+        marker=dict(size=size, color=colour, line=dict(width=0.5, color="white"), opacity=0.85),
+        customdata=np.stack([f["device_id"], f["e_ac_kwh"], f["n_flags"]], axis=1),
+        hovertemplate="%{customdata[0]}<br>vs own trailing weeks: %{x:+.1f} %"
+                      "<br>vs peers: %{y:+.1f} %<br>energy: %{customdata[1]:,.0f} kWh"
+                      "<br>flags: %{customdata[2]}<extra></extra>",
+        showlegend=False))
+    for axis in ("x", "y"):
+        fig.add_shape(type="line", xref="x" if axis == "x" else "paper",
+                      yref="paper" if axis == "x" else "y",
+                      x0=0 if axis == "x" else 0, x1=0 if axis == "x" else 1,
+                      y0=0 if axis == "x" else 0, y1=1 if axis == "x" else 0,
+                      line=dict(color="#888", width=1, dash="dot"))
+    fig.update_layout(template=TEMPLATE, height=380, hovermode="closest",
+                      title="Last week: each inverter against its own history and its peers "
+                            "(red: has flags)")
+    fig.update_xaxes(title_text="PR_STC vs own trailing weeks [%]", ticksuffix=" %")
+    fig.update_yaxes(title_text="PR_STC vs peer median [%]", ticksuffix=" %")
+    return fig
+
+
+# ---------------------------------------------------------------- trends
+
+
+def pr_trend(chosen: pd.DataFrame, peers: pd.DataFrame, flagged: pd.DataFrame | None = None,
+             soiling: pd.DataFrame | None = None, fits: dict | None = None) -> go.Figure:
+    """Daily PR_STC of chosen inverters with rolling medians over the peers' band.
+
+    ``chosen``/``peers`` from :func:`dashboard.data.pr_trend`; ``flagged`` the flagged days
+    (marked ✕); ``soiling`` rows with ``start_local, end_local`` (shaded); ``fits`` maps
+    a label to a frame ``day, fit, lo, hi`` (line and confidence band).
+    """
+    if chosen.empty:
+        return empty("Choose inverters with daily results", "Day (local standard time)",
+                     "Temperature-corrected PR (PR_STC) [–]")
+    fig = go.Figure()
+    if not peers.empty:
+        fig.add_trace(go.Scatter(x=peers["day"], y=peers["p90"], mode="lines",
+                                 line=dict(width=0), hoverinfo="skip", showlegend=False))
+        fig.add_trace(go.Scatter(x=peers["day"], y=peers["p10"], mode="lines",
+                                 line=dict(width=0), fill="tonexty",
+                                 fillcolor="rgba(184,184,184,0.35)", hoverinfo="skip",
+                                 name="site inverters, 10–90 % of rolling medians"))
+        fig.add_trace(go.Scatter(x=peers["day"], y=peers["p50"], mode="lines",
+                                 line=dict(color=theme.PEER, width=1.5),
+                                 name="site median (rolling)"))
+    for r in (soiling.itertuples() if soiling is not None else []):
+        fig.add_vrect(x0=r.start_local, x1=r.end_local, fillcolor=theme.SOILING_FILL,
+                      line_width=0, layer="below")
+    if soiling is not None and not soiling.empty:
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name="soiling interval",
+                                 marker=dict(symbol="square", size=12,
+                                             color=theme.SOILING_FILL)))
+    for k, (dev, g) in enumerate(chosen.groupby("device_id", sort=False)):
+        c = theme.SERIES[k % len(theme.SERIES)]
+        fig.add_trace(go.Scatter(x=g["day"], y=g["pr_stc"], mode="markers",
+                                 marker=dict(size=4, color=c, opacity=0.45),
+                                 name=f"{dev} daily", legendgroup=dev))
+        fig.add_trace(go.Scatter(x=g["day"], y=g["pr_stc_roll"], mode="lines",
+                                 line=dict(color=c, width=2.2), name=f"{dev} rolling median",
+                                 legendgroup=dev))
+    for label, fit in (fits or {}).items():
+        fig.add_trace(go.Scatter(x=fit["day"], y=fit["hi"], mode="lines", line=dict(width=0),
+                                 hoverinfo="skip", showlegend=False, legendgroup=label))
+        fig.add_trace(go.Scatter(x=fit["day"], y=fit["lo"], mode="lines", line=dict(width=0),
+                                 fill="tonexty", fillcolor=theme.BAND_FILL, hoverinfo="skip",
+                                 name=f"{label} confidence band", legendgroup=label))
+        fig.add_trace(go.Scatter(x=fit["day"], y=fit["fit"], mode="lines",
+                                 line=dict(color=theme.FIT, width=2, dash="dash"),
+                                 name=label, legendgroup=label))
+    if flagged is not None and not flagged.empty:
+        fig.add_trace(go.Scatter(x=flagged["day"], y=flagged["pr_stc"], mode="markers",
+                                 marker=dict(symbol="x", size=8, color=theme.OKABE_ITO["black"]),
+                                 customdata=flagged[["device_id", "kind"]].to_numpy(),
+                                 hovertemplate="%{customdata[0]} %{x|%Y-%m-%d}: "
+                                               "%{customdata[1]}<extra></extra>",
+                                 name="flagged day"))
+    fig.update_layout(template=TEMPLATE, height=500, hovermode="closest",
+                      title="Daily temperature-corrected PR (valid days)",
+                      margin=dict(t=50),
+                      legend=dict(orientation="v", x=1.01, xanchor="left", y=1, yanchor="top",
+                                  font=dict(size=11)))
+    fig.update_xaxes(title_text="Day (local standard time)")
+    fig.update_yaxes(title_text="Temperature-corrected PR (PR_STC) [–]")
+    return fig
+
+
+# ---------------------------------------------------------------- degradation
+
+
+def degradation_forest(results: pd.DataFrame) -> go.Figure:
+    """Rate per inverter and method with its interval (dot and whisker)."""
+    r = results.dropna(subset=["rate_pct_per_yr"])
+    if r.empty:
+        return empty("No degradation rate computed yet", "Degradation rate Rd [%/yr]",
+                     "Inverter")
+    fig = go.Figure()
+    methods = sorted(r["method"].unique())
+    for k, m in enumerate(methods):
+        g = r[r["method"] == m]
+        fig.add_trace(go.Scatter(
+            x=g["rate_pct_per_yr"], y=g["device_id"], mode="markers", name=m,
+            marker=dict(size=8, color=theme.SERIES[k % len(theme.SERIES)],
+                        symbol=["circle", "diamond", "square", "triangle-up"][k % 4]),
+            error_x=dict(type="data", symmetric=False,
+                         array=(g["ci_high"] - g["rate_pct_per_yr"]).to_numpy(),
+                         arrayminus=(g["rate_pct_per_yr"] - g["ci_low"]).to_numpy(),
+                         thickness=1.5, width=3),
+            offsetgroup=m, orientation="h",
+            hovertemplate="%{y} · " + m + ": %{x:.2f} %/yr<extra></extra>"))
+    n = r["device_id"].nunique()
+    fig.add_vline(x=0, line=dict(color="#888", width=1, dash="dot"))
+    fig.update_layout(template=TEMPLATE, height=min(1600, 160 + 22 * n), hovermode="closest",
+                      title="Degradation rate by inverter and method (negative = loss)",
+                      scattermode="group", scattergap=0.5)
+    fig.update_xaxes(title_text="Degradation rate Rd [%/yr]")
+    fig.update_yaxes(title_text="Inverter", type="category", autorange="reversed")
+    return fig
+
+
+def yoy_histogram(edges, counts, rd: float | None = None,
+                  ci: tuple[float | None, float | None] | None = None,
+                  title: str = "") -> go.Figure:
+    """Histogram of the year-on-year pair rates r_d (Jordan et al. 2018) as stored by the
+    degradation job (bin ``edges`` [%/yr], ``counts``), with the median rate and its interval."""
+    edges = np.asarray(edges, dtype=float)
+    counts = np.asarray(counts, dtype=float)
+    if counts.size == 0 or edges.size != counts.size + 1:
+        return empty("No year-on-year pairs stored", "Year-on-year rate r_d [%/yr]",
+                     "Pairs [count]")
+    mids = (edges[:-1] + edges[1:]) / 2
+    fig = go.Figure(go.Bar(x=mids, y=counts, width=np.diff(edges) * 0.95,
+                           marker=dict(color=theme.MEASURED), opacity=0.8, name="pairs",
+                           hovertemplate="%{x:.2f} %/yr: %{y} pairs<extra></extra>"))
+    if ci is not None and None not in ci and all(np.isfinite(ci)):
+        fig.add_vrect(x0=ci[0], x1=ci[1], fillcolor=theme.BAND_FILL, line_width=0,
+                      annotation_text="interval of the median", annotation_position="top left")
+    if rd is not None and np.isfinite(rd):
+        fig.add_vline(x=rd, line=dict(color=theme.FIT, width=2.5),
+                      annotation_text=f"median {rd:+.2f} %/yr", annotation_position="top right")
+    fig.update_layout(template=TEMPLATE, height=340, bargap=0.02, hovermode="closest",
+                      title=title or "Year-on-year pair rates", showlegend=False)
+    fig.update_xaxes(title_text="Year-on-year rate r_d [%/yr]")
+    fig.update_yaxes(title_text="Pairs [count]")
+    return fig
+
+
+def warranty_chart(envelope: pd.DataFrame | None, measured: pd.DataFrame | None = None,
+                   monthly: pd.DataFrame | None = None) -> go.Figure:
+    """Warranted minimum power against the measured index, in % of nameplate.
+
+    ``envelope``: ``years, warranted_pct``; ``measured``: ``years, index_pct`` and optional
+    ``lo_pct, hi_pct`` (the fitted rate and its interval); ``monthly``: ``years,
+    relative_pct`` (monthly measured index relative to the start, dots).
+    """
+    if envelope is None or envelope.empty:
+        return empty("No warranty terms in the site configuration", "Years in operation [yr]",
+                     "Power relative to nameplate [%]")
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=envelope["years"], y=envelope["warranted_pct"], mode="lines",
+                             line=dict(color=theme.WARRANTY, width=2.5),
+                             name="warranted minimum"))
+    if monthly is not None and not monthly.empty:
+        fig.add_trace(go.Scatter(x=monthly["years"], y=monthly["relative_pct"], mode="markers",
+                                 marker=dict(color=theme.MEASURED, size=6, opacity=0.7),
+                                 name="measured index, monthly"))
+    if measured is not None and not measured.empty:
+        if {"lo_pct", "hi_pct"} <= set(measured.columns):
+            fig.add_trace(go.Scatter(x=measured["years"], y=measured["hi_pct"], mode="lines",
+                                     line=dict(width=0), hoverinfo="skip", showlegend=False))
+            fig.add_trace(go.Scatter(x=measured["years"], y=measured["lo_pct"], mode="lines",
+                                     line=dict(width=0), fill="tonexty",
+                                     fillcolor=theme.BAND_FILL, name="fitted rate, interval"))
+        fig.add_trace(go.Scatter(x=measured["years"], y=measured["index_pct"], mode="lines",
+                                 line=dict(color=theme.FIT, width=2.5),
+                                 name="fitted rate"))
+    x_max = float(measured["years"].max()) if measured is not None and not measured.empty else 5
+    fig.update_layout(template=TEMPLATE, height=380,
+                      title="Warranted envelope and measured index (relative to the start)")
+    fig.update_xaxes(title_text="Years since warranty start [yr]",
+                     range=[0, max(2.0, min(float(envelope["years"].max()), x_max * 1.6))])
+    fig.update_yaxes(title_text="Power relative to nameplate [%]", ticksuffix=" %")
+    return fig
+
+
+# ---------------------------------------------------------------- drill-down
+
+
+def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
+              inverter_id: str, std_offset_s: int = 0,
+              highlight_flag_id: int | None = None) -> go.Figure:
+    """Four stacked panels on one zoomable time axis.
+
+    1. AC power against expected AC power [kW]; 2. normalised power of the inverter and its
+    peers [kW/kWp]; 3. POA irradiance [W/m²]; 4. module, cell and ambient temperature [°C].
+    Flags are shaded across all panels (the highlighted one darker).
+    """
+    x_title = _tz_label(std_offset_s)
+    if frame.empty:
+        return empty("No interval readings in this window", x_title, "AC power [kW]")
+    x = _local(frame.index, std_offset_s)
+    fig = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.035,
+                        row_heights=[0.34, 0.24, 0.21, 0.21])
+    fig.add_trace(go.Scatter(x=x, y=frame["p_ac_exp_kw"], name="expected AC power",
+                             line=dict(color=theme.EXPECTED, width=1.6, dash="dash")), 1, 1)
+    fig.add_trace(go.Scatter(x=x, y=frame["p_ac_kw"], name=f"{inverter_id} AC power",
+                             line=dict(color=theme.MEASURED, width=1.8)), 1, 1)
+    if not peers.empty:
+        px = _local(peers["ts_utc"], std_offset_s)
+        pk = peers.assign(x=px)
+        first = True
+        for dev, g in pk.groupby("device_id", sort=True):
+            fig.add_trace(go.Scatter(x=g["x"], y=g["p_ac_kw_per_kwp"], mode="lines",
+                                     line=dict(color=theme.PEER, width=1), opacity=0.8,
+                                     name="peers", legendgroup="peers", showlegend=first,
+                                     hovertemplate=f"{dev}: " + "%{y:.3f} kW/kWp<extra></extra>"),
+                          2, 1)
+            first = False
+    fig.add_trace(go.Scatter(x=x, y=frame["p_ac_kw_per_kwp"], mode="lines",
+                             line=dict(color=theme.MEASURED, width=2),
+                             name=f"{inverter_id} normalised", showlegend=False), 2, 1)
+    fig.add_trace(go.Scatter(x=x, y=frame["poa_wm2"], name="POA irradiance",
+                             line=dict(color=theme.IRRADIANCE, width=1.5),
+                             fill="tozeroy", fillcolor="rgba(230,159,0,0.12)"), 3, 1)
+    fig.add_trace(go.Scatter(x=x, y=frame["t_module_c"], name="module (back) temperature",
+                             line=dict(color=theme.T_MODULE, width=1.5)), 4, 1)
+    fig.add_trace(go.Scatter(x=x, y=frame["t_cell_c"], name="cell temperature (Sandia)",
+                             line=dict(color=theme.T_CELL, width=1.5, dash="dot")), 4, 1)
+    if "t_amb_c" in frame and frame["t_amb_c"].notna().any():
+        fig.add_trace(go.Scatter(x=x, y=frame["t_amb_c"], name="ambient temperature",
+                                 line=dict(color=theme.T_AMB, width=1.2)), 4, 1)
+    lo, hi = x.min(), x.max()
+    for f in flags.itertuples() if flags is not None else []:
+        a = max(pd.Timestamp(f.start_local), lo)
+        b = min(pd.Timestamp(f.end_local), hi)
+        if b <= a:
+            continue
+        strong = highlight_flag_id is not None and f.flag_id == highlight_flag_id
+        fill = "rgba(213, 94, 0, 0.28)" if strong else theme.FLAG_FILL
+        fig.add_vrect(x0=a, x1=b, fillcolor=fill, line_width=0, layer="below",
+                      row="all", col=1)
+        fig.add_annotation(x=a, y=1.0, xref="x", yref="paper", text=f"#{f.flag_id} {f.kind}",
+                           showarrow=False, xanchor="left", yanchor="bottom",
+                           font=dict(size=10, color=theme.OKABE_ITO["vermillion"]))
+    fig.update_layout(template=TEMPLATE, height=860, hovermode="x unified",
+                      legend=dict(orientation="h", y=-0.07, yanchor="top"),
+                      margin=dict(t=40))
+    fig.update_yaxes(title_text="AC power [kW]", row=1, col=1)
+    fig.update_yaxes(title_text="Power per kWp [kW/kWp]", row=2, col=1)
+    fig.update_yaxes(title_text="POA [W/m²]", row=3, col=1)
+    fig.update_yaxes(title_text="Temperature [°C]", row=4, col=1)
+    fig.update_yaxes(title_font=dict(size=12))
+    fig.update_xaxes(title_text=x_title, row=4, col=1)
+    return fig
+
+
+# ---------------------------------------------------------------- data quality
+
+
+def completeness_heatmap(comp: pd.DataFrame) -> go.Figure:
+    """Device x day completeness [%] (sequential Tol YlOrBr: light = complete, dark = gaps)."""
+    if comp.empty:
+        return empty("No devices", "Day (local standard time)", "Device · quantity")
+    z = 100 * comp.to_numpy(dtype=float)
+    fig = go.Figure(go.Heatmap(
+        z=z, x=pd.to_datetime(pd.Index(comp.columns)), y=list(comp.index),
+        colorscale=theme.SEQUENTIAL_GAPS, zmin=0, zmax=100, xgap=1, ygap=1,
+        hovertemplate="%{y} · %{x|%Y-%m-%d}: %{z:.0f} % of intervals<extra></extra>",
+        colorbar=dict(title=dict(text="Readings<br>present [%]", side="right"),
+                      ticksuffix=" %", thickness=14)))
+    n = len(comp.index)
+    fig.update_layout(template=TEMPLATE, height=min(1400, 140 + 16 * n), hovermode="closest",
+                      title="Completeness per device and day")
+    fig.update_xaxes(title_text="Day (local standard time)", showgrid=False)
+    fig.update_yaxes(title_text="Device · quantity", autorange="reversed", showgrid=False,
+                     type="category", tickfont=dict(size=10 if n > 40 else 12))
+    return fig
+
+
+def ingest_bars(log: pd.DataFrame) -> go.Figure:
+    """Rows loaded, duplicate and rejected per ingested file."""
+    if log.empty:
+        return empty("Nothing ingested yet", "File", "Rows [count]")
+    g = log.sort_values("batch_id")
+    fig = go.Figure()
+    for col, name, colour in (("rows_loaded", "loaded", theme.OKABE_ITO["bluish_green"]),
+                              ("rows_duplicate", "duplicate", theme.OKABE_ITO["sky_blue"]),
+                              ("rows_rejected", "rejected", theme.OKABE_ITO["vermillion"])):
+        fig.add_trace(go.Bar(x=g["file_name"], y=g[col], name=name, marker_color=colour))
+    fig.update_layout(template=TEMPLATE, barmode="stack", height=320, hovermode="x unified",
+                      title="Rows per ingested file")
+    fig.update_xaxes(title_text="File", tickangle=-30)
+    fig.update_yaxes(title_text="Rows [count]")
+    return fig

@@ -1,0 +1,68 @@
+"""Inverter trends: daily temperature-corrected PR of chosen inverters over their peers."""
+
+import streamlit as st
+
+from dashboard import charts, data, ui
+
+sel = ui.selection()
+url, site_id = sel["url"], sel["site_id"]
+st.title("Inverter trends")
+
+inv = data.inverter_list(url, site_id)
+ids = list(inv["device_id"])
+if not ids:
+    st.info("This site has no inverters.")
+    st.stop()
+if "trend_inverters" not in st.session_state:
+    # start with the weakest inverter against its peers last week, and one more
+    fleet = data.fleet_week(url, site_id, sel["end"]).sort_values("d_peers_pct")
+    st.session_state["trend_inverters"] = list(fleet["device_id"].head(2)) or ids[:2]
+c1, c2, c3 = st.columns([3, 2, 2])
+chosen_ids = c1.multiselect("Inverters", ids, key="trend_inverters", max_selections=6)
+period = c2.radio("Period", ["Full history", "Selected date range"], horizontal=True,
+                  key="trend_period")
+results = data.degradation_table(url, site_id)
+methods = sorted(results["method"].dropna().unique()) if not results.empty else []
+method = c3.selectbox("Degradation fit", ["(none)", *methods], key="trend_method",
+                      index=1 if methods else 0)
+
+start, end = ((None, None) if period == "Full history" else (sel["start"], sel["end"]))
+chosen, peers = data.pr_trend(url, site_id, tuple(chosen_ids), start, end)
+first, last = data.data_span(url, site_id)
+lo, hi = start or first, end or last
+flags = data.flags_in_window(url, site_id, lo, hi) if lo else None
+mine = flags[flags["device_id"].isin(chosen_ids)] if flags is not None else None
+flagged = data.flagged_days(chosen, mine, sel["offset_s"]) if mine is not None else None
+soiling = (mine[mine["kind"].str.contains(data.SOILING_KIND, case=False, na=False)]
+           if mine is not None else None)
+fits = {}
+if method != "(none)":
+    for dev in chosen_ids:
+        f = data.degradation_fit_line(chosen, results, dev, method)
+        if f is not None:
+            fits[f"{dev} {method} fit"] = f
+st.plotly_chart(charts.pr_trend(chosen, peers, flagged, soiling, fits), theme=None,
+                key="trend_chart")
+st.caption(f"Dots: daily PR_STC on valid days; lines: centred {data.ROLLING_DAYS}-day rolling "
+           "median; grey band: 10–90 % range of all site inverters' rolling medians; ✕: days "
+           "inside a flag of the chosen inverter; shaded: soiling intervals. The dashed fit is "
+           "the stored degradation rate drawn through the inverter's first-year median PR_STC, "
+           "with the rate's confidence interval as the band.")
+
+if fits:
+    r = results[results["device_id"].isin(chosen_ids) & (results["method"] == method)]
+    st.dataframe(r[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
+                    "confidence", "n_points"]], hide_index=True, column_config={
+        "device_id": "Inverter", "method": "Method",
+        "rate_pct_per_yr": st.column_config.NumberColumn("Rd [%/yr]", format="%+.2f"),
+        "ci_low": st.column_config.NumberColumn("CI low [%/yr]", format="%+.2f"),
+        "ci_high": st.column_config.NumberColumn("CI high [%/yr]", format="%+.2f"),
+        "confidence": st.column_config.NumberColumn("Confidence", format="%.2f"),
+        "n_points": st.column_config.NumberColumn("Points", format="%d")})
+if mine is not None and not mine.empty:
+    st.subheader("Flags of these inverters")
+    for f in mine.head(12).itertuples():
+        st.page_link(ui.PAGES["drilldown"], icon=":material/zoom_in:",
+                     label=f"#{f.flag_id} {f.device_id} — {f.kind} ({f.severity}), "
+                           f"{f.start_local:%Y-%m-%d} → {f.end_local:%Y-%m-%d}",
+                     query_params={"flag": str(f.flag_id)})

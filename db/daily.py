@@ -1,0 +1,132 @@
+"""The ``daily_inverter`` table: write recomputed days, read them back as a DataFrame.
+
+Writing replaces whole days: for each inverter, the rows of the recomputed day range are
+deleted and the new rows inserted in one transaction, so a reader never sees half a
+recompute and a day that lost its readings loses its row.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+from db import schema
+from db.engine import is_sqlite
+
+#: Stored columns besides the key (device_pk, day) and computation_id.
+VALUE_COLUMNS: tuple[str, ...] = tuple(
+    c.name for c in schema.daily_inverter.columns
+    if c.name not in ("device_pk", "day", "computation_id"))
+_INT_COLUMNS = {"n_intervals", "n_daylight", "n_valid"}
+
+
+def _device_pks(conn: sa.Connection, site_id: str) -> dict[str, int]:
+    d = schema.device
+    return {r.device_id: r.device_pk for r in conn.execute(
+        sa.select(d.c.device_id, d.c.device_pk).where(d.c.site_id == site_id))}
+
+
+def _records(rows: pd.DataFrame, pks: dict[str, int], computation_id: int | None,
+             iso_days: bool) -> list[tuple]:
+    cols = ["device_pk", "day", *VALUE_COLUMNS, "computation_id"]
+    n = len(rows)
+    data: dict[str, list] = {"device_pk": [pks[d] for d in rows["device_id"].tolist()],
+                             "day": [x.isoformat() if iso_days else x for x in rows["day"].tolist()],
+                             "computation_id": [computation_id] * n}
+    for c in VALUE_COLUMNS:
+        if c not in rows:
+            data[c] = [None] * n
+        elif c == "day_valid":
+            data[c] = [bool(x) for x in rows[c].tolist()]
+        elif c == "details_json":
+            data[c] = [None if x is None or (isinstance(x, float) and np.isnan(x)) else str(x)
+                       for x in rows[c].tolist()]
+        else:
+            a = rows[c].to_numpy(dtype=float, na_value=np.nan)
+            vals = a.tolist()
+            data[c] = [None if v != v else (int(v) if c in _INT_COLUMNS else v) for v in vals]
+    return list(zip(*(data[c] for c in cols), strict=True))
+
+
+def write_daily(engine_or_conn: sa.Engine | sa.Connection, site_id: str, rows: pd.DataFrame,
+                *, first_day: dt.date, last_day: dt.date, device_ids=None,
+                computation_id: int | None = None) -> int:
+    """Replace the days ``[first_day, last_day]`` of the given inverters with ``rows``.
+
+    Parameters
+    ----------
+    rows : DataFrame
+        ``device_id``, ``day`` (``datetime.date``) and the daily columns
+        (:data:`analytics.daily.DAILY_COLUMNS`); rows outside the range are refused.
+    device_ids : list of str or None
+        Inverters whose days are replaced (default: those in ``rows``); an inverter listed
+        with no rows has its days in the range deleted.
+
+    Returns the number of rows inserted. One transaction.
+    """
+    if isinstance(engine_or_conn, sa.Engine):
+        with engine_or_conn.begin() as conn:
+            return write_daily(conn, site_id, rows, first_day=first_day, last_day=last_day,
+                               device_ids=device_ids, computation_id=computation_id)
+    conn = engine_or_conn
+    pks = _device_pks(conn, site_id)
+    ids = sorted(set(rows["device_id"]) if device_ids is None else set(device_ids))
+    unknown = sorted((set(ids) | set(rows["device_id"])) - set(pks))
+    if unknown:
+        raise KeyError(f"site {site_id!r} has no device {', '.join(map(repr, unknown))}")
+    if len(rows) and (min(rows["day"]) < first_day or max(rows["day"]) > last_day):
+        raise ValueError(f"rows hold days outside {first_day}..{last_day}")
+    t = schema.daily_inverter
+    conn.execute(t.delete().where(t.c.device_pk.in_([pks[i] for i in ids]),
+                                  t.c.day >= first_day, t.c.day <= last_day))
+    if not len(rows):
+        return 0
+    if is_sqlite(conn.engine):
+        recs = _records(rows, pks, computation_id, iso_days=True)
+        cols = ["device_pk", "day", *VALUE_COLUMNS, "computation_id"]
+        sql = (f"INSERT INTO daily_inverter ({', '.join(cols)}) "
+               f"VALUES ({', '.join('?' * len(cols))})")
+        cur = conn.connection.cursor()
+        try:
+            cur.executemany(sql, recs)
+        finally:
+            cur.close()
+    else:
+        recs = _records(rows, pks, computation_id, iso_days=False)
+        cols = ["device_pk", "day", *VALUE_COLUMNS, "computation_id"]
+        conn.execute(t.insert(), [dict(zip(cols, r, strict=True)) for r in recs])
+    return len(rows)
+
+
+def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None,
+                start: dt.date | None = None, end: dt.date | None = None) -> pd.DataFrame:
+    """Daily rows of a site's inverters, days ``[start, end]`` inclusive, by device and day.
+
+    Columns: ``device_id, day`` (``datetime.date``), every value column of
+    ``daily_inverter`` (``day_valid`` as bool) and ``computation_id``.
+    """
+    if isinstance(engine, sa.Engine):
+        with engine.connect() as conn:
+            return daily_table(conn, site_id, device_ids, start, end)
+    t, d = schema.daily_inverter, schema.device
+    q = (sa.select(d.c.device_id, t.c.day, *[t.c[c] for c in VALUE_COLUMNS], t.c.computation_id)
+         .join(d, d.c.device_pk == t.c.device_pk).where(d.c.site_id == site_id))
+    if device_ids is not None:
+        q = q.where(d.c.device_id.in_(list(device_ids)))
+    if start is not None:
+        q = q.where(t.c.day >= start)
+    if end is not None:
+        q = q.where(t.c.day <= end)
+    rows = engine.execute(q.order_by(d.c.device_id, t.c.day)).all()
+    cols = ["device_id", "day", *VALUE_COLUMNS, "computation_id"]
+    out = pd.DataFrame([tuple(r) for r in rows], columns=cols)
+    for c in VALUE_COLUMNS:
+        if c in ("day_valid", "details_json"):
+            continue
+        out[c] = pd.to_numeric(out[c], errors="coerce").astype(
+            "int64" if c in _INT_COLUMNS else "float64")
+    out["day_valid"] = out["day_valid"].astype(bool)
+    return out

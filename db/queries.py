@@ -1,0 +1,292 @@
+"""Read queries for the dashboard (issue #6): small named functions returning DataFrames.
+
+Only ``db/`` writes SQL; the dashboard's pages call these through :mod:`dashboard.data`.
+Each query reads only the rows a page shows (one site, one date window), so a 100-inverter,
+5-year store answers the weekly check in well under a second (``tests/bench/bench_dashboard.py``).
+
+Days are calendar days in the site's local standard time (DEVELOPERS.md "Days"); windows in
+seconds are ``[start_s, end_s)`` on ``ts_s`` (interval start, UTC epoch seconds).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+
+import pandas as pd
+import sqlalchemy as sa
+
+from db import schema as s
+
+# ---------------------------------------------------------------- plant
+
+
+def sites(engine: sa.Engine) -> pd.DataFrame:
+    """Every site: ``site_id, name, owner, timezone, latitude_deg, longitude_deg, n_inverters``."""
+    n_inv = (sa.select(s.device.c.site_id, sa.func.count().label("n_inverters"))
+             .where(s.device.c.kind == "inverter").group_by(s.device.c.site_id).subquery())
+    q = (sa.select(s.site.c.site_id, s.site.c.name, s.site.c.owner, s.site.c.timezone,
+                   s.site.c.latitude_deg, s.site.c.longitude_deg,
+                   sa.func.coalesce(n_inv.c.n_inverters, 0).label("n_inverters"))
+         .select_from(s.site.outerjoin(n_inv, n_inv.c.site_id == s.site.c.site_id))
+         .order_by(s.site.c.site_id))
+    return _frame(engine, q)
+
+
+def site_config_toml(engine: sa.Engine, site_id: str) -> str | None:
+    """The site's configuration file as last loaded (TOML text), or None."""
+    with engine.connect() as conn:
+        return conn.execute(sa.select(s.site.c.config_toml)
+                            .where(s.site.c.site_id == site_id)).scalar()
+
+
+def inverters(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+    """The site's inverters with their ratings, sensors and peer group, ordered by id."""
+    i = s.inverter.c
+    q = (sa.select(s.device.c.device_pk, s.device.c.device_id, i.p_dc_kwp, i.p_ac_max_kw,
+                   i.gamma_pmp_per_c, i.eta_inv_nom, i.mounting, i.commissioned,
+                   i.poa_sensor_id, i.t_module_sensor_id, i.t_amb_sensor_id, i.wind_sensor_id,
+                   i.peer_group)
+         .select_from(s.device.join(s.inverter, s.inverter.c.device_pk == s.device.c.device_pk))
+         .where(s.device.c.site_id == site_id).order_by(s.device.c.device_id))
+    return _frame(engine, q)
+
+
+def devices(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+    """Every device of a site: ``device_pk, device_id, kind, quantity, instrument``
+    (quantity/instrument are set for sensors only)."""
+    q = (sa.select(s.device.c.device_pk, s.device.c.device_id, s.device.c.kind,
+                   s.sensor.c.quantity, s.sensor.c.instrument)
+         .select_from(s.device.outerjoin(s.sensor, s.sensor.c.device_pk == s.device.c.device_pk))
+         .where(s.device.c.site_id == site_id).order_by(s.device.c.kind, s.device.c.device_id))
+    return _frame(engine, q)
+
+
+# ---------------------------------------------------------------- daily table
+
+
+def daily_span(engine: sa.Engine, site_id: str) -> tuple[dt.date | None, dt.date | None]:
+    """First and last day in ``daily_inverter`` for the site (None, None when empty)."""
+    d = s.daily_inverter.c
+    q = (sa.select(sa.func.min(d.day), sa.func.max(d.day))
+         .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
+         .where(s.device.c.site_id == site_id))
+    with engine.connect() as conn:
+        lo, hi = conn.execute(q).one()
+    return _as_date(lo), _as_date(hi)
+
+
+DAILY_COLUMNS = ("e_ac_kwh", "e_ac_pr_kwh", "e_ref_kwh", "e_ref_stc_kwh", "e_exp_kwh", "e_ac_valid_kwh",
+                 "e_exp_valid_kwh", "h_poa_kwhm2", "pr", "pr_stc", "pi", "t_cell_wavg_c",
+                 "coverage", "day_valid", "t_daylight_h", "t_unavailable_h", "e_lost_kwh",
+                 "avail_time", "avail_energy", "n_intervals", "n_daylight", "n_valid")
+
+
+def daily_rows(engine: sa.Engine, site_id: str, start: dt.date | None = None,
+               end: dt.date | None = None, columns: tuple[str, ...] = DAILY_COLUMNS,
+               device_ids: list[str] | None = None) -> pd.DataFrame:
+    """``daily_inverter`` rows of a site in ``[start, end]`` (days, inclusive), long format
+    with ``device_id`` and ``day`` (datetime.date) first; only the named columns are read."""
+    d = s.daily_inverter.c
+    cols = [s.device.c.device_id, d.day] + [d[c] for c in columns]
+    q = (sa.select(*cols)
+         .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
+         .where(s.device.c.site_id == site_id))
+    if start is not None:
+        q = q.where(d.day >= start)
+    if end is not None:
+        q = q.where(d.day <= end)
+    if device_ids is not None:
+        q = q.where(s.device.c.device_id.in_(list(device_ids)))
+    out = _frame(engine, q.order_by(s.device.c.device_id, d.day))
+    out["day"] = pd.to_datetime(out["day"]).dt.date
+    if "day_valid" in out:
+        out["day_valid"] = out["day_valid"].astype(bool)
+    return out
+
+
+def period_sums(engine: sa.Engine, site_id: str, start: dt.date, end: dt.date) -> pd.DataFrame:
+    """Per inverter, sums over the days ``[start, end]`` from which any period KPI is a ratio
+    of sums (IEC 61724-1: PR over a period is Σ energy / Σ reference energy, not a mean of
+    daily ratios).
+
+    Columns: ``device_id, n_days, n_days_valid, e_ac_kwh`` (all days), ``e_ac_pr_kwh,
+    e_ref_kwh, e_ref_stc_kwh`` (valid days only, numerator and denominator together),
+    ``e_lost_kwh, t_daylight_h, t_unavailable_h`` (all days).
+    """
+    d = s.daily_inverter.c
+    valid = d.day_valid.is_(True)
+
+    def vsum(col):
+        return sa.func.sum(sa.case((valid, col), else_=None))
+
+    q = (sa.select(s.device.c.device_id,
+                   sa.func.count().label("n_days"),
+                   sa.func.sum(sa.case((valid, 1), else_=0)).label("n_days_valid"),
+                   sa.func.sum(d.e_ac_kwh).label("e_ac_kwh"),
+                   vsum(sa.func.coalesce(d.e_ac_pr_kwh, d.e_ac_kwh)).label("e_ac_pr_kwh"),
+                   vsum(d.e_ref_kwh).label("e_ref_kwh"),
+                   vsum(d.e_ref_stc_kwh).label("e_ref_stc_kwh"),
+                   sa.func.sum(d.e_lost_kwh).label("e_lost_kwh"),
+                   sa.func.sum(d.t_daylight_h).label("t_daylight_h"),
+                   sa.func.sum(d.t_unavailable_h).label("t_unavailable_h"))
+         .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
+         .where(s.device.c.site_id == site_id, d.day >= start, d.day <= end)
+         .group_by(s.device.c.device_id).order_by(s.device.c.device_id))
+    return _frame(engine, q)
+
+
+# ---------------------------------------------------------------- flags
+
+FLAG_COLUMNS = ("flag_id", "site_id", "device_id", "kind", "start_s", "end_s", "severity",
+                "lost_kwh", "details_json")
+
+
+def flags_overlapping(engine: sa.Engine, site_id: str, start_s: int | None = None,
+                      end_s: int | None = None, device_ids: list[str] | None = None,
+                      kinds: list[str] | None = None) -> pd.DataFrame:
+    """Flags of a site whose interval ``[start_s, end_s]`` overlaps the window, newest first."""
+    f = s.flag.c
+    q = sa.select(*[f[c] for c in FLAG_COLUMNS]).where(f.site_id == site_id)
+    if start_s is not None:
+        q = q.where(f.end_s >= int(start_s))
+    if end_s is not None:
+        q = q.where(f.start_s < int(end_s))
+    if device_ids is not None:
+        q = q.where(f.device_id.in_(list(device_ids)))
+    if kinds is not None:
+        q = q.where(f.kind.in_(list(kinds)))
+    return _frame(engine, q.order_by(f.start_s.desc(), f.flag_id.desc()))
+
+
+def flag_by_id(engine: sa.Engine, flag_id: int) -> dict | None:
+    """One flag as a dict (``details`` parsed from JSON), or None when there is no such id."""
+    f = s.flag.c
+    with engine.connect() as conn:
+        row = conn.execute(sa.select(*[f[c] for c in FLAG_COLUMNS])
+                           .where(f.flag_id == int(flag_id))).mappings().first()
+    if row is None:
+        return None
+    out = dict(row)
+    out["details"] = _json(out.pop("details_json"))
+    return out
+
+
+# ---------------------------------------------------------------- degradation
+
+
+def degradation_rows(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+    """``degradation_result`` rows of a site; ``details`` holds the parsed JSON."""
+    r = s.degradation_result.c
+    q = (sa.select(r.device_id, r.method, r.rate_pct_per_yr, r.ci_low, r.ci_high, r.confidence,
+                   r.n_points, r.reason, r.details_json)
+         .where(r.site_id == site_id).order_by(r.device_id, r.method))
+    out = _frame(engine, q)
+    out["details"] = [_json(x) for x in out.pop("details_json")]
+    return out
+
+
+# ---------------------------------------------------------------- interval readings
+
+
+def channel_readings(engine: sa.Engine, site_id: str, device_ids: list[str],
+                     quantities: list[str], start_s: int, end_s: int) -> pd.DataFrame:
+    """Long frame ``device_id, quantity, ts_s, value`` for the named devices and quantities in
+    ``[start_s, end_s)``; one range scan per channel on the ``(channel_id, ts_s)`` key."""
+    ch = (sa.select(s.channel.c.channel_id, s.device.c.device_id, s.channel.c.quantity)
+          .select_from(s.channel.join(s.device, s.device.c.device_pk == s.channel.c.device_pk))
+          .where(s.device.c.site_id == site_id, s.device.c.device_id.in_(list(device_ids)),
+                 s.channel.c.quantity.in_(list(quantities))))
+    with engine.connect() as conn:
+        chans = conn.execute(ch).all()
+        if not chans:
+            return pd.DataFrame({"device_id": pd.Series(dtype=object),
+                                 "quantity": pd.Series(dtype=object),
+                                 "ts_s": pd.Series(dtype="int64"),
+                                 "value": pd.Series(dtype=float)})
+        names = {c.channel_id: (c.device_id, c.quantity) for c in chans}
+        rd = s.reading.c
+        q = (sa.select(rd.channel_id, rd.ts_s, rd.value)
+             .where(rd.channel_id.in_(list(names)), rd.ts_s >= int(start_s),
+                    rd.ts_s < int(end_s)))
+        rows = conn.execute(q).all()
+    out = pd.DataFrame(rows, columns=["channel_id", "ts_s", "value"])
+    out["device_id"] = out["channel_id"].map(lambda c: names[c][0])
+    out["quantity"] = out["channel_id"].map(lambda c: names[c][1])
+    return out[["device_id", "quantity", "ts_s", "value"]]
+
+
+def daily_reading_counts(engine: sa.Engine, site_id: str, start_s: int, end_s: int,
+                         offset_s: int, kinds: tuple[str, ...] = ("sensor",)) -> pd.DataFrame:
+    """Readings per device, quantity and local-standard day in ``[start_s, end_s)``.
+
+    ``offset_s`` is the site's standard-time UTC offset (seconds east); the day number is
+    ``floor((ts_s + offset_s) / 86400)``. Columns: ``device_id, quantity, day, n``.
+    """
+    rd, ch, dv = s.reading.c, s.channel.c, s.device.c
+    day_no = sa.cast(sa.func.floor((rd.ts_s + int(offset_s)) / 86400.0), sa.Integer)
+    q = (sa.select(dv.device_id, ch.quantity, day_no.label("day_no"),
+                   sa.func.count().label("n"))
+         .select_from(s.reading.join(s.channel, ch.channel_id == rd.channel_id)
+                      .join(s.device, dv.device_pk == ch.device_pk))
+         .where(dv.site_id == site_id, dv.kind.in_(list(kinds)), rd.ts_s >= int(start_s),
+                rd.ts_s < int(end_s))
+         .group_by(dv.device_id, ch.quantity, day_no))
+    out = _frame(engine, q)
+    epoch = dt.date(1970, 1, 1)
+    out["day"] = [epoch + dt.timedelta(days=int(n)) for n in out.pop("day_no")]
+    return out[["device_id", "quantity", "day", "n"]]
+
+
+# ---------------------------------------------------------------- ingest log
+
+
+def ingest_batches(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+    """The site's ingest log, newest first: file, hash, rows read/loaded/duplicate/rejected."""
+    b = s.ingest_batch.c
+    q = (sa.select(b.batch_id, b.source_name, b.file_name, b.sha256, b.size_bytes, b.rows_read,
+                   b.rows_loaded, b.rows_duplicate, b.rows_rejected, b.values_loaded,
+                   b.values_conflict, b.values_rejected, b.ts_first_s, b.ts_last_s,
+                   b.interval_s, b.started_utc, b.status, b.message)
+         .where(b.site_id == site_id).order_by(b.batch_id.desc()))
+    return _frame(engine, q)
+
+
+def rejected(engine: sa.Engine, site_id: str, batch_id: int | None = None,
+             limit: int = 500) -> pd.DataFrame:
+    """Rejected rows with their file, line, column and reason (at most ``limit`` rows)."""
+    r, b = s.rejected_row.c, s.ingest_batch.c
+    q = (sa.select(r.batch_id, b.file_name, r.line_no, r.column_name, r.reason, r.raw_text)
+         .select_from(s.rejected_row.join(s.ingest_batch, b.batch_id == r.batch_id))
+         .where(b.site_id == site_id))
+    if batch_id is not None:
+        q = q.where(r.batch_id == int(batch_id))
+    return _frame(engine, q.order_by(r.batch_id, r.line_no).limit(int(limit)))
+
+
+# ---------------------------------------------------------------- helpers
+
+
+def _frame(engine: sa.Engine, q) -> pd.DataFrame:
+    with engine.connect() as conn:
+        res = conn.execute(q)
+        return pd.DataFrame(res.all(), columns=list(res.keys()))
+
+
+def _json(text: str | None):
+    if not text:
+        return {}
+    try:
+        return json.loads(text)
+    except ValueError:
+        return {"_unparsed": text}
+
+
+def _as_date(x) -> dt.date | None:
+    if x is None:
+        return None
+    if isinstance(x, dt.datetime):
+        return x.date()
+    if isinstance(x, dt.date):
+        return x
+    return dt.date.fromisoformat(str(x)[:10])

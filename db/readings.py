@@ -1,0 +1,120 @@
+"""The readings write path: bulk upsert of (channel_id, ts_s, value) in the caller's transaction.
+
+This is the one measured fast path with a per-dialect branch (see PERFORMANCE.md and
+tests/bench/bench_ingest.py); everything else in ``db/`` is SQLAlchemy Core.
+
+* SQLite: one prepared statement through the raw DBAPI connection, ``executemany`` over
+  rows in key order. ``INSERT`` when nothing stored overlaps the batch, otherwise
+  ``INSERT ... ON CONFLICT(channel_id, ts_s) DO UPDATE`` (the last file loaded wins).
+* PostgreSQL (psycopg 3): ``COPY`` straight into ``reading`` when nothing overlaps, else
+  ``COPY`` into a temporary table and ``INSERT ... SELECT ... ON CONFLICT DO UPDATE``.
+
+Keys are encoded as one int64, ``channel_id * 2**34 + ts_s`` (:func:`key`), to compare incoming
+readings with stored ones by ``numpy.searchsorted``.
+"""
+
+from __future__ import annotations
+
+import io
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+from db import schema
+
+TS_BITS = 34  # ts_s < 2**34 s: until the year 2514
+
+
+def key(channel_id: np.ndarray, ts_s: np.ndarray) -> np.ndarray:
+    return (channel_id.astype(np.int64) << TS_BITS) + ts_s.astype(np.int64)
+
+
+def stored_range(conn: sa.Connection, channel_ids: list[int]) -> dict[int, tuple[int, int]]:
+    """``{channel_id: (min ts_s, max ts_s)}`` of stored readings (two index seeks per channel)."""
+    r = schema.reading
+    out = {}
+    lo_q = sa.select(sa.func.min(r.c.ts_s)).where(r.c.channel_id == sa.bindparam("ch"))
+    hi_q = sa.select(sa.func.max(r.c.ts_s)).where(r.c.channel_id == sa.bindparam("ch"))
+    for ch in channel_ids:
+        lo = conn.execute(lo_q, {"ch": ch}).scalar()
+        if lo is not None:
+            out[ch] = (int(lo), int(conn.execute(hi_q, {"ch": ch}).scalar()))
+    return out
+
+
+def stored_values(conn: sa.Connection, channel_ids: list[int], lo: int, hi: int
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Stored readings of ``channel_ids`` with ``lo <= ts_s <= hi``: sorted keys, values, batch ids."""
+    r = schema.reading
+    rows = conn.execute(sa.select(r.c.channel_id, r.c.ts_s, r.c.value, r.c.batch_id).where(
+        r.c.channel_id.in_([int(c) for c in channel_ids]), r.c.ts_s.between(int(lo), int(hi)))).all()
+    if not rows:
+        e = np.empty(0, dtype=np.int64)
+        return e, np.empty(0), e
+    a = np.array([(x[0], x[1], x[3]) for x in rows], dtype=np.int64)
+    v = np.array([x[2] for x in rows], dtype=np.float64)
+    k = key(a[:, 0], a[:, 1])
+    order = np.argsort(k, kind="stable")
+    return k[order], v[order], a[order, 2]
+
+
+def previous_reading(conn: sa.Connection, channel_id: int, before_s: int) -> tuple[int, float] | None:
+    """The last stored ``(ts_s, value)`` of a channel strictly before ``before_s``, or None."""
+    r = schema.reading
+    row = conn.execute(sa.select(r.c.ts_s, r.c.value).where(
+        r.c.channel_id == channel_id, r.c.ts_s < before_s).order_by(r.c.ts_s.desc()).limit(1)).first()
+    return (int(row[0]), float(row[1])) if row else None
+
+
+def write_readings(conn: sa.Connection, channel_id: np.ndarray, ts_s: np.ndarray,
+                   value: np.ndarray, batch_id: int, *, upsert: bool) -> int:
+    """Write readings in the caller's transaction; return how many were written."""
+    n = len(ts_s)
+    if n == 0:
+        return 0
+    batch_id = int(batch_id)
+    if conn.dialect.name == "postgresql":
+        _write_pg(conn, channel_id, ts_s, value, batch_id, upsert)
+        return n
+    raw = conn.connection.driver_connection
+    sql = f"INSERT INTO reading (channel_id, ts_s, value, batch_id) VALUES (?, ?, ?, {batch_id})"
+    if upsert:
+        sql += (" ON CONFLICT(channel_id, ts_s) DO UPDATE SET value = excluded.value, "
+                "batch_id = excluded.batch_id")
+    if conn.dialect.name == "sqlite":
+        cur = raw.cursor()
+        cur.executemany(sql, zip(channel_id.tolist(), ts_s.tolist(), value.tolist(), strict=True))
+        cur.close()
+    else:  # any other dialect: SQLAlchemy Core, slower but neutral
+        r = schema.reading
+        rows = [dict(channel_id=c, ts_s=t, value=v, batch_id=batch_id)
+                for c, t, v in zip(channel_id.tolist(), ts_s.tolist(), value.tolist(), strict=True)]
+        keys = set(zip(channel_id.tolist(), ts_s.tolist(), strict=True))
+        if upsert:
+            for c, t in keys:
+                conn.execute(r.delete().where(r.c.channel_id == c, r.c.ts_s == t))
+        conn.execute(r.insert(), rows)
+    return n
+
+
+def _write_pg(conn: sa.Connection, channel_id, ts_s, value, batch_id: int, upsert: bool) -> None:
+    raw = conn.connection.driver_connection
+    buf = io.StringIO()
+    pd.DataFrame({"c": channel_id, "t": ts_s, "v": value, "b": batch_id}).to_csv(
+        buf, sep="\t", header=False, index=False, float_format="%.17g")
+    data = buf.getvalue()
+    with raw.cursor() as cur:
+        if not upsert:
+            with cur.copy("COPY reading (channel_id, ts_s, value, batch_id) FROM STDIN") as cp:
+                cp.write(data)
+            return
+        cur.execute("CREATE TEMP TABLE IF NOT EXISTS reading_in (channel_id integer, "
+                    "ts_s bigint, value double precision, batch_id integer) ON COMMIT DROP")
+        with cur.copy("COPY reading_in (channel_id, ts_s, value, batch_id) FROM STDIN") as cp:
+            cp.write(data)
+        cur.execute("INSERT INTO reading (channel_id, ts_s, value, batch_id) "
+                    "SELECT channel_id, ts_s, value, batch_id FROM reading_in "
+                    "ON CONFLICT (channel_id, ts_s) DO UPDATE SET value = excluded.value, "
+                    "batch_id = excluded.batch_id")
+        cur.execute("TRUNCATE reading_in")

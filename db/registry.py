@@ -1,0 +1,113 @@
+"""Sites, devices and channels from a site configuration (``register_site``), and channel lookup.
+
+Registering is idempotent: the site row is inserted or updated (with the TOML text and its
+SHA-256), devices and their inverter/sensor rows are inserted or updated, channels are added
+for every quantity the config's sources deliver. Devices and channels are never deleted here:
+readings keep their channel when a device leaves the config.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import sqlalchemy as sa
+
+from db import schema
+from ingest.config import SiteConfig
+
+DERIVED = {"e_ac_total_kwh": "e_ac_kwh"}  # counter quantity -> the quantity ingest derives
+
+
+def _now() -> str:
+    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+
+
+def channel_quantities(cfg: SiteConfig) -> dict[str, set[str]]:
+    """device_id -> quantities it gets a channel for (what the sources deliver, plus derived)."""
+    out: dict[str, set[str]] = {d: set() for d in sorted(cfg.device_ids())}
+    for s in cfg.sensors:
+        out[s.id].add(s.quantity)
+    inv_ids = [i.id for i in cfg.inverters]
+    for src in cfg.sources:
+        for c in src.columns:
+            out[c.device].add(c.quantity)
+        for q, _u in src.quantity_names.values():
+            targets = inv_ids if q in ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh") else [
+                s.id for s in cfg.sensors if s.quantity == q]
+            for d in targets:
+                out[d].add(q)
+    for qs in out.values():
+        for q in list(qs):
+            if q in DERIVED:
+                qs.add(DERIVED[q])
+    return out
+
+
+def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) -> dict[tuple[str, str], int]:
+    """Insert or update the site, its devices and channels; return the channel map."""
+    if isinstance(engine_or_conn, sa.Engine):
+        with engine_or_conn.begin() as conn:
+            return register_site(conn, cfg)
+    conn = engine_or_conn
+    t = schema.site
+    row = dict(name=cfg.name, owner=cfg.owner, timezone=cfg.timezone,
+               latitude_deg=cfg.latitude_deg, longitude_deg=cfg.longitude_deg,
+               altitude_m=cfg.altitude_m, tilt_deg=cfg.tilt_deg, azimuth_deg=cfg.azimuth_deg,
+               albedo=cfg.albedo, config_toml=cfg.toml_text, config_sha256=cfg.sha256,
+               updated_utc=_now())
+    exists = conn.execute(sa.select(t.c.site_id).where(t.c.site_id == cfg.id)).first()
+    if exists:
+        old = conn.execute(sa.select(t.c.config_sha256).where(t.c.site_id == cfg.id)).scalar()
+        if old != cfg.sha256:
+            conn.execute(t.update().where(t.c.site_id == cfg.id).values(**row))
+    else:
+        conn.execute(t.insert().values(site_id=cfg.id, **row))
+    d = schema.device
+    have = {r.device_id: r.device_pk for r in conn.execute(
+        sa.select(d.c.device_id, d.c.device_pk).where(d.c.site_id == cfg.id))}
+    for dev_id in sorted(cfg.device_ids()):
+        kind = cfg.device_kind(dev_id)
+        if dev_id not in have:
+            res = conn.execute(d.insert().values(site_id=cfg.id, device_id=dev_id, kind=kind))
+            have[dev_id] = res.inserted_primary_key[0]
+        else:
+            conn.execute(d.update().where(d.c.device_pk == have[dev_id]).values(kind=kind))
+    for inv in cfg.inverters:
+        vals = dict(p_dc_kwp=inv.p_dc_kwp, p_ac_max_kw=inv.p_ac_max_kw,
+                    gamma_pmp_per_c=inv.gamma_pmp_per_c, eta_inv_nom=inv.eta_inv_nom,
+                    mounting=inv.mounting, commissioned=inv.commissioned,
+                    poa_sensor_id=inv.poa_sensor, t_module_sensor_id=inv.t_module_sensor,
+                    t_amb_sensor_id=inv.t_amb_sensor, wind_sensor_id=inv.wind_sensor,
+                    peer_group=inv.peer_group)
+        _upsert_by_pk(conn, schema.inverter, have[inv.id], vals)
+    for s in cfg.sensors:
+        _upsert_by_pk(conn, schema.sensor, have[s.id],
+                      dict(quantity=s.quantity, instrument=s.instrument))
+    c = schema.channel
+    existing = {(r.device_pk, r.quantity) for r in conn.execute(
+        sa.select(c.c.device_pk, c.c.quantity).where(c.c.device_pk.in_(list(have.values()))))}
+    for dev_id, qs in channel_quantities(cfg).items():
+        for q in sorted(qs):
+            if (have[dev_id], q) not in existing:
+                conn.execute(c.insert().values(device_pk=have[dev_id], quantity=q))
+    return channel_map(conn, cfg.id)
+
+
+def _upsert_by_pk(conn: sa.Connection, table: sa.Table, device_pk: int, vals: dict) -> None:
+    if conn.execute(sa.select(table.c.device_pk).where(table.c.device_pk == device_pk)).first():
+        conn.execute(table.update().where(table.c.device_pk == device_pk).values(**vals))
+    else:
+        conn.execute(table.insert().values(device_pk=device_pk, **vals))
+
+
+def channel_map(engine_or_conn: sa.Engine | sa.Connection, site_id: str) -> dict[tuple[str, str], int]:
+    """``{(device_id, quantity): channel_id}`` for a site."""
+    d, c = schema.device, schema.channel
+    q = (sa.select(d.c.device_id, c.c.quantity, c.c.channel_id)
+         .join(c, c.c.device_pk == d.c.device_pk).where(d.c.site_id == site_id))
+    if isinstance(engine_or_conn, sa.Engine):
+        with engine_or_conn.connect() as conn:
+            rows = conn.execute(q).all()
+    else:
+        rows = engine_or_conn.execute(q).all()
+    return {(r.device_id, r.quantity): r.channel_id for r in rows}

@@ -1,0 +1,272 @@
+"""Interval frames read from the store: one inverter with its sensors, or a whole site.
+
+Reading is the bottleneck of every recompute (about 1 M rows/s, PERFORMANCE.md), so each
+channel is read with one query on the ``(channel_id, ts_s)`` primary key through the raw
+DBAPI cursor, turned into numpy arrays without per-row Python objects, and aligned in numpy.
+
+Conventions:
+
+* ``start_s`` is inclusive, ``end_s`` exclusive (UTC epoch seconds of interval starts);
+* ``interval_h`` comes from the timestamp spacing of each channel
+  (:func:`interval_h_from_ts`);
+* an inverter frame is indexed by the union of its power and energy channels' timestamps;
+  each configured sensor (POA, module temperature, ambient temperature, wind) is averaged
+  into those intervals (a sensor at the same spacing maps one to one; a sensor logging
+  every 5 min into 15-min inverter intervals is averaged). Missing readings are NaN.
+"""
+
+from __future__ import annotations
+
+import itertools
+from collections.abc import Iterable, Iterator
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+from db import schema
+
+INVERTER_FRAME_COLUMNS = ("p_ac_kw", "e_ac_kwh", "poa_wm2", "t_module_c", "t_amb_c", "wind_ms",
+                          "interval_h")
+#: inverter column -> the inverter-table column naming the sensor that delivers it
+SENSOR_REFS = {"poa_wm2": "poa_sensor_id", "t_module_c": "t_module_sensor_id",
+               "t_amb_c": "t_amb_sensor_id", "wind_ms": "wind_sensor_id"}
+
+
+def interval_h_from_ts(ts_s: np.ndarray) -> np.ndarray:
+    """Interval length [h] of each sample from the spacing of sorted timestamps [s].
+
+    Each sample's interval is the smaller of the gaps to its neighbours (so a gap of missing
+    rows on one side does not lengthen it); a sample isolated by gaps on both sides, or with
+    a spacing above twice the channel's median, gets the median spacing. One sample alone
+    gets 15 min (the common logger interval, common practice).
+
+    Examples
+    --------
+    >>> interval_h_from_ts(np.array([0, 900, 1800, 7200, 8100])).tolist()
+    [0.25, 0.25, 0.25, 0.25, 0.25]
+    """
+    ts = np.asarray(ts_s, dtype=np.int64)
+    if ts.size == 0:
+        return np.zeros(0)
+    if ts.size == 1:
+        return np.array([0.25])
+    d = np.diff(ts).astype(float)
+    prev = np.concatenate(([np.inf], d))
+    nxt = np.concatenate((d, [np.inf]))
+    out = np.minimum(prev, nxt)
+    med = float(np.median(d))
+    out = np.where(out > 2 * med, med, out)
+    return out / 3600.0
+
+
+def _paramstyle(conn: sa.Connection) -> str:
+    return "?" if conn.dialect.paramstyle == "qmark" else "%s"
+
+
+def read_channel(conn: sa.Connection, channel_id: int, start_s: int | None = None,
+                 end_s: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """``(ts_s int64, value float)`` arrays of one channel in ``[start_s, end_s)``, by key order."""
+    ph = _paramstyle(conn)
+    sql = f"SELECT ts_s, value FROM reading WHERE channel_id = {ph}"
+    args: list = [int(channel_id)]
+    if start_s is not None:
+        sql += f" AND ts_s >= {ph}"
+        args.append(int(start_s))
+    if end_s is not None:
+        sql += f" AND ts_s < {ph}"
+        args.append(int(end_s))
+    sql += " ORDER BY ts_s"
+    cur = conn.connection.cursor()
+    try:
+        cur.execute(sql, args)
+        rows = cur.fetchall()
+    finally:
+        cur.close()
+    n = len(rows)
+    if n == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0)
+    flat = np.fromiter(itertools.chain.from_iterable(rows), dtype=float, count=2 * n)
+    flat = flat.reshape(n, 2)
+    return flat[:, 0].astype(np.int64), flat[:, 1].copy()
+
+
+def bin_mean(base_ts: np.ndarray, base_interval_s: np.ndarray, ts: np.ndarray,
+             values: np.ndarray) -> np.ndarray:
+    """Mean of ``values`` (at ``ts``) over each base interval ``[base_ts, base_ts + interval)``."""
+    out = np.full(base_ts.size, np.nan)
+    if ts.size == 0 or base_ts.size == 0:
+        return out
+    k = np.searchsorted(base_ts, ts, side="right") - 1
+    ok = (k >= 0) & np.isfinite(values)
+    ok[ok] &= ts[ok] < base_ts[k[ok]] + base_interval_s[k[ok]]
+    if not ok.any():
+        return out
+    s = np.bincount(k[ok], weights=values[ok], minlength=base_ts.size)
+    c = np.bincount(k[ok], minlength=base_ts.size)
+    has = c > 0
+    out[has] = s[has] / c[has]
+    return out
+
+
+def _to_index(ts_s: np.ndarray) -> pd.DatetimeIndex:
+    return pd.DatetimeIndex(pd.to_datetime(ts_s, unit="s", utc=True), name="ts_utc")
+
+
+def site_channels(conn: sa.Connection, site_id: str) -> dict[tuple[str, str], int]:
+    """``{(device_id, quantity): channel_id}`` of a site."""
+    d, c = schema.device, schema.channel
+    q = (sa.select(d.c.device_id, c.c.quantity, c.c.channel_id)
+         .join(c, c.c.device_pk == d.c.device_pk).where(d.c.site_id == site_id))
+    return {(r.device_id, r.quantity): r.channel_id for r in conn.execute(q)}
+
+
+def site_inverters(conn: sa.Connection, site_id: str) -> pd.DataFrame:
+    """The site's inverter rows with ``device_id`` and ``device_pk``, ordered by device_id."""
+    d, i = schema.device, schema.inverter
+    q = (sa.select(d.c.device_id, i).join(i, i.c.device_pk == d.c.device_pk)
+         .where(d.c.site_id == site_id).order_by(d.c.device_id))
+    rows = conn.execute(q).mappings().all()
+    cols = ["device_id"] + [c.name for c in i.columns]
+    return pd.DataFrame([dict(r) for r in rows], columns=cols)
+
+
+def _empty_inverter_frame() -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series([], dtype=float) for c in INVERTER_FRAME_COLUMNS},
+                        index=_to_index(np.zeros(0, dtype=np.int64)))
+
+
+def _union_sorted(arrays: list[np.ndarray]) -> np.ndarray:
+    arrays = [a for a in arrays if a.size]
+    if len(arrays) == 1 and (arrays[0].size < 2 or (np.diff(arrays[0]) > 0).all()):
+        return arrays[0]  # one channel read in key order: already sorted and unique
+    return np.unique(np.concatenate(arrays))
+
+
+def _assemble(channels: dict, inv: dict, read, binned: dict) -> pd.DataFrame:
+    own = [(q, channels.get((inv["device_id"], q))) for q in ("p_ac_kw", "e_ac_kwh")]
+    data = {q: read(ch) for q, ch in own if ch is not None}
+    if not data or all(v[0].size == 0 for v in data.values()):
+        return _empty_inverter_frame()
+    ts = _union_sorted([v[0] for v in data.values()])
+    interval_h = interval_h_from_ts(ts)
+    cols: dict[str, np.ndarray] = {}
+    for q in ("p_ac_kw", "e_ac_kwh"):
+        col = np.full(ts.size, np.nan)
+        if q in data and data[q][0].size:
+            col[np.searchsorted(ts, data[q][0])] = data[q][1]
+        cols[q] = col
+    int_s = interval_h * 3600.0
+    for q, ref in SENSOR_REFS.items():
+        sid = inv.get(ref)
+        ch = channels.get((sid, q)) if sid else None
+        if ch is None:
+            cols[q] = np.full(ts.size, np.nan)
+            continue
+        # inverters of a site usually share one timestamp grid: bin each sensor once per grid
+        hit = binned.get(ch)
+        if hit is not None and hit[0].size == ts.size and np.array_equal(hit[0], ts):
+            cols[q] = hit[1]
+            continue
+        cols[q] = bin_mean(ts, int_s, *read(ch))
+        binned[ch] = (ts, cols[q])
+    cols["interval_h"] = interval_h
+    return pd.DataFrame(cols, index=_to_index(ts))[list(INVERTER_FRAME_COLUMNS)]
+
+
+def inverter_frames(engine_or_conn: sa.Engine | sa.Connection, site_id: str,
+                    start_s: int | None = None, end_s: int | None = None,
+                    inverter_ids: Iterable[str] | None = None
+                    ) -> Iterator[tuple[dict, pd.DataFrame]]:
+    """Yield ``(inverter row as dict, frame)`` for the site's inverters, each sensor read once.
+
+    The frame is that of :func:`inverter_frame`. Sensor channels shared by several inverters
+    are read once and kept while the generator runs.
+    """
+    if isinstance(engine_or_conn, sa.Engine):
+        with engine_or_conn.connect() as conn:
+            yield from inverter_frames(conn, site_id, start_s, end_s, inverter_ids)
+        return
+    conn = engine_or_conn
+    channels = site_channels(conn, site_id)
+    invs = site_inverters(conn, site_id)
+    if inverter_ids is not None:
+        wanted = list(inverter_ids)
+        unknown = sorted(set(wanted) - set(invs["device_id"]))
+        if unknown:
+            raise KeyError(f"site {site_id!r} has no inverter {', '.join(map(repr, unknown))}")
+        invs = invs[invs["device_id"].isin(wanted)]
+    cache: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    sensor_channels = {channels.get((inv[ref], q)) for inv in invs.to_dict("records")
+                       for q, ref in SENSOR_REFS.items() if inv.get(ref)}
+
+    def read(ch: int) -> tuple[np.ndarray, np.ndarray]:
+        if ch in cache:
+            return cache[ch]
+        got = read_channel(conn, ch, start_s, end_s)
+        if ch in sensor_channels:
+            cache[ch] = got
+        return got
+
+    binned: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    for inv in invs.to_dict("records"):
+        yield inv, _assemble(channels, inv, read, binned)
+
+
+def inverter_frame(engine: sa.Engine | sa.Connection, site_id: str, inverter_id: str,
+                   start_s: int | None = None, end_s: int | None = None) -> pd.DataFrame:
+    """One inverter's interval frame joined with its configured sensors.
+
+    Returns
+    -------
+    DataFrame indexed by ``ts_utc`` (tz-aware UTC, interval start) with columns
+    ``p_ac_kw, e_ac_kwh, poa_wm2, t_module_c, t_amb_c, wind_ms, interval_h`` (NaN where a
+    channel has no reading or the inverter has no such sensor). Empty when the inverter
+    has no power or energy readings in the window.
+
+    Raises
+    ------
+    KeyError
+        If the site has no inverter ``inverter_id``.
+    """
+    for _inv, frame in inverter_frames(engine, site_id, start_s, end_s, [inverter_id]):
+        return frame
+    raise KeyError(f"site {site_id!r} has no inverter {inverter_id!r}")  # pragma: no cover
+
+
+def site_frame(engine: sa.Engine | sa.Connection, site_id: str, start_s: int | None = None,
+               end_s: int | None = None) -> pd.DataFrame:
+    """Every channel of a site side by side.
+
+    Returns
+    -------
+    DataFrame indexed by ``ts_utc`` (the union of all channels' timestamps), columns a
+    MultiIndex ``(device_id, quantity)``; each device also gets ``(device_id, 'interval_h')``
+    from the spacing of its own timestamps (NaN where the device has no reading).
+    """
+    if isinstance(engine, sa.Engine):
+        with engine.connect() as conn:
+            return site_frame(conn, site_id, start_s, end_s)
+    conn = engine
+    channels = site_channels(conn, site_id)
+    got = {key: read_channel(conn, ch, start_s, end_s) for key, ch in sorted(channels.items())}
+    got = {k: v for k, v in got.items() if v[0].size}
+    if not got:
+        return pd.DataFrame(index=_to_index(np.zeros(0, dtype=np.int64)),
+                            columns=pd.MultiIndex.from_tuples([], names=["device_id", "quantity"]))
+    ts = np.unique(np.concatenate([v[0] for v in got.values()]))
+    cols: dict[tuple[str, str], np.ndarray] = {}
+    devices = sorted({d for d, _q in got})
+    for dev in devices:
+        dev_ts = np.unique(np.concatenate([v[0] for (d, _q), v in got.items() if d == dev]))
+        for (d, q), (t, v) in got.items():
+            if d == dev:
+                col = np.full(ts.size, np.nan)
+                col[np.searchsorted(ts, t)] = v
+                cols[(d, q)] = col
+        col = np.full(ts.size, np.nan)
+        col[np.searchsorted(ts, dev_ts)] = interval_h_from_ts(dev_ts)
+        cols[(dev, "interval_h")] = col
+    out = pd.DataFrame(cols, index=_to_index(ts))
+    out.columns = pd.MultiIndex.from_tuples(out.columns, names=["device_id", "quantity"])
+    return out

@@ -1,0 +1,219 @@
+"""Daily performance job: read interval frames, compute daily rows, replace them in the store.
+
+``recompute_range`` recomputes only the site-local standard days that ``[start_s, end_s]``
+touches (the ingest step calls it after each file with the file's first and last interval
+start); ``recompute_all`` recomputes every day that has readings. Each run records one
+``computation`` row (kind ``daily``, the software version, the parameters including the
+site's filter settings, and its scope) and stamps the rows it writes with its id.
+
+Solar position and clear-sky POA are computed once per site timestamp grid and shared by
+the site's inverters; each sensor channel is read once per run.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import tomllib
+from collections.abc import Callable
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+import heliaudit
+from analytics import daily as adaily
+from analytics import filters as flt
+from analytics.temperature import SAPM_PARAMETERS
+from db import schema
+from db.daily import write_daily
+from db.timeseries import inverter_frames, site_channels
+
+Progress = Callable[[int, int], None]  # progress(done, total), in inverters
+_EPOCH = dt.date(1970, 1, 1)
+
+
+class SiteNotFoundError(LookupError):
+    pass
+
+
+def _now() -> str:
+    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+
+
+def _site(conn: sa.Connection, site_id: str) -> dict:
+    row = conn.execute(sa.select(schema.site).where(schema.site.c.site_id == site_id)).mappings().first()
+    if row is None:
+        known = conn.execute(sa.select(schema.site.c.site_id)).scalars().all()
+        raise SiteNotFoundError(f"no site {site_id!r} in the database; known: "
+                                f"{', '.join(known) or '(none)'}")
+    return dict(row)
+
+
+def site_filters(site_row: dict) -> dict[str, float]:
+    """The site's ``[filters]`` (from its stored configuration) merged with the defaults.
+
+    Raises ``ValueError`` naming ``filters.<key>`` for an unknown setting.
+    """
+    try:
+        raw = tomllib.loads(site_row.get("config_toml") or "").get("filters", {})
+    except tomllib.TOMLDecodeError:
+        raw = {}
+    return flt.resolve_filters(raw)
+
+
+def _params(site_row: dict, filters: dict, offset_h: float) -> dict:
+    return {
+        "filters": filters,
+        "utc_standard_offset_h": offset_h,
+        "temperature_model": "Sandia Eq. 12 from back-of-module (King et al. 2004), "
+                             "Eq. 11 / Faiman 2008 from ambient where missing",
+        "sapm_parameters": SAPM_PARAMETERS,
+        "power_model": "PVWatts V5 DC + inverter curve (Dobos 2014)",
+        "night": "solar elevation (pvlib nrel_numpy) < night_elevation_deg or G < night_poa_wm2",
+        "coverage_weight": "measured POA, clear-sky POA (Ineichen, isotropic) where missing",
+    }
+
+
+class _Inv:
+    """Duck-typed inverter parameters for analytics.daily from an inverter-table row."""
+
+    def __init__(self, row: dict):
+        self.p_dc_kwp = float(row["p_dc_kwp"])
+        self.p_ac_max_kw = float(row["p_ac_max_kw"])
+        self.gamma_pmp_per_c = float(row["gamma_pmp_per_c"])
+        self.eta_inv_nom = float(row["eta_inv_nom"])
+        self.mounting = row["mounting"]
+
+
+def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: int | None,
+             scope: str, progress: Progress | None) -> dict:
+    with engine.connect() as conn:
+        site = _site(conn, site_id)
+        n_inv = conn.execute(sa.select(sa.func.count()).select_from(
+            schema.inverter.join(schema.device)).where(schema.device.c.site_id == site_id)).scalar()
+    filters = site_filters(site)
+    offset_h = adaily.standard_utc_offset_h(site["timezone"])
+    off_s = int(round(offset_h * 3600))
+    start_s = None if first_day is None else first_day * 86400 - off_s
+    end_s = None if last_day is None else (last_day + 1) * 86400 - off_s
+    with engine.begin() as conn:
+        comp_id = conn.execute(schema.computation.insert().values(
+            site_id=site_id, kind="daily", software_version=heliaudit.__version__,
+            params_json=json.dumps(_params(site, filters, offset_h), sort_keys=True, default=str),
+            started_utc=_now(), scope=scope)).inserted_primary_key[0]
+
+    sun = pd.DataFrame({"solar_elevation_deg": [], "poa_clearsky_wm2": []},
+                       index=pd.DatetimeIndex([], tz="UTC"))
+    parts, ids, done = [], [], 0
+    days_seen: list[int] = []
+    if progress:
+        progress(0, n_inv)
+    for inv, frame in inverter_frames(engine, site_id, start_s, end_s):
+        ids.append(inv["device_id"])
+        if len(frame):
+            missing = frame.index.difference(sun.index)
+            if len(missing):
+                new = flt.sun_and_clearsky(
+                    missing, site["latitude_deg"], site["longitude_deg"], site["altitude_m"],
+                    site["tilt_deg"], site["azimuth_deg"], site["albedo"],
+                    interval_h=frame["interval_h"].reindex(missing).to_numpy())
+                sun = pd.concat([sun, new]).sort_index() if len(sun) else new
+            s = sun.reindex(frame.index)
+            rows = adaily.daily_performance(
+                frame, _Inv(inv), utc_offset_h=offset_h,
+                solar_elevation_deg=s["solar_elevation_deg"],
+                poa_clearsky_wm2=s["poa_clearsky_wm2"], filters=filters)
+            rows.insert(0, "device_id", inv["device_id"])
+            parts.append(rows)
+            days_seen += [(rows["day"].min() - _EPOCH).days, (rows["day"].max() - _EPOCH).days]
+        done += 1
+        if progress:
+            progress(done, n_inv)
+    out = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+        columns=["device_id", *adaily.DAILY_COLUMNS])
+    lo = first_day if first_day is not None else (min(days_seen) if days_seen else 0)
+    hi = last_day if last_day is not None else (max(days_seen) if days_seen else 0)
+    with engine.begin() as conn:
+        n = write_daily(conn, site_id, out, first_day=_EPOCH + dt.timedelta(days=lo),
+                        last_day=_EPOCH + dt.timedelta(days=hi), device_ids=ids,
+                        computation_id=comp_id)
+        conn.execute(schema.computation.update().where(
+            schema.computation.c.computation_id == comp_id).values(finished_utc=_now()))
+    return {"site_id": site_id, "computation_id": comp_id, "rows": n, "inverters": len(ids),
+            "first_day": _EPOCH + dt.timedelta(days=lo) if (first_day is not None or days_seen) else None,
+            "last_day": _EPOCH + dt.timedelta(days=hi) if (last_day is not None or days_seen) else None,
+            "days_valid": int(out["day_valid"].sum()) if len(out) else 0}
+
+
+def local_days(start_s: int, end_s: int, timezone: str) -> tuple[int, int]:
+    """First and last local-standard day numbers (days since 1970-01-01) touched by [start_s, end_s]."""
+    off = adaily.standard_utc_offset_h(timezone)
+    d = adaily.local_standard_day_number(np.array([start_s, end_s]), off)
+    return int(d[0]), int(d[1])
+
+
+def recompute_range(engine: sa.Engine, site_id: str, start_s: int, end_s: int,
+                    progress: Progress | None = None) -> dict:
+    """Recompute the daily rows of every inverter for the local standard days touched by
+    ``[start_s, end_s]`` (UTC epoch seconds, inclusive; e.g. a file's first and last interval
+    start). Returns a summary dict (computation_id, rows, first_day, last_day, ...).
+
+    Raises ``SiteNotFoundError`` for an unknown site, ``ValueError`` if ``end_s < start_s``.
+    """
+    if end_s < start_s:
+        raise ValueError(f"end_s {end_s} is before start_s {start_s}")
+    with engine.connect() as conn:
+        site = _site(conn, site_id)
+    d0, d1 = local_days(int(start_s), int(end_s), site["timezone"])
+    scope = f"days {_EPOCH + dt.timedelta(days=d0)}..{_EPOCH + dt.timedelta(days=d1)}"
+    return _compute(engine, site_id, d0, d1, scope, progress)
+
+
+def _site_span(conn: sa.Connection, site_id: str) -> tuple[int | None, int | None]:
+    chans = list(site_channels(conn, site_id).values())
+    if not chans:
+        return None, None
+    r = schema.reading.c
+    lo, hi = conn.execute(sa.select(sa.func.min(r.ts_s), sa.func.max(r.ts_s))
+                          .where(r.channel_id.in_(chans))).one()
+    return lo, hi
+
+
+def recompute_all(engine: sa.Engine, site_id: str | None = None,
+                  progress: Progress | None = None) -> list[dict]:
+    """Recompute every day of one site (or of every site): all days with readings are
+    rewritten and rows of days without readings any more are deleted. Returns one summary
+    per site."""
+    with engine.connect() as conn:
+        if site_id is None:
+            sites = conn.execute(sa.select(schema.site.c.site_id).order_by(
+                schema.site.c.site_id)).scalars().all()
+        else:
+            _site(conn, site_id)
+            sites = [site_id]
+    out = []
+    for sid in sites:
+        with engine.connect() as conn:
+            lo, hi = _site_span(conn, sid)
+            tz = _site(conn, sid)["timezone"]
+            t = schema.daily_inverter
+            pks = conn.execute(sa.select(schema.device.c.device_pk).where(
+                schema.device.c.site_id == sid)).scalars().all()
+            dmin, dmax = conn.execute(sa.select(sa.func.min(t.c.day), sa.func.max(t.c.day))
+                                      .where(t.c.device_pk.in_(pks))).one()
+        if lo is None:
+            d0 = d1 = None
+        else:
+            d0, d1 = local_days(int(lo), int(hi), tz)
+        # widen to the days already stored, so stale rows outside the readings disappear
+        stored = [(pd.Timestamp(x).date() - _EPOCH).days for x in (dmin, dmax) if x is not None]
+        if stored:
+            d0 = min(stored + ([d0] if d0 is not None else []))
+            d1 = max(stored + ([d1] if d1 is not None else []))
+        if d0 is None:
+            out.append({"site_id": sid, "computation_id": None, "rows": 0, "inverters": 0,
+                        "first_day": None, "last_day": None, "days_valid": 0})
+            continue
+        out.append(_compute(engine, sid, d0, d1, "full", progress))
+    return out

@@ -1,0 +1,567 @@
+"""Load logger exports into the store: one transaction per file, every row accounted for.
+
+:func:`ingest_paths` takes a site config and files or folders; :func:`ingest_file` loads one
+file. The rules (README "Ingest rules"):
+
+* **Atomic per file.** A file is read and written inside one transaction; any error rolls it
+  back and the store is as before the file. The ``failed`` batch row with the message is
+  written afterwards in a transaction of its own.
+* **Idempotent.** A file whose SHA-256 matches a loaded batch of the same site is not read
+  again; a batch row with status ``unchanged`` records the attempt.
+* **Last file loaded wins.** Readings are upserted on ``(channel_id, ts_s)``. Where stored
+  data overlaps the file, incoming values are compared with what is stored: equal values
+  count as ``values_duplicate`` (and are not rewritten), different ones as ``values_conflict``
+  (overwritten). A fresh load with no overlap skips the comparison.
+* **Row accounting.** ``rows_read == rows_loaded + rows_duplicate + rows_rejected``:
+  - *rejected*: the row's timestamp is bad (does not parse, does not exist in local time,
+    ambiguous under ``ambiguous = "reject"``, interval length unknown), the line has the wrong
+    number of fields, it repeats an interval already in the same file with different values,
+    or it has no usable value (all missing or all rejected);
+  - *loaded*: at least one good value is new or changed; bad values of the row are counted in
+    ``values_rejected`` and kept in ``rejected_row`` with their column;
+  - *duplicate*: every good value equals what is stored (or an earlier identical row of the file).
+  Every rejected row or value is stored in ``rejected_row`` with line, column, reason and text.
+* **Counters.** ``e_ac_total_kwh`` columns are stored as read and also turned into interval
+  energy ``e_ac_kwh`` (:mod:`ingest.counters`); derived values are counted in the notes,
+  not in the ``values_*`` counts, which count values read from the file.
+"""
+
+from __future__ import annotations
+
+import fnmatch
+import hashlib
+import os
+from collections import Counter
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import sqlalchemy as sa
+
+from db import ingest_log, readings
+from db.registry import register_site
+from ingest.config import SiteConfig, Source, normalise_unit
+from ingest.counters import CounterEvents, interval_energy
+from ingest.errors import IngestError, Rejected
+from ingest.readers.csv_export import Chunk, _split, read_export
+from ingest.timestamps import NAT, TimestampConverter, describe_intervals, infer_intervals
+from ingest.units import implausible, to_stored
+
+CONTEXT = 3  # labels of the neighbouring chunks used to infer intervals at chunk edges
+
+
+@dataclass
+class BatchResult:
+    """What happened to one file (also the row written to ``ingest_batch``)."""
+
+    path: str
+    site_id: str
+    source_name: str | None
+    status: str  # loaded | unchanged | failed
+    batch_id: int | None = None
+    message: str | None = None
+    counts: dict = field(default_factory=dict)
+    ts_first_s: int | None = None
+    ts_last_s: int | None = None
+    interval_s: str | None = None
+    notes: dict = field(default_factory=dict)
+    touched: tuple[int, int] | None = None  # min/max ts_s of readings written (for recompute)
+
+    @property
+    def file_name(self) -> str:
+        return os.path.basename(self.path)
+
+
+def file_sha256(path: str | os.PathLike) -> tuple[str, int]:
+    h = hashlib.sha256()
+    size = 0
+    with open(path, "rb") as f:
+        while block := f.read(1 << 20):
+            h.update(block)
+            size += len(block)
+    return h.hexdigest(), size
+
+
+def match_source(cfg: SiteConfig, path: str | os.PathLike) -> Source | None:
+    """The first source whose ``pattern`` matches the file name (or its path relative to the config)."""
+    p = Path(path)
+    for src in cfg.sources:
+        if fnmatch.fnmatch(p.name, Path(src.pattern).name) or p.match(src.pattern):
+            return src
+    return None
+
+
+def discover(cfg: SiteConfig, paths: Iterable[str | os.PathLike] | None = None
+             ) -> list[tuple[Path, Source | None]]:
+    """Files to load, in name order: given files, folders searched with each source's pattern;
+    with no paths, each source's pattern relative to the config file's folder."""
+    base = Path(cfg.path).parent if cfg.path else Path(".")
+    found: dict[Path, Source | None] = {}
+    paths = list(paths or [])
+    if not paths:
+        for src in cfg.sources:
+            for f in sorted(base.glob(src.pattern)):
+                if f.is_file():
+                    found.setdefault(f, src)
+    for p in map(Path, paths):
+        if p.is_dir():
+            for src in cfg.sources:
+                for f in sorted(p.glob(Path(src.pattern).name)):
+                    if f.is_file():
+                        found.setdefault(f, src)
+        else:
+            found.setdefault(p, match_source(cfg, p))
+    return sorted(found.items(), key=lambda kv: (kv[0].name, str(kv[0])))
+
+
+def ingest_paths(engine: sa.Engine, cfg: SiteConfig, paths: Iterable | None = None, *,
+                 progress: Callable[[int], None] | None = None,
+                 on_file: Callable[[BatchResult], None] | None = None) -> list[BatchResult]:
+    """Register the site from ``cfg`` and load every file; return one result per file."""
+    channels = register_site(engine, cfg)
+    results = []
+    for path, src in discover(cfg, paths):
+        if src is None:
+            msg = IngestError(path, None, None, "matches no [[sources]] pattern of the site config "
+                              f"({', '.join(repr(s.pattern) for s in cfg.sources)})").render()
+            res = BatchResult(path=str(path), site_id=cfg.id, source_name=None, status="failed",
+                              message=msg)
+        else:
+            res = ingest_file(engine, cfg, src, path, channels, progress=progress)
+        results.append(res)
+        if on_file:
+            on_file(res)
+    return results
+
+
+def touched_ranges(results: Iterable[BatchResult]) -> dict[str, tuple[int, int]]:
+    """Per site, min and max ``ts_s`` of the readings written by these batches."""
+    out: dict[str, tuple[int, int]] = {}
+    for r in results:
+        if r.status == "loaded" and r.touched:
+            lo, hi = out.get(r.site_id, r.touched)
+            out[r.site_id] = (min(lo, r.touched[0]), max(hi, r.touched[1]))
+    return out
+
+
+def ingest_file(engine: sa.Engine, cfg: SiteConfig, source: Source, path: str | os.PathLike,
+                channels: dict[tuple[str, str], int] | None = None, *,
+                progress: Callable[[int], None] | None = None, chunk_rows: int | None = None
+                ) -> BatchResult:
+    """Load one file in one transaction (see the module docstring for the rules)."""
+    path = str(path)
+    if channels is None:
+        channels = register_site(engine, cfg)
+    try:
+        sha, size = file_sha256(path)
+    except OSError as exc:
+        return BatchResult(path=path, site_id=cfg.id, source_name=source.name, status="failed",
+                           message=IngestError(path, None, None,
+                                               f"cannot be read: {exc.strerror}").render())
+    fields = dict(site_id=cfg.id, source_name=source.name, file_name=os.path.basename(path),
+                  file_path=os.path.abspath(path), sha256=sha, size_bytes=size)
+    with engine.connect() as conn:
+        prev = ingest_log.loaded_batch_with_sha(conn, cfg.id, sha)
+    if prev is not None:
+        msg = f"same content (SHA-256) as batch {prev}; nothing to do"
+        bid = ingest_log.record_batch(engine, status="unchanged", message=msg, **fields)
+        if progress:
+            progress(size)
+        return BatchResult(path=path, site_id=cfg.id, source_name=source.name,
+                           status="unchanged", batch_id=bid, message=msg)
+    try:
+        with engine.begin() as conn:
+            bid = ingest_log.start_batch(conn, **fields)
+            fl = _FileLoader(conn, cfg, source, path, channels, bid, progress)
+            fl.run(chunk_rows)
+            res = fl.result()
+            ingest_log.add_rejected(conn, bid, fl.rejected)
+            ingest_log.finish_batch(conn, bid, status="loaded", counts=res.counts,
+                                    ts_first_s=res.ts_first_s, ts_last_s=res.ts_last_s,
+                                    interval_s=res.interval_s, notes=res.notes)
+        return res
+    except IngestError as exc:
+        msg = exc.render()
+        bid = ingest_log.record_batch(engine, status="failed", message=msg, **fields)
+        return BatchResult(path=path, site_id=cfg.id, source_name=source.name, status="failed",
+                           batch_id=bid, message=msg)
+
+
+@dataclass
+class _VCol:
+    """A value column: a header of a wide file, or a (device, quantity name) of a long file."""
+
+    name: str
+    device: str
+    quantity: str
+    unit: str
+    channel: int
+    p_ac_max_kw: float | None
+    p_dc_kwp: float | None
+
+
+class _FileLoader:
+    def __init__(self, conn: sa.Connection, cfg: SiteConfig, source: Source, path: str,
+                 channels: dict, batch_id: int, progress):
+        self.conn, self.cfg, self.source, self.path = conn, cfg, source, path
+        self.channels, self.batch_id, self.progress = channels, batch_id, progress
+        self.conv = TimestampConverter(source.timestamp, cfg.timezone, source.clock_corrections)
+        self.counts = Counter()
+        self.rejected: list[Rejected] = []
+        self.intervals: list[np.ndarray] = []
+        self.first = self.last = None
+        self.written: tuple[int, int] | None = None
+        self.stored: dict[int, tuple[int, int] | None] = {}  # channel -> stored (lo, hi), lazily
+        self.counter_prev: dict[str, tuple[int, float] | None] = {}
+        self.counter_events: dict[str, CounterEvents] = {}
+        self.derived = Counter()
+        self.vcols: list[_VCol] = []
+        self.vcol_index: dict[tuple[str, str], int] = {}
+        self.pos = 0
+
+    # ------------------------------------------------------------ set-up
+    def _vcol(self, name: str, device: str, quantity: str, unit: str) -> int:
+        k = (name, unit)
+        if k not in self.vcol_index:
+            inv = self.cfg.inverter(device) if self.cfg.device_kind(device) == "inverter" else None
+            ch = self.channels.get((device, quantity))
+            if ch is None:
+                raise IngestError(self.path, None, name, f"no channel for device {device!r} "
+                                  f"quantity {quantity}; the site config does not deliver it")
+            self.vcol_index[k] = len(self.vcols)
+            self.vcols.append(_VCol(name, device, quantity, unit, ch,
+                                    inv.p_ac_max_kw if inv else None, inv.p_dc_kwp if inv else None))
+        return self.vcol_index[k]
+
+    def run(self, chunk_rows: int | None) -> None:
+        kw = {"chunk_rows": chunk_rows} if chunk_rows else {}
+        meta, chunks = read_export(self.path, self.source, **kw)
+        self.meta = meta
+        for c in meta.columns:
+            self._vcol(c.header, c.device, c.quantity, c.unit)
+        it = ((ch, *self.conv.convert(ch.ts_raw)) for ch in chunks)
+        cur = next(it, None)
+        tail = np.empty(0, dtype=np.int64)
+        while cur is not None:
+            nxt = next(it, None)
+            head = np.unique(nxt[1][nxt[1] != NAT])[:CONTEXT] if nxt else np.empty(0, np.int64)
+            own = np.unique(cur[1][cur[1] != NAT])
+            self._chunk(*cur, tail, head)
+            tail = own[-CONTEXT:]
+            if self.progress:
+                self.progress(cur[0].pos_bytes - self.pos)
+                self.pos = cur[0].pos_bytes
+            cur = nxt
+        read = self.counts["rows_read"]
+        accounted = self.counts["rows_loaded"] + self.counts["rows_duplicate"] + self.counts["rows_rejected"]
+        assert read == accounted, f"row accounting broken: {read} read, {accounted} accounted"
+
+    # ------------------------------------------------------------ one chunk
+    def _chunk(self, ch: Chunk, labels: np.ndarray, reasons: np.ndarray, tail, head) -> None:
+        n = len(labels)
+        self.counts["rows_read"] += n
+        row_reason: dict[int, str] = dict(ch.bad_rows)
+        for i in np.flatnonzero(reasons != None):  # noqa: E711 - object array compare
+            row_reason.setdefault(int(i), reasons[i])
+        ok = labels != NAT
+        for r in row_reason:
+            ok[r] = False
+        # interval of each row, from the distinct labels with the neighbouring chunks' edges
+        u = np.unique(np.concatenate([tail, labels[ok], head]))
+        iv_u = infer_intervals(u, self.source.timestamp.label)
+        own = np.unique(labels[ok])
+        if len(own):
+            self.intervals.append(iv_u[np.searchsorted(u, own)])
+        iv = np.full(n, np.nan)
+        iv[ok] = iv_u[np.searchsorted(u, labels[ok])]
+        end_label = self.source.timestamp.label == "end"
+        for r in np.flatnonzero(ok & np.isnan(iv)):
+            if end_label:
+                row_reason[int(r)] = ("cannot tell the interval length: no neighbouring "
+                                      "timestamp (interval-end labels need at least two rows)")
+                ok[r] = False
+        ts = np.where(ok, labels - (np.nan_to_num(iv).astype(np.int64) if end_label else 0), NAT)
+
+        # entries: one per value cell, in value-column-major order
+        e_row, e_col, e_val, bad = self._entries(ch, ok, iv)
+        # in-chunk repeated intervals: identical -> duplicate, different -> reject the later row
+        e_ch = np.array([self.vcols[j].channel for j in range(len(self.vcols))], dtype=np.int64)
+        ekey = readings.key(e_ch[e_col], ts[e_row]) if len(e_row) else np.empty(0, np.int64)
+        status = np.zeros(len(e_row), dtype=np.int8)  # 0 new, 1 duplicate, 2 conflict
+        conflict_rows = self._in_chunk_duplicates(ekey, e_row, e_val, status, ch.line, ts)
+        for r, why in conflict_rows.items():
+            row_reason.setdefault(r, why)
+            ok[r] = False
+        # compare with stored readings where they overlap this chunk
+        derived = self._counters(ch, ok, ts, iv, e_row, e_col, e_val, ekey, status)
+        d_key, d_val, d_row = derived
+        all_key = np.concatenate([ekey, d_key])
+        all_val = np.concatenate([e_val, d_val])
+        all_row = np.concatenate([e_row, d_row])
+        is_read = np.concatenate([np.ones(len(ekey), bool), np.zeros(len(d_key), bool)])
+        all_status = np.concatenate([status, np.zeros(len(d_key), np.int8)])
+        if len(all_key):
+            lo, hi = int((all_key & ((1 << readings.TS_BITS) - 1)).min()), int(
+                (all_key & ((1 << readings.TS_BITS) - 1)).max())
+            chans = sorted(set((all_key >> readings.TS_BITS).tolist()))
+            overlap = self._overlaps(chans, lo, hi)
+            if overlap:
+                conflict_rows |= self._compare(all_key, all_val, all_row, all_status, chans, lo, hi,
+                                               ch.line)
+        else:
+            overlap = False
+        for r, why in conflict_rows.items():
+            row_reason.setdefault(r, why)
+            ok[r] = False
+        keep = ok[all_row] if len(all_row) else np.zeros(0, bool)
+        # row outcomes
+        read_keep = keep & is_read
+        any_new = np.zeros(n, bool)
+        any_val = np.zeros(n, bool)
+        np.logical_or.at(any_new, all_row[read_keep & (all_status != 1)], True)
+        np.logical_or.at(any_val, all_row[read_keep], True)
+        rows_loaded = ok & any_new
+        rows_dup = ok & any_val & ~any_new
+        no_value = ok & ~any_val
+        has_bad = np.zeros(n, bool)
+        if bad:
+            np.logical_or.at(has_bad, np.array([b[0] for b in bad]), True)
+        for r in np.flatnonzero(no_value):
+            if not has_bad[r]:
+                row_reason[int(r)] = "no readings in this row (every mapped value is missing)"
+            else:
+                row_reason.setdefault(int(r), None)  # its bad values are listed one by one
+        rejected_rows = set(row_reason)
+        self.counts["rows_loaded"] += int(rows_loaded.sum())
+        self.counts["rows_duplicate"] += int(rows_dup.sum())
+        self.counts["rows_rejected"] += len(rejected_rows)
+        for r, why in sorted(row_reason.items()):
+            if why is not None:
+                self.rejected.append(Rejected(int(ch.line[r]), None, why, ch.text[r]))
+        for r, j, raw, why in bad:
+            if r in rejected_rows and row_reason.get(r) is not None:
+                continue  # the whole row is already rejected with its reason
+            self.counts["values_rejected"] += 1
+            self.rejected.append(Rejected(int(ch.line[r]), self._colname(j), why, raw))
+        s_read = all_status[read_keep]
+        self.counts["values_loaded"] += int((s_read != 1).sum())
+        self.counts["values_duplicate"] += int((s_read == 1).sum())
+        self.counts["values_conflict"] += int((s_read == 2).sum())
+        d_keep = keep & ~is_read
+        self.derived["e_ac_kwh_derived"] += int(d_keep.sum())
+        self.derived["e_ac_kwh_derived_duplicate"] += int((d_keep & (all_status == 1)).sum())
+        # write new and changed values, in key order
+        w = keep & (all_status != 1)
+        wk, wv = all_key[w], all_val[w]
+        order = np.argsort(wk, kind="stable")
+        wk, wv = wk[order], wv[order]
+        if len(wk):
+            wts = wk & ((1 << readings.TS_BITS) - 1)
+            readings.write_readings(self.conn, wk >> readings.TS_BITS, wts, wv, self.batch_id,
+                                    upsert=overlap)
+            lo, hi = int(wts.min()), int(wts.max())
+            self.written = (lo, hi) if self.written is None else (
+                min(lo, self.written[0]), max(hi, self.written[1]))
+        acc = ts[rows_loaded | rows_dup]
+        if len(acc):
+            lo, hi = int(acc.min()), int(acc.max())
+            self.first = lo if self.first is None else min(self.first, lo)
+            self.last = hi if self.last is None else max(self.last, hi)
+
+    def _entries(self, ch: Chunk, ok: np.ndarray, iv: np.ndarray):
+        """Value cells of rows with a good timestamp: rows, value-columns, stored-unit values, bad list."""
+        bad: list[tuple[int, int, str, str]] = []
+        if ch.long is not None:
+            cols = self._long_columns(ch, ok, bad)
+        else:
+            cols = list(range(len(self.vcols)))
+            for r, j, raw, why in ch.bad_cells:
+                if ok[r]:
+                    bad.append((r, j, raw, why))
+        rows_l, cols_l, vals_l = [], [], []
+        for j, vc in enumerate(self.vcols):
+            if ch.long is not None:
+                sel = np.flatnonzero(cols == j)
+                raw = ch.values[sel, 0]
+            else:
+                sel = np.arange(len(ok))
+                raw = ch.values[:, j]
+            if len(sel) == 0:
+                continue
+            v = to_stored(raw, vc.quantity, vc.unit)
+            present = ~np.isnan(v) & ok[sel]
+            inf = present & np.isinf(v)
+            imp, why = implausible(np.where(inf, np.nan, v), vc.quantity, p_ac_max_kw=vc.p_ac_max_kw,
+                                   p_dc_kwp=vc.p_dc_kwp, interval_h=iv[sel] / 3600.0)
+            imp &= present & ~inf
+            for k in np.flatnonzero(inf | imp):
+                r = int(sel[k])
+                text = self._cell_text(ch, r, vc)
+                reason = (f"value {text!r} is not a finite number" if inf[k] else
+                          f"value {text!r} ({vc.unit}) {why}")
+                bad.append((r, j, text, reason))
+            good = present & ~inf & ~imp
+            rows_l.append(sel[good])
+            cols_l.append(np.full(int(good.sum()), j, dtype=np.int64))
+            vals_l.append(v[good])
+        if not rows_l:
+            e = np.empty(0, dtype=np.int64)
+            return e, e, np.empty(0), bad
+        return (np.concatenate(rows_l).astype(np.int64), np.concatenate(cols_l),
+                np.concatenate(vals_l), bad)
+
+    def _colname(self, j: int) -> str:
+        if self.meta.long_index:
+            return self.source.long.value_column
+        return self.vcols[j].name
+
+    def _cell_text(self, ch: Chunk, r: int, vc: _VCol) -> str:
+        cells = _split(ch.text[r], self.source.delimiter)
+        pos = (self.meta.long_index["value"] if self.meta.long_index
+               else self.meta.col_index[self.vcol_index[(vc.name, vc.unit)]])
+        return cells[pos].strip() if pos < len(cells) else ""
+
+    def _long_columns(self, ch: Chunk, ok: np.ndarray, bad: list) -> np.ndarray:
+        """Map each long-layout row to a value column; unknown device/quantity is a bad value."""
+        src = self.source
+        dev = ch.long["device"]
+        qn = ch.long["quantity"]
+        unit = ch.long.get("unit")
+        cols = np.full(len(dev), -1, dtype=np.int64)
+        cache: dict[tuple, int | str] = {}
+        known = self.cfg.device_ids()
+        for r in range(len(dev)):
+            if not ok[r]:
+                continue
+            d = str(dev[r]).strip()
+            q = str(qn[r]).strip()
+            u = str(unit[r]).strip() if unit is not None else None
+            k = (d, q, u)
+            if k not in cache:
+                if d not in known:
+                    cache[k] = f"unknown device {d!r} (not in the site config)"
+                elif q not in src.quantity_names:
+                    cache[k] = (f"unknown quantity name {q!r}; known: "
+                                f"{', '.join(sorted(src.quantity_names))}")
+                else:
+                    quantity, cunit = src.quantity_names[q]
+                    uu = normalise_unit(u) if u else cunit
+                    if (d, quantity) not in self.channels:
+                        cache[k] = f"device {d!r} has no {quantity} channel in the site config"
+                    else:
+                        try:
+                            to_stored(np.empty(0), quantity, uu)
+                            cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu)
+                        except ValueError as exc:
+                            cache[k] = str(exc)
+            v = cache[k]
+            if isinstance(v, str):
+                bad.append((r, -1, f"{d};{q}", v))
+            else:
+                cols[r] = v
+        for r, _j, raw, why in ch.bad_cells:
+            if ok[r]:
+                bad.append((r, int(cols[r]), raw, why))
+        return cols
+
+    def _in_chunk_duplicates(self, ekey, e_row, e_val, status, lines, ts) -> dict[int, str]:
+        """Repeated (channel, ts) within the chunk: equal -> status duplicate; else reject the row."""
+        out: dict[int, str] = {}
+        if len(ekey) < 2:
+            return out
+        order = np.lexsort((e_row, ekey))
+        k = ekey[order]
+        rep = np.flatnonzero(k[1:] == k[:-1]) + 1
+        if len(rep) == 0:
+            return out
+        first_of = np.maximum.accumulate(np.where(np.concatenate([[True], k[1:] != k[:-1]]),
+                                                  np.arange(len(k)), 0))
+        for p in rep:
+            a, b = order[first_of[p]], order[p]
+            if np.isclose(e_val[a], e_val[b], rtol=1e-9, atol=1e-9):
+                status[b] = 1
+            else:
+                r = int(e_row[b])
+                out.setdefault(r, f"duplicate timestamp: same interval as line {lines[e_row[a]]} "
+                                  "with different values")
+        return out
+
+    def _counters(self, ch, ok, ts, iv, e_row, e_col, e_val, ekey, status):
+        """Derived e_ac_kwh entries (keys, values, rows) from the chunk's counter readings."""
+        keys, vals, rows = [np.empty(0, np.int64)], [np.empty(0)], [np.empty(0, np.int64)]
+        for j, vc in enumerate(self.vcols):
+            if vc.quantity != "e_ac_total_kwh":
+                continue
+            m = (e_col == j) & (status != 1) & ok[e_row]
+            r = e_row[m]
+            if len(r) == 0:
+                continue
+            order = np.argsort(ts[r], kind="stable")
+            r, v = r[order], e_val[m][order]
+            dev = vc.device
+            if dev not in self.counter_prev:
+                prev = readings.previous_reading(self.conn, vc.channel, int(ts[r[0]]))
+                self.counter_prev[dev] = (prev[0] + int(iv[r[0]]), prev[1]) if prev else None
+            ev = self.counter_events.setdefault(dev, CounterEvents())
+            inv = self.cfg.inverter(dev)
+            energy, self.counter_prev[dev] = interval_energy(
+                ts[r], iv[r], v, self.counter_prev[dev], p_ac_max_kw=inv.p_ac_max_kw,
+                rollover_kwh=self.source.counter_rollover_kwh, events=ev)
+            good = ~np.isnan(energy)
+            ch_e = self.channels[(dev, "e_ac_kwh")]
+            keys.append(readings.key(np.full(int(good.sum()), ch_e), ts[r[good]]))
+            vals.append(energy[good])
+            rows.append(r[good])
+        return np.concatenate(keys), np.concatenate(vals), np.concatenate(rows)
+
+    def _overlaps(self, chans: list[int], lo: int, hi: int) -> bool:
+        if self.written and lo <= self.written[1] and hi >= self.written[0]:
+            return True
+        new = [c for c in chans if c not in self.stored]
+        if new:
+            found = readings.stored_range(self.conn, new)
+            self.stored.update({c: found.get(c) for c in new})
+        return any(self.stored[c] is not None and lo <= self.stored[c][1]
+                   and hi >= self.stored[c][0] for c in chans)
+
+    def _compare(self, key, val, row, status, chans, lo, hi, lines) -> dict[int, str]:
+        sk, sv, sb = readings.stored_values(self.conn, chans, lo, hi)
+        out: dict[int, str] = {}
+        if len(sk) == 0:
+            return out
+        pos = np.minimum(np.searchsorted(sk, key), len(sk) - 1)
+        found = (sk[pos] == key) & (status != 1)
+        same = found & np.isclose(sv[pos], val, rtol=1e-9, atol=1e-9)
+        own = found & (sb[pos] == self.batch_id)
+        for k in np.flatnonzero(own & ~same):
+            out.setdefault(int(row[k]), "duplicate timestamp: an earlier line of this file has "
+                                        "the same interval with different values")
+        status[same] = 1
+        status[found & ~same & ~own] = 2
+        return out
+
+    # ------------------------------------------------------------ result
+    def result(self) -> BatchResult:
+        notes: dict = {}
+        notes.update(self.conv.notes())
+        if self.meta.missing:
+            notes["configured_columns_missing"] = self.meta.missing
+        if self.meta.ignored:
+            notes["ignored_columns"] = self.meta.ignored
+        if self.meta.units_seen:
+            notes["unit_row"] = self.meta.units_seen
+        counters = {}
+        for dev, ev in self.counter_events.items():
+            counters.update(ev.as_notes(dev))
+        if counters:
+            notes["counters"] = counters
+        notes.update({k: v for k, v in self.derived.items() if v})
+        notes["compressed"] = self.meta.compressed
+        intervals = np.concatenate(self.intervals) if self.intervals else np.empty(0)
+        return BatchResult(
+            path=self.path, site_id=self.cfg.id, source_name=self.source.name, status="loaded",
+            batch_id=self.batch_id, counts=dict(self.counts), ts_first_s=self.first,
+            ts_last_s=self.last, interval_s=describe_intervals(intervals), notes=notes,
+            touched=self.written)
+

@@ -1,0 +1,376 @@
+"""Logger exports as delimited text (CSV, ``;`` or tab separated), optionally gzip-compressed.
+
+``read_export(path, source)`` yields :class:`Chunk` objects of at most ``chunk_rows`` data
+rows; memory stays bounded whatever the file size. The file layout comes from the site
+config's ``[[sources]]`` entry: ``encoding`` (UTF-8 with or without BOM, UTF-16, Latin-1, ...),
+``delimiter``, ``decimal``, ``skip_lines`` before the header line, an optional ``unit_row``
+after it, and ``missing_values`` tokens. Gzip is recognised by its magic bytes, not the name.
+
+Line numbers are physical lines of the file (1-based), so an error points at the line a
+user sees in an editor. One record per line: quoted fields may hold the delimiter but not a
+line break. Blank lines are skipped and are not rows.
+
+Timestamps are returned as text; :mod:`ingest.timestamps` interprets them (whether the logger
+stamps the interval start or end is the source's ``timestamp.label``).
+
+Parsing: each chunk is first parsed by pandas' C parser straight to float64 (the fast path).
+If that fails (a value that is not a number, a line with the wrong number of fields) the
+chunk is parsed again cell by cell with the :mod:`csv` module, so every bad cell is reported
+with its line and column and the good cells of the same row are kept.
+"""
+
+from __future__ import annotations
+
+import codecs
+import csv
+import gzip
+import io
+import os
+import re
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from itertools import islice
+from typing import TextIO
+
+import numpy as np
+import pandas as pd
+
+from ingest.config import QUANTITY_UNITS, ColumnMap, Source, normalise_unit
+from ingest.errors import IngestError
+
+CHUNK_ROWS = 20_000
+_GZIP_MAGIC = b"\x1f\x8b"
+
+
+@dataclass
+class ExportMeta:
+    path: str
+    header: list[str]
+    header_line: int
+    ts_index: int
+    columns: list[ColumnMap]  # mapped columns present in this file, in value order
+    col_index: list[int]  # their positions in the header
+    missing: list[str] = field(default_factory=list)  # configured headers absent from the file
+    ignored: list[str] = field(default_factory=list)
+    units_seen: dict[str, str] = field(default_factory=dict)  # header -> unit-row text
+    compressed: bool = False
+    encoding: str = "utf-8"
+    long_index: dict[str, int] = field(default_factory=dict)  # long layout: role -> position
+
+
+@dataclass
+class Chunk:
+    line: np.ndarray  # int64 physical line number of each row
+    ts_raw: np.ndarray  # object: timestamp text
+    values: np.ndarray  # float64 (rows, columns) in the file's units; NaN = missing or bad
+    bad_cells: list[tuple[int, int, str, str]]  # (row, column position in values, raw, reason)
+    bad_rows: dict[int, str]  # row -> reason (whole row unusable, e.g. wrong field count)
+    text: list[str]  # the raw line of each row (for rejected rows)
+    pos_bytes: int = 0  # bytes of the (compressed) file consumed so far
+    long: dict[str, np.ndarray] | None = None  # long layout: "device", "quantity", "unit"
+
+
+def read_export(path: str | os.PathLike, source: Source, chunk_rows: int = CHUNK_ROWS
+                ) -> tuple[ExportMeta, Iterator[Chunk]]:
+    """Open an export and validate its header; return its meta and an iterator of chunks.
+
+    Raises :class:`IngestError` for a header that does not match the source, a decode error
+    (with a hint naming the right ``encoding``) or an unreadable file.
+    """
+    path = os.fspath(path)
+    try:
+        fb = open(path, "rb")
+    except OSError as exc:
+        raise IngestError(path, None, None, f"cannot be read: {exc.strerror}") from None
+    magic = fb.read(2)
+    fb.seek(0)
+    compressed = magic == _GZIP_MAGIC
+    binary = gzip.GzipFile(fileobj=fb, mode="rb") if compressed else fb
+    encoding = _python_encoding(source.encoding)
+    if _ascii_compatible(encoding):
+        text = _BinaryLines(binary, encoding)  # decodes line by line: exact error lines
+    else:  # UTF-16/32: line breaks are not single bytes
+        text = io.TextIOWrapper(binary, encoding=encoding, newline=None)
+    meta, chunks = _parse(text, source, path, chunk_rows=chunk_rows,
+                          position=fb.tell, on_close=fb.close, sniff=_sniff(path, compressed))
+    meta.compressed = compressed
+    return meta, chunks
+
+
+def _python_encoding(name: str) -> str:
+    n = codecs.lookup(name).name
+    return "utf-8-sig" if n == "utf-8" else n  # tolerate a UTF-8 byte-order mark
+
+
+def _ascii_compatible(encoding: str) -> bool:
+    try:
+        base = "utf-8" if encoding == "utf-8-sig" else encoding
+        return "\n,;\t".encode(base) == b"\n,;\t"
+    except (LookupError, UnicodeError):
+        return False
+
+
+class _BinaryLines:
+    """Text lines from a binary stream, decoded one by one; ``n`` counts lines returned."""
+
+    def __init__(self, binary, encoding: str):
+        self.binary = binary
+        self.first = encoding  # may be utf-8-sig: only the first line carries a BOM
+        self.encoding = "utf-8" if encoding == "utf-8-sig" else encoding
+        self.n = 0
+
+    def readline(self) -> str:
+        raw = self.binary.readline()
+        if not raw:
+            return ""
+        s = raw.decode(self.first if self.n == 0 else self.encoding)
+        self.n += 1
+        return s
+
+    def __iter__(self):
+        return self
+
+    def __next__(self) -> str:
+        s = self.readline()
+        if not s:
+            raise StopIteration
+        return s
+
+
+def _sniff(path: str, compressed: bool) -> bytes:
+    with (gzip.open if compressed else open)(path, "rb") as f:
+        try:
+            return f.read(4)
+        except OSError:
+            return b""
+
+
+def _decode_hint(source: Source, head: bytes) -> str:
+    if head.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return 'the file starts with a UTF-16 byte-order mark: set encoding = "utf-16" in its [[sources]] entry'
+    if source.encoding.lower().replace("-", "") in ("utf8", "utf8sig"):
+        return ('set encoding = "latin-1" (or the logger\'s code page, e.g. "cp1252") '
+                "in its [[sources]] entry")
+    return "set encoding in its [[sources]] entry to the encoding the logger writes"
+
+
+def _split(line: str, delimiter: str) -> list[str]:
+    return next(csv.reader([line], delimiter=delimiter), [])
+
+
+def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: int = CHUNK_ROWS,
+           position=None, on_close=None, sniff: bytes = b"") -> tuple[ExportMeta, Iterator[Chunk]]:
+    """Parse a text buffer holding an export (tests feed :class:`io.StringIO`)."""
+    lineno = 0
+
+    def readline() -> str:
+        nonlocal lineno
+        try:
+            s = buf.readline()
+        except UnicodeDecodeError as exc:
+            raise IngestError(path, getattr(buf, "n", lineno) + 1, None,
+                              f"cannot be decoded as {source.encoding} ({exc.reason}, byte "
+                              f"{exc.object[exc.start:exc.start + 1]!r})",
+                              _decode_hint(source, sniff)) from None
+        if s:
+            lineno += 1
+        return s
+
+    try:
+        for _ in range(source.skip_lines):
+            if not readline():
+                raise IngestError(path, lineno, None,
+                                  f"file ends within the {source.skip_lines} lines to skip "
+                                  "before the header (skip_lines)")
+        head = readline()
+        while head and not head.strip():
+            head = readline()
+        if not head:
+            raise IngestError(path, lineno or 1, None, "file is empty: expected a header line")
+        header_line = lineno
+        header = [h.strip().lstrip("\ufeff") for h in _split(head.rstrip("\r\n"), source.delimiter)]
+        units_row: list[str] = []
+        if source.unit_row:
+            u = readline()
+            units_row = [x.strip() for x in _split(u.rstrip("\r\n"), source.delimiter)]
+        meta = _map_header(path, source, header, header_line, units_row, lineno)
+    except BaseException:
+        if on_close:
+            on_close()
+        raise
+    meta.encoding = source.encoding
+    return meta, _chunks(buf, source, path, meta, lineno, chunk_rows, position, on_close, sniff)
+
+
+def _map_header(path: str, source: Source, header: list[str], header_line: int,
+                units_row: list[str], unit_line: int) -> ExportMeta:
+    ts_col = source.timestamp.column
+    dup = sorted({h for h in header if h and header.count(h) > 1})
+    if dup:
+        raise IngestError(path, header_line, None,
+                          f"header names {', '.join(map(repr, dup))} more than once; "
+                          "each column needs a distinct name")
+    if ts_col not in header:
+        raise IngestError(path, header_line, None,
+                          f"no timestamp column {ts_col!r}; the header has: {_list(header)}",
+                          "set timestamp.column in its [[sources]] entry (check delimiter too: "
+                          f"{source.delimiter!r})")
+    pos = {h: i for i, h in enumerate(header)}
+    meta = ExportMeta(path=path, header=header, header_line=header_line, ts_index=pos[ts_col],
+                      columns=[], col_index=[])
+    if source.layout == "long":
+        ls = source.long
+        roles = {"device": ls.device_column, "quantity": ls.quantity_column,
+                 "value": ls.value_column}
+        if ls.unit_column:
+            roles["unit"] = ls.unit_column
+        absent = [c for c in roles.values() if c not in pos]
+        if absent:
+            raise IngestError(path, header_line, None,
+                              f"long layout: missing columns {_list(absent)}; the header has: "
+                              f"{_list(header)}", "set [sources.long] *_column names")
+        meta.long_index = {r: pos[c] for r, c in roles.items()}
+        return meta
+    configured = {c.header for c in source.columns}
+    meta.columns = [c for c in source.columns if c.header in pos]
+    meta.col_index = [pos[c.header] for c in meta.columns]
+    meta.missing = [c.header for c in source.columns if c.header not in pos]
+    ignore = set(source.ignore_columns)
+    meta.ignored = [h for h in header if h in ignore]
+    unmapped = [h for h in header if h and h != ts_col and h not in configured and h not in ignore]
+    if unmapped or not meta.columns:
+        parts = []
+        if unmapped:
+            parts.append(f"unmapped columns: {_list(unmapped)}")
+        if meta.missing:
+            parts.append(f"configured but missing: {_list(meta.missing)}")
+        raise IngestError(path, header_line, None,
+                          "columns do not match the site config (" + "; ".join(parts) + ")",
+                          "map each column in [[sources.columns]] (header, device, quantity, unit) "
+                          "or list it in ignore_columns")
+    if units_row:
+        for c, i in zip(meta.columns, meta.col_index, strict=True):
+            cell = units_row[i] if i < len(units_row) else ""
+            meta.units_seen[c.header] = cell
+            said = normalise_unit(re.sub(r"^[\[(]|[\])]$", "", cell))
+            if said in QUANTITY_UNITS.get(c.quantity, ()) and said != c.unit:
+                raise IngestError(path, unit_line, c.header,
+                                  f"the unit row says {cell!r} but the site config says "
+                                  f"unit = {c.unit!r}",
+                                  "fix the unit of this column in [[sources.columns]]")
+    return meta
+
+
+def _list(names: list[str], limit: int = 12) -> str:
+    shown = ", ".join(repr(n) for n in names[:limit])
+    return shown + (f" and {len(names) - limit} more" if len(names) > limit else "")
+
+
+def _chunks(buf: TextIO, source: Source, path: str, meta: ExportMeta, lineno: int,
+            chunk_rows: int, position, on_close, sniff: bytes) -> Iterator[Chunk]:
+    ncols = len(meta.header)
+    try:
+        while True:
+            try:
+                lines = list(islice(buf, chunk_rows))
+            except UnicodeDecodeError as exc:
+                exact = getattr(buf, "n", None)
+                raise IngestError(path, (exact if exact is not None else lineno) + 1, None,
+                                  f"cannot be decoded as {source.encoding} ({exc.reason}, byte "
+                                  f"{exc.object[exc.start:exc.start + 1]!r})"
+                                  + ("" if exact is not None else " at or after this line"),
+                                  _decode_hint(source, sniff)) from None
+            if not lines:
+                return
+            first = lineno + 1
+            lineno += len(lines)
+            keep = [i for i, s in enumerate(lines) if s.strip()]
+            if len(keep) != len(lines):
+                lines = [lines[i] for i in keep]
+            if not lines:
+                continue
+            line_no = first + np.asarray(keep, dtype=np.int64)
+            text = [s.rstrip("\r\n") for s in lines]
+            chunk = _fast(text, source, meta, ncols)
+            if chunk is None:
+                chunk = _slow(text, source, meta, ncols)
+            chunk.line = line_no
+            chunk.text = text
+            chunk.pos_bytes = position() if position else 0
+            yield chunk
+    finally:
+        if on_close:
+            on_close()
+
+
+def _value_positions(meta: ExportMeta) -> list[int]:
+    return [meta.long_index["value"]] if meta.long_index else meta.col_index
+
+
+def _fast(text: list[str], source: Source, meta: ExportMeta, ncols: int) -> Chunk | None:
+    d = source.delimiter
+    expected = ncols - 1
+    if any(s.count(d) != expected for s in text):
+        return None
+    vpos = _value_positions(meta)
+    str_pos = [meta.ts_index] + [p for r, p in meta.long_index.items() if r != "value"]
+    dtype = {p: "float64" for p in vpos} | {p: object for p in str_pos}
+    try:
+        df = pd.read_csv(io.StringIO("\n".join(text)), sep=d, header=None, usecols=str_pos + vpos,
+                         dtype=dtype, na_values=list(source.missing_values),
+                         keep_default_na=False, decimal=source.decimal, engine="c",
+                         skip_blank_lines=False, quoting=csv.QUOTE_MINIMAL)
+    except (ValueError, pd.errors.ParserError):
+        return None
+    if len(df) != len(text):
+        return None
+    values = df[vpos].to_numpy(dtype=np.float64) if vpos else np.empty((len(df), 0))
+    ts = df[meta.ts_index].to_numpy(dtype=object)
+    long = None
+    if meta.long_index:
+        long = {r: df[p].to_numpy(dtype=object) for r, p in meta.long_index.items() if r != "value"}
+    return Chunk(line=np.empty(0), ts_raw=ts, values=values, bad_cells=[], bad_rows={}, text=[],
+                 long=long)
+
+
+def _slow(text: list[str], source: Source, meta: ExportMeta, ncols: int) -> Chunk:
+    vpos = _value_positions(meta)
+    rows = list(csv.reader(text, delimiter=source.delimiter))
+    n = len(rows)
+    bad_rows: dict[int, str] = {}
+    cells = np.full((n, ncols), "", dtype=object)
+    for r, row in enumerate(rows):
+        if len(row) != ncols:
+            bad_rows[r] = f"line has {len(row)} fields, the header has {ncols}"
+            continue
+        cells[r] = row
+    values = np.full((n, len(vpos)), np.nan)
+    bad_cells: list[tuple[int, int, str, str]] = []
+    missing = set(source.missing_values)
+    dec = source.decimal
+    for j, p in enumerate(vpos):
+        raw = cells[:, p]
+        stripped = np.array([s.strip() for s in raw], dtype=object)
+        is_missing = np.array([s in missing for s in stripped], dtype=bool)
+        norm = stripped
+        if dec == ",":
+            has_dot = np.array(["." in s for s in stripped], dtype=bool)
+            norm = np.array([s.replace(",", ".") for s in stripped], dtype=object)
+            norm[has_dot] = "x"  # a '.' where ',' is the decimal separator is an error
+        num = pd.to_numeric(pd.Series(norm, dtype=object).where(~is_missing, None),
+                            errors="coerce").to_numpy(dtype=np.float64, copy=True)
+        bad = ~is_missing & np.isnan(num) & ~np.array([s.lower() == "nan" for s in stripped])
+        for r in bad_rows:
+            bad[r] = False
+        num[bad] = np.nan
+        values[:, j] = num
+        for r in np.flatnonzero(bad):
+            bad_cells.append((int(r), j, str(raw[r]),
+                              f"value {str(raw[r])!r} is not a number (expected decimal "
+                              f"separator {dec!r}, or a missing-value token such as "
+                              f"{', '.join(repr(m) for m in [x for x in source.missing_values if x][:4])})"))
+    long = None
+    if meta.long_index:
+        long = {r: cells[:, p].copy() for r, p in meta.long_index.items() if r != "value"}
+    return Chunk(line=np.empty(0), ts_raw=cells[:, meta.ts_index].copy(), values=values,
+                 bad_cells=bad_cells, bad_rows=bad_rows, text=[], long=long)

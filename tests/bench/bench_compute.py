@@ -1,0 +1,224 @@
+"""Benchmark: daily-table recompute for 100 inverters x 5 years of 15-minute data.
+
+Targets (issue #4): full recompute <= 60 s; incremental recompute after one new week <= 5 s.
+Prints both, how the time splits between reading the store, computing and writing, and a plain
+baseline in the same run: ``pandas.read_sql`` of the same rows plus a naive groupby daily sum.
+
+Run by hand (never in CI):
+
+    python tests/bench/bench_compute.py            # builds /tmp/heliaudit_bench_compute.sqlite once
+    python tests/bench/bench_compute.py --rebuild  # rebuild the benchmark store
+    python tests/bench/bench_compute.py --inverters 10 --years 1   # a quick run
+
+The store is written directly with sqlite3 ``executemany`` (setup, not timed): one site, one
+POA reference cell and one module-temperature sensor shared by all inverters, ``p_ac_kw`` per
+inverter. The data are invented for the benchmark only (clear-sky POA from pvlib scaled by a
+random daily cloud factor; power a random fraction of the PVWatts expectation).
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import sqlite3
+import sys
+import time
+from itertools import repeat
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+import db.daily as ddaily  # noqa: E402
+import db.timeseries as dts  # noqa: E402
+from analytics import filters as flt  # noqa: E402
+from analytics.power import expected_ac_power  # noqa: E402
+from analytics.temperature import cell_temperature_from_module  # noqa: E402
+from db.engine import make_engine  # noqa: E402
+from heliaudit import jobs_daily  # noqa: E402
+from tests.helpers_store import add_inverter, add_sensor, add_site  # noqa: E402
+
+LAT, LON, ALT, TILT, AZ = 38.9, -3.2, 650.0, 25.0, 180.0
+START = pd.Timestamp("2020-01-01", tz="UTC")
+
+
+def _weather(ts: pd.DatetimeIndex, rng) -> tuple[np.ndarray, np.ndarray]:
+    sc = flt.sun_and_clearsky(ts, LAT, LON, ALT, TILT, AZ, 0.2, interval_h=0.25)
+    days = (ts.as_unit("s").asi8 // 86400)
+    day_no = days - days[0]
+    cloud = rng.uniform(0.3, 1.0, day_no.max() + 1)[day_no]
+    poa = sc["poa_clearsky_wm2"].to_numpy() * cloud * (1 + 0.02 * rng.standard_normal(len(ts)))
+    poa = np.clip(poa, 0, None)
+    t_mod = 15 + 10 * np.sin(2 * np.pi * (day_no - 100) / 365.25) + 0.03 * poa \
+        + 0.2 * rng.standard_normal(len(ts))
+    return poa, t_mod
+
+
+def _insert(raw: sqlite3.Connection, ch: int, ts_s: np.ndarray, v: np.ndarray) -> None:
+    raw.executemany("INSERT OR REPLACE INTO reading (channel_id, ts_s, value, batch_id) "
+                    "VALUES (?, ?, ?, 0)", zip(repeat(ch), ts_s.tolist(), v.tolist(), strict=False))
+
+
+def build(path: Path, n_inv: int, years: float, seed: int = 7) -> dict:
+    if path.exists():
+        path.unlink()
+    eng = make_engine(path)
+    with eng.begin() as c:
+        add_site(c, "bench", timezone="Europe/Madrid", latitude_deg=LAT, longitude_deg=LON,
+                 altitude_m=ALT, tilt_deg=TILT, azimuth_deg=AZ)
+        poa_ch = add_sensor(c, "bench", "POA", "poa_wm2", "reference_cell")
+        tmod_ch = add_sensor(c, "bench", "TMOD", "t_module_c")
+        inv_ch = [add_inverter(c, "bench", f"INV-{k:03d}", poa_sensor_id="POA",
+                               t_module_sensor_id="TMOD", p_dc_kwp=330.0, p_ac_max_kw=300.0,
+                               eta_inv_nom=0.97)["p_ac_kw"] for k in range(n_inv)]
+    eng.dispose()
+    n = int(round(years * 365.25 * 96))
+    ts = pd.date_range(START, periods=n, freq="15min")
+    rng = np.random.default_rng(seed)
+    poa, t_mod = _weather(ts, rng)
+    ts_s = ts.as_unit("s").asi8
+    p_exp = expected_ac_power(poa, cell_temperature_from_module(t_mod, poa, 3.0), 330.0,
+                              -0.0037, 300.0, 0.97)
+    raw = sqlite3.connect(path)
+    raw.execute("PRAGMA journal_mode=WAL")
+    raw.execute("PRAGMA synchronous=NORMAL")
+    t0 = time.perf_counter()
+    with raw:
+        _insert(raw, poa_ch, ts_s, poa)
+        _insert(raw, tmod_ch, ts_s, t_mod)
+        for k, ch in enumerate(inv_ch):
+            frac = 0.85 + 0.1 * rng.random()
+            _insert(raw, ch, ts_s, frac * p_exp * (1 + 0.01 * rng.standard_normal(n)))
+            if k % 10 == 9:
+                print(f"  setup: {k + 1}/{n_inv} inverters written", flush=True)
+    raw.close()
+    return {"rows": (n_inv + 2) * n, "seconds": time.perf_counter() - t0,
+            "last_ts_s": int(ts_s[-1]), "channels": [poa_ch, tmod_ch, *inv_ch], "n": n}
+
+
+def append_week(path: Path, after_ts_s: int, seed: int = 8) -> tuple[int, int]:
+    """Write one more week for every channel (setup of the incremental run, not timed)."""
+    eng = make_engine(path)
+    with eng.connect() as c:
+        chans = dts.site_channels(c, "bench")
+    eng.dispose()
+    ts = pd.date_range(pd.Timestamp(after_ts_s + 900, unit="s", tz="UTC"), periods=7 * 96,
+                       freq="15min")
+    rng = np.random.default_rng(seed)
+    poa, t_mod = _weather(ts, rng)
+    p_exp = expected_ac_power(poa, cell_temperature_from_module(t_mod, poa, 3.0), 330.0,
+                              -0.0037, 300.0, 0.97)
+    ts_s = ts.as_unit("s").asi8
+    raw = sqlite3.connect(path)
+    with raw:
+        for (dev, q), ch in chans.items():
+            v = poa if q == "poa_wm2" else t_mod if q == "t_module_c" else 0.9 * p_exp
+            _insert(raw, ch, ts_s, v)
+    raw.close()
+    return int(ts_s[0]), int(ts_s[-1])
+
+
+@contextlib.contextmanager
+def timers():
+    """Accumulate the time spent in reading (db.timeseries.read_channel) and writing."""
+    acc = {"read": 0.0, "write": 0.0, "rows_read": 0}
+    orig_read, orig_write = dts.read_channel, ddaily.write_daily
+
+    def read(*a, **k):
+        t = time.perf_counter()
+        out = orig_read(*a, **k)
+        acc["read"] += time.perf_counter() - t
+        acc["rows_read"] += out[0].size
+        return out
+
+    def write(*a, **k):
+        t = time.perf_counter()
+        out = orig_write(*a, **k)
+        acc["write"] += time.perf_counter() - t
+        return out
+
+    dts.read_channel, jobs_daily.write_daily = read, write
+    try:
+        yield acc
+    finally:
+        dts.read_channel, jobs_daily.write_daily = orig_read, orig_write
+
+
+def baseline(path: Path, channels: list[int]) -> tuple[float, float, int]:
+    """pandas read_sql of the same rows + a naive groupby daily energy sum per channel."""
+    eng = make_engine(path)
+    t0 = time.perf_counter()
+    df = pd.read_sql(f"SELECT channel_id, ts_s, value FROM reading WHERE channel_id IN "
+                     f"({', '.join(map(str, channels))})", eng)
+    t1 = time.perf_counter()
+    df["day"] = (df["ts_s"] + 3600) // 86400
+    df["e"] = df["value"] * 0.25
+    df.groupby(["channel_id", "day"])["e"].sum()
+    t2 = time.perf_counter()
+    eng.dispose()
+    return t1 - t0, t2 - t1, len(df)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--db", default="/tmp/heliaudit_bench_compute.sqlite")
+    ap.add_argument("--inverters", type=int, default=100)
+    ap.add_argument("--years", type=float, default=5.0)
+    ap.add_argument("--rebuild", action="store_true")
+    a = ap.parse_args()
+    path = Path(a.db)
+    meta_path = path.with_suffix(".meta.npy")
+    if a.rebuild or not path.exists() or not meta_path.exists():
+        print(f"setup: writing {a.inverters} inverters x {a.years} years of 15-min data to {path}")
+        meta = build(path, a.inverters, a.years)
+        np.save(meta_path, np.array([meta["last_ts_s"], meta["rows"]]))
+        print(f"setup: {meta['rows']:,} readings in {meta['seconds']:.1f} s "
+              f"({meta['rows'] / meta['seconds'] / 1e6:.2f} M rows/s) [not timed]")
+    last_ts_s, n_rows = (int(x) for x in np.load(meta_path))
+    eng = make_engine(path)
+    with eng.connect() as c:
+        chans = sorted(dts.site_channels(c, "bench").values())
+        n_inv = len(dts.site_inverters(c, "bench"))
+
+    # -- full recompute
+    with timers() as acc:
+        t0 = time.perf_counter()
+        (s,) = jobs_daily.recompute_all(eng, "bench")
+        full = time.perf_counter() - t0
+    compute = full - acc["read"] - acc["write"]
+    print(f"\nfull recompute: {n_inv} inverters, {acc['rows_read']:,} readings read, "
+          f"{s['rows']:,} daily rows written")
+    print(f"  total {full:6.1f} s   (target <= 60 s)")
+    print(f"  read  {acc['read']:6.1f} s   ({acc['rows_read'] / max(acc['read'], 1e-9) / 1e6:.2f} M rows/s)")
+    print(f"  compute {compute:4.1f} s   (solar position, filters, models, daily sums)")
+    print(f"  write {acc['write']:6.1f} s")
+
+    # -- baseline in the same run
+    b_read, b_group, b_rows = baseline(path, chans)
+    print(f"baseline: pandas read_sql of the same {b_rows:,} rows {b_read:.1f} s + naive groupby "
+          f"daily sum {b_group:.1f} s = {b_read + b_group:.1f} s")
+    print(f"  ratio full recompute / baseline = {full / (b_read + b_group):.2f}")
+
+    # -- incremental: one new week
+    lo, hi = append_week(path, last_ts_s)
+    np.save(meta_path, np.array([hi, n_rows]))
+    with timers() as acc:
+        t0 = time.perf_counter()
+        s = jobs_daily.recompute_range(eng, "bench", lo, hi)
+        inc = time.perf_counter() - t0
+    print(f"\nincremental recompute after one new week ({s['first_day']}..{s['last_day']}): "
+          f"{inc:.2f} s (target <= 5 s); read {acc['read']:.2f} s, write {acc['write']:.2f} s, "
+          f"compute {inc - acc['read'] - acc['write']:.2f} s, {acc['rows_read']:,} readings")
+    t0 = time.perf_counter()
+    df = pd.read_sql(f"SELECT channel_id, ts_s, value FROM reading WHERE channel_id IN "
+                     f"({', '.join(map(str, chans))}) AND ts_s >= {lo - 86400} AND ts_s <= {hi}",
+                     eng)
+    df.groupby(["channel_id", df["ts_s"] // 86400])["value"].sum()
+    print(f"  baseline: read_sql + groupby of the same week {time.perf_counter() - t0:.2f} s")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,63 @@
+"""Shared fixtures: real database files, never mocks.
+
+* ``db_path`` / ``engine``: a fresh SQLite store file in ``tmp_path`` with the current schema
+  (like sqlite-utils' ``db_path`` fixture).
+* ``pg_engine``: PostgreSQL at ``$HELIAUDIT_TEST_PG_URL`` (default
+  ``postgresql+psycopg://postgres@127.0.0.1:5432/test``), isolated in a fresh schema that is
+  dropped afterwards. Skips with the reason when no server answers; fails instead when
+  ``CI=true``.
+
+Other topics add their fixtures below with small edits.
+"""
+
+from __future__ import annotations
+
+import os
+import uuid
+
+import pytest
+import sqlalchemy as sa
+
+from db.engine import make_engine, resolve_url
+from db.migrate import upgrade
+
+PG_URL_ENV = "HELIAUDIT_TEST_PG_URL"
+PG_URL_DEFAULT = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
+
+
+@pytest.fixture
+def db_path(tmp_path):
+    return tmp_path / "store.sqlite"
+
+
+@pytest.fixture
+def engine(db_path):
+    eng = make_engine(db_path)
+    yield eng
+    eng.dispose()
+
+
+@pytest.fixture
+def pg_engine():
+    url = resolve_url(os.environ.get(PG_URL_ENV, PG_URL_DEFAULT))
+    schema_name = f"t_{uuid.uuid4().hex[:12]}"
+    admin = sa.create_engine(url, connect_args={"connect_timeout": 3})
+    try:
+        with admin.begin() as conn:
+            conn.execute(sa.text(f'CREATE SCHEMA "{schema_name}"'))
+    except Exception as exc:  # noqa: BLE001 - any connection failure means "no server"
+        admin.dispose()
+        reason = f"no PostgreSQL server at {url} ({type(exc).__name__}: {str(exc).splitlines()[0]})"
+        if os.environ.get("CI") == "true":
+            pytest.fail(reason + f"; CI=true requires it (set {PG_URL_ENV})")
+        pytest.skip(reason + f"; set {PG_URL_ENV} to run the postgres tests")
+    eng = sa.create_engine(url, connect_args={"options": f"-csearch_path={schema_name}"},
+                           pool_pre_ping=True)
+    upgrade(eng)
+    try:
+        yield eng
+    finally:
+        eng.dispose()
+        with admin.begin() as conn:
+            conn.execute(sa.text(f'DROP SCHEMA "{schema_name}" CASCADE'))
+        admin.dispose()

@@ -1,0 +1,84 @@
+"""Level-shift detection (PELT, Killick et al. 2012, via ruptures) on known-answer series of our
+generator (tests/degradation_synth.py) and a hand-checkable piecewise-linear cost."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import pandas as pd
+import pytest
+import ruptures
+from numpy.testing import assert_allclose
+
+from analytics.changepoint import _CostLine, detect_level_shifts, noise_sigma
+from analytics.degradation import degradation_yoy
+from tests.degradation_synth import daily_pi
+
+pytestmark = pytest.mark.filterwarnings("ignore::UserWarning")
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_six_percent_step_found_sized_and_slope_recovered(seed):
+    # issue #7: a 6 % drop on a known day on top of -0.5 %/yr: the step is found within a few
+    # days, sized within 1 % (percentage point), and the within-segment rate recovers the slope.
+    pi = daily_pi(years=5, rd_pct_per_yr=-0.5, noise=0.01, gap_fraction=0.1, step_day=900,
+                  step=-0.06, seed=seed)
+    true_day = pi.index[900].date()
+    out = detect_level_shifts(pi)
+    assert len(out["change_points"]) == 1
+    cp = out["change_points"][0]
+    assert abs((dt.date.fromisoformat(cp["day"]) - true_day).days) <= 3
+    assert abs(cp["size_pct"] + 6.0) < 1.0
+    for seg in out["segments"]:
+        assert abs(seg["slope_pct_per_yr"] + 0.5) < 0.25  # ~2.5-year segments, 1 % noise
+    within = degradation_yoy(pi.dropna(), breaks=[cp["day"]])
+    whole = degradation_yoy(pi.dropna())
+    assert abs(within.rate_pct_per_yr + 0.5) < 0.15
+    assert whole.rate_pct_per_yr < -0.8  # the step leaks into the whole-period figure
+    # 365 spanning pairs, each kept with prob. 0.9² (10 % gaps) -> ≈ 296
+    assert within.details["n_pairs_spanning_breaks_dropped"] > 250
+
+
+@pytest.mark.parametrize("seed", [10, 11, 12])
+def test_no_step_no_change_point(seed):
+    # slope only (-0.7 %/yr), season and 1.5 % noise: a slope is not a step
+    pi = daily_pi(years=5, rd_pct_per_yr=-0.7, noise=0.015, ar1=0.3, seed=seed)
+    out = detect_level_shifts(pi)
+    assert out["change_points"] == []
+    assert len(out["segments"]) == 1
+    assert abs(out["segments"][0]["slope_pct_per_yr"] + 0.7) < 0.2
+
+
+def test_two_steps():
+    pi = daily_pi(years=5, rd_pct_per_yr=0.0, noise=0.008, step_day=500, step=-0.04, seed=3)
+    pi.iloc[1200:] *= 1.05  # a later recovery (e.g. repair)
+    out = detect_level_shifts(pi)
+    days = [dt.date.fromisoformat(c["day"]) for c in out["change_points"]]
+    assert len(days) == 2
+    assert abs((days[0] - pi.index[500].date()).days) <= 3
+    assert abs((days[1] - pi.index[1200].date()).days) <= 3
+    assert out["change_points"][0]["size_pct"] < 0 < out["change_points"][1]["size_pct"]
+
+
+def test_cost_matches_ruptures_linear_cost():
+    # our prefix-sum cost must equal ruptures' own CostLinear (least squares per segment)
+    rng = np.random.default_rng(0)
+    t = np.arange(50) / 10.0
+    y = 1 + 0.1 * t + rng.normal(0, 0.05, 50)
+    ours = _CostLine().fit(np.column_stack([y, t]))
+    ref = ruptures.costs.CostLinear().fit(np.column_stack([y, t, np.ones_like(t)]))
+    for a, b in [(0, 50), (5, 20), (10, 13)]:
+        assert_allclose(ours.error(a, b), ref.error(a, b), rtol=1e-8, atol=1e-12)
+
+
+def test_noise_sigma_hand_value():
+    # differences of [0, 1, 0, 1, ...] are ±1: median 0 (even count of +1/-1 -> 0), MAD 1
+    # -> 1.4826 / √2 = 1.04835 (hand calculation)
+    assert_allclose(noise_sigma(np.array([0.0, 1.0] * 10 + [0.0])), 1.4826 / np.sqrt(2), rtol=1e-6)
+
+
+def test_short_series_reason():
+    pi = pd.Series(1.0, pd.date_range("2021-01-01", periods=100))
+    out = detect_level_shifts(pi)
+    assert out["change_points"] == [] and "needs" in out["reason"]

@@ -1,0 +1,120 @@
+"""Clear-sky index (pvlib Ineichen + transposition, Reno & Hansen 2016 clear detection) and the
+drifting-irradiance-sensor case of issue #7 (interval data from tests/degradation_synth.py)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pvlib
+import pytest
+from numpy.testing import assert_allclose
+
+from analytics.clearsky import (
+    clearsky_daily_pi,
+    clearsky_poa,
+    densify_clear_days,
+    detect_clear_periods,
+)
+from analytics.degradation import DRIFT_WARNING, compare_methods, degradation_yoy, peer_relative_pi
+from tests.degradation_synth import interval_site, sensor_daily_pi
+
+pytestmark = pytest.mark.filterwarnings("ignore::UserWarning")
+
+GEOM = dict(latitude_deg=39.74, longitude_deg=-105.18, altitude_m=1829.0)
+
+
+def test_horizontal_plane_equals_clearsky_ghi():
+    # transposition identity (pvlib get_total_irradiance): on a horizontal plane POA = GHI
+    # (sky diffuse = DHI, no ground-reflected part) for the isotropic and Hay-Davies models
+    t = pd.date_range("2021-06-21 14:00", periods=8, freq="1h", tz="UTC")
+    for model in ("isotropic", "haydavies"):
+        cs = clearsky_poa(t, tilt_deg=0.0, azimuth_deg=180.0, transposition=model, **GEOM)
+        assert_allclose(cs["poa_clearsky_wm2"], cs["ghi_clearsky_wm2"], rtol=1e-6, atol=1e-6)
+
+
+def test_clearsky_matches_pvlib_at_interval_midpoints():
+    # 15-min interval starts: the model is evaluated at start + 7.5 min (pvlib Location docs)
+    t = pd.date_range("2021-03-20 16:00", periods=4, freq="15min", tz="UTC")
+    cs = clearsky_poa(t, tilt_deg=30, azimuth_deg=180, **GEOM)
+    loc = pvlib.location.Location(GEOM["latitude_deg"], GEOM["longitude_deg"],
+                                  altitude=GEOM["altitude_m"])
+    ref = loc.get_clearsky(t + pd.Timedelta(minutes=7.5), model="ineichen")
+    assert_allclose(cs["ghi_clearsky_wm2"], ref["ghi"], rtol=1e-9)
+    assert (cs["poa_clearsky_wm2"] > cs["ghi_clearsky_wm2"]).all()  # tilted south in March
+    with pytest.raises(ValueError, match="tz-aware"):
+        clearsky_poa(t.tz_localize(None), tilt_deg=30, azimuth_deg=180, **GEOM)
+
+
+def test_clearsky_daily_pi_clipping_and_clear_fraction():
+    t = pd.date_range("2021-06-01 08:00", periods=8, freq="1h", tz="UTC")
+    g = pd.Series(800.0, t)
+    p = pd.Series(76.8, t)  # = 100 kWp * 0.8 * 0.96 -> PI 1
+    p.iloc[0] = 100.0       # clipped: >= 0.98 * p_ac_max_kw = 98 kW
+    clear = pd.Series(True, t)
+    out = clearsky_daily_pi(p, g, clear, p_dc_kwp=100, gamma_pmp_per_c=-0.004, p_ac_max_kw=100)
+    assert_allclose(out["pi_clearsky"].iloc[0], 1.0)
+    assert out["n_clear"].iloc[0] == 7
+    clear.iloc[:5] = False  # 3 of 8 equal intervals clear -> fraction 0.375 < 0.5 -> NaN
+    out = clearsky_daily_pi(p, g, clear, p_dc_kwp=100, gamma_pmp_per_c=-0.004, p_ac_max_kw=100)
+    assert np.isnan(out["pi_clearsky"].iloc[0])
+    # temperature correction: T_cell = 50 °C, γ = -0.004 -> expected ×0.9 (PVWatts, METHODS §4)
+    out = clearsky_daily_pi(pd.Series(76.8 * 0.9, t), g, pd.Series(True, t), p_dc_kwp=100,
+                            gamma_pmp_per_c=-0.004,
+                            t_cell_c=pd.Series(50.0, t))
+    assert_allclose(out["pi_clearsky"].iloc[0], 1.0)
+
+
+def test_densify_needs_min_days():
+    d = pd.date_range("2021-01-01", periods=40)
+    s = pd.Series(np.nan, d)
+    s.iloc[[0, 3, 30]] = [1.0, 0.98, 0.9]
+    out = densify_clear_days(s, window_days=15, min_days=2)
+    assert_allclose(out.loc["2021-01-02"], 0.99)  # median of 1.0 and 0.98
+    assert "2021-01-31" not in out.index.strftime("%Y-%m-%d")
+
+
+@pytest.fixture(scope="module")
+def drifting_site():
+    return interval_site(years=3, sensor_drift_pct_per_yr=1.0, seed=1)
+
+
+def test_drifting_sensor_biases_sensor_rate_not_clearsky_or_peers(drifting_site):
+    # issue #7: the shared POA sensor drifts +1 %/yr. Sensor-based rates are biased by ≈ -1
+    # %/yr (1 - 1/1.01 ≈ 0.99 %/yr); clear-sky rates (clear periods from the fleet's power
+    # shape, Reno & Hansen 2016 / Jordan & Hansen 2023 thresholds) recover the injected rate;
+    # peer-relative rates recover rate minus fleet median; the disagreement warning fires.
+    site = drifting_site
+    rates = dict(zip(site["p_ac"].columns, (-0.3, -0.5, -0.5, -0.7, -0.6), strict=True))
+    fleet = 1000 * site["p_ac"].sum(axis=1) / (site["p_dc_kwp"] * site["p_ac"].shape[1])
+    clear = detect_clear_periods(fleet, site["poa_cs"])
+    assert 0.1 < clear.mean() < 0.5  # about half the days are clear, daytime only
+    sensor_pi = pd.DataFrame({n: sensor_daily_pi(site, n) for n in site["p_ac"]})
+    ratio = peer_relative_pi(sensor_pi)
+    fleet_rate = np.median(list(rates.values()))
+    for name, truth in rates.items():
+        d = clearsky_daily_pi(site["p_ac"][name], site["poa_cs"], clear, p_dc_kwp=site["p_dc_kwp"],
+                              gamma_pmp_per_c=site["gamma"], eta_inv_nom=site["eta"],
+                              t_cell_c=site["t_cell"])
+        cs = degradation_yoy(densify_clear_days(d["pi_clearsky"]), method="clearsky_yoy")
+        sb = degradation_yoy(sensor_pi[name].dropna())
+        peer = degradation_yoy(ratio[name].dropna(), method="peer_relative")
+        assert abs(cs.rate_pct_per_yr - truth) < 0.1
+        assert abs(sb.rate_pct_per_yr - (truth - 0.99)) < 0.1
+        assert abs(peer.rate_pct_per_yr - (truth - fleet_rate)) < 0.15
+        verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs, "peer_relative": peer})
+        assert verdict["agree"] is False
+        assert DRIFT_WARNING in verdict["warnings"]
+
+
+def test_stable_sensor_methods_agree():
+    site = interval_site(years=2.2, sensor_drift_pct_per_yr=0.0, seed=2,
+                         rates_pct_per_yr=(-0.5, -0.5, -0.5))
+    fleet = 1000 * site["p_ac"].sum(axis=1) / (site["p_dc_kwp"] * 3)
+    clear = detect_clear_periods(fleet, site["poa_cs"])
+    d = clearsky_daily_pi(site["p_ac"]["INV01"], site["poa_cs"], clear, p_dc_kwp=100,
+                          gamma_pmp_per_c=site["gamma"], eta_inv_nom=site["eta"],
+                          t_cell_c=site["t_cell"])
+    cs = degradation_yoy(densify_clear_days(d["pi_clearsky"]), method="clearsky_yoy")
+    sb = degradation_yoy(sensor_daily_pi(site, "INV01").dropna())
+    verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs})
+    assert verdict["agree"] is True and verdict["warnings"] == []

@@ -1,0 +1,161 @@
+"""Soiling: cleanings, Theil–Sen rates, insolation-weighted SR, cleaning economics."""
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+from scipy import stats
+
+from analytics.soiling import (
+    cleaning_interval_days,
+    detect_cleanings,
+    soiling_flags,
+    soiling_intervals,
+    soiling_ratio_iw,
+    soiling_ratio_iw_mc,
+    soiling_ratio_series,
+)
+
+DAYS = pd.date_range("2024-01-01", periods=300, freq="D")
+CLEANINGS = [pd.Timestamp("2024-03-01"), pd.Timestamp("2024-05-10"), pd.Timestamp("2024-07-19")]
+RATES = [-0.0010, -0.0020, -0.0005, -0.0015]  # per dry interval [1/day]
+
+
+def _true_sr():
+    sr = pd.Series(1.0, index=DAYS)
+    starts = [DAYS[0], *CLEANINGS]
+    ends = [*(c - pd.Timedelta(days=1) for c in CLEANINGS), DAYS[-1]]
+    for s, e, r in zip(starts, ends, RATES, strict=True):
+        m = (DAYS >= s) & (DAYS <= e)
+        sr[m] = 1 + r * (DAYS[m] - s).days.to_numpy()
+    return sr
+
+
+def _pi(seed=0, noise=0.005, level=0.97):
+    rng = np.random.default_rng(seed)
+    return level * _true_sr() * (1 + noise * rng.standard_normal(len(DAYS)))
+
+
+def test_theilslopes_linear_interval_methods_vector():
+    # METHODS §8: 30-day interval SR = 1 − 0.001 d -> Theil–Sen slope −0.001 exactly,
+    # mean SR = 0.9855 (1.45 % loss). Oracle: scipy.stats.theilslopes(y, x).
+    days = pd.date_range("2024-01-01", periods=30, freq="D")
+    sr = pd.Series(1 - 0.001 * np.arange(30), index=days)
+    assert stats.theilslopes(sr.to_numpy(), np.arange(30.0)).slope == pytest.approx(-0.001)
+    iv = soiling_intervals(sr, [])
+    assert iv.loc[0, "soiling_rate_per_day"] == pytest.approx(-0.001, abs=1e-12)
+    assert soiling_ratio_series(days, iv).mean() == pytest.approx(0.9855, abs=1e-12)
+
+
+def test_sr_iw_methods_vector():
+    # METHODS §8: SR = [1, 0.99, 0.98], H = [2, 4, 6] -> (2 + 3.96 + 5.88)/12 = 0.98667
+    # (unweighted mean 0.99).
+    assert soiling_ratio_iw([1, 0.99, 0.98], [2, 4, 6]) == pytest.approx(0.986667, abs=1e-6)
+    assert soiling_ratio_iw([1, np.nan, 0.98], [2, 4, 6]) == pytest.approx((2 + 5.88) / 8)
+    assert math.isnan(soiling_ratio_iw([], []))
+
+
+def test_cleaning_economics_methods_vector():
+    # METHODS §8: C = 1500, E_d = 4500 kWh, r = 0.001/day, p = 0.08 -> T* = 91.3 d,
+    # L(T*) = p E_d r T*²/2 = C = 1500, cost per day (C + L)/T* = 32.86.
+    t = cleaning_interval_days(1500, 0.08, 4500, -0.001)
+    assert t == pytest.approx(91.29, abs=0.01)
+    lost = 0.08 * 4500 * 0.001 * t**2 / 2
+    assert lost == pytest.approx(1500, rel=1e-9)
+    assert (1500 + lost) / t == pytest.approx(32.86, abs=0.01)
+    assert cleaning_interval_days(1500, 0.08, 4500, 0.0) == math.inf
+
+
+def test_cleanings_found_within_two_days():
+    found = []
+    for seed in range(5):
+        cl = detect_cleanings(_pi(seed))
+        # Tolerance: each true cleaning has a detection within ±2 days.
+        for c in CLEANINGS:
+            assert min(abs((d - c).days) for d in cl.index) <= 2, (seed, c, list(cl.index))
+        found.append(len(cl))
+    # false cleanings: at most 1 extra detection per 300 days on average
+    assert np.mean(found) <= len(CLEANINGS) + 1
+
+
+def test_rain_sensor_adds_events():
+    rain = pd.Series(0.0, index=DAYS)
+    rain["2024-03-01"] = 12.0  # matches the step
+    rain["2024-09-15"] = 8.0  # rain without a visible step still counts (METHODS §8)
+    rain["2024-09-20"] = 2.0  # light rain does not clean (< 5 mm)
+    cl = detect_cleanings(_pi(1), rain_mm=rain)
+    near = cl.loc[cl.index[np.abs((cl.index - CLEANINGS[0]).days) <= 1][0]]
+    assert near["source"] == "pi_step+rain" and near["rain_mm"] == 12.0
+    assert cl.loc[pd.Timestamp("2024-09-15"), "source"] == "rain"
+    assert pd.Timestamp("2024-09-20") not in cl.index
+
+
+def test_rates_recovered_by_theil_sen():
+    iv = soiling_intervals(_pi(2), CLEANINGS)
+    # Tolerance: each rate within 15 % of the injected one (0.5 % daily noise).
+    assert_allclose(iv["soiling_rate_per_day"], RATES, rtol=0.15)
+    assert (iv["rate_low"] <= iv["soiling_rate_per_day"]).all()
+    assert (iv["soiling_rate_per_day"] <= iv["rate_high"]).all()
+    # clean level is the model bias 0.97, not counted as soiling
+    assert_allclose(iv["clean_level"], 0.97, atol=0.01)
+
+
+def test_positive_slope_and_short_interval_are_unsoiled():
+    days = pd.date_range("2024-01-01", periods=40, freq="D")
+    pi = pd.Series(0.95 + 0.0005 * np.arange(40), index=days)
+    iv = soiling_intervals(pi, [pd.Timestamp("2024-02-03")], min_days=10)  # 33 + 7 days
+    assert not iv["soiled"].any() and (iv["soiling_rate_per_day"] == 0).all()
+
+
+def test_monte_carlo_brackets_truth():
+    # A 95 % interval should hold the injected SR_iw in most seeded runs: require >= 8 of 10
+    # (binomial, p = 0.95: P(<= 7 of 10) ≈ 1 %).
+    h = pd.Series(6.0, index=DAYS)
+    truth = soiling_ratio_iw(_true_sr(), h)
+    hits = 0
+    for seed in range(10):
+        iv = soiling_intervals(_pi(seed), CLEANINGS)
+        mc = soiling_ratio_iw_mc(DAYS, iv, h, n_runs=300, recovery_min=1.0)
+        hits += mc["sr_iw_low"] <= truth <= mc["sr_iw_high"]
+        assert mc["sr_iw_median"] == pytest.approx(truth, abs=0.003)
+    assert hits >= 8
+    # partial recovery can only lower SR_iw
+    mc_partial = soiling_ratio_iw_mc(DAYS, iv, h, n_runs=300, recovery_min=0.5)
+    assert mc_partial["sr_iw_median"] < mc["sr_iw_median"]
+
+
+def test_soiling_flags_and_recommendation():
+    pi = _pi(4)
+    h = pd.Series(6.0, index=DAYS)
+    e = pd.Series(4500.0, index=DAYS)
+    fl = soiling_flags(pi, h, e, tariff_per_kwh=0.08, cleaning_cost=1500, n_runs=200)
+    cl = fl[fl["kind"] == "cleaning"]
+    so = fl[fl["kind"] == "soiling"]
+    assert len(cl) >= 3 and len(so) >= 3
+    last = so.iloc[-1]["details"]
+    # Last dry interval: 2024-07-19 .. 2024-10-26, 100 days at −0.15 %/day -> loss ≈ 15 %.
+    assert last["ongoing"] and last["current_loss_pct"] == pytest.approx(14.85, abs=2.5)
+    # saving = p E_d loss H = 0.08 x 4500 x 0.1485 x 30 ≈ 1604 > C = 1500 -> clean.
+    assert last["recommend_cleaning"] and so.iloc[-1]["severity"] == "warning"
+    assert last["cleaning_interval_days_opt"] == pytest.approx(
+        cleaning_interval_days(1500, 0.08, 4500, 0.0015), rel=0.2)
+    # lost energy of the last interval ≈ Σ E (1 − SR): 4500 x 0.0015 x Σ_{0..99} d = 33 412 kWh
+    assert so.iloc[-1]["lost_kwh"] == pytest.approx(33412, rel=0.2)
+    assert "sr_iw_mc" in last and last["sr_iw_mc"]["sr_iw_low"] <= last["sr_iw_site"] + 0.01
+    # a cleaning costing more than the loss -> no recommendation, severity info
+    fl2 = soiling_flags(pi, h, e, tariff_per_kwh=0.08, cleaning_cost=50000, n_runs=0)
+    assert not fl2[fl2["kind"] == "soiling"].iloc[-1]["details"]["recommend_cleaning"]
+
+
+def test_clean_control_raises_no_soiling():
+    # Flat pi with 0.5 % noise, 10 seeds x 300 days: no soiling flags (loss never >= 1 %).
+    n = 0
+    for seed in range(10):
+        rng = np.random.default_rng(100 + seed)
+        pi = pd.Series(0.97 * (1 + 0.005 * rng.standard_normal(len(DAYS))), index=DAYS)
+        fl = soiling_flags(pi, pd.Series(6.0, index=DAYS), pd.Series(1000.0, index=DAYS),
+                           n_runs=0)
+        n += int((fl["kind"] == "soiling").sum())
+    assert n == 0

@@ -1,0 +1,143 @@
+"""The daily job (heliaudit.jobs_daily) and the ``compute`` command, on a small store.
+
+Known answer: sensor data are pvlib's Ineichen clear-sky POA (plus seeded noise) and a module
+temperature; each inverter's power is a fixed fraction of the PVWatts expected power computed
+with pvlib (pvsystem.pvwatts_dc, temperature.sapm_cell_from_module, inverter.pvwatts), so the
+performance index of every valid interval, and therefore of every day, is that fraction.
+"""
+
+import datetime as dt
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pvlib
+import pytest
+import sqlalchemy as sa
+from click.testing import CliRunner
+
+from db import schema
+from db.daily import daily_table
+from heliaudit import jobs_daily
+from heliaudit.cli import main
+from tests.helpers_store import add_inverter, add_readings, add_sensor, add_site, make_store
+
+LAT, LON, ALT, TILT, AZ = 38.9, -3.2, 650.0, 25.0, 180.0
+START = pd.Timestamp("2024-06-10", tz="UTC")
+N_DAYS = 3
+FRACTION = {"inv1": 0.90, "inv2": 0.80}
+
+
+def _sensor_data():
+    ts = pd.date_range(START, periods=N_DAYS * 96, freq="15min")
+    mid = ts + pd.Timedelta(minutes=7.5)
+    loc = pvlib.location.Location(LAT, LON, "UTC", ALT)
+    sp = loc.get_solarposition(mid)
+    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
+    poa = pvlib.irradiance.get_total_irradiance(TILT, AZ, sp["apparent_zenith"], sp["azimuth"],
+                                                cs["dni"], cs["ghi"], cs["dhi"],
+                                                model="isotropic")["poa_global"].to_numpy()
+    rng = np.random.default_rng(42)
+    poa = np.where(poa > 0, poa * (1 + 0.01 * rng.standard_normal(poa.size)), 0.0)
+    t_mod = 22.0 + 0.03 * poa + 0.1 * rng.standard_normal(poa.size)
+    return ts, poa, t_mod
+
+
+def _expected_ac(poa, t_mod, p_dc=100.0, p_ac=95.0, gamma=-0.004, eta=0.96, delta_t=3.0):
+    t_cell = pvlib.temperature.sapm_cell_from_module(t_mod, poa, delta_t)
+    pdc = pvlib.pvsystem.pvwatts_dc(poa, t_cell, p_dc, gamma)
+    return pvlib.inverter.pvwatts(pdc, p_ac / eta, eta_inv_nom=eta)
+
+
+@pytest.fixture
+def engine(tmp_path):
+    eng = make_store(tmp_path)
+    ts, poa, t_mod = _sensor_data()
+    ts_s = ts.as_unit("s").asi8
+    p_exp = _expected_ac(poa, t_mod)
+    with eng.begin() as c:
+        add_site(c, "s1", timezone="Europe/Madrid", latitude_deg=LAT, longitude_deg=LON,
+                 altitude_m=ALT, tilt_deg=TILT, azimuth_deg=AZ,
+                 config_toml="[filters]\nmin_coverage = 0.7\n")
+        add_readings(c, add_sensor(c, "s1", "poa1", "poa_wm2", "reference_cell"), ts_s, poa)
+        add_readings(c, add_sensor(c, "s1", "tmod1", "t_module_c"), ts_s, t_mod)
+        for inv, frac in FRACTION.items():
+            ch = add_inverter(c, "s1", inv, poa_sensor_id="poa1", t_module_sensor_id="tmod1",
+                              p_dc_kwp=100.0, p_ac_max_kw=95.0, eta_inv_nom=0.96)
+            add_readings(c, ch["p_ac_kw"], ts_s, frac * p_exp)
+    return eng
+
+
+def test_recompute_all_known_answer(engine):
+    seen = []
+    (summary,) = jobs_daily.recompute_all(engine, "s1", progress=lambda d, t: seen.append((d, t)))
+    assert seen[-1] == (2, 2)
+    t = daily_table(engine, "s1")
+    # local standard days (UTC+1): 3 UTC days of data touch 4 local days (the last hour spills)
+    assert sorted(set(t["day"])) == [dt.date(2024, 6, 10) + dt.timedelta(days=k) for k in range(4)]
+    full = t[t["day"].between(dt.date(2024, 6, 10), dt.date(2024, 6, 12))]
+    for inv, frac in FRACTION.items():
+        rows = full[full.device_id == inv]
+        np.testing.assert_allclose(rows["pi"], frac, rtol=1e-9)  # P = frac * pvlib PVWatts
+        assert rows["day_valid"].all() and (rows["avail_time"] == 1.0).all()
+        assert rows["pr"].between(0.6, 0.9).all()  # PR < PI: PR also carries the temperature loss
+        assert (rows["pr_stc"] > rows["pr"]).all()  # hot June modules: correcting to 25 °C raises PR
+    comp = pd.read_sql(sa.select(schema.computation), engine)
+    assert comp["kind"].tolist() == ["daily"] and comp["scope"].iloc[0] == "full"
+    params = json.loads(comp["params_json"].iloc[0])
+    assert params["filters"]["min_coverage"] == 0.7  # the site's [filters] override
+    assert (t["computation_id"] == summary["computation_id"]).all()
+
+
+def test_recompute_range_touches_only_its_days(engine):
+    jobs_daily.recompute_all(engine, "s1")
+    before = daily_table(engine, "s1")
+    # change inv1's power on the second UTC day, then recompute that day's span only
+    d1 = START + pd.Timedelta(days=1)
+    ts_s = pd.date_range(d1, periods=96, freq="15min").as_unit("s").asi8
+    with engine.begin() as c:
+        ch = c.execute(sa.text("SELECT channel_id FROM channel JOIN device USING (device_pk) "
+                               "WHERE device_id = 'inv1' AND quantity = 'p_ac_kw'")).scalar()
+        c.execute(sa.text("UPDATE reading SET value = value * 0.5 WHERE channel_id = :c "
+                          "AND ts_s >= :a AND ts_s <= :b"), {"c": ch, "a": int(ts_s[0]),
+                                                             "b": int(ts_s[-1])})
+    s = jobs_daily.recompute_range(engine, "s1", int(ts_s[0]), int(ts_s[-1]))
+    # 2024-06-11 00:00 UTC is 01:00 local standard time -> local days 06-11 and 06-12
+    assert (s["first_day"], s["last_day"]) == (dt.date(2024, 6, 11), dt.date(2024, 6, 12))
+    after = daily_table(engine, "s1")
+    assert len(after) == len(before)
+    old = before.set_index(["device_id", "day"])
+    new = after.set_index(["device_id", "day"])
+    assert new.loc[("inv1", dt.date(2024, 6, 10)), "computation_id"] == old.loc[
+        ("inv1", dt.date(2024, 6, 10)), "computation_id"]
+    assert new.loc[("inv1", dt.date(2024, 6, 11)), "computation_id"] == s["computation_id"]
+    assert new.loc[("inv2", dt.date(2024, 6, 11)), "pi"] == pytest.approx(0.8, rel=1e-9)
+    # day 06-11 local = 23 h of halved power + 1 h (00:00-01:00 local) untouched, at night
+    assert new.loc[("inv1", dt.date(2024, 6, 11)), "pi"] == pytest.approx(0.45, rel=1e-9)
+
+
+def test_errors(engine):
+    with pytest.raises(jobs_daily.SiteNotFoundError, match="no site 'zz'"):
+        jobs_daily.recompute_all(engine, "zz")
+    with pytest.raises(ValueError, match="before start_s"):
+        jobs_daily.recompute_range(engine, "s1", 10, 5)
+    with engine.begin() as c:
+        c.execute(schema.site.update().values(config_toml="[filters]\nclip_fraktion = 0.9\n"))
+    with pytest.raises(ValueError, match=r"filters\.clip_fraktion: unknown"):
+        jobs_daily.recompute_all(engine, "s1")
+
+
+def test_compute_command(engine, tmp_path):
+    url = str(engine.url)
+    res = CliRunner().invoke(main, ["--db", url, "compute", "--site", "s1", "--full"])
+    assert res.exit_code == 0, res.output
+    assert len(daily_table(engine, "s1")) == 8
+    res = CliRunner().invoke(main, ["--db", url, "compute", "--site", "nope"])
+    assert res.exit_code == 1 and "Error: no site 'nope' in the database; known: s1" in res.output
+    # never computed before -> without --full everything is computed too; then up to date
+    res = CliRunner().invoke(main, ["--db", url, "compute"])
+    assert res.exit_code == 0 and "up to date" in res.output
+
+
+DEMO = Path(__file__).resolve().parents[1] / "sample_scada" / "quillpond"
