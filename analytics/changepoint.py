@@ -2,7 +2,8 @@
 
 A failed string, a replaced module row, an inverter swap or a sensor recalibration changes the
 index in one day; a degradation rate fitted across such a step mixes the two. We detect steps
-with PELT (pruned exact linear time, Killick et al. 2012) as implemented in ``ruptures``, on
+with PELT (pruned exact linear time, Killick et al. 2012) — the recursion of ``ruptures.Pelt``,
+vectorised here (:func:`pelt_line`, tested to give ruptures' breakpoints) — on
 14-day medians of the de-seasonalised index with a piecewise-linear cost (each segment has
 its own level and slope, so slow degradation is not cut into a staircase), a penalty tied to
 the noise, then refine each break to the day and size it from the two adjacent segment fits.
@@ -22,7 +23,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import ruptures
-import statsmodels.api as sm
 
 DAYS_PER_YEAR = 365.25
 
@@ -30,8 +30,9 @@ DAYS_PER_YEAR = 365.25
 def deseasonalise(pi: pd.Series, *, harmonics: int = 1) -> pd.Series:
     """Divide the daily index by its fitted annual cycle (1 + Σ a_k sin 2πkt + b_k cos 2πkt).
 
-    The cycle comes from a Huber RLM of PI on [1, t, harmonics] (statsmodels); over whole years
-    a step is nearly orthogonal to the harmonics, so it survives. Series in, Series out.
+    The cycle comes from a least-squares fit of PI on [1, t, harmonics]; over whole years a step
+    is nearly orthogonal to the harmonics, so it survives, and outliers are handled later by
+    the 14-day medians. Series in, Series out.
     """
     s = pi.dropna()
     if len(s) < 30:
@@ -40,8 +41,9 @@ def deseasonalise(pi: pd.Series, *, harmonics: int = 1) -> pd.Series:
     cols = [np.ones_like(t), t]
     for k in range(1, harmonics + 1):
         cols += [np.sin(2 * np.pi * k * t), np.cos(2 * np.pi * k * t)]
-    fit = sm.RLM(s.to_numpy(), np.column_stack(cols), M=sm.robust.norms.HuberT()).fit()
-    season = np.column_stack(cols)[:, 2:] @ fit.params[2:] / fit.params[0]
+    X = np.column_stack(cols)
+    beta = np.linalg.lstsq(X, s.to_numpy(), rcond=None)[0]
+    season = X[:, 2:] @ beta[2:] / beta[0]
     out = pi.copy()
     out.loc[s.index] = s.to_numpy() / (1.0 + season)
     return out
@@ -62,15 +64,6 @@ def _segment_fit(t: np.ndarray, y: np.ndarray) -> tuple[float, float]:
         return float(np.mean(y)), 0.0
     slope, icpt = np.polyfit(t, y, 1)
     return float(icpt), float(slope)
-
-
-def _sse2(t: np.ndarray, y: np.ndarray, k: int) -> float:
-    """SSE of two separate lines, split before index k."""
-    out = 0.0
-    for tt, yy in ((t[:k], y[:k]), (t[k:], y[k:])):
-        a, b = _segment_fit(tt, yy)
-        out += float(np.sum((yy - a - b * tt) ** 2))
-    return out
 
 
 class _CostLine(ruptures.base.BaseCost):
@@ -97,6 +90,57 @@ class _CostLine(ruptures.base.BaseCost):
         # SSE = Syy - [Sy Sty] inv([[n St][St Stt]]) [Sy Sty]'
         fitted = (stt * sy * sy - 2 * st * sy * sty + n * sty * sty) / det
         return max(syy - fitted, 0.0)
+
+
+def _prefix(y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Prefix sums of (1, t, t², y, ty, y²): row k, column i = sum over the first i samples."""
+    c = np.zeros((6, len(y) + 1))
+    for k, v in enumerate((np.ones_like(t), t, t * t, y, t * y, y * y)):
+        c[k, 1:] = np.cumsum(v)
+    return c
+
+
+def _line_sse(c: np.ndarray, start, end) -> np.ndarray:
+    """Vectorised :meth:`_CostLine.error`: SSE of an OLS line on samples [start, end) from the
+    prefix sums ``c`` (:func:`_prefix`); ``start`` and ``end`` broadcast."""
+    n, st, stt, sy, sty, syy = (c[k, end] - c[k, start] for k in range(6))
+    det = n * stt - st * st
+    with np.errstate(divide="ignore", invalid="ignore"):
+        fitted = (stt * sy * sy - 2 * st * sy * sty + n * sty * sty) / det
+        flat = sy * sy / n
+    degenerate = (n < 2) | (det <= 1e-12 * np.maximum(1.0, n * stt))
+    return np.maximum(syy - np.where(degenerate, flat, fitted), 0.0)
+
+
+def pelt_line(y, t, *, pen: float, min_size: int) -> list[int]:
+    """PELT (Killick et al. 2012) with the piecewise-linear cost, vectorised over candidates.
+
+    Same recursion, pruning rule and tie-breaking as ``ruptures.Pelt(jump=1)`` with
+    :class:`_CostLine` (``ruptures`` loops in Python over the candidate set; this evaluates
+    it in one numpy expression per step). Returns the breakpoints, ending with ``len(y)``
+    like ``ruptures``' ``predict``.
+    """
+    y = np.asarray(y, dtype=float)
+    t = np.asarray(t, dtype=float)
+    n_s = len(y)
+    c = _prefix(y, t)
+    best = np.full(n_s + 1, np.inf)
+    best[0] = 0.0
+    prev = np.zeros(n_s + 1, dtype=int)
+    adm = np.zeros(0, dtype=int)
+    for bkp in [*range(min_size, n_s), n_s]:
+        new = bkp - min_size
+        adm = np.append(adm, new)
+        have = adm[np.isfinite(best[adm])]  # candidates with a partition of 0:t
+        vals = best[have] + _line_sse(c, have, bkp) + pen
+        j = int(np.argmin(vals))
+        best[bkp], prev[bkp] = vals[j], have[j]
+        adm = have[vals <= best[bkp] + pen]
+    out, k = [], n_s
+    while k > 0:
+        out.append(k)
+        k = prev[k]
+    return sorted(out)
 
 
 def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segment_days: int = 90,
@@ -154,9 +198,9 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
     pen = penalty_factor * sigma ** 2 * np.log(len(wk))
     result["penalty"] = pen
     min_size = max(3, int(round(min_segment_days / resample_days)))
-    algo = ruptures.Pelt(custom_cost=_CostLine(), min_size=min_size, jump=1).fit(signal)
-    bk_w = algo.predict(pen=pen)[:-1]
+    bk_w = pelt_line(signal[:, 0], signal[:, 1], pen=pen, min_size=min_size)[:-1]
     # to the day: position in the daily array of each weekly break, then refine
+    cday = _prefix(y, tday / DAYS_PER_YEAR)
     breaks = []
     for bw in bk_w:
         tb = wt.iloc[bw]
@@ -167,9 +211,12 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
         right_w = [b for b in bk_w if b > bw]
         right = (int(np.searchsorted(tday, wt.iloc[right_w[0]] - resample_days / 2))
                  if right_w else len(y))
-        best = min(cands, key=lambda k: _sse2(tday[left:right], y[left:right], k - left),
-                   default=k0)
-        breaks.append(int(best))
+        ks = np.arange(cands.start, cands.stop)
+        if ks.size:  # two separate lines, split before k: least total SSE
+            sse = _line_sse(cday, left, ks) + _line_sse(cday, ks, right)
+            breaks.append(int(ks[int(np.argmin(sse))]))
+        else:
+            breaks.append(int(k0))
     # size each break from adjacent segment lines; drop small ones (slope changes)
     kept = _size_and_filter(tday, y, breaks, min_step_pct)
     edges = [0] + [b for b, *_ in kept] + [len(y)]

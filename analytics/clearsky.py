@@ -122,11 +122,14 @@ def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
         grid = pd.date_range(mm.index[0], mm.index[-1], freq=step)
         mg = mm.reindex(grid)
         cg = c.reindex(grid).fillna(0.0)
+        naive = grid.tz_convert(None) if grid.tz is not None else grid  # pvlib reads .values
         try:
-            flag = pvlib.clearsky.detect_clearsky(mg.fillna(0.0), cg, infer_limits=True)
-        except ValueError:
+            flag = pvlib.clearsky.detect_clearsky(
+                pd.Series(mg.fillna(0.0).to_numpy(), naive), pd.Series(cg.to_numpy(), naive),
+                infer_limits=True)
+        except (ValueError, NotImplementedError):  # too short, or irregular after gaps
             continue
-        flag &= mg.notna() & (cg >= min_clearsky_wm2)
+        flag = pd.Series(flag.to_numpy(dtype=bool), grid) & mg.notna() & (cg >= min_clearsky_wm2)
         out.loc[mm.index] = flag.reindex(mm.index).fillna(False).to_numpy(dtype=bool)
     return out
 

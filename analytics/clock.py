@@ -45,6 +45,17 @@ def _local_day_and_minute(index: pd.DatetimeIndex, tau_h, std_offset_s: int):
     return day, minute
 
 
+def _day_codes(index: pd.DatetimeIndex, std_offset_s: int):
+    """Local standard day number of each sample, as codes 0..n-1, and the day Timestamps."""
+    day = (epoch_s(index) + int(std_offset_s)) // 86400
+    if day.size == 0:
+        return day, pd.DatetimeIndex([])
+    d0 = int(day.min())
+    code = day - d0
+    days = pd.to_datetime((np.arange(int(code.max()) + 1) + d0) * 86400, unit="s")
+    return code, days
+
+
 def daily_centroid_min(x: pd.Series, tau_h, *, std_offset_s: int = 0) -> pd.Series:
     """Irradiance-weighted centroid time of each day's profile, in minutes after local
     standard midnight: Σ x_k t_k / Σ x_k, t_k = interval midpoint, x < 0 taken as 0.
@@ -62,13 +73,16 @@ def daily_centroid_min(x: pd.Series, tau_h, *, std_offset_s: int = 0) -> pd.Seri
     -------
     Series indexed by local standard day (Timestamp), minutes; NaN for days without signal.
     """
-    day, minute = _local_day_and_minute(x.index, tau_h, std_offset_s)
+    code, days = _day_codes(x.index, std_offset_s)
+    if code.size == 0:
+        return pd.Series([], index=days, dtype=float)
+    _day, minute = _local_day_and_minute(x.index, tau_h, std_offset_s)
     w = np.clip(np.nan_to_num(x.to_numpy(float), nan=0.0), 0.0, None)
-    df = pd.DataFrame({"day": day, "wm": w * minute, "w": w})
-    g = df.groupby("day").sum()
-    out = (g["wm"] / g["w"]).where(g["w"] > 0)
-    out.index = pd.to_datetime(out.index.to_numpy() * 86400, unit="s")
-    return out
+    sw = np.bincount(code, weights=w, minlength=len(days))
+    swm = np.bincount(code, weights=w * minute, minlength=len(days))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        c = np.where(sw > 0, swm / sw, np.nan)
+    return pd.Series(c, index=days)
 
 
 def clear_day_mask(x: pd.Series, x_cs: pd.Series, *, std_offset_s: int = 0,
@@ -79,44 +93,56 @@ def clear_day_mask(x: pd.Series, x_cs: pd.Series, *, std_offset_s: int = 0,
     The variability index VI = Σ|Δx| / Σ|Δx_cs| after scaling each day's series to unit
     sum (Stein et al. 2012, from memory) is close to 1 on a clear day whatever the scale
     and the clock shift; cloudy days give VI ≫ 1. For irradiance, ``ratio_range`` also
-    bounds Σx / Σx_cs (e.g. (0.7, 1.3): clear-sky models carry 5–10 % bias).
+    bounds Σx / Σx_cs (e.g. (0.7, 1.3): clear-sky models carry 5–10 % bias). A day also
+    needs readings in ``min_coverage`` of its daylight intervals.
 
     Returns
     -------
     Series of bool indexed by local standard day.
     """
-    day = (epoch_s(x.index) + int(std_offset_s)) // 86400
+    code, days = _day_codes(x.index, std_offset_s)
+    n = len(days)
+    if n == 0:
+        return pd.Series([], index=days, dtype=bool)
     xm = np.clip(x.to_numpy(float), 0.0, None)
-    cs = np.clip(x_cs.reindex(x.index).to_numpy(float), 0.0, None)
-    df = pd.DataFrame({"day": day, "x": xm, "cs": cs})
-    df["has"] = df["x"].notna() | (df["cs"] <= 0)
-    tot = df.groupby("day")[["x", "cs"]].sum(min_count=1)
-    df = df.join(tot, on="day", rsuffix="_tot")
-    df["xn"] = df["x"].fillna(0.0) / df["x_tot"]
-    df["csn"] = df["cs"] / df["cs_tot"]
-    same = df["day"].eq(df["day"].shift())
-    df["dx"] = df["xn"].diff().abs().where(same)
-    df["dcs"] = df["csn"].diff().abs().where(same)
-    g = df.groupby("day").agg(dx=("dx", "sum"), dcs=("dcs", "sum"), has=("has", "mean"))
-    vi = g["dx"] / g["dcs"]
-    ok = (vi <= max_vi) & (g["has"] >= min_coverage) & (tot["x"] > 0) & (tot["cs"] > 0)
-    if ratio_range is not None:
-        r = tot["x"] / tot["cs"]
-        ok &= (r >= ratio_range[0]) & (r <= ratio_range[1])
-    ok.index = pd.to_datetime(ok.index.to_numpy() * 86400, unit="s")
-    return ok.fillna(False).astype(bool)
+    cs = np.clip(np.nan_to_num(x_cs.reindex(x.index).to_numpy(float), nan=0.0), 0.0, None)
+    has = np.isfinite(xm)
+    xz = np.where(has, xm, 0.0)
+    x_tot = np.bincount(code, weights=xz, minlength=n)
+    cs_tot = np.bincount(code, weights=cs, minlength=n)
+    lit = cs > 0
+    cover = (np.bincount(code, weights=(has & lit).astype(float), minlength=n)
+             / np.maximum(np.bincount(code, weights=lit.astype(float), minlength=n), 1))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        xn = xz / x_tot[code]
+        csn = cs / cs_tot[code]
+        same = np.concatenate(([False], code[1:] == code[:-1]))
+        dx = np.where(same, np.abs(np.diff(xn, prepend=np.nan)), 0.0)
+        dcs = np.where(same, np.abs(np.diff(csn, prepend=np.nan)), 0.0)
+        vi = (np.bincount(code, weights=np.nan_to_num(dx), minlength=n)
+              / np.bincount(code, weights=np.nan_to_num(dcs), minlength=n))
+        ok = (vi <= max_vi) & (cover >= min_coverage) & (x_tot > 0) & (cs_tot > 0)
+        if ratio_range is not None:
+            r = x_tot / cs_tot
+            ok &= (r >= ratio_range[0]) & (r <= ratio_range[1])
+    return pd.Series(np.nan_to_num(ok).astype(bool), index=days)
 
 
 def clock_offsets(x: pd.Series, x_cs: pd.Series, tau_h, *, std_offset_s: int = 0,
-                  clear: pd.Series | None = None, **clear_kw) -> pd.DataFrame:
+                  clear: pd.Series | None = None, cs_centroid: pd.Series | None = None,
+                  **clear_kw) -> pd.DataFrame:
     """Daily Δ = centroid(measured) − centroid(clear-sky model), in minutes.
+
+    ``cs_centroid`` may pass the clear-sky centroids already computed for the same
+    timestamps (devices on one grid share them).
 
     Returns
     -------
     DataFrame indexed by local standard day: ``delta_min`` [min], ``clear`` (bool).
     """
     c_meas = daily_centroid_min(x, tau_h, std_offset_s=std_offset_s)
-    c_cs = daily_centroid_min(x_cs.reindex(x.index), tau_h, std_offset_s=std_offset_s)
+    c_cs = (cs_centroid.reindex(c_meas.index) if cs_centroid is not None else
+            daily_centroid_min(x_cs.reindex(x.index), tau_h, std_offset_s=std_offset_s))
     if clear is None:
         clear = clear_day_mask(x, x_cs, std_offset_s=std_offset_s, **clear_kw)
     out = pd.DataFrame({"delta_min": c_meas - c_cs})
@@ -141,17 +167,18 @@ def _refine_boundary(all_delta: pd.Series, lo, hi, before: float, after: float):
 
 
 def _dst_dates(zone: str | None, first, last) -> list[pd.Timestamp]:
-    if not zone or zone in ("UTC",):
+    """Local dates in [first − 1 d, last + 2 d] on which ``zone`` changes its UTC offset."""
+    if not zone or zone == "UTC":
         return []
+    hours = pd.date_range(pd.Timestamp(first) - pd.Timedelta(days=1),
+                          pd.Timestamp(last) + pd.Timedelta(days=2), freq="h", tz="UTC")
     try:
-        tz = zoneinfo.ZoneInfo(zone)
-    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        local = hours.tz_convert(zone)
+    except Exception:  # noqa: BLE001 - an unknown zone means "no DST dates to snap to"
         return []
-    hours = pd.date_range(first - pd.Timedelta(days=1), last + pd.Timedelta(days=2), freq="h",
-                          tz="UTC")
-    off = np.array([h.astimezone(tz).utcoffset().total_seconds() for h in hours[::1]])
+    off = (local.tz_localize(None) - hours.tz_localize(None)).asi8
     ch = np.flatnonzero(np.diff(off) != 0) + 1
-    return [pd.Timestamp(hours[i].astimezone(tz).date()) for i in ch]
+    return [pd.Timestamp(local[i].date()) for i in ch]
 
 
 def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: float = 10.0,
@@ -209,7 +236,9 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
         shift = -_snap(level)
         dst = False
         if abs(abs(level) - 60) <= threshold_min:
-            for dd in _dst_dates(site_zone, offsets.index[0], offsets.index[-1]):
+            lo_d = prev_day if prev_day is not None else first
+            hi_d = next_day if next_day is not None else last
+            for dd in _dst_dates(site_zone, lo_d, hi_d):
                 if prev_day is not None and prev_day < dd <= first:
                     start, dst = dd, True
                 if next_day is not None and last < dd <= next_day:

@@ -10,7 +10,9 @@ every day has 24 hours (METHODS §10). Per interval k (τ_k = ``interval_h``):
   temperature and wind (Sandia Eq. 11 + 12), or from ambient alone with Faiman (2008) at
   1 m/s wind;
 * expected AC power from PVWatts (Dobos 2014): linear DC model, inverter curve, AC limit;
-* a reason code from :func:`analytics.filters.classify_intervals`.
+* a reason code from :func:`analytics.filters.classify_intervals`. Intervals with the sun
+  below the horizon are ``night`` without further checks (and the model is not evaluated
+  for them); flat-line runs do not continue across a night.
 
 Daily sums (ratios of sums, never means of ratios, METHODS §5):
 
@@ -28,8 +30,8 @@ Daily sums (ratios of sums, never means of ratios, METHODS §5):
 * ``coverage``: share of the daylight insolation (measured POA, or clear-sky POA where the
   reading is missing) that falls in valid intervals; ``day_valid = coverage >= min_coverage``
   and a finite pi;
-* availability (:mod:`analytics.availability`): ``t_daylight_h`` (G >= 50 W/m² with a
-  power reading), ``t_unavailable_h``, ``e_lost_kwh``, ``avail_time``, ``avail_energy``;
+* availability (:mod:`analytics.availability`): ``t_daylight_h`` (sun up, G >= 50 W/m² and
+  a power reading), ``t_unavailable_h``, ``e_lost_kwh``, ``avail_time``, ``avail_energy``;
 * ``t_clipped_h``: hours with P_ac >= clip_fraction · P_ac,max;
 * ``details_json``: excluded-interval counts by reason and how temperature was obtained.
 """
@@ -103,8 +105,9 @@ def _col(frame: pd.DataFrame, name: str, n: int) -> np.ndarray:
     return np.full(n, np.nan)
 
 
-def _sum_by(day_idx: np.ndarray, values: np.ndarray, mask: np.ndarray, n_days: int) -> np.ndarray:
-    w = np.where(mask & np.isfinite(values), values, 0.0)
+def _sum_by(day_idx: np.ndarray, values: np.ndarray, mask, n_days: int) -> np.ndarray:
+    ok = np.isfinite(values)
+    w = np.where(ok & mask if mask is not True else ok, values, 0.0)
     return np.bincount(day_idx, weights=w, minlength=n_days)
 
 
@@ -157,128 +160,199 @@ def daily_performance(frame: pd.DataFrame, inverter, *, utc_offset_h: float = 0.
     A 100 kWp inverter, one 1-h interval at 1000 W/m², 25 °C cell and 80 kWh:
     e_ref = 100 kWh, so pr = 0.8.
     """
+    out = daily_performance_many([frame], [inverter], utc_offset_h=utc_offset_h,
+                                 solar_elevation_deg=[solar_elevation_deg],
+                                 poa_clearsky_wm2=[poa_clearsky_wm2], latitude_deg=latitude_deg,
+                                 longitude_deg=longitude_deg, altitude_m=altitude_m,
+                                 filters=filters)
+    return out.drop(columns="inverter_no").reset_index(drop=True)
+
+
+def _empty_daily(extra: tuple[str, ...] = ()) -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series([], dtype=object if c in ("day", "details_json")
+                                      else bool if c == "day_valid" else "int64"
+                                      if c.startswith("n_") or c == "inverter_no" else float)
+                         for c in (*extra, *DAILY_COLUMNS)})
+
+
+def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
+                           utc_offset_h: float = 0.0, solar_elevation_deg=None,
+                           poa_clearsky_wm2=None, latitude_deg: float | None = None,
+                           longitude_deg: float | None = None, altitude_m: float = 0.0,
+                           filters: dict | None = None) -> pd.DataFrame:
+    """:func:`daily_performance` of several inverters of one site in one vectorised pass.
+
+    ``frames[i]`` belongs to ``inverters[i]``; ``solar_elevation_deg`` and
+    ``poa_clearsky_wm2`` are None or lists with one entry (array, Series or None) per frame.
+    Returns the daily rows of all of them with an ``inverter_no`` column (the list position)
+    before the :data:`DAILY_COLUMNS`, ordered by inverter then day. Same results as calling
+    :func:`daily_performance` per inverter; cheaper when the frames are short (a week).
+    """
     f = flt.resolve_filters(filters)
-    n = len(frame)
-    if n == 0:
-        return pd.DataFrame({c: pd.Series([], dtype=object if c in ("day", "details_json")
-                                          else bool if c == "day_valid" else float)
-                             for c in DAILY_COLUMNS})
-    idx = pd.DatetimeIndex(frame.index)
-    if idx.tz is None:
-        raise ValueError("frame index ts_utc must be tz-aware UTC")
-    ts_s = idx.as_unit("s").asi8
-    tau = _col(frame, "interval_h", n)
-    if not np.isfinite(tau).all() or (tau <= 0).any():
-        raise ValueError("interval_h must be a positive number for every row")
-    p_in, e_in = _col(frame, "p_ac_kw", n), _col(frame, "e_ac_kwh", n)
-    g = _col(frame, "poa_wm2", n)
-    t_mod_meas = _col(frame, "t_module_c", n)
-    t_amb, wind = _col(frame, "t_amb_c", n), _col(frame, "wind_ms", n)
-    e = np.where(np.isfinite(e_in), e_in, p_in * tau)
-    p = np.where(np.isfinite(p_in), p_in, e_in / tau)
+    m = len(frames)
+    if len(inverters) != m:
+        raise ValueError(f"{m} frames but {len(inverters)} inverters")
+    elev_in = solar_elevation_deg if solar_elevation_deg is not None else [None] * m
+    cs_in = poa_clearsky_wm2 if poa_clearsky_wm2 is not None else [None] * m
+    parts: dict[str, list[np.ndarray]] = {k: [] for k in (
+        "ts", "tau", "p", "e", "g", "tm", "ta", "ws", "elev", "cs", "inv")}
+    have_elev = have_cs = True
+    for i, (frame, el, cs) in enumerate(zip(frames, elev_in, cs_in, strict=True)):
+        n = len(frame)
+        if n == 0:
+            continue
+        idx = pd.DatetimeIndex(frame.index)
+        if idx.tz is None:
+            raise ValueError("frame index ts_utc must be tz-aware UTC")
+        tau = _col(frame, "interval_h", n)
+        if not np.isfinite(tau).all() or (tau <= 0).any():
+            raise ValueError("interval_h must be a positive number for every row")
+        p_in, e_in = _col(frame, "p_ac_kw", n), _col(frame, "e_ac_kwh", n)
+        parts["ts"].append(idx.as_unit("s").asi8)
+        parts["tau"].append(tau)
+        parts["e"].append(np.where(np.isfinite(e_in), e_in, p_in * tau))
+        parts["p"].append(np.where(np.isfinite(p_in), p_in, e_in / tau))
+        parts["g"].append(_col(frame, "poa_wm2", n))
+        parts["tm"].append(_col(frame, "t_module_c", n))
+        parts["ta"].append(_col(frame, "t_amb_c", n))
+        parts["ws"].append(_col(frame, "wind_ms", n))
+        parts["inv"].append(np.full(n, i, dtype=np.int64))
 
-    def aligned(x):
-        if x is None:
-            return None
-        if isinstance(x, pd.Series):
-            return x.reindex(idx).to_numpy(dtype=float)
-        return np.broadcast_to(np.asarray(x, dtype=float), (n,))
+        def aligned(x, idx=idx, n=n):
+            if x is None:
+                return None
+            if isinstance(x, pd.Series):
+                return x.reindex(idx).to_numpy(dtype=float)
+            return np.broadcast_to(np.asarray(x, dtype=float), (n,))
 
-    elev = aligned(solar_elevation_deg)
-    if elev is None and latitude_deg is not None and longitude_deg is not None:
-        elev = flt.solar_elevation_deg(idx, latitude_deg, longitude_deg, altitude_m,
-                                       interval_h=tau).to_numpy()
-    g_cs = aligned(poa_clearsky_wm2)
+        el = aligned(el)
+        if el is None and latitude_deg is not None and longitude_deg is not None:
+            el = flt.solar_elevation_deg(idx, latitude_deg, longitude_deg, altitude_m,
+                                         interval_h=tau).to_numpy()
+        have_elev &= el is not None
+        parts["elev"].append(el)
+        cs = aligned(cs)
+        have_cs &= cs is not None
+        parts["cs"].append(cs)
+    if not parts["ts"]:
+        return _empty_daily(("inverter_no",))
+    cat = {k: np.concatenate(v) for k, v in parts.items() if k not in ("elev", "cs")}
+    elev = np.concatenate(parts["elev"]) if have_elev else None
+    g_cs = np.concatenate(parts["cs"]) if have_cs else None
+    ts_s, tau, p, e, g = cat["ts"], cat["tau"], cat["p"], cat["e"], cat["g"]
+    t_mod_meas, t_amb, wind, inv_no = cat["tm"], cat["ta"], cat["ws"], cat["inv"]
+    n = ts_s.size
+
+    # per-row inverter parameters (one value per inverter, spread over its rows)
+    def param(get):
+        return np.asarray([get(x) for x in inverters], dtype=float)[inv_no]
+
+    sap = [sapm_parameters(x.mounting) for x in inverters]
+    a_s = np.asarray([q["a"] for q in sap])[inv_no]
+    b_s = np.asarray([q["b"] for q in sap])[inv_no]
+    dt_s = np.asarray([q["delta_t_c"] for q in sap])[inv_no]
+    p_dc = param(lambda x: x.p_dc_kwp)
+    p_max = param(lambda x: x.p_ac_max_kw)
+    gamma = param(lambda x: x.gamma_pmp_per_c)
+    eta = param(lambda x: x.eta_inv_nom)
 
     # module temperature: measured, else modelled from ambient (Sandia Eq. 11, or Faiman)
-    par = sapm_parameters(inverter.mounting)
     gpos = np.where(g < 0, 0.0, g)
-    t_mod_sandia = module_temperature_sandia(gpos, t_amb, wind, a=par["a"], b=par["b"])
+    t_mod_sandia = module_temperature_sandia(gpos, t_amb, wind, a=a_s, b=b_s)
     t_faiman = cell_temperature_faiman(gpos, t_amb, 1.0)
     t_mod = np.where(np.isfinite(t_mod_meas), t_mod_meas,
                      np.where(np.isfinite(t_mod_sandia), t_mod_sandia, t_faiman))
     t_cell = np.where(np.isfinite(t_mod_meas) | np.isfinite(t_mod_sandia),
-                      cell_temperature_from_module(t_mod, gpos, par["delta_t_c"]), t_faiman)
-    p_exp = expected_ac_power(gpos, t_cell, inverter.p_dc_kwp, inverter.gamma_pmp_per_c,
-                              inverter.p_ac_max_kw, inverter.eta_inv_nom)
-    codes = flt.classify_intervals(g, t_mod, p, inverter.p_ac_max_kw, elev, t_amb, wind, f)
-
+                      cell_temperature_from_module(t_mod, gpos, dt_s), t_faiman)
     # day index
     day_no = local_standard_day_number(ts_s, utc_offset_h)
-    if n < 2 or (np.diff(day_no) >= 0).all():  # time order (the usual case): no sort needed
-        step = np.concatenate(([True], day_no[1:] != day_no[:-1]))
-        days, d = day_no[step], np.cumsum(step) - 1
+    key = inv_no * (1 << 32) + (day_no - day_no.min())
+    if n < 2 or (np.diff(key) >= 0).all():  # time order (the usual case): no sort needed
+        step = np.concatenate(([True], key[1:] != key[:-1]))
+        d = np.cumsum(step) - 1
+        first = np.flatnonzero(step)
     else:
-        days, d = np.unique(day_no, return_inverse=True)
+        _u, first, d = np.unique(key, return_index=True, return_inverse=True)
+    days, group_inv = day_no[first], inv_no[first]
     nd = len(days)
-    ones = np.ones(n, dtype=bool)
-    any_reading = np.isfinite(p) | np.isfinite(g) | np.isfinite(t_mod_meas)
     sun_up = (elev >= f["night_elevation_deg"]) if elev is not None else (g >= f["night_poa_wm2"])
     g_ok = np.isfinite(g) & (g >= f["poa_range_min_wm2"]) & (g <= f["poa_range_max_wm2"])
     in_pr = g_ok & np.isfinite(e)
-    valid = codes == flt.VALID
-    p0 = inverter.p_dc_kwp
-    e_ref_k = p0 * gpos / 1000.0 * tau
+    e_ref_k = p_dc * gpos / 1000.0 * tau
     has_t = np.isfinite(t_cell)
-    c_k = 1.0 + inverter.gamma_pmp_per_c * (t_cell - 25.0)
-    e_exp_k = p_exp * tau
+    c_k = 1.0 + gamma * (t_cell - 25.0)
 
-    e_ac = _sum_by(d, e, ones, nd)
+    # sums over every interval (nights add ~0 to the reference sums and their net energy)
+    e_ac = _sum_by(d, e, True, nd)
     e_ac_pr = _sum_by(d, e, in_pr, nd)
     h_poa = _sum_by(d, gpos * tau / 1000.0, in_pr, nd)
     e_ref = _sum_by(d, e_ref_k, in_pr, nd)
     e_ref_stc = _sum_by(d, c_k * e_ref_k, in_pr & has_t, nd)
     e_ref_t = _sum_by(d, e_ref_k, in_pr & has_t, nd)
     e_ref_tcell = _sum_by(d, t_cell * e_ref_k, in_pr & has_t, nd)
-    e_exp = _sum_by(d, e_exp_k, sun_up & g_ok & has_t, nd)
-    e_ac_valid = _sum_by(d, e, valid, nd)
-    e_exp_valid = _sum_by(d, e_exp_k, valid, nd)
-    n_int = np.bincount(d, weights=any_reading.astype(float), minlength=nd)
-    n_day = np.bincount(d, weights=sun_up.astype(float), minlength=nd)
-    n_val = np.bincount(d, weights=valid.astype(float), minlength=nd)
+    any_reading = np.isfinite(p) | np.isfinite(g) | np.isfinite(t_mod_meas)
+    n_int = np.bincount(d, weights=any_reading, minlength=nd)
+    n_day = np.bincount(d, weights=sun_up, minlength=nd)
+    n_e = np.bincount(d, weights=np.isfinite(e), minlength=nd)
+    n_pr = np.bincount(d, weights=in_pr, minlength=nd)
+    modelled = ~np.isfinite(t_mod_meas) & has_t
+    n_mod = np.bincount(d, weights=modelled, minlength=nd).astype(int)
+
+    # the model and the filters only where the sun is up (night is night: code 1)
+    k = np.flatnonzero(sun_up)
+    # flat-line runs stop at each night and at each change of inverter
+    breaks = np.concatenate(([True], (np.diff(k) > 1) | (np.diff(inv_no[k]) != 0)))
+    gs, ps, es, taus, ds, pmax_s = g[k], p[k], e[k], tau[k], d[k], p_max[k]
+    p_exp = expected_ac_power(gpos[k], t_cell[k], p_dc[k], gamma[k], pmax_s, eta[k])
+    codes_s = flt.classify_intervals(gs, t_mod[k], ps, pmax_s,
+                                     None if elev is None else elev[k], t_amb[k], wind[k], f,
+                                     run_breaks=breaks)
+    codes = np.full(n, flt.NIGHT, dtype=np.int8)
+    codes[k] = codes_s
+    valid = codes_s == flt.VALID
+    e_exp_k = p_exp * taus
+    e_exp = _sum_by(ds, e_exp_k, g_ok[k] & has_t[k], nd)
+    e_ac_valid = _sum_by(ds, es, valid, nd)
+    e_exp_valid = _sum_by(ds, e_exp_k, valid, nd)
+    n_val = np.bincount(ds, weights=valid, minlength=nd)
+
+    w_cov = np.where(g_ok[k], gpos[k], g_cs[k] if g_cs is not None else 0.0)
+    w_cov = np.where(np.isfinite(w_cov), w_cov, 0.0) * taus
+    cov = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd),
+               np.bincount(ds, weights=w_cov, minlength=nd))
+
+    base = (gs >= f["outage_poa_wm2"]) & np.isfinite(ps)
+    unavail = base & unavailable_mask(ps, gs, pmax_s, f["outage_fraction"],
+                                      f["outage_poa_wm2"])
+    t_daylight = _sum_by(ds, taus, base, nd)
+    t_unav = _sum_by(ds, taus, unavail, nd)
+    e_lost = _sum_by(ds, e_exp_k, unavail, nd)
+    e_base = _sum_by(ds, es, base, nd)
+    t_clip = _sum_by(ds, taus, flt.clipping_mask(ps, pmax_s, f["clip_fraction"]), nd)
+
     # a day where e_ref_stc could not cover every PR interval (temperature missing) is partial
-    stc_complete = np.isclose(e_ref_t, e_ref)
-    pr = _div(e_ac_pr, e_ref)
-    pr_stc = np.where(stc_complete, _div(e_ac_pr, e_ref_stc), np.nan)
+    stc_ok = np.isclose(e_ref_t, e_ref) & (n_pr > 0)
     pi = _div(e_ac_valid, e_exp_valid)
-    t_wavg = _div(e_ref_tcell, e_ref_t)
-
-    w_cov = np.where(g_ok, gpos, g_cs if g_cs is not None else 0.0)
-    w_cov = np.where(np.isfinite(w_cov), w_cov, 0.0) * tau
-    cov_base = np.bincount(d, weights=np.where(sun_up, w_cov, 0.0), minlength=nd)
-    cov = _div(np.bincount(d, weights=np.where(valid & sun_up, w_cov, 0.0), minlength=nd), cov_base)
-    dvalid = (cov >= f["min_coverage"]) & np.isfinite(pi)
-
-    base = (g >= f["outage_poa_wm2"]) & np.isfinite(p)
-    unavail = unavailable_mask(p, g, inverter.p_ac_max_kw, f["outage_fraction"], f["outage_poa_wm2"])
-    t_daylight = _sum_by(d, tau, base, nd)
-    t_unav = _sum_by(d, tau, base & unavail, nd)
-    e_lost = _sum_by(d, e_exp_k, base & unavail, nd)
-    avail_t = np.where(t_daylight > 0, 1.0 - _div(t_unav, t_daylight), np.nan)
-    e_base = _sum_by(d, e, base, nd)
-    avail_e = _div(e_base, e_base + e_lost)
-    t_clip = _sum_by(d, tau, flt.clipping_mask(p, inverter.p_ac_max_kw, f["clip_fraction"]), nd)
-
     nr = len(flt.REASONS)
-    counts = np.bincount(d * nr + codes.astype(np.int64), minlength=nd * nr).reshape(nd, nr)
-    modelled = ~np.isfinite(t_mod_meas) & np.isfinite(t_cell)
-    n_mod = np.bincount(d, weights=modelled.astype(float), minlength=nd).astype(int)
-    details = [_details(tuple(c), m) for c, m in zip(counts.tolist(), n_mod.tolist(), strict=True)]
-    nan_if_empty = lambda x, present: np.where(present > 0, x, np.nan)  # noqa: E731
-    n_pr = np.bincount(d, weights=in_pr.astype(float), minlength=nd)
-    out = pd.DataFrame({
-        "day": [_EPOCH_DAY + dt.timedelta(days=int(k)) for k in days],
-        "n_intervals": n_int.astype(int), "n_daylight": n_day.astype(int),
-        "n_valid": n_val.astype(int),
-        "e_ac_kwh": nan_if_empty(e_ac, np.bincount(d, weights=np.isfinite(e), minlength=nd)),
-        "h_poa_kwhm2": nan_if_empty(h_poa, n_pr), "e_ref_kwh": nan_if_empty(e_ref, n_pr),
-        "e_ref_stc_kwh": np.where(stc_complete & (n_pr > 0), e_ref_stc, np.nan),
-        "e_ref_tcell_kwhc": np.where(stc_complete & (n_pr > 0), e_ref_tcell, np.nan),
+    counts = np.bincount(d * nr + codes, minlength=nd * nr).reshape(nd, nr)
+    return pd.DataFrame({
+        "inverter_no": group_inv,
+        "day": [_EPOCH_DAY + dt.timedelta(days=x) for x in days.tolist()],
+        "n_intervals": n_int.astype(np.int64), "n_daylight": n_day.astype(np.int64),
+        "n_valid": n_val.astype(np.int64),
+        "e_ac_kwh": np.where(n_e > 0, e_ac, np.nan),
+        "h_poa_kwhm2": np.where(n_pr > 0, h_poa, np.nan),
+        "e_ref_kwh": np.where(n_pr > 0, e_ref, np.nan),
+        "e_ref_stc_kwh": np.where(stc_ok, e_ref_stc, np.nan),
+        "e_ref_tcell_kwhc": np.where(stc_ok, e_ref_tcell, np.nan),
         "e_exp_kwh": e_exp, "e_ac_valid_kwh": e_ac_valid, "e_exp_valid_kwh": e_exp_valid,
-        "pr": pr, "pr_stc": pr_stc, "pi": pi, "t_cell_wavg_c": t_wavg, "coverage": cov,
-        "day_valid": dvalid, "t_daylight_h": t_daylight, "t_unavailable_h": t_unav,
-        "e_lost_kwh": e_lost, "avail_time": avail_t, "avail_energy": avail_e,
-        "t_clipped_h": t_clip, "details_json": details,
-        "e_ac_pr_kwh": nan_if_empty(e_ac_pr, n_pr),
-    })
-    return out[list(DAILY_COLUMNS)]
+        "pr": _div(e_ac_pr, e_ref), "pr_stc": np.where(stc_ok, _div(e_ac_pr, e_ref_stc), np.nan),
+        "pi": pi, "t_cell_wavg_c": _div(e_ref_tcell, e_ref_t), "coverage": cov,
+        "day_valid": (cov >= f["min_coverage"]) & np.isfinite(pi),
+        "t_daylight_h": t_daylight, "t_unavailable_h": t_unav, "e_lost_kwh": e_lost,
+        "avail_time": np.where(t_daylight > 0, 1.0 - _div(t_unav, t_daylight), np.nan),
+        "avail_energy": _div(e_base, e_base + e_lost), "t_clipped_h": t_clip,
+        "details_json": [_details(tuple(c), m) for c, m in zip(counts.tolist(), n_mod.tolist(),
+                                                                 strict=True)],
+        "e_ac_pr_kwh": np.where(n_pr > 0, e_ac_pr, np.nan),
+    }, columns=["inverter_no", *DAILY_COLUMNS])

@@ -94,6 +94,10 @@ def _as_daily(pi: pd.Series) -> pd.Series:
     """``pi`` with a daily DatetimeIndex (dates accepted), sorted, NaN removed."""
     if not isinstance(pi, pd.Series):
         raise ValueError("pi must be a pandas Series indexed by day")
+    idx = pi.index
+    if (isinstance(idx, pd.DatetimeIndex) and idx.tz is None and idx.is_monotonic_increasing
+            and idx.is_unique and not (idx.as_unit("s").asi8 % 86400).any()):
+        return pi.astype(float).dropna()  # fast path: already midnight days, sorted, unique
     s = pi.astype(float).copy()
     s.index = pd.DatetimeIndex(pd.to_datetime(s.index)).normalize()
     if s.index.tz is not None:
@@ -258,16 +262,17 @@ def block_bootstrap(x, stat=np.median, *, n_resamples: int = 1000, block_length:
     b = max(1, min(b, n))
     gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
     n_blocks = -(-n // b)
-    starts = gen.integers(0, n - b + 1, size=(n_resamples, n_blocks), dtype=np.int32)
-    idx = (starts[:, :, None] + np.arange(b, dtype=np.int32)).reshape(n_resamples, -1)[:, :n]
+    starts = gen.integers(0, n - b + 1, size=(n_resamples, n_blocks))
     if stat is not np.median:
+        idx = (starts[:, :, None] + np.arange(b)).reshape(n_resamples, -1)[:, :n]
         return stat(x[idx], axis=1), b
-    # median on ranks: partitioning small integers is faster than floats; exact.
+    # median on ranks: gathering and partitioning small integers is faster than floats; exact.
     order = np.argsort(x, kind="stable")
     xs = x[order]
     rank = np.empty(n, dtype=np.int16 if n < 32_000 else np.int32)
     rank[order] = np.arange(n)
-    r = rank[idx]
+    windows = np.lib.stride_tricks.sliding_window_view(rank, b)  # row s = block starting at s
+    r = windows[starts].reshape(n_resamples, -1)[:, :n]
     k = n // 2
     if n % 2:
         return xs[np.partition(r, k, axis=1)[:, k]], b

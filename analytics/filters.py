@@ -210,7 +210,7 @@ def clipping_mask(p_ac_kw, p_ac_max_kw: float, clip_fraction: float = 0.98):
     return _mask_like(_arr(p_ac_kw) >= clip_fraction * p_ac_max_kw, p_ac_kw)
 
 
-def stuck_mask(x, min_samples: int = 4, tol: float = 1.5):
+def stuck_mask(x, min_samples: int = 4, tol: float = 1.5, run_breaks=None):
     """True for samples inside a flat line: >= ``min_samples`` consecutive samples whose
     successive differences are all below ``tol`` (METHODS §5). NaN breaks a run.
 
@@ -220,9 +220,12 @@ def stuck_mask(x, min_samples: int = 4, tol: float = 1.5):
         Samples in time order (set excluded samples, e.g. night, to NaN first).
     min_samples : int, default 4
         Run length that counts as stuck (4 = one hour of 15-min data). [samples]
-    tol : float
-        Largest |Δx| that counts as "no change", in the unit of x (0.1 % of span: 1.5 W/m²
+    tol : float or array like x
+        Largest |Δx| that counts as "no change" (an array: the value at the later sample), in the unit of x (0.1 % of span: 1.5 W/m²
         for a 0-1500 W/m² sensor).
+    run_breaks : bool array or None
+        True where a sample starts a new stretch (e.g. the first daytime sample after a
+        night that was cut out): no run continues across it.
 
     Examples
     --------
@@ -230,7 +233,10 @@ def stuck_mask(x, min_samples: int = 4, tol: float = 1.5):
     [False, True, True, True, True, False]
     """
     a = _arr(x).ravel()
-    flat = np.abs(np.diff(a)) < tol  # NaN -> False
+    tol_a = np.asarray(tol, dtype=float)
+    flat = np.abs(np.diff(a)) < (tol_a.ravel()[1:] if tol_a.ndim else tol_a)  # NaN -> False
+    if run_breaks is not None and a.size > 1:
+        flat &= ~np.asarray(run_breaks, dtype=bool).ravel()[1:]
     m = np.zeros(a.shape, dtype=bool)
     if flat.any():
         edges = np.diff(np.concatenate(([0], flat.astype(np.int8), [0])))
@@ -244,7 +250,7 @@ def stuck_mask(x, min_samples: int = 4, tol: float = 1.5):
 
 
 def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_elevation_deg=None,
-                       t_amb_c=None, wind_ms=None, filters: dict | None = None):
+                       t_amb_c=None, wind_ms=None, filters: dict | None = None, run_breaks=None):
     """Reason code of each interval (index into :data:`REASONS`; 0 = valid), first failing wins.
 
     Parameters
@@ -259,6 +265,8 @@ def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_e
         Checked for range only when given (they are not needed inputs). [°C], [m/s]
     filters : dict or None
         Overrides of :data:`DEFAULT_FILTERS`.
+    run_breaks : bool array or None
+        Passed to :func:`stuck_mask` (where the samples given are not contiguous in time).
 
     Returns
     -------
@@ -299,9 +307,11 @@ def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_e
     g_span = f["poa_range_max_wm2"] - f["poa_range_min_wm2"]
     p_span = (f["p_ac_max_fraction"] - f["p_ac_min_fraction"]) * p_ac_max_kw
     k = int(f["stuck_samples"])
-    stuck = (stuck_mask(np.where(day, g, np.nan), k, f["stuck_rel_tol"] * g_span)
-             | stuck_mask(np.where(day, p, np.nan), k, f["stuck_rel_tol"] * p_span)
-             | stuck_mask(np.where(day, t, np.nan), int(f["stuck_t_samples"]), f["stuck_t_tol_c"]))
+    rb = run_breaks
+    stuck = (stuck_mask(np.where(day, g, np.nan), k, f["stuck_rel_tol"] * g_span, rb)
+             | stuck_mask(np.where(day, p, np.nan), k, f["stuck_rel_tol"] * p_span, rb)
+             | stuck_mask(np.where(day, t, np.nan), int(f["stuck_t_samples"]), f["stuck_t_tol_c"],
+                          rb))
     assign(stuck, STUCK)
     assign(g < f["poa_min_wm2"], LOW_IRR)
     assign(g > f["poa_max_wm2"], HIGH_IRR)

@@ -97,7 +97,7 @@ def outage_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str,
                  p_ac_exp_kw: pd.Series | None = None, min_poa_wm2: float = 50.0,
                  max_frac: float = 0.01, min_duration_h: float = 0.5,
                  warning_h: float = 1.0, alarm_h: float = 4.0,
-                 std_offset_s: int = 0) -> pd.DataFrame:
+                 std_offset_s: int = 0, sun_up=None) -> pd.DataFrame:
     """Outage events of one inverter from its interval frame.
 
     Parameters
@@ -118,6 +118,9 @@ def outage_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str,
         covers every daylight interval of a day is an 'alarm' too. [h]
     std_offset_s : int
         Site standard UTC offset, to count whole local days. [s]
+    sun_up : array-like of bool, optional
+        Solar elevation > 0 on the same rows: irradiance readings while the sun is down
+        are a sensor fault (see ``sensor_night``/``sensor_flatline``), not outage evidence.
 
     Returns
     -------
@@ -129,6 +132,8 @@ def outage_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str,
     p = frame["p_ac_kw"].to_numpy(float)
     g = frame["poa_wm2"].to_numpy(float)
     tau = frame["interval_h"].to_numpy(float)
+    if sun_up is not None:
+        g = np.where(np.asarray(sun_up, dtype=bool), g, np.nan)
     out = outage_mask(p, g, p_ac_max_kw, min_poa_wm2=min_poa_wm2, max_frac=max_frac)
     with np.errstate(invalid="ignore"):
         running = (g >= min_poa_wm2) & (p > max_frac * p_ac_max_kw)
@@ -189,20 +194,21 @@ def clipping_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str,
         return flag_frame([])
     ts = epoch_s(frame.index)[clip]
     tau = frame["interval_h"].to_numpy(float)[clip]
-    local = pd.to_datetime(ts + int(std_offset_s), unit="s")
-    df = pd.DataFrame({"ts": ts, "tau": tau, "month": local.to_period("M"),
-                       "day": local.normalize()})
+    local = (ts + int(std_offset_s)).astype("datetime64[s]")
+    month = local.astype("datetime64[M]")
+    day = local.astype("datetime64[D]")
     records = []
-    for month, grp in df.groupby("month", sort=True):
-        hours = float(grp["tau"].sum())
+    bounds = np.flatnonzero(np.diff(month.astype("int64"))) + 1  # ts sorted: months contiguous
+    for sl in np.split(np.arange(ts.size), bounds):
+        hours = float(np.nansum(tau[sl]))
         if hours < min_hours:
             continue
         records.append(dict(
-            device_id=device_id, kind="clipping", start_s=int(grp["ts"].min()),
-            end_s=int(grp["ts"].max() + round(grp["tau"].iloc[-1] * 3600)), severity="info",
+            device_id=device_id, kind="clipping", start_s=int(ts[sl[0]]),
+            end_s=int(ts[sl[-1]] + round(tau[sl[-1]] * 3600)), severity="info",
             lost_kwh=np.nan,
-            details=dict(month=str(month), clipped_hours=hours,
-                         n_days=int(grp["day"].nunique()),
+            details=dict(month=str(month[sl[0]]), clipped_hours=hours,
+                         n_days=int(np.unique(day[sl]).size),
                          rule=f"P_ac >= {frac:g} x {p_ac_max_kw:g} kW (METHODS §5)",
                          note="power held at the inverter's AC limit: normal design "
                               "behaviour, not a fault; these intervals are excluded from "

@@ -39,20 +39,32 @@ MEAN_AD_TO_SIGMA = 1.253314
 
 def flag_frame(records: list[dict]) -> pd.DataFrame:
     """Build a flag frame (columns :data:`FLAG_COLUMNS`) from a list of dicts."""
-    df = pd.DataFrame.from_records(records, columns=list(FLAG_COLUMNS))
-    df["start_s"] = df["start_s"].astype("int64")
-    df["end_s"] = df["end_s"].astype("int64")
-    df["lost_kwh"] = df["lost_kwh"].astype("float64")
-    df["device_id"] = df["device_id"].astype(object)
-    return df
+    if not records:
+        return _EMPTY_FLAGS.copy()
+    cols = {c: [r.get(c) for r in records] for c in FLAG_COLUMNS}
+    return pd.DataFrame({
+        "device_id": pd.Series(cols["device_id"], dtype=object),
+        "kind": pd.Series(cols["kind"], dtype=object),
+        "start_s": np.asarray(cols["start_s"], dtype="int64"),
+        "end_s": np.asarray(cols["end_s"], dtype="int64"),
+        "severity": pd.Series(cols["severity"], dtype=object),
+        "lost_kwh": np.asarray([np.nan if v is None else v for v in cols["lost_kwh"]],
+                               dtype="float64"),
+        "details": pd.Series(cols["details"], dtype=object)})
+
+
+_EMPTY_FLAGS = pd.DataFrame({
+    "device_id": pd.Series([], dtype=object), "kind": pd.Series([], dtype=object),
+    "start_s": np.zeros(0, dtype="int64"), "end_s": np.zeros(0, dtype="int64"),
+    "severity": pd.Series([], dtype=object), "lost_kwh": np.zeros(0),
+    "details": pd.Series([], dtype=object)})
 
 
 def epoch_s(index) -> np.ndarray:
     """Integer UTC epoch seconds of a DatetimeIndex, whatever its resolution (s, ms, us, ns)."""
-    idx = pd.DatetimeIndex(index)
-    if idx.tz is not None:
-        idx = idx.tz_convert("UTC").tz_localize(None)
-    return idx.values.astype("datetime64[s]").astype("int64")
+    idx = index if isinstance(index, pd.DatetimeIndex) else pd.DatetimeIndex(index)
+    per_s = {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[idx.unit]
+    return idx.asi8 // per_s  # asi8 counts from the UTC epoch, also for tz-aware
 
 
 def day_start_s(days, std_offset_s: int = 0) -> np.ndarray:

@@ -122,8 +122,10 @@ def flatline_mask(x, daytime, *, min_run: int = 4, abs_tol: float | None = None,
     daytime : array-like of bool
         The sun is up and moving (e.g. elevation > 10°).
     abs_tol : float, optional
-        |Δx| below this counts as "no change" (temperature: 0.05 °C). Default:
-        ``rel_tol`` × span, span = 99th − 1st percentile of x (METHODS §5: 0.1 %).
+        |Δx| at or below this counts as "no change" (temperature: 0.05 °C). Default:
+        ``rel_tol`` × min(span, |x|), span = 99th − 1st percentile of x (METHODS §5:
+        0.1 % of span); the |x| cap keeps a dim overcast sky, which drifts by a fraction
+        of a W/m² per interval, from looking stuck.
     exclude : array-like of bool, optional
         Samples that may legitimately be flat (clipping, outage) and break runs.
     sun_ref : array-like, optional
@@ -141,9 +143,12 @@ def flatline_mask(x, daytime, *, min_run: int = 4, abs_tol: float | None = None,
     if abs_tol is None:
         fin = a[np.isfinite(a)]
         span = np.subtract(*np.percentile(fin, [99, 1])) if fin.size else 0.0
-        abs_tol = rel_tol * span
+        level = np.fmin(np.abs(a[1:]), np.abs(a[:-1]))
+        tol = rel_tol * np.fmin(span, level)
+    else:
+        tol = abs_tol
     with np.errstate(invalid="ignore"):
-        same = np.abs(np.diff(a)) < abs_tol  # same[k]: a[k+1] equals a[k]
+        same = np.abs(np.diff(a)) <= tol  # same[k]: a[k+1] equals a[k]
     ok = day & np.isfinite(a)
     if exclude is not None:
         ok &= ~np.asarray(exclude, dtype=bool)
@@ -167,9 +172,13 @@ def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
     """Flatline events; 'alarm' when the stuck run lasts more than a day (METHODS §5)."""
     temp = quantity in ("t_module_c", "t_amb_c")
     if min_run is None:
-        min_run = 8 if temp else 4
+        # METHODS §5: 4 samples for G and P, 8 for temperatures; wind is logged to 0.1 m/s
+        # and repeats in calm spells, so 12 exact repeats (3 h of 15-min data; common practice)
+        min_run = 8 if temp else 12 if quantity == "wind_ms" else 4
     if abs_tol is None and temp:
         abs_tol = 0.05
+    if abs_tol is None and quantity == "wind_ms":
+        abs_tol = 0.0
     m = flatline_mask(x.to_numpy(float), daytime, min_run=min_run, abs_tol=abs_tol,
                       exclude=exclude, sun_ref=sun_ref)
     v = x.to_numpy(float)
@@ -217,22 +226,22 @@ def dropout_flags(x: pd.Series, daytime: pd.Series, *, device_id: str, quantity:
     return flag_frame(recs)
 
 
-def night_irradiance_flags(g: pd.Series, sun_elevation_deg, *, device_id: str,
+def night_irradiance_flags(g: pd.Series, solar_elevation_deg, *, device_id: str,
                            quantity: str = "poa_wm2", tau_s: int = 900,
                            max_night_wm2: float = 5.0, night_elev_deg: float = -3.0,
                            min_samples: int = 2) -> pd.DataFrame:
     """Irradiance above ``max_night_wm2`` while the sun is below ``night_elev_deg``.
 
     METHODS §5 takes G < 5 W/m² as night; −3° keeps twilight out. Events within a night
-    merge, consecutive nights merge too (18 h gap); nights with fewer than ``min_samples``
+    merge, consecutive nights merge too (36 h gap); nights with fewer than ``min_samples``
     such samples are ignored (a passing headlight).
     """
     a = g.to_numpy(float)
-    el = np.asarray(sun_elevation_deg, dtype=float)
+    el = np.asarray(solar_elevation_deg, dtype=float)
     with np.errstate(invalid="ignore"):
         m = (el < night_elev_deg) & (a >= max_night_wm2)
     recs = _events(
-        m, g.index, tau_s, device_id=device_id, kind="sensor_night", merge_gap_s=18 * 3600,
+        m, g.index, tau_s, device_id=device_id, kind="sensor_night", merge_gap_s=36 * 3600,
         min_count=min_samples,
         severity_fn=lambda n, dur: "warning",
         details_fn=lambda i, j, n: dict(

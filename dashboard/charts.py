@@ -333,8 +333,9 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
                            showarrow=False, xanchor="left", yanchor="bottom",
                            font=dict(size=10, color=theme.OKABE_ITO["vermillion"]))
     fig.update_layout(template=TEMPLATE, height=860, hovermode="x unified",
-                      legend=dict(orientation="h", y=-0.07, yanchor="top"),
-                      margin=dict(t=40))
+                      legend=dict(orientation="h", y=1.005, yanchor="bottom", x=0,
+                                  font=dict(size=11)),
+                      margin=dict(t=70))
     fig.update_yaxes(title_text="AC power [kW]", row=1, col=1)
     fig.update_yaxes(title_text="Power per kWp [kW/kWp]", row=2, col=1)
     fig.update_yaxes(title_text="POA [W/m²]", row=3, col=1)

@@ -25,13 +25,12 @@ import pandas as pd
 import sqlalchemy as sa
 import streamlit as st
 
-from analytics.availability import availability_energy
 from analytics.degradation import RateResult, compare_methods
 from analytics.performance_ratio import period_sums as monthly_sums
-from analytics.performance_ratio import pr_from_sums, pr_stc_from_sums
 from analytics.power import expected_ac_power
 from analytics.temperature import cell_temperature_from_module, sapm_parameters
 from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
+from analytics.weekly import period_kpis, weekly_comparison
 from db import ingest_log as db_ingest_log
 from db import queries
 from db import timeseries as db_timeseries
@@ -147,27 +146,6 @@ def week_of(end: dt.date) -> tuple[dt.date, dt.date]:
 # ---------------------------------------------------------------- weekly check
 
 
-def period_kpis(sums: pd.DataFrame) -> pd.DataFrame:
-    """KPIs of a period from :func:`db.queries.period_sums` (ratio of sums, IEC 61724-1).
-
-    ``pr_stc`` = Σ E_ac / Σ E_ref,STC over valid days; ``avail_energy`` =
-    E / (E + E_lost); ``avail_time`` = 1 − t_unavailable / t_daylight (METHODS §5).
-    """
-    out = sums[["device_id"]].copy() if "device_id" in sums else pd.DataFrame(index=sums.index)
-    num = sums["e_ac_pr_kwh"].astype(float)
-    out["pr_stc"] = pr_stc_from_sums(num, sums["e_ref_stc_kwh"].astype(float))
-    out["pr"] = pr_from_sums(num, sums["e_ref_kwh"].astype(float))
-    e = sums["e_ac_kwh"].astype(float)
-    out["avail_energy"] = availability_energy(e, sums["e_lost_kwh"].astype(float).fillna(0.0))
-    td = sums["t_daylight_h"].astype(float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out["avail_time"] = (1 - sums["t_unavailable_h"].astype(float).fillna(0.0) / td).where(
-            td > 0)
-    out["e_ac_kwh"] = sums["e_ac_kwh"].astype(float)
-    out["n_days_valid"] = sums["n_days_valid"].astype("Int64")
-    return out
-
-
 @_cache
 def fleet_week(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
     """One row per inverter for the week ending ``end``.
@@ -180,16 +158,9 @@ def fleet_week(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
     w0, w1 = week_of(end)
     t1 = w0 - dt.timedelta(days=1)
     t0 = w0 - dt.timedelta(days=7 * TRAILING_WEEKS)
-    inv = inverter_list(url, site_id)[["device_id", "peer_group", "p_dc_kwp"]]
-    week = period_kpis(queries.period_sums(eng, site_id, w0, w1))
-    trail = period_kpis(queries.period_sums(eng, site_id, t0, t1))
-    out = inv.merge(week, on="device_id", how="left").merge(
-        trail[["device_id", "pr_stc"]].rename(columns={"pr_stc": "pr_stc_trailing"}),
-        on="device_id", how="left")
-    out["yf_h"] = out["e_ac_kwh"] / out["p_dc_kwp"]
-    out["d_trailing_pct"] = 100 * (out["pr_stc"] / out["pr_stc_trailing"] - 1)
-    out["pr_stc_peers"] = out.groupby("peer_group")["pr_stc"].transform("median")
-    out["d_peers_pct"] = 100 * (out["pr_stc"] / out["pr_stc_peers"] - 1)
+    out = weekly_comparison(queries.period_sums(eng, site_id, w0, w1),
+                            queries.period_sums(eng, site_id, t0, t1),
+                            inverter_list(url, site_id))
     info = site_info(url, site_id)
     fl = queries.flags_overlapping(eng, site_id, day_to_s(w0, info["std_offset_s"]),
                                    day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"]))
@@ -384,10 +355,25 @@ def flagged_days(chosen: pd.DataFrame, flags: pd.DataFrame, std_offset_s: int) -
 # ---------------------------------------------------------------- degradation
 
 
+#: The degradation job stores one extra row per device, method "summary": the headline
+#: rate plus, in ``details``, the method comparison and the warranty screening.
+SUMMARY_METHOD = "summary"
+
+
 @_cache
 def degradation_table(url: str, site_id: str) -> pd.DataFrame:
     """Every degradation result of the site (one row per device and method), details parsed."""
     return queries.degradation_rows(engine(url), site_id)
+
+
+def rates_only(results: pd.DataFrame) -> pd.DataFrame:
+    """The per-method rows (without the job's "summary" rows)."""
+    return results[results["method"] != SUMMARY_METHOD].reset_index(drop=True)
+
+
+def summary_details(results: pd.DataFrame, device_id: str) -> dict:
+    r = results[(results["device_id"] == device_id) & (results["method"] == SUMMARY_METHOD)]
+    return (r["details"].iloc[0] or {}) if not r.empty else {}
 
 
 def method_agreement(results: pd.DataFrame) -> pd.DataFrame:
@@ -395,7 +381,15 @@ def method_agreement(results: pd.DataFrame) -> pd.DataFrame:
     rates (methods agree when their intervals overlap). Columns ``device_id, agree,
     compared, disagreements, warnings``; ``agree`` is None with fewer than two intervals."""
     rows = []
-    for dev, g in results.groupby("device_id", sort=True):
+    for dev, g in rates_only(results).groupby("device_id", sort=True):
+        stored = summary_details(results, dev).get("comparison")
+        if stored is not None:  # the verdict the degradation job stored
+            rows.append({"device_id": dev, "agree": stored.get("agree"),
+                         "compared": ", ".join(stored.get("compared", [])),
+                         "disagreements": "; ".join(" vs ".join(p) for p in
+                                                    stored.get("disagreements", [])),
+                         "warnings": " ".join(stored.get("warnings", []))})
+            continue
         rr = {r.method: RateResult(method=r.method, rate_pct_per_yr=_num(r.rate_pct_per_yr),
                                    ci_low=_num(r.ci_low), ci_high=_num(r.ci_high),
                                    confidence=_num(r.confidence))
@@ -459,8 +453,11 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
     rate interval), ``monthly`` (years, relative_pct), ``shortfall_kwh``, ``months_below``,
     ``test`` and ``terms``; None without warranty terms or a rate.
     """
-    terms = warranty_terms(url, site_id)
     res = degradation_table(url, site_id)
+    stored = summary_details(res, device_id).get("warranty") or {}
+    if stored.get("envelope") and stored.get("method") == method:
+        return _stored_warranty(stored, res, device_id)
+    terms = warranty_terms(url, site_id)
     r = res[(res["device_id"] == device_id) & (res["method"] == method)]
     if terms is None or r.empty or pd.isna(r["rate_pct_per_yr"].iloc[0]):
         return None
@@ -503,6 +500,32 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
                         if not months.empty else months),
             "shortfall_kwh": env["shortfall_kwh"], "months_below": env["months_below"],
             "test": test}
+
+
+def _stored_warranty(w: dict, res: pd.DataFrame, device_id: str) -> dict:
+    """The warranty block the degradation job stored, as frames for the chart."""
+    terms = dict(w["terms"])
+    r = res[(res["device_id"] == device_id) & (res["method"] == w["method"])].iloc[0]
+    rate = float(r["rate_pct_per_yr"])
+    lo = _num(r["ci_low"]) if _num(r["ci_low"]) is not None else rate
+    hi = _num(r["ci_high"]) if _num(r["ci_high"]) is not None else rate
+    months = pd.DataFrame(w["envelope"])
+    years = np.linspace(0, terms["years"], 4 * int(terms["years"]) + 1)
+    wf = warranted_fraction(years, first_year_loss_pct=terms["first_year_loss_pct"],
+                            annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"])
+    y_last = float(months["years"].max()) if not months.empty else 1.0
+    ym = np.linspace(0, max(y_last, 0.1), 60)
+    return {"terms": terms, "rate": rate, "ci": (lo, hi), "method": w["method"],
+            "envelope": pd.DataFrame({"years": years, "warranted_pct": 100 * np.asarray(wf)}),
+            "measured": pd.DataFrame({"years": ym, "index_pct": 100 * (1 + rate * ym / 100),
+                                      "lo_pct": 100 * (1 + lo * ym / 100),
+                                      "hi_pct": 100 * (1 + hi * ym / 100)}),
+            "monthly": (months.assign(relative_pct=100 * months["relative"])
+                        if not months.empty else months),
+            "shortfall_kwh": w.get("shortfall_kwh"), "months_below": w.get("months_below"),
+            "test": {k: w[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
+                                       "warranted_rate_pct_per_yr") if k in w}
+            if "exceeds" in w else None}
 
 
 # ---------------------------------------------------------------- drill-down

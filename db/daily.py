@@ -30,7 +30,7 @@ def _device_pks(conn: sa.Connection, site_id: str) -> dict[str, int]:
 
 
 def _records(rows: pd.DataFrame, pks: dict[str, int], computation_id: int | None,
-             iso_days: bool) -> list[tuple]:
+             iso_days: bool, nan_ok: bool = False) -> list[tuple]:
     cols = ["device_pk", "day", *VALUE_COLUMNS, "computation_id"]
     n = len(rows)
     data: dict[str, list] = {"device_pk": [pks[d] for d in rows["device_id"].tolist()],
@@ -44,10 +44,13 @@ def _records(rows: pd.DataFrame, pks: dict[str, int], computation_id: int | None
         elif c == "details_json":
             data[c] = [None if x is None or (isinstance(x, float) and np.isnan(x)) else str(x)
                        for x in rows[c].tolist()]
+        elif c in _INT_COLUMNS:
+            data[c] = rows[c].to_numpy(dtype=np.int64).tolist()
+        elif nan_ok:  # SQLite stores a bound NaN as NULL (sqlite3_bind_double), no per-value test
+            data[c] = rows[c].to_numpy(dtype=float, na_value=np.nan).tolist()
         else:
             a = rows[c].to_numpy(dtype=float, na_value=np.nan)
-            vals = a.tolist()
-            data[c] = [None if v != v else (int(v) if c in _INT_COLUMNS else v) for v in vals]
+            data[c] = [None if v != v else v for v in a.tolist()]
     return list(zip(*(data[c] for c in cols), strict=True))
 
 
@@ -85,7 +88,7 @@ def write_daily(engine_or_conn: sa.Engine | sa.Connection, site_id: str, rows: p
     if not len(rows):
         return 0
     if is_sqlite(conn.engine):
-        recs = _records(rows, pks, computation_id, iso_days=True)
+        recs = _records(rows, pks, computation_id, iso_days=True, nan_ok=True)
         cols = ["device_pk", "day", *VALUE_COLUMNS, "computation_id"]
         sql = (f"INSERT INTO daily_inverter ({', '.join(cols)}) "
                f"VALUES ({', '.join('?' * len(cols))})")

@@ -18,6 +18,8 @@ Conventions:
 from __future__ import annotations
 
 import itertools
+import queue
+import threading
 from collections.abc import Iterable, Iterator
 
 import numpy as np
@@ -174,15 +176,59 @@ def _assemble(channels: dict, inv: dict, read, binned: dict) -> pd.DataFrame:
     return pd.DataFrame(cols, index=_to_index(ts))[list(INVERTER_FRAME_COLUMNS)]
 
 
+def _prefetched(engine: sa.Engine, site_id: str, start_s, end_s, inverter_ids,
+                depth: int = 2) -> Iterator[tuple[dict, pd.DataFrame]]:
+    """Run :func:`inverter_frames` in a reader thread with its own connection, ``depth``
+    frames ahead, so reading the store (mostly in SQLite, outside the GIL) overlaps the
+    caller's computing."""
+    q: queue.Queue = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+    done = object()
+
+    def produce():
+        try:
+            with engine.connect() as conn:
+                for item in inverter_frames(conn, site_id, start_s, end_s, inverter_ids):
+                    while not stop.is_set():
+                        try:
+                            q.put(item, timeout=0.2)
+                            break
+                        except queue.Full:
+                            continue
+                    if stop.is_set():
+                        return
+            q.put(done)
+        except BaseException as exc:  # noqa: BLE001 - re-raised in the consumer
+            q.put(exc)
+
+    th = threading.Thread(target=produce, name="heliaudit-reader", daemon=True)
+    th.start()
+    try:
+        while True:
+            item = q.get()
+            if item is done:
+                return
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        th.join()
+
+
 def inverter_frames(engine_or_conn: sa.Engine | sa.Connection, site_id: str,
                     start_s: int | None = None, end_s: int | None = None,
-                    inverter_ids: Iterable[str] | None = None
+                    inverter_ids: Iterable[str] | None = None, *, prefetch: bool = False
                     ) -> Iterator[tuple[dict, pd.DataFrame]]:
     """Yield ``(inverter row as dict, frame)`` for the site's inverters, each sensor read once.
 
     The frame is that of :func:`inverter_frame`. Sensor channels shared by several inverters
-    are read once and kept while the generator runs.
+    are read once and kept while the generator runs. With ``prefetch`` (an Engine only) the
+    frames are read in a background thread while the caller works on the previous one.
     """
+    if prefetch and isinstance(engine_or_conn, sa.Engine):
+        yield from _prefetched(engine_or_conn, site_id, start_s, end_s, inverter_ids)
+        return
     if isinstance(engine_or_conn, sa.Engine):
         with engine_or_conn.connect() as conn:
             yield from inverter_frames(conn, site_id, start_s, end_s, inverter_ids)

@@ -17,9 +17,10 @@ COMMAND_MODULES = (
     "heliaudit.cmd_ingest",  # ingest, summary
     "heliaudit.cmd_demo",  # demo-data
     "heliaudit.cmd_compute",  # compute
+    "heliaudit.cmd_check",  # check
     "heliaudit.cmd_results",  # results
     "heliaudit.cmd_dashboard",  # dashboard
-    "heliaudit.cmd_run_demo",  # try-demo
+    "heliaudit.cmd_run_demo",  # demo
 )
 
 

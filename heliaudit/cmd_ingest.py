@@ -44,11 +44,16 @@ def _note_lines(r: BatchResult) -> list[str]:
     for day, k in n.get("dst_repeated_hour", {}).items():
         out.append(f"DST {day}: repeated hour ({k['rule']}): {k.get('summer', 0)} rows as summer "
                    f"time, {k.get('standard', 0)} as standard time, {k.get('rejected', 0)} rejected")
-    for dev, ev in n.get("counters", {}).items():
-        parts = [f"{v['count']} {name}" for name, v in ev.items() if isinstance(v, dict)]
-        if ev.get("gaps_not_assigned"):
-            parts.append(f"{ev['gaps_not_assigned']} gaps not assigned")
-        out.append(f"energy counter {dev}: {', '.join(parts)}")
+    counters = n.get("counters", {})
+    if counters:  # one line for all counters: totals, and the devices with resets
+        tot = {k: sum(ev.get(k, {}).get("count", 0) for ev in counters.values())
+               for k in ("resets", "rollovers", "jumps")}
+        gaps = sum(ev.get("gaps_not_assigned", 0) for ev in counters.values())
+        reset_devs = sorted(d for d, ev in counters.items() if ev.get("resets"))
+        out.append(f"energy counters of {len(counters)} inverters: {tot['resets']} resets"
+                   + (f" ({', '.join(reset_devs[:8])})" if reset_devs else "")
+                   + f", {tot['rollovers']} rollovers, {tot['jumps']} jumps, {gaps} gaps "
+                   "(no interval energy assigned across a reset, jump or gap)")
     if n.get("configured_columns_missing"):
         out.append("configured columns not in this file: "
                    + ", ".join(n["configured_columns_missing"][:10]))

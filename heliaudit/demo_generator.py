@@ -67,6 +67,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 from scipy.signal import lfilter
+from scipy.special import ndtri
 
 GENERATOR_VERSION = "1.0"
 
@@ -194,12 +195,17 @@ def quillpond_scenario(n_inverters: int = 14, start: dt.date = dt.date(2022, 1, 
         raise ValueError(f"interval_min must be one of 1, 5, 10, 15, 30, 60; got {interval_min}")
     rng = np.random.default_rng([seed, 1])  # inverter parameters, independent of weather draws
     half = (n_inverters + 1) // 2
+    width = max(2, len(str(n_inverters)))
+
+    def name(k: int) -> str:  # inverter number k (1-based) -> id: INV-05, or INV-005 in big fleets
+        return f"INV-{k:0{width}d}"
+
     invs = []
     for k in range(n_inverters):
         block_a = k < half
         p_dc = float(np.round(330 + 50 * rng.random(), 1))  # 330..380 kWp, ratio 1.10..1.27
         invs.append(InverterSpec(
-            id=f"INV-{k + 1:02d}" if n_inverters < 100 else f"INV-{k + 1:03d}",
+            id=name(k + 1),
             p_dc_kwp=p_dc, p_ac_max_kw=300.0,
             gamma_pmp_per_c=-0.0037 if block_a else -0.0030,
             mounting="open_rack_glass_polymer" if block_a else "open_rack_glass_glass",
@@ -219,23 +225,23 @@ def quillpond_scenario(n_inverters: int = 14, start: dt.date = dt.date(2022, 1, 
         return t0 <= a and (b or a) < t1
 
     outages = [
-        Outage(("INV-03",), _dt("2022-08-09 00:00"), _dt("2022-08-10 00:00"), "whole_day",
+        Outage((name(3),), _dt("2022-08-09 00:00"), _dt("2022-08-10 00:00"), "whole_day",
                "inverter tripped on an insulation fault; reset next morning"),
-        Outage(("INV-12",), _dt("2022-11-14 09:00"), _dt("2022-11-14 12:30"), "partial_day",
+        Outage((name(12),), _dt("2022-11-14 09:00"), _dt("2022-11-14 12:30"), "partial_day",
                "AC breaker tripped; reset by the site technician"),
-        Outage(("INV-11",), _dt("2023-03-02 00:00"), _dt("2023-03-05 00:00"), "whole_day",
+        Outage((name(11),), _dt("2023-03-02 00:00"), _dt("2023-03-05 00:00"), "whole_day",
                "three days off: power module replaced"),
         Outage(tuple(i.id for i in invs), _dt("2024-07-29 13:00"), _dt("2024-07-29 14:30"),
                "partial_day", "grid outage: every inverter off (utility feeder trip)"),
-        Outage(("INV-09",), _dt("2024-05-21 11:15"), _dt("2024-05-21 15:45"), "partial_day",
+        Outage((name(9),), _dt("2024-05-21 11:15"), _dt("2024-05-21 15:45"), "partial_day",
                "over-temperature derate to zero; fan replaced"),
-        Outage(("INV-01",), _dt("2025-04-16 07:30"), _dt("2025-04-16 10:00"), "partial_day",
+        Outage((name(1),), _dt("2025-04-16 07:30"), _dt("2025-04-16 10:00"), "partial_day",
                "firmware update"),
     ]
     outages = [replace(o, inverters=tuple(i for i in o.inverters if i in ids)) for o in outages]
     outages = [o for o in outages if o.inverters and inside(o.start_local, o.end_local)]
     corruptions = [
-        Corruption("non_numeric", _dt("2022-05-17 13:00"), "INV-02 Pac", "ERR"),
+        Corruption("non_numeric", _dt("2022-05-17 13:00"), f"{name(2)} Pac", "ERR"),
         Corruption("truncated", _dt("2023-04-11 12:15")),
         Corruption("non_numeric", _dt("2023-10-05 14:45"), "POA-RC1 Irradiance", "#VALUE!"),
         Corruption("bad_timestamp", _dt("2024-08-21 11:30"), None, "32.08.2024 11:30"),
@@ -243,7 +249,7 @@ def quillpond_scenario(n_inverters: int = 14, start: dt.date = dt.date(2022, 1, 
     ]
     corruptions = [c for c in corruptions if inside(c.label_local)
                    and (c.column is None or c.column.split(" ")[0] in ids | {"POA-RC1"})]
-    sf = ("INV-05", _dt("2023-09-12 10:30"), 0.06)
+    sf = (name(5), _dt("2023-09-12 10:30"), 0.06)
     flat = ("TMOD-B", _dt("2024-04-08 12:00"), _dt("2024-05-06 09:00"))
     clock = (_dt("2024-02-01 00:00"), _dt("2024-03-01 00:00"), 60)
     gaps = [(_dt("2022-06-14 10:00"), _dt("2022-06-14 16:30")),
@@ -331,7 +337,8 @@ def irradiance_from_kc(sky: pd.DataFrame, kc: np.ndarray, tilt_deg: float, azimu
     pyranometer sees), ``poa_eff_wm2`` (what a glass-covered cell or module sees) and ``aoi_deg``.
     """
     kc = np.asarray(kc, dtype=float)
-    cosz = np.clip(np.cos(np.radians(sky["zenith"].to_numpy())), 0.0, None)
+    # apparent (refracted) zenith, as pvlib's Ineichen uses to close GHI = DNI cos z + DHI
+    cosz = np.clip(np.cos(np.radians(sky["apparent_zenith"].to_numpy())), 0.0, None)
     kb = np.clip((kc - 0.3) / 0.7, 0.0, 1.0) ** 1.5
     ghi = kc * sky["ghi_cs"].to_numpy()
     dni = kb * sky["dni_cs"].to_numpy()
@@ -396,8 +403,6 @@ def clear_sky_index(day_idx: np.ndarray, types: np.ndarray, interval_min: int,
     frac = rng.uniform(0.15, 0.75, n_days)
     lvl_cloud = rng.uniform(0.25, 0.50, n_days)
     lvl_over = np.clip(rng.normal(0.30, 0.08, n_days), 0.12, 0.55)
-    from scipy.special import ndtri
-
     t = types[day_idx]
     thr = ndtri(1.0 - frac)[day_idx]
     c = 1.0 / (1.0 + np.exp(-(z - thr) / 0.25))  # cloud cover of the interval, 0..1
@@ -419,7 +424,7 @@ def weather(sc: Scenario, times: pd.DatetimeIndex, sky: pd.DataFrame) -> tuple[p
     rng = np.random.default_rng([sc.seed, 2])
     std = _std_offset(sc.timezone)
     local_std = (times + std).tz_localize(None)
-    day0 = pd.Timestamp(sc.start)
+    day0 = local_std[0].normalize()  # a summer start begins on the previous standard-time day
     day_idx = np.asarray((local_std.normalize() - day0).days, dtype=np.int64)
     days = pd.date_range(day0, periods=int(day_idx.max()) + 1, freq="D")
     types = day_types(days, rng)
@@ -427,7 +432,7 @@ def weather(sc: Scenario, times: pd.DatetimeIndex, sky: pd.DataFrame) -> tuple[p
     irr = irradiance_from_kc(sky, kc, sc.tilt_deg, sc.azimuth_deg, sc.albedo)
 
     # ambient temperature: seasonal (Jan min ~5 °C, Jul max ~25 °C daily mean) + diurnal + noise
-    doy = np.asarray(days.dayofyear, dtype=float)
+    doy = np.asarray(days.day_of_year, dtype=float)
     seasonal = 14.5 - 10.0 * np.cos(2 * np.pi * (doy - 18) / 365.25)
     anomaly = 2.5 * _ar1(len(days), 0.75, rng) + np.array([0.6, 0.0, -1.8])[types]
     amp = np.array([7.5, 5.5, 2.5])[types] * (1 + 0.2 * np.cos(2 * np.pi * (doy - 200) / 365.25))
@@ -494,24 +499,19 @@ def soiling(sc: Scenario, days: np.ndarray, rain_daily_mm: np.ndarray) -> tuple[
     sched = set(sc.scheduled_cleanings)
     cur = 0.0
     for d in range(len(days)):
-        if days[d] in sched:
+        if days[d] in sched:  # done at dawn: the day starts clean
             events.append({"date": days[d].isoformat(), "kind": "scheduled_cleaning",
                            "effect": "full", "loss_before": round(cur, 5)})
             cur = 0.0
         loss[d] = cur
-        if rain_daily_mm[d] >= RAIN_FULL_CLEAN_MM:
-            if cur > 0:
-                events.append({"date": (days[d] + dt.timedelta(days=1)).isoformat(),
-                               "kind": "rain", "rain_mm": round(float(rain_daily_mm[d]), 1),
-                               "effect": "full", "loss_before": round(cur, 5)})
-            cur = 0.0
-        elif rain_daily_mm[d] >= RAIN_PARTIAL_CLEAN_MM:
-            if cur > 0:
-                events.append({"date": (days[d] + dt.timedelta(days=1)).isoformat(),
-                               "kind": "rain", "rain_mm": round(float(rain_daily_mm[d]), 1),
-                               "effect": "partial", "loss_before": round(cur, 5)})
-            cur *= PARTIAL_CLEAN_KEEP
-        cur = min(cur - rate_per_day[d], 0.30)
+        cur = min(cur - rate_per_day[d], 0.30)  # dust settles during the day
+        effect = ("full" if rain_daily_mm[d] >= RAIN_FULL_CLEAN_MM else
+                  "partial" if rain_daily_mm[d] >= RAIN_PARTIAL_CLEAN_MM else None)
+        if effect:  # rain washes the modules: effective from the next day
+            events.append({"date": (days[d] + dt.timedelta(days=1)).isoformat(), "kind": "rain",
+                           "rain_mm": round(float(rain_daily_mm[d]), 1), "effect": effect,
+                           "loss_before": round(cur, 5)})
+            cur = 0.0 if effect == "full" else cur * PARTIAL_CLEAN_KEEP
     return 1.0 - loss, events
 
 
@@ -980,7 +980,7 @@ def truth_dict(sc: Scenario, daily: pd.DataFrame, sr_base: np.ndarray, cleanings
             "multiplier_per_inverter": {i.id: i.soiling_multiplier for i in sc.inverters},
             "scheduled_cleanings": [d.isoformat() for d in sc.scheduled_cleanings],
             "cleaning_events": cleanings,
-            "sr_base_start": sc.start.isoformat(),
+            "sr_base_start": daily.index[0].isoformat(),
             "sr_base_daily": [round(float(x), 5) for x in sr_base],
         },
         "string_failure": None if not sc.string_failure else {

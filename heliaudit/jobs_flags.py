@@ -147,13 +147,17 @@ def _expected_power(frame: pd.DataFrame, inv: dict) -> pd.Series:
 
 
 def _tau_s(index: pd.DatetimeIndex) -> int:
-    ts = epoch_s(index)
+    ts = epoch_s(index[:5000])  # the logging interval: median spacing of the first rows
     return int(np.median(np.diff(ts))) if ts.size > 1 else 900
 
 
 def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_offset_s: int,
-                   site_zone: str, source: tuple[str, str] | None = None) -> list[pd.DataFrame]:
-    """Outage, clipping, clock shift and power-channel QA flags of one inverter."""
+                   site_zone: str, source: tuple[str, str] | None = None,
+                   cache: dict | None = None) -> list[pd.DataFrame]:
+    """Outage, clipping, clock shift and power-channel QA flags of one inverter.
+
+    ``cache`` (a dict kept by the caller) shares the clear-sky centroids between inverters
+    logged on the same timestamps."""
     dev = inv["device_id"]
     if frame.empty:
         return []
@@ -162,7 +166,7 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
     tau_s = _tau_s(frame.index)
     exp = _expected_power(frame, inv)
     out = [outages.outage_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
-                                std_offset_s=std_offset_s),
+                                std_offset_s=std_offset_s, sun_up=(s["elev"] > 0).to_numpy()),
            outages.clipping_flags(frame, p_max, device_id=dev, std_offset_s=std_offset_s)]
     p = frame["p_ac_kw"]
     if p.notna().any():
@@ -174,8 +178,17 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
         out.append(sensor_qa.flatline_flags(p, day, device_id=dev, quantity="p_ac_kw",
                                             tau_s=tau_s, exclude=exclude,
                                             sun_ref=s["poa_cs"].to_numpy()))
-        off = clock.clock_offsets(p, s["poa_cs"], frame["interval_h"].to_numpy(float),
-                                  std_offset_s=std_offset_s)
+        tau_h = frame["interval_h"].to_numpy(float)
+        cs_c = None
+        if cache is not None:  # inverters on the same timestamps share clear-sky centroids
+            ts = epoch_s(frame.index)
+            key = (int(ts[0]), int(ts[-1]), len(ts), float(np.nansum(tau_h)))
+            if key not in cache:
+                cache[key] = clock.daily_centroid_min(s["poa_cs"], tau_h,
+                                                      std_offset_s=std_offset_s)
+            cs_c = cache[key]
+        off = clock.clock_offsets(p, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
+                                  cs_centroid=cs_c)
         out.append(clock.clock_shift_flags(
             off, device_id=dev, std_offset_s=std_offset_s, site_zone=site_zone,
             source_name=source[0] if source else None,
@@ -281,6 +294,50 @@ def sibling_flags(ratios: dict[str, pd.Series], *, std_offset_s: int) -> list[pd
     return out
 
 
+def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataFrame:
+    """One site-wide flag for the same dropout or clock shift on many devices at once.
+
+    A logger that is down, or whose clock is off, shows the same span on every channel it
+    records; ``min_devices`` or more identical ``sensor_dropout`` (same start and end) or
+    ``clock_shift`` (same start, end and correction) flags become one flag with
+    ``device_id`` None and the devices listed in the details.
+    """
+    if flags.empty:
+        return flags
+    keep = ~flags["kind"].isin(["sensor_dropout", "clock_shift"])
+    out = [flags[keep]]
+    rest = flags[~keep].copy()
+    rest["shift"] = [d.get("shift_minutes_correction") for d in rest["details"]]
+    for (_kind, _a, _b, _sh), grp in rest.groupby(["kind", "start_s", "end_s", "shift"],
+                                                  dropna=False, sort=False):
+        if len(grp) < min_devices:
+            out.append(grp.drop(columns="shift"))
+            continue
+        first = grp.iloc[0]
+        devices = sorted(str(d) for d in grp["device_id"])
+        det = dict(first["details"])
+        det["devices"] = devices
+        if first["kind"] == "sensor_dropout":
+            det["quantity"] = sorted({d["quantity"] for d in grp["details"]})
+            det["probable_cause"] = ("logger or communication outage: every listed channel "
+                                     "is missing over the same span")
+        else:
+            det["shift_minutes_measured_by_device"] = {
+                str(dv): d["shift_minutes_measured"] for dv, d in zip(grp["device_id"],
+                                                                      grp["details"],
+                                                                      strict=True)}
+            det["shift_minutes_measured"] = float(np.median(
+                list(det["shift_minutes_measured_by_device"].values())))
+            det["correction_toml"] = det["correction_toml"].replace(
+                f"on {first['device_id']}:", f"on {len(devices)} devices:")
+            det["probable_cause"] += "; the same shift on every listed device: one logger clock"
+        row = first.drop(labels="shift").to_dict()
+        row.update(device_id=None, details=det,
+                   severity=max(grp["severity"], key=["info", "warning", "alarm"].index))
+        out.append(pd.DataFrame([row]))
+    return pd.concat(out, ignore_index=True)
+
+
 def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: pd.DataFrame, *,
                   economics: dict | None = None, sources: dict | None = None,
                   progress: Progress | None = None, n_runs: int = 1000) -> pd.DataFrame:
@@ -315,6 +372,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     done = 0
     parts: list[pd.DataFrame] = []
     grid_cache: dict[tuple[int, int, int], pd.DataFrame] = {}
+    cs_cache: dict[tuple, pd.Series] = {}
 
     def grid_sun(index):
         ts = epoch_s(index)
@@ -364,7 +422,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         if len(frame):
             gs = grid_sun(frame.index)
             parts += inverter_flags(inv, frame, gs, std_offset_s=off_s, site_zone=zone,
-                                    source=sources.get(inv["device_id"]))
+                                    source=sources.get(inv["device_id"]), cache=cs_cache)
             parts.append(power_dropout_flags(inv, frame, gs))
         done += 1
         if progress:
@@ -374,7 +432,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     parts = [p for p in parts if len(p)]
     if not parts:
         return flag_frame([])
-    out = pd.concat(parts, ignore_index=True)[list(FLAG_COLUMNS)]
+    out = merge_shared_flags(pd.concat(parts, ignore_index=True)[list(FLAG_COLUMNS)])
     return out.sort_values(["start_s", "kind", "device_id"], na_position="first",
                            kind="stable").reset_index(drop=True)
 

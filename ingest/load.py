@@ -186,6 +186,10 @@ def ingest_file(engine: sa.Engine, cfg: SiteConfig, source: Source, path: str | 
         bid = ingest_log.record_batch(engine, status="failed", message=msg, **fields)
         return BatchResult(path=path, site_id=cfg.id, source_name=source.name, status="failed",
                            batch_id=bid, message=msg)
+    except Exception as exc:  # a bug or a database failure: record it, then let it surface
+        ingest_log.record_batch(engine, status="failed", message=(
+            f"{os.path.basename(path)}: internal error {type(exc).__name__}: {exc}"), **fields)
+        raise
 
 
 @dataclass
@@ -561,7 +565,8 @@ class _FileLoader:
         intervals = np.concatenate(self.intervals) if self.intervals else np.empty(0)
         return BatchResult(
             path=self.path, site_id=self.cfg.id, source_name=self.source.name, status="loaded",
-            batch_id=self.batch_id, counts=dict(self.counts), ts_first_s=self.first,
+            batch_id=self.batch_id,
+            counts={f: int(self.counts.get(f, 0)) for f in ingest_log.COUNT_FIELDS}, ts_first_s=self.first,
             ts_last_s=self.last, interval_s=describe_intervals(intervals), notes=notes,
             touched=self.written)
 

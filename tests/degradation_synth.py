@@ -61,7 +61,7 @@ def interval_site(*, years: float = 3, rates_pct_per_yr=(-0.3, -0.5, -0.5, -0.7,
     cs = clearsky_poa(times, latitude_deg=latitude_deg, longitude_deg=longitude_deg,
                       altitude_m=600, tilt_deg=tilt_deg, azimuth_deg=azimuth_deg, albedo=0.2)
     g_cs = cs["poa_clearsky_wm2"].to_numpy()
-    doy = times.dayofyear.to_numpy()
+    doy = times.day_of_year.to_numpy()
     yr = ((times - times[0]) / pd.Timedelta(days=365)).to_numpy(dtype=float)
     days = (times - times[0]).days.to_numpy()
     clear_day = rng.random(days.max() + 1) < clear_probability

@@ -128,3 +128,25 @@ def test_ambient_fallback_and_empty_and_errors():
     with pytest.raises(ValueError, match="unknown mounting"):
         daily_performance(frame([12], [1000.0], [25.0], [80.0]),
                           types.SimpleNamespace(**{**vars(INV), "mounting": "roof"}))
+
+
+def test_many_equals_one_by_one():
+    # the vectorised multi-inverter pass must give exactly the per-inverter rows
+    from analytics.daily import daily_performance_many
+
+    rng = np.random.default_rng(3)
+    hours = np.arange(0, 48, 0.25)
+    g = np.clip(900 * np.sin((hours % 24 - 6) / 12 * np.pi), 0, None) * rng.uniform(0.8, 1, hours.size)
+    t = 20 + 0.03 * g + rng.normal(0, 0.2, hours.size)
+    invs = [INV, types.SimpleNamespace(p_dc_kwp=80.0, p_ac_max_kw=60.0, gamma_pmp_per_c=-0.003,
+                                       eta_inv_nom=0.98, mounting="open_rack_glass_glass")]
+    frames = [frame(hours, g, t, 0.07 * g, 0.25), frame(hours, g, t, 0.065 * g, 0.25)]
+    frames[1].iloc[20:30, 0] = np.nan  # a power gap on the second inverter
+    elev = np.where(g > 0, 20.0, -20.0)
+    many = daily_performance_many(frames, invs, utc_offset_h=1.0, solar_elevation_deg=[elev, elev])
+    for i in range(2):
+        one = daily_performance(frames[i], invs[i], utc_offset_h=1.0, solar_elevation_deg=elev)
+        got = many[many.inverter_no == i].drop(columns="inverter_no").reset_index(drop=True)
+        pd.testing.assert_frame_equal(got, one)
+    with pytest.raises(ValueError, match="2 frames but 1 inverters"):
+        daily_performance_many(frames, invs[:1])

@@ -64,6 +64,10 @@ def test_clipping_and_stuck():
     assert f.stuck_mask([1, 2, 2, 2, 2, 3], 4, 0.5).tolist() == [False, True, True, True, True, False]
     assert f.stuck_mask([2, 2, np.nan, 2, 2], 4, 0.5).tolist() == [False] * 5
     assert f.stuck_mask([], 4, 0.5).tolist() == []
+    # a run does not continue across a break (samples of two days joined after cutting the night)
+    brk = [False, False, True, False, False]
+    assert f.stuck_mask([2, 2, 2, 2, 2], 4, 0.5).tolist() == [True] * 5
+    assert f.stuck_mask([2, 2, 2, 2, 2], 4, 0.5, run_breaks=brk).tolist() == [False] * 5
 
 
 def test_classify_order_first_reason_wins():

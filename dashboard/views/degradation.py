@@ -9,14 +9,15 @@ url, site_id = sel["url"], sel["site_id"]
 st.title("Degradation & warranty")
 ui.warranty_caution()
 
-res = data.degradation_table(url, site_id)
+res_all = data.degradation_table(url, site_id)
+res = data.rates_only(res_all)
 if res.empty:
     st.info("No degradation results for this site yet: run `heliaudit compute` once at "
             "least two years of data are loaded (year-on-year needs pairs one year apart).")
     st.stop()
 
-agree = data.method_agreement(res)
-n_dev = agree["device_id"].nunique()
+agree = data.method_agreement(res_all)
+n_dev = res.dropna(subset=["rate_pct_per_yr"])["device_id"].nunique()
 n_agree = int(sum(a is not None and a == a and bool(a) for a in agree["agree"]))
 n_dis = int(sum(a is not None and a == a and not bool(a) for a in agree["agree"]))
 m = st.columns(3)
@@ -70,9 +71,10 @@ else:
     left.info("No year-on-year distribution stored for this device.")
 
 w = data.warranty_view(url, site_id, device, method)
+why = (data.summary_details(res_all, device).get("warranty") or {}).get("reason")
 if w is None:
-    right.info("No warranty check: the site configuration has no [warranty] table, or the "
-               f"{method} rate is missing for this device.")
+    right.info("No warranty check" + (f": {why}." if why else ": the site configuration has "
+               f"no [warranty] table, or the {method} rate is missing for this device."))
 else:
     right.plotly_chart(charts.warranty_chart(w["envelope"], w["measured"], w["monthly"]),
                        theme=None, key="warranty")

@@ -33,8 +33,9 @@ lo, hi = start or first, end or last
 flags = data.flags_in_window(url, site_id, lo, hi) if lo else None
 mine = flags[flags["device_id"].isin(chosen_ids)] if flags is not None else None
 flagged = data.flagged_days(chosen, mine, sel["offset_s"]) if mine is not None else None
-soiling = (mine[mine["kind"].str.contains(data.SOILING_KIND, case=False, na=False)]
-           if mine is not None else None)
+soiling = (flags[flags["kind"].str.contains(data.SOILING_KIND, case=False, na=False)
+                 & (flags["device_id"].isin(chosen_ids) | flags["device_id"].isna())]
+           if flags is not None else None)
 fits = {}
 if method != "(none)":
     for dev in chosen_ids:

@@ -30,7 +30,7 @@ import re
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from itertools import islice
-from typing import TextIO
+from typing import Any, TextIO
 
 import numpy as np
 import pandas as pd
@@ -65,7 +65,7 @@ class Chunk:
     values: np.ndarray  # float64 (rows, columns) in the file's units; NaN = missing or bad
     bad_cells: list[tuple[int, int, str, str]]  # (row, column position in values, raw, reason)
     bad_rows: dict[int, str]  # row -> reason (whole row unusable, e.g. wrong field count)
-    text: list[str]  # the raw line of each row (for rejected rows)
+    text: Any  # the raw line of each row, text[i] (for rejected rows)
     pos_bytes: int = 0  # bytes of the (compressed) file consumed so far
     long: dict[str, np.ndarray] | None = None  # long layout: "device", "quantity", "unit"
 
@@ -127,14 +127,20 @@ class _BinaryLines:
         self.n += 1
         return s
 
-    def __iter__(self):
-        return self
-
-    def __next__(self) -> str:
-        s = self.readline()
-        if not s:
-            raise StopIteration
-        return s
+    def read_block(self, n: int) -> tuple[str, int]:
+        """Up to ``n`` lines as one string (decoded at once; line by line to locate an error)."""
+        raw = list(islice(self.binary, n))
+        if not raw:
+            return "", 0
+        try:
+            text = b"".join(raw).decode(self.encoding)
+        except UnicodeDecodeError:
+            for line in raw:
+                line.decode(self.encoding)  # raises for the first bad line
+                self.n += 1
+            raise
+        self.n += len(raw)
+        return text, len(raw)
 
 
 def _sniff(path: str, compressed: bool) -> bytes:
@@ -266,13 +272,38 @@ def _list(names: list[str], limit: int = 12) -> str:
     return shown + (f" and {len(names) - limit} more" if len(names) > limit else "")
 
 
+_BLANK = re.compile(r"^[ \t\r]*$", re.M)
+
+
+class _Lines:
+    """The raw lines of a block, split only when a rejected row needs its text."""
+
+    def __init__(self, block: str | None = None, lines: list[str] | None = None):
+        self._block, self._lines = block, lines
+
+    def __getitem__(self, i: int) -> str:
+        if self._lines is None:
+            self._lines = self._block[:-1].split("\n")
+        return self._lines[i].rstrip("\r\n")
+
+    def __len__(self) -> int:
+        return len(self._lines) if self._lines is not None else self._block.count("\n")
+
+
+def _read_block(buf, n: int) -> tuple[str, int]:
+    if hasattr(buf, "read_block"):
+        return buf.read_block(n)
+    lines = list(islice(buf, n))
+    return "".join(lines), len(lines)
+
+
 def _chunks(buf: TextIO, source: Source, path: str, meta: ExportMeta, lineno: int,
             chunk_rows: int, position, on_close, sniff: bytes) -> Iterator[Chunk]:
     ncols = len(meta.header)
     try:
         while True:
             try:
-                lines = list(islice(buf, chunk_rows))
+                block, nlines = _read_block(buf, chunk_rows)
             except UnicodeDecodeError as exc:
                 exact = getattr(buf, "n", None)
                 raise IngestError(path, (exact if exact is not None else lineno) + 1, None,
@@ -280,22 +311,31 @@ def _chunks(buf: TextIO, source: Source, path: str, meta: ExportMeta, lineno: in
                                   f"{exc.object[exc.start:exc.start + 1]!r})"
                                   + ("" if exact is not None else " at or after this line"),
                                   _decode_hint(source, sniff)) from None
-            if not lines:
+            if not nlines:
                 return
             first = lineno + 1
-            lineno += len(lines)
-            keep = [i for i, s in enumerate(lines) if s.strip()]
-            if len(keep) != len(lines):
-                lines = [lines[i] for i in keep]
-            if not lines:
-                continue
-            line_no = first + np.asarray(keep, dtype=np.int64)
-            text = [s.rstrip("\r\n") for s in lines]
-            chunk = _fast(text, source, meta, ncols)
-            if chunk is None:
-                chunk = _slow(text, source, meta, ncols)
+            lineno += nlines
+            if not block.endswith("\n"):
+                block += "\n"
+            if _BLANK.search(block[:-1]) is None:
+                line_no = first + np.arange(nlines, dtype=np.int64)
+                chunk = _fast(block, nlines, source, meta, ncols)
+                lines = _Lines(block=block)
+                if chunk is None:
+                    chunk = _slow([lines[i] for i in range(nlines)], source, meta, ncols)
+            else:  # blank lines are not rows: drop them, keep the physical line numbers
+                raw = block[:-1].split("\n")
+                keep = [i for i, x in enumerate(raw) if x.strip()]
+                if not keep:
+                    continue
+                text = [raw[i].rstrip("\r") for i in keep]
+                line_no = first + np.asarray(keep, dtype=np.int64)
+                lines = _Lines(lines=text)
+                chunk = _fast("\n".join(text) + "\n", len(text), source, meta, ncols)
+                if chunk is None:
+                    chunk = _slow(text, source, meta, ncols)
             chunk.line = line_no
-            chunk.text = text
+            chunk.text = lines
             chunk.pos_bytes = position() if position else 0
             yield chunk
     finally:
@@ -307,22 +347,24 @@ def _value_positions(meta: ExportMeta) -> list[int]:
     return [meta.long_index["value"]] if meta.long_index else meta.col_index
 
 
-def _fast(text: list[str], source: Source, meta: ExportMeta, ncols: int) -> Chunk | None:
+def _fast(block: str, nlines: int, source: Source, meta: ExportMeta, ncols: int) -> Chunk | None:
+    """pandas C parser straight to float64. Field counts: the total delimiter count must be
+    (columns − 1) × lines, and pandas raises on a line with too many fields, so together no
+    line can have too few. Anything unusual returns None (the caller parses cell by cell)."""
     d = source.delimiter
-    expected = ncols - 1
-    if any(s.count(d) != expected for s in text):
+    if block.count(d) != (ncols - 1) * nlines:
         return None
     vpos = _value_positions(meta)
     str_pos = [meta.ts_index] + [p for r, p in meta.long_index.items() if r != "value"]
     dtype = {p: "float64" for p in vpos} | {p: object for p in str_pos}
     try:
-        df = pd.read_csv(io.StringIO("\n".join(text)), sep=d, header=None, usecols=str_pos + vpos,
+        df = pd.read_csv(io.StringIO(block), sep=d, header=None, usecols=str_pos + vpos,
                          dtype=dtype, na_values=list(source.missing_values),
                          keep_default_na=False, decimal=source.decimal, engine="c",
                          skip_blank_lines=False, quoting=csv.QUOTE_MINIMAL)
     except (ValueError, pd.errors.ParserError):
         return None
-    if len(df) != len(text):
+    if len(df) != nlines:
         return None
     values = df[vpos].to_numpy(dtype=np.float64) if vpos else np.empty((len(df), 0))
     ts = df[meta.ts_index].to_numpy(dtype=object)

@@ -1,0 +1,145 @@
+"""The ``degradation_result`` table: one row per site, device (inverter id or ``"(site)"``) and
+method, plus the ``computation`` rows of degradation runs (issue #7).
+
+``write_degradation`` replaces all of a site's rows in one transaction, so a reader never
+sees half a recompute. ``degradation_results`` reads them back as a DataFrame with the
+details JSON parsed.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+from db import schema
+
+SITE_DEVICE = "(site)"
+RESULT_COLUMNS = ("site_id", "device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
+                  "confidence", "n_points", "reason", "details", "computation_id")
+
+
+def _clean(o):
+    """JSON-safe copy: numpy scalars to Python, NaN/inf to None, dates to ISO text."""
+    if isinstance(o, dict):
+        return {str(k): _clean(v) for k, v in o.items()}
+    if isinstance(o, list | tuple | np.ndarray):
+        return [_clean(v) for v in o]
+    if isinstance(o, np.bool_ | bool):
+        return bool(o)
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.floating | float):
+        f = float(o)
+        return f if math.isfinite(f) else None
+    if isinstance(o, pd.Timestamp | dt.date | dt.datetime):
+        return o.isoformat()
+    return o
+
+
+def to_json(obj) -> str | None:
+    """Compact JSON text of ``obj`` (None stays None), NaN-free."""
+    return None if obj is None else json.dumps(_clean(obj), allow_nan=False, sort_keys=True)
+
+
+def _now() -> str:
+    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+
+
+def begin_computation(engine: sa.Engine, site_id: str, *, software_version: str, params: dict,
+                      scope: str = "full", kind: str = "degradation") -> int:
+    """Insert a ``computation`` row (unfinished) and return its id."""
+    with engine.begin() as conn:
+        return conn.execute(schema.computation.insert().values(
+            site_id=site_id, kind=kind, software_version=software_version,
+            params_json=to_json(params), started_utc=_now(), scope=scope)).inserted_primary_key[0]
+
+
+def write_degradation(engine: sa.Engine, site_id: str, rows: list[dict], computation_id: int) -> int:
+    """Replace the site's degradation rows with ``rows`` and mark the computation finished.
+
+    Each row: ``device_id``, ``method``, ``rate_pct_per_yr``, ``ci_low``, ``ci_high``,
+    ``confidence``, ``n_points``, ``reason`` (any may be None) and ``details`` (a dict).
+    Returns the number of rows written.
+    """
+    t = schema.degradation_result
+    recs = []
+    for r in rows:
+        num = {k: _clean(r.get(k)) for k in ("rate_pct_per_yr", "ci_low", "ci_high", "confidence")}
+        recs.append(dict(site_id=site_id, device_id=str(r["device_id"]), method=str(r["method"]),
+                         n_points=None if r.get("n_points") is None else int(r["n_points"]),
+                         reason=r.get("reason"), details_json=to_json(r.get("details") or {}),
+                         computation_id=computation_id, **num))
+    keys = [(x["device_id"], x["method"]) for x in recs]
+    if len(set(keys)) != len(keys):
+        raise ValueError("duplicate (device_id, method) in degradation rows")
+    with engine.begin() as conn:
+        conn.execute(t.delete().where(t.c.site_id == site_id))
+        if recs:
+            conn.execute(t.insert(), recs)
+        conn.execute(schema.computation.update().where(
+            schema.computation.c.computation_id == computation_id).values(finished_utc=_now()))
+    return len(recs)
+
+
+def degradation_results(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+    """A site's degradation rows, ordered by device and method.
+
+    Columns: site_id, device_id, method, rate_pct_per_yr, ci_low, ci_high, confidence,
+    n_points, reason, details (dict parsed from details_json), computation_id.
+    """
+    t = schema.degradation_result
+    q = (sa.select(t.c.site_id, t.c.device_id, t.c.method, t.c.rate_pct_per_yr, t.c.ci_low,
+                   t.c.ci_high, t.c.confidence, t.c.n_points, t.c.reason, t.c.details_json,
+                   t.c.computation_id)
+         .where(t.c.site_id == site_id).order_by(t.c.device_id, t.c.method))
+    with engine.connect() as conn:
+        rows = conn.execute(q).all()
+    out = pd.DataFrame([tuple(r) for r in rows],
+                       columns=[*RESULT_COLUMNS[:9], "details_json", "computation_id"])
+    for c in ("rate_pct_per_yr", "ci_low", "ci_high", "confidence"):
+        out[c] = pd.to_numeric(out[c], errors="coerce").astype("float64")
+    out["n_points"] = pd.array(out["n_points"], dtype="Int64")
+    out["details"] = [json.loads(x) if x else {} for x in out.pop("details_json")]
+    return out[list(RESULT_COLUMNS)]
+
+
+def last_computation(engine: sa.Engine, site_id: str, kind: str = "degradation") -> dict | None:
+    """The latest finished computation of ``kind`` for the site, params parsed; None if none."""
+    c = schema.computation
+    q = (sa.select(c).where(c.c.site_id == site_id, c.c.kind == kind, c.c.finished_utc.is_not(None))
+         .order_by(c.c.computation_id.desc()).limit(1))
+    with engine.connect() as conn:
+        row = conn.execute(q).mappings().first()
+    if row is None:
+        return None
+    out = dict(row)
+    out["params"] = json.loads(out.pop("params_json") or "{}")
+    return out
+
+
+def site_row(engine: sa.Engine, site_id: str) -> dict | None:
+    """The whole ``site`` row as a dict (geometry, time zone, stored configuration), or None."""
+    with engine.connect() as conn:
+        row = conn.execute(sa.select(schema.site).where(
+            schema.site.c.site_id == site_id)).mappings().first()
+    return None if row is None else dict(row)
+
+
+def site_ids(engine: sa.Engine) -> list[str]:
+    with engine.connect() as conn:
+        return list(conn.execute(sa.select(schema.site.c.site_id).order_by(
+            schema.site.c.site_id)).scalars())
+
+
+def ghi_channels(engine: sa.Engine, site_id: str) -> list[tuple[str, int]]:
+    """``(sensor_id, channel_id)`` of the site's GHI sensors."""
+    d, c = schema.device, schema.channel
+    q = (sa.select(d.c.device_id, c.c.channel_id).join(c, c.c.device_pk == d.c.device_pk)
+         .where(d.c.site_id == site_id, c.c.quantity == "ghi_wm2").order_by(d.c.device_id))
+    with engine.connect() as conn:
+        return [(r[0], int(r[1])) for r in conn.execute(q)]

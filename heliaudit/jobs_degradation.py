@@ -1,0 +1,567 @@
+"""Degradation job (issue #7): daily table -> every method per inverter and site -> store.
+
+``run_degradation(engine, site_id)`` reads the stored daily performance table (and, for the
+clear-sky cross-check, the interval power), computes per inverter and for the site
+(``device_id = "(site)"``):
+
+* ``yoy`` — year-on-year (Jordan et al. 2018) with a moving-block bootstrap interval;
+* ``rlm`` — Huber RLM of the monthly insolation-weighted index with annual harmonics, HAC
+  interval;
+* ``stl`` — RLM of the robust STL trend (Cleveland et al. 1990);
+* ``peer_relative`` — year-on-year rate of the index divided by the peer median (inverters
+  only; the rate *relative to the fleet*);
+* ``clearsky_yoy`` — year-on-year rate of the clear-sky index on clear periods found without
+  the POA sensor (analytics.clearsky);
+* ``yoy_stable_segments`` — year-on-year without pairs that span a detected level shift;
+* ``summary`` — the headline rate (``yoy``) with the data report, change points and segments,
+  the method-agreement verdict and warnings, and the warranty screening in ``details``.
+
+One ``computation`` row (kind ``degradation``) records the software version and parameters;
+the site's previous rows are replaced in one transaction.
+
+System-level field data are screening evidence; a warranty claim follows its contract and the
+test procedure it names (see analytics.warranty.DISCLAIMER).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import tomllib
+import warnings
+from collections.abc import Callable
+
+import numpy as np
+import pandas as pd
+
+import heliaudit
+from analytics import changepoint as acp
+from analytics import clearsky as acs
+from analytics import degradation as adeg
+from analytics import warranty as awar
+from analytics.daily import standard_utc_offset_h
+from db import queries
+from db.daily import daily_table
+from db.degradation import (
+    SITE_DEVICE,
+    _clean,
+    begin_computation,
+    ghi_channels,
+    site_row,
+    write_degradation,
+)
+
+Progress = Callable[[int, int], None]
+
+#: Parameters of a run (recorded in the computation row). Sources in analytics docstrings.
+DEFAULTS: dict = {
+    "confidence": 0.95,
+    "n_resamples": 1000,
+    "seed": 0,
+    "stabilisation_days": 180,
+    "min_years": 2.0,
+    "warn_years": 3.0,
+    "lag_days": 365,
+    "reference": "pairwise",
+    "min_peers": 3,
+    "rlm_aggregate": "monthly",
+    "rlm_harmonics": 1,
+    "stl_seasonal": 7,
+    "changepoint_penalty_factor": 3.0,
+    "changepoint_min_step_pct": 1.0,
+    "clearsky": True,
+    "clearsky_transposition": "haydavies",
+    "clearsky_window_days": 15,
+    "site_min_inverter_fraction": 0.5,
+    "sigma_extra_pct_per_yr": 0.0,
+}
+METHODS = ("yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "yoy_stable_segments")
+
+
+class SiteNotFoundError(LookupError):
+    pass
+
+
+def _try(method: str, fn, *args, **kwargs) -> adeg.RateResult:
+    """Run one estimator; too little data or invalid input becomes a refused result."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # estimator warnings are kept in result.warnings
+        try:
+            res = fn(*args, **kwargs)
+        except (adeg.InsufficientDataError, ValueError) as exc:
+            return adeg.RateResult.refused(method, str(exc))
+    res.method = method
+    return res
+
+
+def warranty_terms(config_toml: str | None) -> dict | None:
+    """``[warranty]`` of the stored site configuration (ingest.config.Warranty fields)."""
+    try:
+        raw = tomllib.loads(config_toml or "").get("warranty")
+    except tomllib.TOMLDecodeError:
+        return None
+    if not isinstance(raw, dict) or "annual_loss_pct" not in raw:
+        return None
+    start = raw.get("start_date")
+    if isinstance(start, str):
+        start = dt.date.fromisoformat(start)
+    return {"start_date": start, "first_year_loss_pct": float(raw.get("first_year_loss_pct", 0.0)),
+            "annual_loss_pct": float(raw["annual_loss_pct"]), "years": int(raw.get("years", 25)),
+            "confidence": float(raw.get("confidence", 0.95))}
+
+
+# ---------------------------------------------------------------- inputs
+
+
+def _daily_by_device(daily: pd.DataFrame) -> dict[str, pd.DataFrame]:
+    out = {}
+    for dev, d in daily.groupby("device_id"):
+        d = d.set_index(pd.DatetimeIndex(pd.to_datetime(d["day"]))).sort_index()
+        out[str(dev)] = d
+    return out
+
+
+def _site_daily(usable: dict[str, pd.Series], by_dev: dict[str, pd.DataFrame],
+                min_fraction: float) -> tuple[pd.Series, pd.Series]:
+    """Site index per day: Σ e_ac_valid / Σ e_exp_valid over inverters with a usable day,
+    on days where at least ``min_fraction`` of the inverters have one (common practice)."""
+    num, den, cnt = [], [], []
+    for dev, s in usable.items():
+        d = by_dev[dev].reindex(s.index)
+        num.append(d["e_ac_valid_kwh"])
+        den.append(d["e_exp_valid_kwh"])
+        cnt.append(pd.Series(1, s.index))
+    if not num:
+        return pd.Series(dtype=float), pd.Series(dtype=float)
+    n = pd.concat(cnt, axis=1).sum(axis=1)
+    e_ac = pd.concat(num, axis=1).sum(axis=1, min_count=1)
+    e_exp = pd.concat(den, axis=1).sum(axis=1, min_count=1)
+    ok = (n >= min_fraction * len(usable)) & (e_exp > 0)
+    return (e_ac / e_exp)[ok].rename("pi"), e_exp[ok]
+
+
+def _clearsky_daily(engine, site: dict, invs: pd.DataFrame, offset_h: float, p: dict
+                    ) -> tuple[dict[str, pd.Series], str, str | None]:
+    """Clear-day index per inverter; returns (series by id, how clear periods were found,
+    reason when not computed)."""
+    from db.timeseries import inverter_frames, read_channel  # interval reader (issue #4)
+
+    p_ac, t_mod, p0 = {}, {}, {}
+    rated = dict(zip(invs["device_id"], invs["p_dc_kwp"].astype(float), strict=True))
+    for inv, frame in inverter_frames(engine, site["site_id"]):
+        if not len(frame):
+            continue
+        pw = frame["p_ac_kw"]
+        if pw.isna().all():
+            pw = frame["e_ac_kwh"] / frame["interval_h"]
+        p_ac[inv["device_id"]] = pw.astype("float32")
+        t_mod[inv["device_id"]] = frame["t_module_c"].astype("float32")
+        p0[inv["device_id"]] = rated[inv["device_id"]]
+    if not p_ac:
+        return {}, "", "no interval power readings"
+    power = pd.DataFrame(p_ac)
+    step_min = pd.Series(power.index).diff().median() / pd.Timedelta(minutes=1)
+    if not 1 <= step_min <= 30:
+        return {}, "", (f"interval of {step_min:g} min; clear-sky detection (Jordan & Hansen "
+                        "2023 thresholds) needs 1-30-minute data")
+    cs = acs.clearsky_poa(power.index, latitude_deg=site["latitude_deg"],
+                          longitude_deg=site["longitude_deg"], altitude_m=site["altitude_m"],
+                          tilt_deg=site["tilt_deg"], azimuth_deg=site["azimuth_deg"],
+                          albedo=site["albedo"], transposition=p["clearsky_transposition"])
+    ghi = ghi_channels(engine, site["site_id"])
+    if ghi:
+        with engine.connect() as conn:
+            ts, val = read_channel(conn, ghi[0][1])
+        meas = pd.Series(val, pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True)))
+        meas = meas.groupby(meas.index).mean().reindex(power.index)
+        clear = acs.detect_clear_periods(meas, cs["ghi_clearsky_wm2"])
+        how = f"Reno & Hansen 2016 on GHI sensor {ghi[0][0]}"
+    else:
+        rated_on = power.notna().mul(pd.Series(p0), axis=1).sum(axis=1)
+        fleet = 1000 * power.sum(axis=1, min_count=1) / rated_on.where(rated_on > 0)
+        clear = acs.detect_clear_periods(fleet, cs["poa_clearsky_wm2"])
+        how = "Reno & Hansen 2016 on the fleet's AC power shape against clear-sky POA"
+    out = {}
+    g_cs = cs["poa_clearsky_wm2"]
+    for _, inv in invs.iterrows():
+        dev = inv["device_id"]
+        if dev not in p_ac:
+            continue
+        d_t = 3.0  # Sandia ΔT at 1000 W/m² (King et al. 2004, open rack; METHODS §3)
+        t_cell = t_mod[dev].astype(float) + d_t * g_cs / 1000.0
+        daily = acs.clearsky_daily_pi(
+            power[dev].astype(float), g_cs, clear, p_dc_kwp=float(inv["p_dc_kwp"]),
+            gamma_pmp_per_c=float(inv["gamma_pmp_per_c"]), eta_inv_nom=float(inv["eta_inv_nom"]),
+            p_ac_max_kw=float(inv["p_ac_max_kw"]),
+            t_cell_c=t_cell if t_cell.notna().any() else None, utc_offset_h=offset_h)
+        out[dev] = daily["pi_clearsky"]
+    return out, how, None
+
+
+# ---------------------------------------------------------------- per series
+
+
+def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | None,
+                 clear_pi: pd.Series | None, clear_reason: str | None, p: dict,
+                 rng_key: int) -> tuple[dict[str, adeg.RateResult], dict]:
+    conf, seed = p["confidence"], [p["seed"], rng_key]
+    yoy_kw = dict(confidence=conf, n_resamples=p["n_resamples"], lag_days=p["lag_days"],
+                  reference=p["reference"], min_years=p["min_years"], warn_years=p["warn_years"])
+    res = {
+        "yoy": _try("yoy", adeg.degradation_yoy, s, rng=np.random.default_rng(seed + [1]), **yoy_kw),
+        "rlm": _try("rlm", adeg.degradation_rlm, s, weights, aggregate=p["rlm_aggregate"],
+                    harmonics=p["rlm_harmonics"], confidence=conf, min_years=p["min_years"],
+                    warn_years=p["warn_years"]),
+        "stl": _try("stl", adeg.degradation_stl, s, weights, confidence=conf,
+                    seasonal=p["stl_seasonal"], min_years=p["min_years"], warn_years=p["warn_years"]),
+    }
+    if ratio is not None:
+        res["peer_relative"] = _try("peer_relative", adeg.degradation_yoy, ratio.dropna(),
+                                    rng=np.random.default_rng(seed + [2]), **yoy_kw)
+        res["peer_relative"].details["relative_to"] = "median of the peer group (same day)"
+    if clear_pi is not None:
+        dense = acs.densify_clear_days(clear_pi, window_days=p["clearsky_window_days"])
+        res["clearsky_yoy"] = _try("clearsky_yoy", adeg.degradation_yoy, dense,
+                                   rng=np.random.default_rng(seed + [3]), **yoy_kw)
+        res["clearsky_yoy"].details["n_clear_days"] = int(clear_pi.notna().sum())
+    else:
+        res["clearsky_yoy"] = adeg.RateResult.refused("clearsky_yoy", clear_reason or "not computed")
+    base = ratio.dropna() if ratio is not None and ratio.notna().sum() > 400 else s
+    cps = acp.detect_level_shifts(base, penalty_factor=p["changepoint_penalty_factor"],
+                                  min_step_pct=p["changepoint_min_step_pct"],
+                                  deseason=ratio is None or base is s)
+    cps["series"] = "peer-relative index" if base is not s else "de-seasonalised index"
+    breaks = [c["day"] for c in cps["change_points"]]
+    if breaks:
+        res["yoy_stable_segments"] = _try("yoy_stable_segments", adeg.degradation_yoy, s,
+                                          breaks=breaks, rng=np.random.default_rng(seed + [4]),
+                                          **yoy_kw)
+    else:
+        res["yoy_stable_segments"] = adeg.RateResult.refused(
+            "yoy_stable_segments", "no change points found: the whole-period yoy rate applies")
+    return res, cps
+
+
+def _warranty_block(yoy: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series,
+                    terms: dict | None, commissioned, p: dict) -> dict:
+    if terms is None:
+        return {"reason": "no [warranty] in the site configuration"}
+    if yoy.rate_pct_per_yr is None:
+        return {"reason": f"no measured rate: {yoy.reason}"}
+    test = awar.warranty_rate_test(yoy.rate_pct_per_yr, yoy.ci_high, yoy.confidence,
+                                   annual_loss_pct=terms["annual_loss_pct"],
+                                   confidence=terms["confidence"],
+                                   sigma_extra_pct_per_yr=p["sigma_extra_pct_per_yr"])
+    start = terms["start_date"] or commissioned
+    m_pi = adeg.monthly_pi(s, weights).dropna()
+    e = e_ac.copy()
+    e.index = pd.DatetimeIndex(e.index)
+    m_e = e.groupby(e.index.to_period("M")).sum()
+    m_e.index = m_e.index.to_timestamp()
+    env = awar.warranty_envelope(m_pi, m_e, start_date=start,
+                                 first_year_loss_pct=terms["first_year_loss_pct"],
+                                 annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"],
+                                 rate_pct_per_yr=yoy.rate_pct_per_yr)
+    return {**test, "method": "yoy", "terms": terms, "envelope": env["months"],
+            "shortfall_kwh": env["shortfall_kwh"], "months_below": env["months_below"],
+            "baseline": env.get("baseline"), "disclaimer": awar.DISCLAIMER}
+
+
+def _rows(device_id: str, res: dict[str, adeg.RateResult], summary: dict) -> list[dict]:
+    rows = [{"device_id": device_id, "method": m, "rate_pct_per_yr": r.rate_pct_per_yr,
+             "ci_low": r.ci_low, "ci_high": r.ci_high, "confidence": r.confidence,
+             "n_points": r.n_points if r.rate_pct_per_yr is not None else None,
+             "reason": r.reason, "details": {**r.details, "warnings": r.warnings}}
+            for m, r in res.items()]
+    head = res["yoy"]
+    rows.append({"device_id": device_id, "method": "summary", "rate_pct_per_yr": head.rate_pct_per_yr,
+                 "ci_low": head.ci_low, "ci_high": head.ci_high, "confidence": head.confidence,
+                 "n_points": head.n_points if head.rate_pct_per_yr is not None else None,
+                 "reason": head.reason, "details": summary})
+    return rows
+
+
+# ---------------------------------------------------------------- the job
+
+
+def run_degradation(engine, site_id: str, progress: Progress | None = None, **params) -> dict:
+    """Compute and store every degradation method for a site's inverters and the site.
+
+    ``params`` override :data:`DEFAULTS`. Returns ``{"site_id", "computation_id", "rows",
+    "inverters", "refused"}``. Raises :class:`SiteNotFoundError` for an unknown site.
+    """
+    site = site_row(engine, site_id)
+    if site is None:
+        raise SiteNotFoundError(f"no site {site_id!r} in the database")
+    unknown = sorted(set(params) - set(DEFAULTS))
+    if unknown:
+        raise ValueError(f"unknown degradation parameter(s) {', '.join(unknown)}; "
+                         f"known: {', '.join(sorted(DEFAULTS))}")
+    p = {**DEFAULTS, **params}
+    invs = queries.inverters(engine, site_id)
+    daily = daily_table(engine, site_id)
+    terms = warranty_terms(site.get("config_toml"))
+    offset_h = standard_utc_offset_h(site["timezone"])
+    comp_id = begin_computation(engine, site_id, software_version=heliaudit.__version__,
+                                params={**p, "methods": list(METHODS), "warranty": terms,
+                                        "utc_standard_offset_h": offset_h})
+    total = len(invs) + 1
+    if progress:
+        progress(0, total)
+    by_dev = _daily_by_device(daily)
+    usable, reports, weights = {}, {}, {}
+    for _, inv in invs.iterrows():
+        dev = inv["device_id"]
+        d = by_dev.get(dev)
+        if d is None or d.empty:
+            reports[dev] = {"n_days_input": 0, "n_days_used": 0}
+            continue
+        s, rep = adeg.usable_daily_pi(d["pi"], d["day_valid"], commissioned=inv["commissioned"],
+                                      stabilisation_days=p["stabilisation_days"])
+        usable[dev], reports[dev] = s, rep
+        weights[dev] = d["e_exp_valid_kwh"].reindex(s.index)
+    ratios: dict[str, pd.Series] = {}
+    for _group, members in invs.groupby("peer_group"):
+        ids = [i for i in members["device_id"] if i in usable]
+        if len(ids) >= 2:
+            frame = pd.DataFrame({i: usable[i] for i in ids})
+            rel = adeg.peer_relative_pi(frame, min_peers=p["min_peers"])
+            ratios.update({i: rel[i] for i in ids})
+    clear, how, clear_reason = {}, "", None
+    if not p["clearsky"]:
+        clear_reason = "clear-sky method switched off"
+    elif not usable:
+        clear_reason = "no usable daily data"
+    else:
+        try:
+            clear, how, clear_reason = _clearsky_daily(engine, site, invs, offset_h, p)
+        except (ImportError, ValueError, KeyError) as exc:
+            clear_reason = f"clear-sky index not computed: {exc}"
+    rows, refused = [], 0
+    for k, (_, inv) in enumerate(invs.iterrows()):
+        dev = inv["device_id"]
+        if dev not in usable:
+            res = {m: adeg.RateResult.refused(m, "no daily performance rows; run `heliaudit "
+                                                 "compute` first") for m in METHODS}
+            summary = {"data": reports[dev]}
+        else:
+            ratio = ratios.get(dev)
+            res, cps = _methods_for(usable[dev], weights[dev], ratio=ratio,
+                                    clear_pi=clear.get(dev),
+                                    clear_reason=clear_reason or "inverter has no interval power",
+                                    p=p, rng_key=k)
+            if ratio is None:
+                res["peer_relative"] = adeg.RateResult.refused(
+                    "peer_relative", f"fewer than {p['min_peers'] + 1} inverters in peer group "
+                                     f"{inv['peer_group']!r}")
+            summary = _summary(res, cps, reports[dev], how)
+            summary["warranty"] = _warranty_block(res["yoy"], usable[dev], weights[dev],
+                                                  by_dev[dev]["e_ac_kwh"], terms,
+                                                  inv["commissioned"], p)
+        refused += res["yoy"].rate_pct_per_yr is None
+        rows += _rows(dev, res, summary)
+        if progress:
+            progress(k + 1, total)
+    # the site as a whole
+    s, w = _site_daily(usable, by_dev, p["site_min_inverter_fraction"])
+    if len(s):
+        cl = pd.DataFrame(clear).median(axis=1) if clear else None
+        res, cps = _methods_for(s, w, ratio=None, clear_pi=cl, clear_reason=clear_reason,
+                                p=p, rng_key=len(invs))
+        res["peer_relative"] = adeg.RateResult.refused(
+            "peer_relative", "not defined for the site as a whole (relative to itself)")
+        rep = {"n_days_used": int(len(s)), "n_inverters": len(usable),
+               "rule": f"days with >= {p['site_min_inverter_fraction']:.0%} of inverters usable"}
+        summary = _summary(res, cps, rep, how)
+        e_site = pd.concat([by_dev[i]["e_ac_kwh"] for i in by_dev], axis=1).sum(axis=1)
+        first = min((inv["commissioned"] for _, inv in invs.iterrows()), default=None)
+        summary["warranty"] = _warranty_block(res["yoy"], s, w, e_site, terms, first, p)
+    else:
+        res = {m: adeg.RateResult.refused(m, "no usable daily data for the site") for m in METHODS}
+        summary = {"data": {"n_days_used": 0}}
+    rows += _rows(SITE_DEVICE, res, summary)
+    n = write_degradation(engine, site_id, rows, comp_id)
+    if progress:
+        progress(total, total)
+    return {"site_id": site_id, "computation_id": comp_id, "rows": n, "inverters": len(invs),
+            "refused": int(refused)}
+
+
+def _summary(res: dict[str, adeg.RateResult], cps: dict, report: dict, clear_how: str) -> dict:
+    verdict = adeg.compare_methods(res)
+    all_warn = sorted({w for r in res.values() for w in r.warnings} | set(verdict["warnings"]))
+    return {"headline_method": "yoy", "data": report, "comparison": verdict,
+            "change_points": cps.get("change_points", []), "segments": cps.get("segments", []),
+            "changepoint_method": cps.get("method"), "changepoint_series": cps.get("series"),
+            "clear_periods": clear_how or None, "warnings": all_warn,
+            "note": awar.DISCLAIMER}
+
+
+# ---------------------------------------------------------------- results export
+
+RESULTS_SCHEMA = "heliaudit-results/1"
+CSV_TABLES = ("degradation", "daily", "flags")
+
+
+class NothingComputedError(LookupError):
+    """The site exists but nothing has been computed for it yet."""
+
+
+def _iso_s(ts_s) -> str | None:
+    if ts_s is None or (isinstance(ts_s, float) and np.isnan(ts_s)):
+        return None
+    return dt.datetime.fromtimestamp(int(ts_s), dt.UTC).isoformat().replace("+00:00", "Z")
+
+
+def _flags(engine, site_id: str) -> tuple[pd.DataFrame, bool]:
+    """The site's flags (db.flags.read_flags) and whether the flags module exists."""
+    try:
+        from db.flags import read_flags
+    except ImportError:
+        return pd.DataFrame(columns=["flag_id", "site_id", "device_id", "kind", "start_s", "end_s",
+                                     "severity", "lost_kwh", "details_json"]), False
+    return read_flags(engine, site_id), True
+
+
+def _period(d: pd.DataFrame) -> dict:
+    """Period and PRs of one device from daily sums: PR = Σ e_ac / Σ e_ref (IEC 61724-1),
+    PR_STC = Σ e_ac / Σ e_ref_stc, over days where both terms exist (all days, not only valid
+    ones: an energy PR that keeps outages)."""
+    if d.empty:
+        return {"first_day": None, "last_day": None, "n_days": 0, "n_days_valid": 0,
+                "pr": None, "pr_stc": None, "e_ac_kwh": None}
+    ok = d["e_ac_kwh"].notna() & d["e_ref_kwh"].gt(0)
+    ok_stc = d["e_ac_kwh"].notna() & d["e_ref_stc_kwh"].gt(0)
+    pr = d.loc[ok, "e_ac_kwh"].sum() / d.loc[ok, "e_ref_kwh"].sum() if ok.any() else None
+    pr_stc = (d.loc[ok_stc, "e_ac_kwh"].sum() / d.loc[ok_stc, "e_ref_stc_kwh"].sum()
+              if ok_stc.any() else None)
+    return {"first_day": min(d["day"]).isoformat(), "last_day": max(d["day"]).isoformat(),
+            "n_days": int(len(d)), "n_days_valid": int(d["day_valid"].sum()),
+            "pr": None if pr is None else round(float(pr), 5),
+            "pr_stc": None if pr_stc is None else round(float(pr_stc), 5),
+            "e_ac_kwh": round(float(d["e_ac_kwh"].sum()), 3),
+            "pr_basis": "sums over all days of the daily table (energy PR, outages included)"}
+
+
+def _device_block(res: pd.DataFrame) -> dict:
+    methods, summary = {}, {}
+    for _, r in res.iterrows():
+        if r["method"] == "summary":
+            summary = r["details"] or {}
+            continue
+        det = dict(r["details"] or {})
+        methods[r["method"]] = {
+            "rate_pct_per_yr": None if pd.isna(r["rate_pct_per_yr"]) else float(r["rate_pct_per_yr"]),
+            "ci_low": None if pd.isna(r["ci_low"]) else float(r["ci_low"]),
+            "ci_high": None if pd.isna(r["ci_high"]) else float(r["ci_high"]),
+            "confidence": None if pd.isna(r["confidence"]) else float(r["confidence"]),
+            "n_points": None if pd.isna(r["n_points"]) else int(r["n_points"]),
+            "reason": r["reason"], "warnings": det.pop("warnings", []), "details": det}
+    return {"degradation": methods,
+            "headline_method": summary.get("headline_method"),
+            "comparison": summary.get("comparison"),
+            "change_points": summary.get("change_points", []),
+            "segments": summary.get("segments", []),
+            "changepoint_method": summary.get("changepoint_method"),
+            "warnings": summary.get("warnings", []),
+            "data": summary.get("data"), "clear_periods": summary.get("clear_periods"),
+            "warranty": summary.get("warranty")}
+
+
+def results_document(engine, site_id: str) -> dict:
+    """Everything computed so far for a site, as the ``heliaudit-results/1`` JSON document.
+
+    Raises :class:`SiteNotFoundError` for an unknown site and :class:`NothingComputedError`
+    when the site has no daily rows, no degradation rows and no flags.
+    """
+    from db.degradation import degradation_results, last_computation
+
+    site = site_row(engine, site_id)
+    if site is None:
+        raise SiteNotFoundError(f"no site {site_id!r} in the database")
+    deg = degradation_results(engine, site_id)
+    daily = daily_table(engine, site_id)
+    flags, have_flags = _flags(engine, site_id)
+    if deg.empty and daily.empty and flags.empty:
+        raise NothingComputedError(
+            f"nothing computed for site {site_id!r} yet: run `heliaudit compute --site "
+            f"{site_id}` after loading its exports")
+    invs = queries.inverters(engine, site_id)
+    comps = {k: last_computation(engine, site_id, k) for k in ("daily", "flags", "degradation")}
+    inverters = []
+    for _, inv in invs.iterrows():
+        dev = inv["device_id"]
+        block = {"device_id": dev, "p_dc_kwp": float(inv["p_dc_kwp"]),
+                 "commissioned": str(inv["commissioned"]), "peer_group": inv["peer_group"],
+                 "period": _period(daily[daily["device_id"] == dev])}
+        rows = deg[deg["device_id"] == dev]
+        block.update(_device_block(rows) if len(rows) else
+                     {"degradation": {}, "reason": "degradation not computed"})
+        inverters.append(block)
+    site_rows = deg[deg["device_id"] == SITE_DEVICE]
+    site_block = {"device_id": SITE_DEVICE, "period": _period(daily)}
+    site_block.update(_device_block(site_rows) if len(site_rows) else
+                      {"degradation": {}, "reason": "degradation not computed"})
+    flag_items = [{"flag_id": int(f["flag_id"]), "device_id": f["device_id"], "kind": f["kind"],
+                   "start": _iso_s(f["start_s"]), "end": _iso_s(f["end_s"]),
+                   "severity": f["severity"],
+                   "lost_kwh": None if pd.isna(f["lost_kwh"]) else float(f["lost_kwh"]),
+                   "details": _json_or_none(f["details_json"])} for _, f in flags.iterrows()]
+    deg_comp = comps["degradation"]
+    return _clean({
+        "schema": RESULTS_SCHEMA,
+        "generated_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
+        "software": {"name": "heliaudit", "version": heliaudit.__version__},
+        "site": {"site_id": site_id, "name": site["name"], "timezone": site["timezone"],
+                 "utc_standard_offset_h": standard_utc_offset_h(site["timezone"]),
+                 "latitude_deg": site["latitude_deg"], "longitude_deg": site["longitude_deg"]},
+        "parameters": None if deg_comp is None else deg_comp["params"],
+        "computations": {k: None if v is None else
+                         {"computation_id": v["computation_id"], "software_version": v["software_version"],
+                          "started_utc": v["started_utc"], "finished_utc": v["finished_utc"],
+                          "scope": v.get("scope")} for k, v in comps.items()},
+        "notice": awar.DISCLAIMER,
+        "inverters": inverters,
+        "site_result": site_block,
+        "flags": flag_items,
+        "flags_available": have_flags,
+    })
+
+
+def _json_or_none(text):
+    import json
+
+    if text is None or (isinstance(text, float) and np.isnan(text)):
+        return None
+    try:
+        return json.loads(text)
+    except ValueError:
+        return {"text": str(text)}
+
+
+def results_table(engine, site_id: str, table: str) -> pd.DataFrame:
+    """One flat table for CSV export: ``degradation``, ``daily`` or ``flags``."""
+    from db.degradation import degradation_results
+
+    if table not in CSV_TABLES:
+        raise ValueError(f"unknown table {table!r}; choose one of {', '.join(CSV_TABLES)}")
+    if site_row(engine, site_id) is None:
+        raise SiteNotFoundError(f"no site {site_id!r} in the database")
+    if table == "degradation":
+        out = degradation_results(engine, site_id)
+        if out.empty:
+            raise NothingComputedError(f"no degradation results for site {site_id!r}: run "
+                                       f"`heliaudit compute --site {site_id}` first")
+        out["n_change_points"] = [len((d or {}).get("change_points", [])) if m == "summary" else None
+                                  for d, m in zip(out["details"], out["method"], strict=True)]
+        return out.drop(columns=["details"])
+    if table == "daily":
+        out = daily_table(engine, site_id)
+        if out.empty:
+            raise NothingComputedError(f"no daily performance rows for site {site_id!r}: run "
+                                       f"`heliaudit compute --site {site_id}` first")
+        return out
+    out, _ = _flags(engine, site_id)
+    out = out.copy()
+    out.insert(out.columns.get_loc("start_s"), "start", [_iso_s(x) for x in out["start_s"]])
+    out.insert(out.columns.get_loc("end_s"), "end", [_iso_s(x) for x in out["end_s"]])
+    return out

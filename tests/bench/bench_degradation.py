@@ -1,0 +1,100 @@
+"""Benchmark (issue #7): every degradation method, with bootstrap, for 100 inverters x 5 years.
+
+Target: at most 10 s on this machine. Input: synthetic daily tables (our generator,
+tests/degradation_synth.py) with seasonality, AR(1) noise, outliers and gaps; every fifth
+inverter gets a 5 % step. Per inverter: year-on-year (1000 block-bootstrap resamples),
+RLM + HAC, STL + RLM, peer-relative year-on-year, change points (PELT), year-on-year within
+stable segments and a clear-sky year-on-year on a clear-day subset (the daily clear-sky index;
+the interval-level clear-period detection is timed separately for one site), plus the site.
+
+Baseline from the same run: one ordinary least-squares line per inverter (numpy.polyfit).
+Run by hand: ``python tests/bench/bench_degradation.py [n_inverters] [years]``.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+
+from analytics import degradation as adeg  # noqa: E402
+from heliaudit.jobs_degradation import DEFAULTS, _methods_for  # noqa: E402
+from tests.degradation_synth import daily_pi, interval_site  # noqa: E402
+
+
+def make_fleet(n: int, years: float) -> tuple[dict, dict, dict]:
+    rng = np.random.default_rng(7)
+    pis, weights, clear = {}, {}, {}
+    for i in range(n):
+        s = daily_pi(years=years, rd_pct_per_yr=float(rng.uniform(-1.0, -0.2)), noise=0.01,
+                     ar1=0.5, outlier_fraction=0.02, gap_fraction=0.05,
+                     step_day=800 if i % 5 == 0 else None, step=-0.05, seed=i).dropna()
+        pis[f"INV{i:03d}"] = s
+        weights[f"INV{i:03d}"] = pd.Series(rng.uniform(200, 600, len(s)), s.index)
+        c = s * (1 + rng.normal(0, 0.003, len(s)))
+        clear[f"INV{i:03d}"] = c.where(rng.random(len(s)) < 0.4)
+    return pis, weights, clear
+
+
+def run_all(pis, weights, clear, p) -> int:
+    ratio = adeg.peer_relative_pi(pd.DataFrame(pis), min_peers=p["min_peers"])
+    n_ok = 0
+    for k, dev in enumerate(pis):
+        res, _ = _methods_for(pis[dev], weights[dev], ratio=ratio[dev], clear_pi=clear[dev],
+                              clear_reason=None, p=p, rng_key=k)
+        n_ok += all(r.rate_pct_per_yr is not None for m, r in res.items()
+                    if m != "yoy_stable_segments")
+    site = pd.DataFrame(pis).median(axis=1)
+    _methods_for(site, None, ratio=None, clear_pi=pd.DataFrame(clear).median(axis=1),
+                 clear_reason=None, p=p, rng_key=len(pis))
+    return n_ok
+
+
+def baseline(pis) -> float:
+    t0 = time.perf_counter()
+    for s in pis.values():
+        t = ((s.index - s.index[0]) / pd.Timedelta(days=365.25)).to_numpy(dtype=float)
+        b, a = np.polyfit(t, s.to_numpy(), 1)
+        _ = 100 * b / a
+    return time.perf_counter() - t0
+
+
+def main(n: int = 100, years: float = 5.0) -> None:
+    warnings.simplefilter("ignore")
+    pis, weights, clear = make_fleet(n, years)
+    p = dict(DEFAULTS)
+    t_base = baseline(pis)
+    t0 = time.perf_counter()
+    n_ok = run_all(pis, weights, clear, p)
+    t_all = time.perf_counter() - t0
+    print(f"degradation, all methods with bootstrap ({p['n_resamples']} resamples), "
+          f"{n} inverters x {years:g} years + site: {t_all:.2f} s "
+          f"({1000 * t_all / (n + 1):.0f} ms per series; {n_ok}/{n} inverters with every method)")
+    print(f"baseline, one OLS line per inverter (numpy.polyfit):        {t_base:.3f} s")
+    print(f"ratio all-methods / baseline: {t_all / t_base:.0f}x; target <= 10 s: "
+          f"{'met' if t_all <= 10 else 'NOT met'}")
+    # interval-level clear-period detection, one 10-inverter site, 1 year of 30-min data
+    t0 = time.perf_counter()
+    site = interval_site(years=1, rates_pct_per_yr=(-0.5,) * 10, seed=2)
+    t_gen = time.perf_counter() - t0
+    from analytics.clearsky import clearsky_daily_pi, detect_clear_periods
+    t0 = time.perf_counter()
+    fleet = 1000 * site["p_ac"].sum(axis=1) / (site["p_dc_kwp"] * 10)
+    clear_t = detect_clear_periods(fleet, site["poa_cs"])
+    for name in site["p_ac"]:
+        clearsky_daily_pi(site["p_ac"][name], site["poa_cs"], clear_t, p_dc_kwp=100,
+                          gamma_pmp_per_c=site["gamma"], t_cell_c=site["t_cell"])
+    t_cs = time.perf_counter() - t0
+    print(f"clear-sky periods + daily clear-sky index, 10 inverters x 1 year of 30-min data: "
+          f"{t_cs:.2f} s (clear-sky POA modelling for the generator: {t_gen:.2f} s)")
+
+
+if __name__ == "__main__":
+    args = [float(a) for a in sys.argv[1:]]
+    main(int(args[0]) if args else 100, args[1] if len(args) > 1 else 5.0)

@@ -1,0 +1,227 @@
+"""Benchmark: ingest of a wide CSV, ours against the plain way, in the same run.
+
+Generates (numpy, its own simple generator) one year of 5-minute data for 100 inverters plus
+5 sensor columns (~11 M readings) with a matching site config in a temp dir, then, each in a
+fresh child process (so peak RSS is measured per step with ``os.wait4``):
+
+* ``ours``: ``ingest.load.ingest_paths`` into a fresh SQLite file (end to end: config,
+  registration, parse, checks, write, commit);
+* ``ours-overlap``: the same rows again from a changed copy of the file (one value per row
+  changed), into that store: the compare-with-stored and upsert path;
+* ``plain``: ``pandas.read_csv`` of the whole file, ``melt`` to readings, ``DataFrame.to_sql``
+  into a fresh SQLite file with the same schema;
+
+and prints readings/s, peak RSS and the ratio. ``--pg URL`` adds ours on PostgreSQL (COPY
+path) and a psycopg ``executemany`` baseline of the same statement for comparison.
+
+Run by hand, never in CI:  python tests/bench/bench_ingest.py [--inverters 100] [--days 365]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+REPO = Path(__file__).resolve().parents[2]
+SENSORS = [("POA1", "poa_wm2", "Irr_POA"), ("GHI1", "ghi_wm2", "Irr_GHI"),
+           ("TMOD1", "t_module_c", "T_mod"), ("TAMB1", "t_amb_c", "T_amb"), ("WIND1", "wind_ms", "Wind")]
+
+
+def write_config(d: Path, n_inv: int) -> Path:
+    lines = ["format_version = 1", "", "[site]", 'id = "bench"', 'name = "Benchmark site"',
+             'timezone = "UTC"', "latitude_deg = 40.0", "longitude_deg = -3.7", "altitude_m = 600",
+             "tilt_deg = 30", "azimuth_deg = 180", ""]
+    for sid, q, _h in SENSORS:
+        lines += ["[[sensors]]", f'id = "{sid}"', f'quantity = "{q}"']
+        if q in ("poa_wm2", "ghi_wm2"):
+            lines.append('instrument = "thermopile_pyranometer"')
+        lines.append("")
+    for i in range(n_inv):
+        lines += ["[[inverters]]", f'id = "INV{i + 1:03d}"', "p_dc_kwp = 120.0", "p_ac_max_kw = 100.0",
+                  "gamma_pmp_per_c = -0.0037", 'mounting = "open_rack_glass_polymer"',
+                  'poa_sensor = "POA1"', 't_module_sensor = "TMOD1"', "commissioned = 2022-01-01", ""]
+    lines += ["[[sources]]", 'name = "scada"', 'pattern = "bench_*.csv"',
+              'timestamp = { column = "Time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "end" }',
+              "columns = [", '  { header = "{inverter}_PAC", quantity = "p_ac_kw", unit = "kW" },']
+    for sid, q, h in SENSORS:
+        lines.append(f'  {{ header = "{h}", device = "{sid}", quantity = "{q}" }},')
+    lines += ["]", ""]
+    p = d / "bench.toml"
+    p.write_text("\n".join(lines))
+    return p
+
+
+def write_csv(path: Path, n_inv: int, days: int, bump: float = 0.0) -> int:
+    """Wide CSV of 5-min rows; returns the number of readings (non-missing values)."""
+    import pandas as pd
+
+    rng = np.random.default_rng(7)
+    n = days * 288
+    t = np.datetime64("2023-01-01T00:05") + np.arange(n) * np.timedelta64(5, "m")
+    hour = (np.arange(n) % 288) / 12.0
+    doy = np.arange(n) / 288.0
+    sun = np.clip(np.sin((hour - 6) / 12 * np.pi), 0, None) * (0.75 + 0.25 * np.cos((doy - 172) / 365 * 2 * np.pi))
+    poa = np.round(1000 * sun * rng.uniform(0.7, 1.0, n), 1)
+    cols = {"Time": pd.Series(t).dt.strftime("%Y-%m-%d %H:%M")}
+    scale = rng.uniform(0.9, 1.0, n_inv)
+    for i in range(n_inv):
+        cols[f"INV{i + 1:03d}_PAC"] = np.round(poa * 0.1 * scale[i] + bump, 2)
+    cols["Irr_POA"] = poa
+    cols["Irr_GHI"] = np.round(poa * 0.85, 1)
+    cols["T_mod"] = np.round(10 + 30 * sun, 2)
+    cols["T_amb"] = np.round(8 + 15 * sun, 2)
+    cols["Wind"] = np.round(rng.uniform(0, 8, n), 2)
+    df = pd.DataFrame(cols)
+    df.to_csv(path, index=False, chunksize=20_000)
+    return n * (n_inv + len(SENSORS))
+
+
+# ---------------------------------------------------------------- steps (child processes)
+
+def step_ours(db: str, cfg_path: str, csv: str) -> None:
+    from db.engine import make_engine
+    from ingest.config import load_site_config
+    from ingest.load import ingest_paths
+
+    t0 = time.perf_counter()
+    schema_name = os.environ.get("BENCH_PG_SCHEMA")
+    if "://" in db and schema_name:  # PostgreSQL: an isolated schema made by main()
+        import sqlalchemy as sa
+
+        from db.engine import resolve_url
+        from db.migrate import upgrade
+
+        engine = sa.create_engine(resolve_url(db),
+                                  connect_args={"options": f"-csearch_path={schema_name}"})
+        upgrade(engine)
+    else:
+        engine = make_engine(db)
+    cfg = load_site_config(cfg_path)
+    (res,) = ingest_paths(engine, cfg, [csv])
+    dt_s = time.perf_counter() - t0
+    assert res.status == "loaded", res.message
+    c = res.counts
+    print(f"RESULT {dt_s:.3f} {c['values_loaded'] + c['values_duplicate']} "
+          f"conflicts={c['values_conflict']} duplicates={c['values_duplicate']}")
+
+
+def step_plain(db: str, cfg_path: str, csv: str) -> None:
+    import pandas as pd
+
+    from db.engine import make_engine
+    from db.registry import register_site
+    from ingest.config import load_site_config
+
+    engine = make_engine(db)
+    chans = register_site(engine, load_site_config(cfg_path))
+    header_to_channel = {}
+    cfg = load_site_config(cfg_path)
+    for c in cfg.sources[0].columns:
+        header_to_channel[c.header] = chans[(c.device, c.quantity)]
+    t0 = time.perf_counter()
+    df = pd.read_csv(csv)
+    ts = pd.to_datetime(df.pop("Time"), format="%Y-%m-%d %H:%M").astype("datetime64[s]").astype("int64") - 300
+    df.insert(0, "ts_s", ts)
+    long = df.melt(id_vars="ts_s", var_name="header", value_name="value").dropna()
+    long["channel_id"] = long.pop("header").map(header_to_channel)
+    long["batch_id"] = 0
+    long[["channel_id", "ts_s", "value", "batch_id"]].to_sql("reading", engine, if_exists="append",
+                                                             index=False)
+    dt_s = time.perf_counter() - t0
+    print(f"RESULT {dt_s:.3f} {len(long)}")
+
+
+def step_pg_executemany(url: str, n: int) -> None:
+    """Baseline on PostgreSQL: psycopg executemany of the same upsert, n rows."""
+    import psycopg
+
+    from db.engine import resolve_url
+
+    raw = resolve_url(url).replace("postgresql+psycopg://", "postgresql://")
+    rows = [(1, i * 300, float(i % 1000) / 10, 0) for i in range(n)]
+    with psycopg.connect(raw) as conn, conn.cursor() as cur:
+        cur.execute("CREATE TEMP TABLE r (channel_id int, ts_s bigint, value float8, batch_id int, "
+                    "PRIMARY KEY (channel_id, ts_s))")
+        t0 = time.perf_counter()
+        cur.executemany("INSERT INTO r VALUES (%s, %s, %s, %s) ON CONFLICT (channel_id, ts_s) "
+                        "DO UPDATE SET value = excluded.value", rows)
+        conn.commit()
+        dt_s = time.perf_counter() - t0
+    print(f"RESULT {dt_s:.3f} {n}")
+
+
+def run_child(*args: str) -> tuple[float, int, float, str]:
+    """Run a step in a child process; return (seconds, readings, peak RSS MiB, extra text)."""
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    p = subprocess.Popen([sys.executable, __file__, "--step", *args], stdout=subprocess.PIPE,
+                         text=True, env=env)
+    out = p.stdout.read()
+    _pid, status, usage = os.wait4(p.pid, 0)
+    if status != 0:
+        raise SystemExit(f"step {args[0]} failed:\n{out}")
+    line = next(x for x in out.splitlines() if x.startswith("RESULT"))
+    parts = line.split()
+    return float(parts[1]), int(parts[2]), usage.ru_maxrss / 1024, " ".join(parts[3:])
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--inverters", type=int, default=100)
+    ap.add_argument("--days", type=int, default=365)
+    ap.add_argument("--pg", metavar="URL", default=None)
+    ap.add_argument("--step", nargs="+", help=argparse.SUPPRESS)
+    a = ap.parse_args()
+    if a.step:
+        name, *rest = a.step
+        if name == "pg_executemany":
+            step_pg_executemany(rest[0], int(rest[1]))
+        else:
+            {"ours": step_ours, "plain": step_plain}[name](*rest)
+        return
+    with tempfile.TemporaryDirectory(prefix="bench_ingest_") as tmp:
+        d = Path(tmp)
+        cfg = write_config(d, a.inverters)
+        t0 = time.perf_counter()
+        csv = d / "bench_2023.csv"
+        n = write_csv(csv, a.inverters, a.days)
+        csv2 = d / "bench_2023_v2.csv"
+        write_csv(csv2, a.inverters, a.days, bump=0.01)
+        print(f"generated {n:,} readings ({a.days} days x 288 rows x {a.inverters + len(SENSORS)} "
+              f"columns), {csv.stat().st_size / 1e6:.0f} MB, in {time.perf_counter() - t0:.1f} s")
+        res = {}
+        res["ours"] = run_child("ours", str(d / "ours.sqlite"), str(cfg), str(csv))
+        res["ours-overlap"] = run_child("ours", str(d / "ours.sqlite"), str(cfg), str(csv2))
+        res["plain"] = run_child("plain", str(d / "plain.sqlite"), str(cfg), str(csv))
+        if a.pg:
+            import sqlalchemy as sa
+
+            from db.engine import resolve_url
+
+            schema_name = f"bench_ingest_{os.getpid()}"
+            admin = sa.create_engine(resolve_url(a.pg))
+            with admin.begin() as conn:
+                conn.execute(sa.text(f'CREATE SCHEMA "{schema_name}"'))
+            os.environ["BENCH_PG_SCHEMA"] = schema_name
+            try:
+                res["ours-postgres"] = run_child("ours", a.pg, str(cfg), str(csv))
+                res["ours-postgres-overlap"] = run_child("ours", a.pg, str(cfg), str(csv2))
+                res["pg-executemany"] = run_child("pg_executemany", a.pg, "500000")
+            finally:
+                with admin.begin() as conn:
+                    conn.execute(sa.text(f'DROP SCHEMA "{schema_name}" CASCADE'))
+        print(f"{'step':<24}{'seconds':>9}{'readings':>13}{'readings/s':>13}{'peak RSS':>11}")
+        for k, (s, r, rss, extra) in res.items():
+            print(f"{k:<24}{s:>9.1f}{r:>13,}{r / s:>13,.0f}{rss:>8.0f} MiB  {extra}")
+        ratio = (res["ours"][1] / res["ours"][0]) / (res["plain"][1] / res["plain"][0])
+        print(f"ratio ours / plain (readings/s): {ratio:.2f}")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,229 @@
+"""dashboard.charts and dashboard.theme without Streamlit: units on every axis, the data
+drawn are the data given, colour-blind-safe palettes (issue #6)."""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+from analytics.warranty import warranted_fraction
+from dashboard import charts, theme
+
+UNIT = re.compile(r"\[[^\]]+\]")
+#: axes that are categorical or clock time: labelled, no unit
+NO_UNIT_OK = ("Inverter", "Device · quantity", "File", "Day (local standard time)",
+              "Local standard time")
+
+
+def _axis_titles(fig) -> dict[str, str]:
+    out = {}
+    for name in dir(fig.layout):
+        if re.fullmatch(r"[xy]axis\d*", name):
+            ax = getattr(fig.layout, name)
+            if ax is not None and ax.title is not None and ax.title.text:
+                out[name] = ax.title.text
+    return out
+
+
+def _check_units(fig) -> dict[str, str]:
+    titles = _axis_titles(fig)
+    assert titles, "figure has no axis titles"
+    for name, text in titles.items():
+        assert UNIT.search(text) or text.startswith(NO_UNIT_OK), f"{name} {text!r} has no unit"
+    return titles
+
+
+def _days(n, start=dt.date(2024, 6, 1)):
+    return [start + dt.timedelta(days=k) for k in range(n)]
+
+
+# ---------------------------------------------------------------- weekly check
+
+
+def test_pr_heatmap_draws_the_matrix_on_a_symmetric_diverging_scale():
+    heat = pd.DataFrame([[-5.0, 0.0, np.nan], [2.5, 12.0, -1.0]], index=["INV-1", "INV-2"],
+                        columns=_days(3))
+    fig = charts.pr_heatmap(heat, limit_pct=10)
+    titles = _check_units(fig)
+    assert titles["xaxis"] == "Day (local standard time)" and titles["yaxis"] == "Inverter"
+    hm = fig.data[0]
+    assert_allclose(np.asarray(hm.z, dtype=float), heat.to_numpy(), equal_nan=True)
+    # centred on the median (0 %), saturating symmetrically
+    assert hm.zmid == 0 and hm.zmin == -10 and hm.zmax == 10
+    assert "[%]" in hm.colorbar.title.text
+    # hover text of the NaN cell says why it is blank
+    assert hm.customdata[0][2] == "not valid" and hm.customdata[1][1] == "+12.0 %"
+
+
+def test_fleet_quadrant_axes_are_the_two_comparisons():
+    fleet = pd.DataFrame({"device_id": ["A", "B", "C"], "d_trailing_pct": [-4.0, 0.5, 1.0],
+                          "d_peers_pct": [-6.0, 0.2, np.nan], "e_ac_kwh": [100.0, 200.0, 150.0],
+                          "n_flags": [1, 0, 0]})
+    fig = charts.fleet_quadrant(fleet)
+    titles = _check_units(fig)
+    assert "trailing" in titles["xaxis"] and "peer" in titles["yaxis"]
+    sc = fig.data[0]
+    assert list(sc.x) == [-4.0, 0.5] and list(sc.y) == [-6.0, 0.2]  # C has no peer value
+    assert list(sc.text) == ["A", ""]  # only the outlier is labelled
+    assert sc.marker.color[0] == theme.OKABE_ITO["vermillion"]  # has flags
+
+
+# ---------------------------------------------------------------- trends
+
+
+def test_pr_trend_layers():
+    days = pd.date_range("2024-01-01", periods=40, freq="D")
+    chosen = pd.DataFrame({"device_id": "INV-1", "day": days, "pr_stc": 0.85,
+                           "pr_stc_roll": 0.85})
+    peers = pd.DataFrame({"day": days, "p10": 0.84, "p50": 0.85, "p90": 0.86})
+    flagged = chosen.iloc[[3, 4]].assign(kind="underperformance")
+    soil = pd.DataFrame({"start_local": [days[10]], "end_local": [days[20]]})
+    fit = pd.DataFrame({"day": days, "fit": 0.85, "lo": 0.84, "hi": 0.86})
+    fig = charts.pr_trend(chosen, peers, flagged, soil, {"INV-1 yoy fit": fit})
+    titles = _check_units(fig)
+    assert titles["yaxis"] == "Temperature-corrected PR (PR_STC) [–]"
+    names = [t.name for t in fig.data]
+    assert "INV-1 rolling median" in names and "flagged day" in names
+    assert "INV-1 yoy fit" in names and "soiling interval" in names
+    assert len(fig.layout.shapes) == 1  # the soiling interval, shaded
+
+
+def test_pr_trend_empty_says_so():
+    fig = charts.pr_trend(pd.DataFrame(columns=["device_id", "day", "pr_stc", "pr_stc_roll"]),
+                          pd.DataFrame())
+    assert "Choose inverters" in fig.layout.annotations[0].text
+    _check_units(fig)
+
+
+# ---------------------------------------------------------------- degradation
+
+
+def test_degradation_forest_whiskers_are_the_intervals():
+    res = pd.DataFrame({"device_id": ["A", "A", "B"], "method": ["yoy", "rlm", "yoy"],
+                        "rate_pct_per_yr": [-0.62, -0.55, -0.40],
+                        "ci_low": [-0.80, -0.70, -0.60], "ci_high": [-0.45, -0.40, -0.20]})
+    fig = charts.degradation_forest(res)
+    titles = _check_units(fig)
+    assert titles["xaxis"] == "Degradation rate Rd [%/yr]"
+    yoy = next(t for t in fig.data if t.name == "yoy")
+    # METHODS §11 test vector: Rd = -0.62, 95 % CI [-0.80, -0.45]
+    assert_allclose(yoy.error_x.array, [0.17, 0.20], atol=1e-12)  # ci_high - Rd
+    assert_allclose(yoy.error_x.arrayminus, [0.18, 0.20], atol=1e-12)  # Rd - ci_low
+
+
+def test_yoy_histogram_bars_at_bin_centres():
+    fig = charts.yoy_histogram([-1.0, 0.0, 1.0], [2, 3], rd=-0.2, ci=(-0.4, 0.1))
+    _check_units(fig)
+    bar = fig.data[0]
+    assert_allclose(bar.x, [-0.5, 0.5]) and list(bar.y) == [2, 3]  # hand: (−1+0)/2, (0+1)/2
+    assert fig.layout.xaxis.title.text == "Year-on-year rate r_d [%/yr]"
+    assert any("median -0.20" in (a.text or "") for a in fig.layout.annotations)
+
+
+def test_warranty_chart_draws_the_warranted_line():
+    years = np.array([0.0, 1.0, 25.0])
+    w = warranted_fraction(years, first_year_loss_pct=3.0, annual_loss_pct=0.7)
+    env = pd.DataFrame({"years": years, "warranted_pct": 100 * w})
+    fig = charts.warranty_chart(env)
+    _check_units(fig)
+    # METHODS §11: W1 = 97 %, d_w = 0.7 %/yr -> 80.2 % at year 25
+    assert_allclose(fig.data[0].y, [97.0, 97.0, 80.2], atol=1e-9)
+    empty = charts.warranty_chart(None)
+    assert "No warranty terms" in empty.layout.annotations[0].text
+
+
+# ---------------------------------------------------------------- drill-down
+
+
+def _frame(n=48, start="2024-06-01T00:00Z"):
+    idx = pd.date_range(start, periods=n, freq="15min", tz="UTC", name="ts_utc")
+    g = np.clip(np.sin(np.linspace(0, np.pi, n)) * 900, 0, None)
+    return pd.DataFrame({"p_ac_kw": g / 10, "p_ac_exp_kw": g / 9.5, "poa_wm2": g,
+                         "t_module_c": 20 + g / 30, "t_cell_c": 20 + g / 30 + 3 * g / 1000,
+                         "t_amb_c": 18.0, "p_ac_kw_per_kwp": g / 1000}, index=idx)
+
+
+def test_drilldown_panels_units_flags_and_local_time():
+    f = _frame()
+    peers = pd.DataFrame({"ts_utc": f.index, "device_id": "INV-2",
+                          "p_ac_kw_per_kwp": f["p_ac_kw_per_kwp"] * 1.02})
+    t0 = pd.Timestamp("2024-06-01T04:00")
+    flags = pd.DataFrame({"flag_id": [7], "kind": ["outage"], "start_local": [t0],
+                          "end_local": [t0 + pd.Timedelta(hours=2)]})
+    fig = charts.drilldown(f, peers, flags, "INV-1", std_offset_s=3600, highlight_flag_id=7)
+    titles = _check_units(fig)
+    assert set(titles.values()) >= {"AC power [kW]", "Power per kWp [kW/kWp]", "POA [W/m²]",
+                                    "Temperature [°C]", "Local standard time (UTC+01:00)"}
+    first = pd.Timestamp(fig.data[0].x[0])
+    assert first == pd.Timestamp("2024-06-01T01:00")  # 00:00 UTC shown as 01:00 UTC+1
+    assert len(fig.layout.shapes) == 4  # the flag, shaded in each of the four panels
+    assert "#7 outage" in fig.layout.annotations[0].text
+    assert fig.layout.xaxis.matches is None or fig.layout.xaxis2.matches == "x"  # one time axis
+    assert any(t.name == "peers" for t in fig.data)
+
+
+def test_drilldown_empty_frame():
+    fig = charts.drilldown(_frame().iloc[0:0], pd.DataFrame(), pd.DataFrame(), "INV-1")
+    assert "No interval readings" in fig.layout.annotations[0].text
+
+
+# ---------------------------------------------------------------- data quality
+
+
+def test_completeness_heatmap_in_percent():
+    comp = pd.DataFrame([[1.0, 0.5], [0.0, 0.25]], index=["INV-1", "POA · poa_wm2"],
+                        columns=_days(2))
+    fig = charts.completeness_heatmap(comp)
+    _check_units(fig)
+    assert_allclose(fig.data[0].z, [[100, 50], [0, 25]])
+    assert fig.data[0].zmin == 0 and fig.data[0].zmax == 100
+
+
+def test_ingest_bars_stack_rows():
+    log = pd.DataFrame({"batch_id": [2, 1], "file_name": ["b.csv", "a.csv"],
+                        "rows_loaded": [90, 100], "rows_duplicate": [5, 0],
+                        "rows_rejected": [5, 1]})
+    fig = charts.ingest_bars(log)
+    assert _check_units(fig)["yaxis"] == "Rows [count]"
+    rejected = next(t for t in fig.data if t.name == "rejected")
+    assert list(rejected.x) == ["a.csv", "b.csv"] and list(rejected.y) == [1, 5]
+
+
+# ---------------------------------------------------------------- theme
+
+
+def _rgb(hex_):
+    return tuple(int(hex_[i:i + 2], 16) for i in (1, 3, 5))
+
+
+def test_okabe_ito_palette_values():
+    # Okabe & Ito (2008), "Color Universal Design", RGB values of the eight colours
+    # (from memory; they are the values widely reproduced from the original page)
+    assert _rgb(theme.OKABE_ITO["orange"]) == (230, 159, 0)
+    assert _rgb(theme.OKABE_ITO["sky_blue"]) == (86, 180, 233)
+    assert _rgb(theme.OKABE_ITO["bluish_green"]) == (0, 158, 115)
+    assert _rgb(theme.OKABE_ITO["yellow"]) == (240, 228, 66)
+    assert _rgb(theme.OKABE_ITO["blue"]) == (0, 114, 178)
+    assert _rgb(theme.OKABE_ITO["vermillion"]) == (213, 94, 0)
+    assert _rgb(theme.OKABE_ITO["reddish_purple"]) == (204, 121, 167)
+
+
+def test_diverging_scale_is_tol_burd_reversed_with_light_centre():
+    # Tol (2021) BuRd end points #2166AC (blue) and #B2182B (red), centre #F7F7F7 (from memory)
+    assert theme.DIVERGING[0] == [0.0, "#B2182B"]  # far below the median: red
+    assert theme.DIVERGING[-1] == [1.0, "#2166AC"]
+    assert theme.DIVERGING[4] == [0.5, "#F7F7F7"]
+    # lightness rises monotonically towards the centre from both ends
+    lum = [sum(_rgb(c)) for _, c in theme.DIVERGING]
+    assert lum[:5] == sorted(lum[:5]) and lum[4:] == sorted(lum[4:], reverse=True)
+
+
+@pytest.mark.parametrize("fn", [charts.pr_heatmap, charts.completeness_heatmap])
+def test_empty_heatmaps(fn):
+    fig = fn(pd.DataFrame())
+    assert fig.layout.annotations and _axis_titles(fig)

@@ -1,0 +1,186 @@
+"""Degradation job, store and results export end to end on a small SQLite store (issue #7).
+
+The store is built directly (tests/helpers_store.py) from our own known-answer generator
+(tests/degradation_synth.py): four inverters with injected rates, a shared POA sensor that
+drifts +1 %/yr, 30-minute power readings for the clear-sky cross-check and daily rows as
+the daily job stores them. A fifth inverter has only one year of data.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+from db.daily import write_daily
+from db.degradation import SITE_DEVICE, degradation_results
+from heliaudit.cli import main
+from heliaudit.jobs_degradation import (
+    NothingComputedError,
+    SiteNotFoundError,
+    results_document,
+    run_degradation,
+)
+from tests.degradation_synth import interval_site
+from tests.helpers_store import add_inverter, add_readings, add_sensor, add_site, make_store
+
+RATES = (-0.4, -0.6, -0.5, -1.2)  # INV04 degrades fast: warranty breach expected
+CONFIG = """
+[warranty]
+start_date = 2019-01-01
+first_year_loss_pct = 2.0
+annual_loss_pct = 0.55
+years = 25
+confidence = 0.95
+"""
+
+
+def _daily_rows(site: dict, name: str, days_keep=None) -> pd.DataFrame:
+    g = site["poa_sensor"]
+    tau = 0.5
+    c = 1 + site["gamma"] * (site["t_cell"] - 25)
+    p = site["p_ac"][name]
+    p_exp = site["p_dc_kwp"] * g / 1000 * c * site["eta"]
+    ok = g >= 200
+    day = p.index.tz_localize(None).normalize()
+    f = pd.DataFrame({
+        "e_ac_kwh": p * tau, "e_ac_valid_kwh": (p * tau).where(ok, 0.0),
+        "e_exp_valid_kwh": (p_exp * tau).where(ok, 0.0), "e_exp_kwh": p_exp * tau,
+        "h_poa_kwhm2": g * tau / 1000, "e_ref_kwh": site["p_dc_kwp"] * g * tau / 1000,
+        "e_ref_stc_kwh": c * site["p_dc_kwp"] * g * tau / 1000}).groupby(day).sum()
+    f["pi"] = f["e_ac_valid_kwh"] / f["e_exp_valid_kwh"]
+    f["pr"] = f["e_ac_kwh"] / f["e_ref_kwh"]
+    f["pr_stc"] = f["e_ac_kwh"] / f["e_ref_stc_kwh"]
+    f["day_valid"] = True
+    f["n_intervals"] = f["n_daylight"] = f["n_valid"] = 48
+    f["coverage"] = 1.0
+    if days_keep is not None:
+        f = f.iloc[:days_keep]
+    f.insert(0, "day", [d.date() for d in f.index])
+    f.insert(0, "device_id", name)
+    return f.reset_index(drop=True)
+
+
+@pytest.fixture(scope="module")
+def store(tmp_path_factory):
+    site = interval_site(years=2.6, rates_pct_per_yr=RATES, sensor_drift_pct_per_yr=1.0, seed=3)
+    engine = make_store(tmp_path_factory.mktemp("deg"))
+    ts = (site["times"].as_unit("s").asi8).astype(np.int64)
+    with engine.begin() as conn:
+        add_site(conn, "s1", timezone="UTC", latitude_deg=40.0, longitude_deg=-3.7,
+                 altitude_m=600, tilt_deg=30, azimuth_deg=180, albedo=0.2, config_toml=CONFIG)
+        poa = add_sensor(conn, "s1", "poa1", "poa_wm2", instrument="reference_cell")
+        tmod = add_sensor(conn, "s1", "tmod1", "t_module_c")
+        add_readings(conn, poa, ts, site["poa_sensor"].to_numpy())
+        add_readings(conn, tmod, ts, (site["t_cell"] - 3 * site["poa_true"] / 1000).to_numpy())
+        for name in site["p_ac"]:
+            ch = add_inverter(conn, "s1", name, poa_sensor_id="poa1", t_module_sensor_id="tmod1",
+                              p_dc_kwp=100.0, p_ac_max_kw=100.0, gamma_pmp_per_c=site["gamma"],
+                              eta_inv_nom=site["eta"], commissioned=dt.date(2019, 1, 1))
+            add_readings(conn, ch["p_ac_kw"], ts, site["p_ac"][name].to_numpy())
+        add_inverter(conn, "s1", "INV05", poa_sensor_id="poa1", t_module_sensor_id="tmod1",
+                     commissioned=dt.date(2019, 1, 1))
+        add_site(conn, "empty", timezone="UTC")
+    rows = pd.concat([_daily_rows(site, n) for n in site["p_ac"]]
+                     + [_daily_rows(site, "INV01", days_keep=365).assign(device_id="INV05")],
+                     ignore_index=True)
+    write_daily(engine, "s1", rows, first_day=min(rows["day"]), last_day=max(rows["day"]))
+    summary = run_degradation(engine, "s1", stabilisation_days=0, n_resamples=400)
+    return engine, summary
+
+
+def test_job_stores_every_method(store):
+    engine, summary = store
+    assert summary["inverters"] == 5 and summary["refused"] == 1
+    res = degradation_results(engine, "s1")
+    methods = {"yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "yoy_stable_segments",
+               "summary"}
+    for dev in ("INV01", "INV02", "INV03", "INV04", "INV05", SITE_DEVICE):
+        assert set(res.loc[res["device_id"] == dev, "method"]) == methods
+    one = res[(res["device_id"] == "INV01") & (res["method"] == "yoy")].iloc[0]
+    assert one["ci_low"] < one["rate_pct_per_yr"] < one["ci_high"]
+    assert one["details"]["histogram"]["counts"]
+
+
+def test_short_inverter_refused_with_reason(store):
+    engine, _ = store
+    res = degradation_results(engine, "s1")
+    r = res[(res["device_id"] == "INV05") & (res["method"] == "yoy")].iloc[0]
+    assert np.isnan(r["rate_pct_per_yr"]) and "at least 2 years" in r["reason"]
+
+
+def test_drift_detected_and_clearsky_recovers_truth(store):
+    # sensor-based rate biased by ≈ -0.99 %/yr (1 - 1/1.01); clear-sky rate within 0.15 of
+    # the injected rate (our generator's truth); the drift warning reaches the summary.
+    engine, _ = store
+    res = degradation_results(engine, "s1").set_index(["device_id", "method"])
+    for i, truth in enumerate(RATES, start=1):
+        dev = f"INV{i:02d}"
+        assert abs(res.loc[(dev, "clearsky_yoy"), "rate_pct_per_yr"] - truth) < 0.15
+        assert abs(res.loc[(dev, "yoy"), "rate_pct_per_yr"] - (truth - 0.99)) < 0.15
+        summ = res.loc[(dev, "summary"), "details"]
+        assert any("check POA sensor calibration" in w for w in summ["warnings"])
+        assert summ["comparison"]["agree"] is False
+
+
+def test_results_json_document(store):
+    engine, _ = store
+    doc = results_document(engine, "s1")
+    assert doc["schema"] == "heliaudit-results/1"
+    assert doc["site"]["site_id"] == "s1" and doc["site"]["timezone"] == "UTC"
+    assert doc["software"]["version"] and doc["parameters"]["confidence"] == 0.95
+    inv = {b["device_id"]: b for b in doc["inverters"]}
+    d1 = inv["INV01"]
+    for k in ("rate_pct_per_yr", "ci_low", "ci_high", "confidence", "n_points"):
+        assert d1["degradation"]["yoy"][k] is not None
+    assert d1["degradation"]["peer_relative"]["rate_pct_per_yr"] is not None
+    assert inv["INV05"]["degradation"]["yoy"]["reason"]
+    # PR from daily sums (IEC 61724-1 ratio of sums): recompute from the stored daily table
+    from db.daily import daily_table
+    t = daily_table(engine, "s1", ["INV01"])
+    assert d1["period"]["pr"] == pytest.approx(t["e_ac_kwh"].sum() / t["e_ref_kwh"].sum(), abs=1e-5)
+    assert d1["period"]["pr_stc"] == pytest.approx(
+        t["e_ac_kwh"].sum() / t["e_ref_stc_kwh"].sum(), abs=1e-5)
+    assert d1["period"]["first_day"] == "2019-01-01"
+    # warranty: INV04 sensor rate ≈ -2.2 %/yr against 0.55 %/yr -> breach at 95 % one-sided
+    w4 = inv["INV04"]["warranty"]
+    assert w4["exceeds"] is True and w4["warranted_rate_pct_per_yr"] == -0.55
+    assert "Screening evidence" in w4["disclaimer"] and w4["shortfall_kwh"] >= 0
+    assert doc["site_result"]["degradation"]["yoy"]["rate_pct_per_yr"] is not None
+    assert isinstance(doc["flags"], list)
+    json.dumps(doc, allow_nan=False)  # strict JSON
+
+
+def test_cli_json_and_csv(store, tmp_path):
+    engine, _ = store
+    url = str(engine.url)
+    out = tmp_path / "r.json"
+    r = CliRunner().invoke(main, ["--db", url, "results", "--site", "s1", "--out", str(out)])
+    assert r.exit_code == 0, r.output
+    assert json.loads(out.read_text())["schema"] == "heliaudit-results/1"
+    r = CliRunner().invoke(main, ["--db", url, "results", "--site", "s1", "--format", "csv"])
+    assert r.exit_code == 0
+    head = r.output.splitlines()[0].split(",")
+    assert head[:4] == ["site_id", "device_id", "method", "rate_pct_per_yr"]
+    r = CliRunner().invoke(main, ["--db", url, "results", "--site", "s1", "--format", "csv",
+                                  "--table", "daily"])
+    assert r.exit_code == 0 and "pr_stc" in r.output.splitlines()[0]
+    r = CliRunner().invoke(main, ["--db", url, "results", "--site", "s1", "--format", "csv",
+                                  "--table", "flags"])
+    assert r.exit_code == 0 and r.output.splitlines()[0].startswith("flag_id")
+
+
+def test_nothing_computed_is_a_clear_error(store):
+    engine, _ = store
+    with pytest.raises(NothingComputedError, match="nothing computed for site 'empty'"):
+        results_document(engine, "empty")
+    with pytest.raises(SiteNotFoundError, match="no site 'nope'"):
+        results_document(engine, "nope")
+    r = CliRunner().invoke(main, ["--db", str(engine.url), "results", "--site", "empty"])
+    assert r.exit_code == 1
+    assert r.output.strip() == ("Error: nothing computed for site 'empty' yet: run "
+                                "`heliaudit compute --site empty` after loading its exports")
