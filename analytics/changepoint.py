@@ -6,7 +6,7 @@ with PELT (pruned exact linear time, Killick et al. 2012) — the recursion of `
 vectorised here (:func:`pelt_line`, tested to give ruptures' breakpoints) — on
 14-day medians of the de-seasonalised index with a piecewise-linear cost (each segment has
 its own level and slope, so slow degradation is not cut into a staircase), a penalty tied to
-the noise, then refine each break to the day and size it from the two adjacent segment fits.
+the noise, then refine each break to the day and size it from the medians of the 30 days on either side.
 
 References
 ----------
@@ -144,8 +144,9 @@ def pelt_line(y, t, *, pen: float, min_size: int) -> list[int]:
 
 
 def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segment_days: int = 90,
-                        min_step_pct: float = 1.0, resample_days: int = 14,
-                        refine_days: int = 14, deseason: bool = True) -> dict:
+                        min_step_pct: float = 2.0, resample_days: int = 14,
+                        refine_days: int = 14, deseason: bool = True,
+                        recovery_slope_pct_per_yr: float = -3.0) -> dict:
     """Find steps in a daily index with PELT and report them with dates and sizes.
 
     Parameters
@@ -159,8 +160,12 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
         use, with one unit per segment parameter (level, slope, location: 3).
     min_segment_days : int, default 90
         Shortest segment (PELT ``min_size``).
-    min_step_pct : float, default 1.0
+    min_step_pct : float, default 2.0
         Breaks whose level jump is smaller are merged away: a slope change is not a step.
+    recovery_slope_pct_per_yr : float, default -3.0
+        An upward step whose preceding segment falls faster than this is labelled
+        ``"recovery"`` (probable cleaning of a soiled array: soiling rates of 0.04–0.13 %/day
+        are 15–50 %/yr; common practice) rather than ``"rise"`` (e.g. a repair).
     resample_days : int, default 14
         PELT runs on medians of this many days (fast, robust); each break is then refined to
         the day within ± ``refine_days`` by least squares of two lines.
@@ -169,9 +174,10 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
     -------
     dict
         ``{"method", "penalty", "sigma", "change_points": [{"day", "size_pct", "level_before",
-        "level_after"}], "segments": [{"start", "end", "n_days", "slope_pct_per_yr"}]}``;
+        "level_after", "kind", "slope_before_pct_per_yr"}], "segments": [{"start", "end",
+        "n_days", "slope_pct_per_yr"}]}``; ``kind`` is "drop", "rise" or "recovery";
         ``day`` is the first day at the new level; ``size_pct`` = 100 (after − before)/before
-        evaluated at the break from the two adjacent segment lines (negative = drop).
+        from the medians of the 30 days on either side (negative = drop).
     """
     s = pi.astype(float).copy()
     s.index = pd.DatetimeIndex(pd.to_datetime(s.index))
@@ -217,14 +223,22 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
             breaks.append(int(ks[int(np.argmin(sse))]))
         else:
             breaks.append(int(k0))
-    # size each break from adjacent segment lines; drop small ones (slope changes)
+    # size each break from local medians; drop small ones (slope changes)
     kept = _size_and_filter(tday, y, breaks, min_step_pct)
     edges = [0] + [b for b, *_ in kept] + [len(y)]
-    for b, size, before, after in kept:
+    for i, (b, size, before, after) in enumerate(kept):
+        a = edges[i]
+        _, slope = _segment_fit(tday[a:b] / DAYS_PER_YEAR, y[a:b])
+        slope_before = 100 * slope / before if before else 0.0
+        # an upward step after a falling segment is what a cleaning does to a soiled array
+        kind = ("drop" if size < 0 else
+                "recovery" if slope_before <= recovery_slope_pct_per_yr else "rise")
         result["change_points"].append({"day": x.index[b].date().isoformat(),
                                         "size_pct": round(float(size), 3),
                                         "level_before": round(float(before), 5),
-                                        "level_after": round(float(after), 5)})
+                                        "level_after": round(float(after), 5),
+                                        "kind": kind,
+                                        "slope_before_pct_per_yr": round(float(slope_before), 3)})
     for a, b in zip(edges[:-1], edges[1:], strict=True):
         icpt, slope = _segment_fit(tday[a:b] / DAYS_PER_YEAR, y[a:b])
         level0 = icpt + slope * tday[a] / DAYS_PER_YEAR
@@ -235,19 +249,20 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
     return result
 
 
-def _size_and_filter(tday, y, breaks, min_step_pct):
-    """Size every break from OLS lines of its neighbouring segments; iteratively drop the
-    smallest below ``min_step_pct`` and re-size the rest."""
+def _size_and_filter(tday, y, breaks, min_step_pct, window_days: float = 30.0):
+    """Size every break from the medians of the ``window_days`` before and after it (bounded
+    by the neighbouring breaks: robust to outliers and to non-linear segments such as a
+    soiling ramp); iteratively drop the smallest below ``min_step_pct`` and re-size."""
     breaks = sorted(set(breaks))
     while True:
         edges = [0] + breaks + [len(y)]
         sized = []
         for i, b in enumerate(breaks):
             a, c = edges[i], edges[i + 2]
-            ia, sa = _segment_fit(tday[a:b], y[a:b])
-            ib, sb = _segment_fit(tday[b:c], y[b:c])
-            before = ia + sa * tday[b]
-            after = ib + sb * tday[b]
+            lo = max(a, int(np.searchsorted(tday, tday[b] - window_days)))
+            hi = min(c, int(np.searchsorted(tday, tday[b] + window_days)))
+            before = float(np.median(y[lo:b]))
+            after = float(np.median(y[b:hi]))
             sized.append((b, 100 * (after - before) / before, before, after))
         small = [z for z in sized if abs(z[1]) < min_step_pct]
         if not small:

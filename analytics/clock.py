@@ -29,8 +29,6 @@ References
 
 from __future__ import annotations
 
-import zoneinfo
-
 import numpy as np
 import pandas as pd
 
@@ -228,9 +226,10 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
         next_day = days[i1 + 1] if i1 + 1 < len(days) else None
         before = float(np.median(clear[:prev_day].tail(n_clear))) if prev_day is not None else 0.0
         after = float(np.median(clear[next_day:].head(n_clear))) if next_day is not None else 0.0
-        start = first if prev_day is None else _refine_boundary(all_delta, prev_day, first,
-                                                                before, level)
-        end = last
+        # a shift present from the first (to the last) day of data covers the whole span
+        start = offsets.index[0] if prev_day is None else _refine_boundary(
+            all_delta, prev_day, first, before, level)
+        end = offsets.index[-1]
         if next_day is not None:
             end = _refine_boundary(all_delta, last, next_day, level, after) - pd.Timedelta(days=1)
         shift = -_snap(level)

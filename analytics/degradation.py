@@ -205,7 +205,7 @@ def yoy_rates(pi: pd.Series, *, lag_days: int = 365, reference: str = "pairwise"
     else:
         ref = float(full.iloc[:365].median())
     r = 100.0 * (later - full) / ref * (365.0 / lag_days)
-    return r.dropna().rename("rd_pct_per_yr")
+    return r[np.isfinite(r)].rename("rd_pct_per_yr")  # a zero reference gives no pair
 
 
 def acf_block_length(x, *, threshold: float = 0.2, max_block: int | None = None) -> int:
@@ -414,19 +414,48 @@ def monthly_pi(pi: pd.Series, weights: pd.Series | None = None, *, min_days: int
     0.9
     """
     s = _as_daily(pi)
-    w = (pd.Series(1.0, index=s.index) if weights is None
-         else _as_daily(weights).reindex(s.index).fillna(0.0))
+    if s.empty:
+        return pd.Series(dtype=float, index=pd.DatetimeIndex([]), name="pi")
+    if weights is None:
+        w = np.ones(len(s))
+    else:
+        wd = weights if weights.index.equals(s.index) else _as_daily(weights).reindex(s.index)
+        w = np.nan_to_num(wd.to_numpy(dtype=float), nan=0.0)
     if (w < 0).any():
         raise ValueError("weights must be non-negative")
-    month = s.index.to_period("M")
-    num = (s * w).groupby(month).sum()
-    den = w.groupby(month).sum()
-    n = s.groupby(month).count()
-    out = (num / den.where(den > 0)).where(n >= min_days)
-    full = pd.period_range(month.min(), month.max(), freq="M") if len(s) else month.unique()
-    out = out.reindex(full)
-    out.index = out.index.to_timestamp()
-    return out.rename("pi")
+    m = (s.index.year * 12 + s.index.month - 1).to_numpy()
+    m0 = m.min()
+    k = m - m0
+    size = int(m.max() - m0 + 1)
+    num = np.bincount(k, weights=s.to_numpy() * w, minlength=size)
+    den = np.bincount(k, weights=w, minlength=size)
+    n = np.bincount(k, minlength=size)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        vals = np.where((n >= min_days) & (den > 0), num / den, np.nan)
+    months = np.arange(m0, m0 + size)
+    idx = pd.DatetimeIndex(pd.to_datetime({"year": months // 12, "month": months % 12 + 1,
+                                           "day": 1}))
+    return pd.Series(vals, index=idx, name="pi")
+
+
+def deseasonalised_monthly(pi: pd.Series, weights: pd.Series | None = None, *,
+                           harmonics: int = 1, min_days: int = 10) -> pd.Series:
+    """Monthly insolation-weighted index divided by its fitted annual cycle.
+
+    The cycle is the harmonic part of the RLM model A fit (:func:`rlm_rate`):
+    PI_m / (1 + Σ (a_k sin 2πkt + b_k cos 2πkt)/β0). What remains is level, trend and noise,
+    which is what a warranty envelope should be compared with.
+    """
+    m = monthly_pi(pi, weights, min_days=min_days).dropna()
+    s = _as_daily(pi)
+    if len(m) < 2 + 2 * harmonics + 3:
+        raise InsufficientDataError(f"{len(m)} months; too few to fit an annual cycle")
+    t = ((m.index + pd.Timedelta(days=14.5) - s.index[0]) / pd.Timedelta(days=1)).to_numpy(
+        dtype=float) / DAYS_PER_YEAR
+    par = rlm_rate(t, m.to_numpy(), harmonics=harmonics, hac=False).details["params"]
+    season = sum(par[2 * k] * np.sin(2 * np.pi * k * t) + par[2 * k + 1] * np.cos(2 * np.pi * k * t)
+                 for k in range(1, harmonics + 1)) / par[0]
+    return (m / (1 + season)).rename("pi")
 
 
 def _hac_lags(resid: np.ndarray) -> int:
@@ -495,8 +524,10 @@ def rlm_rate(t_yr, y, *, harmonics: int = 1, confidence: float = 0.95, weights=N
     for k in range(1, harmonics + 1):
         cols += [np.sin(2 * np.pi * k * t), np.cos(2 * np.pi * k * t)]
     X = np.column_stack(cols)
+    # conv='coefs' (statsmodels RLM.fit option): stop when the coefficients change < tol;
+    # half the iterations of conv='dev' for the same rate to ~1e-7 %/yr
     fit = sm.RLM(y, X, M=sm.robust.norms.HuberT(t=1.345)).fit(
-        maxiter=50, tol=1e-8, scale_est="mad", cov="H1", conv="dev")
+        maxiter=50, tol=1e-8, scale_est="mad", cov="H1", conv="coefs")
     b0, b1 = float(fit.params[0]), float(fit.params[1])
     if hac:
         lags = hac_maxlags if hac_maxlags is not None else _hac_lags(fit.resid)
@@ -572,8 +603,10 @@ def degradation_stl(pi: pd.Series, weights: pd.Series | None = None, *, confiden
     Interval: the STL trend is a smoother, so its residuals about a line are strongly
     autocorrelated by construction and any covariance computed from them is meaningless.
     The half-width is therefore taken from the HAC RLM fit of the de-seasonalised series
-    (trend + remainder = index − seasonal), whose scatter is the data's own, and centred on
-    the trend rate. ``n_points`` counts the months with real data.
+    (trend + remainder = index − seasonal), whose scatter is the data's own, or from the HAC
+    harmonic RLM (model A) on the same months if that is wider (with few cycles STL's
+    seasonal absorbs part of the year-to-year scatter), and centred on the trend rate.
+    ``n_points`` counts the months with real data.
     """
     s = _as_daily(pi)
     span, msg = check_span(s.index, min_years=min_years, warn_years=warn_years)
@@ -593,8 +626,12 @@ def degradation_stl(pi: pd.Series, weights: pd.Series | None = None, *, confiden
     real = m.notna().to_numpy()
     deseason = (x.to_numpy() - dec.seasonal)[real]
     spread = rlm_rate(t[real], deseason, harmonics=0, confidence=confidence, method=method)
+    # With few cycles STL's per-cycle seasonal absorbs part of the year-to-year variation, so
+    # the de-seasonalised scatter understates the uncertainty: never report a narrower
+    # interval than the harmonic RLM (model A) on the same months.
+    model_a = rlm_rate(t[real], x.to_numpy()[real], harmonics=1, confidence=confidence)
     rd = trend_fit.rate_pct_per_yr
-    half = (spread.ci_high - spread.ci_low) / 2
+    half = max(spread.ci_high - spread.ci_low, model_a.ci_high - model_a.ci_low) / 2
     res = RateResult(method=method, rate_pct_per_yr=rd, ci_low=float(rd - half), ci_high=float(rd + half),
                      confidence=confidence, n_points=n_real)
     if msg:
@@ -649,6 +686,29 @@ def peer_relative_pi(pi_frame: pd.DataFrame, *, min_peers: int = 3) -> pd.DataFr
     return pd.DataFrame(out, index=pi_frame.index, columns=pi_frame.columns)
 
 
+def sensor_clearsky_drift(pi_sensor: pd.Series, pi_clearsky: pd.Series, *,
+                          window_days: int = 15, **yoy_kwargs) -> RateResult:
+    """Year-on-year rate of the ratio sensor-based / clear-sky index on clear days [%/yr].
+
+    On a clear day both indices see the same energy; their ratio is
+    ``E_exp(clear-sky POA) / E_exp(sensor POA)`` ≈ G_clearsky / G_sensor, so module
+    degradation, soiling and weather cancel and what remains is the irradiance sensor's
+    drift against the clear-sky model (METHODS §10 drift check, here from yield). A rate
+    whose interval excludes 0 means the sensor-based and clear-sky degradation rates differ
+    by that much. The ratio's centred rolling median over ``window_days`` (at least two clear
+    days) is used, as for the clear-sky index. Negative = the sensor reads increasingly high
+    (apparent degradation); positive = it reads increasingly low (hidden degradation).
+    """
+    a, b = _as_daily(pi_sensor), _as_daily(pi_clearsky)
+    q = (a / b.reindex(a.index)).dropna()
+    q = q[(q > 0.5) & (q < 2.0)]
+    if q.empty:
+        raise InsufficientDataError("no day with both a sensor-based and a clear-sky index")
+    full = q.reindex(pd.date_range(q.index[0], q.index[-1], freq="D"))
+    dense = full.rolling(window_days, center=True, min_periods=2).median().dropna()
+    return degradation_yoy(dense, method="sensor_vs_clearsky", **yoy_kwargs)
+
+
 SENSOR_METHODS = ("yoy", "rlm", "stl")
 DRIFT_WARNING = ("sensor-based and clear-sky rates disagree: check POA sensor calibration "
                  "(drift) before using the sensor-based rate")
@@ -660,12 +720,14 @@ def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "c
 
     Two methods agree when their intervals overlap (a lenient, easily explained rule; the
     methods share data, so their errors are positively correlated). The peer-relative rate is
-    relative to the fleet and is not compared with absolute rates. Returns
+    relative to the fleet and is not compared with absolute rates. The POA-drift warning also
+    fires when ``results["sensor_vs_clearsky"]`` (:func:`sensor_clearsky_drift`, a much
+    tighter paired test) has an interval that excludes zero. Returns
     ``{"agree": bool | None, "compared": [...], "disagreements": [[a, b], ...],
     "warnings": [...]}``; ``agree`` is None when fewer than two methods have an interval.
     """
     have = {k: r for k, r in results.items()
-            if k != "peer_relative" and r is not None and r.rate_pct_per_yr is not None
+            if k not in ("peer_relative", "sensor_vs_clearsky") and r is not None and r.rate_pct_per_yr is not None
             and r.ci_low is not None and r.ci_high is not None}
     names = sorted(have)
     bad = []
@@ -675,7 +737,10 @@ def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "c
             if ra.ci_high < rb.ci_low or rb.ci_high < ra.ci_low:
                 bad.append([a, b])
     msgs = []
-    if any(clearsky_method in p and (set(p) & set(SENSOR_METHODS)) for p in bad):
+    drift = results.get("sensor_vs_clearsky")
+    drift_shown = (drift is not None and drift.rate_pct_per_yr is not None
+                   and drift.ci_low is not None and (drift.ci_low > 0 or drift.ci_high < 0))
+    if drift_shown or any(clearsky_method in p and (set(p) & set(SENSOR_METHODS)) for p in bad):
         msgs.append(DRIFT_WARNING)
     sensor_bad = [p for p in bad if set(p) <= set(SENSOR_METHODS)]
     if sensor_bad:

@@ -104,7 +104,7 @@ def robust_z(x, axis=None, *, mad_zero_fallback: bool = True):
     Examples
     --------
     >>> robust_z([1, 2, 3, 4, 100]).round(3)
-    array([-1.349, -0.674,  0.   ,  0.674, 65.428])
+    array([-1.349, -0.674,  0.   ,  0.674, 65.426])
     """
     is_pd = isinstance(x, pd.Series | pd.DataFrame)
     a = np.asarray(x, dtype=float)

@@ -345,16 +345,22 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
         sev = "info"
         if last:
             saving = tariff_per_kwh * e_day * loss_end * horizon_days
-            recommend = bool(cleaning_cost > 0 and saving > cleaning_cost) or (
-                cleaning_cost == 0 and loss_end >= min_loss)
+            recommend = bool(cleaning_cost > 0 and saving > cleaning_cost)
             details.update(
                 current_loss_pct=100 * loss_end, ongoing=True,
                 sr_iw_site=sr_iw, sr_iw_period=[str(days[0].date()), str(days[-1].date())],
-                sr_iw_mc=mc, cleaning_interval_days_opt=t_star,
+                sr_iw_mc=mc, sr_iw_mc_assumption=(
+                    "rates drawn within each interval's 95 % Theil-Sen interval, recovery at "
+                    "each cleaning between half and full, so the Monte-Carlo median sits "
+                    "below the full-recovery sr_iw_site when recoveries are in doubt"),
+                cleaning_interval_days_opt=t_star,
                 expected_saving_next_days=saving, horizon_days=horizon_days,
                 cleaning_cost=cleaning_cost, tariff_per_kwh=tariff_per_kwh,
                 recommend_cleaning=recommend,
                 recommendation=(
+                    "no cleaning cost configured ([economics] cleaning_cost = 0): the "
+                    f"present loss of {100 * loss_end:.1f} % costs about {saving:.0f} "
+                    f"{currency} over the next {horizon_days} days" if cleaning_cost <= 0 else
                     f"clean: the present loss of {100 * loss_end:.1f} % costs about "
                     f"{saving:.0f} {currency} over the next {horizon_days} days, more than a "
                     f"cleaning ({cleaning_cost:.0f} {currency}); optimal interval "

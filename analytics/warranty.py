@@ -108,7 +108,9 @@ def warranty_envelope(monthly_pi: pd.Series, monthly_e_ac_kwh: pd.Series, *,
     Parameters
     ----------
     monthly_pi : Series
-        Monthly insolation-weighted performance index indexed by month start. [fraction]
+        Monthly insolation-weighted performance index indexed by month start, preferably
+        de-seasonalised (``analytics.degradation.deseasonalised_monthly``) so that seasonal
+        dips (temperature model, spectrum, soiling) are not counted as shortfall. [fraction]
     monthly_e_ac_kwh : Series
         Measured AC energy of each month. [kWh]
     start_date : date

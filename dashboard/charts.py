@@ -10,7 +10,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-from plotly.subplots import make_subplots
 
 from dashboard import theme
 
@@ -53,23 +52,30 @@ def pr_heatmap(heat: pd.DataFrame, limit_pct: float = 10.0) -> go.Figure:
     if heat.empty:
         return empty("No daily results in this window", "Day (local standard time)", "Inverter")
     z = heat.to_numpy(dtype=float)
-    text = np.where(np.isnan(z), "not valid", np.char.mod("%+.1f %%", np.nan_to_num(z)))
-    fig = go.Figure(go.Heatmap(
-        z=z, x=pd.to_datetime(pd.Index(heat.columns)), y=list(heat.index),
-        colorscale=theme.DIVERGING, zmid=0, zmin=-limit_pct, zmax=limit_pct,
-        customdata=text, hoverongaps=False, xgap=1, ygap=1,
-        hovertemplate="%{y} · %{x|%Y-%m-%d}<br>PR_STC vs site median: %{customdata}"
-                      "<extra></extra>",
-        colorbar=dict(title=dict(text="PR_STC vs<br>site median [%]", side="right"),
-                      ticksuffix=" %", thickness=14)))
     n = len(heat.index)
-    fig.update_layout(template=TEMPLATE, height=min(1400, 140 + 16 * n),
-                      plot_bgcolor=theme.MISSING, hovermode="closest",
-                      title="Daily temperature-corrected PR relative to the site median")
-    fig.update_xaxes(title_text="Day (local standard time)", showgrid=False)
-    fig.update_yaxes(title_text="Inverter", autorange="reversed", showgrid=False,
-                     type="category", tickfont=dict(size=10 if n > 40 else 12))
-    return fig
+    # one dict, one validation pass (a 100-inverter fleet over 12 weeks is 8400 cells);
+    # not-valid days are gaps on the grey plot background, without hover
+    trace = dict(type="heatmap", z=z, x=pd.to_datetime(pd.Index(heat.columns)).to_numpy(),
+                 y=[str(i) for i in heat.index], colorscale=theme.DIVERGING, zmid=0,
+                 zmin=-limit_pct, zmax=limit_pct, hoverongaps=False, xgap=1, ygap=1,
+                 hovertemplate="%{y} · %{x|%Y-%m-%d}<br>PR_STC vs site median: "
+                               "%{z:+.1f} %<extra></extra>",
+                 colorbar=dict(title=dict(text="PR_STC vs<br>site median [%]", side="right"),
+                               ticksuffix=" %", thickness=14))
+    layout = dict(template=TEMPLATE, height=_heat_height(n), plot_bgcolor=theme.MISSING,
+                  hovermode="closest",
+                  title=dict(text="Daily temperature-corrected PR relative to the site median"),
+                  xaxis=dict(title=dict(text="Day (local standard time)"), showgrid=False),
+                  yaxis=dict(title=dict(text="Inverter"), autorange="reversed", showgrid=False,
+                             type="category", dtick=1 if n <= 60 else None,
+                             tickfont=dict(size=10 if n > 40 else 12)))
+    return go.Figure(data=[trace], layout=layout)
+
+
+def _heat_height(n_rows: int) -> int:
+    """Heatmap height [px]: ~22 px a row for a few rows, ~14 px for a fleet, within 320..1500."""
+    per_row = 22 if n_rows <= 30 else 14
+    return int(min(1500, max(320, 150 + per_row * n_rows)))
 
 
 def fleet_quadrant(fleet: pd.DataFrame) -> go.Figure:
@@ -102,8 +108,7 @@ def fleet_quadrant(fleet: pd.DataFrame) -> go.Figure:
                       y0=0 if axis == "x" else 0, y1=1 if axis == "x" else 0,
                       line=dict(color="#888", width=1, dash="dot"))
     fig.update_layout(template=TEMPLATE, height=380, hovermode="closest",
-                      title="Last week: each inverter against its own history and its peers "
-                            "(red: has flags)")
+                      title="Last week vs own history and peers")
     fig.update_xaxes(title_text="PR_STC vs own trailing weeks [%]", ticksuffix=" %")
     fig.update_yaxes(title_text="PR_STC vs peer median [%]", ticksuffix=" %")
     return fig
@@ -117,7 +122,7 @@ def pr_trend(chosen: pd.DataFrame, peers: pd.DataFrame, flagged: pd.DataFrame | 
     """Daily PR_STC of chosen inverters with rolling medians over the peers' band.
 
     ``chosen``/``peers`` from :func:`dashboard.data.pr_trend`; ``flagged`` the flagged days
-    (marked ✕); ``soiling`` rows with ``start_local, end_local`` (shaded); ``fits`` maps
+    (a rug of ticks under the data); ``soiling`` rows with ``start_local, end_local`` (shaded); ``fits`` maps
     a label to a frame ``day, fit, lo, hi`` (line and confidence band).
     """
     if chosen.empty:
@@ -159,12 +164,20 @@ def pr_trend(chosen: pd.DataFrame, peers: pd.DataFrame, flagged: pd.DataFrame | 
                                  line=dict(color=theme.FIT, width=2, dash="dash"),
                                  name=label, legendgroup=label))
     if flagged is not None and not flagged.empty:
-        fig.add_trace(go.Scatter(x=flagged["day"], y=flagged["pr_stc"], mode="markers",
-                                 marker=dict(symbol="x", size=8, color=theme.OKABE_ITO["black"]),
+        # a rug under the data, one row per inverter, so the marks never hide the points
+        lo = float(np.nanmin(chosen[["pr_stc", "pr_stc_roll"]].to_numpy(dtype=float)))
+        span = float(np.nanmax(chosen[["pr_stc", "pr_stc_roll"]].to_numpy(dtype=float))) - lo
+        step = max(span, 0.02) * 0.035
+        order = {d: k for k, d in enumerate(dict.fromkeys(chosen["device_id"]))}
+        ys = [lo - step * (1 + order.get(d, 0)) for d in flagged["device_id"]]
+        cols = [theme.SERIES[order.get(d, 0) % len(theme.SERIES)] for d in flagged["device_id"]]
+        fig.add_trace(go.Scatter(x=flagged["day"], y=ys, mode="markers",
+                                 marker=dict(symbol="line-ns-open", size=7, color=cols,
+                                             line=dict(width=1, color=cols)),
                                  customdata=flagged[["device_id", "kind"]].to_numpy(),
                                  hovertemplate="%{customdata[0]} %{x|%Y-%m-%d}: "
                                                "%{customdata[1]}<extra></extra>",
-                                 name="flagged day"))
+                                 name="flagged days (rug, one row per inverter)"))
     fig.update_layout(template=TEMPLATE, height=500, hovermode="closest",
                       title="Daily temperature-corrected PR (valid days)",
                       margin=dict(t=50),
@@ -200,7 +213,8 @@ def degradation_forest(results: pd.DataFrame) -> go.Figure:
             hovertemplate="%{y} · " + m + ": %{x:.2f} %/yr<extra></extra>"))
     n = r["device_id"].nunique()
     fig.add_vline(x=0, line=dict(color="#888", width=1, dash="dot"))
-    fig.update_layout(template=TEMPLATE, height=min(1600, 160 + 22 * n), hovermode="closest",
+    fig.update_layout(template=TEMPLATE, height=int(min(1800, max(340, 170 + n * (10 + 9 * len(methods))))),
+                      hovermode="closest",
                       title="Degradation rate by inverter and method (negative = loss)",
                       scattermode="group", scattergap=0.5)
     fig.update_xaxes(title_text="Degradation rate Rd [%/yr]")
@@ -223,8 +237,9 @@ def yoy_histogram(edges, counts, rd: float | None = None,
                            marker=dict(color=theme.MEASURED), opacity=0.8, name="pairs",
                            hovertemplate="%{x:.2f} %/yr: %{y} pairs<extra></extra>"))
     if ci is not None and None not in ci and all(np.isfinite(ci)):
-        fig.add_vrect(x0=ci[0], x1=ci[1], fillcolor=theme.BAND_FILL, line_width=0,
-                      annotation_text="interval of the median", annotation_position="top left")
+        fig.add_vrect(x0=ci[0], x1=ci[1], fillcolor=theme.BAND_FILL, line_width=0)
+        title = (title or "Year-on-year pair rates") + (
+            f"<br><sup>shaded: interval of the median, {ci[0]:+.2f} … {ci[1]:+.2f} %/yr</sup>")
     if rd is not None and np.isfinite(rd):
         fig.add_vline(x=rd, line=dict(color=theme.FIT, width=2.5),
                       annotation_text=f"median {rd:+.2f} %/yr", annotation_position="top right")
@@ -283,66 +298,73 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
 
     1. AC power against expected AC power [kW]; 2. normalised power of the inverter and its
     peers [kW/kWp]; 3. POA irradiance [W/m²]; 4. module, cell and ambient temperature [°C].
-    Flags are shaded across all panels (the highlighted one darker).
+    This inverter's warnings and alarms are shaded across all panels (the highlighted one
+    darker). The figure is assembled as one dict (one validation pass): a week of 5-minute
+    data with a dozen peers builds in a few tens of milliseconds.
     """
     x_title = _tz_label(std_offset_s)
     if frame.empty:
         return empty("No interval readings in this window", x_title, "AC power [kW]")
     x = _local(frame.index, std_offset_s)
-    fig = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.035,
-                        row_heights=[0.34, 0.24, 0.21, 0.21])
-    fig.add_trace(go.Scatter(x=x, y=frame["p_ac_exp_kw"], name="expected AC power",
-                             line=dict(color=theme.EXPECTED, width=1.6, dash="dash")), 1, 1)
-    fig.add_trace(go.Scatter(x=x, y=frame["p_ac_kw"], name=f"{inverter_id} AC power",
-                             line=dict(color=theme.MEASURED, width=1.8)), 1, 1)
-    if not peers.empty:
-        px = _local(peers["ts_utc"], std_offset_s)
-        pk = peers.assign(x=px)
-        first = True
-        for dev, g in pk.groupby("device_id", sort=True):
-            fig.add_trace(go.Scatter(x=g["x"], y=g["p_ac_kw_per_kwp"], mode="lines",
-                                     line=dict(color=theme.PEER, width=1), opacity=0.8,
-                                     name="peers", legendgroup="peers", showlegend=first,
-                                     hovertemplate=f"{dev}: " + "%{y:.3f} kW/kWp<extra></extra>"),
-                          2, 1)
-            first = False
-    fig.add_trace(go.Scatter(x=x, y=frame["p_ac_kw_per_kwp"], mode="lines",
-                             line=dict(color=theme.MEASURED, width=2),
-                             name=f"{inverter_id} normalised", showlegend=False), 2, 1)
-    fig.add_trace(go.Scatter(x=x, y=frame["poa_wm2"], name="POA irradiance",
-                             line=dict(color=theme.IRRADIANCE, width=1.5),
-                             fill="tozeroy", fillcolor="rgba(230,159,0,0.12)"), 3, 1)
-    fig.add_trace(go.Scatter(x=x, y=frame["t_module_c"], name="module (back) temperature",
-                             line=dict(color=theme.T_MODULE, width=1.5)), 4, 1)
-    fig.add_trace(go.Scatter(x=x, y=frame["t_cell_c"], name="cell temperature (Sandia)",
-                             line=dict(color=theme.T_CELL, width=1.5, dash="dot")), 4, 1)
+
+    def line(y, name, axis, color, width=1.6, dash=None, **kw):
+        return dict(type="scatter", mode="lines", x=x, y=np.asarray(y, dtype=float), name=name,
+                    xaxis="x", yaxis=axis, line=dict(color=color, width=width, dash=dash), **kw)
+
+    traces = [line(frame["p_ac_exp_kw"], "expected AC power", "y", theme.EXPECTED, dash="dash"),
+              line(frame["p_ac_kw"], f"{inverter_id} AC power", "y", theme.MEASURED, 1.8)]
+    if peers is not None and not peers.empty:
+        for k, (dev, g) in enumerate(peers.groupby("device_id", sort=True)):
+            traces.append(dict(type="scatter", mode="lines", name="peers", legendgroup="peers",
+                               showlegend=k == 0, xaxis="x", yaxis="y2", opacity=0.85,
+                               x=_local(g["ts_utc"], std_offset_s).to_numpy(),
+                               y=g["p_ac_kw_per_kwp"].to_numpy(dtype=float),
+                               line=dict(color=theme.PEER, width=1),
+                               hovertemplate=f"{dev}: " + "%{y:.3f} kW/kWp<extra></extra>"))
+    traces.append(line(frame["p_ac_kw_per_kwp"], f"{inverter_id} normalised", "y2",
+                       theme.MEASURED, 2, showlegend=False))
+    traces.append(line(frame["poa_wm2"], "POA irradiance", "y3", theme.IRRADIANCE, 1.5,
+                       fill="tozeroy", fillcolor="rgba(230,159,0,0.12)"))
+    traces.append(line(frame["t_module_c"], "module (back) temperature", "y4", theme.T_MODULE,
+                       1.5))
+    traces.append(line(frame["t_cell_c"], "cell temperature (Sandia)", "y4", theme.T_CELL,
+                       1.5, dash="dot"))
     if "t_amb_c" in frame and frame["t_amb_c"].notna().any():
-        fig.add_trace(go.Scatter(x=x, y=frame["t_amb_c"], name="ambient temperature",
-                                 line=dict(color=theme.T_AMB, width=1.2)), 4, 1)
+        traces.append(line(frame["t_amb_c"], "ambient temperature", "y4", theme.T_AMB, 1.2))
     lo, hi = x.min(), x.max()
+    shapes, notes = [], []
     for f in flags.itertuples() if flags is not None else []:
+        strong = highlight_flag_id is not None and f.flag_id == highlight_flag_id
+        # shade this inverter's warnings and alarms; info and site-wide events (soiling,
+        # cleaning) stay in the table below, or they would tint the whole window
+        if not strong and (getattr(f, "severity", "warning") == "info"
+                           or not isinstance(getattr(f, "device_id", inverter_id), str)):
+            continue
         a = max(pd.Timestamp(f.start_local), lo)
         b = min(pd.Timestamp(f.end_local), hi)
         if b <= a:
             continue
-        strong = highlight_flag_id is not None and f.flag_id == highlight_flag_id
         fill = "rgba(213, 94, 0, 0.28)" if strong else theme.FLAG_FILL
-        fig.add_vrect(x0=a, x1=b, fillcolor=fill, line_width=0, layer="below",
-                      row="all", col=1)
-        fig.add_annotation(x=a, y=1.0, xref="x", yref="paper", text=f"#{f.flag_id} {f.kind}",
-                           showarrow=False, xanchor="left", yanchor="bottom",
-                           font=dict(size=10, color=theme.OKABE_ITO["vermillion"]))
-    fig.update_layout(template=TEMPLATE, height=860, hovermode="x unified",
-                      legend=dict(orientation="h", y=1.005, yanchor="bottom", x=0,
-                                  font=dict(size=11)),
-                      margin=dict(t=70))
-    fig.update_yaxes(title_text="AC power [kW]", row=1, col=1)
-    fig.update_yaxes(title_text="Power per kWp [kW/kWp]", row=2, col=1)
-    fig.update_yaxes(title_text="POA [W/m²]", row=3, col=1)
-    fig.update_yaxes(title_text="Temperature [°C]", row=4, col=1)
-    fig.update_yaxes(title_font=dict(size=12))
-    fig.update_xaxes(title_text=x_title, row=4, col=1)
-    return fig
+        shapes.append(dict(type="rect", xref="x", yref="paper", x0=a, x1=b, y0=0, y1=1,
+                           fillcolor=fill, line=dict(width=0), layer="below"))
+        notes.append(dict(x=a, y=1.0, xref="x", yref="paper", text=f"#{f.flag_id} {f.kind}",
+                          showarrow=False, xanchor="left", yanchor="bottom",
+                          font=dict(size=10, color=theme.OKABE_ITO["vermillion"])))
+    gap = 0.035
+    dom = np.cumsum([0, 0.21, 0.21, 0.24, 0.34]) * (1 - 3 * gap)
+    dom = [[float(dom[i] + i * gap), float(dom[i + 1] + i * gap)] for i in range(4)]
+
+    def yax(title, k):
+        return dict(title=dict(text=title, font=dict(size=12)), domain=dom[k], anchor="x")
+
+    layout = dict(
+        template=TEMPLATE, height=860, hovermode="x unified", margin=dict(t=70),
+        legend=dict(orientation="h", y=1.005, yanchor="bottom", x=0, font=dict(size=11)),
+        xaxis=dict(title=dict(text=x_title), anchor="y4"),
+        yaxis=yax("AC power [kW]", 3), yaxis2=yax("Power per kWp [kW/kWp]", 2),
+        yaxis3=yax("POA [W/m²]", 1), yaxis4=yax("Temperature [°C]", 0),
+        shapes=shapes, annotations=notes)
+    return go.Figure(data=traces, layout=layout)
 
 
 # ---------------------------------------------------------------- data quality
@@ -360,11 +382,12 @@ def completeness_heatmap(comp: pd.DataFrame) -> go.Figure:
         colorbar=dict(title=dict(text="Readings<br>present [%]", side="right"),
                       ticksuffix=" %", thickness=14)))
     n = len(comp.index)
-    fig.update_layout(template=TEMPLATE, height=min(1400, 140 + 16 * n), hovermode="closest",
+    fig.update_layout(template=TEMPLATE, height=_heat_height(n), hovermode="closest",
                       title="Completeness per device and day")
     fig.update_xaxes(title_text="Day (local standard time)", showgrid=False)
     fig.update_yaxes(title_text="Device · quantity", autorange="reversed", showgrid=False,
-                     type="category", tickfont=dict(size=10 if n > 40 else 12))
+                     type="category", dtick=1 if n <= 60 else None,
+                     tickfont=dict(size=10 if n > 40 else 12))
     return fig
 
 

@@ -233,7 +233,7 @@ def week_flags(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
     a = day_to_s(w0, info["std_offset_s"])
     b = day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"])
     fl = queries.flags_overlapping(engine(url), site_id, a, b)
-    fl["is_new"] = fl["start_s"] >= a
+    fl["is_new"] = (fl["start_s"] >= a).astype(bool)
     fl = fl.sort_values(["is_new", "lost_kwh", "start_s"], ascending=[False, False, False],
                         na_position="last")
     return _flag_table(fl, info["std_offset_s"]).reset_index(drop=True)
@@ -251,12 +251,9 @@ def flag(url: str, flag_id: int) -> dict | None:
 def flags_for(url: str, site_id: str, device_ids: list[str] | None, start_s: int,
               end_s: int, include_site_wide: bool = True) -> pd.DataFrame:
     """Flags of the devices (and site-wide ones) overlapping ``[start_s, end_s)``."""
-    eng = engine(url)
-    fl = queries.flags_overlapping(eng, site_id, start_s, end_s,
-                                   device_ids=list(device_ids) if device_ids else None)
-    if include_site_wide and device_ids:
-        allf = queries.flags_overlapping(eng, site_id, start_s, end_s)
-        fl = pd.concat([fl, allf[allf["device_id"].isna()]], ignore_index=True)
+    fl = queries.flags_overlapping(engine(url), site_id, start_s, end_s,
+                                   device_ids=list(device_ids) if device_ids else None,
+                                   include_site_wide=include_site_wide)
     return _flag_table(fl, site_info(url, site_id)["std_offset_s"])
 
 
@@ -663,9 +660,30 @@ def rejected_rows(url: str, site_id: str, batch_id: int | None = None,
     return db_ingest_log.rejected_rows(engine(url), site_id, batch_id=batch_id, limit=limit)
 
 
+#: Flag kinds about the data rather than the plant (shown on the data-quality page).
+DATA_KIND_WORDS = ("sensor", "clock", "drift", "flatline", "dropout", "stuck", "spike")
+
+
+def is_data_kind(kind: str) -> bool:
+    return any(w in str(kind) for w in DATA_KIND_WORDS)
+
+
 @_cache
 def sensor_flags(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.DataFrame:
-    """Flags on sensors, plus site-wide flags (clock, drift), in the window."""
+    """Flags on sensors, and data flags (clock shift, drift, dropouts) of any device, in
+    the window; plant events (soiling, cleaning, underperformance) are left out."""
     fl = flags_in_window(url, site_id, start, end)
     sens = set(device_list(url, site_id).query("kind == 'sensor'")["device_id"])
-    return fl[fl["device_id"].isna() | fl["device_id"].isin(sens)].reset_index(drop=True)
+    keep = fl["device_id"].isin(sens) | fl["kind"].map(is_data_kind)
+    return fl[keep].reset_index(drop=True)
+
+
+def flag_label(f) -> str:
+    """One-line label of a flag row: ``#id device — kind (severity), start → end``."""
+    dev = f.device_id if isinstance(f.device_id, str) and f.device_id else "site"
+    lost = (f" · {f.lost_kwh:,.0f} kWh lost" if f.lost_kwh is not None and f.lost_kwh == f.lost_kwh
+            and f.lost_kwh > 0 else "")
+    a, b = pd.Timestamp(f.start_local), pd.Timestamp(f.end_local)
+    span = (f"{a:%Y-%m-%d %H:%M}–{b:%H:%M}" if a.date() == b.date()
+            else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
+    return f"#{f.flag_id} {dev} · {f.kind} ({f.severity}) · {span}{lost}"

@@ -48,7 +48,7 @@ def field_caution() -> None:
 
 
 def warranty_caution() -> None:
-    st.caption(":scales: " + data.WARRANTY_CAUTION)
+    st.caption("⚖️ " + data.WARRANTY_CAUTION)
 
 
 def fmt_day(day: dt.date) -> str:

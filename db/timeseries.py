@@ -17,10 +17,13 @@ Conventions:
 
 from __future__ import annotations
 
-import itertools
+import multiprocessing
+import os
 import queue
+import sqlite3
 import threading
 from collections.abc import Iterable, Iterator
+from concurrent.futures import Future, ProcessPoolExecutor
 
 import numpy as np
 import pandas as pd
@@ -33,6 +36,9 @@ INVERTER_FRAME_COLUMNS = ("p_ac_kw", "e_ac_kwh", "poa_wm2", "t_module_c", "t_amb
 #: inverter column -> the inverter-table column naming the sensor that delivers it
 SENSOR_REFS = {"poa_wm2": "poa_sensor_id", "t_module_c": "t_module_sensor_id",
                "t_amb_c": "t_amb_sensor_id", "wind_ms": "wind_sensor_id"}
+
+
+_ROW_DTYPE = np.dtype([("ts_s", np.int64), ("value", np.float64)])
 
 
 def interval_h_from_ts(ts_s: np.ndarray) -> np.ndarray:
@@ -82,15 +88,11 @@ def read_channel(conn: sa.Connection, channel_id: int, start_s: int | None = Non
     cur = conn.connection.cursor()
     try:
         cur.execute(sql, args)
-        rows = cur.fetchall()
+        # rows go straight from the cursor into a structured array: no list of tuples kept
+        arr = np.fromiter(cur, dtype=_ROW_DTYPE)
     finally:
         cur.close()
-    n = len(rows)
-    if n == 0:
-        return np.zeros(0, dtype=np.int64), np.zeros(0)
-    flat = np.fromiter(itertools.chain.from_iterable(rows), dtype=float, count=2 * n)
-    flat = flat.reshape(n, 2)
-    return flat[:, 0].astype(np.int64), flat[:, 1].copy()
+    return arr["ts_s"].copy(), arr["value"].copy()
 
 
 def bin_mean(base_ts: np.ndarray, base_interval_s: np.ndarray, ts: np.ndarray,
@@ -216,6 +218,98 @@ def _prefetched(engine: sa.Engine, site_id: str, start_s, end_s, inverter_ids,
         th.join()
 
 
+# ------------------------------------------------------------ parallel reads (SQLite files)
+_WORKER_CONN: sqlite3.Connection | None = None
+
+
+def _worker_init(path: str) -> None:
+    global _WORKER_CONN
+    _WORKER_CONN = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=30)
+
+
+def _worker_read(args: tuple[int, int | None, int | None]) -> np.ndarray:
+    ch, start_s, end_s = args
+    sql, params = "SELECT ts_s, value FROM reading WHERE channel_id = ?", [ch]
+    if start_s is not None:
+        sql, params = sql + " AND ts_s >= ?", params + [start_s]
+    if end_s is not None:
+        sql, params = sql + " AND ts_s < ?", params + [end_s]
+    return np.fromiter(_WORKER_CONN.execute(sql + " ORDER BY ts_s", params), dtype=_ROW_DTYPE)
+
+
+def _sqlite_file(engine: sa.Engine) -> str | None:
+    if engine.dialect.name != "sqlite":
+        return None
+    path = engine.url.database
+    return path if path and path != ":memory:" and os.path.exists(path) else None
+
+
+def _parallel(engine: sa.Engine, path: str, site_id: str, start_s, end_s, inverter_ids,
+              workers: int = 2, ahead: int = 4) -> Iterator[tuple[dict, pd.DataFrame]]:
+    """:func:`inverter_frames` with the inverters' own channels read by ``workers`` processes
+    (each with its own read-only SQLite connection), ``ahead`` inverters in advance, while
+    this process assembles frames and the caller computes. Turning rows into Python objects
+    is the cost of reading; processes do it in parallel where threads would share the GIL."""
+    with engine.connect() as conn:
+        channels = site_channels(conn, site_id)
+        invs = _select_inverters(site_inverters(conn, site_id), site_id, inverter_ids)
+    records = invs.to_dict("records")
+    own = [[ch for q in ("p_ac_kw", "e_ac_kwh")
+            if (ch := channels.get((inv["device_id"], q))) is not None] for inv in records]
+    ctx = multiprocessing.get_context("fork")
+    with ProcessPoolExecutor(workers, mp_context=ctx, initializer=_worker_init,
+                             initargs=(path,)) as pool, engine.connect() as conn:
+        pending: dict[int, Future] = {}
+
+        def submit(i: int) -> None:
+            for ch in own[i]:
+                pending[ch] = pool.submit(_worker_read, (ch, start_s, end_s))
+
+        for i in range(min(ahead, len(records))):
+            submit(i)
+        read = _channel_reader(conn, records, channels, start_s, end_s)
+
+        def read_own(ch: int) -> tuple[np.ndarray, np.ndarray]:
+            fut = pending.pop(ch, None)
+            if fut is None:
+                return read(ch)
+            arr = fut.result()
+            return arr["ts_s"].copy(), arr["value"].copy()
+
+        binned: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+        for i, inv in enumerate(records):
+            if i + ahead < len(records):
+                submit(i + ahead)
+            yield inv, _assemble(channels, inv, read_own, binned)
+
+
+def _select_inverters(invs: pd.DataFrame, site_id: str, inverter_ids) -> pd.DataFrame:
+    if inverter_ids is None:
+        return invs
+    wanted = list(inverter_ids)
+    unknown = sorted(set(wanted) - set(invs["device_id"]))
+    if unknown:
+        raise KeyError(f"site {site_id!r} has no inverter {', '.join(map(repr, unknown))}")
+    return invs[invs["device_id"].isin(wanted)]
+
+
+def _channel_reader(conn: sa.Connection, records: list[dict], channels: dict, start_s, end_s):
+    """``read(channel_id)`` on ``conn`` that keeps sensor channels (shared by inverters)."""
+    cache: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    sensor_channels = {channels.get((inv[ref], q)) for inv in records
+                       for q, ref in SENSOR_REFS.items() if inv.get(ref)}
+
+    def read(ch: int) -> tuple[np.ndarray, np.ndarray]:
+        if ch in cache:
+            return cache[ch]
+        got = read_channel(conn, ch, start_s, end_s)
+        if ch in sensor_channels:
+            cache[ch] = got
+        return got
+
+    return read
+
+
 def inverter_frames(engine_or_conn: sa.Engine | sa.Connection, site_id: str,
                     start_s: int | None = None, end_s: int | None = None,
                     inverter_ids: Iterable[str] | None = None, *, prefetch: bool = False
@@ -227,7 +321,11 @@ def inverter_frames(engine_or_conn: sa.Engine | sa.Connection, site_id: str,
     frames are read in a background thread while the caller works on the previous one.
     """
     if prefetch and isinstance(engine_or_conn, sa.Engine):
-        yield from _prefetched(engine_or_conn, site_id, start_s, end_s, inverter_ids)
+        path = _sqlite_file(engine_or_conn)
+        if path is not None and parallel_reads_ok():
+            yield from _parallel(engine_or_conn, path, site_id, start_s, end_s, inverter_ids)
+        else:
+            yield from _prefetched(engine_or_conn, site_id, start_s, end_s, inverter_ids)
         return
     if isinstance(engine_or_conn, sa.Engine):
         with engine_or_conn.connect() as conn:
@@ -235,28 +333,20 @@ def inverter_frames(engine_or_conn: sa.Engine | sa.Connection, site_id: str,
         return
     conn = engine_or_conn
     channels = site_channels(conn, site_id)
-    invs = site_inverters(conn, site_id)
-    if inverter_ids is not None:
-        wanted = list(inverter_ids)
-        unknown = sorted(set(wanted) - set(invs["device_id"]))
-        if unknown:
-            raise KeyError(f"site {site_id!r} has no inverter {', '.join(map(repr, unknown))}")
-        invs = invs[invs["device_id"].isin(wanted)]
-    cache: dict[int, tuple[np.ndarray, np.ndarray]] = {}
-    sensor_channels = {channels.get((inv[ref], q)) for inv in invs.to_dict("records")
-                       for q, ref in SENSOR_REFS.items() if inv.get(ref)}
-
-    def read(ch: int) -> tuple[np.ndarray, np.ndarray]:
-        if ch in cache:
-            return cache[ch]
-        got = read_channel(conn, ch, start_s, end_s)
-        if ch in sensor_channels:
-            cache[ch] = got
-        return got
-
+    records = _select_inverters(site_inverters(conn, site_id), site_id,
+                                inverter_ids).to_dict("records")
+    read = _channel_reader(conn, records, channels, start_s, end_s)
     binned: dict[int, tuple[np.ndarray, np.ndarray]] = {}
-    for inv in invs.to_dict("records"):
+    for inv in records:
         yield inv, _assemble(channels, inv, read, binned)
+
+
+def parallel_reads_ok() -> bool:
+    """Reader processes are used on Linux-like systems (fork) with more than one CPU, unless
+    ``HELIAUDIT_PARALLEL_READS=0``."""
+    if os.environ.get("HELIAUDIT_PARALLEL_READS", "1") == "0":
+        return False
+    return "fork" in multiprocessing.get_all_start_methods() and (os.cpu_count() or 1) > 1
 
 
 def inverter_frame(engine: sa.Engine | sa.Connection, site_id: str, inverter_id: str,

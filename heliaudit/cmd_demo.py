@@ -15,8 +15,8 @@ from heliaudit import demo_generator as gen
               help="Output directory. Default: sample_scada/<site-id> in the current directory.")
 @click.option("--inverters", "n_inverters", type=click.IntRange(1, 10000), default=14,
               show_default=True, help="Number of string inverters.")
-@click.option("--years", type=click.FloatRange(1 / 12, 50), default=3.5, show_default=True,
-              help="Length of the data in years (rounded to whole months).")
+@click.option("--years", type=click.FloatRange(0.05, 50), default=3.5, show_default=True,
+              help="Length of the data in years (rounded to whole months, at least one).")
 @click.option("--interval-min", type=click.Choice(["5", "10", "15", "30", "60"]), default="15",
               show_default=True, help="Logger interval in minutes.")
 @click.option("--seed", type=int, default=20221, show_default=True,

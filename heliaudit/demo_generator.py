@@ -999,6 +999,7 @@ def truth_dict(sc: Scenario, daily: pd.DataFrame, sr_base: np.ndarray, cleanings
             "end_local": iso(sc.flatline[2]), "value_c": flat_value},
         "clock_shift": None if not sc.clock_shift else {
             "true_interval_ends_local": [iso(sc.clock_shift[0]), iso(sc.clock_shift[1])],
+            "range_note": "intervals whose true end is after the first and up to the second time",
             "shift_minutes": sc.clock_shift[2],
             "note": "the logger stamped each interval this many minutes late (labels too late); "
                     "after the clock was corrected it wrote nothing until its clock passed the "
@@ -1012,5 +1013,17 @@ def truth_dict(sc: Scenario, daily: pd.DataFrame, sr_base: np.ndarray, cleanings
         "daily_weather": {"day_type": list(daily["day_type"]),
                           "rain_mm": [round(float(x), 1) for x in daily["rain_mm"]]},
         "yield_by_year": years,
+        "yield_by_year_note": "true AC energy before measurement noise, including intervals the "
+                              "logger missed; yf_h_site = site energy / site p_dc_kwp; h_poa_kwhm2 "
+                              "= true POA global (a drift-free pyranometer)",
+        "measurement": {
+            "p_ac": "x (1 + N(0, 0.002)), written in whole W, 0 at night",
+            "e_ac_total_kwh": "cumulative measured energy, truncated to whole kWh; starts at "
+                              "e_total_start_kwh; counts on through logger gaps",
+            "POA-RC1": "effective irradiance x (1 + N(0, 0.003)), 0.1 W/m2",
+            "POA-PY2": "POA global x drift x (1 + N(0, 0.004)); at night -1.5 +- 0.4 W/m2 thermal offset",
+            "t_module": "Sandia back-of-module temperature + N(0, 0.25) degC; no thermal lag",
+            "t_amb": "+ N(0, 0.1) degC", "wind": "10 m, no noise", "rain": "0.2 mm tips",
+        },
     }
     return t

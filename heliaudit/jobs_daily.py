@@ -71,7 +71,7 @@ def _params(site_row: dict, filters: dict, offset_h: float) -> dict:
                              "Eq. 11 / Faiman 2008 from ambient where missing",
         "sapm_parameters": SAPM_PARAMETERS,
         "power_model": "PVWatts V5 DC + inverter curve (Dobos 2014)",
-        "night": "solar elevation (pvlib nrel_numpy) < night_elevation_deg or G < night_poa_wm2",
+        "night": "solar elevation (pvlib ephemeris) < night_elevation_deg or G < night_poa_wm2",
         "coverage_weight": "measured POA, clear-sky POA (Ineichen, isotropic) where missing",
     }
 

@@ -12,7 +12,10 @@ clear-sky cross-check, the interval power), computes per inverter and for the si
   only; the rate *relative to the fleet*);
 * ``clearsky_yoy`` — year-on-year rate of the clear-sky index on clear periods found without
   the POA sensor (analytics.clearsky);
-* ``yoy_stable_segments`` — year-on-year without pairs that span a detected level shift;
+* ``sensor_vs_clearsky`` — year-on-year rate of sensor-based / clear-sky index on clear days:
+  the POA sensor's drift against the clear-sky model (a paired, tight check);
+* ``yoy_stable_segments`` — year-on-year without pairs that span a detected level shift
+  (drops and rises; upward steps after a soiling ramp, i.e. cleanings, are not breaks);
 * ``summary`` — the headline rate (``yoy``) with the data report, change points and segments,
   the method-agreement verdict and warnings, and the warranty screening in ``details``.
 
@@ -67,14 +70,15 @@ DEFAULTS: dict = {
     "rlm_harmonics": 1,
     "stl_seasonal": 7,
     "changepoint_penalty_factor": 3.0,
-    "changepoint_min_step_pct": 1.0,
+    "changepoint_min_step_pct": 2.0,
     "clearsky": True,
     "clearsky_transposition": "haydavies",
     "clearsky_window_days": 15,
     "site_min_inverter_fraction": 0.5,
     "sigma_extra_pct_per_yr": 0.0,
 }
-METHODS = ("yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "yoy_stable_segments")
+METHODS = ("yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "sensor_vs_clearsky",
+           "yoy_stable_segments")
 
 
 class SiteNotFoundError(LookupError):
@@ -219,25 +223,33 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
                                     rng=np.random.default_rng(seed + [2]), **yoy_kw)
         res["peer_relative"].details["relative_to"] = "median of the peer group (same day)"
     if clear_pi is not None:
+        clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # METHODS §5 window
         dense = acs.densify_clear_days(clear_pi, window_days=p["clearsky_window_days"])
         res["clearsky_yoy"] = _try("clearsky_yoy", adeg.degradation_yoy, dense,
                                    rng=np.random.default_rng(seed + [3]), **yoy_kw)
         res["clearsky_yoy"].details["n_clear_days"] = int(clear_pi.notna().sum())
+        res["sensor_vs_clearsky"] = _try("sensor_vs_clearsky", adeg.sensor_clearsky_drift, s,
+                                         clear_pi, window_days=p["clearsky_window_days"],
+                                         rng=np.random.default_rng(seed + [5]), **yoy_kw)
     else:
         res["clearsky_yoy"] = adeg.RateResult.refused("clearsky_yoy", clear_reason or "not computed")
+        res["sensor_vs_clearsky"] = adeg.RateResult.refused("sensor_vs_clearsky",
+                                                            clear_reason or "not computed")
     base = ratio.dropna() if ratio is not None and ratio.notna().sum() > 400 else s
     cps = acp.detect_level_shifts(base, penalty_factor=p["changepoint_penalty_factor"],
                                   min_step_pct=p["changepoint_min_step_pct"],
                                   deseason=ratio is None or base is s)
     cps["series"] = "peer-relative index" if base is not s else "de-seasonalised index"
-    breaks = [c["day"] for c in cps["change_points"]]
+    # cleanings (recoveries) repeat with the seasons and largely cancel in year-on-year pairs
+    breaks = [c["day"] for c in cps["change_points"] if c["kind"] != "recovery"]
     if breaks:
         res["yoy_stable_segments"] = _try("yoy_stable_segments", adeg.degradation_yoy, s,
                                           breaks=breaks, rng=np.random.default_rng(seed + [4]),
                                           **yoy_kw)
     else:
         res["yoy_stable_segments"] = adeg.RateResult.refused(
-            "yoy_stable_segments", "no change points found: the whole-period yoy rate applies")
+            "yoy_stable_segments", "no level shift (drop or rise) found: the whole-period yoy "
+                                   "rate applies")
     return res, cps
 
 
@@ -252,7 +264,11 @@ def _warranty_block(yoy: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series
                                    confidence=terms["confidence"],
                                    sigma_extra_pct_per_yr=p["sigma_extra_pct_per_yr"])
     start = terms["start_date"] or commissioned
-    m_pi = adeg.monthly_pi(s, weights).dropna()
+    try:  # compare the envelope with the de-seasonalised index, not with seasonal dips
+        m_pi = adeg.deseasonalised_monthly(s, weights, harmonics=p["rlm_harmonics"])
+    except adeg.InsufficientDataError as exc:
+        return {**test, "method": "yoy", "terms": terms, "envelope": [], "shortfall_kwh": None,
+                "reason_envelope": str(exc), "disclaimer": awar.DISCLAIMER}
     e = e_ac.copy()
     e.index = pd.DatetimeIndex(e.index)
     m_e = e.groupby(e.index.to_period("M")).sum()
@@ -357,6 +373,7 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, **pa
             summary["warranty"] = _warranty_block(res["yoy"], usable[dev], weights[dev],
                                                   by_dev[dev]["e_ac_kwh"], terms,
                                                   inv["commissioned"], p)
+            _note_steps(summary)
         refused += res["yoy"].rate_pct_per_yr is None
         rows += _rows(dev, res, summary)
         if progress:
@@ -375,6 +392,7 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, **pa
         e_site = pd.concat([by_dev[i]["e_ac_kwh"] for i in by_dev], axis=1).sum(axis=1)
         first = min((inv["commissioned"] for _, inv in invs.iterrows()), default=None)
         summary["warranty"] = _warranty_block(res["yoy"], s, w, e_site, terms, first, p)
+        _note_steps(summary)
     else:
         res = {m: adeg.RateResult.refused(m, "no usable daily data for the site") for m in METHODS}
         summary = {"data": {"n_days_used": 0}}
@@ -384,6 +402,19 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, **pa
         progress(total, total)
     return {"site_id": site_id, "computation_id": comp_id, "rows": n, "inverters": len(invs),
             "refused": int(refused)}
+
+
+def _note_steps(summary: dict) -> None:
+    """A level drop inside the period: the whole-period rate mixes a failure with degradation."""
+    drops = [c for c in summary.get("change_points", []) if c.get("kind") == "drop"]
+    if not drops:
+        return
+    msg = ("level drop(s) on " + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
+           + ": a step is a failure (string, module, inverter), not degradation; the whole-period "
+             "rate includes it, see yoy_stable_segments and inspect the equipment")
+    summary["warnings"] = sorted(set(summary.get("warnings", [])) | {msg})
+    if isinstance(summary.get("warranty"), dict):
+        summary["warranty"]["note"] = msg
 
 
 def _summary(res: dict[str, adeg.RateResult], cps: dict, report: dict, clear_how: str) -> dict:

@@ -106,8 +106,9 @@ def discover(cfg: SiteConfig, paths: Iterable[str | os.PathLike] | None = None
                     found.setdefault(f, src)
     for p in map(Path, paths):
         if p.is_dir():
-            for src in cfg.sources:
-                for f in sorted(p.glob(Path(src.pattern).name)):
+            for src in cfg.sources:  # the pattern relative to the folder, else its file part
+                hits = sorted(p.glob(src.pattern)) or sorted(p.glob(Path(src.pattern).name))
+                for f in hits:
                     if f.is_file():
                         found.setdefault(f, src)
         else:
@@ -275,6 +276,7 @@ class _FileLoader:
         u = np.unique(np.concatenate([tail, labels[ok], head]))
         iv_u = infer_intervals(u, self.source.timestamp.label)
         own = np.unique(labels[ok])
+        labels_unique = len(own) == int(ok.sum())  # no label repeats among the usable rows
         if len(own):
             self.intervals.append(iv_u[np.searchsorted(u, own)])
         iv = np.full(n, np.nan)
@@ -286,6 +288,9 @@ class _FileLoader:
                                       "timestamp (interval-end labels need at least two rows)")
                 ok[r] = False
         ts = np.where(ok, labels - (np.nan_to_num(iv).astype(np.int64) if end_label else 0), NAT)
+        for r in np.flatnonzero(ok & ((ts < 0) | (ts >= 1 << readings.TS_BITS))):
+            row_reason[int(r)] = "timestamp outside the years 1970..2514"
+            ok[r] = False
 
         # entries: one per value cell, in value-column-major order
         e_row, e_col, e_val, bad = self._entries(ch, ok, iv)
@@ -293,7 +298,9 @@ class _FileLoader:
         e_ch = np.array([self.vcols[j].channel for j in range(len(self.vcols))], dtype=np.int64)
         ekey = readings.key(e_ch[e_col], ts[e_row]) if len(e_row) else np.empty(0, np.int64)
         status = np.zeros(len(e_row), dtype=np.int8)  # 0 new, 1 duplicate, 2 conflict
-        conflict_rows = self._in_chunk_duplicates(ekey, e_row, e_val, status, ch.line, ts)
+        unique_rows = ch.long is None and labels_unique  # wide layout, no repeated label
+        conflict_rows = {} if unique_rows else self._in_chunk_duplicates(
+            ekey, e_row, e_val, status, ch.line, ts)
         for r, why in conflict_rows.items():
             row_reason.setdefault(r, why)
             ok[r] = False
@@ -321,16 +328,14 @@ class _FileLoader:
         keep = ok[all_row] if len(all_row) else np.zeros(0, bool)
         # row outcomes
         read_keep = keep & is_read
-        any_new = np.zeros(n, bool)
-        any_val = np.zeros(n, bool)
-        np.logical_or.at(any_new, all_row[read_keep & (all_status != 1)], True)
-        np.logical_or.at(any_val, all_row[read_keep], True)
+        any_new = np.bincount(all_row[read_keep & (all_status != 1)], minlength=n) > 0
+        any_val = np.bincount(all_row[read_keep], minlength=n) > 0
         rows_loaded = ok & any_new
         rows_dup = ok & any_val & ~any_new
         no_value = ok & ~any_val
         has_bad = np.zeros(n, bool)
         if bad:
-            np.logical_or.at(has_bad, np.array([b[0] for b in bad]), True)
+            has_bad[np.array([b[0] for b in bad], dtype=np.int64)] = True
         for r in np.flatnonzero(no_value):
             if not has_bad[r]:
                 row_reason[int(r)] = "no readings in this row (every mapped value is missing)"

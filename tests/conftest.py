@@ -61,3 +61,31 @@ def pg_engine():
         with admin.begin() as conn:
             conn.execute(sa.text(f'DROP SCHEMA "{schema_name}" CASCADE'))
         admin.dispose()
+
+
+@pytest.fixture(scope="session")
+def dashboard_store(tmp_path_factory):
+    """An invented demo site through the real pipeline, for the dashboard tests (#6).
+
+    ``heliaudit demo-data`` scenario with 6 inverters, 36 months of hourly data (enough for
+    year-on-year rates after the stabilisation period), then ingest and compute (daily
+    table, flags, degradation). Returns ``{"url", "site_id", "path"}``.
+    """
+    import datetime as dt
+
+    from heliaudit import demo_generator as gen
+    from heliaudit.cmd_compute import run_compute
+    from ingest.config import load_site_config
+    from ingest.load import ingest_paths
+
+    out = tmp_path_factory.mktemp("dashboard_demo")
+    sc = gen.quillpond_scenario(n_inverters=6, start=dt.date(2022, 1, 1), months=36,
+                                interval_min=60, seed=7, site_id="demo")
+    gen.write_site(sc, out / "site")
+    cfg = load_site_config(out / "site" / "demo.toml")
+    path = out / "store.sqlite"
+    eng = make_engine(path)
+    ingest_paths(eng, cfg)
+    run_compute(eng, cfg.id, full=True, echo=lambda *a, **k: None)
+    eng.dispose()
+    return {"url": f"sqlite:///{path}", "site_id": cfg.id, "path": path}

@@ -61,6 +61,40 @@ def test_two_steps():
     assert out["change_points"][0]["size_pct"] < 0 < out["change_points"][1]["size_pct"]
 
 
+def test_cleaning_recovery_labelled_not_a_drop():
+    # a soiling sawtooth (−0.1 %/day for 150 days, then a full cleaning; our generator) gives
+    # upward steps after falling segments: labelled "recovery"; a real 5 % drop stays "drop"
+    pi = daily_pi(years=4, rd_pct_per_yr=-0.5, noise=0.004, season=0.0, step_day=1000,
+                  step=-0.05, seed=4)
+    t = np.arange(len(pi))
+    dry = t % 365
+    pi = pi * np.where(dry < 150, 1 - 0.001 * dry, 1.0)  # soiled Jan..May, cleaned at day 150
+    out = detect_level_shifts(pi, deseason=False)
+    kinds = {c["kind"] for c in out["change_points"]}
+    assert "recovery" in kinds
+    drops = [c for c in out["change_points"] if c["kind"] == "drop" and c["size_pct"] < -3]
+    assert any(abs((dt.date.fromisoformat(c["day"]) - pi.index[1000].date()).days) <= 3
+               for c in drops)
+    assert all(c["size_pct"] > 0 for c in out["change_points"] if c["kind"] == "recovery")
+
+
+def test_pelt_matches_ruptures():
+    # our vectorised PELT must return ruptures.Pelt's breakpoints (same cost, jump=1)
+    from analytics.changepoint import pelt_line
+    rng = np.random.default_rng(1)
+    for _ in range(15):
+        n = int(rng.integers(40, 160))
+        t = np.arange(n) / 26
+        y = 1 - 0.005 * t + rng.normal(0, 0.004, n)
+        for k in rng.integers(5, n - 5, size=rng.integers(0, 4)):
+            y[k:] += rng.normal(0, 0.03)
+        pen = float(rng.uniform(1, 5)) * 0.004 ** 2 * np.log(n)
+        ms = int(rng.integers(3, 8))
+        ref = ruptures.Pelt(custom_cost=_CostLine(), min_size=ms, jump=1).fit(
+            np.column_stack([y, t])).predict(pen=pen)
+        assert [int(b) for b in pelt_line(y, t, pen=pen, min_size=ms)] == ref
+
+
 def test_cost_matches_ruptures_linear_cost():
     # our prefix-sum cost must equal ruptures' own CostLinear (least squares per segment)
     rng = np.random.default_rng(0)

@@ -15,7 +15,13 @@ from analytics.clearsky import (
     densify_clear_days,
     detect_clear_periods,
 )
-from analytics.degradation import DRIFT_WARNING, compare_methods, degradation_yoy, peer_relative_pi
+from analytics.degradation import (
+    DRIFT_WARNING,
+    compare_methods,
+    degradation_yoy,
+    peer_relative_pi,
+    sensor_clearsky_drift,
+)
 from tests.degradation_synth import interval_site, sensor_daily_pi
 
 pytestmark = pytest.mark.filterwarnings("ignore::UserWarning")
@@ -101,7 +107,11 @@ def test_drifting_sensor_biases_sensor_rate_not_clearsky_or_peers(drifting_site)
         assert abs(cs.rate_pct_per_yr - truth) < 0.1
         assert abs(sb.rate_pct_per_yr - (truth - 0.99)) < 0.1
         assert abs(peer.rate_pct_per_yr - (truth - fleet_rate)) < 0.15
-        verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs, "peer_relative": peer})
+        # paired drift check: ratio sensor/clear-sky index falls at ≈ 1 - 1/1.01 = 0.99 %/yr
+        drift = sensor_clearsky_drift(sensor_pi[name], d["pi_clearsky"])
+        assert abs(drift.rate_pct_per_yr + 0.99) < 0.1 and drift.ci_high < 0
+        verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs, "peer_relative": peer,
+                                   "sensor_vs_clearsky": drift})
         assert verdict["agree"] is False
         assert DRIFT_WARNING in verdict["warnings"]
 
@@ -116,5 +126,7 @@ def test_stable_sensor_methods_agree():
                           t_cell_c=site["t_cell"])
     cs = degradation_yoy(densify_clear_days(d["pi_clearsky"]), method="clearsky_yoy")
     sb = degradation_yoy(sensor_daily_pi(site, "INV01").dropna())
-    verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs})
+    drift = sensor_clearsky_drift(sensor_daily_pi(site, "INV01"), d["pi_clearsky"])
+    assert drift.ci_low < 0 < drift.ci_high  # a stable sensor: no drift shown
+    verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs, "sensor_vs_clearsky": drift})
     assert verdict["agree"] is True and verdict["warnings"] == []

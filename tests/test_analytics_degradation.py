@@ -304,3 +304,22 @@ def test_sanity_band_warning():
         warnings.simplefilter("ignore")
         res = degradation_yoy(daily_pi(years=3, rd_pct_per_yr=-3.0, seed=5))
     assert any("outside" in w for w in res.warnings)
+
+
+def test_deseasonalised_monthly_removes_annual_cycle():
+    # noise-free PI = 0.995^(t/365) (1 + 0.03 sin(2πt/365)): after dividing by the fitted
+    # annual cycle each month must sit on the trend 0.995^(t/365) within 0.15 % (the monthly
+    # mean of a multiplicative cycle is not exactly removable by an additive harmonic fit).
+    from analytics.degradation import deseasonalised_monthly
+    pi = daily_pi(years=4, noise=0.0, season=0.03, rd_pct_per_yr=-0.5)
+    d = deseasonalised_monthly(pi)
+    t_mid = ((d.index + pd.Timedelta(days=14.5)) - pi.index[0]).days.to_numpy()
+    assert_allclose(d.to_numpy(), 0.995 ** (t_mid / 365), rtol=1.5e-3)
+    with pytest.raises(InsufficientDataError):
+        deseasonalised_monthly(pi.iloc[:150])
+
+
+def test_stl_interval_not_narrower_than_model_a():
+    pi = daily_pi(years=3, rd_pct_per_yr=-0.6, noise=0.01, ar1=0.7, seed=21)
+    stl, rlm = degradation_stl(pi), degradation_rlm(pi)
+    assert stl.ci_high - stl.ci_low >= (rlm.ci_high - rlm.ci_low) * 0.999

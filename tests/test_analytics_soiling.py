@@ -147,6 +147,11 @@ def test_soiling_flags_and_recommendation():
     # a cleaning costing more than the loss -> no recommendation, severity info
     fl2 = soiling_flags(pi, h, e, tariff_per_kwh=0.08, cleaning_cost=50000, n_runs=0)
     assert not fl2[fl2["kind"] == "soiling"].iloc[-1]["details"]["recommend_cleaning"]
+    # no cleaning cost configured: no recommendation, and the details say why
+    fl3 = soiling_flags(pi, h, e, tariff_per_kwh=0.08, cleaning_cost=0.0, n_runs=0)
+    last3 = fl3[fl3["kind"] == "soiling"].iloc[-1]
+    assert not last3["details"]["recommend_cleaning"] and last3["severity"] == "info"
+    assert "no cleaning cost configured" in last3["details"]["recommendation"]
 
 
 def test_clean_control_raises_no_soiling():

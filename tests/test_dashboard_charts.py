@@ -56,8 +56,8 @@ def test_pr_heatmap_draws_the_matrix_on_a_symmetric_diverging_scale():
     # centred on the median (0 %), saturating symmetrically
     assert hm.zmid == 0 and hm.zmin == -10 and hm.zmax == 10
     assert "[%]" in hm.colorbar.title.text
-    # hover text of the NaN cell says why it is blank
-    assert hm.customdata[0][2] == "not valid" and hm.customdata[1][1] == "+12.0 %"
+    assert hm.hoverongaps is False  # a not-valid day is a gap on the grey background
+    assert fig.layout.plot_bgcolor == theme.MISSING
 
 
 def test_fleet_quadrant_axes_are_the_two_comparisons():
@@ -88,7 +88,10 @@ def test_pr_trend_layers():
     titles = _check_units(fig)
     assert titles["yaxis"] == "Temperature-corrected PR (PR_STC) [–]"
     names = [t.name for t in fig.data]
-    assert "INV-1 rolling median" in names and "flagged day" in names
+    assert "INV-1 rolling median" in names
+    rug = next(t for t in fig.data if (t.name or "").startswith("flagged days"))
+    assert list(rug.x) == list(days[[3, 4]])
+    assert max(rug.y) < 0.85  # drawn under the data, never on top of it
     assert "INV-1 yoy fit" in names and "soiling interval" in names
     assert len(fig.layout.shapes) == 1  # the soiling interval, shaded
 
@@ -161,9 +164,13 @@ def test_drilldown_panels_units_flags_and_local_time():
                                     "Temperature [°C]", "Local standard time (UTC+01:00)"}
     first = pd.Timestamp(fig.data[0].x[0])
     assert first == pd.Timestamp("2024-06-01T01:00")  # 00:00 UTC shown as 01:00 UTC+1
-    assert len(fig.layout.shapes) == 4  # the flag, shaded in each of the four panels
+    assert len(fig.layout.shapes) == 1  # the flag, shaded across all four panels
+    assert fig.layout.shapes[0].yref == "paper" and fig.layout.shapes[0].fillcolor.endswith("0.28)")
     assert "#7 outage" in fig.layout.annotations[0].text
-    assert fig.layout.xaxis.matches is None or fig.layout.xaxis2.matches == "x"  # one time axis
+    assert {t.xaxis for t in fig.data} == {"x"}  # one zoomable time axis for every panel
+    # an info flag or a site-wide flag is listed, not shaded
+    info = flags.assign(flag_id=8, severity="info", device_id="INV-1")
+    assert not charts.drilldown(f, peers, info, "INV-1", 3600).layout.shapes
     assert any(t.name == "peers" for t in fig.data)
 
 

@@ -80,3 +80,16 @@ def test_reading_table_is_without_rowid(engine):
     with engine.connect() as conn:
         sql = conn.exec_driver_sql("SELECT sql FROM sqlite_master WHERE name = 'reading'").scalar()
     assert "WITHOUT ROWID" in sql.upper()
+
+
+def test_multi_row_statements_with_remainder_roundtrip(engine):
+    # 1234 rows = 4 statements of 250 rows + 234 single-row inserts; then an upsert of half
+    ch = _chan(engine)
+    b1, b2 = _batches(engine, 2)
+    ts = np.arange(1234) * 300
+    write(engine, ch, ts, ts / 300.0, b1, upsert=False)
+    write(engine, ch, ts[::2], -1.0 * np.ones(617), b2, upsert=True)
+    got = rows(engine)
+    assert len(got) == 1234
+    assert [r.value for r in got[:4]] == [-1.0, 1.0, -1.0, 3.0]
+    assert sum(r.batch_id == b2 for r in got) == 617

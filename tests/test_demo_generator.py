@@ -386,3 +386,28 @@ def test_demo_site_ingests_with_only_the_corrupted_lines_rejected(tmp_path):
     assert sum(counts[Path(c["file"]).name]["rows_duplicate"] for c in dup) == len(dup)
     for c in counts.values():
         assert c["rows_read"] == c["rows_loaded"] + c["rows_duplicate"] + c["rows_rejected"]
+
+
+def test_cli_demo_data_small_fleet_and_bad_start(tmp_path):
+    from click.testing import CliRunner
+
+    from heliaudit.cli import main
+
+    out = tmp_path / "fleet"
+    res = CliRunner().invoke(main, ["demo-data", "--out", str(out), "--inverters", "2",
+                                    "--years", "0.0833", "--start", "2023-03-01",
+                                    "--site-id", "tiny"])
+    assert res.exit_code == 0, res.output
+    assert "1 export files" in res.output
+    cfg = load_site_config(out / "tiny.toml")
+    assert cfg.id == "tiny" and [i.id for i in cfg.inverters] == ["INV-01", "INV-02"]
+    # March 2023: 31 days x 96 intervals, minus the 4 skipped by the spring DST change
+    assert len(_lines_of(out / "exports" / "tiny_2023-03.csv.gz")) == 31 * 96 - 4 + gen.HEADER_LINES
+    res = CliRunner().invoke(main, ["demo-data", "--out", str(out), "--start", "2023-03-15"])
+    assert res.exit_code == 1
+    assert "Error: --start must be the first day of a month, got 2023-03-15" in res.output
+
+
+def _lines_of(path: Path) -> list[str]:
+    with gzip.open(path, "rt", encoding="latin-1", newline="") as f:
+        return f.read().split("\r\n")[:-1]

@@ -152,3 +152,12 @@ def test_empty_file(tmp_path):
     p.write_bytes(b"")
     with pytest.raises(IngestError, match="empty.csv:1: file is empty: expected a header line"):
         read_export(p, src())
+
+
+def test_truncated_gzip_is_an_ingest_error(tmp_path):
+    data = gzip.compress(("ts,A,B\n" + "2023-01-01 00:00:00,1,2\n" * 5000).encode())
+    p = tmp_path / "cut.csv.gz"
+    p.write_bytes(data[: len(data) // 2])
+    with pytest.raises(IngestError, match=r"cut.csv.gz:\d+: cannot be read: .*export it again"):
+        meta, chunks = read_export(p, src())
+        list(chunks)

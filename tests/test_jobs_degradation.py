@@ -97,8 +97,8 @@ def test_job_stores_every_method(store):
     engine, summary = store
     assert summary["inverters"] == 5 and summary["refused"] == 1
     res = degradation_results(engine, "s1")
-    methods = {"yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "yoy_stable_segments",
-               "summary"}
+    methods = {"yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "sensor_vs_clearsky",
+               "yoy_stable_segments", "summary"}
     for dev in ("INV01", "INV02", "INV03", "INV04", "INV05", SITE_DEVICE):
         assert set(res.loc[res["device_id"] == dev, "method"]) == methods
     one = res[(res["device_id"] == "INV01") & (res["method"] == "yoy")].iloc[0]
@@ -122,6 +122,8 @@ def test_drift_detected_and_clearsky_recovers_truth(store):
         dev = f"INV{i:02d}"
         assert abs(res.loc[(dev, "clearsky_yoy"), "rate_pct_per_yr"] - truth) < 0.15
         assert abs(res.loc[(dev, "yoy"), "rate_pct_per_yr"] - (truth - 0.99)) < 0.15
+        drift = res.loc[(dev, "sensor_vs_clearsky")]
+        assert abs(drift["rate_pct_per_yr"] + 0.99) < 0.15 and drift["ci_high"] < 0
         summ = res.loc[(dev, "summary"), "details"]
         assert any("check POA sensor calibration" in w for w in summ["warnings"])
         assert summ["comparison"]["agree"] is False

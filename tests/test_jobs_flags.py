@@ -1,6 +1,7 @@
 """The flags job end to end on a real SQLite store with injected faults."""
 
 import json
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -130,10 +131,109 @@ def test_unknown_site(store):
 
 
 QUILLPOND = Path(__file__).resolve().parents[1] / "sample_scada" / "quillpond"
+DEMO_MONTHS = ("2024-01", "2024-02", "2024-03", "2024-04", "2024-05")
 
 
-@pytest.mark.skipif(not (QUILLPOND / "truth.json").exists(),
-                    reason="demo site sample_scada/quillpond/truth.json not built yet")
-def test_demo_site_truth():  # pragma: no cover - filled when the demo lands
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    """The demo site, five months of exports (2024-01..05: clock shift, module-temperature
+    flatline, an outage, the string failure under way), ingested and computed."""
+    if not (QUILLPOND / "truth.json").exists():
+        pytest.skip("demo site sample_scada/quillpond/truth.json not built yet")
+    from ingest.config import load_site_config
+    from ingest.load import ingest_paths
+
+    eng = make_store(tmp_path_factory.mktemp("demo"))
+    cfg = load_site_config(QUILLPOND / "quillpond.toml")
+    files = [QUILLPOND / "exports" / f"quillpond_{m}.csv.gz" for m in DEMO_MONTHS]
+    ingest_paths(eng, cfg, files)
+    recompute_all(eng, "quillpond")
+    run_flags(eng, "quillpond")
     truth = json.loads((QUILLPOND / "truth.json").read_text())
-    assert truth
+    return eng, truth, read_flags(eng, "quillpond")
+
+
+def _local_s(text, truth_zone="Europe/Madrid"):
+    return pd.Timestamp(text).tz_localize(truth_zone).value // 10**9
+
+
+def test_demo_clock_shift_matches_truth(demo):
+    eng, truth, fl = demo
+    cs = fl[fl["kind"] == "clock_shift"]
+    assert len(cs) == 1 and cs.iloc[0]["device_id"] is None  # one logger, all devices
+    det = json.loads(cs.iloc[0]["details_json"])
+    t = truth["clock_shift"]  # labels 60 min late for intervals ending 2024-02-01..03-01
+    assert det["shift_minutes_correction"] == -t["shift_minutes"]
+    # Tolerance: exact dates (the shifted days are 2024-02-01 .. 2024-02-29 local).
+    assert (det["first_day"], det["last_day"]) == ("2024-02-01", "2024-02-29")
+    snippet = tomllib.loads(det["correction_toml"])["sources"]["clock_corrections"][0]
+    assert snippet["shift_minutes"] == -60
+
+
+def test_demo_flatline_outage_and_string_failure(demo):
+    eng, truth, fl = demo
+    ft = truth["t_module_flatline"]
+    f = fl[(fl["kind"] == "sensor_flatline") & (fl["device_id"] == ft["sensor"])]
+    assert len(f) == 1
+    # Tolerance: start within 1 h, end within 1 day (the stuck run ends in the night).
+    assert abs(f.iloc[0]["start_s"] - _local_s(ft["start_local"])) <= 3600
+    assert abs(f.iloc[0]["end_s"] - _local_s(ft["end_local"])) <= 86400
+    o = next(x for x in truth["outages"] if x["start_local"].startswith("2024-05"))
+    out = fl[fl["kind"] == "outage"]
+    assert list(out["device_id"]) == o["inverters"]  # INV-09 only: no false outage
+    # Tolerance: 15 min (one interval) on both ends.
+    assert abs(out.iloc[0]["start_s"] - _local_s(o["start_local"])) <= 900
+    assert abs(out.iloc[0]["end_s"] - _local_s(o["end_local"])) <= 900
+    up = fl[fl["kind"] == "underperformance"]
+    assert list(up["device_id"]) == [truth["string_failure"]["inverter"]]
+
+
+def test_demo_false_alarms(demo):
+    """Outside the injected faults the five months raise nothing but information."""
+    eng, truth, fl = demo
+    alarms = fl[fl["severity"].isin(["warning", "alarm"])]
+    expected = {"clock_shift", "sensor_flatline", "outage", "underperformance",
+                "sensor_night"}  # night irradiance is the clock shift seen at dusk
+    assert set(alarms["kind"]) <= expected
+    night = fl[fl["kind"] == "sensor_night"]
+    assert (night["start_s"] >= _local_s("2024-02-01 00:00")).all()
+    assert (night["end_s"] <= _local_s("2024-03-01 00:00")).all()
+    assert fl[fl["kind"] == "sensor_drift"].empty  # PY2 drifts 0.8 %/yr < 1 %/yr threshold
+
+
+def test_sibling_drift_names_the_drifting_sensor():
+    # Two POA sensors, 2 years of clear-day ratios: B loses 2 %/yr, A is stable.
+    # The ratio A/B rises 2 %/yr (Theil–Sen, scipy) and B has the larger clear-sky drift.
+    from heliaudit.jobs_flags import sibling_flags
+
+    days = pd.date_range("2023-01-01", periods=730, freq="D")
+    rng = np.random.default_rng(8)
+    t = np.arange(730) / 365.25
+    ra = pd.Series(0.97 + 0.003 * rng.standard_normal(730), index=days)
+    rb = pd.Series(0.99 * (1 - 0.02 * t) + 0.003 * rng.standard_normal(730), index=days)
+    fl = sibling_flags({"POA-A": ra, "POA-B": rb}, std_offset_s=0)
+    fl = [f for f in fl if len(f)]
+    assert len(fl) == 1
+    f = fl[0].iloc[0]
+    assert f["device_id"] == "POA-B" and f["details"]["pair"] == ["POA-A", "POA-B"]
+    # A/B = 0.98/(1 − 0.02 t): +2.0..2.1 %/yr over the two years (hand: d/dt at t≈1).
+    assert f["details"]["drift_pct_per_yr"] == pytest.approx(2.04, abs=0.2)
+    stable = sibling_flags({"POA-A": ra, "POA-C": ra * 1.01}, std_offset_s=0)
+    assert all(len(x) == 0 for x in stable)
+
+
+def test_merge_shared_flags_logger_gap():
+    from analytics.outliers import flag_frame
+    from heliaudit.jobs_flags import merge_shared_flags
+
+    rec = [dict(device_id=d, kind="sensor_dropout", start_s=100, end_s=200, severity="info",
+                lost_kwh=None, details={"quantity": q}) for d, q in
+           (("inv1", "p_ac_kw"), ("inv2", "p_ac_kw"), ("poa1", "poa_wm2"))]
+    rec.append(dict(device_id="inv3", kind="sensor_dropout", start_s=100, end_s=300,
+                    severity="warning", lost_kwh=None, details={"quantity": "p_ac_kw"}))
+    out = merge_shared_flags(flag_frame(rec))
+    assert len(out) == 2
+    site = out[out["device_id"].isna()].iloc[0]
+    assert site["details"]["devices"] == ["inv1", "inv2", "poa1"]
+    assert "logger" in site["details"]["probable_cause"]
+    assert list(out.loc[out["device_id"].notna(), "device_id"]) == ["inv3"]

@@ -29,9 +29,11 @@ m[2].metric("Methods disagree", f"{n_dis}")
 st.plotly_chart(charts.degradation_forest(res), theme=None, key="forest")
 
 st.subheader("Rates and agreement")
+verdicts = agree.assign(agree=[("–" if a is None or a != a else "yes" if bool(a) else "no")
+                               for a in agree["agree"]])
 table = res[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high", "confidence",
-             "n_points", "reason"]].merge(agree[["device_id", "agree", "disagreements",
-                                                 "warnings"]], on="device_id", how="left")
+             "n_points", "reason"]].merge(verdicts[["device_id", "agree", "disagreements",
+                                                    "warnings"]], on="device_id", how="left")
 st.dataframe(table, hide_index=True, key="rates_table", column_config={
     "device_id": "Device", "method": "Method",
     "rate_pct_per_yr": st.column_config.NumberColumn("Rd [%/yr]", format="%+.2f"),
@@ -39,14 +41,15 @@ st.dataframe(table, hide_index=True, key="rates_table", column_config={
     "ci_high": st.column_config.NumberColumn("CI high [%/yr]", format="%+.2f"),
     "confidence": st.column_config.NumberColumn("Confidence", format="%.2f"),
     "n_points": st.column_config.NumberColumn("Points", format="%d"),
-    "reason": "Not computed because", "agree": st.column_config.CheckboxColumn("Agree"),
+    "reason": "Not computed because", "agree": "Methods agree",
     "disagreements": "Disagreeing methods", "warnings": "Verdict notes"})
 
 st.subheader("One device")
 devices = list(dict.fromkeys(res["device_id"]))
 c1, c2 = st.columns(2)
 device = c1.selectbox("Device", devices, key="deg_device")
-methods = sorted(res.loc[res["device_id"] == device, "method"].dropna().unique())
+methods = sorted(res.loc[(res["device_id"] == device) & res["rate_pct_per_yr"].notna(),
+                         "method"].unique()) or ["yoy"]
 method = c2.selectbox("Method for the warranty check", methods, key="deg_method",
                       index=methods.index("yoy") if "yoy" in methods else 0)
 v = agree[agree["device_id"] == device]
@@ -65,7 +68,7 @@ h = data.yoy_histogram_data(res, device)
 if h is not None:
     left.plotly_chart(charts.yoy_histogram(h["edges"], h["counts"], h["rate"], h["ci"],
                                            title=f"{device}: year-on-year pair rates "
-                                                 f"({h['n_points']} pairs)"),
+                                                 f"({h['n_points']:.0f} pairs)"),
                       theme=None, key="yoy_hist")
 else:
     left.info("No year-on-year distribution stored for this device.")

@@ -103,12 +103,13 @@ if highlight:
     fl = data.flag(url, int(highlight))
     if fl:
         st.subheader(f"Flag #{fl['flag_id']}: {fl['kind']} on {fl['device_id'] or 'the site'}")
-        k = st.columns(4)
+        t0 = dt.datetime.fromtimestamp(fl["start_s"] + off, dt.UTC)
+        t1 = dt.datetime.fromtimestamp(fl["end_s"] + off, dt.UTC)
+        st.caption(f"From {t0:%Y-%m-%d %H:%M} to {t1:%Y-%m-%d %H:%M} (local standard time).")
+        k = st.columns(3)
         k[0].metric("Severity", fl["severity"])
-        k[1].metric("Start", f"{_local_day(fl['start_s'])} "
-                    f"{dt.datetime.fromtimestamp(fl['start_s'] + off, dt.UTC):%H:%M}")
-        k[2].metric("Duration", f"{(fl['end_s'] - fl['start_s']) / 3600:,.1f} h")
-        k[3].metric("Lost energy", f"{fl['lost_kwh']:,.1f} kWh"
+        k[1].metric("Duration", f"{(fl['end_s'] - fl['start_s']) / 3600:,.1f} h")
+        k[2].metric("Lost energy", f"{fl['lost_kwh']:,.1f} kWh"
                     if fl["lost_kwh"] is not None else "–")
         with st.expander("Flag details", expanded=False):
             st.json(fl["details"])
@@ -124,7 +125,8 @@ n_peers = peers["device_id"].nunique() if not peers.empty else 0
 st.caption(f"Expected power: PVWatts DC model (Dobos 2014) from POA irradiance and Sandia cell "
            f"temperature (King et al. 2004, from the back-of-module sensor), inverter efficiency "
            f"and AC limit. Grey: {n_peers} peers of the same peer group, AC power per kWp. "
-           "Shaded: flags. Drag to zoom, double-click to reset.")
+           "Shaded: this inverter's warnings and alarms (the chosen flag darker); info and site-wide "
+           "events are listed below. Drag to zoom, double-click to reset.")
 if not flags.empty:
     st.dataframe(flags[["flag_id", "device_id", "kind", "severity", "start_local", "end_local",
                         "lost_kwh"]], hide_index=True, key="dd_flags", column_config={

@@ -22,8 +22,7 @@ if sf.empty:
 else:
     for f in sf.head(8).itertuples():
         st.page_link(ui.PAGES["drilldown"], icon=":material/zoom_in:",
-                     label=f"#{f.flag_id} {f.device_id or 'site'} — {f.kind} ({f.severity}), "
-                           f"{f.start_local:%Y-%m-%d} → {f.end_local:%Y-%m-%d}",
+                     label=data.flag_label(f),
                      query_params={"flag": str(f.flag_id)})
     st.dataframe(sf[["flag_id", "device_id", "kind", "severity", "start_local", "end_local",
                      "details_json"]], hide_index=True, key="sensor_flags", column_config={
@@ -70,5 +69,5 @@ else:
         "batch_id": st.column_config.NumberColumn("Batch", format="%d"), "file_name": "File",
         "line_no": st.column_config.NumberColumn("Line", format="%d"),
         "column_name": "Column", "reason": "Reason", "raw_text": "Raw text"})
-    st.caption(f"Showing up to 500 rows. Every rejected row is kept with its file, line and "
-               f"reason; nothing is dropped silently.")
+    st.caption("Showing up to 500 rows. Every rejected row is kept with its file, line and "
+               "reason; nothing is dropped silently.")

@@ -22,7 +22,8 @@ chosen_ids = c1.multiselect("Inverters", ids, key="trend_inverters", max_selecti
 period = c2.radio("Period", ["Full history", "Selected date range"], horizontal=True,
                   key="trend_period")
 results = data.degradation_table(url, site_id)
-methods = sorted(results["method"].dropna().unique()) if not results.empty else []
+rates = data.rates_only(results).dropna(subset=["rate_pct_per_yr"])
+methods = sorted(rates["method"].unique(), key=lambda m: (m != "yoy", m))
 method = c3.selectbox("Degradation fit", ["(none)", *methods], key="trend_method",
                       index=1 if methods else 0)
 
@@ -32,7 +33,9 @@ first, last = data.data_span(url, site_id)
 lo, hi = start or first, end or last
 flags = data.flags_in_window(url, site_id, lo, hi) if lo else None
 mine = flags[flags["device_id"].isin(chosen_ids)] if flags is not None else None
-flagged = data.flagged_days(chosen, mine, sel["offset_s"]) if mine is not None else None
+# mark days of warnings and alarms (info flags such as clipping would cover everything)
+serious = mine[mine["severity"] != "info"] if mine is not None else None
+flagged = data.flagged_days(chosen, serious, sel["offset_s"]) if serious is not None else None
 soiling = (flags[flags["kind"].str.contains(data.SOILING_KIND, case=False, na=False)
                  & (flags["device_id"].isin(chosen_ids) | flags["device_id"].isna())]
            if flags is not None else None)
@@ -45,8 +48,8 @@ if method != "(none)":
 st.plotly_chart(charts.pr_trend(chosen, peers, flagged, soiling, fits), theme=None,
                 key="trend_chart")
 st.caption(f"Dots: daily PR_STC on valid days; lines: centred {data.ROLLING_DAYS}-day rolling "
-           "median; grey band: 10–90 % range of all site inverters' rolling medians; ✕: days "
-           "inside a flag of the chosen inverter; shaded: soiling intervals. The dashed fit is "
+           "median; grey band: 10–90 % range of all site inverters' rolling medians; ticks under the "
+           "data: days inside a warning or alarm flag of the inverter; shaded: soiling intervals. The dashed fit is "
            "the stored degradation rate drawn through the inverter's first-year median PR_STC, "
            "with the rate's confidence interval as the band.")
 
@@ -64,6 +67,5 @@ if mine is not None and not mine.empty:
     st.subheader("Flags of these inverters")
     for f in mine.head(12).itertuples():
         st.page_link(ui.PAGES["drilldown"], icon=":material/zoom_in:",
-                     label=f"#{f.flag_id} {f.device_id} — {f.kind} ({f.severity}), "
-                           f"{f.start_local:%Y-%m-%d} → {f.end_local:%Y-%m-%d}",
+                     label=data.flag_label(f),
                      query_params={"flag": str(f.flag_id)})

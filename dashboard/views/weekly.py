@@ -22,12 +22,8 @@ st.subheader(f"New flags this week ({len(new)})")
 if new.empty:
     st.success("No new flags started in this week.")
 else:
-    cols = st.columns(2)
-    for k, f in enumerate(new.head(10).itertuples()):
-        lost = "" if f.lost_kwh != f.lost_kwh or f.lost_kwh is None else f" · {f.lost_kwh:,.0f} kWh lost"
-        label = (f"#{f.flag_id} {f.device_id or 'site'} — {f.kind} ({f.severity}), "
-                 f"from {f.start_local:%a %d %b %H:%M}{lost}")
-        cols[k % 2].page_link(ui.PAGES["drilldown"], label=label, icon=":material/zoom_in:",
+    for f in new.head(10).itertuples():
+        st.page_link(ui.PAGES["drilldown"], label=data.flag_label(f), icon=":material/zoom_in:",
                               query_params={"flag": str(f.flag_id)})
     if len(new) > 10:
         st.caption(f"… and {len(new) - 10} more in the table below.")
@@ -84,7 +80,8 @@ left, right = st.columns([2, 3])
 left.plotly_chart(charts.fleet_quadrant(fleet), theme=None, key="quadrant")
 heat = data.pr_relative_heatmap(url, site_id, sel["start"], sel["end"])
 right.plotly_chart(charts.pr_heatmap(heat), theme=None, key="heatmap")
-st.caption("Heatmap: each cell is one inverter-day, PR_STC divided by the median of all the "
+st.caption("Scatter: one dot per inverter, sized by last week's energy, red when it has "
+           "flags in the week; trouble sits bottom-left. Heatmap: each cell is one inverter-day, PR_STC divided by the median of all the "
            "site's inverters that day. A single red cell is a bad day; a red row is a weak "
            "inverter; a red band over many rows that ends at once is typically soiling "
            "washed off by rain or a cleaning. Grey = not a valid day (too little valid data).")

@@ -27,6 +27,7 @@ import gzip
 import io
 import os
 import re
+import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from itertools import islice
@@ -38,7 +39,8 @@ import pandas as pd
 from ingest.config import QUANTITY_UNITS, ColumnMap, Source, normalise_unit
 from ingest.errors import IngestError
 
-CHUNK_ROWS = 20_000
+#: Values per chunk (rows x mapped columns): bounds memory whatever the file's width or length.
+CHUNK_VALUES = 400_000
 _GZIP_MAGIC = b"\x1f\x8b"
 
 
@@ -70,9 +72,11 @@ class Chunk:
     long: dict[str, np.ndarray] | None = None  # long layout: "device", "quantity", "unit"
 
 
-def read_export(path: str | os.PathLike, source: Source, chunk_rows: int = CHUNK_ROWS
+def read_export(path: str | os.PathLike, source: Source, chunk_rows: int | None = None
                 ) -> tuple[ExportMeta, Iterator[Chunk]]:
     """Open an export and validate its header; return its meta and an iterator of chunks.
+
+    ``chunk_rows`` defaults to :data:`CHUNK_VALUES` / (mapped columns), between 500 and 50 000.
 
     Raises :class:`IngestError` for a header that does not match the source, a decode error
     (with a hint naming the right ``encoding``) or an unreadable file.
@@ -164,7 +168,7 @@ def _split(line: str, delimiter: str) -> list[str]:
     return next(csv.reader([line], delimiter=delimiter), [])
 
 
-def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: int = CHUNK_ROWS,
+def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: int | None = None,
            position=None, on_close=None, sniff: bytes = b"") -> tuple[ExportMeta, Iterator[Chunk]]:
     """Parse a text buffer holding an export (tests feed :class:`io.StringIO`)."""
     lineno = 0
@@ -173,6 +177,9 @@ def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: i
         nonlocal lineno
         try:
             s = buf.readline()
+        except (EOFError, OSError, zlib.error) as exc:
+            raise IngestError(path, lineno + 1, None, f"cannot be read: {exc}",
+                              "the file may be truncated or damaged; export it again") from None
         except UnicodeDecodeError as exc:
             raise IngestError(path, getattr(buf, "n", lineno) + 1, None,
                               f"cannot be decoded as {source.encoding} ({exc.reason}, byte "
@@ -205,6 +212,8 @@ def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: i
             on_close()
         raise
     meta.encoding = source.encoding
+    if chunk_rows is None:
+        chunk_rows = min(50_000, max(500, CHUNK_VALUES // max(1, len(meta.columns) or 1)))
     return meta, _chunks(buf, source, path, meta, lineno, chunk_rows, position, on_close, sniff)
 
 
@@ -304,6 +313,9 @@ def _chunks(buf: TextIO, source: Source, path: str, meta: ExportMeta, lineno: in
         while True:
             try:
                 block, nlines = _read_block(buf, chunk_rows)
+            except (EOFError, OSError, zlib.error) as exc:
+                raise IngestError(path, lineno + 1, None, f"cannot be read: {exc}",
+                                  "the file may be truncated or damaged; export it again") from None
             except UnicodeDecodeError as exc:
                 exact = getattr(buf, "n", None)
                 raise IngestError(path, (exact if exact is not None else lineno) + 1, None,

@@ -1,0 +1,130 @@
+"""Demo site end to end (issue #7): recovered degradation rates against the generator's truth.
+
+Builds (or reuses) a store from ``sample_scada/quillpond`` through ingest -> daily -> flags ->
+degradation, then compares each inverter's rate with ``truth.json`` (the invented site's
+injected rates; known answers of our own generator):
+
+* inverters on the stable POA sensor (POA-RC1) and without faults: year-on-year within
+  0.2 %/yr of the injected rate;
+* inverters on POA-PY2 (the generator drifts it −0.8 %/yr from 2023-07): the sensor-based
+  rate is biased, the clear-sky rate is within 0.2 %/yr and the drift warning fires;
+* INV-05 (a string opens on 2023-09-12): a level shift is found near that day;
+* the fleet's median recovered rate is near the published median for crystalline silicon,
+  0.5 %/yr loss (Jordan & Kurtz 2013), here within the generator's truth range.
+
+Ingesting and computing 3.5 years of 15-minute data for 14 inverters takes minutes, so the
+test runs only when ``HELIAUDIT_DEMO_DB`` names a store built from the demo (e.g.
+``heliaudit --db /tmp/demo.sqlite ingest sample_scada/quillpond/quillpond.toml``) or when
+``HELIAUDIT_SLOW=1`` lets it build one; otherwise it skips with that reason.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "sample_scada" / "quillpond"
+TRUTH = DEMO / "truth.json"
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def demo_engine(tmp_path_factory):
+    if not TRUTH.exists():
+        pytest.skip("sample_scada/quillpond/truth.json not generated yet (heliaudit demo-data)")
+    url = os.environ.get("HELIAUDIT_DEMO_DB")
+    from db.engine import make_engine
+
+    if url:
+        engine = make_engine(url)
+    elif os.environ.get("HELIAUDIT_SLOW") == "1":
+        from click.testing import CliRunner
+
+        from heliaudit.cli import main
+        path = tmp_path_factory.mktemp("demo") / "demo.sqlite"
+        r = CliRunner().invoke(main, ["--db", str(path), "ingest", "--silent",
+                                      str(DEMO / "quillpond.toml")])
+        assert r.exit_code == 0, r.output[-2000:]
+        engine = make_engine(path)
+    else:
+        pytest.skip("slow (minutes): set HELIAUDIT_DEMO_DB to a store built from the demo, "
+                    "or HELIAUDIT_SLOW=1 to build one")
+    from db.degradation import degradation_results
+
+    if degradation_results(engine, "quillpond").empty:
+        from heliaudit.jobs_degradation import run_degradation
+        run_degradation(engine, "quillpond")
+    return engine
+
+
+@pytest.fixture(scope="module")
+def results(demo_engine):
+    from db.degradation import degradation_results
+
+    return degradation_results(demo_engine, "quillpond").set_index(["device_id", "method"])
+
+
+@pytest.fixture(scope="module")
+def truth():
+    return json.loads(TRUTH.read_text())
+
+
+def _sensor_of(truth, dev):
+    return next(i["poa_sensor"] for i in truth["inverters"] if i["id"] == dev)
+
+
+def test_stable_sensor_inverters_within_0p2(results, truth):
+    rates = truth["degradation"]["per_inverter_pct_per_yr"]
+    faulty = {truth["string_failure"]["inverter"]}
+    checked = 0
+    for dev, rd in rates.items():
+        if _sensor_of(truth, dev) != "POA-RC1" or dev in faulty:
+            continue
+        got = results.loc[(dev, "yoy"), "rate_pct_per_yr"]
+        assert abs(got - rd) < 0.2, (dev, got, rd)
+        checked += 1
+    assert checked >= 4
+
+
+def test_drifting_pyranometer_caught_by_clearsky(results, truth):
+    rates = truth["degradation"]["per_inverter_pct_per_yr"]
+    drift = truth["poa_drift"]["sensor"]
+    devs = [d for d in rates if _sensor_of(truth, d) == drift]
+    assert devs
+    cs_ok = warned = 0
+    for dev in devs:
+        cs = results.loc[(dev, "clearsky_yoy"), "rate_pct_per_yr"]
+        if not np.isnan(cs) and abs(cs - rates[dev]) < 0.2:
+            cs_ok += 1
+        summary = results.loc[(dev, "summary"), "details"]
+        warned += any("POA sensor calibration" in w for w in summary["warnings"])
+    assert cs_ok >= len(devs) - 1
+    assert warned >= len(devs) // 2
+
+
+def test_string_failure_found_as_level_shift(results, truth):
+    import datetime as dt
+
+    sf = truth["string_failure"]
+    day = dt.date.fromisoformat(sf["from_local"][:10])
+    cps = results.loc[(sf["inverter"], "summary"), "details"]["change_points"]
+    assert any(abs((dt.date.fromisoformat(c["day"]) - day).days) <= 14 and c["size_pct"] < -1
+               for c in cps), cps
+
+
+def test_fleet_median_near_published_median(results, truth):
+    # Jordan & Kurtz 2013: median field degradation ≈ 0.5 %/yr loss for crystalline Si; the
+    # demo's injected rates span -0.31..-0.93 %/yr (median -0.66): the recovered median of the
+    # stable-sensor inverters must lie in that range.
+    rates = truth["degradation"]["per_inverter_pct_per_yr"]
+    got = [results.loc[(d, "yoy"), "rate_pct_per_yr"] for d in rates
+           if _sensor_of(truth, d) == "POA-RC1"]
+    med = float(np.nanmedian(got))
+    assert min(rates.values()) <= med <= max(rates.values())
+    assert -1.0 < med < -0.3
