@@ -27,9 +27,15 @@ Daily sums (ratios of sums, never means of ratios, METHODS §5):
 * ``e_exp_kwh``: expected AC energy of daylight intervals having the model's inputs;
 * valid set (reason code 0): ``n_valid``, ``e_ac_valid_kwh``, ``e_exp_valid_kwh`` and the
   performance index ``pi = e_ac_valid_kwh / e_exp_valid_kwh``;
-* ``coverage``: share of the daylight insolation (measured POA, or clear-sky POA where the
-  reading is missing) that falls in valid intervals; ``day_valid = coverage >= min_coverage``
-  and a finite pi;
+* ``coverage``: data coverage, the share of the daylight insolation (measured POA, or
+  clear-sky POA where the reading is missing) that falls in intervals with complete,
+  plausible data (reason not ``missing``, ``out_of_range`` or ``stuck``). Intervals left out
+  of pi for the plant's operating state (outage, clipping) or the irradiance window still
+  count as covered, so that an inverter with a high DC/AC ratio, which clips on every clear
+  summer day, keeps its summer days. ``day_valid``: coverage >= ``min_coverage`` (0.8), at
+  least ``min_valid_fraction`` (0.5) of the insolation in valid intervals (so that an
+  overcast day whose pi rests on two intervals does not enter trends; the share is in
+  ``details_json`` as ``valid_insolation_fraction``), and a finite pi;
 * availability (:mod:`analytics.availability`): ``t_daylight_h`` (sun up, G >= 50 W/m² and
   a power reading), ``t_unavailable_h``, ``e_lost_kwh``, ``avail_time``, ``avail_energy``;
 * ``t_clipped_h``: hours with P_ac >= clip_fraction · P_ac,max;
@@ -117,9 +123,11 @@ def _div(num: np.ndarray, den: np.ndarray) -> np.ndarray:
 
 
 @functools.lru_cache(maxsize=4096)
-def _details(counts: tuple[int, ...], n_modelled: int) -> str:
+def _details(counts: tuple[int, ...], n_modelled: int, valid_fraction: float) -> str:
     d: dict = {"excluded": {r: int(counts[i]) for i, r in enumerate(flt.REASONS)
-                            if i and counts[i]}}
+                            if i and counts[i]},
+               "valid_insolation_fraction": None if valid_fraction != valid_fraction
+               else valid_fraction}
     if n_modelled:
         d["t_cell_modelled_from_ambient"] = int(n_modelled)
     return json.dumps(d, sort_keys=True)
@@ -153,7 +161,8 @@ def daily_performance(frame: pd.DataFrame, inverter, *, utc_offset_h: float = 0.
     Returns
     -------
     DataFrame with columns :data:`DAILY_COLUMNS`, one row per local standard day having
-    at least one interval, ``day`` as ``datetime.date``.
+    at least one reading, ``day`` as ``datetime.date``. Rows with no reading at all (gaps
+    filled with NaN) count as missing intervals where the sun is up.
 
     Examples
     --------
@@ -318,8 +327,10 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
 
     w_cov = np.where(g_ok[k], gpos[k], g_cs[k] if g_cs is not None else 0.0)
     w_cov = np.where(np.isfinite(w_cov), w_cov, 0.0) * taus
-    cov = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd),
-               np.bincount(ds, weights=w_cov, minlength=nd))
+    covered = ~np.isin(codes_s, flt.DATA_PROBLEMS)
+    w_day = np.bincount(ds, weights=w_cov, minlength=nd)
+    cov = _div(np.bincount(ds, weights=np.where(covered, w_cov, 0.0), minlength=nd), w_day)
+    frac_valid = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd), w_day)
 
     base = (gs >= f["outage_poa_wm2"]) & np.isfinite(ps)
     unavail = base & unavailable_mask(ps, gs, pmax_s, f["outage_fraction"],
@@ -335,7 +346,7 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     pi = _div(e_ac_valid, e_exp_valid)
     nr = len(flt.REASONS)
     counts = np.bincount(d * nr + codes, minlength=nd * nr).reshape(nd, nr)
-    return pd.DataFrame({
+    out = pd.DataFrame({
         "inverter_no": group_inv,
         "day": [_EPOCH_DAY + dt.timedelta(days=x) for x in days.tolist()],
         "n_intervals": n_int.astype(np.int64), "n_daylight": n_day.astype(np.int64),
@@ -348,11 +359,14 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
         "e_exp_kwh": e_exp, "e_ac_valid_kwh": e_ac_valid, "e_exp_valid_kwh": e_exp_valid,
         "pr": _div(e_ac_pr, e_ref), "pr_stc": np.where(stc_ok, _div(e_ac_pr, e_ref_stc), np.nan),
         "pi": pi, "t_cell_wavg_c": _div(e_ref_tcell, e_ref_t), "coverage": cov,
-        "day_valid": (cov >= f["min_coverage"]) & np.isfinite(pi),
+        "day_valid": ((cov >= f["min_coverage"]) & (frac_valid >= f["min_valid_fraction"])
+                      & np.isfinite(pi)),
         "t_daylight_h": t_daylight, "t_unavailable_h": t_unav, "e_lost_kwh": e_lost,
         "avail_time": np.where(t_daylight > 0, 1.0 - _div(t_unav, t_daylight), np.nan),
         "avail_energy": _div(e_base, e_base + e_lost), "t_clipped_h": t_clip,
-        "details_json": [_details(tuple(c), m) for c, m in zip(counts.tolist(), n_mod.tolist(),
-                                                                 strict=True)],
+        "details_json": [_details(tuple(c), m, v) for c, m, v in zip(
+            counts.tolist(), n_mod.tolist(), np.round(frac_valid, 4).tolist(), strict=True)],
         "e_ac_pr_kwh": np.where(n_pr > 0, e_ac_pr, np.nan),
     }, columns=["inverter_no", *DAILY_COLUMNS])
+    # a day whose rows are all gaps (no reading at all) gets no row
+    return out[n_int > 0].reset_index(drop=True) if (n_int == 0).any() else out

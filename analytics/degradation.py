@@ -266,18 +266,21 @@ def block_bootstrap(x, stat=np.median, *, n_resamples: int = 1000, block_length:
     if stat is not np.median:
         idx = (starts[:, :, None] + np.arange(b)).reshape(n_resamples, -1)[:, :n]
         return stat(x[idx], axis=1), b
-    # median on ranks: gathering and partitioning small integers is faster than floats; exact.
+    # Median on ranks, exact: sort x once, resample its ranks, select the middle rank of every
+    # resample in one vectorised partition with a single kth (numpy's SIMD quickselect path
+    # for 32-bit types is ~3x faster than a two-kth partition of int16); for even n the
+    # lower middle rank is the largest rank left of the kth after that partition.
     order = np.argsort(x, kind="stable")
     xs = x[order]
-    rank = np.empty(n, dtype=np.int16 if n < 32_000 else np.int32)
-    rank[order] = np.arange(n)
+    rank = np.empty(n, dtype=np.int32)
+    rank[order] = np.arange(n, dtype=np.int32)
     windows = np.lib.stride_tricks.sliding_window_view(rank, b)  # row s = block starting at s
-    r = windows[starts].reshape(n_resamples, -1)[:, :n]
+    r = windows[starts].reshape(n_resamples, -1)[:, :n]  # a fresh (B, n) copy
     k = n // 2
+    r.partition(k, axis=1)
     if n % 2:
-        return xs[np.partition(r, k, axis=1)[:, k]], b
-    p = np.partition(r, [k - 1, k], axis=1)
-    return (xs[p[:, k - 1]] + xs[p[:, k]]) / 2, b
+        return xs[r[:, k]], b
+    return (xs[r[:, :k].max(axis=1)] + xs[r[:, k]]) / 2, b
 
 
 def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int = 1000,
@@ -432,9 +435,9 @@ def monthly_pi(pi: pd.Series, weights: pd.Series | None = None, *, min_days: int
     n = np.bincount(k, minlength=size)
     with np.errstate(invalid="ignore", divide="ignore"):
         vals = np.where((n >= min_days) & (den > 0), num / den, np.nan)
-    months = np.arange(m0, m0 + size)
-    idx = pd.DatetimeIndex(pd.to_datetime({"year": months // 12, "month": months % 12 + 1,
-                                           "day": 1}))
+    # months since 1970-01 as numpy month datetimes (first day of each month)
+    months = np.arange(m0 - 1970 * 12, m0 - 1970 * 12 + size).astype("datetime64[M]")
+    idx = pd.DatetimeIndex(months.astype("datetime64[ns]"))
     return pd.Series(vals, index=idx, name="pi")
 
 

@@ -35,6 +35,9 @@ from analytics.temperature import _arr
 REASONS: tuple[str, ...] = ("valid", "night", "missing", "out_of_range", "outage", "clipped",
                             "stuck", "low_irradiance", "high_irradiance")
 VALID, NIGHT, MISSING, OUT_OF_RANGE, OUTAGE, CLIPPED, STUCK, LOW_IRR, HIGH_IRR = range(9)
+#: Reasons that mean the data are incomplete or implausible (they lower a day's coverage);
+#: the others are states of the plant or of the sky.
+DATA_PROBLEMS: tuple[int, ...] = (MISSING, OUT_OF_RANGE, STUCK)
 
 #: Default thresholds (METHODS §5, common practice unless noted); site-configurable.
 DEFAULT_FILTERS: dict[str, float] = {
@@ -59,7 +62,8 @@ DEFAULT_FILTERS: dict[str, float] = {
     "stuck_rel_tol": 0.001,  # ... with |Δx| below this fraction of the sensor span
     "stuck_t_samples": 8.0,  # T_mod flat-line run length [samples]
     "stuck_t_tol_c": 0.05,  # ... with |ΔT| below this [°C]
-    "min_coverage": 0.8,  # day valid when >= this share of its insolation is in valid intervals
+    "min_coverage": 0.8,  # day valid when >= this share of its insolation has complete, plausible data
+    "min_valid_fraction": 0.5,  # ... and >= this share of its insolation is in valid (pi) intervals
 }
 
 
@@ -345,6 +349,8 @@ def coverage_fraction(poa_weight_wm2, valid, considered, interval_h=1.0) -> floa
 
     coverage = Σ_valid G τ / Σ_considered G τ, the weight G being measured POA where it is
     plausible (clear-sky POA may stand in where it is missing). NaN when the base is 0.
+    The daily table passes as ``valid`` the intervals whose reason is not one of
+    :data:`DATA_PROBLEMS` (data coverage).
 
     Examples
     --------

@@ -30,6 +30,11 @@ def _local(ts: pd.Series | pd.DatetimeIndex, std_offset_s: int):
     return idx + pd.Timedelta(seconds=int(std_offset_s))
 
 
+def _rgba(hex_colour: str, alpha: float) -> str:
+    r, g, b = (int(hex_colour[i:i + 2], 16) for i in (1, 3, 5))
+    return f"rgba({r}, {g}, {b}, {alpha})"
+
+
 def empty(message: str, x_title: str = "", y_title: str = "") -> go.Figure:
     fig = go.Figure(layout=dict(template=TEMPLATE, height=220))
     fig.add_annotation(text=message, showarrow=False, x=0.5, y=0.5, xref="paper",
@@ -154,14 +159,18 @@ def pr_trend(chosen: pd.DataFrame, peers: pd.DataFrame, flagged: pd.DataFrame | 
         fig.add_trace(go.Scatter(x=g["day"], y=g["pr_stc_roll"], mode="lines",
                                  line=dict(color=c, width=2.2), name=f"{dev} rolling median",
                                  legendgroup=dev))
-    for label, fit in (fits or {}).items():
+    order = {d: k for k, d in enumerate(dict.fromkeys(chosen["device_id"]))}
+    for j, (label, fit) in enumerate((fits or {}).items()):
+        # the fit takes its inverter's colour (label "<device> <method> fit"), dashed
+        k = order.get(str(label).split(" ")[0], j)
+        c = theme.SERIES[k % len(theme.SERIES)]
         fig.add_trace(go.Scatter(x=fit["day"], y=fit["hi"], mode="lines", line=dict(width=0),
                                  hoverinfo="skip", showlegend=False, legendgroup=label))
         fig.add_trace(go.Scatter(x=fit["day"], y=fit["lo"], mode="lines", line=dict(width=0),
-                                 fill="tonexty", fillcolor=theme.BAND_FILL, hoverinfo="skip",
-                                 name=f"{label} confidence band", legendgroup=label))
+                                 fill="tonexty", fillcolor=_rgba(c, 0.13), hoverinfo="skip",
+                                 name=f"{label}: confidence band", legendgroup=label))
         fig.add_trace(go.Scatter(x=fit["day"], y=fit["fit"], mode="lines",
-                                 line=dict(color=theme.FIT, width=2, dash="dash"),
+                                 line=dict(color=c, width=2, dash="dash"),
                                  name=label, legendgroup=label))
     if flagged is not None and not flagged.empty:
         # a rug under the data, one row per inverter, so the marks never hide the points
@@ -238,8 +247,6 @@ def yoy_histogram(edges, counts, rd: float | None = None,
                            hovertemplate="%{x:.2f} %/yr: %{y} pairs<extra></extra>"))
     if ci is not None and None not in ci and all(np.isfinite(ci)):
         fig.add_vrect(x0=ci[0], x1=ci[1], fillcolor=theme.BAND_FILL, line_width=0)
-        title = (title or "Year-on-year pair rates") + (
-            f"<br><sup>shaded: interval of the median, {ci[0]:+.2f} … {ci[1]:+.2f} %/yr</sup>")
     if rd is not None and np.isfinite(rd):
         fig.add_vline(x=rd, line=dict(color=theme.FIT, width=2.5),
                       annotation_text=f"median {rd:+.2f} %/yr", annotation_position="top right")
@@ -358,8 +365,8 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
         return dict(title=dict(text=title, font=dict(size=12)), domain=dom[k], anchor="x")
 
     layout = dict(
-        template=TEMPLATE, height=860, hovermode="x unified", margin=dict(t=70),
-        legend=dict(orientation="h", y=1.005, yanchor="bottom", x=0, font=dict(size=11)),
+        template=TEMPLATE, height=880, hovermode="x unified", margin=dict(t=90),
+        legend=dict(orientation="h", y=1.03, yanchor="bottom", x=0, font=dict(size=11)),
         xaxis=dict(title=dict(text=x_title), anchor="y4"),
         yaxis=yax("AC power [kW]", 3), yaxis2=yax("Power per kWp [kW/kWp]", 2),
         yaxis3=yax("POA [W/m²]", 1), yaxis4=yax("Temperature [°C]", 0),

@@ -143,3 +143,70 @@ def ghi_channels(engine: sa.Engine, site_id: str) -> list[tuple[str, int]]:
          .where(d.c.site_id == site_id, c.c.quantity == "ghi_wm2").order_by(d.c.device_id))
     with engine.connect() as conn:
         return [(r[0], int(r[1])) for r in conn.execute(q)]
+
+
+def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
+                    ) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Interval inputs of the clear-sky method, and nothing else: AC power and module
+    temperature of every inverter on one interval grid.
+
+    Reads one channel per inverter (``p_ac_kw``, or ``e_ac_kwh`` / interval length when the
+    inverter has no power channel or it is empty) and each distinct module-temperature
+    sensor once — not the irradiance, ambient and wind channels or both power channels that
+    the full interval frames carry. Intervals without a row inside the period are added as
+    NaN (``db.timeseries.fill_gaps``), so the series are regular for the clear-period windows.
+
+    Returns ``(p_ac_kw, t_module_c)``: float32 DataFrames indexed by ``ts_utc`` (interval
+    start, UTC), one column per inverter that has power readings; ``t_module_c`` is NaN where
+    the inverter has no module-temperature sensor. [kW], [°C]
+    """
+    from db.timeseries import bin_mean, fill_gaps, interval_h_from_ts, read_channel, site_channels
+
+    power: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    sensor_of: dict[str, int | None] = {}
+    temps: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    with engine.connect() as conn:
+        ch = site_channels(conn, site_id)
+        for _, inv in inverters.iterrows():
+            dev = inv["device_id"]
+            ts = np.zeros(0, dtype=np.int64)
+            val = np.zeros(0)
+            pc = ch.get((dev, "p_ac_kw"))
+            if pc is not None:
+                ts, val = read_channel(conn, pc)
+            if not np.isfinite(val).any():
+                ec = ch.get((dev, "e_ac_kwh"))
+                if ec is not None:
+                    ts, e = read_channel(conn, ec)
+                    val = e / interval_h_from_ts(ts) if ts.size else e
+            if not ts.size:
+                continue
+            power[dev] = (ts, val)
+            sid = inv.get("t_module_sensor_id")
+            tc = ch.get((sid, "t_module_c")) if isinstance(sid, str) and sid else None
+            sensor_of[dev] = tc
+            if tc is not None and tc not in temps:
+                temps[tc] = read_channel(conn, tc)
+    if not power:
+        empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="ts_utc"))
+        return empty, empty.copy()
+    arrays = [v[0] for v in power.values()]
+    first = arrays[0]
+    if all(a.size == first.size and np.array_equal(a, first) for a in arrays[1:]):
+        grid = first  # inverters of one logger share the timestamps: no union needed
+    else:
+        grid = np.unique(np.concatenate(arrays))
+    grid, step_s = fill_gaps(grid, interval_h_from_ts(grid) * 3600.0)
+    p = np.full((grid.size, len(power)), np.nan, dtype=np.float32)
+    t = np.full((grid.size, len(power)), np.nan, dtype=np.float32)
+    binned: dict[int, np.ndarray] = {}
+    for j, (dev, (ts, val)) in enumerate(power.items()):
+        p[np.searchsorted(grid, ts), j] = val
+        tc = sensor_of.get(dev)
+        if tc is not None:
+            if tc not in binned:
+                binned[tc] = bin_mean(grid, step_s, *temps[tc])
+            t[:, j] = binned[tc]
+    idx = pd.DatetimeIndex(pd.to_datetime(grid, unit="s", utc=True), name="ts_utc")
+    cols = list(power)
+    return pd.DataFrame(p, index=idx, columns=cols), pd.DataFrame(t, index=idx, columns=cols)

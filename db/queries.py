@@ -89,7 +89,10 @@ def daily_rows(engine: sa.Engine, site_id: str, start: dt.date | None = None,
     """``daily_inverter`` rows of a site in ``[start, end]`` (days, inclusive), long format
     with ``device_id`` and ``day`` (datetime.date) first; only the named columns are read."""
     d = s.daily_inverter.c
-    cols = [s.device.c.device_id, d.day] + [d[c] for c in columns]
+    # the day as stored (ISO text on SQLite, a date on PostgreSQL): parsed below in one
+    # vectorised call instead of one Python date object per row by the Date type
+    cols = [s.device.c.device_id, sa.type_coerce(d.day, sa.String).label("day")] + [
+        d[c] for c in columns]
     q = (sa.select(*cols)
          .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
          .where(s.device.c.site_id == site_id))
@@ -99,10 +102,10 @@ def daily_rows(engine: sa.Engine, site_id: str, start: dt.date | None = None,
         q = q.where(d.day <= end)
     if device_ids is not None:
         q = q.where(s.device.c.device_id.in_(list(device_ids)))
-    out = _frame(engine, q.order_by(s.device.c.device_id, d.day))
-    out["day"] = pd.to_datetime(out["day"]).dt.date
+    out = _frame(engine, q.order_by(s.device.c.device_id, d.day), raw=True)
+    out["day"] = pd.to_datetime(out["day"].astype(str), format="%Y-%m-%d").dt.date
     if "day_valid" in out:
-        out["day_valid"] = out["day_valid"].astype(bool)
+        out["day_valid"] = out["day_valid"].fillna(False).astype(bool)
     return out
 
 
@@ -290,11 +293,14 @@ def rejected(engine: sa.Engine, site_id: str, batch_id: int | None = None,
 # ---------------------------------------------------------------- helpers
 
 
-def _frame(engine: sa.Engine, q) -> pd.DataFrame:
+def _frame(engine: sa.Engine, q, raw: bool = False) -> pd.DataFrame:
+    """Run ``q`` and return its rows as a DataFrame. ``raw`` fetches from the DBAPI cursor
+    without SQLAlchemy's per-value result processing (for large reads whose columns the
+    caller converts itself: dates arrive as stored, booleans as 0/1 on SQLite)."""
     with engine.connect() as conn:
         res = conn.execute(q)
         keys = list(res.keys())
-        rows = res.all()
+        rows = res.cursor.fetchall() if raw else res.all()
     # column-wise from plain tuples: pandas inspects Row objects one by one (10x slower)
     cols = list(zip(*rows, strict=True)) if rows else [()] * len(keys)
     return pd.DataFrame({k: pd.Series(v, dtype=object if not v else None)

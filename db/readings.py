@@ -15,10 +15,7 @@ readings with stored ones by ``numpy.searchsorted``.
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
-import pandas as pd
 import sqlalchemy as sa
 
 from db import schema
@@ -122,10 +119,10 @@ def write_readings(conn: sa.Connection, channel_id: np.ndarray, ts_s: np.ndarray
 
 def _write_pg(conn: sa.Connection, channel_id, ts_s, value, batch_id: int, upsert: bool) -> None:
     raw = conn.connection.driver_connection
-    buf = io.StringIO()
-    pd.DataFrame({"c": channel_id, "t": ts_s, "v": value, "b": batch_id}).to_csv(
-        buf, sep="\t", header=False, index=False, float_format="%.17g")
-    data = buf.getvalue()
+    # COPY text: repr(float) is the shortest text that reads back to the same double
+    tail = f"\t{batch_id}"
+    data = "".join(f"{c}\t{t}\t{v!r}{tail}\n" for c, t, v in zip(
+        channel_id.tolist(), ts_s.tolist(), value.tolist(), strict=True))
     with raw.cursor() as cur:
         if not upsert:
             with cur.copy("COPY reading (channel_id, ts_s, value, batch_id) FROM STDIN") as cp:

@@ -165,7 +165,7 @@ daily_inverter = sa.Table(
     sa.Column("pr_stc", sa.Float),  # temperature-corrected to 25 degC cell
     sa.Column("pi", sa.Float),  # performance index e_ac_valid_kwh / e_exp_valid_kwh
     sa.Column("t_cell_wavg_c", sa.Float),  # irradiance-weighted mean cell temperature
-    sa.Column("coverage", sa.Float),  # share of the day's insolation in valid intervals
+    sa.Column("coverage", sa.Float),  # share of the day's insolation with complete, plausible data
     sa.Column("day_valid", sa.Boolean, nullable=False),  # coverage >= minimum: use for trends
     sa.Column("t_daylight_h", sa.Float),  # hours with G >= 50 W/m2 (availability base)
     sa.Column("t_unavailable_h", sa.Float),

@@ -9,21 +9,18 @@ Conventions:
 * ``start_s`` is inclusive, ``end_s`` exclusive (UTC epoch seconds of interval starts);
 * ``interval_h`` comes from the timestamp spacing of each channel
   (:func:`interval_h_from_ts`);
-* an inverter frame is indexed by the union of its power and energy channels' timestamps;
-  each configured sensor (POA, module temperature, ambient temperature, wind) is averaged
+* an inverter frame is indexed by the union of its power and energy channels' timestamps,
+  with the intervals that have no row added as NaN rows (:func:`fill_gaps`: inside gaps,
+  and out to the window's ``start_s`` / ``end_s`` when given); each configured sensor (POA, module temperature, ambient temperature, wind) is averaged
   into those intervals (a sensor at the same spacing maps one to one; a sensor logging
   every 5 min into 15-min inverter intervals is averaged). Missing readings are NaN.
 """
 
 from __future__ import annotations
 
-import multiprocessing
-import os
 import queue
-import sqlite3
 import threading
 from collections.abc import Iterable, Iterator
-from concurrent.futures import Future, ProcessPoolExecutor
 
 import numpy as np
 import pandas as pd
@@ -147,20 +144,58 @@ def _union_sorted(arrays: list[np.ndarray]) -> np.ndarray:
     return np.unique(np.concatenate(arrays))
 
 
-def _assemble(channels: dict, inv: dict, read, binned: dict) -> pd.DataFrame:
+def fill_gaps(ts_s: np.ndarray, interval_s: np.ndarray, start_s: int | None = None,
+              end_s: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Add the interval starts that have no row: inside gaps, and back to ``start_s`` / on to
+    ``end_s`` (exclusive) when given, stepping by the neighbouring row's interval.
+
+    A logger that was down (or does not log at night) leaves no rows; the daily figures
+    must see those intervals as missing, not as absent, or a day's coverage would be
+    overstated. Returns ``(ts_s, interval_s)`` sorted.
+
+    Examples
+    --------
+    >>> ts, iv = fill_gaps(np.array([900, 3600]), np.array([900.0, 900.0]), 0, 4500)
+    >>> ts.tolist()
+    [0, 900, 1800, 2700, 3600]
+    """
+    ts = np.asarray(ts_s, dtype=np.int64)
+    step = np.maximum(np.asarray(interval_s, dtype=float), 1.0).round().astype(np.int64)
+    if ts.size == 0:
+        return ts, step.astype(float)
+    last_end = ts[-1] + step[-1] if end_s is None else max(int(end_s), ts[-1] + step[-1])
+    nxt = np.append(ts[1:], last_end)
+    n_ins = np.maximum((nxt - ts) // step - 1, 0)
+    n_ins[-1] = max((last_end - ts[-1]) // step[-1] - 1, 0) if end_s is not None else 0
+    n_lead = max((ts[0] - int(start_s)) // step[0], 0) if start_s is not None else 0
+    if not n_ins.any() and not n_lead:
+        return ts, step.astype(float)
+    total = int(n_ins.sum())
+    owner = np.repeat(np.arange(ts.size), n_ins)
+    j = np.arange(total) - np.repeat(np.cumsum(n_ins) - n_ins, n_ins) + 1
+    new_ts = ts[owner] + j * step[owner]
+    lead = ts[0] - step[0] * np.arange(n_lead, 0, -1, dtype=np.int64)
+    all_ts = np.concatenate((lead, ts, new_ts))
+    all_step = np.concatenate((np.full(n_lead, step[0]), step, step[owner]))
+    order = np.argsort(all_ts, kind="stable")
+    return all_ts[order], all_step[order].astype(float)
+
+
+def _assemble(channels: dict, inv: dict, read, binned: dict, start_s=None, end_s=None
+              ) -> pd.DataFrame:
     own = [(q, channels.get((inv["device_id"], q))) for q in ("p_ac_kw", "e_ac_kwh")]
     data = {q: read(ch) for q, ch in own if ch is not None}
     if not data or all(v[0].size == 0 for v in data.values()):
         return _empty_inverter_frame()
     ts = _union_sorted([v[0] for v in data.values()])
-    interval_h = interval_h_from_ts(ts)
+    ts, int_s = fill_gaps(ts, interval_h_from_ts(ts) * 3600.0, start_s, end_s)
+    interval_h = int_s / 3600.0
     cols: dict[str, np.ndarray] = {}
     for q in ("p_ac_kw", "e_ac_kwh"):
         col = np.full(ts.size, np.nan)
         if q in data and data[q][0].size:
             col[np.searchsorted(ts, data[q][0])] = data[q][1]
         cols[q] = col
-    int_s = interval_h * 3600.0
     for q, ref in SENSOR_REFS.items():
         sid = inv.get(ref)
         ch = channels.get((sid, q)) if sid else None
@@ -218,71 +253,6 @@ def _prefetched(engine: sa.Engine, site_id: str, start_s, end_s, inverter_ids,
         th.join()
 
 
-# ------------------------------------------------------------ parallel reads (SQLite files)
-_WORKER_CONN: sqlite3.Connection | None = None
-
-
-def _worker_init(path: str) -> None:
-    global _WORKER_CONN
-    _WORKER_CONN = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=30)
-
-
-def _worker_read(args: tuple[int, int | None, int | None]) -> np.ndarray:
-    ch, start_s, end_s = args
-    sql, params = "SELECT ts_s, value FROM reading WHERE channel_id = ?", [ch]
-    if start_s is not None:
-        sql, params = sql + " AND ts_s >= ?", params + [start_s]
-    if end_s is not None:
-        sql, params = sql + " AND ts_s < ?", params + [end_s]
-    return np.fromiter(_WORKER_CONN.execute(sql + " ORDER BY ts_s", params), dtype=_ROW_DTYPE)
-
-
-def _sqlite_file(engine: sa.Engine) -> str | None:
-    if engine.dialect.name != "sqlite":
-        return None
-    path = engine.url.database
-    return path if path and path != ":memory:" and os.path.exists(path) else None
-
-
-def _parallel(engine: sa.Engine, path: str, site_id: str, start_s, end_s, inverter_ids,
-              workers: int = 2, ahead: int = 4) -> Iterator[tuple[dict, pd.DataFrame]]:
-    """:func:`inverter_frames` with the inverters' own channels read by ``workers`` processes
-    (each with its own read-only SQLite connection), ``ahead`` inverters in advance, while
-    this process assembles frames and the caller computes. Turning rows into Python objects
-    is the cost of reading; processes do it in parallel where threads would share the GIL."""
-    with engine.connect() as conn:
-        channels = site_channels(conn, site_id)
-        invs = _select_inverters(site_inverters(conn, site_id), site_id, inverter_ids)
-    records = invs.to_dict("records")
-    own = [[ch for q in ("p_ac_kw", "e_ac_kwh")
-            if (ch := channels.get((inv["device_id"], q))) is not None] for inv in records]
-    ctx = multiprocessing.get_context("fork")
-    with ProcessPoolExecutor(workers, mp_context=ctx, initializer=_worker_init,
-                             initargs=(path,)) as pool, engine.connect() as conn:
-        pending: dict[int, Future] = {}
-
-        def submit(i: int) -> None:
-            for ch in own[i]:
-                pending[ch] = pool.submit(_worker_read, (ch, start_s, end_s))
-
-        for i in range(min(ahead, len(records))):
-            submit(i)
-        read = _channel_reader(conn, records, channels, start_s, end_s)
-
-        def read_own(ch: int) -> tuple[np.ndarray, np.ndarray]:
-            fut = pending.pop(ch, None)
-            if fut is None:
-                return read(ch)
-            arr = fut.result()
-            return arr["ts_s"].copy(), arr["value"].copy()
-
-        binned: dict[int, tuple[np.ndarray, np.ndarray]] = {}
-        for i, inv in enumerate(records):
-            if i + ahead < len(records):
-                submit(i + ahead)
-            yield inv, _assemble(channels, inv, read_own, binned)
-
-
 def _select_inverters(invs: pd.DataFrame, site_id: str, inverter_ids) -> pd.DataFrame:
     if inverter_ids is None:
         return invs
@@ -321,11 +291,7 @@ def inverter_frames(engine_or_conn: sa.Engine | sa.Connection, site_id: str,
     frames are read in a background thread while the caller works on the previous one.
     """
     if prefetch and isinstance(engine_or_conn, sa.Engine):
-        path = _sqlite_file(engine_or_conn)
-        if path is not None and parallel_reads_ok():
-            yield from _parallel(engine_or_conn, path, site_id, start_s, end_s, inverter_ids)
-        else:
-            yield from _prefetched(engine_or_conn, site_id, start_s, end_s, inverter_ids)
+        yield from _prefetched(engine_or_conn, site_id, start_s, end_s, inverter_ids)
         return
     if isinstance(engine_or_conn, sa.Engine):
         with engine_or_conn.connect() as conn:
@@ -338,15 +304,7 @@ def inverter_frames(engine_or_conn: sa.Engine | sa.Connection, site_id: str,
     read = _channel_reader(conn, records, channels, start_s, end_s)
     binned: dict[int, tuple[np.ndarray, np.ndarray]] = {}
     for inv in records:
-        yield inv, _assemble(channels, inv, read, binned)
-
-
-def parallel_reads_ok() -> bool:
-    """Reader processes are used on Linux-like systems (fork) with more than one CPU, unless
-    ``HELIAUDIT_PARALLEL_READS=0``."""
-    if os.environ.get("HELIAUDIT_PARALLEL_READS", "1") == "0":
-        return False
-    return "fork" in multiprocessing.get_all_start_methods() and (os.cpu_count() or 1) > 1
+        yield inv, _assemble(channels, inv, read, binned, start_s, end_s)
 
 
 def inverter_frame(engine: sa.Engine | sa.Connection, site_id: str, inverter_id: str,

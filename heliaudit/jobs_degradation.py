@@ -29,9 +29,12 @@ test procedure it names (see analytics.warranty.DISCLAIMER).
 from __future__ import annotations
 
 import datetime as dt
+import multiprocessing as mp
+import os
 import tomllib
 import warnings
 from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor
 
 import numpy as np
 import pandas as pd
@@ -48,6 +51,7 @@ from db.degradation import (
     SITE_DEVICE,
     _clean,
     begin_computation,
+    clearsky_inputs,
     ghi_channels,
     site_row,
     write_degradation,
@@ -147,22 +151,15 @@ def _clearsky_daily(engine, site: dict, invs: pd.DataFrame, offset_h: float, p: 
                     ) -> tuple[dict[str, pd.Series], str, str | None]:
     """Clear-day index per inverter; returns (series by id, how clear periods were found,
     reason when not computed)."""
-    from db.timeseries import inverter_frames, read_channel  # interval reader (issue #4)
+    from db.timeseries import read_channel  # interval reader (issue #4)
 
-    p_ac, t_mod, p0 = {}, {}, {}
-    rated = dict(zip(invs["device_id"], invs["p_dc_kwp"].astype(float), strict=True))
-    for inv, frame in inverter_frames(engine, site["site_id"]):
-        if not len(frame):
-            continue
-        pw = frame["p_ac_kw"]
-        if pw.isna().all():
-            pw = frame["e_ac_kwh"] / frame["interval_h"]
-        p_ac[inv["device_id"]] = pw.astype("float32")
-        t_mod[inv["device_id"]] = frame["t_module_c"].astype("float32")
-        p0[inv["device_id"]] = rated[inv["device_id"]]
-    if not p_ac:
+    # only what the method needs: one power channel per inverter and the module temperature
+    power, t_mod = clearsky_inputs(engine, site["site_id"], invs)
+    if power.empty or not power.notna().to_numpy().any():
         return {}, "", "no interval power readings"
-    power = pd.DataFrame(p_ac)
+    p_ac = {dev: power[dev] for dev in power}
+    p0 = {dev: float(r) for dev, r in zip(invs["device_id"], invs["p_dc_kwp"], strict=True)
+          if dev in p_ac}
     step_min = pd.Series(power.index).diff().median() / pd.Timedelta(minutes=1)
     if not 1 <= step_min <= 30:
         return {}, "", (f"interval of {step_min:g} min; clear-sky detection (Jordan & Hansen "
@@ -253,6 +250,48 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
     return res, cps
 
 
+def _methods_task(task: dict) -> tuple[dict[str, adeg.RateResult], dict]:
+    return _methods_for(**task)
+
+
+def default_workers(n_tasks: int) -> int:
+    """Worker processes for :func:`methods_many`: ``HELIAUDIT_WORKERS`` if set, else the
+    usable cores (at most 2, the size of the project's machines), 1 for fewer than 4 series."""
+    env = os.environ.get("HELIAUDIT_WORKERS")
+    if env:
+        return max(1, int(env))
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cores = os.cpu_count() or 1
+    return 1 if n_tasks < 4 else max(1, min(2, cores))
+
+
+def methods_many(tasks: list[dict], *, workers: int | None = None,
+                 progress: Callable[[int], None] | None = None
+                 ) -> list[tuple[dict[str, adeg.RateResult], dict]]:
+    """:func:`_methods_for` of every task (its keyword arguments), in task order.
+
+    With ``workers`` > 1 the series run in a pool of forked processes. Every series draws
+    its bootstrap resamples from its own generator seeded by ``(seed, rng_key, method)``,
+    so results are identical for any number of workers and any scheduling.
+    """
+    workers = default_workers(len(tasks)) if workers is None else max(1, int(workers))
+    out = []
+    if workers == 1 or len(tasks) < 2 or "fork" not in mp.get_all_start_methods():
+        for task in tasks:
+            out.append(_methods_for(**task))
+            if progress:
+                progress(len(out))
+        return out
+    with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("fork")) as pool:
+        for r in pool.map(_methods_task, tasks, chunksize=1):
+            out.append(r)
+            if progress:
+                progress(len(out))
+    return out
+
+
 def _warranty_block(yoy: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series,
                     terms: dict | None, commissioned, p: dict) -> dict:
     if terms is None:
@@ -299,10 +338,12 @@ def _rows(device_id: str, res: dict[str, adeg.RateResult], summary: dict) -> lis
 # ---------------------------------------------------------------- the job
 
 
-def run_degradation(engine, site_id: str, progress: Progress | None = None, **params) -> dict:
+def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
+                    workers: int | None = None, **params) -> dict:
     """Compute and store every degradation method for a site's inverters and the site.
 
-    ``params`` override :data:`DEFAULTS`. Returns ``{"site_id", "computation_id", "rows",
+    ``params`` override :data:`DEFAULTS`. ``workers``: processes for the per-series methods
+    (default :func:`default_workers`); results do not depend on it. Returns ``{"site_id", "computation_id", "rows",
     "inverters", "refused"}``. Raises :class:`SiteNotFoundError` for an unknown site.
     """
     site = site_row(engine, site_id)
@@ -352,8 +393,25 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, **pa
             clear, how, clear_reason = _clearsky_daily(engine, site, invs, offset_h, p)
         except (ImportError, ValueError, KeyError) as exc:
             clear_reason = f"clear-sky index not computed: {exc}"
-    rows, refused = [], 0
+    # every series' methods (the costly part) first, in a process pool; then summaries
+    tasks, task_of = [], {}
     for k, (_, inv) in enumerate(invs.iterrows()):
+        dev = inv["device_id"]
+        if dev in usable:
+            task_of[dev] = len(tasks)
+            tasks.append(dict(s=usable[dev], weights=weights[dev], ratio=ratios.get(dev),
+                              clear_pi=clear.get(dev),
+                              clear_reason=clear_reason or "inverter has no interval power",
+                              p=p, rng_key=k))
+    s, w = _site_daily(usable, by_dev, p["site_min_inverter_fraction"])
+    if len(s):
+        cl = pd.DataFrame(clear).median(axis=1) if clear else None
+        tasks.append(dict(s=s, weights=w, ratio=None, clear_pi=cl, clear_reason=clear_reason,
+                          p=p, rng_key=len(invs)))
+    results = methods_many(tasks, workers=workers,
+                           progress=(lambda i: progress(i, total)) if progress else None)
+    rows, refused = [], 0
+    for _, inv in invs.iterrows():
         dev = inv["device_id"]
         if dev not in usable:
             res = {m: adeg.RateResult.refused(m, "no daily performance rows; run `heliaudit "
@@ -361,10 +419,7 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, **pa
             summary = {"data": reports[dev]}
         else:
             ratio = ratios.get(dev)
-            res, cps = _methods_for(usable[dev], weights[dev], ratio=ratio,
-                                    clear_pi=clear.get(dev),
-                                    clear_reason=clear_reason or "inverter has no interval power",
-                                    p=p, rng_key=k)
+            res, cps = results[task_of[dev]]
             if ratio is None:
                 res["peer_relative"] = adeg.RateResult.refused(
                     "peer_relative", f"fewer than {p['min_peers'] + 1} inverters in peer group "
@@ -376,14 +431,9 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, **pa
             _note_steps(summary)
         refused += res["yoy"].rate_pct_per_yr is None
         rows += _rows(dev, res, summary)
-        if progress:
-            progress(k + 1, total)
     # the site as a whole
-    s, w = _site_daily(usable, by_dev, p["site_min_inverter_fraction"])
     if len(s):
-        cl = pd.DataFrame(clear).median(axis=1) if clear else None
-        res, cps = _methods_for(s, w, ratio=None, clear_pi=cl, clear_reason=clear_reason,
-                                p=p, rng_key=len(invs))
+        res, cps = results[-1]
         res["peer_relative"] = adeg.RateResult.refused(
             "peer_relative", "not defined for the site as a whole (relative to itself)")
         rep = {"n_days_used": int(len(s)), "n_inverters": len(usable),

@@ -82,8 +82,8 @@ def test_pelt_matches_ruptures():
     # our vectorised PELT must return ruptures.Pelt's breakpoints (same cost, jump=1)
     from analytics.changepoint import pelt_line
     rng = np.random.default_rng(1)
-    for _ in range(15):
-        n = int(rng.integers(40, 160))
+    for _ in range(8):
+        n = int(rng.integers(40, 140))
         t = np.arange(n) / 26
         y = 1 - 0.005 * t + rng.normal(0, 0.004, n)
         for k in rng.integers(5, n - 5, size=rng.integers(0, 4)):

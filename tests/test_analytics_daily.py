@@ -111,6 +111,8 @@ def test_clipping_outage_availability():
     assert r["avail_energy"] == pytest.approx(209.0 / (209.0 + p_exp_600))
     ex = json.loads(r["details_json"])["excluded"]
     assert ex == {"clipped": 1, "outage": 1} and r["n_valid"] == 2
+    # clipping and outage are plant states, not data problems: the day keeps full coverage
+    assert r["coverage"] == pytest.approx(1.0) and bool(r["day_valid"])
 
 
 def test_ambient_fallback_and_empty_and_errors():
@@ -150,3 +152,18 @@ def test_many_equals_one_by_one():
         pd.testing.assert_frame_equal(got, one)
     with pytest.raises(ValueError, match="2 frames but 1 inverters"):
         daily_performance_many(frames, invs[:1])
+
+
+def test_overcast_day_with_few_valid_intervals_is_not_valid():
+    # complete data (coverage 1) but 3 of 4 intervals below 200 W/m²: valid insolation share
+    # = 650 / (150+150+150+650) = 0.59 -> valid at min_valid_fraction 0.5, not at 0.6
+    fr = frame([10, 11, 12, 13], [150.0, 152.0, 149.0, 650.0], [20.0, 20.5, 21.0, 22.0],
+               [12.0, 12.5, 11.8, 50.0])
+    r = daily_performance(fr, INV, solar_elevation_deg=np.full(4, 40.0)).iloc[0]
+    assert r["coverage"] == pytest.approx(1.0) and r["n_valid"] == 1
+    assert json.loads(r["details_json"])["valid_insolation_fraction"] == pytest.approx(
+        650 / 1101, abs=1e-4)
+    assert bool(r["day_valid"])
+    r = daily_performance(fr, INV, solar_elevation_deg=np.full(4, 40.0),
+                          filters={"min_valid_fraction": 0.6}).iloc[0]
+    assert not bool(r["day_valid"])

@@ -29,7 +29,7 @@ from db.daily import daily_table
 from db.degradation import degradation_results
 from db.engine import ENV_VAR, make_engine
 from db.flags import read_flags
-from db.ingest_log import ingest_log
+from db.ingest_log import ingest_log, rejected_rows
 from db.timeseries import inverter_frame
 
 APP = str(Path(__file__).resolve().parents[1] / "dashboard" / "app.py")
@@ -313,5 +313,12 @@ def test_quality_page_counts_match_the_ingest_log(store):
     assert _metric(at, "Files") == f"{len(log)}"
     assert _metric(at, "Rows loaded") == f"{int(log['rows_loaded'].sum()):,}"
     assert _metric(at, "Rows rejected") == f"{int(log['rows_rejected'].sum()):,}"
+    assert _metric(at, "Values rejected") == f"{int(log['values_rejected'].sum()):,}"
+    # the rejected rows shown are the store's, with file, line and reason
+    rej = rejected_rows(store["engine"], store["site_id"])
+    if not rej.empty:
+        shown_rej = _frame(at, "reason")
+        assert list(shown_rej["line_no"]) == list(rej["line_no"][:500])
+        assert list(shown_rej["reason"]) == list(rej["reason"][:500])
     shown = _frame(at, "sha256")
     assert set(shown["sha256"]) == set(log["sha256"])

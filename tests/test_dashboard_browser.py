@@ -88,9 +88,12 @@ def _charts_ready(page, n: int = 1) -> None:
     page.wait_for_function(
         f"document.querySelectorAll('[data-testid=\"stPlotlyChart\"] .plot-container')"
         f".length >= {n}", timeout=WAIT_MS)
-    # the script has finished when Streamlit's status widget stops showing "Running"
-    page.wait_for_function("!document.querySelector('[data-testid=\"stStatusWidget\"]')",
+    # the script has finished when Streamlit's status widget stops showing "Running" and no
+    # element is still a loading placeholder (skeleton)
+    page.wait_for_function("!document.querySelector('[data-testid=\"stStatusWidget\"]') && "
+                           "!document.querySelector('[data-testid=\"stSkeleton\"]')",
                            timeout=WAIT_MS)
+    page.wait_for_timeout(500)  # let the last element paint before a screenshot
 
 
 def _no_error_box(page) -> None:

@@ -93,6 +93,9 @@ def test_pr_trend_layers():
     assert list(rug.x) == list(days[[3, 4]])
     assert max(rug.y) < 0.85  # drawn under the data, never on top of it
     assert "INV-1 yoy fit" in names and "soiling interval" in names
+    fit_line = next(t for t in fig.data if t.name == "INV-1 yoy fit")
+    daily = next(t for t in fig.data if t.name == "INV-1 rolling median")
+    assert fit_line.line.color == daily.line.color and fit_line.line.dash == "dash"
     assert len(fig.layout.shapes) == 1  # the soiling interval, shaded
 
 

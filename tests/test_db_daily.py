@@ -46,6 +46,18 @@ def test_interval_h_and_bin_mean():
     assert out.tolist() == [1.0, 4.0]
 
 
+def test_fill_gaps():
+    from db.timeseries import fill_gaps
+
+    # a 45-min hole after 900 s: rows 1800, 2700 added; window [0, 4500) adds 0 before
+    ts, iv = fill_gaps(np.array([900, 3600]), np.array([900.0, 900.0]), 0, 4500)
+    assert ts.tolist() == [0, 900, 1800, 2700, 3600] and iv.tolist() == [900.0] * 5
+    # no window: only the inside of the gap; a complete series is returned as is
+    assert fill_gaps(np.array([0, 1800]), np.array([900.0, 900.0]))[0].tolist() == [0, 900, 1800]
+    same = np.array([0, 300, 600])
+    assert fill_gaps(same, np.array([300.0] * 3))[0].tolist() == [0, 300, 600]
+
+
 def test_inverter_frame_joins_sensors(store):
     fr = inverter_frame(store, "s1", "inv1")
     assert fr.index.name == "ts_utc" and str(fr.index.tz) == "UTC"
@@ -60,6 +72,10 @@ def test_inverter_frame_joins_sensors(store):
     # window: start inclusive, end exclusive
     part = inverter_frame(store, "s1", "inv1", T0 + 900, T0 + 2700)
     assert len(part) == 2 and part["p_ac_kw"].iloc[0] == 20.0
+    # intervals of the window without any row appear as NaN rows (here 30 min before T0)
+    wide = inverter_frame(store, "s1", "inv1", T0 - 1800, T0 + 3600)
+    assert len(wide) == 6 and wide["p_ac_kw"].iloc[:2].isna().all()
+    assert wide["poa_wm2"].iloc[:2].isna().all() and wide["p_ac_kw"].iloc[2] == 10.0
     with pytest.raises(KeyError, match="no inverter 'nope'"):
         inverter_frame(store, "s1", "nope")
 
@@ -105,3 +121,14 @@ def test_write_read_replace(store):
         write_daily(store, "s1", _rows("inv1", d, [0.8] * 3), first_day=d[1], last_day=d[1])
     with pytest.raises(KeyError, match="no device 'zz'"):
         write_daily(store, "s1", _rows("zz", d[:1], [0.8]), first_day=d[0], last_day=d[0])
+
+
+def test_prefetched_frames_equal_serial(store):
+    # the reader thread gives the same frames as a plain read
+    from db.timeseries import inverter_frames
+
+    serial = {inv["device_id"]: fr for inv, fr in inverter_frames(store, "s1")}
+    fetched = {inv["device_id"]: fr for inv, fr in inverter_frames(store, "s1", prefetch=True)}
+    assert list(fetched) == ["inv1", "inv2"]
+    for k, fr in serial.items():
+        pd.testing.assert_frame_equal(fetched[k], fr)

@@ -41,7 +41,7 @@ st.dataframe(table, hide_index=True, key="rates_table", column_config={
     "ci_high": st.column_config.NumberColumn("CI high [%/yr]", format="%+.2f"),
     "confidence": st.column_config.NumberColumn("Confidence", format="%.2f"),
     "n_points": st.column_config.NumberColumn("Points", format="%d"),
-    "reason": "Not computed because", "agree": "Methods agree",
+    "reason": "Not computed because", "agree": "Methods agree (device)",
     "disagreements": "Disagreeing methods", "warnings": "Verdict notes"})
 
 st.subheader("One device")
@@ -70,6 +70,11 @@ if h is not None:
                                            title=f"{device}: year-on-year pair rates "
                                                  f"({h['n_points']:.0f} pairs)"),
                       theme=None, key="yoy_hist")
+    left.caption(f"Bars: rate of every pair of days one year apart (r_d); line: their median "
+                 f"{h['rate']:+.2f} %/yr; shaded: its interval {h['ci'][0]:+.2f} … "
+                 f"{h['ci'][1]:+.2f} %/yr (moving-block bootstrap). The outermost bins also hold "
+                 "the rates beyond the range." if h["rate"] is not None and None not in h["ci"] else
+                 "Bars: rate of every pair of days one year apart (r_d).")
 else:
     left.info("No year-on-year distribution stored for this device.")
 

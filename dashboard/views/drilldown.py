@@ -61,14 +61,16 @@ if fid and st.session_state.get("dd_applied") != fid:
     else:
         _apply_flag(fl)
     st.session_state["dd_applied"] = fid
-elif "dd_inverter" not in st.session_state:
+if "dd_inverter" not in st.session_state:
     if qp.get("inverter") in ids:
         st.session_state["dd_inverter"] = qp["inverter"]
     else:
         worst = data.fleet_week(url, site_id, sel["end"]).sort_values("d_peers_pct")
         st.session_state["dd_inverter"] = worst["device_id"].iloc[0] if len(worst) else ids[0]
+    # the last week of the sidebar's range that has interval data
     last_s = data.readings_end(url, site_id)
-    start = _local_day(last_s) - dt.timedelta(days=6) if last_s else sel["end"]
+    end_day = min(sel["end"], _local_day(last_s)) if last_s else sel["end"]
+    start = end_day - dt.timedelta(days=6)
     try:
         start = dt.date.fromisoformat(qp["from"]) if qp.get("from") else start
     except ValueError:

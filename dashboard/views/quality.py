@@ -38,25 +38,32 @@ log = data.ingest_log(url, site_id)
 if log.empty:
     st.info("Nothing ingested for this site yet.")
 else:
-    m = st.columns(4)
+    m = st.columns(5)
     m[0].metric("Files", f"{len(log)}")
     m[1].metric("Rows loaded", f"{int(log['rows_loaded'].sum()):,}")
-    m[2].metric("Rows rejected", f"{int(log['rows_rejected'].sum()):,}")
-    m[3].metric("Failed files", f"{int((log['status'] == 'failed').sum())}")
+    m[2].metric("Rows rejected", f"{int(log['rows_rejected'].sum()):,}",
+                help="Whole lines that could not be used (e.g. an unreadable timestamp).")
+    m[3].metric("Values rejected", f"{int(log['values_rejected'].sum()):,}",
+                help="Single cells rejected (e.g. 'ERR' in a power column); the rest of the "
+                     "line was loaded.")
+    m[4].metric("Failed files", f"{int((log['status'] == 'failed').sum())}")
     st.plotly_chart(charts.ingest_bars(log), theme=None, key="ingest_bars")
     st.dataframe(log[["batch_id", "status", "source_name", "file_name", "sha256", "size_bytes",
                       "rows_read", "rows_loaded", "rows_duplicate", "rows_rejected",
-                      "values_conflict", "interval_s", "started_utc", "message"]],
+                      "values_rejected", "values_conflict", "interval_s", "started_utc",
+                      "message"]],
                  hide_index=True, key="ingest_table", column_config={
         "batch_id": st.column_config.NumberColumn("Batch", format="%d"), "status": "Status",
         "source_name": "Source", "file_name": "File", "sha256": "SHA-256",
         "size_bytes": st.column_config.NumberColumn("Size [bytes]", format="%d"),
         "rows_read": "Rows read", "rows_loaded": "Loaded", "rows_duplicate": "Duplicate",
-        "rows_rejected": "Rejected", "values_conflict": "Conflicting values",
+        "rows_rejected": "Rows rejected", "values_rejected": "Values rejected",
+        "values_conflict": "Conflicting values",
         "interval_s": "Interval [s]", "started_utc": "Started (UTC)", "message": "Message"})
 
 st.subheader("Rejected rows")
-batches = [None, *log.loc[log["rows_rejected"] > 0, "batch_id"].astype(int).tolist()] \
+with_rejects = (log["rows_rejected"] + log["values_rejected"]) > 0 if not log.empty else []
+batches = [None, *log.loc[with_rejects, "batch_id"].astype(int).tolist()] \
     if not log.empty else [None]
 names = dict(zip(log["batch_id"], log["file_name"], strict=True)) if not log.empty else {}
 batch = st.selectbox("File", batches, key="rej_batch",

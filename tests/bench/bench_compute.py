@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import os
 import sqlite3
 import sys
 import time
@@ -182,6 +183,8 @@ def main() -> None:
     ap.add_argument("--years", type=float, default=5.0)
     ap.add_argument("--rebuild", action="store_true")
     a = ap.parse_args()
+    print(f"load average before the run: {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs "
+          "(the machine is shared: compare with the baseline of the same run)")
     path = Path(a.db)
     meta_path = path.with_suffix(".meta.npy")
     if a.rebuild or not path.exists() or not meta_path.exists():
@@ -201,11 +204,11 @@ def main() -> None:
         t0 = time.perf_counter()
         (s,) = jobs_daily.recompute_all(eng, "bench")
         full = time.perf_counter() - t0
-    print(f"\nfull recompute: {n_inv} inverters, {acc['rows_read']:,} readings read, "
-          f"{s['rows']:,} daily rows written")
+    print(f"\nfull recompute: {n_inv} inverters, {s['rows']:,} daily rows written")
     print(f"  total {full:6.1f} s   (target <= 60 s)")
-    print(f"  read    {acc['read']:6.1f} s  ({acc['rows_read'] / max(acc['read'], 1e-9) / 1e6:.2f} M rows/s; "
-          "reader thread, overlaps computing)")
+    print(f"  read    {acc['read']:6.1f} s  ({acc['rows_read']:,} rows, "
+          f"{acc['rows_read'] / max(acc['read'], 1e-9) / 1e6:.2f} M rows/s; reader thread, "
+          "overlaps computing)")
     print(f"  compute {acc['daily'] + acc['sun']:6.1f} s  (daily_performance_many {acc['daily']:.1f} s: "
           f"filters, models, daily sums; solar position + clear sky {acc['sun']:.1f} s)")
     print(f"  write   {acc['write']:6.1f} s")

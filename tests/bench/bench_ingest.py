@@ -2,7 +2,7 @@
 
 Generates (numpy, its own simple generator) one year of 5-minute data for 100 inverters plus
 5 sensor columns (~11 M readings) with a matching site config in a temp dir, then, each in a
-fresh child process (so peak RSS is measured per step with ``os.wait4``):
+fresh child process (peak RSS per step is the child's own VmHWM):
 
 * ``ours``: ``ingest.load.ingest_paths`` into a fresh SQLite file (end to end: config,
   registration, parse, checks, write, commit);
@@ -108,7 +108,7 @@ def step_ours(db: str, cfg_path: str, csv: str) -> None:
     dt_s = time.perf_counter() - t0
     assert res.status == "loaded", res.message
     c = res.counts
-    print(f"RESULT {dt_s:.3f} {c['values_loaded'] + c['values_duplicate']} "
+    print(f"RESULT {dt_s:.3f} {c['values_loaded'] + c['values_duplicate']} {peak_rss_mib()} "
           f"conflicts={c['values_conflict']} duplicates={c['values_duplicate']}")
 
 
@@ -136,7 +136,7 @@ def step_plain(db: str, cfg_path: str, csv: str) -> None:
     long[["channel_id", "ts_s", "value", "batch_id"]].to_sql("reading", engine, if_exists="append",
                                                              index=False, chunksize=200_000)
     dt_s = time.perf_counter() - t0
-    print(f"RESULT {dt_s:.3f} {len(long)}")
+    print(f"RESULT {dt_s:.3f} {len(long)} {peak_rss_mib()}")
 
 
 def step_pg_executemany(url: str, n: int) -> None:
@@ -155,21 +155,29 @@ def step_pg_executemany(url: str, n: int) -> None:
                         "DO UPDATE SET value = excluded.value", rows)
         conn.commit()
         dt_s = time.perf_counter() - t0
-    print(f"RESULT {dt_s:.3f} {n}")
+    print(f"RESULT {dt_s:.3f} {n} {peak_rss_mib()}")
+
+
+def peak_rss_mib() -> int:
+    """Peak resident memory of this process since exec (VmHWM), MiB.
+
+    Not ``getrusage().ru_maxrss``: that survives exec, so a child would report the RSS of the
+    (large, data-generating) parent it was forked from.
+    """
+    with open("/proc/self/status") as f:
+        return next(int(x.split()[1]) // 1024 for x in f if x.startswith("VmHWM"))
 
 
 def run_child(*args: str) -> tuple[float, int, float, str]:
     """Run a step in a child process; return (seconds, readings, peak RSS MiB, extra text)."""
     env = dict(os.environ, PYTHONPATH=str(REPO))
-    p = subprocess.Popen([sys.executable, __file__, "--step", *args], stdout=subprocess.PIPE,
-                         text=True, env=env)
-    out = p.stdout.read()
-    _pid, status, usage = os.wait4(p.pid, 0)
-    if status != 0:
-        raise SystemExit(f"step {args[0]} failed:\n{out}")
-    line = next(x for x in out.splitlines() if x.startswith("RESULT"))
+    p = subprocess.run([sys.executable, __file__, "--step", *args], stdout=subprocess.PIPE,
+                       text=True, env=env)
+    if p.returncode != 0:
+        raise SystemExit(f"step {args[0]} failed:\n{p.stdout}")
+    line = next(x for x in p.stdout.splitlines() if x.startswith("RESULT"))
     parts = line.split()
-    return float(parts[1]), int(parts[2]), usage.ru_maxrss / 1024, " ".join(parts[3:])
+    return float(parts[1]), int(parts[2]), float(parts[3]), " ".join(parts[4:])
 
 
 def main() -> None:
