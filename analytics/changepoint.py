@@ -146,7 +146,9 @@ def pelt_line(y, t, *, pen: float, min_size: int) -> list[int]:
 def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segment_days: int = 90,
                         min_step_pct: float = 2.0, resample_days: int = 14,
                         refine_days: int = 14, deseason: bool = True,
-                        recovery_slope_pct_per_yr: float = -3.0) -> dict:
+                        recovery_slope_pct_per_yr: float = -3.0, persist_lag_days: int = 365,
+                        persist_min_pairs: int = 60, persist_min_months: int = 9,
+                        slope_before_days: int = 90) -> dict:
     """Find steps in a daily index with PELT and report them with dates and sizes.
 
     Parameters
@@ -169,6 +171,18 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
     resample_days : int, default 14
         PELT runs on medians of this many days (fast, robust); each break is then refined to
         the day within ± ``refine_days`` by least squares of two lines.
+    slope_before_days : int, default 90
+        The slope that tells a recovery from a rise is fitted to at most this many days
+        before the break (the soiling ramp just before a cleaning), within its segment.
+    persist_lag_days, persist_min_pairs, persist_min_months : int, default 365, 60, 9
+        Persistence test (:func:`_yoy_sizes`): a break with at least ``persist_min_pairs``
+        day pairs ``persist_lag_days`` apart spanning it, whose first days cover at least
+        ``persist_min_months`` calendar months (seasonal balance), is sized by their median ratio, less
+        the median rate of the pairs that span no break. Compared season with season, a
+        failure stays and a soiling or cleaning difference between arrays cancels, as it does
+        in year-on-year rates (Jordan et al. 2018). Breaks whose year-on-year size is below
+        ``min_step_pct`` are dropped (listed under ``"not_persistent"``); the others report
+        this size as ``size_pct`` (``size_local_pct`` keeps the 30-day-median size).
 
     Returns
     -------
@@ -225,9 +239,23 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
             breaks.append(int(k0))
     # size each break from local medians; drop small ones (slope changes)
     kept = _size_and_filter(tday, y, breaks, min_step_pct)
+    # persistence: a step is still there a year later, a soiling or cleaning difference is not
+    yoy = _yoy_sizes(x, [b for b, *_ in kept], lag_days=persist_lag_days,
+                     min_pairs=persist_min_pairs, min_months=persist_min_months)
+    gone = [b for (b, *_), z in zip(kept, yoy, strict=True)
+            if z is not None and abs(z) < min_step_pct]
+    if gone:
+        result["not_persistent"] = [
+            {"day": x.index[b].date().isoformat(), "size_pct": round(float(sz), 3),
+             "size_yoy_pct": round(float(z), 3)}
+            for (b, sz, *_), z in zip(kept, yoy, strict=True) if b in gone]
+        kept = _size_and_filter(tday, y, [b for b, *_ in kept if b not in gone], min_step_pct)
+        yoy = _yoy_sizes(x, [b for b, *_ in kept], lag_days=persist_lag_days,
+                         min_pairs=persist_min_pairs, min_months=persist_min_months)
     edges = [0] + [b for b, *_ in kept] + [len(y)]
-    for i, (b, size, before, after) in enumerate(kept):
-        a = edges[i]
+    for i, ((b, size_local, before, after), size_yoy) in enumerate(zip(kept, yoy, strict=True)):
+        size = size_local if size_yoy is None else size_yoy
+        a = max(edges[i], int(np.searchsorted(tday, tday[b] - slope_before_days)))
         _, slope = _segment_fit(tday[a:b] / DAYS_PER_YEAR, y[a:b])
         slope_before = 100 * slope / before if before else 0.0
         # an upward step after a falling segment is what a cleaning does to a soiled array
@@ -235,6 +263,10 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
                 "recovery" if slope_before <= recovery_slope_pct_per_yr else "rise")
         result["change_points"].append({"day": x.index[b].date().isoformat(),
                                         "size_pct": round(float(size), 3),
+                                        "size_local_pct": round(float(size_local), 3),
+                                        "size_from": ("year-on-year pairs spanning the step"
+                                                      if size_yoy is not None else
+                                                      f"medians of {30} days either side"),
                                         "level_before": round(float(before), 5),
                                         "level_after": round(float(after), 5),
                                         "kind": kind,
@@ -268,3 +300,59 @@ def _size_and_filter(tday, y, breaks, min_step_pct, window_days: float = 30.0):
         if not small:
             return sized
         breaks.remove(min(small, key=lambda z: abs(z[1]))[0])
+
+
+def _yoy_sizes(x: pd.Series, breaks: list[int], *, lag_days: int = 365,
+               min_pairs: int = 60, min_months: int = 9) -> list[float | None]:
+    """Size of each break [%] from the day pairs ``lag_days`` apart that span it.
+
+    Every pair ratio ``100 (x_{d+lag}/x_d − 1)`` (a year-on-year pair, Jordan et al. 2018) is
+    modelled as the within-segment change ``r_w`` plus the sizes of the breaks with
+    ``d < break ≤ d + lag``, fitted by median backfitting, so that a step and a wash-off less
+    than a year apart are told apart. None where fewer than ``min_pairs`` pairs span the break or their
+    first days cover fewer than ``min_months`` calendar months (a few months' pairs carry
+    that season's year-to-year soiling difference).
+    ``x`` is the daily series (DatetimeIndex), ``breaks`` positions in it.
+    """
+    if not breaks:
+        return []
+    full = x.reindex(pd.date_range(x.index[0], x.index[-1], freq="D"))
+    v = full.to_numpy(dtype=float)
+    days = full.index.to_numpy()
+    n = len(v)
+    if n <= lag_days:
+        return [None] * len(breaks)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = 100 * (v[lag_days:] / v[:-lag_days] - 1)  # pair starting at day d
+    first = days[:-lag_days]
+    last = first + np.timedelta64(lag_days, "D")
+    bdays = [x.index[b].to_datetime64() for b in breaks]
+    spans = np.zeros((len(bdays), r.size), dtype=bool)
+    for i, bd in enumerate(bdays):
+        spans[i] = (first < bd) & (last >= bd)
+    ok = np.isfinite(r)
+    r, spans = r[ok], spans[:, ok]
+    month = full.index[:-lag_days].month.to_numpy()[ok]
+    if r.size < min_pairs:
+        return [None] * len(bdays)
+    # every pair's change = within-segment change + the sizes of the breaks it spans; fitted
+    # robustly by median backfitting (median polish, Tukey 1977): each size is the median of
+    # its spanning pairs with the other sizes and the within change taken out
+    size = np.zeros(len(bdays))
+    span_f = spans.astype(float)
+    r_w = float(np.median(r))
+    for _ in range(20):
+        old = size.copy()
+        for k in range(len(bdays)):
+            if spans[k].any():
+                rest = r - r_w - size @ span_f + size[k] * span_f[k]
+                size[k] = float(np.median(rest[spans[k]]))
+        r_w = float(np.median(r - size @ span_f))
+        if np.max(np.abs(size - old)) < 1e-6:
+            break
+    out: list[float | None] = []
+    for k in range(len(bdays)):
+        n_months = np.unique(month[spans[k]]).size
+        out.append(float(size[k]) if spans[k].sum() >= min_pairs and n_months >= min_months
+                   else None)
+    return out

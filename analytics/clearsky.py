@@ -39,6 +39,8 @@ References
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pvlib
@@ -124,9 +126,15 @@ def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
         cg = c.reindex(grid).fillna(0.0)
         naive = grid.tz_convert(None) if grid.tz is not None else grid  # pvlib reads .values
         try:
-            flag = pvlib.clearsky.detect_clearsky(
-                pd.Series(mg.fillna(0.0).to_numpy(), naive), pd.Series(cg.to_numpy(), naive),
-                infer_limits=True)
+            with warnings.catch_warnings():
+                # pvlib warns when the clear-sky scale factor does not settle in 20 iterations
+                # (a cloudy month); the clear flags of that iteration are still usable, and
+                # the per-day clear fraction downstream rejects days that are not clear
+                warnings.filterwarnings("ignore", message="rescaling failed to converge")
+                warnings.filterwarnings("ignore", message=".*inferred_freq")
+                flag = pvlib.clearsky.detect_clearsky(
+                    pd.Series(mg.fillna(0.0).to_numpy(), naive),
+                    pd.Series(cg.to_numpy(), naive), infer_limits=True)
         except (ValueError, NotImplementedError):  # too short, or irregular after gaps
             continue
         flag = pd.Series(flag.to_numpy(dtype=bool), grid) & mg.notna() & (cg >= min_clearsky_wm2)

@@ -287,7 +287,8 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
                     rng: np.random.Generator | int | None = 0, lag_days: int = 365,
                     reference: str = "pairwise", block_length: int | None = None,
                     min_years: float = 2.0, warn_years: float = 3.0, min_pairs: int = 90,
-                    hist_bin_pct: float = 0.25, breaks=None, method: str = "yoy") -> RateResult:
+                    hist_bin_pct: float = 0.25, breaks=None, min_segment_months: int = 9,
+                    method: str = "yoy") -> RateResult:
     """Year-on-year degradation rate with a moving-block bootstrap interval.
 
     Parameters
@@ -310,6 +311,11 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
     breaks : list of dates, optional
         Change points (:mod:`analytics.changepoint`): pairs whose year spans one are dropped,
         giving the rate within stable segments.
+    min_segment_months : int, default 9
+        With ``breaks``: a segment's pairs enter only if their first days cover at least this
+        many calendar months (three quarters of the year, so that season-specific
+        differences between years average out as in a whole-period rate; common practice).
+        ``details["segments"]`` lists each segment's pairs, months and median.
 
     Returns
     -------
@@ -341,13 +347,35 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
     span, msg = check_span(s.index, min_years=min_years, warn_years=warn_years)
     r = yoy_rates(s, lag_days=lag_days, reference=reference)
     n_spanning = 0
+    segment_info = []
     if breaks:
         first = r.index.to_numpy()
         spans = np.zeros(len(r), dtype=bool)
-        for bday in pd.DatetimeIndex(pd.to_datetime(list(breaks))).to_numpy():
+        bdays = np.sort(pd.DatetimeIndex(pd.to_datetime(list(breaks))).to_numpy())
+        for bday in bdays:
             spans |= (first < bday) & (first + np.timedelta64(lag_days, "D") >= bday)
         n_spanning = int(spans.sum())
         r = r[~spans]
+        # Seasonal balance: a segment whose pairs start in only a few calendar months gives a
+        # rate of those months, biased by what differs between years in that season (soiling
+        # before the rains, a hot summer). Only segments whose pairs cover at least
+        # ``min_segment_months`` calendar months enter; if none does, all kept pairs do.
+        seg = np.searchsorted(bdays, r.index.to_numpy(), side="right")
+        months = r.index.month.to_numpy()
+        use = np.zeros(len(r), dtype=bool)
+        for k in np.unique(seg):
+            m = seg == k
+            n_months = int(np.unique(months[m]).size)
+            ok = n_months >= min_segment_months
+            use |= m & ok
+            segment_info.append({"segment": int(k), "n_pairs": int(m.sum()),
+                                 "n_months_covered": n_months, "used": bool(ok),
+                                 "median_pct_per_yr": float(np.median(r.to_numpy()[m]))})
+        if use.any():
+            r = r[use]
+        elif len(r):
+            segment_info.append({"note": f"no segment covers {min_segment_months} calendar "
+                                         "months: all pairs within segments used"})
     if len(r) < min_pairs:
         raise InsufficientDataError(
             f"{len(r)} year-on-year pairs (days with a valid day {lag_days} days later); "
@@ -370,6 +398,8 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         "n_days": int(len(s)), "span_years": round(span, 3), "lag_days": lag_days,
         "reference": reference, "block_length": b, "n_resamples": n_resamples,
         "n_pairs_spanning_breaks_dropped": n_spanning,
+        **({"segments": segment_info, "min_segment_months": min_segment_months}
+           if breaks else {}),
         "ci_68": [float(lo68), float(hi68)],
         "p90_pct_per_yr": float(np.quantile(boot, 0.10)),
         "p95_pct_per_yr": float(np.quantile(boot, 0.05)),

@@ -20,6 +20,8 @@ References
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 from scipy import stats
@@ -110,7 +112,10 @@ def robust_z(x, axis=None, *, mad_zero_fallback: bool = True):
     a = np.asarray(x, dtype=float)
     if a.size == 0:
         return x.astype(float) if is_pd else a
-    with np.errstate(all="ignore"):
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        # a day on which no peer has a reading is an all-NaN slice: NaN out is the intended
+        # result, not something for the user (numpy RuntimeWarning, scipy SmallSampleWarning)
+        warnings.simplefilter("ignore", RuntimeWarning)
         med = np.nanmedian(a, axis=axis, keepdims=True)
         mad = stats.median_abs_deviation(a, axis=axis, scale="normal", nan_policy="omit")
         mad = np.asarray(mad, dtype=float)

@@ -116,3 +116,27 @@ def test_short_series_reason():
     pi = pd.Series(1.0, pd.date_range("2021-01-01", periods=100))
     out = detect_level_shifts(pi)
     assert out["change_points"] == [] and "needs" in out["reason"]
+
+
+def test_soiling_difference_is_not_a_step_but_a_failure_is():
+    # issue #7 (demo: spurious 2-3 % "rises" on the peer-relative index of inverters that soil
+    # more than their peers). Known-answer series of our own: a peer-relative index with no
+    # trend, 0.8 % noise and every dry season (day-of-year 150-259) a 3 % relative soiling
+    # ramp, washed off at once on day-of-year 260; plus a real 6 % drop on day 900. Compared
+    # season with season (Jordan et al. 2018 year-on-year pairs) the yearly wash-off cancels
+    # and the drop stays; a wash-off must never come out as a "rise" or "drop".
+    rng = np.random.default_rng(4)
+    days = pd.date_range("2019-01-01", periods=5 * 365, freq="D")
+    doy = days.day_of_year.to_numpy()
+    ramp = np.where((doy >= 150) & (doy < 260), -0.03 * (doy - 150) / 110, 0.0)
+    x = (1 + ramp) * (1 + rng.normal(0, 0.008, len(days)))
+    x[900:] *= 0.94
+    out = detect_level_shifts(pd.Series(x, days), deseason=False)
+    kinds = [c["kind"] for c in out["change_points"]]
+    assert "rise" not in kinds
+    drops = [c for c in out["change_points"] if c["kind"] == "drop"]
+    assert len(drops) == 1
+    assert abs((dt.date.fromisoformat(drops[0]["day"]) - days[900].date()).days) <= 3
+    # sized from the pairs spanning it: 100 (0.94 - 1) = -6 %, within 1 percentage point
+    assert abs(drops[0]["size_pct"] + 6.0) < 1.0
+    assert drops[0]["size_from"].startswith("year-on-year")

@@ -156,7 +156,7 @@ def test_many_equals_one_by_one():
 
 def test_overcast_day_with_few_valid_intervals_is_not_valid():
     # complete data (coverage 1) but 3 of 4 intervals below 200 W/m²: valid insolation share
-    # = 650 / (150+150+150+650) = 0.59 -> valid at min_valid_fraction 0.5, not at 0.6
+    # = 650 / (150+152+149+650) = 0.590 -> valid at min_valid_fraction 0.5, not at 0.6
     fr = frame([10, 11, 12, 13], [150.0, 152.0, 149.0, 650.0], [20.0, 20.5, 21.0, 22.0],
                [12.0, 12.5, 11.8, 50.0])
     r = daily_performance(fr, INV, solar_elevation_deg=np.full(4, 40.0)).iloc[0]

@@ -323,3 +323,22 @@ def test_stl_interval_not_narrower_than_model_a():
     pi = daily_pi(years=3, rd_pct_per_yr=-0.6, noise=0.01, ar1=0.7, seed=21)
     stl, rlm = degradation_stl(pi), degradation_rlm(pi)
     assert stl.ci_high - stl.ci_low >= (rlm.ci_high - rlm.ci_low) * 0.999
+
+
+def test_stable_segments_drop_seasonally_unbalanced_segment():
+    # issue #7 (demo INV-05): a 6 % drop 455 days after the start leaves only ~90 days of
+    # pairs before it, all in one season. Here that season (days 365-455, the later day of
+    # those pairs) carries an extra 4 % loss, as a dirtier summer would: the median of those
+    # pairs is about -0.9 - 4 = -4.9 %/yr. Segments whose pairs cover fewer than 9 calendar
+    # months are left out, so the within-segment rate is the -0.9 %/yr put in (pairwise
+    # r_d = 100 (PI_{d+365}/PI_d - 1) = -0.9 exactly for the noise-free part, METHODS §6).
+    pi = daily_pi(years=4, rd_pct_per_yr=-0.9, season=0.02, noise=0.003, step_day=455,
+                  step=-0.06, seed=5)
+    pi.iloc[365:455] *= 0.96
+    brk = pi.index[455]
+    res = degradation_yoy(pi, breaks=[brk], n_resamples=300)
+    seg = [s for s in res.details["segments"] if "segment" in s]
+    assert [s["used"] for s in seg] == [False, True]
+    assert seg[0]["n_months_covered"] <= 4 and seg[0]["median_pct_per_yr"] < -4.0
+    assert abs(res.rate_pct_per_yr + 0.9) < 0.1
+    assert res.ci_low < res.rate_pct_per_yr < res.ci_high
