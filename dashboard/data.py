@@ -31,6 +31,7 @@ from analytics.power import expected_ac_power
 from analytics.temperature import cell_temperature_from_module, sapm_parameters
 from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
 from analytics.weekly import period_kpis, weekly_comparison
+from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log
 from db import queries
 from db import timeseries as db_timeseries
@@ -360,7 +361,7 @@ SUMMARY_METHOD = "summary"
 @_cache
 def degradation_table(url: str, site_id: str) -> pd.DataFrame:
     """Every degradation result of the site (one row per device and method), details parsed."""
-    return queries.degradation_rows(engine(url), site_id)
+    return db_degradation.degradation_results(engine(url), site_id)
 
 
 def rates_only(results: pd.DataFrame) -> pd.DataFrame:
@@ -531,7 +532,7 @@ def _stored_warranty(w: dict, res: pd.DataFrame, device_id: str) -> dict:
 @_cache
 def readings_end(url: str, site_id: str) -> int | None:
     """Last interval start with readings (from the ingest log; epoch s), or None."""
-    b = queries.ingest_batches(engine(url), site_id)
+    b = db_ingest_log.ingest_log(engine(url), site_id)
     if b.empty or b["ts_last_s"].isna().all():
         return None
     return int(b["ts_last_s"].max())
@@ -610,14 +611,9 @@ def peer_normalised_power(url: str, site_id: str, inverter_id: str, start_s: int
 def interval_s(url: str, site_id: str) -> int:
     """The nominal logging interval: the most common final interval of the loaded batches
     (``interval_s`` is e.g. "900" or "900->300"); 300 s when the log has none."""
-    b = queries.ingest_batches(engine(url), site_id)
-    finals = []
-    for v in b.loc[b["status"] == "loaded", "interval_s"].dropna():
-        try:
-            finals.append(int(str(v).split("->")[-1]))
-        except ValueError:
-            continue
-    return max(set(finals), key=finals.count) if finals else 300
+    b = db_ingest_log.ingest_log(engine(url), site_id)
+    nominal = db_ingest_log.nominal_interval(b.loc[b["status"] == "loaded", "interval_s"].dropna())
+    return nominal or 300
 
 
 @_cache

@@ -129,7 +129,7 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
             n_read = sum(x[1] for x in per)
             first = min((x[2] for x in per), default=None)
             last = max((x[3] for x in per), default=None)
-            nominal = _nominal_interval(intervals)
+            nominal = nominal_interval(intervals)
             completeness = None
             if per and nominal:
                 expected = len(per) * ((last - first) // nominal + 1)
@@ -156,8 +156,9 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
         "last_ingest_utc"])
 
 
-def _nominal_interval(intervals: list[str]) -> int | None:
-    finals = [int(x.split("->")[-1]) for x in intervals if x]
+def nominal_interval(intervals) -> int | None:
+    """The most common final interval [s] of batches' ``interval_s`` ("900", "900->300")."""
+    finals = [int(str(x).split("->")[-1]) for x in intervals if x]
     if not finals:
         return None
     return max(set(finals), key=finals.count)

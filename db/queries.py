@@ -18,6 +18,7 @@ import pandas as pd
 import sqlalchemy as sa
 
 from db import schema as s
+from db.flags import READ_COLUMNS, read_flags
 
 # ---------------------------------------------------------------- plant
 
@@ -142,29 +143,23 @@ def period_sums(engine: sa.Engine, site_id: str, start: dt.date, end: dt.date) -
 
 # ---------------------------------------------------------------- flags
 
-FLAG_COLUMNS = ("flag_id", "site_id", "device_id", "kind", "start_s", "end_s", "severity",
-                "lost_kwh", "details_json")
+FLAG_COLUMNS = READ_COLUMNS
 
 
 def flags_overlapping(engine: sa.Engine, site_id: str, start_s: int | None = None,
                       end_s: int | None = None, device_ids: list[str] | None = None,
                       kinds: list[str] | None = None,
                       include_site_wide: bool = False) -> pd.DataFrame:
-    """Flags of a site whose span ``[start_s, end_s)`` overlaps the window (the same rule
-    as :func:`db.flags.read_flags`), newest first; ``device_ids`` limits the devices, and
+    """Flags of a site whose span ``[start_s, end_s)`` overlaps the window
+    (:func:`db.flags.read_flags`), newest first; ``device_ids`` limits the devices, and
     ``include_site_wide`` adds the flags without a device."""
-    f = s.flag.c
-    q = sa.select(*[f[c] for c in FLAG_COLUMNS]).where(f.site_id == site_id)
-    if start_s is not None:
-        q = q.where(f.end_s > int(start_s))
-    if end_s is not None:
-        q = q.where(f.start_s < int(end_s))
+    fl = read_flags(engine, site_id, start_s=start_s, end_s=end_s)
     if device_ids is not None:
-        cond = f.device_id.in_(list(device_ids))
-        q = q.where(sa.or_(cond, f.device_id.is_(None)) if include_site_wide else cond)
+        keep = fl["device_id"].isin(list(device_ids))
+        fl = fl[keep | fl["device_id"].isna()] if include_site_wide else fl[keep]
     if kinds is not None:
-        q = q.where(f.kind.in_(list(kinds)))
-    return _frame(engine, q.order_by(f.start_s.desc(), f.flag_id.desc()))
+        fl = fl[fl["kind"].isin(list(kinds))]
+    return fl.sort_values(["start_s", "flag_id"], ascending=False).reset_index(drop=True)
 
 
 def flag_by_id(engine: sa.Engine, flag_id: int) -> dict | None:
@@ -177,20 +172,6 @@ def flag_by_id(engine: sa.Engine, flag_id: int) -> dict | None:
         return None
     out = dict(row)
     out["details"] = _json(out.pop("details_json"))
-    return out
-
-
-# ---------------------------------------------------------------- degradation
-
-
-def degradation_rows(engine: sa.Engine, site_id: str) -> pd.DataFrame:
-    """``degradation_result`` rows of a site; ``details`` holds the parsed JSON."""
-    r = s.degradation_result.c
-    q = (sa.select(r.device_id, r.method, r.rate_pct_per_yr, r.ci_low, r.ci_high, r.confidence,
-                   r.n_points, r.reason, r.details_json)
-         .where(r.site_id == site_id).order_by(r.device_id, r.method))
-    out = _frame(engine, q)
-    out["details"] = [_json(x) for x in out.pop("details_json")]
     return out
 
 
@@ -262,32 +243,6 @@ def daily_reading_counts(engine: sa.Engine, site_id: str, start_s: int, end_s: i
     epoch = dt.date(1970, 1, 1)
     out["day"] = [epoch + dt.timedelta(days=int(n)) for n in out.pop("day_no")]
     return out[["device_id", "quantity", "day", "n"]]
-
-
-# ---------------------------------------------------------------- ingest log
-
-
-def ingest_batches(engine: sa.Engine, site_id: str) -> pd.DataFrame:
-    """The site's ingest log, newest first: file, hash, rows read/loaded/duplicate/rejected."""
-    b = s.ingest_batch.c
-    q = (sa.select(b.batch_id, b.source_name, b.file_name, b.sha256, b.size_bytes, b.rows_read,
-                   b.rows_loaded, b.rows_duplicate, b.rows_rejected, b.values_loaded,
-                   b.values_conflict, b.values_rejected, b.ts_first_s, b.ts_last_s,
-                   b.interval_s, b.started_utc, b.status, b.message)
-         .where(b.site_id == site_id).order_by(b.batch_id.desc()))
-    return _frame(engine, q)
-
-
-def rejected(engine: sa.Engine, site_id: str, batch_id: int | None = None,
-             limit: int = 500) -> pd.DataFrame:
-    """Rejected rows with their file, line, column and reason (at most ``limit`` rows)."""
-    r, b = s.rejected_row.c, s.ingest_batch.c
-    q = (sa.select(r.batch_id, b.file_name, r.line_no, r.column_name, r.reason, r.raw_text)
-         .select_from(s.rejected_row.join(s.ingest_batch, b.batch_id == r.batch_id))
-         .where(b.site_id == site_id))
-    if batch_id is not None:
-        q = q.where(r.batch_id == int(batch_id))
-    return _frame(engine, q.order_by(r.batch_id, r.line_no).limit(int(limit)))
 
 
 # ---------------------------------------------------------------- helpers

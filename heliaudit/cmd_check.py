@@ -17,6 +17,7 @@ import sqlalchemy as sa
 from analytics.daily import standard_utc_offset_h
 from analytics.weekly import weekly_comparison
 from db import queries
+from db.degradation import degradation_results
 from heliaudit.common import engine_from_ctx
 
 TRAILING_WEEKS = 8
@@ -95,7 +96,7 @@ def _print_flags(engine, site_id, w0, end, echo) -> None:
 
 
 def _print_degradation(engine, site_id, echo) -> None:
-    deg = queries.degradation_rows(engine, site_id)
+    deg = degradation_results(engine, site_id)
     echo("")
     if deg.empty:
         echo("Degradation: not computed yet (`heliaudit compute`)")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import importlib
 import importlib.util
+import json
 import sys
 
 import click
@@ -27,17 +28,19 @@ def _sites(engine: sa.Engine, site_id: str | None) -> list[str]:
     return [site_id] if site_id else list(known)
 
 
-def _new_batches(engine: sa.Engine, site_id: str) -> list[tuple[int, int]]:
-    """``(ts_first_s, ts_last_s)`` of batches loaded since the site's last daily computation,
-    or None when the site was never computed."""
+def _new_batches(engine: sa.Engine, site_id: str) -> list[tuple[int, int]] | None:
+    """``(ts_first_s, ts_last_s)`` of batches loaded after those the site's last daily
+    computation saw (by batch id), or None when the site was never computed."""
     c, b = schema.computation.c, schema.ingest_batch.c
     with engine.connect() as conn:
-        last = conn.execute(sa.select(sa.func.max(c.started_utc)).where(
-            c.site_id == site_id, c.kind == "daily", c.finished_utc.is_not(None))).scalar()
+        last = conn.execute(sa.select(c.params_json).where(
+            c.site_id == site_id, c.kind == "daily", c.finished_utc.is_not(None))
+            .order_by(c.computation_id.desc()).limit(1)).scalar()
         if last is None:
             return None
+        through = json.loads(last).get("through_batch_id") or 0
         rows = conn.execute(sa.select(b.ts_first_s, b.ts_last_s).where(
-            b.site_id == site_id, b.status == "loaded", b.finished_utc >= last,
+            b.site_id == site_id, b.status == "loaded", b.batch_id > through,
             b.ts_first_s.is_not(None))).all()
     return [(int(r[0]), int(r[1])) for r in rows]
 

@@ -99,9 +99,14 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
     start_s = None if first_day is None else first_day * 86400 - off_s
     end_s = None if last_day is None else (last_day + 1) * 86400 - off_s
     with engine.begin() as conn:
+        # The newest batch this computation sees: `heliaudit compute` recomputes only batches
+        # loaded after it (ids, not clock times, which tie within a second).
+        through = conn.execute(sa.select(sa.func.max(schema.ingest_batch.c.batch_id)).where(
+            schema.ingest_batch.c.site_id == site_id)).scalar()
+        params = {**_params(site, filters, offset_h), "through_batch_id": through}
         comp_id = conn.execute(schema.computation.insert().values(
             site_id=site_id, kind="daily", software_version=heliaudit.__version__,
-            params_json=json.dumps(_params(site, filters, offset_h), sort_keys=True, default=str),
+            params_json=json.dumps(params, sort_keys=True, default=str),
             started_utc=_now(), scope=scope)).inserted_primary_key[0]
 
     sun = pd.DataFrame({"solar_elevation_deg": [], "poa_clearsky_wm2": []},

@@ -186,3 +186,39 @@ def test_nothing_computed_is_a_clear_error(store):
     assert r.exit_code == 1
     assert r.output.strip() == ("Error: nothing computed for site 'empty' yet: run "
                                 "`heliaudit compute --site empty` after loading its exports")
+
+
+def test_process_pool_gives_the_same_results_as_one_process():
+    # every series seeds its own bootstrap generator with (seed, rng_key, method), so the
+    # pool's scheduling cannot change a result: identical rates and interval bounds
+    from heliaudit.jobs_degradation import DEFAULTS, methods_many
+    from tests.degradation_synth import daily_pi
+
+    p = {**DEFAULTS, "n_resamples": 200}
+    tasks = [dict(s=daily_pi(years=3, rd_pct_per_yr=-0.3 - 0.2 * k, noise=0.01, seed=k).dropna(),
+                  weights=None, ratio=None, clear_pi=None, clear_reason="none", p=p, rng_key=k)
+             for k in range(4)]
+    one = methods_many(tasks, workers=1)
+    two = methods_many(tasks, workers=2)
+    for (a, _), (b, _) in zip(one, two, strict=True):
+        for m in a:
+            assert (a[m].rate_pct_per_yr, a[m].ci_low, a[m].ci_high) == \
+                   (b[m].rate_pct_per_yr, b[m].ci_low, b[m].ci_high)
+
+
+def test_clearsky_inputs_read_only_power_and_module_temperature(store):
+    # the clear-sky method's reader returns the stored power channel of every inverter and
+    # the module-temperature sensor, on the grid of the full interval frames (db.timeseries)
+    from db import queries
+    from db.degradation import clearsky_inputs
+    from db.timeseries import inverter_frames
+
+    engine, _ = store
+    power, t_mod = clearsky_inputs(engine, "s1", queries.inverters(engine, "s1"))
+    frames = {inv["device_id"]: f for inv, f in inverter_frames(engine, "s1") if len(f)}
+    assert sorted(power.columns) == sorted(frames)
+    for dev, f in frames.items():
+        ref = f["p_ac_kw"].reindex(power.index)
+        np.testing.assert_allclose(power[dev].to_numpy(), ref.to_numpy(), rtol=1e-6)
+        np.testing.assert_allclose(t_mod[dev].to_numpy(), f["t_module_c"].reindex(
+            power.index).to_numpy(), rtol=1e-6, atol=1e-4)
