@@ -15,9 +15,15 @@ clear-sky cross-check, the interval power), computes per inverter and for the si
 * ``sensor_vs_clearsky`` — year-on-year rate of sensor-based / clear-sky index on clear days:
   the POA sensor's drift against the clear-sky model (a paired, tight check);
 * ``yoy_stable_segments`` — year-on-year without pairs that span a detected level shift
-  (drops and rises; upward steps after a soiling ramp, i.e. cleanings, are not breaks);
+  (drops and rises that persist in year-on-year pairs; upward steps after a soiling ramp,
+  i.e. cleanings, are not breaks), from segments whose pairs cover ≥ 9 calendar months;
 * ``summary`` — the headline rate (``yoy``) with the data report, change points and segments,
   the method-agreement verdict and warnings, and the warranty screening in ``details``.
+
+The per-series methods run in a pool of forked worker processes (:func:`methods_many`;
+``workers``, ``HELIAUDIT_WORKERS``); each series seeds its own generators, so results do not
+depend on the number of workers. The clear-sky method reads only the AC power and module
+temperature channels (:func:`db.degradation.clearsky_inputs`).
 
 One ``computation`` row (kind ``degradation``) records the software version and parameters;
 the site's previous rows are replaced in one transaction.
