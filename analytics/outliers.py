@@ -206,11 +206,22 @@ def persistent_low_events(low: pd.Series, valid: pd.Series, *, window: int = 5,
     return events
 
 
+def _merge_close_events(events: list[tuple], gap_days: int) -> list[tuple]:
+    """Join ``(first, last, n_low)`` events whose gap is at most ``gap_days`` days."""
+    out: list[tuple] = []
+    for first, last, n_low in events:
+        if out and (pd.Timestamp(first) - pd.Timestamp(out[-1][1])).days <= gap_days:
+            out[-1] = (out[-1][0], last, out[-1][2] + n_low)
+        else:
+            out.append((first, last, n_low))
+    return out
+
+
 def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = None,
                            z_threshold: float = -3.0, min_deficit: float = 0.02,
                            min_peers: int = 5, window: int = 5, k_required: int = 3,
                            escalate_days: int = 14, clear_days: int = 3,
-                           std_offset_s: int = 0) -> pd.DataFrame:
+                           merge_gap_days: int = 14, std_offset_s: int = 0) -> pd.DataFrame:
     """Underperformance flags from the daily inverter table.
 
     Parameters
@@ -228,6 +239,10 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
         practice). [-]
     escalate_days : int
         Severity 'warning' becomes 'alarm' once an event spans this many days (METHODS §9).
+    merge_gap_days : int
+        An event that re-opens within this many days of the previous one's last low day is
+        the same fault (a failed string does not heal for a few soiled or cloudy days), so
+        the two are one flag; alarm hysteresis, common practice. [days]
     std_offset_s : int
         Site standard UTC offset for converting days to ``start_s``/``end_s``. [s]
 
@@ -255,8 +270,10 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
             r, zd = ratio[dev], z[dev]
             valid = r.notna() & zd.notna()
             low = (zd < z_threshold) & (r < 1.0 - min_deficit)
-            for first, last, n_low in persistent_low_events(
-                    low, valid, window=window, k_required=k_required, clear_days=clear_days):
+            events = _merge_close_events(persistent_low_events(
+                low, valid, window=window, k_required=k_required, clear_days=clear_days),
+                merge_gap_days)
+            for first, last, n_low in events:
                 span = (r.index >= first) & (r.index <= last)
                 rs, zs = r[span], zd[span]
                 lost = float((e_exp.loc[span, dev] * (1.0 - rs).clip(lower=0)).sum())
@@ -275,7 +292,8 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
                         min_robust_z=float(np.nanmin(zs)),
                         rule=(f"robust z < {z_threshold} and peer ratio < {1 - min_deficit:g} "
                               f"on >= {k_required} of the last {window} valid days; cleared "
-                              f"after {clear_days} normal days; alarm from {escalate_days} days"),
+                              f"after {clear_days} normal days; alarm from {escalate_days} days; "
+                              f"re-opened within {merge_gap_days} days = same event"),
                         method="peer ratio to the peer-group median of daily pi; robust z "
                                "with 1.4826 MAD (Iglewicz & Hoaglin 1993)",
                         caution=FIELD_CAUTION)))

@@ -95,21 +95,42 @@ def _print_flags(engine, site_id, w0, end, echo) -> None:
     echo("  " + FIELD_CAUTION)
 
 
+def _rate(row) -> str:
+    if row is None or pd.isna(row.rate_pct_per_yr):
+        return "-"
+    return f"{row.rate_pct_per_yr:+.2f} [{row.ci_low:+.2f}, {row.ci_high:+.2f}]"
+
+
 def _print_degradation(engine, site_id, echo) -> None:
     deg = degradation_results(engine, site_id)
     echo("")
     if deg.empty:
         echo("Degradation: not computed yet (`heliaudit compute`)")
         return
-    yoy = deg[deg["method"] == "yoy"]
-    echo("Degradation, year-on-year (Jordan et al. 2018), median rate and confidence interval:")
-    for r in yoy.itertuples():
-        if pd.isna(r.rate_pct_per_yr):
-            echo(f"  {r.device_id:<10} not computed: {r.reason}")
+    by = {(r.device_id, r.method): r for r in deg.itertuples()}
+    conf = deg.loc[deg["method"] == "yoy", "confidence"].dropna()
+    conf_txt = f"{100 * conf.iloc[0]:.0f} %" if len(conf) else ""
+    echo(f"Degradation [%/yr, {conf_txt} interval], negative = loss: year-on-year (Jordan et "
+         "al. 2018), clear-sky year-on-year (independent of the POA sensor), within stable "
+         "segments (steps removed); warranty screening against the configured terms")
+    echo(f"{'device':<10} {'year-on-year':<24} {'clear-sky':<24} {'within segments':<24} warranty")
+    for dev in sorted(deg["device_id"].unique(), key=lambda d: (d != "(site)", d)):
+        yoy = by.get((dev, "yoy"))
+        if yoy is not None and pd.isna(yoy.rate_pct_per_yr):
+            echo(f"{dev:<10} not computed: {yoy.reason}")
             continue
-        conf = f"{100 * r.confidence:.0f} %" if pd.notna(r.confidence) else ""
-        echo(f"  {r.device_id:<10} {r.rate_pct_per_yr:+.2f} %/yr  [{r.ci_low:+.2f}, "
-             f"{r.ci_high:+.2f}] {conf}, {_f(r.n_points, '.0f')} pairs")
+        summ = by.get((dev, "summary"))
+        det = summ.details if summ is not None else {}
+        w = det.get("warranty") or {}
+        verdict = ("exceeds" if w.get("exceeds") else "not shown") if "exceeds" in w else "-"
+        echo(f"{dev:<10} {_rate(yoy):<24} {_rate(by.get((dev, 'clearsky_yoy'))):<24} "
+             f"{_rate(by.get((dev, 'yoy_stable_segments'))):<24} {verdict}")
+        for cp in det.get("change_points", []):
+            if cp.get("kind") == "drop":
+                echo(f"{'':<10}   step {cp['day']} {cp['size_pct']:+.1f} %: a failure (string, "
+                     "module, inverter), not degradation: inspect the equipment")
+        for warn in (det.get("comparison") or {}).get("warnings", []):
+            echo(f"{'':<10}   {warn}")
     echo("  " + WARRANTY_CAUTION)
 
 

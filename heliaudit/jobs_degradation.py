@@ -146,9 +146,9 @@ def _site_daily(usable: dict[str, pd.Series], by_dev: dict[str, pd.DataFrame],
         cnt.append(pd.Series(1, s.index))
     if not num:
         return pd.Series(dtype=float), pd.Series(dtype=float)
-    n = pd.concat(cnt, axis=1).sum(axis=1)
-    e_ac = pd.concat(num, axis=1).sum(axis=1, min_count=1)
-    e_exp = pd.concat(den, axis=1).sum(axis=1, min_count=1)
+    n = pd.concat(cnt, axis=1, sort=True).sum(axis=1)
+    e_ac = pd.concat(num, axis=1, sort=True).sum(axis=1, min_count=1)
+    e_exp = pd.concat(den, axis=1, sort=True).sum(axis=1, min_count=1)
     ok = (n >= min_fraction * len(usable)) & (e_exp > 0)
     return (e_ac / e_exp)[ok].rename("pi"), e_exp[ok]
 

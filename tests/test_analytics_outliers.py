@@ -118,6 +118,22 @@ def test_one_cloudy_edge_day_is_not_an_alarm():
     assert underperformance_flags(_daily_table(faults=faults)).empty
 
 
+def test_fault_interrupted_by_a_few_normal_days_is_one_event():
+    # A failed string (factor 0.9) whose index looks normal for 5 days in the middle (e.g.
+    # heavy soiling on the peers): the persistence rule closes after 3 normal days, and the
+    # re-opened event within 14 days is merged back (alarm hysteresis, common practice).
+    faults = [("inv03", pd.Timestamp("2024-04-01"), pd.Timestamp("2024-04-20"), 0.9),
+              ("inv03", pd.Timestamp("2024-04-26"), pd.Timestamp("2024-05-20"), 0.9)]
+    d = _daily_table(faults=faults)
+    fl = underperformance_flags(d)
+    assert len(fl) == 1
+    f = fl.iloc[0]["details"]
+    assert abs((pd.Timestamp(f["first_day"]) - pd.Timestamp("2024-04-01")).days) <= 2
+    assert abs((pd.Timestamp(f["last_day"]) - pd.Timestamp("2024-05-20")).days) <= 2
+    # without merging it is two events (the METHODS §9 rule alone)
+    assert len(underperformance_flags(d, merge_gap_days=0)) == 2
+
+
 def test_short_event_is_warning():
     faults = [("inv05", pd.Timestamp("2024-04-01"), pd.Timestamp("2024-04-06"), 0.85)]
     fl = underperformance_flags(_daily_table(faults=faults))
