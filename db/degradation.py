@@ -10,40 +10,17 @@ from __future__ import annotations
 
 import datetime as dt
 import json
-import math
 
 import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
 from db import schema
+from db.jsontext import clean, to_json
 
 SITE_DEVICE = "(site)"
 RESULT_COLUMNS = ("site_id", "device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
                   "confidence", "n_points", "reason", "details", "computation_id")
-
-
-def _clean(o):
-    """JSON-safe copy: numpy scalars to Python, NaN/inf to None, dates to ISO text."""
-    if isinstance(o, dict):
-        return {str(k): _clean(v) for k, v in o.items()}
-    if isinstance(o, list | tuple | np.ndarray):
-        return [_clean(v) for v in o]
-    if isinstance(o, np.bool_ | bool):
-        return bool(o)
-    if isinstance(o, np.integer):
-        return int(o)
-    if isinstance(o, np.floating | float):
-        f = float(o)
-        return f if math.isfinite(f) else None
-    if isinstance(o, pd.Timestamp | dt.date | dt.datetime):
-        return o.isoformat()
-    return o
-
-
-def to_json(obj) -> str | None:
-    """Compact JSON text of ``obj`` (None stays None), NaN-free."""
-    return None if obj is None else json.dumps(_clean(obj), allow_nan=False, sort_keys=True)
 
 
 def _now() -> str:
@@ -69,7 +46,7 @@ def write_degradation(engine: sa.Engine, site_id: str, rows: list[dict], computa
     t = schema.degradation_result
     recs = []
     for r in rows:
-        num = {k: _clean(r.get(k)) for k in ("rate_pct_per_yr", "ci_low", "ci_high", "confidence")}
+        num = {k: clean(r.get(k)) for k in ("rate_pct_per_yr", "ci_low", "ci_high", "confidence")}
         recs.append(dict(site_id=site_id, device_id=str(r["device_id"]), method=str(r["method"]),
                          n_points=None if r.get("n_points") is None else int(r["n_points"]),
                          reason=r.get("reason"), details_json=to_json(r.get("details") or {}),

@@ -15,6 +15,7 @@ import pandas as pd
 import sqlalchemy as sa
 
 from db import schema
+from db.jsontext import to_json
 
 #: Stable flag kinds (issue #5); other strings are refused.
 FLAG_KINDS = ("underperformance", "outage", "clipping", "soiling", "cleaning", "sensor_range",
@@ -25,33 +26,6 @@ READ_COLUMNS = ("flag_id", "site_id", "device_id", "kind", "start_s", "end_s", "
                 "lost_kwh", "details_json")
 
 
-def _json_default(o):
-    if isinstance(o, np.integer):
-        return int(o)
-    if isinstance(o, np.floating):
-        return None if not np.isfinite(o) else float(o)
-    if isinstance(o, np.bool_):
-        return bool(o)
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    if isinstance(o, pd.Timestamp):
-        return o.isoformat()
-    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
-
-
-def _clean(o):
-    """NaN/inf -> None (JSON has no NaN), recursively."""
-    if isinstance(o, float) and not math.isfinite(o):
-        return None
-    if isinstance(o, dict):
-        return {str(k): _clean(v) for k, v in o.items()}
-    if isinstance(o, list | tuple):
-        return [_clean(v) for v in o]
-    if isinstance(o, np.floating) and not np.isfinite(o):
-        return None
-    return o
-
-
 def details_to_json(details) -> str | None:
     """A flag's evidence as JSON text (dicts are serialised; text is checked and kept)."""
     if details is None or (isinstance(details, float) and math.isnan(details)):
@@ -59,8 +33,7 @@ def details_to_json(details) -> str | None:
     if isinstance(details, str):
         json.loads(details)
         return details
-    return json.dumps(_clean(details), default=_json_default, allow_nan=False,
-                      ensure_ascii=False, sort_keys=True)
+    return to_json(details)
 
 
 def _rows(site_id: str, flags: pd.DataFrame, computation_id: int | None) -> list[dict]:

@@ -55,13 +55,13 @@ from db import queries
 from db.daily import daily_table
 from db.degradation import (
     SITE_DEVICE,
-    _clean,
     begin_computation,
     clearsky_inputs,
     ghi_channels,
     site_row,
     write_degradation,
 )
+from db.jsontext import clean
 
 Progress = Callable[[int, int], None]
 
@@ -594,7 +594,7 @@ def results_document(engine, site_id: str) -> dict:
                    "lost_kwh": None if pd.isna(f["lost_kwh"]) else float(f["lost_kwh"]),
                    "details": _json_or_none(f["details_json"])} for _, f in flags.iterrows()]
     deg_comp = comps["degradation"]
-    return _clean({
+    return clean({
         "schema": RESULTS_SCHEMA,
         "generated_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
         "software": {"name": "heliaudit", "version": heliaudit.__version__},
