@@ -10,7 +10,7 @@ import sys
 import click
 import pandas as pd
 
-from db.ingest_log import site_summary
+from db.ingest_log import rejected_rows, site_summary
 from heliaudit.common import engine_from_ctx
 from ingest.config import ConfigError, load_site_config
 from ingest.load import BatchResult, discover, ingest_paths, touched_ranges
@@ -58,6 +58,24 @@ def _note_lines(r: BatchResult) -> list[str]:
         out.append("configured columns not in this file: "
                    + ", ".join(n["configured_columns_missing"][:10]))
     return ["  note: " + x for x in out]
+
+
+SHOW_REJECTS = 5
+
+
+def _reject_lines(engine, r: BatchResult) -> list[str]:
+    """The first rejected rows/values of a loaded file, compiler-style, then a count."""
+    n = r.counts.get("rows_rejected", 0) + r.counts.get("values_rejected", 0)
+    if r.status != "loaded" or not n or r.batch_id is None:
+        return []
+    rej = rejected_rows(engine, r.site_id, batch_id=r.batch_id, limit=SHOW_REJECTS)
+    out = []
+    for x in rej.itertuples():
+        col = f":{x.column_name}" if isinstance(x.column_name, str) and x.column_name else ""
+        out.append(f"  rejected: {x.file_name}:{x.line_no}{col}: {x.reason}")
+    if n > len(rej):
+        out.append(f"  ... {n - len(rej)} more rejected (heliaudit dashboard, data quality page)")
+    return out
 
 
 @click.command()
@@ -108,6 +126,8 @@ def ingest(ctx: click.Context, config: str, paths: tuple[str, ...], no_compute: 
     for r in results:
         click.echo(_file_line(r))
         for line in _note_lines(r):
+            click.echo(line)
+        for line in _reject_lines(engine, r):
             click.echo(line)
     if not no_compute:
         _recompute(engine, touched_ranges(results))

@@ -16,6 +16,8 @@ def engine_from_ctx(ctx: click.Context) -> sa.Engine:
         try:
             obj["engine"] = make_engine(obj.get("db_url"))
         except Exception as exc:  # noqa: BLE001 - any driver error becomes one line
-            raise click.ClickException(f"cannot open database: {exc}") from None
+            detail = str(getattr(exc, "orig", None) or exc).strip().splitlines()
+            raise click.ClickException(
+                f"cannot open database: {detail[0] if detail else type(exc).__name__}") from None
         root.obj = obj
     return obj["engine"]

@@ -35,7 +35,16 @@ def test_ingest_prints_per_file_summary(tmp_path, site):
     assert r.output == (
         "basic_2023-06-01.csv: 6 rows: 4 loaded, 0 duplicate, 2 rejected; 2023-06-01 10:00 .. "
         "2023-06-01 11:00 UTC (interval start); interval 900 s; values: 14 new or changed "
-        "(0 conflicting), 0 duplicate, 2 rejected\n")
+        "(0 conflicting), 0 duplicate, 2 rejected\n"
+        # the first rejects follow, compiler-style (file:line[:column]: reason)
+        "  rejected: basic_2023-06-01.csv:3:INV2_PAC: value 'n/a' is not a number (expected "
+        "decimal separator '.', or a missing-value token such as '-', 'NaN', 'nan', '#N/A')\n"
+        "  rejected: basic_2023-06-01.csv:4: no readings in this row (every mapped value is "
+        "missing)\n"
+        "  rejected: basic_2023-06-01.csv:5:Irr: value '-50' (W/m2) is impossible: irradiance "
+        "below -10 W/m²\n"
+        "  rejected: basic_2023-06-01.csv:6: timestamp '2023-06-01 11:60' does not match "
+        "format '%Y-%m-%d %H:%M'\n")
     r = run(tmp_path / "s.sqlite", "ingest", "--no-compute", site, tmp_path / "basic_2023-06-01.csv")
     assert r.exit_code == 0
     assert r.output == ("basic_2023-06-01.csv: unchanged, skipped (same content (SHA-256) as "
