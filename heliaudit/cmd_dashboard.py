@@ -3,8 +3,12 @@
 from __future__ import annotations
 
 import os
+import socket
 import subprocess
 import sys
+import threading
+import time
+import webbrowser
 from pathlib import Path
 
 import click
@@ -29,6 +33,18 @@ def streamlit_command(port: int = 8501, host: str = "127.0.0.1",
     return cmd
 
 
+def _open_when_up(host: str, port: int, address: str, timeout_s: float = 60.0) -> None:
+    """Open ``address`` in the user's browser once the server accepts connections."""
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        try:
+            with socket.create_connection((host, port), timeout=1.0):
+                webbrowser.open(address)
+                return
+        except OSError:
+            time.sleep(0.5)
+
+
 @click.command("dashboard")
 @click.option("--port", default=8501, show_default=True, type=click.IntRange(1, 65535),
               help="TCP port to serve on.")
@@ -49,9 +65,13 @@ def dashboard(ctx: click.Context, port: int, host: str, no_browser: bool) -> Non
     """
     url = resolve_url((ctx.find_root().obj or {}).get("db_url"))
     env = dict(os.environ, **{ENV_VAR: url})
-    cmd = streamlit_command(port, host, headless=no_browser)
-    click.echo(f"heliaudit dashboard on http://{host}:{port} (database {url}); Ctrl-C stops it",
-               err=True)
+    # Always headless: a non-headless first run asks for an e-mail address on stdin and
+    # exits when there is none (seen from `heliaudit demo`); we open the browser ourselves.
+    cmd = streamlit_command(port, host, headless=True)
+    address = f"http://{host}:{port}"
+    click.echo(f"heliaudit dashboard on {address} (database {url}); Ctrl-C stops it", err=True)
+    if not no_browser:
+        threading.Thread(target=_open_when_up, args=(host, port, address), daemon=True).start()
     try:
         proc = subprocess.run(cmd, env=env, check=False)
     except KeyboardInterrupt:  # Streamlit stops with the same signal

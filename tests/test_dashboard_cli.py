@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import subprocess
 import sys
+import time
 
 from click.testing import CliRunner
 
@@ -44,6 +45,21 @@ def test_dashboard_passes_the_database_and_options(monkeypatch, tmp_path):
     i = seen["cmd"].index("--server.port")
     assert seen["cmd"][i + 1] == "8777"
     assert seen["cmd"][seen["cmd"].index("--server.headless") + 1] == "true"
+
+
+def test_dashboard_is_headless_even_when_opening_a_browser(monkeypatch, tmp_path):
+    # A non-headless Streamlit asks for an e-mail on its first run and exits without a
+    # terminal; heliaudit serves headless and opens the browser itself.
+    opened = []
+    monkeypatch.setattr(cmd_dashboard, "_open_when_up", lambda *a: opened.append(a))
+    res, seen = _run(monkeypatch, ["--db", str(tmp_path / "s.sqlite"), "dashboard"])
+    assert res.exit_code == 0, res.output
+    assert seen["cmd"][seen["cmd"].index("--server.headless") + 1] == "true"
+    for _ in range(50):  # the opener runs in a thread
+        if opened:
+            break
+        time.sleep(0.01)
+    assert opened and opened[0][2] == "http://127.0.0.1:8501"
 
 
 def test_dashboard_reports_a_failed_server(monkeypatch, tmp_path):
