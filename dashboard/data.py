@@ -476,19 +476,27 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
                             first_year_loss_pct=terms["first_year_loss_pct"],
                             annual_loss_pct=terms["annual_loss_pct"],
                             term_years=terms["years"], rate_pct_per_yr=rate)
-    years = np.linspace(0, terms["years"], 4 * terms["years"] + 1)
-    w = warranted_fraction(years, first_year_loss_pct=terms["first_year_loss_pct"],
-                           annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"])
-    months = pd.DataFrame(env["months"])
-    y_last = float(months["years"].max()) if not months.empty else 1.0
-    ym = np.linspace(0, max(y_last, 0.1), 60)
-    lo = _num(r["ci_low"]) if _num(r["ci_low"]) is not None else rate
-    hi = _num(r["ci_high"]) if _num(r["ci_high"]) is not None else rate
     test = None
     if _num(r["ci_high"]) is not None and _num(r["confidence"]) is not None:
         test = warranty_rate_test(rate, float(r["ci_high"]), float(r["confidence"]),
                                   annual_loss_pct=terms["annual_loss_pct"],
                                   confidence=terms["confidence"])
+    return _warranty_frames(terms, r, method, pd.DataFrame(env["months"]),
+                            env["shortfall_kwh"], env["months_below"], test)
+
+
+def _warranty_frames(terms: dict, r, method: str, months: pd.DataFrame, shortfall_kwh,
+                     months_below, test) -> dict:
+    """Chart frames of a warranty view: the warranted envelope over the term, the measured
+    index from the stored rate and its interval, and the monthly index."""
+    rate = float(r["rate_pct_per_yr"])
+    lo = _num(r["ci_low"]) if _num(r["ci_low"]) is not None else rate
+    hi = _num(r["ci_high"]) if _num(r["ci_high"]) is not None else rate
+    years = np.linspace(0, terms["years"], 4 * int(terms["years"]) + 1)
+    w = warranted_fraction(years, first_year_loss_pct=terms["first_year_loss_pct"],
+                           annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"])
+    y_last = float(months["years"].max()) if not months.empty else 1.0
+    ym = np.linspace(0, max(y_last, 0.1), 60)
     return {"terms": terms, "rate": rate, "ci": (lo, hi), "method": method,
             "envelope": pd.DataFrame({"years": years, "warranted_pct": 100 * np.asarray(w)}),
             "measured": pd.DataFrame({"years": ym, "index_pct": 100 * (1 + rate * ym / 100),
@@ -496,34 +504,17 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
                                       "hi_pct": 100 * (1 + hi * ym / 100)}),
             "monthly": (months.assign(relative_pct=100 * months["relative"])
                         if not months.empty else months),
-            "shortfall_kwh": env["shortfall_kwh"], "months_below": env["months_below"],
-            "test": test}
+            "shortfall_kwh": shortfall_kwh, "months_below": months_below, "test": test}
 
 
 def _stored_warranty(w: dict, res: pd.DataFrame, device_id: str) -> dict:
     """The warranty block the degradation job stored, as frames for the chart."""
-    terms = dict(w["terms"])
     r = res[(res["device_id"] == device_id) & (res["method"] == w["method"])].iloc[0]
-    rate = float(r["rate_pct_per_yr"])
-    lo = _num(r["ci_low"]) if _num(r["ci_low"]) is not None else rate
-    hi = _num(r["ci_high"]) if _num(r["ci_high"]) is not None else rate
-    months = pd.DataFrame(w["envelope"])
-    years = np.linspace(0, terms["years"], 4 * int(terms["years"]) + 1)
-    wf = warranted_fraction(years, first_year_loss_pct=terms["first_year_loss_pct"],
-                            annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"])
-    y_last = float(months["years"].max()) if not months.empty else 1.0
-    ym = np.linspace(0, max(y_last, 0.1), 60)
-    return {"terms": terms, "rate": rate, "ci": (lo, hi), "method": w["method"],
-            "envelope": pd.DataFrame({"years": years, "warranted_pct": 100 * np.asarray(wf)}),
-            "measured": pd.DataFrame({"years": ym, "index_pct": 100 * (1 + rate * ym / 100),
-                                      "lo_pct": 100 * (1 + lo * ym / 100),
-                                      "hi_pct": 100 * (1 + hi * ym / 100)}),
-            "monthly": (months.assign(relative_pct=100 * months["relative"])
-                        if not months.empty else months),
-            "shortfall_kwh": w.get("shortfall_kwh"), "months_below": w.get("months_below"),
-            "test": {k: w[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
-                                       "warranted_rate_pct_per_yr") if k in w}
-            if "exceeds" in w else None}
+    test = ({k: w[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
+                               "warranted_rate_pct_per_yr") if k in w}
+            if "exceeds" in w else None)
+    return _warranty_frames(dict(w["terms"]), r, w["method"], pd.DataFrame(w["envelope"]),
+                            w.get("shortfall_kwh"), w.get("months_below"), test)
 
 
 # ---------------------------------------------------------------- drill-down

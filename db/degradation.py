@@ -8,7 +8,6 @@ details JSON parsed.
 
 from __future__ import annotations
 
-import datetime as dt
 import json
 
 import numpy as np
@@ -16,24 +15,12 @@ import pandas as pd
 import sqlalchemy as sa
 
 from db import schema
+from db.computations import finish_computation
 from db.jsontext import clean, to_json
 
 SITE_DEVICE = "(site)"
 RESULT_COLUMNS = ("site_id", "device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
                   "confidence", "n_points", "reason", "details", "computation_id")
-
-
-def _now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
-
-
-def begin_computation(engine: sa.Engine, site_id: str, *, software_version: str, params: dict,
-                      scope: str = "full", kind: str = "degradation") -> int:
-    """Insert a ``computation`` row (unfinished) and return its id."""
-    with engine.begin() as conn:
-        return conn.execute(schema.computation.insert().values(
-            site_id=site_id, kind=kind, software_version=software_version,
-            params_json=to_json(params), started_utc=_now(), scope=scope)).inserted_primary_key[0]
 
 
 def write_degradation(engine: sa.Engine, site_id: str, rows: list[dict], computation_id: int) -> int:
@@ -58,8 +45,7 @@ def write_degradation(engine: sa.Engine, site_id: str, rows: list[dict], computa
         conn.execute(t.delete().where(t.c.site_id == site_id))
         if recs:
             conn.execute(t.insert(), recs)
-        conn.execute(schema.computation.update().where(
-            schema.computation.c.computation_id == computation_id).values(finished_utc=_now()))
+        finish_computation(conn, computation_id)
     return len(recs)
 
 
@@ -97,20 +83,6 @@ def last_computation(engine: sa.Engine, site_id: str, kind: str = "degradation")
     out = dict(row)
     out["params"] = json.loads(out.pop("params_json") or "{}")
     return out
-
-
-def site_row(engine: sa.Engine, site_id: str) -> dict | None:
-    """The whole ``site`` row as a dict (geometry, time zone, stored configuration), or None."""
-    with engine.connect() as conn:
-        row = conn.execute(sa.select(schema.site).where(
-            schema.site.c.site_id == site_id)).mappings().first()
-    return None if row is None else dict(row)
-
-
-def site_ids(engine: sa.Engine) -> list[str]:
-    with engine.connect() as conn:
-        return list(conn.execute(sa.select(schema.site.c.site_id).order_by(
-            schema.site.c.site_id)).scalars())
 
 
 def ghi_channels(engine: sa.Engine, site_id: str) -> list[tuple[str, int]]:

@@ -10,7 +10,6 @@ Read side (CLI ``summary`` and the dashboard): :func:`site_summary`, :func:`inge
 
 from __future__ import annotations
 
-import datetime as dt
 import json
 from collections.abc import Iterable
 
@@ -18,15 +17,12 @@ import pandas as pd
 import sqlalchemy as sa
 
 from db import schema
+from db.computations import now_utc
 from ingest.errors import Rejected
 
 B = schema.ingest_batch
 COUNT_FIELDS = ("rows_read", "rows_loaded", "rows_duplicate", "rows_rejected", "values_loaded",
                 "values_duplicate", "values_conflict", "values_rejected")
-
-
-def now_utc() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
 
 
 def loaded_batch_with_sha(conn: sa.Connection, site_id: str, sha256: str) -> int | None:

@@ -31,4 +31,4 @@ def clean(o):
 
 def to_json(obj) -> str | None:
     """Compact JSON text of ``obj`` (None stays None), NaN-free."""
-    return None if obj is None else json.dumps(clean(obj), allow_nan=False, sort_keys=True)
+    return None if obj is None else json.dumps(clean(obj), allow_nan=False, sort_keys=True, default=str)

@@ -9,12 +9,12 @@ is refused rather than written to.
 
 from __future__ import annotations
 
-import datetime as dt
 from collections.abc import Callable
 
 import sqlalchemy as sa
 
 from db import schema
+from db.computations import now_utc
 
 
 class SchemaTooNewError(RuntimeError):
@@ -35,10 +35,6 @@ def _v2_daily_e_ac_pr(conn: sa.Connection) -> None:
 STEPS[2] = _v2_daily_e_ac_pr
 
 
-def _now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
-
-
 def current_version(conn: sa.Connection) -> int | None:
     if not sa.inspect(conn).has_table("schema_version"):
         return None
@@ -52,7 +48,7 @@ def upgrade(engine: sa.Engine, target: int = schema.SCHEMA_VERSION) -> int:
         if version is None:
             schema.metadata.create_all(conn)
             conn.execute(schema.schema_version.insert().values(
-                version=target, applied_utc=_now(), note="created"))
+                version=target, applied_utc=now_utc(), note="created"))
             return target
     if version > target:
         raise SchemaTooNewError(
@@ -62,7 +58,7 @@ def upgrade(engine: sa.Engine, target: int = schema.SCHEMA_VERSION) -> int:
         with engine.begin() as conn:
             STEPS[step](conn)
             conn.execute(schema.schema_version.insert().values(
-                version=step, applied_utc=_now(), note=STEPS[step].__doc__ or ""))
+                version=step, applied_utc=now_utc(), note=STEPS[step].__doc__ or ""))
     # tables added in later versions without data changes
     schema.metadata.create_all(engine)
     return target

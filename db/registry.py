@@ -8,18 +8,13 @@ readings keep their channel when a device leaves the config.
 
 from __future__ import annotations
 
-import datetime as dt
-
 import sqlalchemy as sa
 
 from db import schema
+from db.computations import now_utc
 from ingest.config import SiteConfig
 
 DERIVED = {"e_ac_total_kwh": "e_ac_kwh"}  # counter quantity -> the quantity ingest derives
-
-
-def _now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
 
 
 def channel_quantities(cfg: SiteConfig) -> dict[str, set[str]]:
@@ -54,7 +49,7 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
                latitude_deg=cfg.latitude_deg, longitude_deg=cfg.longitude_deg,
                altitude_m=cfg.altitude_m, tilt_deg=cfg.tilt_deg, azimuth_deg=cfg.azimuth_deg,
                albedo=cfg.albedo, config_toml=cfg.toml_text, config_sha256=cfg.sha256,
-               updated_utc=_now())
+               updated_utc=now_utc())
     exists = conn.execute(sa.select(t.c.site_id).where(t.c.site_id == cfg.id)).first()
     if exists:
         old = conn.execute(sa.select(t.c.config_sha256).where(t.c.site_id == cfg.id)).scalar()
@@ -111,3 +106,23 @@ def channel_map(engine_or_conn: sa.Engine | sa.Connection, site_id: str) -> dict
     else:
         rows = engine_or_conn.execute(q).all()
     return {(r.device_id, r.quantity): r.channel_id for r in rows}
+
+
+class SiteNotFoundError(LookupError):
+    """No site with that id in the store (the message lists the known ones)."""
+
+
+def site_row(conn: sa.Connection | sa.Engine, site_id: str) -> dict:
+    """The whole ``site`` row (geometry, time zone, stored configuration) as a dict; raise
+    :class:`SiteNotFoundError` naming the known sites when there is none."""
+    if isinstance(conn, sa.Engine):
+        with conn.connect() as c:
+            return site_row(c, site_id)
+    row = conn.execute(sa.select(schema.site).where(schema.site.c.site_id == site_id)
+                       ).mappings().first()
+    if row is None:
+        known = conn.execute(sa.select(schema.site.c.site_id).order_by(
+            schema.site.c.site_id)).scalars().all()
+        raise SiteNotFoundError(f"no site {site_id!r} in the database; known: "
+                                f"{', '.join(known) or '(none)'}")
+    return dict(row)

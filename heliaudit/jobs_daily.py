@@ -13,7 +13,6 @@ the site's inverters; each sensor channel is read once per run.
 from __future__ import annotations
 
 import datetime as dt
-import json
 import tomllib
 from collections.abc import Callable
 
@@ -26,29 +25,14 @@ from analytics import daily as adaily
 from analytics import filters as flt
 from analytics.temperature import SAPM_PARAMETERS
 from db import schema
+from db.computations import begin_computation, finish_computation
 from db.daily import write_daily
+from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 from db.timeseries import inverter_frames, site_channels
 
 Progress = Callable[[int, int], None]  # progress(done, total), in inverters
 BATCH_ROWS = 300_000  # intervals per vectorised call (a week of 100 inverters is ~70 000)
 _EPOCH = dt.date(1970, 1, 1)
-
-
-class SiteNotFoundError(LookupError):
-    pass
-
-
-def _now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
-
-
-def _site(conn: sa.Connection, site_id: str) -> dict:
-    row = conn.execute(sa.select(schema.site).where(schema.site.c.site_id == site_id)).mappings().first()
-    if row is None:
-        known = conn.execute(sa.select(schema.site.c.site_id)).scalars().all()
-        raise SiteNotFoundError(f"no site {site_id!r} in the database; known: "
-                                f"{', '.join(known) or '(none)'}")
-    return dict(row)
 
 
 def site_filters(site_row: dict) -> dict[str, float]:
@@ -90,7 +74,7 @@ class _Inv:
 def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: int | None,
              scope: str, progress: Progress | None) -> dict:
     with engine.connect() as conn:
-        site = _site(conn, site_id)
+        site = site_row(conn, site_id)
         n_inv = conn.execute(sa.select(sa.func.count()).select_from(
             schema.inverter.join(schema.device)).where(schema.device.c.site_id == site_id)).scalar()
     filters = site_filters(site)
@@ -104,10 +88,8 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         through = conn.execute(sa.select(sa.func.max(schema.ingest_batch.c.batch_id)).where(
             schema.ingest_batch.c.site_id == site_id)).scalar()
         params = {**_params(site, filters, offset_h), "through_batch_id": through}
-        comp_id = conn.execute(schema.computation.insert().values(
-            site_id=site_id, kind="daily", software_version=heliaudit.__version__,
-            params_json=json.dumps(params, sort_keys=True, default=str),
-            started_utc=_now(), scope=scope)).inserted_primary_key[0]
+        comp_id = begin_computation(conn, site_id, "daily", params, scope=scope,
+                                    software_version=heliaudit.__version__)
 
     sun = pd.DataFrame({"solar_elevation_deg": [], "poa_clearsky_wm2": []},
                        index=pd.DatetimeIndex([], tz="UTC"))
@@ -167,8 +149,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         n = write_daily(conn, site_id, out, first_day=_EPOCH + dt.timedelta(days=lo),
                         last_day=_EPOCH + dt.timedelta(days=hi), device_ids=ids,
                         computation_id=comp_id)
-        conn.execute(schema.computation.update().where(
-            schema.computation.c.computation_id == comp_id).values(finished_utc=_now()))
+        finish_computation(conn, comp_id)
     return {"site_id": site_id, "computation_id": comp_id, "rows": n, "inverters": len(ids),
             "first_day": _EPOCH + dt.timedelta(days=lo) if (first_day is not None or days_seen) else None,
             "last_day": _EPOCH + dt.timedelta(days=hi) if (last_day is not None or days_seen) else None,
@@ -193,7 +174,7 @@ def recompute_range(engine: sa.Engine, site_id: str, start_s: int, end_s: int,
     if end_s < start_s:
         raise ValueError(f"end_s {end_s} is before start_s {start_s}")
     with engine.connect() as conn:
-        site = _site(conn, site_id)
+        site = site_row(conn, site_id)
     d0, d1 = local_days(int(start_s), int(end_s), site["timezone"])
     scope = f"days {_EPOCH + dt.timedelta(days=d0)}..{_EPOCH + dt.timedelta(days=d1)}"
     return _compute(engine, site_id, d0, d1, scope, progress)
@@ -219,13 +200,13 @@ def recompute_all(engine: sa.Engine, site_id: str | None = None,
             sites = conn.execute(sa.select(schema.site.c.site_id).order_by(
                 schema.site.c.site_id)).scalars().all()
         else:
-            _site(conn, site_id)
+            site_row(conn, site_id)
             sites = [site_id]
     out = []
     for sid in sites:
         with engine.connect() as conn:
             lo, hi = _site_span(conn, sid)
-            tz = _site(conn, sid)["timezone"]
+            tz = site_row(conn, sid)["timezone"]
             t = schema.daily_inverter
             pks = conn.execute(sa.select(schema.device.c.device_pk).where(
                 schema.device.c.site_id == sid)).scalars().all()

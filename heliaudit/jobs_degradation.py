@@ -52,16 +52,16 @@ from analytics import degradation as adeg
 from analytics import warranty as awar
 from analytics.daily import standard_utc_offset_h
 from db import queries
+from db.computations import begin_computation
 from db.daily import daily_table
 from db.degradation import (
     SITE_DEVICE,
-    begin_computation,
     clearsky_inputs,
     ghi_channels,
-    site_row,
     write_degradation,
 )
 from db.jsontext import clean
+from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 
 Progress = Callable[[int, int], None]
 
@@ -89,10 +89,6 @@ DEFAULTS: dict = {
 }
 METHODS = ("yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "sensor_vs_clearsky",
            "yoy_stable_segments")
-
-
-class SiteNotFoundError(LookupError):
-    pass
 
 
 def _try(method: str, fn, *args, **kwargs) -> adeg.RateResult:
@@ -353,8 +349,6 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
     "inverters", "refused"}``. Raises :class:`SiteNotFoundError` for an unknown site.
     """
     site = site_row(engine, site_id)
-    if site is None:
-        raise SiteNotFoundError(f"no site {site_id!r} in the database")
     unknown = sorted(set(params) - set(DEFAULTS))
     if unknown:
         raise ValueError(f"unknown degradation parameter(s) {', '.join(unknown)}; "
@@ -364,9 +358,11 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
     daily = daily_table(engine, site_id)
     terms = warranty_terms(site.get("config_toml"))
     offset_h = standard_utc_offset_h(site["timezone"])
-    comp_id = begin_computation(engine, site_id, software_version=heliaudit.__version__,
-                                params={**p, "methods": list(METHODS), "warranty": terms,
-                                        "utc_standard_offset_h": offset_h})
+    with engine.begin() as conn:
+        comp_id = begin_computation(conn, site_id, "degradation",
+                                    {**p, "methods": list(METHODS), "warranty": terms,
+                                     "utc_standard_offset_h": offset_h},
+                                    software_version=heliaudit.__version__)
     total = len(invs) + 1
     if progress:
         progress(0, total)
@@ -563,8 +559,6 @@ def results_document(engine, site_id: str) -> dict:
     from db.degradation import degradation_results, last_computation
 
     site = site_row(engine, site_id)
-    if site is None:
-        raise SiteNotFoundError(f"no site {site_id!r} in the database")
     deg = degradation_results(engine, site_id)
     daily = daily_table(engine, site_id)
     flags, have_flags = _flags(engine, site_id)
@@ -631,8 +625,7 @@ def results_table(engine, site_id: str, table: str) -> pd.DataFrame:
 
     if table not in CSV_TABLES:
         raise ValueError(f"unknown table {table!r}; choose one of {', '.join(CSV_TABLES)}")
-    if site_row(engine, site_id) is None:
-        raise SiteNotFoundError(f"no site {site_id!r} in the database")
+    site_row(engine, site_id)  # raises SiteNotFoundError
     if table == "degradation":
         out = degradation_results(engine, site_id)
         if out.empty:

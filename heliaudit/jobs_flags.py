@@ -19,9 +19,7 @@ Solar position and clear-sky POA are computed once for the site's timestamp grid
 
 from __future__ import annotations
 
-import datetime as dt
 import itertools
-import json
 import tomllib
 from collections.abc import Callable
 
@@ -41,8 +39,10 @@ from analytics.temperature import (
     cell_temperature_sandia,
 )
 from db import schema
+from db.computations import begin_computation, finish_computation
 from db.daily import daily_table
 from db.flags import write_flags
+from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 from db.timeseries import inverter_frames, read_channel, site_channels
 
 Progress = Callable[[int, int], None]  # progress(done, total), in devices
@@ -68,14 +68,6 @@ PARAMS = {
     "power_model": "PVWatts V5 (Dobos 2014) via analytics.power.expected_ac_power",
     "clear_sky": "pvlib Ineichen, isotropic transposition, interval midpoints",
 }
-
-
-class SiteNotFoundError(LookupError):
-    pass
-
-
-def _now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
 
 
 # ---------------------------------------------------------------- solar geometry
@@ -440,16 +432,6 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
 # ---------------------------------------------------------------- the job
 
 
-def _site_row(conn: sa.Connection, site_id: str) -> dict:
-    row = conn.execute(sa.select(schema.site).where(schema.site.c.site_id == site_id)
-                       ).mappings().first()
-    if row is None:
-        known = conn.execute(sa.select(schema.site.c.site_id)).scalars().all()
-        raise SiteNotFoundError(f"no site {site_id!r} in the database; known: "
-                                f"{', '.join(known) or '(none)'}")
-    return dict(row)
-
-
 def _sensor_rows(conn: sa.Connection, site_id: str) -> list[tuple[str, str]]:
     d, s = schema.device, schema.sensor
     q = (sa.select(d.c.device_id, s.c.quantity).join(s, s.c.device_pk == d.c.device_pk)
@@ -473,7 +455,7 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
     after the daily job. Raises :class:`SiteNotFoundError` for an unknown site.
     """
     with engine.connect() as conn:
-        site = _site_row(conn, site_id)
+        site = site_row(conn, site_id)
         inverters = _inverter_rows(conn, site_id)
         sensor_rows = _sensor_rows(conn, site_id)
         channels = site_channels(conn, site_id)
@@ -487,10 +469,8 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
                  "currency": str(econ.get("currency", "EUR"))}
     params = {**PARAMS, "economics": economics, "timezone": site["timezone"]}
     with engine.begin() as conn:
-        comp_id = conn.execute(schema.computation.insert().values(
-            site_id=site_id, kind="flags", software_version=heliaudit.__version__,
-            params_json=json.dumps(params, sort_keys=True, default=str), started_utc=_now(),
-            scope="full")).inserted_primary_key[0]
+        comp_id = begin_computation(conn, site_id, "flags", params,
+                                    software_version=heliaudit.__version__)
     daily = daily_table(engine, site_id)
     sensors = []
     with engine.connect() as conn:
@@ -506,6 +486,5 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
                           progress=progress)
     n = write_flags(engine, site_id, flags, comp_id)
     with engine.begin() as conn:
-        conn.execute(schema.computation.update().where(
-            schema.computation.c.computation_id == comp_id).values(finished_utc=_now()))
+        finish_computation(conn, comp_id)
     return n

@@ -1,0 +1,31 @@
+"""The ``computation`` rows: one per run of a job (daily table, flags, degradation), with the
+software version, the parameters used and the scope, so every stored result can be traced to
+how it was computed."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import sqlalchemy as sa
+
+from db import schema
+from db.jsontext import to_json
+
+
+def now_utc() -> str:
+    """The current UTC time as ISO 8601 text to the second (the store's timestamp format)."""
+    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+
+
+def begin_computation(conn: sa.Connection, site_id: str, kind: str, params: dict, *,
+                      software_version: str, scope: str = "full") -> int:
+    """Insert an unfinished ``computation`` row in ``conn``'s transaction; return its id."""
+    return conn.execute(schema.computation.insert().values(
+        site_id=site_id, kind=kind, software_version=software_version,
+        params_json=to_json(params), started_utc=now_utc(), scope=scope)).inserted_primary_key[0]
+
+
+def finish_computation(conn: sa.Connection, computation_id: int) -> None:
+    """Mark a computation finished (in the transaction that stores its results)."""
+    conn.execute(schema.computation.update().where(
+        schema.computation.c.computation_id == computation_id).values(finished_utc=now_utc()))
