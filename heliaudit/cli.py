@@ -19,6 +19,7 @@ COMMAND_MODULES = (
     "heliaudit.cmd_compute",  # compute
     "heliaudit.cmd_check",  # check
     "heliaudit.cmd_results",  # results
+    "heliaudit.cmd_evidence",  # evidence
     "heliaudit.cmd_dashboard",  # dashboard
     "heliaudit.cmd_run_demo",  # demo
 )
