@@ -98,6 +98,7 @@ class Pack:
     period: tuple[str | None, str | None]
     summary: list[dict] = field(default_factory=list)
     computations: dict | None = None
+    results_sha256: str = ""
     created_utc: str = ""
     command: str = ""
 
@@ -598,6 +599,7 @@ def build_pack(engine: sa.Engine, site_id: str, out_dir: str | Path, *, inverter
     if force:
         _clear_pack(out_dir)
     write_data(pack, out_dir / "data")
+    pack.results_sha256 = sha256_file(out_dir / "data" / "results.json")
     evidence_pdf.write_report(pack, out_dir / "report.pdf")
     return write_manifest(pack, out_dir, db_url)
 

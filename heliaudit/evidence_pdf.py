@@ -44,6 +44,7 @@ _FONT_DIR = Path(matplotlib.get_data_path()) / "fonts" / "ttf"
 if FONT not in pdfmetrics.getRegisteredFontNames():
     pdfmetrics.registerFont(TTFont(FONT, str(_FONT_DIR / "DejaVuSans.ttf")))
     pdfmetrics.registerFont(TTFont(FONT_BOLD, str(_FONT_DIR / "DejaVuSans-Bold.ttf")))
+    pdfmetrics.registerFont(TTFont("DejaVuSansMono", str(_FONT_DIR / "DejaVuSansMono.ttf")))
     pdfmetrics.registerFontFamily(FONT, normal=FONT, bold=FONT_BOLD, italic=FONT,
                                   boldItalic=FONT_BOLD)
 
@@ -677,13 +678,57 @@ def _references_section(pack, st) -> list:
     return out
 
 
-def _footer(canvas, doc, text: str) -> None:
-    canvas.saveState()
-    canvas.setFont(FONT, 7)
-    canvas.setFillColor(colors.HexColor("#666666"))
-    canvas.drawString(2 * cm, 1.2 * cm, text)
-    canvas.drawRightString(A4[0] - 2 * cm, 1.2 * cm, f"page {doc.page}")
-    canvas.restoreState()
+def _sources_appendix(pack, st) -> list:
+    src = pack.sources
+    out = [PageBreak(), Paragraph("Appendix A. Source export files", st["h2"]),
+           Paragraph(f"{len(src)} file(s) whose readings are in the store for the period, as "
+                     "recorded by the ingest log when each file was loaded: name, rows loaded, "
+                     "span of readings (UTC) and SHA-256 of the file's bytes. Anyone holding the "
+                     "original exports can check them with any SHA-256 tool (e.g. sha256sum).",
+                     st["small"])]
+    rows = [["File", "Rows loaded", "First reading (UTC)", "Last reading (UTC)", "SHA-256"]]
+    mono = ParagraphStyle("mono", fontName="DejaVuSansMono", fontSize=5.4, leading=7)
+
+    def t(x) -> str:
+        return str(x or "").replace("T", " ")[:16]
+    for _, r in src.iterrows():
+        rows.append([str(r["file_name"]), str(r["rows_loaded"]), t(r["ts_first_utc"]),
+                     t(r["ts_last_utc"]), Paragraph(str(r["sha256"]), mono)])
+    out.append(_table(rows, [3.2 * cm, 1.3 * cm, 2.45 * cm, 2.45 * cm, 7.6 * cm], st=st))
+    if pack.results_sha256:
+        out.append(Paragraph(f"This report was written from data/results.json with SHA-256 "
+                             f"{pack.results_sha256}.", st["small"]))
+    return out
+
+
+def _numbered_canvas(footer: str):
+    """A canvas class that prints the footer and "page n of N" on every page (N is known
+    only after the last page, so pages are kept and drawn at the end)."""
+    from reportlab.pdfgen.canvas import Canvas
+
+    class NumberedCanvas(Canvas):
+        def __init__(self, *args, **kwargs):
+            super().__init__(*args, **kwargs)
+            self._pages: list[dict] = []
+
+        def showPage(self):  # noqa: N802 - reportlab's name
+            self._pages.append(dict(self.__dict__))
+            self._startPage()
+
+        def save(self):
+            n = len(self._pages)
+            for state in self._pages:
+                self.__dict__.update(state)
+                self.saveState()
+                self.setFont(FONT, 7)
+                self.setFillColor(colors.HexColor("#666666"))
+                self.drawString(2 * cm, 1.2 * cm, footer)
+                self.drawRightString(A4[0] - 2 * cm, 1.2 * cm, f"page {self._pageNumber} of {n}")
+                self.restoreState()
+                super().showPage()
+            super().save()
+
+    return NumberedCanvas
 
 
 def write_report(pack, path: os.PathLike) -> None:
@@ -693,7 +738,8 @@ def write_report(pack, path: os.PathLike) -> None:
              *_system_section(pack, st), *_data_section(pack, st), PageBreak(),
              *_methods_section(pack, st), *_results_section(pack, st),
              *_shifts_section(pack, st), *_warranty_section(pack, st),
-             *_limitations_section(pack, st), *_references_section(pack, st)]
+             *_limitations_section(pack, st), *_references_section(pack, st),
+             *_sources_appendix(pack, st)]
     foot = (f"heliaudit evidence pack · {pack.site['site_id']} · {pack.period[0]} to "
             f"{pack.period[1]} · screening evidence, the contract governs")
     doc = SimpleDocTemplate(str(path), pagesize=A4, leftMargin=2 * cm, rightMargin=2 * cm,
@@ -701,5 +747,4 @@ def write_report(pack, path: os.PathLike) -> None:
                             title=f"Degradation and warranty evidence: {pack.site['name']}",
                             author="heliaudit", subject="PV degradation and warranty evidence",
                             creator="heliaudit (reportlab)")
-    doc.build(story, onFirstPage=lambda c, d: _footer(c, d, foot),
-              onLaterPages=lambda c, d: _footer(c, d, foot))
+    doc.build(story, canvasmaker=_numbered_canvas(foot))

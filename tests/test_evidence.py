@@ -161,6 +161,8 @@ def test_manifest_hashes_match_files_and_ingest_log(store, pack):
         assert loaded.loc[s["batch_id"], "sha256"] == s["sha256"]
         real = hashlib.sha256((store["exports"] / s["file_name"]).read_bytes()).hexdigest()
         assert real == s["sha256"], s["file_name"]
+    text = _text(d / "report.pdf")  # appendix A prints every source file's hash
+    assert all(s["sha256"] in text for s in man["sources"])
     assert man["software"]["version"]
     assert man["command"].startswith("heliaudit --db ") and "evidence --site evi" in man["command"]
     assert man["parameters"]["confidence"] == 0.95
