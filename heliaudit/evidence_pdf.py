@@ -103,6 +103,9 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
         "a lasting step (a failed string, a repair) are dropped, so a one-off failure is not "
         "counted as gradual degradation."),
 }
+#: Methods whose number is not an absolute module-plus-system rate: shown, not compared.
+NOT_ABSOLUTE = {"peer_ratio_year_pairs": "relative to peers",
+                "sensor_drift_check": "sensor drift, not a module rate"}
 DAILY_TEXT = (
     "Daily figures per inverter follow IEC 61724-1: the performance ratio PR = Σ E_AC / "
     "(P0 Σ G τ / 1 kW/m²) over the day's intervals and its temperature-corrected form. The "
@@ -288,6 +291,25 @@ def _summary_section(pack, st) -> list:
     out.append(_table(rows, [2.6 * cm, 2.2 * cm, 3.5 * cm, 3.4 * cm, 1.5 * cm, 2.2 * cm,
                              1.6 * cm], st=st))
     out.append(Spacer(1, 4))
+    notes = []
+    for s in pack.summary:
+        drops = [c for c in s["change_points"] if c.get("kind") == "drop"]
+        if drops:
+            notes.append(f"{_label(s['device_id'])}: level drop on "
+                         + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
+                         + ": a failure, not degradation; see sections 5 and 6.")
+        if s["agree"] is False:
+            notes.append(f"{_label(s['device_id'])}: methods disagree ("
+                         f"{_pairs(s['disagreements'])}); read section 5 before using the rate.")
+        for c in s["caveats"]:
+            notes.append(f"{_label(s['device_id'])}: "
+                         + (c.get("text", "") if isinstance(c, dict) else str(c)))
+    if any(s["fallback"] for s in pack.summary):
+        notes.append("This heliaudit version stored no recommended rate; the year-on-year rate "
+                     "of the sensor-based index (sensor_year_pairs) is shown as the main rate.")
+    if notes:
+        out.append(Paragraph("Notes", st["h3"]))
+        out += [Paragraph("• " + _esc(n), st["small"]) for n in notes]
     if short:
         names = ", ".join(_label(s["device_id"]) for s in short)
         reasons = "; ".join(sorted({str(s["not_computed"]) for s in short if s["not_computed"]}))
@@ -487,22 +509,25 @@ def _results_section(pack, st) -> list:
                  "Not computed because"]]
         for _, m in r.iterrows():
             ov = m["overlaps_recommended"]
-            ovs = ("(recommended)" if m["recommended"] else "n/a" if ov is None or pd.isna(ov)
-                   else "yes" if ov else "no")
+            ovs = ("(recommended)" if m["recommended"] else
+                   NOT_ABSOLUTE.get(m["method"]) or
+                   ("n/a" if ov is None or pd.isna(ov) else "yes" if ov else "no"))
             rows.append([m["method"], fmt_rate(m["rate_pct_per_yr"]),
                          fmt_interval(m["ci_low"], m["ci_high"]),
                          "" if m["n_points"] is None or pd.isna(m["n_points"])
                          else str(int(m["n_points"])), ovs,
                          "" if m["reason_not_computed"] is None or pd.isna(m["reason_not_computed"])
                          else str(m["reason_not_computed"])])
-        blk.append(_table(rows, [4.4 * cm, 1.6 * cm, 2.8 * cm, 1.3 * cm, 2.0 * cm, 4.9 * cm],
+        blk.append(_table(rows, [5.0 * cm, 1.5 * cm, 2.7 * cm, 1.2 * cm, 2.4 * cm, 4.2 * cm],
                           st=st))
         if s["agree"] is not None:
             blk.append(Paragraph(
-                ("Methods agree: " if s["agree"] else "Methods disagree: ")
-                + _esc(", ".join(s["compared"]))
-                + (f"; disagreeing: {_esc(', '.join(map(str, s['disagreements'])))}"
+                ("Methods agree (their intervals overlap): " if s["agree"] else
+                 "Methods disagree: ") + _esc(", ".join(s["compared"]))
+                + (f"; intervals that do not overlap: {_esc(_pairs(s['disagreements']))}"
                    if s["disagreements"] else "") + ".", st["small"]))
+        for w in s["warnings"]:
+            blk.append(Paragraph("Warning: " + _esc(w), st["small"]))
         out.append(KeepTogether(blk))
     out.append(Spacer(1, 4))
     out.append(_image(charts.rates_chart(pack.rates)))
@@ -519,6 +544,13 @@ def _results_section(pack, st) -> list:
                          "through the median level; it shows the slope, not a fit.",
                          st["small"]))
     return out
+
+
+def _pairs(items) -> str:
+    out = []
+    for x in items:
+        out.append(" vs ".join(map(str, x)) if isinstance(x, list | tuple) else str(x))
+    return "; ".join(out)
 
 
 def _soiling_spans(flags: pd.DataFrame) -> pd.DataFrame:
@@ -625,10 +657,14 @@ def _warranty_section(pack, st) -> list:
         "<b>Energy shortfall.</b> For each month the measured de-seasonalised index, relative "
         "to the warranty start, is compared with the warranted minimum; where it is below, the "
         "shortfall is the month's measured AC energy times (warranted / measured − 1), summed "
-        "over the months. <b>It includes</b> every cause that lowers the system's index "
+        "over the months. A shortfall in some months can occur while the rate test shows no "
+        "exceedance (a step, a soiling season or noise pushes single months below the line): "
+        "the test asks whether the loss rate exceeds the warranty, the shortfall how much "
+        "energy the months below the line lacked. <b>It includes</b> every cause that lowers the system's index "
         "(module degradation, but also inverter, wiring, soiling and shading losses and "
-        "irradiance-sensor drift). <b>It excludes</b> outage days and intervals outside the "
-        "checks (they do not enter the index), initial light-induced loss before the first "
+        "irradiance-sensor drift). <b>It excludes</b> energy lost while the plant was "
+        "unavailable (outage intervals do not enter the index, and the shortfall scales the "
+        "energy actually produced), initial light-induced loss before the first "
         "analysed months (the measured index has no absolute baseline and is taken as 100 % at "
         "the warranty start, which understates a shortfall), and any loss before the period "
         "analysed. It is not a claim amount.", st["body"]))
