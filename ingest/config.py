@@ -24,6 +24,8 @@ FORMAT_VERSION = 1
 QUANTITY_UNITS: dict[str, tuple[str, ...]] = {
     "p_ac_kw": ("kW", "W", "MW"),
     "p_dc_kw": ("kW", "W", "MW"),
+    "i_dc_a": ("A", "mA"),  # DC current of an inverter input (with v_dc_v: DC power = I V)
+    "v_dc_v": ("V", "kV"),  # DC voltage of an inverter input
     "e_ac_kwh": ("kWh", "Wh", "MWh"),  # energy of the interval
     "e_ac_total_kwh": ("kWh", "Wh", "MWh"),  # cumulative counter, turned into e_ac_kwh
     "poa_wm2": ("W/m2", "kW/m2"),
@@ -33,7 +35,15 @@ QUANTITY_UNITS: dict[str, tuple[str, ...]] = {
     "wind_ms": ("m/s", "km/h"),
     "rain_mm": ("mm",),
 }
-INVERTER_QUANTITIES = ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh")
+INVERTER_QUANTITIES = ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh", "i_dc_a", "v_dc_v")
+#: Quantities an inverter input (MPPT / string group, ``input = "<id>"``) may carry.
+INPUT_QUANTITIES = ("p_dc_kw", "i_dc_a", "v_dc_v")
+#: How a column's value relates to its timestamp: "mean" over the interval (the default) or
+#: "instant", a sample taken at the timestamp (see README "Ingest rules").
+SAMPLINGS = ("mean", "instant")
+#: Quantities that may be declared instantaneous samples (not energies: an energy is a sum).
+SAMPLED_QUANTITIES = ("p_ac_kw", "p_dc_kw", "i_dc_a", "v_dc_v", "poa_wm2", "ghi_wm2",
+                      "t_module_c", "t_amb_c", "wind_ms")
 SENSOR_QUANTITIES = ("poa_wm2", "ghi_wm2", "t_module_c", "t_amb_c", "wind_ms", "rain_mm")
 INSTRUMENTS = ("thermopile_pyranometer", "reference_cell")
 #: Sandia (King et al. 2004) mounting types; keys of pvlib TEMPERATURE_MODEL_PARAMETERS['sapm'].
@@ -52,6 +62,7 @@ _UNIT_ALIASES = {
     "°c": "C", "degc": "C", "c": "C", "°f": "F", "degf": "F", "f": "F", "k": "K",
     "w": "W", "kw": "kW", "mw": "MW", "wh": "Wh", "kwh": "kWh", "mwh": "MWh",
     "m/s": "m/s", "km/h": "km/h", "mm": "mm",
+    "a": "A", "ma": "mA", "v": "V", "kv": "kV",
 }
 
 
@@ -102,6 +113,8 @@ class ColumnMap:
     device: str
     quantity: str
     unit: str
+    sampling: str = "mean"  # "mean" over the interval, or "instant" (a sample at the timestamp)
+    input: str = ""  # an inverter input (MPPT / string group) id; "" = the whole inverter
 
 
 @dataclass(frozen=True)
@@ -125,6 +138,15 @@ class ClockCorrection:
     end: dt.datetime
     shift_minutes: int
     note: str = ""
+    devices: tuple[str, ...] = ()  # only these devices' columns (empty: every column)
+    columns: tuple[str, ...] = ()  # only these column headers (wide layout)
+
+    @property
+    def everywhere(self) -> bool:
+        return not self.devices and not self.columns
+
+    def applies_to(self, device: str, header: str) -> bool:
+        return self.everywhere or device in self.devices or header in self.columns
 
 
 @dataclass(frozen=True)
@@ -210,6 +232,14 @@ class SiteConfig:
 
 
 # ---------------------------------------------------------------- loading
+
+
+def _input_ids(inv: Inverter) -> set[str] | None:
+    """The input (array) ids an inverter declares, or None when it declares none (then any
+    input id a column names is accepted)."""
+    arrays = getattr(inv, "arrays", None) or ()
+    ids = {a.id for a in arrays if getattr(a, "id", None)}
+    return ids or None
 
 
 def load_site_config(path: str | Path) -> SiteConfig:
@@ -494,8 +524,22 @@ class _Validator:
                     end = end + dt.timedelta(days=1, seconds=-1)  # a date means the whole day
                 if start and end and end < start:
                     self.bad(ckey, "end is before start")
+                devs = self._str_list(c, "devices", ckey)
+                for d in devs:
+                    if d not in device_ids:
+                        self.bad(f"{ckey}.devices", f"no inverter or sensor with id {d!r}")
+                cols = self._str_list(c, "columns", ckey)
+                headers = {cm.header for cm in columns}
+                for h in cols:
+                    if layout == "wide" and h not in headers:
+                        self.bad(f"{ckey}.columns", f"no column with header {h!r} in this "
+                                 "source's [[sources.columns]]")
+                if cols and layout == "long":
+                    self.bad(f"{ckey}.columns", "a long-layout source has no per-device columns: "
+                             "name the devices with `devices = [...]`")
                 if start and end and shift is not None:
-                    corrections.append(ClockCorrection(start, end, shift, self.get(c, "note", ckey, str, "")))
+                    corrections.append(ClockCorrection(start, end, shift, self.get(c, "note", ckey, str, ""),
+                                                       devices=tuple(devs), columns=tuple(cols)))
             out.append(Source(
                 name=self.get(s, "name", key, str, f"source{n}"),
                 pattern=self.get(s, "pattern", key, str, "*.csv*"),
@@ -510,20 +554,45 @@ class _Validator:
             ))
         return out
 
+    def _str_list(self, table: dict, name: str, key: str) -> list[str]:
+        val = self.get(table, name, key, list, [])
+        if not all(isinstance(x, str) for x in val):
+            self.bad(f"{key}.{name}", f"expected a list of strings, got {val!r}")
+            return []
+        return list(val)
+
     def _columns(self, c: dict, key: str, sensors: list[Sensor], inverters: list[Inverter],
                  device_ids: set[str]) -> list[ColumnMap]:
         """One ``[[sources.columns]]`` entry; ``{inverter}`` / ``{sensor}`` in header expands."""
         header = self.get(c, "header", key, str)
         q = self.choice(c, "quantity", key, tuple(QUANTITY_UNITS))
         unit = normalise_unit(self.get(c, "unit", key, str, QUANTITY_UNITS.get(q, ("",))[0] if q else ""))
+        sampling = self.choice(c, "sampling", key, SAMPLINGS, "mean") or "mean"
+        inp = self.get(c, "input", key, str, "") or ""
         if header is None or q is None:
             return []
         if q in QUANTITY_UNITS and unit not in QUANTITY_UNITS[q]:
             self.bad(f"{key}.unit", f"unit {unit!r} is not one of {', '.join(QUANTITY_UNITS[q])} for {q}")
+        if sampling == "instant" and q not in SAMPLED_QUANTITIES:
+            self.bad(f"{key}.sampling", f"{q} cannot be an instantaneous sample (only "
+                     f"{', '.join(SAMPLED_QUANTITIES)}): an energy or counter is a sum")
+        if inp:
+            if q not in INPUT_QUANTITIES:
+                self.bad(f"{key}.input", f"an inverter input carries {', '.join(INPUT_QUANTITIES)}; "
+                         f"got {q}")
+            if not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", inp):
+                self.bad(f"{key}.input", "use letters, digits, '-', '_' or '.', at most 64 characters")
+        elif q in ("i_dc_a", "v_dc_v"):
+            self.bad(f"{key}.input", f"{q} is loaded per inverter input: name it with "
+                     "input = \"<input id>\"")
         if "{inverter}" in header:
-            return [ColumnMap(header.replace("{inverter}", i.id), i.id, q, unit) for i in inverters]
+            if inp:
+                self.bad(f"{key}.input", "an input column names its device: use device = ... "
+                         "rather than {inverter} in the header")
+            return [ColumnMap(header.replace("{inverter}", i.id), i.id, q, unit, sampling)
+                    for i in inverters]
         if "{sensor}" in header:
-            return [ColumnMap(header.replace("{sensor}", s.id), s.id, q, unit)
+            return [ColumnMap(header.replace("{sensor}", s.id), s.id, q, unit, sampling)
                     for s in sensors if s.quantity == q]
         dev = self.get(c, "device", key, str)
         if dev is None:
@@ -538,4 +607,11 @@ class _Validator:
             sq = next(s.quantity for s in sensors if s.id == dev)
             if q != sq:
                 self.bad(f"{key}.quantity", f"sensor {dev!r} is configured as {sq}, column says {q}")
-        return [ColumnMap(header, dev, q, unit)]
+            if inp:
+                self.bad(f"{key}.input", f"{dev!r} is a sensor; inputs belong to inverters")
+        elif inp:
+            known = _input_ids(next(i for i in inverters if i.id == dev))
+            if known is not None and inp not in known:
+                self.bad(f"{key}.input", f"inverter {dev!r} has no input {inp!r}; its arrays "
+                         f"are {', '.join(sorted(known)) or '(none)'}")
+        return [ColumnMap(header, dev, q, unit, sampling, inp)]
