@@ -69,7 +69,12 @@ def interval_h_from_ts(ts_s: np.ndarray) -> np.ndarray:
     nxt = np.concatenate((d, [np.inf]))
     out = np.minimum(prev, nxt)
     med = float(np.median(d))
-    out = np.where(out > 2 * med, med, out)
+    # a sample inside a regular run keeps the run's spacing (a 15-min stretch of a channel
+    # that logs every 5 min later); only an isolated one falls back to the median
+    prev2 = np.concatenate(([np.nan, np.nan], d[:-1])) if d.size > 1 else np.full(ts.size, np.nan)
+    nxt2 = np.concatenate((d[1:], [np.nan, np.nan])) if d.size > 1 else np.full(ts.size, np.nan)
+    regular = (prev == nxt) | ((out == prev) & (prev == prev2)) | ((out == nxt) & (nxt == nxt2))
+    out = np.where((out > 2 * med) & ~regular, med, out)
     return out / 3600.0
 
 

@@ -46,8 +46,8 @@ def counter_resolution(steps_kwh: np.ndarray, *, min_steps: int = MIN_STEPS,
                        share: float = 0.95, tol: float = 0.02) -> float | None:
     """Measured resolution [kWh] of a counter from its steps between consecutive readings.
 
-    The smallest positive step ``u``, when at least ``share`` of the positive steps are whole
-    multiples of it (within ``tol`` of a multiple); None when there are fewer than
+    The largest ``u`` = smallest positive step / n (n = 1 … 10) of which at least ``share``
+    of the positive steps are whole multiples (within ``tol`` of a multiple); None when there are fewer than
     ``min_steps`` positive steps or the steps are not quantised (a fine counter).
 
     >>> counter_resolution(np.array([0, 1, 0, 0, 1, 2, 1] * 5, dtype=float))
@@ -59,11 +59,13 @@ def counter_resolution(steps_kwh: np.ndarray, *, min_steps: int = MIN_STEPS,
     d = d[np.isfinite(d) & (d > 1e-9)]
     if d.size < min_steps:
         return None
-    u = float(d.min())
-    k = d / u
-    if np.mean(np.abs(k - np.round(k)) <= tol) < share:
-        return None
-    return u
+    smallest = float(d.min())
+    for n in range(1, 11):  # the step may be a whole multiple of the resolution (0.002 of 0.001)
+        u = smallest / n
+        k = d / u
+        if np.mean(np.abs(k - np.round(k)) <= tol) >= share:
+            return float(np.round(u, 12))
+    return None
 
 
 def is_coarse(resolution_kwh: float | None, p_ac_max_kw: float, interval_s: float) -> bool:
