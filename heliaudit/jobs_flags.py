@@ -32,7 +32,7 @@ import pvlib
 import sqlalchemy as sa
 
 import heliaudit
-from analytics import clock, outages, outliers, sensor_qa, soiling
+from analytics import clock, energy_check, outages, outliers, sensor_qa, soiling
 from analytics.daily import standard_utc_offset_h
 from analytics.outliers import FLAG_COLUMNS, epoch_s, flag_frame
 from analytics.power import expected_ac_power
@@ -54,6 +54,7 @@ from db.timeseries import (
     read_channel,
     site_channels,
 )
+from ingest.counters import counter_resolution
 
 Progress = Callable[[int, int], None]  # progress(done, total), in devices
 
@@ -73,6 +74,8 @@ PARAMS = {
                "dropout_min_h": 1.0, "night_wm2": 5.0, "night_elevation_deg": -3.0,
                "drift_threshold_pct_per_yr": 1.0, "daytime_elevation_deg": 10.0},
     "clock": {"threshold_min": 10.0, "n_clear": 7, "clear_day_max_vi": 1.3},
+    "counter_mismatch": {"period": "local month", "rel_tol": energy_check.REL_TOL,
+                         "resolution_units": energy_check.RESOLUTION_UNITS},
     "temperature": "cell from back-of-module (King et al. 2004 Eq. 12), from ambient "
                    "(Eq. 11-12) where the module sensor is missing",
     "power_model": "PVWatts V5 (Dobos 2014) via analytics.power.expected_ac_power",
@@ -349,9 +352,27 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
     return pd.concat(out, ignore_index=True)
 
 
+def counter_flags(inv: dict, frame: pd.DataFrame, counter, *, std_offset_s: int) -> pd.DataFrame:
+    """Monthly cross-check of an inverter's energy counter against its integrated AC power
+    (:mod:`analytics.energy_check`); ``counter`` is ``(ts_s, reading_kwh, interval_s)``."""
+    ts, v, iv = counter
+    if frame.empty or not len(ts) or not frame["p_ac_kw"].notna().any():
+        return flag_frame([])
+    res = counter_resolution(np.diff(v)) or 0.0
+    c_day = energy_check.counter_daily_energy(np.asarray(ts) + np.asarray(iv).astype(np.int64),
+                                              v, std_offset_s=std_offset_s)
+    p_day = energy_check.power_daily_energy(epoch_s(frame.index), frame["p_ac_kw"].to_numpy(float),
+                                            frame["interval_h"].to_numpy(float),
+                                            std_offset_s=std_offset_s)
+    check = energy_check.monthly_crosscheck(c_day, p_day, resolution_kwh=res)
+    return energy_check.counter_mismatch_flags(check, device_id=inv["device_id"],
+                                               std_offset_s=std_offset_s, resolution_kwh=res)
+
+
 def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: pd.DataFrame, *,
                   economics: dict | None = None, sources: dict | None = None,
-                  progress: Progress | None = None, n_runs: int = 1000) -> pd.DataFrame:
+                  progress: Progress | None = None, n_runs: int = 1000,
+                  counters: dict | None = None) -> pd.DataFrame:
     """Every flag of a site from data in memory.
 
     Parameters
@@ -369,6 +390,9 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         reading's interval [s] as recorded at ingest (else inferred from the spacing).
     daily : DataFrame
         The daily table (:func:`db.daily.daily_table`).
+    counters : dict, optional
+        ``{inverter id: (ts_s, counter_kwh, interval_s)}``: energy-counter readings, checked
+        month by month against integrated AC power (:func:`counter_flags`).
 
     Returns
     -------
@@ -456,6 +480,9 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
             parts += inverter_flags(inv, frame, gs, std_offset_s=off_s, site_zone=zone,
                                     source=sources.get(inv["device_id"]), cache=cs_cache)
             parts.append(power_dropout_flags(inv, frame, gs))
+            if counters and inv["device_id"] in counters:
+                parts.append(counter_flags(inv, frame, counters[inv["device_id"]],
+                                           std_offset_s=off_s))
         done += 1
         if progress:
             progress(done, n_total)
@@ -525,9 +552,17 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
                 iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
             idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
             sensors.append((sid, q, pd.Series(v, index=idx, name=q), iv))
+    counters = {}
+    with engine.connect() as conn:
+        for dev in inverters["device_id"]:
+            ch = channels.get((dev, "e_ac_total_kwh"))
+            if ch is not None:
+                ts, v, iv = read_channel(conn, ch, with_interval=True)
+                if ts.size:
+                    counters[dev] = (ts, v, fill_unknown_intervals(ts, iv))
     flags = compute_flags(site, inverters, inverter_frames(engine, site_id), sensors, daily,
                           economics=economics, sources=_sources_by_device(cfg),
-                          progress=progress)
+                          progress=progress, counters=counters)
     n = write_flags(engine, site_id, flags, comp_id)
     with engine.begin() as conn:
         finish_computation(conn, comp_id)

@@ -447,3 +447,43 @@ def test_v2_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
         cols = {c["name"] for c in sa.inspect(conn).get_columns("channel")}
     assert {"sampling", "input_id"} <= cols
     eng.dispose()
+
+
+# ---------------------------------------------------------------- counter cross-check
+
+def test_monthly_crosscheck_tolerance():
+    """Two resolution units + 3 % (class-1 meter, IEC 62053-21 ±1 %, plus the power
+    transducer; common practice): 100 kWh of counter energy allows 2 x 1 + 3 = 5 kWh."""
+    from analytics.energy_check import monthly_crosscheck
+
+    days = np.arange(19358, 19368)  # ten days of June 2023 (days since the epoch)
+    counter = pd.Series(10.0, index=days)
+    ok = monthly_crosscheck(counter, pd.Series(10.45, index=days), resolution_kwh=1.0)
+    bad = monthly_crosscheck(counter, pd.Series(10.55, index=days), resolution_kwh=1.0)
+    assert ok["tolerance_kwh"].iloc[0] == pytest.approx(5.0)
+    assert not ok["mismatch"].iloc[0] and bad["mismatch"].iloc[0]
+    assert bad["diff_kwh"].iloc[0] == pytest.approx(5.5)
+
+
+@pytest.mark.parametrize("scale, flagged", [(1.0, False), (0.8, True)])
+def test_counter_mismatch_flag_from_stored_data(engine, tmp_path, scale, flagged):
+    """A coarse counter agrees with integrated power within its tolerance: no flag. Power
+    scaled by 0.8 (a wrong unit or transducer ratio): the month is flagged."""
+    cfg = _site(tmp_path, COUNTER_SOURCE, inverters=(("INV1", 3.0, 2.8),))
+    f, _truth = _write_counter_days(tmp_path)
+    if scale != 1.0:
+        df = pd.read_csv(f)
+        df["PAC"] = (df["PAC"] * scale).round(4)
+        df.to_csv(f, index=False)
+    ingest_paths(engine, cfg, [f])
+    jobs_daily.recompute_all(engine, "real")
+    jobs_flags.run_flags(engine, "real")
+    with engine.connect() as conn:
+        fl = pd.read_sql(sa.select(schema.flag).where(schema.flag.c.kind == "counter_mismatch"),
+                         conn)
+    assert (len(fl) == 1) is flagged and (len(fl) == 0) is not flagged
+    if flagged:
+        import json
+
+        det = json.loads(fl["details_json"].iloc[0])
+        assert det["counter_resolution_kwh"] == 1.0 and det["diff_pct"] == pytest.approx(-20, abs=3)
