@@ -34,27 +34,49 @@ def _v2_daily_e_ac_pr(conn: sa.Connection) -> None:
 
 STEPS[2] = _v2_daily_e_ac_pr
 
+#: Degradation method codes of results schema 1 and their names since schema 2 (#10).
+METHOD_RENAMES_V3 = {
+    "yoy": "sensor_year_pairs",
+    "rlm": "sensor_monthly_robust_line",
+    "stl": "sensor_monthly_trend_line",
+    "peer_relative": "peer_ratio_year_pairs",
+    "clearsky_yoy": "modelled_sky_year_pairs",
+    "sensor_vs_clearsky": "sensor_drift_check",
+    "yoy_stable_segments": "sensor_year_pairs_between_shifts",
+    "summary": "overview",
+}
 
-def _v3_reading_interval(conn: sa.Connection) -> None:
+
+def _v3_method_names(conn: sa.Connection) -> None:
+    """degradation_result.method: our own plain-word method names (#10)."""
+    table = schema.degradation_result
+    for old, new in METHOD_RENAMES_V3.items():
+        conn.execute(table.update().where(table.c.method == old).values(method=new))
+
+
+STEPS[3] = _v3_method_names
+
+
+def _v4_reading_interval(conn: sa.Connection) -> None:
     """reading.interval_s (interval recorded at ingest), channel.sampling and channel.input_id (#11)."""
     insp = sa.inspect(conn)
     if "interval_s" not in {c["name"] for c in insp.get_columns("reading")}:
-        # readings loaded before v3 keep NULL: the reader infers their interval from spacing
+        # readings loaded before v4 keep NULL: the reader infers their interval from spacing
         conn.execute(sa.text("ALTER TABLE reading ADD COLUMN interval_s INTEGER"))
     cols = {c["name"] for c in insp.get_columns("channel")}
     if conn.dialect.name == "sqlite":
         # the unique key gains input_id: SQLite rebuilds the (small) table
         if "input_id" not in cols:
             conn.execute(sa.text(
-                "CREATE TABLE channel_v3 (channel_id INTEGER NOT NULL PRIMARY KEY, "
+                "CREATE TABLE channel_v4 (channel_id INTEGER NOT NULL PRIMARY KEY, "
                 "device_pk INTEGER NOT NULL REFERENCES device (device_pk), "
                 "quantity VARCHAR(32) NOT NULL, sampling VARCHAR(8) DEFAULT 'mean' NOT NULL, "
                 "input_id VARCHAR(64) DEFAULT '' NOT NULL, "
                 "CONSTRAINT uq_channel_device_quantity_input UNIQUE (device_pk, quantity, input_id))"))
-            conn.execute(sa.text("INSERT INTO channel_v3 (channel_id, device_pk, quantity) "
+            conn.execute(sa.text("INSERT INTO channel_v4 (channel_id, device_pk, quantity) "
                                  "SELECT channel_id, device_pk, quantity FROM channel"))
             conn.execute(sa.text("DROP TABLE channel"))
-            conn.execute(sa.text("ALTER TABLE channel_v3 RENAME TO channel"))
+            conn.execute(sa.text("ALTER TABLE channel_v4 RENAME TO channel"))
         return
     if "sampling" not in cols:
         conn.execute(sa.text("ALTER TABLE channel ADD COLUMN sampling VARCHAR(8) "
@@ -68,7 +90,7 @@ def _v3_reading_interval(conn: sa.Connection) -> None:
                              "UNIQUE (device_pk, quantity, input_id)"))
 
 
-STEPS[3] = _v3_reading_interval
+STEPS[4] = _v4_reading_interval
 
 
 def current_version(conn: sa.Connection) -> int | None:

@@ -9,7 +9,7 @@ Conventions:
 * ``start_s`` is inclusive, ``end_s`` exclusive (UTC epoch seconds of interval starts);
 * ``interval_h`` is each reading's own interval as recorded at ingest (``reading.interval_s``):
   a channel that changes from 15 to 5 minutes keeps 15-min intervals on its old rows. Only
-  readings stored before schema v3 (NULL interval) fall back to the spacing of their
+  readings stored before schema v4 (NULL interval) fall back to the spacing of their
   neighbours (:func:`interval_h_from_ts`);
 * an ``instant`` channel (samples at the timestamp, ``channel.sampling``) becomes interval
   means on its own sample grid first: the interval from one sample to the next gets the mean
@@ -87,7 +87,7 @@ def read_channel(conn: sa.Connection, channel_id: int, start_s: int | None = Non
     """``(ts_s int64, value float)`` arrays of one channel in ``[start_s, end_s)``, by key order.
 
     With ``with_interval`` a third array: each reading's interval [s] as recorded at ingest,
-    NaN for readings stored before schema v3 (:func:`fill_unknown_intervals`)."""
+    NaN for readings stored before schema v4 (:func:`fill_unknown_intervals`)."""
     ph = _paramstyle(conn)
     cols = "ts_s, value, COALESCE(interval_s, 0)" if with_interval else "ts_s, value"
     sql = f"SELECT {cols} FROM reading WHERE channel_id = {ph}"

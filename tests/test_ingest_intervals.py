@@ -417,8 +417,8 @@ def test_input_quantity_rules(tmp_path):
 
 # ---------------------------------------------------------------- migration
 
-def test_v2_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
-    """A store written before schema v3 (no reading.interval_s, no channel.input_id) is
+def test_v3_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
+    """A store written before schema v4 (no reading.interval_s, no channel.input_id) is
     brought forward; its readings (NULL interval) get the spacing of their neighbours."""
     from db.engine import make_engine
     from db.migrate import upgrade
@@ -428,7 +428,7 @@ def test_v2_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
     cfg = _site(tmp_path, MIXED_SOURCE)
     f, _hand = _write_mixed(tmp_path)
     ingest_paths(eng, cfg, [f])
-    with eng.begin() as conn:  # turn it into a v2 store
+    with eng.begin() as conn:  # turn it into a v3 store
         conn.execute(sa.text("ALTER TABLE reading DROP COLUMN interval_s"))
         conn.execute(sa.text("CREATE TABLE channel_old (channel_id INTEGER NOT NULL PRIMARY KEY, "
                              "device_pk INTEGER NOT NULL, quantity VARCHAR(32) NOT NULL, "
@@ -437,10 +437,10 @@ def test_v2_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
                              "FROM channel"))
         conn.execute(sa.text("DROP TABLE channel"))
         conn.execute(sa.text("ALTER TABLE channel_old RENAME TO channel"))
-        conn.execute(sa.text("UPDATE schema_version SET version = 2"))
+        conn.execute(sa.text("UPDATE schema_version SET version = 3"))
     eng.dispose()
     eng = sa.create_engine(f"sqlite:///{path}")
-    assert upgrade(eng) == 3
+    assert upgrade(eng) == 4
     fr = inverter_frame(eng, "real", "INV1")
     assert fr["interval_h"].iloc[0] == 0.25 and fr["interval_h"].iloc[-1] == pytest.approx(5 / 60)
     with eng.connect() as conn:
