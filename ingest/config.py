@@ -412,11 +412,11 @@ def closest(name: str, options) -> str | None:
 
 
 def _input_ids(inv: Inverter) -> set[str] | None:
-    """The input (array) ids an inverter declares, or None when it declares none (then any
-    input id a column names is accepted)."""
+    """The input (array) ids an inverter declares, or None when it declares fewer than two
+    (one array is the whole inverter: any input id a column names is then accepted)."""
     arrays = getattr(inv, "arrays", None) or ()
-    ids = {a.id for a in arrays if getattr(a, "id", None)}
-    return ids or None
+    ids = {str(a.id) for a in arrays if getattr(a, "id", None) is not None}
+    return ids if len(ids) > 1 else None
 
 
 def load_site_config(path: str | Path) -> SiteConfig:

@@ -134,6 +134,10 @@ def test_intervals_are_stored_per_reading(engine, tmp_path):
     assert set(iv[ts >= t0 + 12 * 3600].tolist()) == {300.0}
     fr = inverter_frame(engine, "real", "INV1")
     assert fr["interval_h"].iloc[0] == 0.25 and fr["interval_h"].iloc[-1] == pytest.approx(5 / 60)
+    # every interval of the day is present: complete, although the nominal interval is 5 min
+    from db.ingest_log import site_summary
+
+    assert site_summary(engine, "real")["completeness"].iloc[0] == pytest.approx(1.0)
 
 
 def test_mixed_interval_insolation_equals_hand_sum(engine, tmp_path):
