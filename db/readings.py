@@ -32,6 +32,9 @@ WRITE_SLICE = 100_000  # a multiple of ROWS_PER_STATEMENT
 #: executemany is ~2.5x faster than one row per statement (measured, tests/bench); 250 rows
 #: x 3 parameters stays far below SQLite's 32766 host-parameter limit.
 ROWS_PER_STATEMENT = 250
+#: Intervals of 2**20 s (12 days) or more are not logging intervals: stored as unknown (NULL).
+#: db.timeseries packs ts_s and interval_s into one integer below this bound.
+MAX_INTERVAL_S = 1 << 20
 
 
 def _sqlite_insert(batch_id: int, rows: int, upsert: bool, interval_s: int | None = None) -> str:
@@ -99,6 +102,7 @@ def write_readings(conn: sa.Connection, channel_id: np.ndarray, ts_s: np.ndarray
     iv = (np.full(n, -1, dtype=np.int64) if interval_s is None else
           np.where(np.isfinite(interval_s), np.asarray(interval_s, dtype=float), -1)
           .round().astype(np.int64))
+    iv[(iv <= 0) | (iv >= MAX_INTERVAL_S)] = -1  # unknown or implausible: stored as NULL
     if conn.dialect.name == "postgresql":
         _write_pg(conn, channel_id, ts_s, value, batch_id, upsert, iv)
         return n
