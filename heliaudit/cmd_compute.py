@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import importlib
 import importlib.util
 import os
@@ -13,8 +14,14 @@ import sqlalchemy as sa
 
 from db import queries
 from db.computations import batches_since_last_daily, latest_finished
+from db.degradation import last_computation
 from db.workqueue import claim_site, supports_claims
 from heliaudit.common import engine_from_ctx
+
+#: Degradation rates move by hundredths of %/yr per week of new data, and cost most of a
+#: weekly cycle (issue #16): after an incremental daily update they are recomputed only when
+#: the stored ones are this many days old (or with --full, or after a full daily recompute).
+DEGRADATION_EVERY_DAYS = 28
 
 #: Steps chained after the daily table, when their modules exist: (module, function).
 LATER_STEPS = (("heliaudit.jobs_flags", "run_flags"),
@@ -55,7 +62,9 @@ class _Bar:
 def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = False,
                 tty: bool = False, echo=click.echo) -> list[dict]:
     """Recompute the daily table (all days with ``full``, else the days of newly loaded
-    files), then the later steps that exist. Returns the daily summaries."""
+    files), then the later steps that exist (degradation on its schedule,
+    :data:`DEGRADATION_EVERY_DAYS`, unless ``full`` or the whole table was recomputed).
+    Returns the daily summaries."""
     from heliaudit import jobs_daily
 
     summaries = []
@@ -82,6 +91,12 @@ def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = Fals
         for module, func in LATER_STEPS:
             if importlib.util.find_spec(module) is None:
                 continue
+            if func == "run_degradation" and not full and ranges is not None:
+                age = _degradation_age_days(engine, sid)
+                if age is not None and age < DEGRADATION_EVERY_DAYS:
+                    echo(f"{sid}: degradation rates kept from {age:.0f} day(s) ago (recomputed "
+                         f"every {DEGRADATION_EVERY_DAYS} days; --full recomputes now)", err=True)
+                    continue
             step = getattr(importlib.import_module(module), func)
             bar = _Bar(f"{sid}: {func.removeprefix('run_')}", tty)
             try:
@@ -89,6 +104,15 @@ def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = Fals
             finally:
                 bar.close()
     return summaries
+
+
+def _degradation_age_days(engine: sa.Engine, site_id: str) -> float | None:
+    """Days since the site's last finished degradation computation; None if never."""
+    last = last_computation(engine, site_id, "degradation")
+    if last is None or not last.get("finished_utc"):
+        return None
+    finished = dt.datetime.fromisoformat(last["finished_utc"])
+    return (dt.datetime.now(dt.UTC) - finished).total_seconds() / 86400.0
 
 
 def _due(engine: sa.Engine, site_id: str) -> bool:
@@ -99,8 +123,16 @@ def _due(engine: sa.Engine, site_id: str) -> bool:
         return True
     latest = latest_finished(engine, site_id)
     daily = latest.get("daily", -1)
-    return any(latest.get(func.removeprefix("run_"), -1) < daily
-               for module, func in LATER_STEPS if importlib.util.find_spec(module) is not None)
+    for module, func in LATER_STEPS:
+        if importlib.util.find_spec(module) is None or latest.get(func.removeprefix("run_"),
+                                                                   -1) >= daily:
+            continue
+        if func != "run_degradation":
+            return True
+        age = _degradation_age_days(engine, site_id)
+        if age is None or age >= DEGRADATION_EVERY_DAYS:
+            return True
+    return False
 
 
 def run_worker(engine: sa.Engine, worker: str, full: bool = False, tty: bool = False,
@@ -142,7 +174,9 @@ def compute(ctx: click.Context, site_id: str | None, full: bool, worker: bool,
     availability) for every inverter and day, then flags and degradation.
 
     Days are site-local standard time. Filter thresholds come from the site
-    configuration's [filters] table. Progress goes to stderr.
+    configuration's [filters] table. Progress goes to stderr. After new files,
+    degradation rates are recomputed when the stored ones are 28 days old
+    (--full recomputes them now).
 
     With --worker, several processes (on one machine or many) share a PostgreSQL
     portfolio: each takes the due sites no other worker holds, so no site is computed
