@@ -47,30 +47,39 @@ def empty(message: str, x_title: str = "", y_title: str = "") -> go.Figure:
 # ---------------------------------------------------------------- weekly check
 
 
-def pr_heatmap(heat: pd.DataFrame, limit_pct: float = 10.0) -> go.Figure:
-    """Calendar heatmap: inverter x day of PR_STC relative to the site median that day.
+PERIOD_WORDS = {"day": ("Day", "%Y-%m-%d", "day"), "week": ("Week starting", "%Y-%m-%d", "week"),
+                "month": ("Month", "%Y-%m", "month")}
 
-    ``heat`` is :func:`dashboard.data.pr_relative_heatmap` (index device_id, columns days, %).
+
+def pr_heatmap(heat: pd.DataFrame, limit_pct: float = 10.0, period: str = "day") -> go.Figure:
+    """Calendar heatmap: inverter x period of PR_STC relative to the site median.
+
+    ``heat`` is :func:`dashboard.data.pr_relative_heatmap` (index device_id, columns the
+    first day of each period, %); ``period`` is ``"day"``, ``"week"`` or ``"month"``.
     The scale is diverging and symmetric about 0 (Tol's BuRd, red = below the median),
     saturating at ± ``limit_pct``.
     """
+    x_word, x_fmt, p_word = PERIOD_WORDS.get(period, PERIOD_WORDS["day"])
     if heat.empty:
-        return empty("No daily results in this window", "Day (local standard time)", "Inverter")
+        return empty("No daily results in this window", f"{x_word} (local standard time)",
+                     "Inverter")
     z = heat.to_numpy(dtype=float)
     n = len(heat.index)
     # one dict, one validation pass (a 100-inverter fleet over 12 weeks is 8400 cells);
     # not-valid days are gaps on the grey plot background, without hover
     trace = dict(type="heatmap", z=z, x=pd.to_datetime(pd.Index(heat.columns)).to_numpy(),
                  y=[str(i) for i in heat.index], colorscale=theme.DIVERGING, zmid=0,
-                 zmin=-limit_pct, zmax=limit_pct, hoverongaps=False, xgap=1, ygap=1,
-                 hovertemplate="%{y} · %{x|%Y-%m-%d}<br>PR_STC vs site median: "
-                               "%{z:+.1f} %<extra></extra>",
+                 zmin=-limit_pct, zmax=limit_pct, hoverongaps=False,
+                 xgap=1 if heat.shape[1] <= 200 else 0, ygap=1,
+                 hovertemplate="%{y} · " + p_word + " %{x|" + x_fmt + "}<br>PR_STC vs site "
+                               "median: %{z:+.1f} %<extra></extra>",
                  colorbar=dict(title=dict(text="PR_STC vs<br>site median [%]", side="right"),
                                ticksuffix=" %", thickness=14))
     layout = dict(template=TEMPLATE, height=_heat_height(n), plot_bgcolor=theme.MISSING,
                   hovermode="closest",
-                  title=dict(text="Daily temperature-corrected PR relative to the site median"),
-                  xaxis=dict(title=dict(text="Day (local standard time)"), showgrid=False),
+                  title=dict(text={"day": "Daily", "week": "Weekly", "month": "Monthly"}.get(
+                      period, "Daily") + " temperature-corrected PR relative to the site median"),
+                  xaxis=dict(title=dict(text=f"{x_word} (local standard time)"), showgrid=False),
                   yaxis=dict(title=dict(text="Inverter"), autorange="reversed", showgrid=False,
                              type="category", dtick=1 if n <= 60 else None,
                              tickfont=dict(size=10 if n > 40 else 12)))
@@ -86,8 +95,10 @@ def _heat_height(n_rows: int) -> int:
 def fleet_quadrant(fleet: pd.DataFrame) -> go.Figure:
     """Last week's PR_STC against the inverter's own trailing weeks (x) and its peers (y).
 
-    Each marker is one inverter, sized by last week's energy; the lower-left quadrant
-    (worse than its own history and its peers) is where problems sit.
+    Each marker is one inverter, sized by last week's energy and coloured by its most
+    severe warning or alarm of the week (``worst_severity``; info flags such as clipping do
+    not colour it); the lower-left quadrant (worse than its own history and its peers) is
+    where problems sit.
     """
     f = fleet.dropna(subset=["d_trailing_pct", "d_peers_pct"])
     if f.empty:
@@ -95,17 +106,25 @@ def fleet_quadrant(fleet: pd.DataFrame) -> go.Figure:
                      "PR_STC vs own trailing weeks [%]", "PR_STC vs peer median [%]")
     size = f["e_ac_kwh"].fillna(0).to_numpy()
     size = 8 + 14 * size / size.max() if size.max() > 0 else np.full(len(f), 10)
-    colour = np.where(f["n_flags"] > 0, theme.OKABE_ITO["vermillion"], theme.MEASURED)
+    worst = (f["worst_severity"] if "worst_severity" in f
+             else pd.Series(np.where(f["n_flags"] > 0, "alarm", "none"), index=f.index))
+    colour = [theme.SEVERITY.get(w, theme.MEASURED) for w in worst]
     fig = go.Figure(go.Scatter(
         x=f["d_trailing_pct"], y=f["d_peers_pct"], mode="markers+text",
         text=np.where((f["d_peers_pct"] < -3) | (f["d_trailing_pct"] < -3), f["device_id"], ""),
         textposition="top center", textfont=dict(size=10),
         marker=dict(size=size, color=colour, line=dict(width=0.5, color="white"), opacity=0.85),
-        customdata=np.stack([f["device_id"], f["e_ac_kwh"], f["n_flags"]], axis=1),
+        customdata=np.stack([f["device_id"], f["e_ac_kwh"], worst.replace("none", "no")],
+                            axis=1),
         hovertemplate="%{customdata[0]}<br>vs own trailing weeks: %{x:+.1f} %"
                       "<br>vs peers: %{y:+.1f} %<br>energy: %{customdata[1]:,.0f} kWh"
-                      "<br>flags: %{customdata[2]}<extra></extra>",
+                      "<br>worst flag: %{customdata[2]}<extra></extra>",
         showlegend=False))
+    for sev, name in (("alarm", "alarm this week"), ("warning", "warning this week"),
+                      ("none", "no warning or alarm")):
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=name,
+                                 marker=dict(size=10, color=theme.SEVERITY.get(sev,
+                                                                              theme.MEASURED))))
     for axis in ("x", "y"):
         fig.add_shape(type="line", xref="x" if axis == "x" else "paper",
                       yref="paper" if axis == "x" else "y",

@@ -30,7 +30,8 @@ from analytics.performance_ratio import period_sums as monthly_sums
 from analytics.power import expected_ac_power
 from analytics.temperature import cell_temperature_from_module, sapm_parameters
 from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
-from analytics.weekly import period_kpis, weekly_comparison
+from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label
+from analytics.weekly import period_kpis, week_share_of_lost_energy, weekly_comparison
 from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log
 from db import queries
@@ -87,12 +88,37 @@ def _cache(fn):
 # ---------------------------------------------------------------- plant and time
 
 
+class DatabaseUnreadable(RuntimeError):
+    """The configured database cannot be opened or is not a heliaudit store."""
+
+
+def safe_url(url: str) -> str:
+    """The URL with any password masked, for messages."""
+    try:
+        return sa.engine.make_url(url).render_as_string(hide_password=True)
+    except Exception:  # noqa: BLE001 - a malformed URL is shown as given
+        return str(url)
+
+
 @_cache
 def site_list(url: str) -> pd.DataFrame:
+    """Every site of the store; raises :class:`DatabaseUnreadable` with one plain sentence
+    when the database cannot be opened or read (a file that is not a database, a server
+    that does not answer)."""
     try:
         return queries.sites(engine(url))
-    except sa.exc.OperationalError:  # an empty or foreign database: no site table
-        return pd.DataFrame(columns=["site_id", "name", "timezone", "n_inverters"])
+    except sa.exc.OperationalError as exc:
+        text = str(getattr(exc, "orig", exc)).strip().splitlines()
+        first = text[0] if text else type(exc).__name__
+        if "no such table" in first:  # an empty SQLite file: no site yet
+            return pd.DataFrame(columns=["site_id", "name", "timezone", "n_inverters"])
+        raise DatabaseUnreadable(f"Cannot open the database {safe_url(url)}: {first}.") \
+            from None
+    except (sa.exc.SQLAlchemyError, OSError, ValueError) as exc:
+        text = str(getattr(exc, "orig", None) or exc).strip().splitlines()
+        first = text[0] if text else type(exc).__name__
+        raise DatabaseUnreadable(f"Cannot read the database {safe_url(url)}: {first}.") \
+            from None
 
 
 @_cache
@@ -148,29 +174,130 @@ def week_of(end: dt.date) -> tuple[dt.date, dt.date]:
 
 
 @_cache
+def economics(url: str, site_id: str) -> dict:
+    """The ``[economics]`` table of the site configuration (``currency``,
+    ``tariff_per_kwh``, ``cleaning_cost``); empty when absent or without a tariff."""
+    import tomllib
+
+    try:
+        e = tomllib.loads(queries.site_config_toml(engine(url), site_id) or "").get("economics")
+    except tomllib.TOMLDecodeError:
+        return {}
+    if not e or not e.get("tariff_per_kwh"):
+        return {}
+    return {"currency": str(e.get("currency", "")), "tariff_per_kwh": float(e["tariff_per_kwh"]),
+            "cleaning_cost": float(e.get("cleaning_cost", 0.0) or 0.0)}
+
+
+def money(value_kwh: float, econ: dict) -> str | None:
+    """Lost energy as revenue in the site currency (``None`` without a tariff)."""
+    if not econ or value_kwh is None or value_kwh != value_kwh:
+        return None
+    return f"{value_kwh * econ['tariff_per_kwh']:,.0f} {econ['currency']}".strip()
+
+
+@_cache
+def inverter_instruments(url: str, site_id: str) -> pd.DataFrame:
+    """Per inverter: ``device_id, poa_sensor_id, instrument`` (the POA sensor's instrument
+    type: ``reference_cell``, ``thermopile_pyranometer`` or ``unknown``)."""
+    inv = inverter_list(url, site_id)
+    dev = device_list(url, site_id)
+    kind = dict(zip(dev["device_id"], dev["instrument"], strict=True))
+    out = inv[["device_id", "poa_sensor_id"]].copy()
+    out["instrument"] = [kind.get(s) or "unknown" for s in out["poa_sensor_id"]]
+    return out
+
+
+def _week_bounds_s(url: str, site_id: str, end: dt.date) -> tuple[int, int]:
+    info = site_info(url, site_id)
+    w0, w1 = week_of(end)
+    return (day_to_s(w0, info["std_offset_s"]),
+            day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"]))
+
+
+def _with_week_share(url: str, site_id: str, fl: pd.DataFrame, end: dt.date) -> pd.DataFrame:
+    """Adds ``lost_week_kwh``: the week's share of each flag's lost energy
+    (:func:`analytics.weekly.week_share_of_lost_energy`)."""
+    fl = fl.copy()
+    if fl.empty:
+        fl["lost_week_kwh"] = pd.Series(dtype=float)
+        return fl
+    info = site_info(url, site_id)
+    a, b = _week_bounds_s(url, site_id, end)
+    lo = min(int(fl["start_s"].min()), a) + info["std_offset_s"]
+    hi = max(int(fl["end_s"].max()), b) + info["std_offset_s"]
+    d0 = dt.date(1970, 1, 1) + dt.timedelta(days=lo // 86400)
+    d1 = dt.date(1970, 1, 1) + dt.timedelta(days=hi // 86400)
+    exp = queries.daily_rows(engine(url), site_id, d0, d1, columns=("e_exp_kwh",))
+    fl["lost_week_kwh"] = week_share_of_lost_energy(fl, exp, a, b,
+                                                    std_offset_s=info["std_offset_s"]).to_numpy()
+    return fl
+
+
+@_cache
 def fleet_week(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
     """One row per inverter for the week ending ``end``.
 
-    Columns: ``device_id, peer_group, p_dc_kwp, e_ac_kwh, yf_h, pr_stc, pr_stc_trailing,
-    d_trailing_pct, pr_stc_peers, d_peers_pct, avail_energy, avail_time, n_flags,
-    flags_lost_kwh, n_days_valid``. ``d_*_pct`` = 100 (PR_STC / reference − 1).
+    Columns: ``device_id, peer_group, instrument, n_peers, p_dc_kwp, e_ac_kwh, yf_h, pr_stc,
+    pr_stc_trailing, d_trailing_pct, pr_stc_peers, d_peers_pct, avail_energy, avail_time,
+    n_flags, n_alarms, n_warnings, worst_severity, lost_week_kwh, n_days_valid``.
+    ``d_*_pct`` = 100 (PR_STC / reference − 1); peers share the peer group and the POA
+    instrument type; ``lost_week_kwh`` is the week's share of the lost energy of the
+    inverter's flags.
     """
     eng = engine(url)
     w0, w1 = week_of(end)
     t1 = w0 - dt.timedelta(days=1)
     t0 = w0 - dt.timedelta(days=7 * TRAILING_WEEKS)
+    inv = inverter_list(url, site_id).merge(
+        inverter_instruments(url, site_id)[["device_id", "instrument"]], on="device_id")
     out = weekly_comparison(queries.period_sums(eng, site_id, w0, w1),
-                            queries.period_sums(eng, site_id, t0, t1),
-                            inverter_list(url, site_id))
-    info = site_info(url, site_id)
-    fl = queries.flags_overlapping(eng, site_id, day_to_s(w0, info["std_offset_s"]),
-                                   day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"]))
-    agg = (fl.dropna(subset=["device_id"]).groupby("device_id")
-           .agg(n_flags=("flag_id", "size"), flags_lost_kwh=("lost_kwh", "sum")))
+                            queries.period_sums(eng, site_id, t0, t1), inv)
+    fl = week_flags(url, site_id, end)
+    fl = fl.dropna(subset=["device_id"])
+    agg = (fl.groupby("device_id")
+           .agg(n_flags=("flag_id", "size"),
+                n_alarms=("severity", lambda s: int((s == "alarm").sum())),
+                n_warnings=("severity", lambda s: int((s == "warning").sum())),
+                lost_week_kwh=("lost_week_kwh", "sum")))
     out = out.merge(agg, left_on="device_id", right_index=True, how="left")
-    out["n_flags"] = out["n_flags"].fillna(0).astype(int)
-    out["flags_lost_kwh"] = out["flags_lost_kwh"].fillna(0.0)
+    for c in ("n_flags", "n_alarms", "n_warnings"):
+        out[c] = out[c].fillna(0).astype(int)
+    out["lost_week_kwh"] = out["lost_week_kwh"].fillna(0.0)
+    out["worst_severity"] = np.where(out["n_alarms"] > 0, "alarm",
+                                     np.where(out["n_warnings"] > 0, "warning", "none"))
     return out
+
+
+@_cache
+def week_energy(url: str, site_id: str, end: dt.date) -> dict:
+    """The site's week: measured and expected AC energy [kWh] (all days), their ratio, and
+    per POA instrument type the insolation [kWh/m²] (median over the inverters measured by
+    that type) and PR_STC (ratio of sums over valid days, IEC 61724-1)."""
+    w0, w1 = week_of(end)
+    d = queries.daily_rows(engine(url), site_id, w0, w1,
+                           columns=("e_ac_kwh", "e_exp_kwh", "h_poa_kwhm2", "e_ac_pr_kwh",
+                                    "e_ref_stc_kwh", "day_valid"))
+    ins = inverter_instruments(url, site_id)
+    d = d.merge(ins, on="device_id", how="left")
+    by = []
+    for inst, g in d.groupby("instrument", sort=True):
+        v = g[g["day_valid"]]
+        h = g.groupby("device_id")["h_poa_kwhm2"].sum(min_count=1)
+        by.append({"instrument": inst,
+                   "sensors": ", ".join(sorted(ins.loc[ins["instrument"] == inst,
+                                                       "poa_sensor_id"].dropna().unique())),
+                   "n_inverters": int(g["device_id"].nunique()),
+                   "h_poa_kwhm2": float(h.median()) if h.notna().any() else np.nan,
+                   "pr_stc": (float(v["e_ac_pr_kwh"].sum() / v["e_ref_stc_kwh"].sum())
+                              if not v.empty and v["e_ref_stc_kwh"].sum() > 0 else np.nan)})
+    e_ac = float(d["e_ac_kwh"].sum()) if not d.empty else np.nan
+    e_exp = float(d["e_exp_kwh"].sum()) if not d.empty else np.nan
+    return {"e_ac_kwh": e_ac, "e_exp_kwh": e_exp,
+            "ratio": e_ac / e_exp if e_exp and e_exp == e_exp and e_exp > 0 else np.nan,
+            "n_days": int(d["day"].nunique()) if not d.empty else 0,
+            "by_instrument": pd.DataFrame(by, columns=["instrument", "sensors", "n_inverters",
+                                                       "h_poa_kwhm2", "pr_stc"])}
 
 
 @_cache
@@ -188,56 +315,143 @@ def fleet_sites(url: str, end: dt.date) -> pd.DataFrame:
         k = period_kpis(wk).iloc[0]
         tk = period_kpis(tr.to_frame().T).iloc[0]
         info = site_info(url, site_id)
-        fl = queries.flags_overlapping(eng, site_id, day_to_s(w0, info["std_offset_s"]),
-                                       day_to_s(w1 + dt.timedelta(days=1),
-                                                info["std_offset_s"]))
+        fl = week_flags(url, site_id, end)
+        insts = inverter_instruments(url, site_id)["instrument"].unique()
         rows.append({"site_id": site_id, "name": info["name"],
                      "n_inverters": len(inverter_list(url, site_id)),
+                     "instruments": ", ".join(sorted(map(str, insts))),
                      "e_ac_kwh": k["e_ac_kwh"], "pr_stc": k["pr_stc"],
                      "d_trailing_pct": 100 * (k["pr_stc"] / tk["pr_stc"] - 1)
                      if tk["pr_stc"] and not pd.isna(tk["pr_stc"]) else np.nan,
-                     "avail_energy": k["avail_energy"], "n_flags": len(fl),
-                     "flags_lost_kwh": float(fl["lost_kwh"].fillna(0).sum())})
+                     "avail_energy": k["avail_energy"],
+                     "n_alarms": int((fl["severity"] == "alarm").sum()),
+                     "n_warnings": int((fl["severity"] == "warning").sum()),
+                     "n_flags": len(fl),
+                     "lost_week_kwh": float(fl["lost_week_kwh"].fillna(0).sum())})
     return pd.DataFrame(rows)
+
+
+#: Heatmaps show one column per day up to this many days, then one per week up to
+#: :data:`HEAT_WEEKLY_MAX_DAYS`, then one per month (a column stays wider than a few pixels
+#: on a 1440-pixel screen).
+HEAT_DAILY_MAX_DAYS = 120
+HEAT_WEEKLY_MAX_DAYS = 730
+
+
+def heat_period(start: dt.date, end: dt.date) -> str:
+    """``"day"``, ``"week"`` or ``"month"``: the column of a heatmap over ``[start, end]``."""
+    n = (end - start).days + 1
+    return "day" if n <= HEAT_DAILY_MAX_DAYS else "week" if n <= HEAT_WEEKLY_MAX_DAYS \
+        else "month"
+
+
+def _period_start(days, period: str) -> pd.DatetimeIndex:
+    idx = pd.DatetimeIndex(pd.to_datetime(pd.Series(list(days))))
+    if period == "week":  # weeks start on Monday (ISO 8601)
+        return idx - pd.to_timedelta(idx.dayofweek, unit="D")
+    if period == "month":
+        return idx.to_period("M").to_timestamp()
+    return idx
 
 
 @_cache
 def pr_relative_heatmap(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.DataFrame:
-    """Inverter x day matrix of 100 (PR_STC / site median that day − 1) [%], valid days only.
+    """Inverter x period matrix of 100 (PR_STC / site median of the period − 1) [%].
 
-    Index: device_id; columns: every day in ``[start, end]`` (NaN where a day is not valid).
+    Periods are days up to :data:`HEAT_DAILY_MAX_DAYS` days, then ISO weeks, then months
+    (:func:`heat_period`); a week's or month's PR_STC is the ratio of sums over its valid
+    days (IEC 61724-1). Index: device_id; columns: the first day of every period in
+    ``[start, end]`` (NaN where an inverter has no valid day in it).
     """
-    d = queries.daily_rows(engine(url), site_id, start, end, columns=("pr_stc", "day_valid"))
-    d["pr_v"] = d["pr_stc"].where(d["day_valid"])
-    wide = d.pivot_table(index="device_id", columns="day", values="pr_v", aggfunc="first",
-                         dropna=False)
-    days = pd.date_range(start, end, freq="D").date
-    wide = wide.reindex(columns=days)
+    d = queries.daily_rows(engine(url), site_id, start, end,
+                           columns=("pr_stc", "day_valid", "e_ac_pr_kwh", "e_ref_stc_kwh"))
+    period = heat_period(start, end)
+    if period == "day":
+        d["pr_v"] = d["pr_stc"].where(d["day_valid"])
+        wide = d.pivot_table(index="device_id", columns="day", values="pr_v", aggfunc="first",
+                             dropna=False)
+        cols = pd.date_range(start, end, freq="D").date
+    else:
+        v = d[d["day_valid"]].copy()
+        v["period"] = _period_start(v["day"], period).date
+        g = v.groupby(["device_id", "period"])[["e_ac_pr_kwh", "e_ref_stc_kwh"]].sum()
+        g["pr_v"] = g["e_ac_pr_kwh"] / g["e_ref_stc_kwh"].where(g["e_ref_stc_kwh"] > 0)
+        wide = g["pr_v"].unstack("period")
+        cols = sorted(set(_period_start(pd.date_range(start, end, freq="D").date, period).date))
+    wide = wide.reindex(columns=cols)
     med = wide.median(axis=0, skipna=True)
     return 100 * (wide / med - 1)
 
 
-def _flag_table(fl: pd.DataFrame, std_offset_s: int) -> pd.DataFrame:
+def is_ongoing(flag, data_end_s: int | None) -> bool:
+    """A flag still open at the end of the data: its details say so, or its span reaches the
+    last reading (within two hours)."""
+    det = flag.get("details")
+    if det is None:
+        det = _json_text(flag.get("details_json"))
+    if isinstance(det, dict) and det.get("ongoing") is True:
+        return True
+    return data_end_s is not None and int(flag["end_s"]) >= int(data_end_s) - 7200
+
+
+def _json_text(text):
+    import json
+
+    if not isinstance(text, str):
+        return None
+    try:
+        return json.loads(text)
+    except ValueError:
+        return None
+
+
+def duration_text(hours: float, ongoing: bool = False) -> str:
+    """A duration in words a reader takes in at once: minutes, hours or days; "so far" when
+    the event is still open."""
+    if hours is None or hours != hours:
+        return "–"
+    txt = (f"{hours * 60:.0f} min" if hours < 1 else f"{hours:.1f} h" if hours < 48
+           else f"{hours / 24:,.0f} days")
+    return txt + (" so far" if ongoing else "")
+
+
+def _flag_table(fl: pd.DataFrame, std_offset_s: int, data_end_s: int | None = None
+                ) -> pd.DataFrame:
     out = fl.copy()
     out["start_local"] = s_to_local(out["start_s"], std_offset_s).values
-    out["end_local"] = s_to_local(out["end_s"], std_offset_s).values
-    out["duration_h"] = (out["end_s"] - out["start_s"]) / 3600.0
+    out["ongoing"] = [is_ongoing(r, data_end_s) for r in out.to_dict("records")]
+    end_local = s_to_local(out["end_s"], std_offset_s)
+    out["end_local"] = end_local.where(~out["ongoing"].to_numpy()).values
+    last = data_end_s if data_end_s is not None else out["end_s"]
+    span_end = np.where(out["ongoing"], last, out["end_s"]) if len(out) else []
+    out["duration_h"] = (pd.Series(span_end, index=out.index, dtype=float)
+                         - out["start_s"]) / 3600.0
+    out["duration_text"] = [duration_text(h, o) for h, o in zip(out["duration_h"],
+                                                                 out["ongoing"], strict=True)]
+    out["kind_label"] = [kind_label(k) for k in out["kind"]]
+    out["severity_label"] = [SEVERITY_LABELS.get(s, str(s)) for s in out["severity"]]
+    out["device_label"] = [d if isinstance(d, str) and d else "whole site"
+                           for d in out["device_id"]]
     return out
 
 
 @_cache
 def week_flags(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
-    """Flags overlapping the week ending ``end``: new ones (starting in the week) first,
-    then by lost energy. Adds ``is_new``, ``start_local``, ``end_local``, ``duration_h``."""
+    """Flags overlapping the week ending ``end``: alarms, then warnings, then info; within a
+    severity new ones (starting in the week) and then the week's share of lost energy.
+    Adds ``is_new``, ``ongoing`` (still open at the end of the data), ``lost_week_kwh``
+    (the week's share of the flag's lost energy), ``start_local``, ``end_local`` (NaT when
+    ongoing), ``duration_h`` (so far, when ongoing) and human labels."""
     info = site_info(url, site_id)
-    w0, w1 = week_of(end)
-    a = day_to_s(w0, info["std_offset_s"])
-    b = day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"])
+    a, b = _week_bounds_s(url, site_id, end)
     fl = queries.flags_overlapping(engine(url), site_id, a, b)
     fl["is_new"] = (fl["start_s"] >= a).astype(bool)
-    fl = fl.sort_values(["is_new", "lost_kwh", "start_s"], ascending=[False, False, False],
-                        na_position="last")
-    return _flag_table(fl, info["std_offset_s"]).reset_index(drop=True)
+    fl = _with_week_share(url, site_id, fl, end)
+    fl["severity_rank"] = [SEVERITY_ORDER.get(s, 3) for s in fl["severity"]]
+    fl = fl.sort_values(["severity_rank", "is_new", "lost_week_kwh", "start_s"],
+                        ascending=[True, False, False, False], na_position="last")
+    return _flag_table(fl, info["std_offset_s"], readings_end(url, site_id)
+                       ).reset_index(drop=True)
 
 
 # ---------------------------------------------------------------- flags
@@ -255,7 +469,7 @@ def flags_for(url: str, site_id: str, device_ids: list[str] | None, start_s: int
     fl = queries.flags_overlapping(engine(url), site_id, start_s, end_s,
                                    device_ids=list(device_ids) if device_ids else None,
                                    include_site_wide=include_site_wide)
-    return _flag_table(fl, site_info(url, site_id)["std_offset_s"])
+    return _flag_table(fl, site_info(url, site_id)["std_offset_s"], readings_end(url, site_id))
 
 
 @_cache
@@ -263,7 +477,7 @@ def flags_in_window(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.
     info = site_info(url, site_id)
     fl = queries.flags_overlapping(engine(url), site_id, day_to_s(start, info["std_offset_s"]),
                                    day_to_s(end + dt.timedelta(days=1), info["std_offset_s"]))
-    return _flag_table(fl, info["std_offset_s"])
+    return _flag_table(fl, info["std_offset_s"], readings_end(url, site_id))
 
 
 def flag_window(fl: dict, pad_h: float = 24.0, max_days: float = 14.0) -> tuple[int, int]:
@@ -665,12 +879,25 @@ def sensor_flags(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.Dat
     return fl[keep].reset_index(drop=True)
 
 
-def flag_label(f) -> str:
-    """One-line label of a flag row: ``#id device — kind (severity), start → end``."""
-    dev = f.device_id if isinstance(f.device_id, str) and f.device_id else "site"
-    lost = (f" · {f.lost_kwh:,.0f} kWh lost" if f.lost_kwh is not None and f.lost_kwh == f.lost_kwh
-            and f.lost_kwh > 0 else "")
-    a, b = pd.Timestamp(f.start_local), pd.Timestamp(f.end_local)
-    span = (f"{a:%Y-%m-%d %H:%M}–{b:%H:%M}" if a.date() == b.date()
-            else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
-    return f"#{f.flag_id} {dev} · {f.kind} ({f.severity}) · {span}{lost}"
+def flag_label(f, econ: dict | None = None) -> str:
+    """One-line label of a flag row in words: ``#id device — kind (severity), span``; an
+    ongoing flag says "since" its start instead of inventing an end."""
+    dev = f.device_id if isinstance(f.device_id, str) and f.device_id else "whole site"
+    lost = getattr(f, "lost_week_kwh", None)
+    if lost is not None and lost == lost and lost > 0:
+        lost_txt = f" · {lost:,.0f} kWh lost this week"
+        if money(lost, econ or {}):
+            lost_txt += f" ({money(lost, econ)})"
+    else:
+        lost = f.lost_kwh
+        lost_txt = (f" · {lost:,.0f} kWh lost" if lost is not None and lost == lost
+                    and lost > 0 else "")
+    a = pd.Timestamp(f.start_local)
+    if getattr(f, "ongoing", False):
+        span = f"since {a:%Y-%m-%d %H:%M}, ongoing"
+    else:
+        b = pd.Timestamp(f.end_local)
+        span = (f"{a:%Y-%m-%d %H:%M}–{b:%H:%M}" if a.date() == b.date()
+                else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
+    sev = SEVERITY_LABELS.get(f.severity, str(f.severity)).lower()
+    return f"#{f.flag_id} {dev} · {kind_label(f.kind)} ({sev}) · {span}{lost_txt}"
