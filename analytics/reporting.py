@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from analytics.labels import OLD_METHOD_CODES, method_code
+from analytics.labels import OLD_METHOD_CODES, method_code, method_label
 
 FALLBACK_METHOD = "sensor_year_pairs"
 CAVEAT_KINDS = ("sensor_drift", "level_shift", "soiling", "out_of_range", "little_data",
@@ -71,7 +71,7 @@ def _fallback_caveats(overview: dict, rate_row) -> list[dict]:
     if comp.get("agree") is False and comp.get("disagreements"):
         caveats.append({"kind": "methods_disagree", "method": None, "text": (
             "The intervals of some methods do not overlap: "
-            + "; ".join(" vs ".join(method_code(m) or "" for m in p)
+            + "; ".join(" against ".join(method_label(m).lower() for m in p)
                         for p in comp["disagreements"]) + ".")})
     seen, out = set(), []
     for c in caveats:  # one caveat per kind
