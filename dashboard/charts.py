@@ -219,60 +219,208 @@ def pr_trend(chosen: pd.DataFrame, peers: pd.DataFrame, flagged: pd.DataFrame | 
 # ---------------------------------------------------------------- degradation
 
 
-def degradation_forest(results: pd.DataFrame) -> go.Figure:
-    """Rate per inverter and method with its interval (dot and whisker)."""
+def degradation_forest(results: pd.DataFrame, recommended: dict | None = None) -> go.Figure:
+    """Rate per device and method with its interval (dot and whisker), in two panels with
+    their own axes: rates of the plant (absolute), and relative figures (rate relative to
+    the peers, the POA sensor's drift against clear sky), which are not degradation rates.
+    ``recommended`` maps a device to its recommended method (drawn as a ring)."""
+    from analytics.labels import RELATIVE_METHODS, method_label
+
     r = results.dropna(subset=["rate_pct_per_yr"])
     if r.empty:
-        return empty("No degradation rate computed yet", "Degradation rate Rd [%/yr]",
-                     "Inverter")
-    fig = go.Figure()
-    methods = sorted(r["method"].unique())
+        return empty("No degradation rate computed yet", "Degradation rate [%/yr]", "Device")
+    rel = r[r["method"].isin(RELATIVE_METHODS)]
+    absolute = r[~r["method"].isin(RELATIVE_METHODS)]
+    methods = list(dict.fromkeys(sorted(absolute["method"].unique())
+                                 + sorted(rel["method"].unique())))
+    devices = list(dict.fromkeys(r["device_id"]))
+    names = {d: ("whole site" if d == "(site)" else d) for d in devices}
+    traces = []
     for k, m in enumerate(methods):
         g = r[r["method"] == m]
-        fig.add_trace(go.Scatter(
-            x=g["rate_pct_per_yr"], y=g["device_id"], mode="markers", name=m,
+        axis = "x2" if m in RELATIVE_METHODS else "x"
+        traces.append(dict(
+            type="scatter", x=g["rate_pct_per_yr"], y=[names[d] for d in g["device_id"]],
+            mode="markers", name=method_label(m), xaxis=axis, yaxis="y",
             marker=dict(size=8, color=theme.SERIES[k % len(theme.SERIES)],
-                        symbol=["circle", "diamond", "square", "triangle-up"][k % 4]),
+                        symbol=["circle", "diamond", "square", "triangle-up", "x",
+                                "star"][k % 6]),
             error_x=dict(type="data", symmetric=False,
                          array=(g["ci_high"] - g["rate_pct_per_yr"]).to_numpy(),
                          arrayminus=(g["rate_pct_per_yr"] - g["ci_low"]).to_numpy(),
                          thickness=1.5, width=3),
-            offsetgroup=m, orientation="h",
-            hovertemplate="%{y} · " + m + ": %{x:.2f} %/yr<extra></extra>"))
-    n = r["device_id"].nunique()
-    fig.add_vline(x=0, line=dict(color="#888", width=1, dash="dot"))
-    fig.update_layout(template=TEMPLATE, height=int(min(1800, max(340, 170 + n * (10 + 9 * len(methods))))),
-                      hovermode="closest",
-                      title="Degradation rate by inverter and method (negative = loss)",
-                      scattermode="group", scattergap=0.5)
-    fig.update_xaxes(title_text="Degradation rate Rd [%/yr]")
-    fig.update_yaxes(title_text="Inverter", type="category", autorange="reversed")
+            hovertemplate="%{y} · " + method_label(m) + ": %{x:.2f} %/yr<extra></extra>"))
+    if recommended:
+        pts = [(names[d], r[(r["device_id"] == d) & (r["method"] == m)]["rate_pct_per_yr"])
+               for d, m in recommended.items() if d in names]
+        pts = [(y, float(v.iloc[0])) for y, v in pts if len(v)]
+        if pts:
+            traces.append(dict(type="scatter", x=[p[1] for p in pts], y=[p[0] for p in pts],
+                               mode="markers", name="recommended rate", xaxis="x", yaxis="y",
+                               marker=dict(size=16, color="rgba(0,0,0,0)",
+                                           line=dict(width=2, color=theme.TEXT)),
+                               hoverinfo="skip"))
+    n = len(devices)
+    layout = dict(
+        template=TEMPLATE, height=int(min(1400, max(340, 170 + n * 26))), hovermode="closest",
+        title=dict(text="Rates by device and method (negative = loss)"),
+        xaxis=dict(domain=[0, 0.64], title=dict(text="Degradation rate of the plant [%/yr]"),
+                   zeroline=True, zerolinecolor="#888"),
+        xaxis2=dict(domain=[0.72, 1], anchor="y",
+                    title=dict(text="Relative to peers / sensor drift [%/yr]"),
+                    zeroline=True, zerolinecolor="#888"),
+        yaxis=dict(title=dict(text="Device"), type="category", autorange="reversed",
+                   categoryorder="array", categoryarray=[names[d] for d in devices]),
+        legend=dict(orientation="h", y=1.02, yanchor="bottom", x=0, font=dict(size=11)),
+        margin=dict(t=110))
+    return go.Figure(data=traces, layout=layout)
+
+
+def pair_grid_chart(grid: pd.DataFrame, warranted_pct_per_yr: float | None = None,
+                    title: str = "") -> go.Figure:
+    """Year x season grid of the median year-on-year pair rate (Jordan et al. 2018 pairs,
+    grouped by :func:`analytics.reporting.pair_rate_grid`).
+
+    Colour is diverging about the warranted rate when one is given (red: the pairs of that
+    season lost more than the warranty allows; blue: less), else about 0 (Tol's BuRd). Each
+    cell is labelled with its median and number of pairs; cells with too few pairs are
+    empty.
+    """
+    from analytics.reporting import SEASON_ORDER
+
+    if grid.empty:
+        return empty("No year-on-year pairs (less than a year of usable days)",
+                     "Season of the later day", "Year of the later day")
+    g = grid.copy()
+    g["season"] = g["season"].astype(str)
+    z = g.pivot(index="year", columns="season", values="median_pct_per_yr").reindex(
+        columns=list(SEASON_ORDER))
+    n = g.pivot(index="year", columns="season", values="n_pairs").reindex(
+        columns=list(SEASON_ORDER))
+    mid = float(warranted_pct_per_yr) if warranted_pct_per_yr is not None else 0.0
+    text = [[("" if not np.isfinite(v) else f"{v:+.1f}<br><span style='font-size:10px'>"
+              f"{int(c)} pairs</span>") for v, c in zip(zr, cr, strict=True)]
+            for zr, cr in zip(z.to_numpy(dtype=float), n.fillna(0).to_numpy(), strict=True)]
+    span = max(2.0, float(np.nanmax(np.abs(z.to_numpy(dtype=float) - mid)))
+               if np.isfinite(z.to_numpy(dtype=float)).any() else 2.0)
+    span = min(span, 6.0)
+    fig = go.Figure(go.Heatmap(
+        z=z.to_numpy(dtype=float), x=list(z.columns), y=[str(y) for y in z.index],
+        text=text, texttemplate="%{text}", colorscale=theme.DIVERGING, zmid=mid,
+        zmin=mid - span, zmax=mid + span, xgap=3, ygap=3, hoverongaps=False,
+        hovertemplate="%{y} %{x}: median pair rate %{z:+.2f} %/yr<extra></extra>",
+        colorbar=dict(title=dict(text="Median pair<br>rate [%/yr]", side="right"),
+                      thickness=14)))
+    fig.update_layout(template=TEMPLATE, height=max(260, 110 + 62 * len(z.index)),
+                      hovermode="closest", plot_bgcolor=theme.MISSING,
+                      title=title or "Is the rate stable over the years and seasons?")
+    fig.update_xaxes(title_text="Season of the later day of each pair", showgrid=False,
+                     side="bottom")
+    fig.update_yaxes(title_text="Year of the later day", showgrid=False, type="category",
+                     autorange="reversed")
     return fig
 
 
-def yoy_histogram(edges, counts, rd: float | None = None,
-                  ci: tuple[float | None, float | None] | None = None,
-                  title: str = "") -> go.Figure:
-    """Histogram of the year-on-year pair rates r_d (Jordan et al. 2018) as stored by the
-    degradation job (bin ``edges`` [%/yr], ``counts``), with the median rate and its interval."""
-    edges = np.asarray(edges, dtype=float)
-    counts = np.asarray(counts, dtype=float)
-    if counts.size == 0 or edges.size != counts.size + 1:
-        return empty("No year-on-year pairs stored", "Year-on-year rate r_d [%/yr]",
-                     "Pairs [count]")
-    mids = (edges[:-1] + edges[1:]) / 2
-    fig = go.Figure(go.Bar(x=mids, y=counts, width=np.diff(edges) * 0.95,
-                           marker=dict(color=theme.MEASURED), opacity=0.8, name="pairs",
-                           hovertemplate="%{x:.2f} %/yr: %{y} pairs<extra></extra>"))
-    if ci is not None and None not in ci and all(np.isfinite(ci)):
-        fig.add_vrect(x0=ci[0], x1=ci[1], fillcolor=theme.BAND_FILL, line_width=0)
-    if rd is not None and np.isfinite(rd):
-        fig.add_vline(x=rd, line=dict(color=theme.FIT, width=2.5),
-                      annotation_text=f"median {rd:+.2f} %/yr", annotation_position="top right")
-    fig.update_layout(template=TEMPLATE, height=340, bargap=0.02, hovermode="closest",
-                      title=title or "Year-on-year pair rates", showlegend=False)
-    fig.update_xaxes(title_text="Year-on-year rate r_d [%/yr]")
-    fig.update_yaxes(title_text="Pairs [count]")
+def year_rates_chart(grid: pd.DataFrame, rate: float | None = None,
+                     ci: tuple[float | None, float | None] | None = None,
+                     warranted_pct_per_yr: float | None = None, title: str = "") -> go.Figure:
+    """Per pair year: the median of that year's pair rates with the middle half of its pairs
+    (a spread, not a confidence interval), against the whole-period rate with its interval
+    (band) and the warranted rate (line)."""
+    from analytics.reporting import SEASON_ORDER  # noqa: F401 (same grouping as the grid)
+
+    if grid.empty:
+        return empty("No year-on-year pairs", "Year of the later day", "Rate [%/yr]")
+    g = grid.dropna(subset=["median_pct_per_yr"])
+    fig = go.Figure()
+    years = sorted({str(y) for y in grid["year"]})
+    if ci is not None and None not in ci:
+        fig.add_hrect(y0=ci[0], y1=ci[1], fillcolor=theme.BAND_FILL, line_width=0)
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name="interval of the "
+                                 "whole-period rate", marker=dict(symbol="square", size=12,
+                                                                   color=theme.BAND_FILL)))
+    if rate is not None:
+        fig.add_hline(y=rate, line=dict(color=theme.FIT, width=2.5))
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", name=f"whole period "
+                                 f"{rate:+.2f} %/yr", line=dict(color=theme.FIT, width=2.5)))
+    if warranted_pct_per_yr is not None:
+        fig.add_hline(y=warranted_pct_per_yr, line=dict(color=theme.WARRANTY, width=2,
+                                                        dash="dash"))
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines",
+                                 name=f"warranted {warranted_pct_per_yr:+.2f} %/yr",
+                                 line=dict(color=theme.WARRANTY, width=2, dash="dash")))
+    for k, (season, s) in enumerate(g.groupby("season", observed=True, sort=True)):
+        fig.add_trace(go.Scatter(
+            x=[str(y) for y in s["year"]], y=s["median_pct_per_yr"], mode="markers",
+            name=str(season), offsetgroup=str(season),
+            marker=dict(size=9, color=theme.SERIES[k % len(theme.SERIES)]),
+            error_y=dict(type="data", symmetric=False,
+                         array=(s["q75_pct_per_yr"] - s["median_pct_per_yr"]).to_numpy(),
+                         arrayminus=(s["median_pct_per_yr"] - s["q25_pct_per_yr"]).to_numpy(),
+                         thickness=1.3, width=3),
+            customdata=s["n_pairs"],
+            hovertemplate="%{x} " + str(season) + ": median %{y:+.2f} %/yr, "
+                          "%{customdata} pairs<extra></extra>"))
+    fig.update_layout(template=TEMPLATE, height=380, hovermode="closest", scattermode="group",
+                      title=title or "Which periods drive the rate?")
+    fig.update_xaxes(title_text="Year of the later day of each pair", type="category",
+                     categoryorder="array", categoryarray=years)
+    fig.update_yaxes(title_text="Pair rate, median and middle half [%/yr]")
+    return fig
+
+
+def soiling_loss_chart(summary: dict) -> go.Figure:
+    """Energy lost to soiling in each dry period [kWh] (bars over time), coloured by whether
+    a cleaning was recommended at its end."""
+    p = summary.get("periods") if summary else None
+    if p is None or p.empty:
+        return empty("No soiling period", "Dry period", "Energy lost to soiling [kWh]")
+    x = pd.to_datetime(p["first_day"])
+    colour = [theme.SEVERITY["warning"] if s == "warning" else theme.OKABE_ITO["sky_blue"]
+              for s in p["severity"]]
+    fig = go.Figure(go.Bar(
+        x=x, y=p["lost_kwh"], marker_color=colour, name="dry period",
+        customdata=np.stack([p["first_day"], p["last_day"],
+                             p["loss_at_end_pct"].astype(float)], axis=1),
+        hovertemplate="%{customdata[0]} → %{customdata[1]}: %{y:,.0f} kWh lost, "
+                      "%{customdata[2]:.1f} % at its end<extra></extra>"))
+    fig.update_layout(template=TEMPLATE, height=300, hovermode="closest", showlegend=False,
+                      title="Energy lost to soiling in each dry period (between cleanings)")
+    fig.update_xaxes(title_text="Start of the dry period")
+    fig.update_yaxes(title_text="Energy lost to soiling [kWh]")
+    return fig
+
+
+def soiling_loss_bar(summary: dict) -> go.Figure:
+    """The insolation-weighted soiling loss over the period [%] as one bar, with the range
+    the Monte-Carlo runs give when recoveries at cleanings are in doubt."""
+    loss = summary.get("loss_pct") if summary else None
+    if loss is None:
+        return empty("No soiling loss computed", "Energy lost to soiling [%]", "")
+    lo, hi = summary.get("loss_low_pct"), summary.get("loss_high_pct")
+    fig = go.Figure()
+    fig.add_trace(go.Bar(x=[loss], y=["whole period"], orientation="h",
+                         marker_color=theme.OKABE_ITO["orange"], name="full recovery",
+                         hovertemplate="%{x:.2f} % (full recovery at each cleaning)"
+                                       "<extra></extra>", width=0.5))
+    if lo is not None and hi is not None:
+        fig.add_trace(go.Scatter(x=[lo, hi], y=["whole period", "whole period"],
+                                 mode="lines+markers", name="range if recoveries are partial",
+                                 line=dict(color=theme.TEXT, width=3),
+                                 marker=dict(symbol="line-ns-open", size=16,
+                                             line=dict(width=3, color=theme.TEXT)),
+                                 hovertemplate="%{x:.2f} %<extra></extra>"))
+    cur = summary.get("current_loss_pct")
+    if cur is not None:
+        fig.add_trace(go.Bar(x=[cur], y=["now"], orientation="h", width=0.5,
+                             marker_color=theme.OKABE_ITO["vermillion"], name="present loss",
+                             hovertemplate="%{x:.2f} % now<extra></extra>"))
+    top = max(v for v in (loss, hi, cur, 1.0) if v is not None)
+    fig.update_layout(template=TEMPLATE, height=230, hovermode="closest", barmode="overlay",
+                      title="Energy lost to soiling")
+    fig.update_xaxes(title_text="Energy lost to soiling [%]", range=[0, top * 1.25],
+                     ticksuffix=" %")
+    fig.update_yaxes(title_text="", type="category")
     return fig
 
 

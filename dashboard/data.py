@@ -30,7 +30,14 @@ from analytics.performance_ratio import period_sums as monthly_sums
 from analytics.power import expected_ac_power
 from analytics.temperature import cell_temperature_from_module, sapm_parameters
 from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
-from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label
+from analytics.degradation import usable_daily_pi, yoy_rates
+from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label, method_code
+from analytics.reporting import (
+    normalise_methods,
+    pair_rate_grid,
+    recommended_rate,
+    shortfall_from_rate,
+)
 from analytics.weekly import period_kpis, week_share_of_lost_energy, weekly_comparison
 from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log
@@ -567,20 +574,128 @@ def flagged_days(chosen: pd.DataFrame, flags: pd.DataFrame, std_offset_s: int) -
 # ---------------------------------------------------------------- degradation
 
 
-#: The degradation job stores one extra row per device, method "summary": the headline
-#: rate plus, in ``details``, the method comparison and the warranty screening.
-SUMMARY_METHOD = "summary"
+#: The degradation job stores one extra row per device, method "overview": in ``details``
+#: the method comparison, change points and the warranty screening; and one row
+#: "recommended" (issue #13): the rate to show first, its reasons and caveats.
+SUMMARY_METHOD = "overview"
+RECOMMENDED = "recommended"
 
 
 @_cache
 def degradation_table(url: str, site_id: str) -> pd.DataFrame:
-    """Every degradation result of the site (one row per device and method), details parsed."""
-    return db_degradation.degradation_results(engine(url), site_id)
+    """Every degradation result of the site (one row per device and method), details parsed,
+    method codes as of results schema heliaudit-results/2 (older stores are mapped)."""
+    return normalise_methods(db_degradation.degradation_results(engine(url), site_id))
 
 
 def rates_only(results: pd.DataFrame) -> pd.DataFrame:
-    """The per-method rows (without the job's "summary" rows)."""
-    return results[results["method"] != SUMMARY_METHOD].reset_index(drop=True)
+    """The per-method rows (without the "overview" and "recommended" rows)."""
+    return results[~results["method"].isin([SUMMARY_METHOD, RECOMMENDED])].reset_index(
+        drop=True)
+
+
+def recommended(results: pd.DataFrame, device_id: str) -> dict | None:
+    """The recommended rate of a device with its reasons and caveats
+    (:func:`analytics.reporting.recommended_rate`)."""
+    return recommended_rate(results, device_id)
+
+
+@_cache
+def pair_rates(url: str, site_id: str, device_id: str) -> pd.Series:
+    """The year-on-year pair rates (Jordan et al. 2018) of one inverter or the site, from
+    the daily performance index as the degradation job selects it
+    (:func:`analytics.degradation.usable_daily_pi` with the stored stabilisation period;
+    for the site Σ e_ac_valid / Σ e_exp_valid over inverters with a usable day, on days
+    where at least half of them have one). Indexed by the earlier day of each pair. [%/yr]"""
+    comp = db_degradation.last_computation(engine(url), site_id) or {}
+    params = comp.get("params") or {}
+    stab = int(params.get("stabilisation_days", 180))
+    frac = float(params.get("site_min_inverter_fraction", 0.5))
+    inv = inverter_list(url, site_id).set_index("device_id")
+    ids = list(inv.index) if device_id == "(site)" else [device_id]
+    d = queries.daily_rows(engine(url), site_id, device_ids=ids,
+                           columns=("pi", "day_valid", "e_ac_valid_kwh", "e_exp_valid_kwh"))
+    usable = {}
+    for dev, g in d.groupby("device_id"):
+        g = g.set_index(pd.DatetimeIndex(pd.to_datetime(g["day"])))
+        s_, _ = usable_daily_pi(g["pi"], g["day_valid"], commissioned=inv.loc[dev, "commissioned"],
+                                stabilisation_days=stab)
+        usable[dev] = (s_, g)
+    if device_id != "(site)":
+        series = usable[device_id][0] if device_id in usable else pd.Series(dtype=float)
+    else:
+        num = pd.concat([g["e_ac_valid_kwh"].reindex(s_.index) for s_, g in usable.values()],
+                        axis=1).sum(axis=1, min_count=1)
+        den = pd.concat([g["e_exp_valid_kwh"].reindex(s_.index) for s_, g in usable.values()],
+                        axis=1).sum(axis=1, min_count=1)
+        n = pd.concat([pd.Series(1, s_.index) for s_, _ in usable.values()], axis=1).sum(axis=1)
+        ok = (n >= frac * len(usable)) & (den > 0)
+        series = (num / den)[ok]
+    if series.empty:
+        return pd.Series(dtype=float, name="rd_pct_per_yr")
+    return yoy_rates(series)
+
+
+@_cache
+def pair_grid(url: str, site_id: str, device_id: str) -> pd.DataFrame:
+    """Year x season medians of the pair rates (:func:`analytics.reporting.pair_rate_grid`)."""
+    return pair_rate_grid(pair_rates(url, site_id, device_id))
+
+
+@_cache
+def soiling_summary(url: str, site_id: str) -> dict | None:
+    """The site's soiling result for its own panel: the insolation-weighted loss over the
+    whole period (1 − SR, Deceglie et al. 2018) with its Monte-Carlo range, the present loss
+    and soiling rate, the cleaning economics, and the lost energy of every dry period.
+    None when the site has no soiling flag."""
+    fl = queries.flags_overlapping(engine(url), site_id, kinds=["soiling"])
+    if fl.empty:
+        return None
+    fl = fl.sort_values("start_s").reset_index(drop=True)
+    dets = [(_json_text(t) or {}) for t in fl["details_json"]]
+    last = next((d for d in reversed(dets) if _soiling_site_ratio(d) is not None), dets[-1])
+    sr = _soiling_site_ratio(last)
+    mc = next((v for v in last.values() if isinstance(v, dict)
+               and any(str(k).endswith("_low") for k in v)
+               and any(str(k).endswith("_high") for k in v)), {})
+    lo = next((v for k, v in mc.items() if str(k).endswith("_low")), None)
+    hi = next((v for k, v in mc.items() if str(k).endswith("_high")), None)
+    period = next((v for k, v in last.items() if str(k).endswith("_period")
+                   and isinstance(v, list)), None)
+    econ = economics(url, site_id)
+    periods = pd.DataFrame({
+        "first_day": [d.get("first_day") for d in dets],
+        "last_day": [d.get("last_day") for d in dets],
+        "lost_kwh": fl["lost_kwh"].astype(float),
+        "loss_at_end_pct": [d.get("loss_at_end_pct") for d in dets],
+        "rate_pct_per_day": [d.get("soiling_rate_pct_per_day") for d in dets],
+        "severity": fl["severity"]})
+    periods["lost_revenue"] = (periods["lost_kwh"] * econ["tariff_per_kwh"]
+                               if econ else np.nan)
+    return {"loss_pct": None if sr is None else 100 * (1 - sr),
+            "loss_low_pct": None if hi is None else 100 * (1 - hi),
+            "loss_high_pct": None if lo is None else 100 * (1 - lo),
+            "mc_assumption": next((v for k, v in last.items() if str(k).endswith("assumption")),
+                                  None),
+            "period": period, "current_loss_pct": last.get("current_loss_pct"),
+            "rate_pct_per_day": last.get("soiling_rate_pct_per_day"),
+            "rate_ci_pct_per_day": last.get("soiling_rate_ci_pct_per_day"),
+            "recommendation": last.get("recommendation"),
+            "recommend_cleaning": last.get("recommend_cleaning"),
+            "cleaning_cost": last.get("cleaning_cost"),
+            "saving": last.get("expected_saving_next_days"),
+            "horizon_days": last.get("horizon_days"),
+            "t_star_days": last.get("cleaning_interval_days_opt"),
+            "currency": last.get("currency") or econ.get("currency", ""),
+            "caution": last.get("caution"), "ongoing": bool(last.get("ongoing")),
+            "periods": periods}
+
+
+def _soiling_site_ratio(d: dict):
+    for k in ("soiling_ratio_weighted", "soiling_ratio_weighted_site", "sr_iw_site"):
+        if isinstance(d.get(k), (int, float)):
+            return float(d[k])
+    return None
 
 
 def summary_details(results: pd.DataFrame, device_id: str) -> dict:
@@ -618,22 +733,6 @@ def _num(x):
     return None if x is None or pd.isna(x) else float(x)
 
 
-def yoy_histogram_data(results: pd.DataFrame, device_id: str, method: str = "yoy") -> dict | None:
-    """The stored year-on-year pair-rate histogram (``edges_pct_per_yr``, ``counts``) of one
-    device, with its rate and interval; None when not stored."""
-    r = results[(results["device_id"] == device_id) & (results["method"] == method)]
-    if r.empty:
-        return None
-    r = r.iloc[0]
-    h = (r["details"] or {}).get("histogram")
-    if not h or not h.get("counts"):
-        return None
-    return {"edges": h["edges_pct_per_yr"], "counts": h["counts"],
-            "rate": _num(r["rate_pct_per_yr"]), "ci": (_num(r["ci_low"]), _num(r["ci_high"])),
-            "ci_68": (r["details"] or {}).get("ci_68"), "confidence": _num(r["confidence"]),
-            "n_points": r["n_points"]}
-
-
 @_cache
 def warranty_terms(url: str, site_id: str) -> dict | None:
     """The ``[warranty]`` table of the site's configuration as loaded (None when absent)."""
@@ -655,21 +754,28 @@ def warranty_terms(url: str, site_id: str) -> dict | None:
 
 @_cache
 def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict | None:
-    """Warranted envelope against the measured index for one inverter (or ``"(site)"``).
+    """Warranted envelope against the measured index for one inverter (or ``"(site)"``),
+    for the rate of ``method`` (the recommended method by default on the page).
 
     Monthly insolation-weighted PI (ratio of sums of valid days,
     :func:`analytics.performance_ratio.period_sums`) goes to
-    :func:`analytics.warranty.warranty_envelope` with the stored rate of ``method``;
-    :func:`analytics.warranty.warranty_rate_test` gives the one-sided verdict. Returns
-    ``envelope`` (years, warranted_pct), ``measured`` (years, index_pct, lo_pct, hi_pct from the
-    rate interval), ``monthly`` (years, relative_pct), ``shortfall_kwh``, ``months_below``,
-    ``test`` and ``terms``; None without warranty terms or a rate.
+    :func:`analytics.warranty.warranty_envelope` with the stored rate of ``method``. The
+    one-sided verdict is the stored one when the degradation job screened the same method
+    (so the page says what ``heliaudit results`` says), else
+    :func:`analytics.warranty.warranty_rate_test` with the run's extra uncertainty. The
+    shortfall is the part the rate attributes to degradation
+    (:func:`analytics.reporting.shortfall_from_rate`), not the monthly dips. Returns
+    ``envelope`` (years, warranted_pct), ``measured`` (years, index_pct, lo_pct, hi_pct),
+    ``monthly`` (years, relative_pct), ``shortfall_kwh``, ``months_below`` (monthly index
+    under the envelope), ``test`` and ``terms``; None without warranty terms or a rate.
     """
     res = degradation_table(url, site_id)
     stored = summary_details(res, device_id).get("warranty") or {}
-    if stored.get("envelope") and stored.get("method") == method:
-        return _stored_warranty(stored, res, device_id)
+    stored_method = method_code(stored.get("measured_method") or stored.get("method"))
     terms = warranty_terms(url, site_id)
+    if terms is None and stored.get("terms"):
+        terms = dict(stored["terms"])
+        terms["start_date"] = dt.date.fromisoformat(str(terms["start_date"])[:10])
     r = res[(res["device_id"] == device_id) & (res["method"] == method)]
     if terms is None or r.empty or pd.isna(r["rate_pct_per_yr"].iloc[0]):
         return None
@@ -690,13 +796,32 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
                             first_year_loss_pct=terms["first_year_loss_pct"],
                             annual_loss_pct=terms["annual_loss_pct"],
                             term_years=terms["years"], rate_pct_per_yr=rate)
-    test = None
-    if _num(r["ci_high"]) is not None and _num(r["confidence"]) is not None:
-        test = warranty_rate_test(rate, float(r["ci_high"]), float(r["confidence"]),
-                                  annual_loss_pct=terms["annual_loss_pct"],
-                                  confidence=terms["confidence"])
-    return _warranty_frames(terms, r, method, pd.DataFrame(env["months"]),
-                            env["shortfall_kwh"], env["months_below"], test)
+    months = pd.DataFrame(env["months"])
+    if stored_method == method and "exceeds" in stored:
+        test = {k: stored[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
+                                       "warranted_rate_pct_per_yr") if k in stored}
+    elif _num(r["ci_high"]) is not None and _num(r["confidence"]) is not None:
+        comp = db_degradation.last_computation(engine(url), site_id) or {}
+        extra = float((comp.get("params") or {}).get("sigma_extra_pct_per_yr", 0.0) or 0.0)
+        try:
+            test = warranty_rate_test(rate, float(r["ci_high"]), float(r["confidence"]),
+                                      annual_loss_pct=terms["annual_loss_pct"],
+                                      confidence=terms["confidence"],
+                                      sigma_extra_pct_per_yr=extra)
+        except TypeError:  # an analytics version without the extra-uncertainty term
+            test = warranty_rate_test(rate, float(r["ci_high"]), float(r["confidence"]),
+                                      annual_loss_pct=terms["annual_loss_pct"],
+                                      confidence=terms["confidence"])
+    else:
+        test = None
+    shortfall = None
+    if not months.empty:
+        e = e_m.reindex(pd.DatetimeIndex(pd.to_datetime(months["month"] + "-01"))).to_numpy()
+        shortfall = shortfall_from_rate(months["years"].to_numpy(dtype=float), e,
+                                        months["warranted"].to_numpy(dtype=float), rate)
+    out = _warranty_frames(terms, r, method, months, shortfall, env["months_below"], test)
+    out["shortfall_monthly_kwh"] = env["shortfall_kwh"]
+    return out
 
 
 def _warranty_frames(terms: dict, r, method: str, months: pd.DataFrame, shortfall_kwh,
@@ -719,16 +844,6 @@ def _warranty_frames(terms: dict, r, method: str, months: pd.DataFrame, shortfal
             "monthly": (months.assign(relative_pct=100 * months["relative"])
                         if not months.empty else months),
             "shortfall_kwh": shortfall_kwh, "months_below": months_below, "test": test}
-
-
-def _stored_warranty(w: dict, res: pd.DataFrame, device_id: str) -> dict:
-    """The warranty block the degradation job stored, as frames for the chart."""
-    r = res[(res["device_id"] == device_id) & (res["method"] == w["method"])].iloc[0]
-    test = ({k: w[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
-                               "warranted_rate_pct_per_yr") if k in w}
-            if "exceeds" in w else None)
-    return _warranty_frames(dict(w["terms"]), r, w["method"], pd.DataFrame(w["envelope"]),
-                            w.get("shortfall_kwh"), w.get("months_below"), test)
 
 
 # ---------------------------------------------------------------- drill-down
