@@ -298,8 +298,8 @@ def pair_grid_chart(grid: pd.DataFrame, warranted_pct_per_yr: float | None = Non
     n = g.pivot(index="year", columns="season", values="n_pairs").reindex(
         columns=list(SEASON_ORDER))
     mid = float(warranted_pct_per_yr) if warranted_pct_per_yr is not None else 0.0
-    text = [[("" if not np.isfinite(v) else f"{v:+.1f}<br><span style='font-size:10px'>"
-              f"{int(c)} pairs</span>") for v, c in zip(zr, cr, strict=True)]
+    text = [[("" if not np.isfinite(v) else f"{v:+.1f}<br>({int(c)})")
+             for v, c in zip(zr, cr, strict=True)]
             for zr, cr in zip(z.to_numpy(dtype=float), n.fillna(0).to_numpy(), strict=True)]
     span = max(2.0, float(np.nanmax(np.abs(z.to_numpy(dtype=float) - mid)))
                if np.isfinite(z.to_numpy(dtype=float)).any() else 2.0)
@@ -308,10 +308,11 @@ def pair_grid_chart(grid: pd.DataFrame, warranted_pct_per_yr: float | None = Non
         z=z.to_numpy(dtype=float), x=list(z.columns), y=[str(y) for y in z.index],
         text=text, texttemplate="%{text}", colorscale=theme.DIVERGING, zmid=mid,
         zmin=mid - span, zmax=mid + span, xgap=3, ygap=3, hoverongaps=False,
+        textfont=dict(size=12),
         hovertemplate="%{y} %{x}: median pair rate %{z:+.2f} %/yr<extra></extra>",
         colorbar=dict(title=dict(text="Median pair<br>rate [%/yr]", side="right"),
                       thickness=14)))
-    fig.update_layout(template=TEMPLATE, height=max(260, 110 + 62 * len(z.index)),
+    fig.update_layout(template=TEMPLATE, height=420, margin=dict(t=50),
                       hovermode="closest", plot_bgcolor=theme.MISSING,
                       title=title or "Is the rate stable over the years and seasons?")
     fig.update_xaxes(title_text="Season of the later day of each pair", showgrid=False,
@@ -361,8 +362,10 @@ def year_rates_chart(grid: pd.DataFrame, rate: float | None = None,
             customdata=s["n_pairs"],
             hovertemplate="%{x} " + str(season) + ": median %{y:+.2f} %/yr, "
                           "%{customdata} pairs<extra></extra>"))
-    fig.update_layout(template=TEMPLATE, height=380, hovermode="closest", scattermode="group",
-                      title=title or "Which periods drive the rate?")
+    fig.update_layout(template=TEMPLATE, height=420, hovermode="closest", scattermode="group",
+                      title=title or "Which periods drive the rate?", margin=dict(t=50, b=120),
+                      legend=dict(orientation="h", x=0, xanchor="left", y=-0.22,
+                                  yanchor="top", font=dict(size=11)))
     fig.update_xaxes(title_text="Year of the later day of each pair", type="category",
                      categoryorder="array", categoryarray=years)
     fig.update_yaxes(title_text="Pair rate, median and middle half [%/yr]")

@@ -25,19 +25,18 @@ import pandas as pd
 import sqlalchemy as sa
 import streamlit as st
 
-from analytics.degradation import RateResult, compare_methods
+from analytics.degradation import RateResult, compare_methods, usable_daily_pi, yoy_rates
+from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label, method_code
 from analytics.performance_ratio import period_sums as monthly_sums
 from analytics.power import expected_ac_power
-from analytics.temperature import cell_temperature_from_module, sapm_parameters
-from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
-from analytics.degradation import usable_daily_pi, yoy_rates
-from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label, method_code
 from analytics.reporting import (
     normalise_methods,
     pair_rate_grid,
     recommended_rate,
     shortfall_from_rate,
 )
+from analytics.temperature import cell_temperature_from_module, sapm_parameters
+from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
 from analytics.weekly import period_kpis, week_share_of_lost_energy, weekly_comparison
 from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log

@@ -83,10 +83,11 @@ def with_display_times(t: pd.DataFrame, sel: dict) -> pd.DataFrame:
     return t
 
 
-def clean_frame(df: pd.DataFrame) -> pd.DataFrame:
+def clean_frame(df: pd.DataFrame, formats: dict | None = None) -> pd.DataFrame:
     """A frame ready for ``st.dataframe``: no "None" cells (missing text becomes "–",
-    missing numbers in a column become text "–" with the others formatted with thousands
-    separators), large numbers rounded so the grid's localized format shows separators."""
+    missing numbers in a column become text "–" with the others formatted by ``formats``
+    [column -> Python format] or with thousands separators), large numbers rounded so the
+    grid's localized format shows separators."""
     out = df.copy()
     for c in out.columns:
         col = out[c]
@@ -95,7 +96,8 @@ def clean_frame(df: pd.DataFrame) -> pd.DataFrame:
         if pd.api.types.is_numeric_dtype(col):
             if col.isna().any():
                 digits = 0 if col.abs().max(skipna=True) >= 100 else 3
-                out[c] = [("–" if pd.isna(x) else f"{x:,.{digits}f}") for x in col]
+                fmt = (formats or {}).get(c, f",.{digits}f")
+                out[c] = [("–" if pd.isna(x) else format(x, fmt)) for x in col]
             elif pd.api.types.is_float_dtype(col) and col.abs().max() >= 100:
                 out[c] = col.round(0)
             continue

@@ -22,7 +22,6 @@ from heliaudit.jobs_degradation import (
     results_table,
 )
 
-
 #: Decimals kept in CSV exports, by the end of a column's name (the unit): Wh resolution
 #: for energies, 0.0001 %/yr for rates, five decimals for fractions (PR 0.87421).
 CSV_DECIMALS = (("_kwh", 3), ("_kwhm2", 4), ("_kwhc", 2), ("_pct_per_yr", 4), ("_pct", 3),

@@ -23,13 +23,14 @@ devices = list(dict.fromkeys(sorted(res["device_id"], key=lambda d: (d != "(site
 device = st.selectbox("Device", devices, key="deg_device",
                       format_func=lambda d: "Whole site" if d == "(site)" else d)
 name = "the whole site" if device == "(site)" else device
+title_name = "Whole site" if device == "(site)" else device
 rec = data.recommended(res_all, device)
 terms = data.warranty_terms(url, site_id)
 warranted = -terms["annual_loss_pct"] if terms else None
 
 
 def _ci(lo, hi) -> str:
-    return f"{lo:+.2f} … {hi:+.2f}" if lo is not None and hi is not None else "–"
+    return f"{lo:+.2f} to {hi:+.2f}" if lo is not None and hi is not None else "–"
 
 
 # ---- 1. the recommended rate, its reasons and every caveat beside it
@@ -40,7 +41,7 @@ with st.container(border=True):
         st.info("No rate for this device" + (f": {rec['reason']}." if rec and rec.get("reason")
                                              else "."))
     else:
-        c = st.columns([2, 2, 3])
+        c = st.columns([2, 3, 3])
         conf = rec["confidence"] or 0.95
         c[0].metric("Recommended rate", f"{rec['rate_pct_per_yr']:+.2f} %/yr",
                     help="Negative = loss of power per year, relative to the first year.")
@@ -62,7 +63,7 @@ with st.container(border=True):
 grid = data.pair_grid(url, site_id, device)
 left, right = st.columns(2)
 left.plotly_chart(charts.pair_grid_chart(grid, warranted,
-                                         title=f"{name}: median pair rate by year and season"),
+                                         title=f"{title_name}: median pair rate (number of pairs)"),
                   theme=None, key="pair_grid")
 fallback_rate = res[(res["device_id"] == device) & (res["method"] == "sensor_year_pairs")]
 yoy_rate = (float(fallback_rate["rate_pct_per_yr"].iloc[0])
@@ -71,8 +72,7 @@ yoy_rate = (float(fallback_rate["rate_pct_per_yr"].iloc[0])
 yoy_ci = ((float(fallback_rate["ci_low"].iloc[0]), float(fallback_rate["ci_high"].iloc[0]))
           if yoy_rate is not None and fallback_rate["ci_low"].notna().iloc[0] else None)
 right.plotly_chart(charts.year_rates_chart(grid, yoy_rate, yoy_ci, warranted,
-                                           title=f"{name}: which years and seasons drive the "
-                                                 "rate?"),
+                                           title=f"{title_name}: pair rates by year and season"),
                    theme=None, key="year_rates")
 st.caption("Both charts use the pairs of days one year apart of the year-on-year method on "
            "the POA sensor (Jordan et al. 2018), grouped by the year and meteorological season "
@@ -111,7 +111,7 @@ else:
                     help="Σ over months of E_m · max(0, W_m / (1 + R t_m / 100) − 1): the "
                          "energy the array would have added at the warranted level if it had "
                          "lost only what the recommended rate R attributes to degradation.")
-        k[1].metric("Months of index below envelope", f"{w['months_below']}",
+        k[1].metric("Months below", f"{w['months_below']}",
                     help="Months whose measured (de-seasonalised) index lies under the "
                          "warranted envelope, for any reason.")
         caveats = rec["caveats"] if rec else []
@@ -160,16 +160,18 @@ table["recommended"] = [recs.get(d if d != "whole site" else "(site)") == m
                         for d, m in zip(table["device_id"], res["method"], strict=True)]
 table["reason"] = table["reason"].fillna("")
 table = table[["device_id", "method", "recommended", "kind", "rate_pct_per_yr", "ci_low",
-               "ci_high", "confidence", "n_points", "reason"]]
-st.dataframe(ui.clean_frame(table), hide_index=True, key="rates_table", column_config={
+               "ci_high", "n_points", "reason"]]
+st.dataframe(ui.clean_frame(table, {"rate_pct_per_yr": "+.2f", "ci_low": "+.2f",
+                                     "ci_high": "+.2f", "n_points": ",.0f"}),
+             hide_index=True, key="rates_table", column_config={
     "device_id": st.column_config.TextColumn("Device", width="small"),
     "method": st.column_config.TextColumn("Method", width="large"),
-    "recommended": st.column_config.CheckboxColumn("Recommended", width="small"),
+    "recommended": st.column_config.CheckboxColumn("Chosen", width="small",
+                                                   help="The recommended rate of the device."),
     "kind": st.column_config.TextColumn("Figure", width="medium"),
     "rate_pct_per_yr": st.column_config.NumberColumn("Rate [%/yr]", format="%+.2f"),
-    "ci_low": st.column_config.NumberColumn("Interval low [%/yr]", format="%+.2f"),
-    "ci_high": st.column_config.NumberColumn("Interval high [%/yr]", format="%+.2f"),
-    "confidence": st.column_config.NumberColumn("Level", format="percent"),
+    "ci_low": st.column_config.NumberColumn("Low [%/yr]", format="%+.2f"),
+    "ci_high": st.column_config.NumberColumn("High [%/yr]", format="%+.2f"),
     "n_points": st.column_config.NumberColumn("Points", format="localized"),
     "reason": st.column_config.TextColumn("Not computed because", width="large")})
 v = agree[agree["device_id"] == device]

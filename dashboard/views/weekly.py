@@ -71,7 +71,7 @@ m = st.columns(4)
 m[0].metric("Energy this week", f"{energy['e_ac_kwh'] / 1000:,.1f} MWh",
             help="Measured AC energy of every inverter over all days of the week.")
 m[1].metric("Expected energy", f"{energy['e_exp_kwh'] / 1000:,.1f} MWh",
-            delta=(f"measured {100 * (energy['ratio'] - 1):+.1f} % against expected"
+            delta=(f"{100 * (energy['ratio'] - 1):+.1f} % measured against expected"
                    if energy["ratio"] == energy["ratio"] else None), delta_color="off",
             help="The clean-plant model (PVWatts, Dobos 2014) from the measured irradiance and "
                  "cell temperature; it has no soiling, wiring or degradation losses, so a "
@@ -125,23 +125,31 @@ table = fleet.sort_values("d_peers_pct", na_position="last").assign(
     status=lambda f: f["worst_severity"].map({"alarm": "alarm", "warning": "warning",
                                               "none": ""}))
 table = table[["device_id", "status", "instrument", "e_ac_kwh", "yf_h", "pr_stc",
-               "d_trailing_pct", "d_peers_pct", "n_peers", "avail_energy", "lost_week_kwh",
-               "n_days_valid"]]
-st.dataframe(ui.clean_frame(table), hide_index=True, key="fleet_table", column_config={
+               "d_trailing_pct", "d_peers_pct", "avail_energy", "lost_week_kwh"]]
+st.dataframe(ui.clean_frame(table, {"d_trailing_pct": "+.1f", "d_peers_pct": "+.1f",
+                                    "pr_stc": ".3f", "yf_h": ".2f", "avail_energy": ".1%"}),
+             hide_index=True, key="fleet_table", use_container_width=True, column_config={
     "device_id": st.column_config.TextColumn("Inverter", width="small"),
-    "status": st.column_config.TextColumn("Worst flag", width="small"),
-    "instrument": st.column_config.TextColumn("POA sensor", width="small"),
-    "e_ac_kwh": st.column_config.NumberColumn("Energy [kWh]", format="localized"),
-    "yf_h": st.column_config.NumberColumn("Final yield [kWh/kWp]", format="%.2f"),
-    "pr_stc": st.column_config.NumberColumn("PR_STC", format="%.3f"),
+    "status": st.column_config.TextColumn("Flag", width="small",
+                                          help="Most severe warning or alarm of the week."),
+    "instrument": st.column_config.TextColumn("POA sensor", width="medium"),
+    "e_ac_kwh": st.column_config.NumberColumn("Energy [kWh]", format="localized",
+                                              width="small"),
+    "yf_h": st.column_config.NumberColumn("Yield [h]", format="%.2f", width="small",
+                                          help="Final yield, kWh per kWp of the week."),
+    "pr_stc": st.column_config.NumberColumn("PR_STC", format="%.3f", width="small"),
     "d_trailing_pct": st.column_config.NumberColumn(
-        f"vs own {data.TRAILING_WEEKS} weeks [%]", format="%+.1f"),
-    "d_peers_pct": st.column_config.NumberColumn("vs peers [%]", format="%+.1f"),
-    "n_peers": st.column_config.NumberColumn("Peers", format="%d",
-                                             help="Inverters in the comparison group."),
-    "avail_energy": st.column_config.NumberColumn("Availability", format="percent"),
-    "lost_week_kwh": st.column_config.NumberColumn("Lost this week [kWh]", format="localized"),
-    "n_days_valid": st.column_config.NumberColumn("Valid days", format="%d")})
+        "vs own [%]", format="%+.1f", width="small",
+        help=f"PR_STC against the inverter's own {data.TRAILING_WEEKS} weeks before."),
+    "d_peers_pct": st.column_config.NumberColumn(
+        "vs peers [%]", format="%+.1f", width="small",
+        help="PR_STC against the median of its peers (same group, same POA sensor type)."),
+    "avail_energy": st.column_config.NumberColumn("Availability", format="percent",
+                                                  width="small"),
+    "lost_week_kwh": st.column_config.NumberColumn("Lost [kWh]", format="localized",
+                                                   width="small",
+                                                   help="The week's share of the lost energy "
+                                                        "of the inverter's flags.")})
 
 left, right = st.columns([2, 3])
 left.plotly_chart(charts.fleet_quadrant(fleet), theme=None, key="quadrant")
@@ -168,18 +176,23 @@ if not flags.empty:
                                for o, e in zip(flags["ongoing"], flags["end_local"],
                                                strict=True)])
     t = ui.with_display_times(t, sel)
-    t = t[["open", "flag_id", "severity_label", "status", "device_label", "kind_label",
+    t = t[["open", "severity_label", "status", "device_label", "kind_label",
            "start_text", "end_text", "duration_text", "lost_week_kwh", "lost_kwh"]]
     st.dataframe(ui.clean_frame(t), hide_index=True, key="flag_table", column_config={
-        "open": st.column_config.LinkColumn("Drill-down", display_text="open ↗"),
-        "flag_id": st.column_config.NumberColumn("Flag", format="%d"),
-        "severity_label": "Severity", "status": "Started", "device_label": "Device",
-        "kind_label": "What", "start_text": f"Start ({ui.time_basis(short=True)})",
-        "end_text": "End",
-        "duration_text": "Duration",
-        "lost_week_kwh": st.column_config.NumberColumn("Lost this week [kWh]",
-                                                       format="localized"),
-        "lost_kwh": st.column_config.NumberColumn("Lost, whole flag [kWh]",
-                                                  format="localized")})
+        "open": st.column_config.LinkColumn("Flag", display_text=r"flag=(\d+)",
+                                            width="small"),
+        "severity_label": st.column_config.TextColumn("Severity", width="small"),
+        "status": st.column_config.TextColumn("Started", width="small"),
+        "device_label": st.column_config.TextColumn("Device", width="small"),
+        "kind_label": st.column_config.TextColumn("What", width="medium"),
+        "start_text": st.column_config.TextColumn(f"Start ({ui.time_basis(short=True)})",
+                                                  width="medium"),
+        "end_text": st.column_config.TextColumn("End", width="medium"),
+        "duration_text": st.column_config.TextColumn("Duration", width="small"),
+        "lost_week_kwh": st.column_config.NumberColumn("Lost, week [kWh]", format="localized",
+                                                       width="small"),
+        "lost_kwh": st.column_config.NumberColumn("Lost, all [kWh]", format="localized",
+                                                  width="small",
+                                                  help="The whole flag's lost energy.")})
 else:
     st.caption("No flags in this week.")
