@@ -208,10 +208,13 @@ else:
             soil["recommendation"][:1].upper() + soil["recommendation"][1:] + ".")
     lo, hi = soil.get("loss_low_pct"), soil.get("loss_high_pct")
     period = soil.get("period") or ["", ""]
-    st.caption(f"Bar: energy lost to soiling over {period[0]} … {period[1]}, weighted by "
-               f"insolation (Deceglie et al. 2018), {soil['loss_pct']:.2f} % if every cleaning "
-               "and washing rain restored the clean level"
-               + (f"; {lo:.2f} … {hi:.2f} % if recoveries were only partial (Monte-Carlo "
-                  "over the soiling rates' intervals and recoveries between half and full)"
-                  if lo is not None and hi is not None else "") + ". "
-               + (soil.get("caution") or ""))
+    if soil.get("loss_pct") is not None:
+        st.caption(f"Bar: energy lost to soiling over {period[0]} … {period[1]}, weighted by "
+                   f"insolation (Deceglie et al. 2018), {soil['loss_pct']:.2f} % if every "
+                   "cleaning and washing rain restored the clean level"
+                   + (f"; {lo:.2f} … {hi:.2f} % if recoveries were only partial (Monte-Carlo "
+                      "over the soiling rates' intervals and recoveries between half and full)"
+                      if lo is not None and hi is not None else "") + ". "
+                   + (soil.get("caution") or ""))
+    elif soil.get("caution"):
+        st.caption(soil["caution"])

@@ -128,7 +128,7 @@ table = table[["device_id", "status", "instrument", "e_ac_kwh", "yf_h", "pr_stc"
                "d_trailing_pct", "d_peers_pct", "avail_energy", "lost_week_kwh"]]
 st.dataframe(ui.clean_frame(table, {"d_trailing_pct": "+.1f", "d_peers_pct": "+.1f",
                                     "pr_stc": ".3f", "yf_h": ".2f", "avail_energy": ".1%"}),
-             hide_index=True, key="fleet_table", use_container_width=True, column_config={
+             hide_index=True, key="fleet_table", column_config={
     "device_id": st.column_config.TextColumn("Inverter", width="small"),
     "status": st.column_config.TextColumn("Flag", width="small",
                                           help="Most severe warning or alarm of the week."),
