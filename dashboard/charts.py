@@ -22,9 +22,13 @@ def _tz_label(std_offset_s: int) -> str:
     return f"Local standard time (UTC{sign}{h:02d}:{m:02d})"
 
 
-def _local(ts: pd.Series | pd.DatetimeIndex, std_offset_s: int):
-    """tz-aware UTC -> naive local standard time, for display."""
+def _local(ts: pd.Series | pd.DatetimeIndex, std_offset_s: int, tz: str | None = None):
+    """tz-aware UTC -> naive local time for display: standard time (``std_offset_s``), or
+    the wall clock of the zone ``tz`` (with daylight saving) when given."""
     idx = pd.DatetimeIndex(ts)
+    if tz is not None:
+        idx = idx if idx.tz is not None else idx.tz_localize("UTC")
+        return idx.tz_convert(tz).tz_localize(None)
     if idx.tz is not None:
         idx = idx.tz_convert("UTC").tz_localize(None)
     return idx + pd.Timedelta(seconds=int(std_offset_s))
@@ -470,7 +474,7 @@ def warranty_chart(envelope: pd.DataFrame | None, measured: pd.DataFrame | None 
 
 def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
               inverter_id: str, std_offset_s: int = 0,
-              highlight_flag_id: int | None = None) -> go.Figure:
+              highlight_flag_id: int | None = None, tz: str | None = None) -> go.Figure:
     """Four stacked panels on one zoomable time axis.
 
     1. AC power against expected AC power [kW]; 2. normalised power of the inverter and its
@@ -479,10 +483,10 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
     darker). The figure is assembled as one dict (one validation pass): a week of 5-minute
     data with a dozen peers builds in a few tens of milliseconds.
     """
-    x_title = _tz_label(std_offset_s)
+    x_title = _tz_label(std_offset_s) if tz is None else f"Local wall-clock time ({tz})"
     if frame.empty:
         return empty("No interval readings in this window", x_title, "AC power [kW]")
-    x = _local(frame.index, std_offset_s)
+    x = _local(frame.index, std_offset_s, tz)
 
     def line(y, name, axis, color, width=1.6, dash=None, **kw):
         return dict(type="scatter", mode="lines", x=x, y=np.asarray(y, dtype=float), name=name,
@@ -494,7 +498,7 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
         for k, (dev, g) in enumerate(peers.groupby("device_id", sort=True)):
             traces.append(dict(type="scatter", mode="lines", name="peers", legendgroup="peers",
                                showlegend=k == 0, xaxis="x", yaxis="y2", opacity=0.85,
-                               x=_local(g["ts_utc"], std_offset_s).to_numpy(),
+                               x=_local(g["ts_utc"], std_offset_s, tz).to_numpy(),
                                y=g["p_ac_kw_per_kwp"].to_numpy(dtype=float),
                                line=dict(color=theme.PEER, width=1),
                                hovertemplate=f"{dev}: " + "%{y:.3f} kW/kWp<extra></extra>"))
@@ -517,14 +521,22 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
         if not strong and (getattr(f, "severity", "warning") == "info"
                            or not isinstance(getattr(f, "device_id", inverter_id), str)):
             continue
-        a = max(pd.Timestamp(f.start_local), lo)
-        b = min(pd.Timestamp(f.end_local), hi)
+        if hasattr(f, "start_s"):
+            a = max(_local(pd.to_datetime([f.start_s], unit="s", utc=True), std_offset_s,
+                           tz)[0], lo)
+            b = min(_local(pd.to_datetime([f.end_s], unit="s", utc=True), std_offset_s,
+                           tz)[0], hi)
+        else:  # only local standard times given
+            a, b = max(pd.Timestamp(f.start_local), lo), min(pd.Timestamp(f.end_local), hi)
         if b <= a:
             continue
         fill = "rgba(213, 94, 0, 0.28)" if strong else theme.FLAG_FILL
         shapes.append(dict(type="rect", xref="x", yref="paper", x0=a, x1=b, y0=0, y1=1,
                            fillcolor=fill, line=dict(width=0), layer="below"))
-        notes.append(dict(x=a, y=1.0, xref="x", yref="paper", text=f"#{f.flag_id} {f.kind}",
+        from analytics.labels import kind_label
+
+        notes.append(dict(x=a, y=1.0, xref="x", yref="paper",
+                          text=f"#{f.flag_id} {kind_label(f.kind)}",
                           showarrow=False, xanchor="left", yanchor="bottom",
                           font=dict(size=10, color=theme.OKABE_ITO["vermillion"])))
     gap = 0.035
@@ -547,21 +559,25 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
 # ---------------------------------------------------------------- data quality
 
 
-def completeness_heatmap(comp: pd.DataFrame) -> go.Figure:
-    """Device x day completeness [%] (sequential Tol YlOrBr: light = complete, dark = gaps)."""
+def completeness_heatmap(comp: pd.DataFrame, period: str = "day") -> go.Figure:
+    """Device x period completeness [%] (sequential Tol YlOrBr: light = complete, dark =
+    gaps); ``period`` "week" or "month" when the columns are periods (means of days)."""
+    x_word, x_fmt, p_word = PERIOD_WORDS.get(period, PERIOD_WORDS["day"])
     if comp.empty:
-        return empty("No devices", "Day (local standard time)", "Device · quantity")
+        return empty("No devices", f"{x_word} (local standard time)", "Device · quantity")
     z = 100 * comp.to_numpy(dtype=float)
     fig = go.Figure(go.Heatmap(
         z=z, x=pd.to_datetime(pd.Index(comp.columns)), y=list(comp.index),
-        colorscale=theme.SEQUENTIAL_GAPS, zmin=0, zmax=100, xgap=1, ygap=1,
-        hovertemplate="%{y} · %{x|%Y-%m-%d}: %{z:.0f} % of intervals<extra></extra>",
+        colorscale=theme.SEQUENTIAL_GAPS, zmin=0, zmax=100,
+        xgap=1 if comp.shape[1] <= 200 else 0, ygap=1,
+        hovertemplate="%{y} · " + p_word + " %{x|" + x_fmt + "}: %{z:.0f} % of intervals"
+                      "<extra></extra>",
         colorbar=dict(title=dict(text="Readings<br>present [%]", side="right"),
                       ticksuffix=" %", thickness=14)))
     n = len(comp.index)
     fig.update_layout(template=TEMPLATE, height=_heat_height(n), hovermode="closest",
-                      title="Completeness per device and day")
-    fig.update_xaxes(title_text="Day (local standard time)", showgrid=False)
+                      title=f"Completeness per device and {p_word}")
+    fig.update_xaxes(title_text=f"{x_word} (local standard time)", showgrid=False)
     fig.update_yaxes(title_text="Device · quantity", autorange="reversed", showgrid=False,
                      type="category", dtick=1 if n <= 60 else None,
                      tickfont=dict(size=10 if n > 40 else 12))

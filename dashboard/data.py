@@ -351,6 +351,16 @@ def heat_period(start: dt.date, end: dt.date) -> str:
         else "month"
 
 
+def aggregate_columns(wide: pd.DataFrame, period: str) -> pd.DataFrame:
+    """Mean over the days of each week or month of a device x day matrix (columns = days);
+    the new columns are the first day of each period."""
+    if wide.empty or period == "day":
+        return wide
+    starts = _period_start(wide.columns, period).date
+    out = wide.T.groupby(starts).mean().T
+    return out
+
+
 def _period_start(days, period: str) -> pd.DatetimeIndex:
     idx = pd.DatetimeIndex(pd.to_datetime(pd.Series(list(days))))
     if period == "week":  # weeks start on Monday (ISO 8601)

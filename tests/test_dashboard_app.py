@@ -478,3 +478,63 @@ def test_pages_show_none_of_the_schema_1_codes(store, page):
     assert "Measured" in text or len(text) > 1000  # the walk really saw the page
     hits = sorted({m.group(0) for m in OLD_CODES.finditer(text)})
     assert hits == [], f"{page}: {hits}"
+
+
+# ---------------------------------------------------------------- words, not codes
+
+
+def _visible_texts(at: AppTest) -> list[str]:
+    out = []
+    for kind in ("title", "subheader", "header", "caption", "markdown", "warning", "info",
+                 "success", "error"):
+        out += [str(e.value) for e in at.get(kind)]
+    for m in at.metric:
+        out += [m.label, str(m.value)]
+    out += [p.proto.label for p in at.get("page_link")]
+    for sb in at.selectbox:
+        out += [str(o) for o in sb.options]
+    for d in at.dataframe:
+        frame = d.value
+        out += [str(c) for c in frame.columns]
+        for c in frame.columns:
+            if frame[c].dtype == object:
+                out += [str(x) for x in frame[c]]
+    return out
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_no_raw_code_on_screen(store, page):
+    """Issue #15: human words for every code (flag kinds, method codes, caveat kinds)."""
+    import re
+
+    from analytics.labels import CAVEAT_LABELS, FLAG_KIND_LABELS, METHOD_LABELS
+
+    # the codes that are not plain English words (soiling, clipping, ... are)
+    codes = sorted(c for c in {*FLAG_KIND_LABELS, *METHOD_LABELS, *CAVEAT_LABELS} if "_" in c)
+    pattern = re.compile(r"(?<![\w./-])(" + "|".join(map(re.escape, codes)) + r")(?![\w-])")
+    f = _inverter_flag(store)
+    at = _app(page, **({"flag": str(f["flag_id"])} if page.endswith("drilldown.py") else {}))
+    texts = _visible_texts(at)
+    assert len(texts) > 10
+    hits = sorted({m.group(1) for t in texts for m in pattern.finditer(t)})
+    assert hits == [], f"{page}: raw codes on screen: {hits}"
+
+
+def test_wall_clock_option_shifts_event_times_by_daylight_saving(store):
+    """Tables of events show local standard time by default, the site's wall clock on
+    request (Europe/Madrid: +1 h in summer, tz database)."""
+    eng, site = store["engine"], store["site_id"]
+    info = queries.sites(eng).set_index("site_id").loc[site]
+    f = _inverter_flag(store)
+    at = _app("views/drilldown.py", flag=str(f["flag_id"]))
+    std = _frame(at, "start_text").set_index("flag_id")["start_text"]
+    at.toggle(key="wall_clock").set_value(True).run()
+    assert not at.exception
+    wall = _frame(at, "start_text").set_index("flag_id")["start_text"]
+    for fid in std.index:
+        row = read_flags(eng, site).set_index("flag_id").loc[fid]
+        t = pd.Timestamp(int(row["start_s"]), unit="s", tz="UTC").tz_convert(info["timezone"])
+        assert wall[fid] == t.strftime("%Y-%m-%d %H:%M")
+        dst_h = t.dst().total_seconds() / 3600
+        shift = (pd.Timestamp(wall[fid]) - pd.Timestamp(std[fid])).total_seconds() / 3600
+        assert shift == dst_h

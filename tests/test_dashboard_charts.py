@@ -19,7 +19,7 @@ UNIT = re.compile(r"\[[^\]]+\]")
 NO_UNIT_OK = ("Inverter", "Device", "File", "Day (local standard time)",
               "Local standard time", "Week starting (local standard time)",
               "Month (local standard time)", "Season of the later day", "Year of the later day",
-              "Start of the dry period", "Dry period")
+              "Start of the dry period", "Dry period", "Local wall-clock time")
 
 
 def _axis_titles(fig) -> dict[str, str]:
@@ -246,12 +246,18 @@ def test_drilldown_panels_units_flags_and_local_time():
     assert first == pd.Timestamp("2024-06-01T01:00")  # 00:00 UTC shown as 01:00 UTC+1
     assert len(fig.layout.shapes) == 1  # the flag, shaded across all four panels
     assert fig.layout.shapes[0].yref == "paper" and fig.layout.shapes[0].fillcolor.endswith("0.28)")
-    assert "#7 outage" in fig.layout.annotations[0].text
+    assert "#7 Outage" in fig.layout.annotations[0].text  # words, not the code
     assert {t.xaxis for t in fig.data} == {"x"}  # one zoomable time axis for every panel
     # an info flag or a site-wide flag is listed, not shaded
     info = flags.assign(flag_id=8, severity="info", device_id="INV-1")
     assert not charts.drilldown(f, peers, info, "INV-1", 3600).layout.shapes
     assert any(t.name == "peers" for t in fig.data)
+    # the wall-clock option: Europe/Madrid in June is UTC+2 (CEST, tz database)
+    wall = charts.drilldown(f, peers, flags.assign(start_s=int(t0.timestamp()) - 3600,
+                                                   end_s=int(t0.timestamp()) + 3600),
+                            "INV-1", std_offset_s=3600, tz="Europe/Madrid")
+    assert pd.Timestamp(wall.data[0].x[0]) == pd.Timestamp("2024-06-01T02:00")
+    assert wall.layout.xaxis.title.text == "Local wall-clock time (Europe/Madrid)"
 
 
 def test_drilldown_empty_frame():

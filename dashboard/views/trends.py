@@ -2,6 +2,7 @@
 
 import streamlit as st
 
+from analytics.labels import RELATIVE_METHODS, kind_label, method_label
 from dashboard import charts, data, ui
 
 sel = ui.selection()
@@ -24,8 +25,10 @@ period = c2.radio("Period", ["Full history", "Selected date range"], horizontal=
 results = data.degradation_table(url, site_id)
 rates = data.rates_only(results).dropna(subset=["rate_pct_per_yr"])
 methods = sorted(rates["method"].unique(), key=lambda m: (m != "sensor_year_pairs", m))
+methods = [m for m in methods if m not in RELATIVE_METHODS]  # not rates of the plant
 method = c3.selectbox("Degradation fit", ["(none)", *methods], key="trend_method",
-                      index=1 if methods else 0)
+                      index=1 if methods else 0,
+                      format_func=lambda m: "none" if m == "(none)" else method_label(m))
 
 start, end = ((None, None) if period == "Full history" else (sel["start"], sel["end"]))
 chosen, peers = data.pr_trend(url, site_id, tuple(chosen_ids), start, end)
@@ -36,6 +39,8 @@ mine = flags[flags["device_id"].isin(chosen_ids)] if flags is not None else None
 # mark days of warnings and alarms (info flags such as clipping would cover everything)
 serious = mine[mine["severity"] != "info"] if mine is not None else None
 flagged = data.flagged_days(chosen, serious, sel["offset_s"]) if serious is not None else None
+if flagged is not None and not flagged.empty:
+    flagged = flagged.assign(kind=[kind_label(k) for k in flagged["kind"]])
 soiling = (flags[flags["kind"].str.contains(data.SOILING_KIND, case=False, na=False)
                  & (flags["device_id"].isin(chosen_ids) | flags["device_id"].isna())]
            if flags is not None else None)
@@ -44,7 +49,7 @@ if method != "(none)":
     for dev in chosen_ids:
         f = data.degradation_fit_line(chosen, results, dev, method)
         if f is not None:
-            fits[f"{dev} {method} fit"] = f
+            fits[f"{dev} fit: {method_label(method).lower()}"] = f
 st.plotly_chart(charts.pr_trend(chosen, peers, flagged, soiling, fits), theme=None,
                 key="trend_chart")
 st.caption(f"Dots: daily PR_STC on valid days; lines: centred {data.ROLLING_DAYS}-day rolling "
@@ -54,9 +59,12 @@ st.caption(f"Dots: daily PR_STC on valid days; lines: centred {data.ROLLING_DAYS
            "with the rate's confidence interval as the band.")
 
 if fits:
-    r = results[results["device_id"].isin(chosen_ids) & (results["method"] == method)]
-    st.dataframe(r[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
-                    "confidence", "n_points"]], hide_index=True, column_config={
+    r = results[results["device_id"].isin(chosen_ids) & (results["method"] == method)].copy()
+    r["method"] = r["method"].map(method_label)
+    st.dataframe(ui.clean_frame(r[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
+                                   "confidence", "n_points"]],
+                                {"rate_pct_per_yr": "+.2f", "ci_low": "+.2f", "ci_high": "+.2f"}),
+                 hide_index=True, column_config={
         "device_id": "Inverter", "method": "Method",
         "rate_pct_per_yr": st.column_config.NumberColumn("Rd [%/yr]", format="%+.2f"),
         "ci_low": st.column_config.NumberColumn("CI low [%/yr]", format="%+.2f"),
