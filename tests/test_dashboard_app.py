@@ -538,3 +538,64 @@ def test_wall_clock_option_shifts_event_times_by_daylight_saving(store):
         dst_h = t.dst().total_seconds() / 3600
         shift = (pd.Timestamp(wall[fid]) - pd.Timestamp(std[fid])).total_seconds() / 3600
         assert shift == dst_h
+
+
+# ---------------------------------------------------------------- the bundled demo
+
+
+@pytest.fixture(scope="module")
+def demo(demo_store):
+    old = os.environ.get(ENV_VAR)
+    os.environ[ENV_VAR] = demo_store["url"]
+    eng = make_engine(demo_store["url"], create=False)
+    yield {**demo_store, "engine": eng}
+    eng.dispose()
+    if old is None:
+        os.environ.pop(ENV_VAR, None)
+    else:
+        os.environ[ENV_VAR] = old
+
+
+@pytest.mark.slow
+def test_demo_caveats_sit_beside_the_rates_they_qualify(demo):
+    """The demo's known effects (truth.json of our generator): INV-05 loses a string on
+    2023-09-12 (a level shift), INV-08..14 are measured by a pyranometer drifting −0.8 %/yr
+    from 2023-07. Their recommended rates carry those caveats, shown beside the rate; no
+    page contradicts `heliaudit results`."""
+    from heliaudit.jobs_degradation import results_document
+
+    eng, site = demo["engine"], demo["site_id"]
+    res = degradation_results(eng, site)
+    doc = results_document(eng, site)
+    from analytics.reporting import recommended_rate
+
+    at = _app("views/degradation.py")
+    expect = {"INV-05": "level_shift", **{f"INV-{k:02d}": "sensor_drift" for k in range(8, 15)}}
+    for dev, kind in expect.items():
+        at.selectbox(key="deg_device").set_value(dev).run()
+        assert not at.exception
+        block = next(b for b in doc["inverters"] if b["device_id"] == dev)
+        rec = block.get("recommended") or recommended_rate(res, dev)
+        kinds = {c["kind"] for c in rec["caveats"]}
+        # a drift caveat, or a rate chosen so that the sensor drift does not enter it
+        assert kind in kinds or (kind == "sensor_drift" and rec["method"] in (
+            "modelled_sky_year_pairs",)) or (kind == "level_shift" and rec["method"] ==
+                                             "sensor_year_pairs_between_shifts"), (dev, rec)
+        _check_device_against_results(at, doc, res, dev)
+    for dev in ["(site)", "INV-01"]:
+        at.selectbox(key="deg_device").set_value(dev).run()
+        _check_device_against_results(at, doc, res, dev)
+
+
+@pytest.mark.slow
+def test_demo_weekly_check_shows_the_open_alarm_first(demo):
+    at = _app("views/weekly.py")
+    links = [p.proto.label for p in at.get("page_link")]
+    first = links[0]
+    assert first.startswith("STILL OPEN") and "INV-05" in first and "since 2023-09-12" in first
+    assert "lost this week" in first
+    assert any("energised" in c.value for c in at.caption)
+    # the weekly lost energy is the week's share, far below the alarm's 22-month total
+    shown = float(_metric(at, "Lost energy (flags, this week)").split()[0].replace(",", ""))
+    end = at.date_input(key="window").value[1]
+    assert shown == pytest.approx(_week_share_independent(demo, end), abs=1.0)
