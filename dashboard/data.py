@@ -436,10 +436,10 @@ def _flag_table(fl: pd.DataFrame, std_offset_s: int, data_end_s: int | None = No
     out = fl.copy()
     out["start_local"] = s_to_local(out["start_s"], std_offset_s).values
     out["ongoing"] = [is_ongoing(r, data_end_s) for r in out.to_dict("records")]
-    end_local = s_to_local(out["end_s"], std_offset_s)
-    out["end_local"] = end_local.where(~out["ongoing"].to_numpy()).values
     last = data_end_s if data_end_s is not None else out["end_s"]
     span_end = np.where(out["ongoing"], last, out["end_s"]) if len(out) else []
+    # charts shade up to the end of the data for an open flag; tables say "ongoing"
+    out["end_local"] = s_to_local(pd.Series(span_end, dtype="float64"), std_offset_s).values
     out["duration_h"] = (pd.Series(span_end, index=out.index, dtype=float)
                          - out["start_s"]) / 3600.0
     out["duration_text"] = [duration_text(h, o) for h, o in zip(out["duration_h"],
@@ -456,8 +456,8 @@ def week_flags(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
     """Flags overlapping the week ending ``end``: alarms, then warnings, then info; within a
     severity new ones (starting in the week) and then the week's share of lost energy.
     Adds ``is_new``, ``ongoing`` (still open at the end of the data), ``lost_week_kwh``
-    (the week's share of the flag's lost energy), ``start_local``, ``end_local`` (NaT when
-    ongoing), ``duration_h`` (so far, when ongoing) and human labels."""
+    (the week's share of the flag's lost energy), ``start_local``, ``end_local`` (the end
+    of the data when ongoing), ``duration_h`` (so far, when ongoing) and human labels."""
     info = site_info(url, site_id)
     a, b = _week_bounds_s(url, site_id, end)
     fl = queries.flags_overlapping(engine(url), site_id, a, b)
