@@ -43,6 +43,10 @@ def _row(results: pd.DataFrame, device_id: str, method: str):
     return None if r.empty else r.iloc[0]
 
 
+def _lower_first(text: str) -> str:
+    return text[:1].lower() + text[1:] if text[1:2].islower() else text
+
+
 def _fallback_caveats(overview: dict, rate_row) -> list[dict]:
     caveats = []
     for cp in overview.get("change_points", []) or []:
@@ -71,7 +75,7 @@ def _fallback_caveats(overview: dict, rate_row) -> list[dict]:
     if comp.get("agree") is False and comp.get("disagreements"):
         caveats.append({"kind": "methods_disagree", "method": None, "text": (
             "The intervals of some methods do not overlap: "
-            + "; ".join(" against ".join(method_label(m).lower() for m in p)
+            + "; ".join(" against ".join(_lower_first(method_label(m)) for m in p)
                         for p in comp["disagreements"]) + ".")})
     seen, out = set(), []
     for c in caveats:  # one caveat per kind
