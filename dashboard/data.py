@@ -806,6 +806,13 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
                             annual_loss_pct=terms["annual_loss_pct"],
                             term_years=terms["years"], rate_pct_per_yr=rate)
     months = pd.DataFrame(env["months"])
+    months_below, monthly_kwh = env["months_below"], env["shortfall_kwh"]
+    if stored_method == method and stored.get("envelope"):
+        # the job's envelope (de-seasonalised index) and figures: what `heliaudit results`
+        # exports, so the page never shows another number for the same thing
+        months = pd.DataFrame(stored["envelope"])
+        months_below = stored.get("months_below")
+        monthly_kwh = stored.get("shortfall_kwh")
     if stored_method == method and "exceeds" in stored:
         test = {k: stored[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
                                        "warranted_rate_pct_per_yr") if k in stored}
@@ -828,8 +835,9 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
         e = e_m.reindex(pd.DatetimeIndex(pd.to_datetime(months["month"] + "-01"))).to_numpy()
         shortfall = shortfall_from_rate(months["years"].to_numpy(dtype=float), e,
                                         months["warranted"].to_numpy(dtype=float), rate)
-    out = _warranty_frames(terms, r, method, months, shortfall, env["months_below"], test)
-    out["shortfall_monthly_kwh"] = env["shortfall_kwh"]
+    out = _warranty_frames(terms, r, method, months, shortfall, months_below, test)
+    out["shortfall_monthly_kwh"] = monthly_kwh
+    out["stored"] = stored_method == method and bool(stored.get("envelope"))
     return out
 
 

@@ -133,8 +133,10 @@ else:
                    "level steps from failures (a string or module fault is a repair, not "
                    "degradation) and initial light-induced loss (the index has no absolute "
                    "baseline: 100 % is set at the warranty start). "
-                   + (f"Counting every month under the envelope instead would give "
-                      f"{w['shortfall_monthly_kwh']:,.0f} kWh."
+                   + (f"Every month of the index under the envelope, for any reason, adds up "
+                      f"to {w['shortfall_monthly_kwh']:,.0f} kWh"
+                      + (" (`shortfall_kwh` of `heliaudit results`)" if w.get("stored") else "")
+                      + ": that is not evidence of degradation."
                       if w.get("shortfall_monthly_kwh") is not None else ""))
 
 # ---- 4. every method, rates and relative figures on their own axes
