@@ -395,6 +395,10 @@ def _check_device_against_results(at: AppTest, doc: dict, res: pd.DataFrame, dev
     if "exceeds" in w and measured in (rec.get("method"), None):
         errors = [e for e in _texts(at, "error") if "one-sided" in e]
         assert bool(errors) == bool(w["exceeds"]), dev
+        if w.get("months_below") is not None and w.get("envelope"):
+            assert _metric(at, "Months below") == f"{w['months_below']}", dev
+        if w.get("shortfall_kwh") is not None and w.get("envelope"):
+            assert any(f"{w['shortfall_kwh']:,.0f} kWh" in c for c in _texts(at, "caption"))
     if rec.get("caveats"):  # a caveat never sits beside a green verdict
         assert not [x for x in _texts(at, "success") if "one-sided" in x], dev
 
