@@ -634,10 +634,11 @@ def pair_rates(url: str, site_id: str, device_id: str) -> pd.Series:
         series = usable[device_id][0] if device_id in usable else pd.Series(dtype=float)
     else:
         num = pd.concat([g["e_ac_valid_kwh"].reindex(s_.index) for s_, g in usable.values()],
-                        axis=1).sum(axis=1, min_count=1)
+                        axis=1, sort=True).sum(axis=1, min_count=1)
         den = pd.concat([g["e_exp_valid_kwh"].reindex(s_.index) for s_, g in usable.values()],
-                        axis=1).sum(axis=1, min_count=1)
-        n = pd.concat([pd.Series(1, s_.index) for s_, _ in usable.values()], axis=1).sum(axis=1)
+                        axis=1, sort=True).sum(axis=1, min_count=1)
+        n = pd.concat([pd.Series(1, s_.index) for s_, _ in usable.values()], axis=1,
+                      sort=True).sum(axis=1)
         ok = (n >= frac * len(usable)) & (den > 0)
         series = (num / den)[ok]
     if series.empty:
