@@ -665,9 +665,14 @@ def soiling_summary(url: str, site_id: str) -> dict | None:
     dets = [(_json_text(t) or {}) for t in fl["details_json"]]
     last = next((d for d in reversed(dets) if _soiling_site_ratio(d) is not None), dets[-1])
     sr = _soiling_site_ratio(last)
-    mc = next((v for v in last.values() if isinstance(v, dict)
-               and any(str(k).endswith("_low") for k in v)
-               and any(str(k).endswith("_high") for k in v)), {})
+    # the Monte-Carlo range: top-level `soiling_ratio_weighted_low/_high`, or (older
+    # stores) a nested dict of percentiles
+    mc = {k: v for k, v in last.items() if k in ("soiling_ratio_weighted_low",
+                                                 "soiling_ratio_weighted_high")}
+    if not mc:
+        mc = next((v for v in last.values() if isinstance(v, dict)
+                   and any(str(k).endswith("_low") for k in v)
+                   and any(str(k).endswith("_high") for k in v)), {})
     lo = next((v for k, v in mc.items() if str(k).endswith("_low")), None)
     hi = next((v for k, v in mc.items() if str(k).endswith("_high")), None)
     period = next((v for k, v in last.items() if str(k).endswith("_period")
