@@ -1,9 +1,17 @@
 """Ingest hardening (issue #12): timestamps, value limits, NaN spellings, reader edge cases."""
 
 import datetime as dt
+import gzip
+import re
+import shutil
+from pathlib import Path
 
 import numpy as np
+import pytest
+import sqlalchemy as sa
+from click.testing import CliRunner
 
+from heliaudit.cli import main
 from ingest.config import TimestampSpec
 from ingest.timestamps import NAT, TimestampConverter
 
@@ -28,17 +36,6 @@ def test_default_window_rejects_far_future_rows():
 
 
 # ---------------------------------------------------------------- through the CLI
-import gzip  # noqa: E402
-import re  # noqa: E402
-import shutil  # noqa: E402
-from pathlib import Path  # noqa: E402
-
-import pytest  # noqa: E402
-import sqlalchemy as sa  # noqa: E402
-from click.testing import CliRunner  # noqa: E402
-
-from db import schema  # noqa: E402
-from heliaudit.cli import main  # noqa: E402
 
 DATA = Path(__file__).resolve().parent / "data"
 HEAD = "Time,INV1_PAC,INV2_PAC,Irr,TMod\n"
