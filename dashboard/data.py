@@ -353,9 +353,9 @@ def flagged_days(chosen: pd.DataFrame, flags: pd.DataFrame, std_offset_s: int) -
 # ---------------------------------------------------------------- degradation
 
 
-#: The degradation job stores one extra row per device, method "summary": the headline
+#: The degradation job stores one extra row per device, method "overview": the headline
 #: rate plus, in ``details``, the method comparison and the warranty screening.
-SUMMARY_METHOD = "summary"
+SUMMARY_METHOD = "overview"
 
 
 @_cache
@@ -365,7 +365,7 @@ def degradation_table(url: str, site_id: str) -> pd.DataFrame:
 
 
 def rates_only(results: pd.DataFrame) -> pd.DataFrame:
-    """The per-method rows (without the job's "summary" rows)."""
+    """The per-method rows (without the job's "overview" rows)."""
     return results[results["method"] != SUMMARY_METHOD].reset_index(drop=True)
 
 
@@ -404,14 +404,14 @@ def _num(x):
     return None if x is None or pd.isna(x) else float(x)
 
 
-def yoy_histogram_data(results: pd.DataFrame, device_id: str, method: str = "yoy") -> dict | None:
+def yoy_histogram_data(results: pd.DataFrame, device_id: str, method: str = "sensor_year_pairs") -> dict | None:
     """The stored year-on-year pair-rate histogram (``edges_pct_per_yr``, ``counts``) of one
     device, with its rate and interval; None when not stored."""
     r = results[(results["device_id"] == device_id) & (results["method"] == method)]
     if r.empty:
         return None
     r = r.iloc[0]
-    h = (r["details"] or {}).get("histogram")
+    h = (r["details"] or {}).get("pair_rate_distribution")
     if not h or not h.get("counts"):
         return None
     return {"edges": h["edges_pct_per_yr"], "counts": h["counts"],
@@ -674,3 +674,27 @@ def flag_label(f) -> str:
     span = (f"{a:%Y-%m-%d %H:%M}–{b:%H:%M}" if a.date() == b.date()
             else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
     return f"#{f.flag_id} {dev} · {f.kind} ({f.severity}) · {span}{lost}"
+
+
+# ---------------------------------------------------------------- evidence pack (issue #17)
+
+
+def evidence_pack_zip(url: str, site_id: str, inverters: tuple[str, ...] | None = None
+                      ) -> tuple[str, bytes]:
+    """Build the warranty evidence pack (:func:`heliaudit.evidence.build_pack`, the same
+    pack as ``heliaudit evidence``) in a temporary folder; return ``(file name, zip bytes)``.
+
+    Not cached: every click builds a fresh pack from the store as it is now. Raises the
+    builder's errors (``EvidenceError``, ``NothingComputedError``) for the page to show.
+    """
+    import tempfile
+    from pathlib import Path
+
+    from heliaudit.evidence import build_pack, pack_zip, reproduce_command
+
+    name = f"evidence-{site_id}"
+    with tempfile.TemporaryDirectory(prefix="heliaudit-evidence-") as tmp:
+        out = Path(tmp) / name
+        build_pack(engine(url), site_id, out, inverters=inverters or None, db_url=url,
+                   command=reproduce_command(url, site_id, inverters, None, None, name))
+        return f"{name}.zip", pack_zip(out)

@@ -49,9 +49,9 @@ devices = list(dict.fromkeys(res["device_id"]))
 c1, c2 = st.columns(2)
 device = c1.selectbox("Device", devices, key="deg_device")
 methods = sorted(res.loc[(res["device_id"] == device) & res["rate_pct_per_yr"].notna(),
-                         "method"].unique()) or ["yoy"]
+                         "method"].unique()) or ["sensor_year_pairs"]
 method = c2.selectbox("Method for the warranty check", methods, key="deg_method",
-                      index=methods.index("yoy") if "yoy" in methods else 0)
+                      index=methods.index("sensor_year_pairs") if "sensor_year_pairs" in methods else 0)
 v = agree[agree["device_id"] == device]
 if not v.empty:
     verdict = v.iloc[0]
@@ -69,7 +69,7 @@ if h is not None:
     left.plotly_chart(charts.yoy_histogram(h["edges"], h["counts"], h["rate"], h["ci"],
                                            title=f"{device}: year-on-year pair rates "
                                                  f"({h['n_points']:.0f} pairs)"),
-                      theme=None, key="yoy_hist")
+                      theme=None, key="pair_rates_chart")
     left.caption(f"Bars: rate of every pair of days one year apart (r_d); line: their median "
                  f"{h['rate']:+.2f} %/yr; shaded: its interval {h['ci'][0]:+.2f} … "
                  f"{h['ci'][1]:+.2f} %/yr (moving-block bootstrap). The outermost bins also hold "
@@ -105,3 +105,21 @@ else:
                "warranty start (the first year's median extrapolated back with the fitted "
                "rate), which leaves out initial light-induced loss and so understates a "
                "shortfall.")
+
+# ---- evidence pack (issue #17): the same pack as `heliaudit evidence`, as a zip ----
+st.subheader("Evidence pack")
+st.caption("A report (PDF) with the system, the data and exclusions, the methods and their "
+           "sources, every rate, level shifts and soiling, and the warranty comparison; the "
+           "daily series and results behind it; and a manifest with the SHA-256 of every "
+           "source export and pack file. Screening evidence: the contract governs any claim.")
+if st.button("Build evidence pack", key="evidence_build"):
+    with st.spinner("Building the evidence pack (report, data, manifest)…"):
+        try:
+            st.session_state["evidence_zip"] = (site_id, *data.evidence_pack_zip(url, site_id))
+        except (ValueError, LookupError) as exc:  # EvidenceError, NothingComputedError
+            st.session_state.pop("evidence_zip", None)
+            st.error(f"No evidence pack: {exc}")
+pack = st.session_state.get("evidence_zip")
+if pack and pack[0] == site_id:
+    st.download_button("Download evidence pack (.zip)", data=pack[2], file_name=pack[1],
+                       mime="application/zip", key="evidence_download")
