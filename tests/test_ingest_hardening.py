@@ -201,3 +201,27 @@ def test_row_after_a_gap_never_takes_the_gap_as_its_interval(site):
     # interval-end label 12:00 with the file's 15-min interval: the interval starts at 11:45
     assert last == 1685706300  # 2023-06-02 11:45 UTC (not 2023-06-01 04:45, the gap's start)
     assert "interval 900 s" in r.output
+
+
+@pytest.mark.postgres
+def test_nul_bytes_and_odd_text_in_an_export_on_postgres(pg_engine, tmp_path):
+    """PostgreSQL text cannot hold NUL: rejected lines keep their text with U+FFFD instead."""
+    from ingest.config import load_site_config
+    from ingest.load import ingest_paths
+
+    body = rows(5)
+    body[1] = body[1].replace(",", ",\x00", 1)
+    body[2] = "\x00garbage\ud800"[:8]
+    f = tmp_path / "basic_nul.csv"
+    f.write_bytes((HEAD + "\n".join(body) + "\n").encode("utf-8", "surrogatepass")
+                  .replace(b"\xed\xa0\x80", b"\xff"))
+    cfg = (DATA / "site_basic.toml").read_text().replace('name = "scada"',
+                                                         'name = "scada"\nencoding = "latin-1"')
+    (tmp_path / "site.toml").write_text(cfg)
+    (res,) = ingest_paths(pg_engine, load_site_config(tmp_path / "site.toml"), [f])
+    assert res.status == "loaded", res.message
+    # the NUL before a value rejects that value; the garbage line is a rejected row
+    assert (res.counts["rows_rejected"], res.counts["values_rejected"]) == (1, 1)
+    with pg_engine.connect() as c:
+        raw = c.execute(sa.text("SELECT raw_text FROM rejected_row ORDER BY line_no")).scalars().all()
+    assert len(raw) == 2 and all("\x00" not in x for x in raw) and "\ufffd" in raw[0]
