@@ -60,8 +60,9 @@ def _seconds(idx: pd.DatetimeIndex) -> np.ndarray:
 def has_offset(raw: np.ndarray) -> np.ndarray:
     """Whether each text timestamp ends with a UTC offset (``Z``, ``+hh:mm``, ``+hhmm``)."""
     s = pd.Series(raw, dtype=object)
-    return s.map(lambda x: isinstance(x, str) and bool(_OFFSET.search(x))).to_numpy(dtype=bool) \
-        if len(s) else np.zeros(0, dtype=bool)
+    if not len(s):
+        return np.zeros(0, dtype=bool)
+    return s.str.contains(_OFFSET, na=False).to_numpy(dtype=bool)
 
 
 def parse_wall(raw: np.ndarray, fmt: str, offsets: bool = False) -> np.ndarray:
@@ -145,8 +146,8 @@ class TimestampConverter:
             aware = has_offset(raw)
         else:
             aware = np.zeros(n, dtype=bool)
-        present = np.array([isinstance(x, str) and bool(x.strip()) for x in raw], dtype=bool) \
-            if n else np.zeros(0, dtype=bool)
+        present = (pd.Series(raw, dtype=object).str.strip().str.len().fillna(0).to_numpy() > 0
+                   if n else np.zeros(0, dtype=bool))
         if self.offsets is None and present.any():
             self.offsets = bool(aware[np.flatnonzero(present)[0]])
         mixed = present & (aware != bool(self.offsets))
