@@ -105,7 +105,8 @@ def clean_rows(n: int, rng: random.Random, iso: bool = False) -> list[str]:
 
 def mutate(rows: list[str], rng: random.Random) -> tuple[list[str], str]:
     """One text-level mutation of the data rows; returns the rows and the mutation's name."""
-    i = rng.randrange(len(rows))
+    full = [k for k, x in enumerate(rows) if x.count(",") == 6] or list(range(len(rows)))
+    i = rng.choice(full)  # a row with all its fields, where there is one
     kind = rng.choice([
         "lone_cr", "nul", "huge_field", "quote_start", "quote_mid", "ws_formfeed", "ws_nbsp",
         "ws_vtab", "blank", "nan_spelling", "huge_value", "inf", "far_year", "old_year",
@@ -114,7 +115,7 @@ def mutate(rows: list[str], rng: random.Random) -> tuple[list[str], str]:
         "only_delims", "all_bad", "counter_1e308", "neg_irr", "irr_9999", "crlf",
     ])
     r = rows[:]
-    cells = r[i].split(",")
+    cells = (r[i].split(",") + [""] * 7)[:max(7, r[i].count(",") + 1)]
     if kind == "lone_cr":
         r[i] = r[i][:5] + "\r" + r[i][5:]
     elif kind == "nul":
