@@ -40,6 +40,22 @@ def loaded_batch_with_sha(conn: sa.Connection, site_id: str, sha256: str) -> int
         .order_by(B.c.batch_id.desc()).limit(1)).scalar()
 
 
+def source_timestamp_offsets(conn: sa.Connection, site_id: str, source_name: str) -> bool | None:
+    """Whether the loaded files of a source had timestamps with UTC offsets (the decision
+    recorded in the notes of its latest loaded batch that made one), or None."""
+    rows = conn.execute(sa.select(B.c.notes_json).where(
+        B.c.site_id == site_id, B.c.source_name == source_name, B.c.status == "loaded",
+        B.c.notes_json.is_not(None)).order_by(B.c.batch_id.desc()).limit(50)).scalars()
+    for text in rows:
+        try:
+            val = json.loads(text).get("timestamp_offsets")
+        except (ValueError, AttributeError):
+            continue
+        if isinstance(val, bool):
+            return val
+    return None
+
+
 def _text(s: str | None, limit: int | None = None) -> str | None:
     """Text as the store can hold it: NUL (which PostgreSQL text cannot hold) and lone
     surrogates shown as U+FFFD; cut to ``limit`` characters."""

@@ -273,6 +273,11 @@ class _FileLoader:
         self.conn, self.cfg, self.source, self.path = conn, cfg, source, path
         self.channels, self.batch_id, self.progress = channels, batch_id, progress
         self.conv = TimestampConverter(source.timestamp, cfg.timezone, source.clock_corrections)
+        # offsets or not: decided once per source (its earlier files), else at this file's first row
+        if source.timestamp.format == "iso8601":  # other formats fix it (%z, epoch_s) or exclude it
+            self.conv.offsets = ingest_log.source_timestamp_offsets(conn, cfg.id, source.name)
+            if self.conv.offsets is not None:
+                self.conv.offsets_from = "earlier files of this source"
         self.counts = Counter()
         self.rejected: list[Rejected] = []
         self.intervals: list[np.ndarray] = []

@@ -124,6 +124,7 @@ class TimestampConverter:
         self._earliest_s = _epoch_s(self.earliest)
         self._latest_s = _epoch_s(self.latest + dt.timedelta(days=1))  # the latest day included
         self.offsets: bool | None = None  # timestamps carry UTC offsets: decided at the first one
+        self.offsets_from = "the file's first timestamp"  # where the decision came from
         self.offset_s = None
         if spec.zone not in ("local", "UTC"):
             sign = -1 if spec.zone[0] == "-" else 1
@@ -133,8 +134,9 @@ class TimestampConverter:
     def convert(self, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Return (UTC label seconds as int64, NAT where rejected) and the reason per row (or None).
 
-        Whether timestamps carry a UTC offset is decided once per file, at its first
-        timestamp (``%z`` formats and ``epoch_s``: always); a later row of the other kind is
+        Whether timestamps carry a UTC offset is decided once per source: by its earlier
+        loaded files (set ``offsets`` before the first call), else at this file's first
+        timestamp (``%z`` formats and ``epoch_s``: always); a row of the other kind is
         rejected, never silently read in another zone.
         """
         fmt = self.spec.format
@@ -153,9 +155,8 @@ class TimestampConverter:
         mixed = present & (aware != bool(self.offsets))
         for i in np.flatnonzero(mixed):
             reasons[i] = (f"timestamp {str(raw[i]).strip()!r} "
-                          + ("has no UTC offset but the file's first timestamp has one"
-                             if self.offsets else
-                             "has a UTC offset but the file's first timestamp has none")
+                          + ("has no UTC offset" if self.offsets else "has a UTC offset")
+                          + f", unlike {self.offsets_from}"
                           + "; mixed offset / no-offset rows are not read (which zone would apply?)")
         wall_s = parse_wall(raw, fmt, bool(self.offsets))
         wall_s[mixed] = NAT
@@ -237,6 +238,8 @@ class TimestampConverter:
 
     def notes(self) -> dict:
         out: dict = {}
+        if self.offsets is not None:
+            out["timestamp_offsets"] = self.offsets
         if self.corrected:
             out["clock_corrections"] = [
                 {"start": c.start.isoformat(), "end": c.end.isoformat(),

@@ -186,7 +186,7 @@ def test_mixed_offset_rows_are_rejected_not_shifted(site):
     r = ingest(site, "basic_iso.csv", HEAD + "\n".join(body) + "\n", config="siso.toml")
     read, loaded, dup, rej, blank = counts_of(r.output)
     assert (loaded, rej) == (3, 1)
-    assert "has no UTC offset but the file's first timestamp has one" in r.output
+    assert "has no UTC offset, unlike the file's first timestamp" in r.output
     ts = [x[0] for x in stored(site, "SELECT DISTINCT ts_s FROM reading ORDER BY ts_s")]
     assert ts[0] == 1685606400  # 2023-06-01 08:00 UTC = 10:00 +02:00
 
@@ -225,3 +225,15 @@ def test_nul_bytes_and_odd_text_in_an_export_on_postgres(pg_engine, tmp_path):
     with pg_engine.connect() as c:
         raw = c.execute(sa.text("SELECT raw_text FROM rejected_row ORDER BY line_no")).scalars().all()
     assert len(raw) == 2 and all("\x00" not in x for x in raw) and "\ufffd" in raw[0]
+
+
+def test_offset_decision_is_kept_for_the_whole_source(site):
+    cfg = (site / "site.toml").read_text().replace('format = "%Y-%m-%d %H:%M", zone = "UTC"',
+                                                   'format = "iso8601", zone = "+02:00"')
+    (site / "siso.toml").write_text(cfg)
+    first = ["2023-06-01T10:00:00+02:00,1,1,300,25", "2023-06-01T10:15:00+02:00,1,1,300,25"]
+    assert ingest(site, "basic_a.csv", HEAD + "\n".join(first) + "\n", config="siso.toml").exit_code == 0
+    later = ["2023-06-02T10:00:00,1,1,300,25", "2023-06-02T10:15:00,1,1,300,25"]
+    r = ingest(site, "basic_b.csv", HEAD + "\n".join(later) + "\n", config="siso.toml")
+    assert r.exit_code == 1 and counts_of(r.output)[3] == 2  # both rejected, none shifted
+    assert "has no UTC offset, unlike earlier files of this source" in r.output
