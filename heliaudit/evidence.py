@@ -131,10 +131,12 @@ def recommended_of(block: dict) -> dict:
     ``sensor_year_pairs`` method with a reason saying so (``fallback`` True).
     """
     rec = block.get("recommended")
-    if isinstance(rec, dict) and rec.get("method"):
+    if isinstance(rec, dict) and (rec.get("method") or rec.get("rate_pct_per_yr") is None
+                                  and rec.get("reason")):
         out = dict(rec)
-        out.setdefault("reasons", [])
-        out.setdefault("caveats", [])
+        out["method"] = rec.get("method") or "none"  # refused: no method could be chosen
+        out["reasons"] = list(rec.get("reasons") or [])
+        out["caveats"] = list(rec.get("caveats") or [])
         out["fallback"] = False
         return out
     m = (block.get("degradation") or {}).get(FALLBACK_METHOD) or {}

@@ -97,6 +97,12 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
         "Year-on-year rate of the ratio of the sensor-based to the clear-sky-based index on "
         "clear days: a trend here is the irradiance sensor drifting (soiling of the sensor, "
         "calibration), not the modules."),
+    "sensor_year_pairs_soiling_corrected": (
+        "Year-on-year rate of the soiling-corrected index",
+        "The daily index is divided by its soiling ratio, estimated from the dry intervals "
+        "between cleanings (Deceglie et al. 2018), then the year-on-year method (Jordan et al. "
+        "2018). Used when soiling is material and uneven between seasons, which otherwise "
+        "leaks into year-on-year pairs."),
     "sensor_year_pairs_between_shifts": (
         "Year-on-year rate without pairs that span a level shift",
         "Change points are found by PELT (Killick et al. 2012); pairs of days that straddle "
@@ -191,9 +197,9 @@ def _styles() -> dict:
                              leading=19, textColor=colors.HexColor(PRIMARY), spaceAfter=6),
         "h2": ParagraphStyle("h2", parent=base["Heading2"], fontName=FONT_BOLD, fontSize=12.5,
                              leading=15, textColor=colors.HexColor(PRIMARY), spaceBefore=10,
-                             spaceAfter=4),
+                             spaceAfter=4, keepWithNext=1),
         "h3": ParagraphStyle("h3", parent=base["Heading3"], fontName=FONT_BOLD, fontSize=10,
-                             leading=12.5, spaceBefore=6, spaceAfter=3),
+                             leading=12.5, spaceBefore=6, spaceAfter=3, keepWithNext=1),
         "box": ParagraphStyle("box", fontName=FONT, fontSize=8.6, leading=11.2, leftIndent=4,
                               rightIndent=4),
     }
@@ -530,7 +536,8 @@ def _results_section(pack, st) -> list:
             blk.append(Paragraph("Warning: " + _esc(w), st["small"]))
         out.append(KeepTogether(blk))
     out.append(Spacer(1, 4))
-    out.append(_image(charts.rates_chart(pack.rates)))
+    out.append(_image(charts.rates_chart(
+        pack.rates[pack.rates["method"] != "sensor_drift_check"])))
     si = pack.site_index
     trend = (si[["day"]].assign(pi_trend=si["pi_recommended_line"])
              if "pi_recommended_line" in si else None)
@@ -540,7 +547,8 @@ def _results_section(pack, st) -> list:
         si[["day", "pi"]] if len(si) else si, trend, site_s["change_points"], spans,
         "Daily performance index of the inverters in this report")))
     out.append(Paragraph("Data: data/site_daily_index.csv (points, line) and data/rates.csv "
-                         "(rates chart). The dashed line is the site's recommended rate drawn "
+                         "(rates chart; the sensor drift check is left out of the chart because it is the "
+                         "sensor's drift, not a rate of the plant). The dashed line is the site's recommended rate drawn "
                          "through the median level; it shows the slope, not a fit.",
                          st["small"]))
     return out
@@ -672,6 +680,11 @@ def _warranty_section(pack, st) -> list:
     site_env = env[env["device_id"] == "(site)"]
     out.append(_image(charts.warranty_chart(
         site_env, "Warranted minimum and measured index, site (all inverters)")))
+    devs = [d for d in pack.inverters["device_id"]]
+    for k in range(0, len(devs), 8):
+        part = devs[k:k + 8]
+        out.append(_image(charts.warranty_panels(
+            env, part, "Per inverter" + (f" ({k // 8 + 1})" if len(devs) > 8 else ""))))
     out.append(Paragraph("Data: data/warranty_envelope.csv (every device).", st["small"]))
     return out
 
