@@ -235,9 +235,11 @@ def _box(paragraphs: list[str], st: dict, title: str) -> Table:
     return t
 
 
-def _image(png: bytes, width_cm: float = 17.0) -> Image:
+def _image(png: bytes, width_cm: float = 17.0, max_height_cm: float = 23.0) -> Image:
+    """A PNG at the text width, scaled down to fit a page when it is taller."""
     img = Image(io.BytesIO(png))
     ratio = img.imageHeight / img.imageWidth
+    width_cm = min(width_cm, max_height_cm / ratio)
     img.drawWidth = width_cm * cm
     img.drawHeight = width_cm * cm * ratio
     img.hAlign = "LEFT"
@@ -278,8 +280,8 @@ def _title(pack, st) -> list:
 
 def _summary_section(pack, st) -> list:
     out = [Paragraph("1. Summary", st["h2"])]
-    rows = [["Device", "Recommended rate [%/yr]", "Interval [%/yr]", "Method",
-             "Methods agree", "Warranty test", "Shortfall [kWh]"]]
+    rows = [["Device", "Rate [%/yr]", "Interval [%/yr]", "Method",
+             "Methods agree", "Exceeds warranty?", "Shortfall [kWh]"]]
     short = []
     for s in pack.summary:
         conf = s["confidence"]
@@ -287,15 +289,15 @@ def _summary_section(pack, st) -> list:
         if s["exceeds"] is None:
             test = "not tested"
         else:
-            test = "exceeds warranty" if s["exceeds"] else "no exceedance shown"
+            test = "exceeds" if s["exceeds"] else "not shown"
         rows.append([_label(s["device_id"]), fmt_rate(s["rate_pct_per_yr"]),
                      (fmt_interval(s["ci_low"], s["ci_high"])
                       + (f" ({conf:.0%})" if conf is not None else "")),
                      s["method"], agree, test, fmt_kwh(s["shortfall_kwh"])])
         if s["rate_pct_per_yr"] is None:
             short.append(s)
-    out.append(_table(rows, [2.6 * cm, 2.2 * cm, 3.5 * cm, 3.4 * cm, 1.5 * cm, 2.2 * cm,
-                             1.6 * cm], st=st))
+    out.append(_table(rows, [2.6 * cm, 1.5 * cm, 3.4 * cm, 4.6 * cm, 1.5 * cm, 2.0 * cm,
+                             1.4 * cm], st=st))
     out.append(Spacer(1, 4))
     notes = []
     for s in pack.summary:
@@ -325,10 +327,12 @@ def _summary_section(pack, st) -> list:
             "least two years of valid days after the stabilisation period; no rate and no "
             "warranty test are reported for these devices.", st["body"]))
     out.append(Paragraph(
-        "Negative rates are losses. A rate is the relative change of the performance index "
+        "Rate: the recommended rate (section 5). Negative rates are losses. A rate is the "
+        "relative change of the performance index "
         "per year; the interval is two-sided at the confidence shown. \"Methods agree\" means "
         "the intervals of the absolute-rate methods overlap. The warranty test is one-sided "
-        "(section 7); the shortfall is energy below the warranted envelope (section 7).",
+        "(section 7); \"not shown\" means the data do not show the loss rate to exceed the "
+        "warranted rate. The shortfall is energy below the warranted envelope (section 7).",
         st["small"]))
     out.append(Spacer(1, 4))
     out.append(_box(list(CAUTIONS), st, "Read before using these numbers"))
@@ -536,8 +540,10 @@ def _results_section(pack, st) -> list:
             blk.append(Paragraph("Warning: " + _esc(w), st["small"]))
         out.append(KeepTogether(blk))
     out.append(Spacer(1, 4))
-    out.append(_image(charts.rates_chart(
-        pack.rates[pack.rates["method"] != "sensor_drift_check"])))
+    shown = pack.rates[pack.rates["method"] != "sensor_drift_check"]
+    devs = list(dict.fromkeys(shown["device_id"]))
+    for k in range(0, max(len(devs), 1), 6):  # at most 6 devices per chart
+        out.append(_image(charts.rates_chart(shown[shown["device_id"].isin(devs[k:k + 6])])))
     si = pack.site_index
     trend = (si[["day"]].assign(pi_trend=si["pi_recommended_line"])
              if "pi_recommended_line" in si else None)
