@@ -299,3 +299,16 @@ def test_pack_from_postgres_store(store, pack, pg_engine, tmp_path):
                      end=dt.date(2023, 6, 30))
     assert win["results_basis"].startswith("recomputed for the period 2023-01-01 .. 2023-06-30")
     assert {f"{SITE}_2023-03.csv.gz"} <= {s["file_name"] for s in win["sources"]}
+
+
+def test_failed_report_leaves_no_pack(store, tmp_path, monkeypatch):
+    from heliaudit import evidence_pdf
+
+    def boom(pack, path):
+        raise RuntimeError("layout")
+
+    monkeypatch.setattr(evidence_pdf, "write_report", boom)
+    with pytest.raises(EvidenceError, match="could not be laid out.*nothing was written"):
+        build_pack(store["engine"], SITE, tmp_path / "never")
+    assert not (tmp_path / "never").exists()
+    assert [p.name for p in tmp_path.iterdir()] == []  # the staging folder is gone too
