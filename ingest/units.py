@@ -21,7 +21,11 @@ _LINEAR: dict[str, tuple[float, float]] = {
     "C": (1.0, 0.0), "K": (1.0, -273.15), "F": (5.0 / 9.0, -32.0 * 5.0 / 9.0),
     "m/s": (1.0, 0.0), "km/h": (1.0 / 3.6, 0.0),
     "mm": (1.0, 0.0),
+    "A": (1.0, 0.0), "mA": (1e-3, 0.0), "V": (1.0, 0.0), "kV": (1e3, 0.0),
 }
+#: DC input voltage above this is no PV string (IEC 60364-7-712 systems are at most 1500 V DC;
+#: the margin allows cold open-circuit overshoot; common practice).
+V_DC_MAX_V = 2000.0
 
 #: Irradiance below this is impossible rather than sensor offset at night (common practice:
 #: thermopile pyranometers read a few W/m² negative at night from thermal offset).
@@ -107,6 +111,8 @@ def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None 
         lo[:], hi[:], what, unit = T_AMB_MIN_C, T_AMB_MAX_C, "air temperature", "°C"
     elif quantity == "wind_ms":
         lo[:], hi[:], what, unit = 0.0, WIND_MAX_MS, "wind speed", "m/s"
+    elif quantity == "v_dc_v":
+        lo[:], hi[:], what, unit = 0.0, V_DC_MAX_V, "DC voltage", "V"
     elif quantity == "rain_mm":
         lo[:], hi[:], what, unit = 0.0, RAIN_MAX_MM, "rainfall", "mm"
     with np.errstate(invalid="ignore"):
