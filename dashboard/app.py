@@ -13,6 +13,7 @@ from pathlib import Path
 import streamlit as st
 
 from dashboard import data, ui
+from db.engine import display_url
 
 # The page icon is a file of the package: a Material-symbol or emoji icon would make the
 # browser fetch it from an outside font/CDN server, which a plant network blocks.
@@ -54,7 +55,7 @@ def _reset_window() -> None:
 with st.sidebar:
     st.markdown("### heliaudit")
     if sites.empty:
-        st.caption(f"Database: `{url}` — no site loaded.")
+        st.caption(f"Database: `{display_url(url)}` — no site loaded.")  # password masked
     else:
         ids = list(sites["site_id"])
         if "site" not in st.session_state or st.session_state["site"] not in ids:

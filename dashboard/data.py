@@ -42,7 +42,7 @@ from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log
 from db import queries
 from db import timeseries as db_timeseries
-from db.engine import ENV_VAR, make_engine, resolve_url
+from db.engine import ENV_VAR, display_url, make_engine, resolve_url
 
 TTL_S = 300
 #: The weekly check compares last week with the mean of this many weeks before it.
@@ -99,11 +99,8 @@ class DatabaseUnreadable(RuntimeError):
 
 
 def safe_url(url: str) -> str:
-    """The URL with any password masked, for messages."""
-    try:
-        return sa.engine.make_url(url).render_as_string(hide_password=True)
-    except Exception:  # noqa: BLE001 - a malformed URL is shown as given
-        return str(url)
+    """The URL with any password masked, for messages (:func:`db.engine.display_url`)."""
+    return display_url(url)
 
 
 @_cache
@@ -1039,3 +1036,27 @@ def flag_label(f, econ: dict | None = None) -> str:
                 else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
     sev = SEVERITY_LABELS.get(f.severity, str(f.severity)).lower()
     return f"#{f.flag_id} {dev} · {kind_label(f.kind)} ({sev}) · {span}{lost_txt}"
+
+
+# ---------------------------------------------------------------- evidence pack (issue #17)
+
+
+def evidence_pack_zip(url: str, site_id: str, inverters: tuple[str, ...] | None = None
+                      ) -> tuple[str, bytes]:
+    """Build the warranty evidence pack (:func:`heliaudit.evidence.build_pack`, the same
+    pack as ``heliaudit evidence``) in a temporary folder; return ``(file name, zip bytes)``.
+
+    Not cached: every click builds a fresh pack from the store as it is now. Raises the
+    builder's errors (``EvidenceError``, ``NothingComputedError``) for the page to show.
+    """
+    import tempfile
+    from pathlib import Path
+
+    from heliaudit.evidence import build_pack, pack_zip, reproduce_command
+
+    name = f"evidence-{site_id}"
+    with tempfile.TemporaryDirectory(prefix="heliaudit-evidence-") as tmp:
+        out = Path(tmp) / name
+        build_pack(engine(url), site_id, out, inverters=inverters or None, db_url=url,
+                   command=reproduce_command(url, site_id, inverters, None, None, name))
+        return f"{name}.zip", pack_zip(out)

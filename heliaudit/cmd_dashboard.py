@@ -13,9 +13,9 @@ import webbrowser
 from pathlib import Path
 
 import click
-import sqlalchemy as sa
 
-from db.engine import ENV_VAR, resolve_url
+from db.engine import ENV_VAR, display_url
+from heliaudit.common import require_existing_db
 
 APP = Path(__file__).resolve().parents[1] / "dashboard" / "app.py"
 
@@ -92,16 +92,6 @@ def _serve(cmd: list[str], env: dict) -> int:
             signal.signal(sig, handler)
 
 
-def check_database(url: str) -> None:
-    """Refuse a SQLite path that does not exist (opening it would create an empty file)."""
-    if url.startswith("sqlite"):
-        path = sa.engine.make_url(url).database
-        if path and path != ":memory:" and not Path(path).exists():
-            raise click.ClickException(
-                f"no database at {path}: load a site first (`heliaudit --db {path} ingest "
-                "SITE.toml`, or `heliaudit demo`), or name an existing store with --db")
-
-
 @click.command("dashboard")
 @click.option("--port", default=8501, show_default=True, type=click.IntRange(1, 65535),
               help="TCP port to serve on.")
@@ -120,15 +110,13 @@ def dashboard(ctx: click.Context, port: int, host: str, no_browser: bool) -> Non
     Example:
         heliaudit --db heliaudit.sqlite dashboard --port 8502 --no-browser
     """
-    url = resolve_url((ctx.find_root().obj or {}).get("db_url"))
-    check_database(url)
+    url = require_existing_db((ctx.find_root().obj or {}).get("db_url"))
     env = dict(os.environ, **{ENV_VAR: url})
     # Always headless: a non-headless first run asks for an e-mail address on stdin and
     # exits when there is none (seen from `heliaudit demo`); we open the browser ourselves.
     cmd = streamlit_command(port, host, headless=True)
     address = f"http://{host}:{port}"
-    shown = sa.engine.make_url(url).render_as_string(hide_password=True)
-    click.echo(f"heliaudit dashboard on {address} (database {shown}); Ctrl-C stops it",
+    click.echo(f"heliaudit dashboard on {address} (database {display_url(url)}); Ctrl-C stops it",
                err=True)
     if not no_browser:
         threading.Thread(target=_open_when_up, args=(host, port, address), daemon=True).start()
