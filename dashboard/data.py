@@ -369,7 +369,8 @@ def _period_start(days, period: str) -> pd.DatetimeIndex:
 
 @_cache
 def pr_relative_heatmap(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.DataFrame:
-    """Inverter x period matrix of 100 (PR_STC / site median of the period − 1) [%].
+    """Inverter x period matrix of 100 (PR_STC / median of the period − 1) [%], the median
+    taken over the site's inverters on the same POA instrument type.
 
     Periods are days up to :data:`HEAT_DAILY_MAX_DAYS` days, then ISO weeks, then months
     (:func:`heat_period`); a week's or month's PR_STC is the ratio of sums over its valid
@@ -392,7 +393,11 @@ def pr_relative_heatmap(url: str, site_id: str, start: dt.date, end: dt.date) ->
         wide = g["pr_v"].unstack("period")
         cols = sorted(set(_period_start(pd.date_range(start, end, freq="D").date, period).date))
     wide = wide.reindex(columns=cols)
-    med = wide.median(axis=0, skipna=True)
+    # relative to the median of the inverters on the same POA instrument type: a reference
+    # cell and a pyranometer are never compared (Dunn, Gostein & Emery 2012)
+    inst = inverter_instruments(url, site_id).set_index("device_id")["instrument"]
+    groups = inst.reindex(wide.index).fillna("unknown")
+    med = wide.groupby(groups).transform(lambda g: g.median(axis=0, skipna=True))
     return 100 * (wide / med - 1)
 
 

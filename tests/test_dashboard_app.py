@@ -260,8 +260,33 @@ def test_heatmap_cells_are_relative_to_the_daily_site_median(store):
     col = [pd.Timestamp(x).date() for x in heat["x"]].index(day)
     rows = heat["y"]
     z = _arr(heat["z"])[:, col]
-    expect = 100 * (d.reindex(rows) / d.median() - 1)
-    assert_allclose(z, expect.to_numpy(), rtol=1e-9, equal_nan=True)
+    # the median of the inverters on the same POA instrument type that day (a reference
+    # cell and a pyranometer are never compared: Dunn, Gostein & Emery 2012)
+    inst = _instruments(store).reindex(d.index)
+    med = d.groupby(inst).transform("median")
+    expect = 100 * (d / med - 1)
+    assert_allclose(z, expect.reindex(rows).to_numpy(), rtol=1e-9, equal_nan=True)
+
+
+def test_heatmap_over_a_long_range_has_one_column_per_month(store):
+    """Readable at any range: beyond 730 days one column per month, each the ratio of sums
+    of its valid days (IEC 61724-1) relative to the month's median of the same sensor type."""
+    eng, site = store["engine"], store["site_id"]
+    first, last = queries.daily_span(eng, site)
+    at = _app("views/weekly.py", start=first.isoformat(), end=last.isoformat())
+    heat = next(f for f in _figures(at) if f["data"][0]["type"] == "heatmap")["data"][0]
+    months = pd.period_range(first, last, freq="M")
+    assert len(heat["x"]) == len(months)
+    t = daily_table(eng, site, start=first, end=last)
+    t = t[t["day_valid"]]
+    t["m"] = pd.to_datetime(t["day"]).dt.to_period("M")
+    m = months[len(months) // 2]
+    g = t[t["m"] == m].groupby("device_id")[["e_ac_pr_kwh", "e_ref_stc_kwh"]].sum()
+    pr = g["e_ac_pr_kwh"] / g["e_ref_stc_kwh"]
+    med = pr.groupby(_instruments(store).reindex(pr.index)).transform("median")
+    col = [pd.Timestamp(x).to_period("M") for x in heat["x"]].index(m)
+    assert_allclose(_arr(heat["z"])[:, col], (100 * (pr / med - 1)).reindex(heat["y"]),
+                    rtol=1e-9, equal_nan=True)
 
 
 def test_week_flags_link_to_the_drilldown(store):

@@ -48,7 +48,7 @@ with st.container(border=True):
         c[1].metric(f"{100 * conf:.0f} % interval", f"{_ci(rec['ci_low'], rec['ci_high'])} %/yr",
                     help=(f"68 % interval {_ci(rec['ci68_low'], rec['ci68_high'])} %/yr"
                           if rec.get("ci68_low") is not None else None))
-        c[2].metric("Method", method_label(chosen))
+        c[2].markdown(f"**Method**  \n{method_label(chosen)}")
         for reason in rec["reasons"]:
             st.markdown(f"- {reason}")
         if rec["caveats"]:
@@ -167,10 +167,10 @@ st.dataframe(ui.clean_frame(table, {"rate_pct_per_yr": "+.2f", "ci_low": "+.2f",
                                      "ci_high": "+.2f", "n_points": ",.0f"}),
              hide_index=True, key="rates_table", column_config={
     "device_id": st.column_config.TextColumn("Device", width="small"),
-    "method": st.column_config.TextColumn("Method", width="large"),
+    "method": st.column_config.TextColumn("Method", width="medium"),
     "recommended": st.column_config.CheckboxColumn("Chosen", width="small",
                                                    help="The recommended rate of the device."),
-    "kind": st.column_config.TextColumn("Figure", width="medium"),
+    "kind": st.column_config.TextColumn("Figure", width="small"),
     "rate_pct_per_yr": st.column_config.NumberColumn("Rate [%/yr]", format="%+.2f"),
     "ci_low": st.column_config.NumberColumn("Low [%/yr]", format="%+.2f"),
     "ci_high": st.column_config.NumberColumn("High [%/yr]", format="%+.2f"),

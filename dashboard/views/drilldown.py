@@ -159,6 +159,8 @@ if not flags.empty:
         "start_text": st.column_config.TextColumn(f"Start ({ui.time_basis(short=True)})",
                                                   width="medium"),
         "end_text": st.column_config.TextColumn("End", width="medium"),
-        "duration_text": st.column_config.TextColumn("Duration", width="small"),
+        "duration_text": st.column_config.TextColumn("Duration", width="medium"),
         "lost_kwh": st.column_config.NumberColumn("Lost energy [kWh]", format="localized",
                                                   width="small")})
+    if not highlight and (flags["severity"] != "info").any():
+        ui.field_caution()

@@ -159,7 +159,7 @@ right.plotly_chart(charts.pr_heatmap(heat, period=period), theme=None, key="heat
 st.caption("Scatter: one dot per inverter, sized by the week's energy, coloured by its most "
            "severe warning or alarm of the week (info flags such as clipping do not colour it); "
            "trouble sits bottom-left. Heatmap: PR_STC of each inverter divided by the median of "
-           "the site's inverters" + {"day": " that day", "week": ", one column per week "
+           "the site's inverters on the same type of POA sensor" + {"day": " that day", "week": ", one column per week "
                                      f"(ranges over {data.HEAT_DAILY_MAX_DAYS} days)",
                                      "month": ", one column per month (ranges over "
                                      f"{data.HEAT_WEEKLY_MAX_DAYS} days)"}[period]
@@ -170,8 +170,7 @@ st.caption("Scatter: one dot per inverter, sized by the week's energy, coloured 
 st.subheader(f"All flags overlapping the week ({len(flags)})")
 if not flags.empty:
     t = flags.assign(open=[f"./drilldown?flag={i}" for i in flags["flag_id"]],
-                     status=["new" if n else "ongoing" if o else "before the week"
-                             for n, o in zip(flags["is_new"], flags["ongoing"], strict=True)],
+                     status=["this week" if n else "earlier" for n in flags["is_new"]],
                      end_text=[("ongoing" if o else pd.Timestamp(e).strftime("%Y-%m-%d %H:%M"))
                                for o, e in zip(flags["ongoing"], flags["end_local"],
                                                strict=True)])
@@ -188,7 +187,7 @@ if not flags.empty:
         "start_text": st.column_config.TextColumn(f"Start ({ui.time_basis(short=True)})",
                                                   width="medium"),
         "end_text": st.column_config.TextColumn("End", width="medium"),
-        "duration_text": st.column_config.TextColumn("Duration", width="small"),
+        "duration_text": st.column_config.TextColumn("Duration", width="medium"),
         "lost_week_kwh": st.column_config.NumberColumn("Lost, week [kWh]", format="localized",
                                                        width="small"),
         "lost_kwh": st.column_config.NumberColumn("Lost, all [kWh]", format="localized",
