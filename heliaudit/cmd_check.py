@@ -214,15 +214,22 @@ def _print_degradation(engine, site_id, echo) -> None:
     if deg.empty:
         echo(f"Degradation: not computed yet (`heliaudit compute --site {site_id}`)")
         return
-    echo("Degradation, recommended rate per device (negative = loss), its method and caveats:")
+    echo("Degradation, recommended rate per device (negative = loss), its method, why it was "
+         "chosen and its caveats:")
+    fallback_said = False
     for dev in sorted(deg["device_id"].unique(), key=lambda d: (d != "(site)", d)):
         rec = recommended_rate(deg, dev)
+        if rec is not None and not rec.get("stored") and not fallback_said:
+            echo("  " + " ".join(rec["reasons"]))
+            fallback_said = True
         name = "site" if dev == "(site)" else dev
         if rec is None or rec.get("rate_pct_per_yr") is None:
             why = (rec or {}).get("reason") or "no rate"
             echo(f"{name:<10} not computed: {why}")
             continue
         echo(f"{name:<10} {_rate_text(rec)}  {method_label(rec['method'])}")
+        if rec.get("stored") and rec.get("reasons"):
+            echo(f"{'':<10}   why: " + "; ".join(rec["reasons"]))
         for c in rec.get("caveats", []):
             echo(f"{'':<10}   ! {CAVEAT_LABELS.get(c.get('kind'), c.get('kind'))}: "
                  f"{c.get('text', '')}")

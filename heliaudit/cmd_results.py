@@ -57,8 +57,9 @@ def tidy_numbers(df: pd.DataFrame) -> pd.DataFrame:
 
 def degradation_csv(engine, site_id: str, table: pd.DataFrame) -> pd.DataFrame:
     """The degradation CSV: one row per device and method (no overview pseudo-method row),
-    with the method's warnings, ``recommended`` (the device's recommended method), its
-    caveats in words on that row, the number of change points, and the screening notice."""
+    with the method's warnings, ``recommended`` (the device's recommended method), the
+    reasons for the choice and its caveats in words on that row, the number of change
+    points, and the screening notice."""
     res = degradation_results(engine, site_id)
     det = {(r.device_id, OLD_METHOD_CODES.get(r.method, r.method)): (r.details or {})
            for r in res.itertuples()}
@@ -72,13 +73,15 @@ def degradation_csv(engine, site_id: str, table: pd.DataFrame) -> pd.DataFrame:
     t["recommended"] = [bool(rec.get(d) and rec[d]["method"] == m
                              and m != "recommended")
                         for d, m in zip(t["device_id"], t["method"], strict=True)]
-    warn, cav = [], []
+    warn, cav, why = [], [], []
     for d, m, is_rec in zip(t["device_id"], t["method"], t["recommended"], strict=True):
         warn.append("; ".join(det.get((d, m), {}).get("warnings", []) or []))
         r = rec.get(d)
-        cav.append("; ".join(c.get("text", "") for c in (r or {}).get("caveats", []))
-                   if (is_rec or m == "recommended") and r else "")
+        mine = (is_rec or m == "recommended") and r
+        cav.append("; ".join(c.get("text", "") for c in r.get("caveats", [])) if mine else "")
+        why.append("; ".join(r.get("reasons", [])) if mine else "")
     t["warnings"] = warn
+    t["reasons"] = why
     t["caveats"] = cav
     t["n_change_points"] = t["device_id"].map(ncp).astype("Int64")
     t["notice"] = DISCLAIMER

@@ -104,3 +104,27 @@ def test_readme_field_names_are_the_schemas():
         missing = set(block["properties"]) - documented
         assert missing == set(), f"not in README: {sorted(missing)}"
     assert "rate_pct_per_year" not in _readme_json_part()  # the JSON writes _per_yr
+
+
+def test_degradation_csv_carries_warnings_caveats_and_notice(dashboard_store):
+    import csv
+    import io
+
+    from click.testing import CliRunner
+
+    from heliaudit.cli import main
+
+    url, site = dashboard_store["url"], dashboard_store["site_id"]
+    r = CliRunner().invoke(main, ["--db", url, "results", "--site", site, "--format", "csv"])
+    assert r.exit_code == 0, r.output
+    rows = list(csv.DictReader(io.StringIO(r.output)))
+    assert {"warnings", "reasons", "caveats", "notice", "recommended"} <= set(rows[0])
+    assert not {row["method"] for row in rows} & {"overview", "summary", "recommended"}
+    assert all(row["notice"].startswith("Screening evidence") for row in rows)
+    for dev in {row["device_id"] for row in rows}:  # at most one recommended row per device
+        assert sum(row["recommended"] == "True" for row in rows if row["device_id"] == dev) <= 1
+    # no float printed with 16 digits: rates to 0.0001 %/yr
+    for row in rows:
+        for col in ("rate_pct_per_yr", "ci_low", "ci_high"):
+            if row[col]:
+                assert len(row[col].split(".")[-1]) <= 4, (col, row[col])
