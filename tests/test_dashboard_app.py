@@ -418,8 +418,12 @@ def _check_device_against_results(at: AppTest, doc: dict, res: pd.DataFrame, dev
     w = block.get("warranty") or {}
     measured = w.get("measured_method") or w.get("method")
     if "exceeds" in w and measured in (rec.get("method"), None):
-        errors = [e for e in _texts(at, "error") if "one-sided" in e]
-        assert bool(errors) == bool(w["exceeds"]), dev
+        shown = [e for k in ("error", "warning", "success") for e in _texts(at, k)
+                 if "one-sided" in e]
+        assert len(shown) == 1, dev  # one verdict, the exported one
+        assert ("measured loss exceeds" in shown[0].lower()) == bool(w["exceeds"]), dev
+        if not rec.get("caveats"):
+            assert (shown[0] in _texts(at, "error")) == bool(w["exceeds"]), dev
         if w.get("months_below") is not None and w.get("envelope"):
             assert _metric(at, "Months below") == f"{w['months_below']}", dev
         if w.get("shortfall_kwh") is not None and w.get("envelope"):

@@ -115,23 +115,34 @@ else:
                     help="Months whose measured (de-seasonalised) index lies under the "
                          "warranted envelope, for any reason.")
         caveats = rec["caveats"] if rec else []
+        step_inside = (any(c.get("kind") == "level_shift" for c in caveats)
+                       and chosen != "sensor_year_pairs_between_shifts")
         if w["test"] is not None:
             verdict = (w["test"]["verdict"][:1].upper() + w["test"]["verdict"][1:]
                        + f" (one-sided upper bound {w['test']['one_sided_upper_pct_per_yr']:+.2f}"
                          f" %/yr against the warranted {w['test']['warranted_rate_pct_per_yr']:+.2f}"
                          " %/yr).")
-            if w["test"]["exceeds"]:
+            if caveats:  # a verdict never stands unqualified beside a caveat
+                st.warning(verdict + " It holds only as far as the caveats above allow: "
+                           + "; ".join(CAVEAT_LABELS.get(c.get("kind"), "caveat").lower()
+                                       for c in caveats) + ".")
+            elif w["test"]["exceeds"]:
                 st.error(verdict)
-            elif caveats:
-                st.warning(verdict + " This verdict holds only if the caveats above do not "
-                           "apply: " + "; ".join(CAVEAT_LABELS.get(c.get("kind"), "caveat")
-                                                 .lower() for c in caveats) + ".")
             else:
                 st.success(verdict)
+        if step_inside:
+            between = res[(res["device_id"] == device)
+                          & (res["method"] == "sensor_year_pairs_between_shifts")]
+            alt = (f" The rate between level shifts is "
+                   f"{float(between['rate_pct_per_yr'].iloc[0]):+.2f} %/yr."
+                   if len(between) and between["rate_pct_per_yr"].notna().iloc[0] else "")
+            st.warning("This rate includes a level shift, a failure to repair rather than "
+                       "degradation, and so does the shortfall computed from it." + alt)
         st.caption("The shortfall counts only what the recommended rate attributes to "
                    "degradation. It excludes month-to-month dips (soiling, outages, weather), "
-                   "level steps from failures (a string or module fault is a repair, not "
-                   "degradation) and initial light-induced loss (the index has no absolute "
+                   + ("" if step_inside else "level steps from failures (a string or module "
+                      "fault is a repair, not degradation), ")
+                   + "and initial light-induced loss (the index has no absolute "
                    "baseline: 100 % is set at the warranty start). "
                    + (f"Every month of the index under the envelope, for any reason, adds up "
                       f"to {w['shortfall_monthly_kwh']:,.0f} kWh"
