@@ -116,7 +116,8 @@ else:
                          "warranted envelope, for any reason.")
         caveats = rec["caveats"] if rec else []
         step_inside = (any(c.get("kind") == "level_shift" for c in caveats)
-                       and chosen != "sensor_year_pairs_between_shifts")
+                       and chosen not in ("sensor_year_pairs_between_shifts",
+                                          "modelled_sky_between_shifts"))
         if w["test"] is not None:
             verdict = (w["test"]["verdict"][:1].upper() + w["test"]["verdict"][1:]
                        + f" (one-sided upper bound {w['test']['one_sided_upper_pct_per_yr']:+.2f}"
