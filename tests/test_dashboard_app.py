@@ -136,6 +136,24 @@ def test_empty_database_shows_a_hint(tmp_path):
             os.environ[ENV_VAR] = old
 
 
+def test_a_file_that_is_not_a_database_gives_a_clear_page(tmp_path):
+    bad = tmp_path / "notes.sqlite"
+    bad.write_text("these are meeting notes, not a database\n" * 200)
+    old = os.environ.get(ENV_VAR)
+    os.environ[ENV_VAR] = f"sqlite:///{bad}"
+    try:
+        at = AppTest.from_file(APP, default_timeout=TIMEOUT_S)
+        at.run()
+        assert not at.exception, [e.value for e in at.exception]  # no traceback
+        assert [t.value for t in at.title] == ["heliaudit cannot read this database"]
+        assert any("Cannot" in e.value and "notes.sqlite" in e.value for e in at.error)
+    finally:
+        if old is None:
+            os.environ.pop(ENV_VAR, None)
+        else:
+            os.environ[ENV_VAR] = old
+
+
 # ---------------------------------------------------------------- weekly check
 
 
