@@ -18,6 +18,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from ingest.site_model import HORIZONTAL, PLANE_KINDS, Array, Plane, choose_source
+
 FORMAT_VERSION = 1
 
 #: Quantities a channel may carry, with the units accepted for each (first = stored unit).
@@ -76,22 +78,36 @@ class Sensor:
     quantity: str
     instrument: str | None = None  # POA/GHI only: thermopile_pyranometer | reference_cell
     notes: str = ""
+    plane: Plane | None = None  # POA/GHI only: the plane the sensor lies in (GHI: horizontal)
 
 
 @dataclass(frozen=True)
 class Inverter:
+    """One inverter. ``arrays`` always holds at least one :class:`ingest.site_model.Array`
+    (an inverter without ``[[inverters.arrays]]`` has one array: its whole ``p_dc_kwp`` in its
+    plane). ``p_ac_max_kw`` is the DC nameplate when the AC rating is unknown
+    (``p_ac_max_assumed``); ``commissioned`` is None when unknown."""
+
     id: str
     p_dc_kwp: float
     p_ac_max_kw: float
     gamma_pmp_per_c: float
     mounting: str
-    poa_sensor: str
-    t_module_sensor: str
-    commissioned: dt.date
+    poa_sensor: str | None
+    t_module_sensor: str | None
+    commissioned: dt.date | None
     eta_inv_nom: float = 0.96
     t_amb_sensor: str | None = None
     wind_sensor: str | None = None
     peer_group: str = "site"
+    ghi_sensor: str | None = None
+    arrays: tuple[Array, ...] = ()
+    p_ac_max_assumed: bool = False
+
+    @property
+    def irradiance_sensor(self) -> str:
+        """The sensor of the first array's irradiance source (stored as ``poa_sensor_id``)."""
+        return self.arrays[0].irradiance_sensor if self.arrays else (self.poa_sensor or "")
 
 
 @dataclass(frozen=True)
@@ -188,6 +204,7 @@ class SiteConfig:
     economics: Economics
     warranty: Warranty | None
     filters: dict[str, float]
+    planes: tuple[Plane, ...] = ()
     owner: str = ""
     path: str = ""
     toml_text: str = ""
@@ -201,6 +218,11 @@ class SiteConfig:
 
     def inverter(self, inverter_id: str) -> Inverter:
         return next(i for i in self.inverters if i.id == inverter_id)
+
+    @property
+    def site_plane(self) -> Plane:
+        """The site-level plane, default of every inverter and POA sensor without their own."""
+        return Plane(kind="fixed", tilt_deg=self.tilt_deg, azimuth_deg=self.azimuth_deg, id="site")
 
     def device_ids(self) -> set[str]:
         return {s.id for s in self.sensors} | {i.id for i in self.inverters}
@@ -287,7 +309,7 @@ class _Validator:
         if fv != FORMAT_VERSION:
             self.bad("format_version", f"this heliaudit reads format {FORMAT_VERSION}, got {fv}")
         known = {"format_version", "site", "economics", "warranty", "filters", "sensors",
-                 "inverters", "sources"}
+                 "inverters", "sources", "planes"}
         for extra in sorted(set(raw) - known):
             self.bad(extra, f"unknown key; expected one of {', '.join(sorted(known))}")
         site = raw.get("site")
@@ -303,9 +325,13 @@ class _Validator:
                 zoneinfo.ZoneInfo(tz)
             except (zoneinfo.ZoneInfoNotFoundError, ValueError):
                 self.bad("site.timezone", f"unknown IANA time zone {tz!r} (e.g. 'Europe/Madrid')")
-        sensors = self.sensors(raw.get("sensors", []))
+        site_plane = Plane(kind="fixed", id="site",
+                           tilt_deg=self.get(site, "tilt_deg", "site", float, lo=0, hi=90) or 0.0,
+                           azimuth_deg=self.get(site, "azimuth_deg", "site", float, lo=0, hi=360) or 0.0)
+        planes = self.planes(raw.get("planes", []))
+        sensors = self.sensors(raw.get("sensors", []), planes, site_plane)
         sensor_ids = {s.id: s for s in sensors}
-        inverters = self.inverters(raw.get("inverters", []), sensor_ids)
+        inverters = self.inverters(raw.get("inverters", []), sensor_ids, planes, site_plane)
         device_ids = set(sensor_ids) | {i.id for i in inverters}
         dup = set(sensor_ids) & {i.id for i in inverters}
         for d in sorted(dup):
@@ -341,8 +367,8 @@ class _Validator:
             latitude_deg=self.get(site, "latitude_deg", "site", float, lo=-90, hi=90) or 0.0,
             longitude_deg=self.get(site, "longitude_deg", "site", float, lo=-180, hi=180) or 0.0,
             altitude_m=self.get(site, "altitude_m", "site", float, 0.0, -500, 9000),
-            tilt_deg=self.get(site, "tilt_deg", "site", float, lo=0, hi=90) or 0.0,
-            azimuth_deg=self.get(site, "azimuth_deg", "site", float, lo=0, hi=360) or 0.0,
+            tilt_deg=site_plane.tilt_deg, azimuth_deg=site_plane.azimuth_deg,
+            planes=tuple(planes.values()),
             albedo=self.get(site, "albedo", "site", float, 0.2, 0.0, 1.0),
             sensors=tuple(sensors), inverters=tuple(inverters), sources=tuple(sources),
             economics=economics, warranty=warranty,
@@ -356,7 +382,65 @@ class _Validator:
             return []
         return items
 
-    def sensors(self, items: Any) -> list[Sensor]:
+    def planes(self, items: Any) -> dict[str, Plane]:
+        """``[[planes]]``: named fixed planes and single-axis trackers, referred to by id."""
+        out: dict[str, Plane] = {}
+        for n, p in enumerate(self._list(items, "planes")):
+            key = f"planes[{n}]"
+            pid = self.get(p, "id", key, str)
+            if pid in ("site", "horizontal"):
+                self.bad(f"{key}.id", f"{pid!r} is reserved (the site plane / horizontal)")
+            elif pid in out:
+                self.bad(f"{key}.id", f"duplicate plane id {pid!r}")
+            kind = self.choice(p, "kind", key, PLANE_KINDS, "fixed")
+            if kind == "single_axis":
+                for k in ("tilt_deg", "azimuth_deg"):
+                    if k in p:
+                        self.bad(f"{key}.{k}", "a single-axis tracker has no fixed tilt/azimuth; "
+                                 "use axis_tilt_deg, axis_azimuth_deg")
+                plane = Plane(
+                    kind=kind, id=pid or f"?{n}",
+                    axis_tilt_deg=self.get(p, "axis_tilt_deg", key, float, 0.0, 0, 60),
+                    axis_azimuth_deg=self.get(p, "axis_azimuth_deg", key, float, 180.0, 0, 360),
+                    max_angle_deg=self.get(p, "max_angle_deg", key, float, 60.0, 1, 90),
+                    backtrack=self.get(p, "backtrack", key, bool, True),
+                    gcr=self.get(p, "gcr", key, float, 0.35, 0.01, 1.0))
+            else:
+                for k in ("axis_tilt_deg", "axis_azimuth_deg", "max_angle_deg", "backtrack", "gcr"):
+                    if k in p:
+                        self.bad(f"{key}.{k}", "only a kind = \"single_axis\" plane has this key")
+                plane = Plane(kind="fixed", id=pid or f"?{n}",
+                              tilt_deg=self.get(p, "tilt_deg", key, float, lo=0, hi=90) or 0.0,
+                              azimuth_deg=self.get(p, "azimuth_deg", key, float, lo=0, hi=360) or 0.0)
+            if pid:
+                out[pid] = plane
+        return out
+
+    def plane_of(self, t: dict, key: str, planes: dict[str, Plane], default: Plane) -> Plane:
+        """A table's plane: ``plane = "<id>" | "site" | "horizontal"``, or inline
+        ``tilt_deg`` / ``azimuth_deg``, else ``default``."""
+        inline = "tilt_deg" in t or "azimuth_deg" in t
+        if "plane" in t:
+            if inline:
+                self.bad(f"{key}.plane", "give either plane or tilt_deg/azimuth_deg, not both")
+            ref = self.get(t, "plane", key, str)
+            if ref == "site":
+                return default if default.id == "site" else Plane(kind="fixed", id="site",
+                                                                   tilt_deg=default.tilt_deg,
+                                                                   azimuth_deg=default.azimuth_deg)
+            if ref == "horizontal":
+                return HORIZONTAL
+            if ref is not None and ref not in planes:
+                known = ", ".join(["site", "horizontal", *sorted(planes)])
+                self.bad(f"{key}.plane", f"no plane {ref!r}; known: {known}")
+            return planes.get(ref, default)
+        if inline:
+            return Plane(kind="fixed",
+                         tilt_deg=self.get(t, "tilt_deg", key, float, default.tilt_deg, 0, 90),
+                         azimuth_deg=self.get(t, "azimuth_deg", key, float, default.azimuth_deg, 0, 360))
+        return default
+
+    def sensors(self, items: Any, planes: dict[str, Plane], site_plane: Plane) -> list[Sensor]:
         out, seen = [], set()
         for n, s in enumerate(self._list(items, "sensors")):
             key = f"sensors[{n}]"
@@ -365,16 +449,77 @@ class _Validator:
                 self.bad(f"{key}.id", f"duplicate sensor id {sid!r}")
             seen.add(sid)
             q = self.choice(s, "quantity", key, SENSOR_QUANTITIES)
-            inst = None
+            inst, plane = None, None
             if q in ("poa_wm2", "ghi_wm2"):
                 inst = self.choice(s, "instrument", key, INSTRUMENTS)
+            if q == "poa_wm2":
+                plane = self.plane_of(s, key, planes, site_plane)
+            elif q == "ghi_wm2":
+                plane = self.plane_of(s, key, planes, HORIZONTAL)
+                if not plane.same_as(HORIZONTAL):
+                    self.bad(f"{key}.plane", "a ghi_wm2 sensor is horizontal; a tilted sensor "
+                             "is quantity = \"poa_wm2\" with its plane")
+                plane = HORIZONTAL
+            elif "plane" in s or "tilt_deg" in s or "azimuth_deg" in s:
+                self.bad(f"{key}.plane", "only irradiance sensors (poa_wm2, ghi_wm2) have a plane")
             out.append(Sensor(id=sid or f"?{n}", quantity=q or "", instrument=inst,
-                              notes=self.get(s, "notes", key, str, "")))
-        if not any(s.quantity == "poa_wm2" for s in out):
-            self.bad("sensors", "at least one POA irradiance sensor (quantity = \"poa_wm2\") is required")
+                              notes=self.get(s, "notes", key, str, ""), plane=plane))
+        if not any(s.quantity in ("poa_wm2", "ghi_wm2") for s in out):
+            self.bad("sensors", "at least one irradiance sensor (quantity = \"poa_wm2\" or "
+                     "\"ghi_wm2\") is required")
         return out
 
-    def inverters(self, items: Any, sensors: dict[str, Sensor]) -> list[Inverter]:
+    def _sensor_ref(self, t: dict, ref: str, key: str, qty: str, sensors: dict[str, Sensor]
+                    ) -> str | None:
+        sid = self.get(t, ref, key, str, None)
+        if sid is not None:
+            if sid not in sensors:
+                self.bad(f"{key}.{ref}", f"no sensor with id {sid!r}; known: "
+                         f"{', '.join(sorted(sensors)) or '(none)'}")
+                return None
+            if sensors[sid].quantity != qty:
+                self.bad(f"{key}.{ref}", f"sensor {sid!r} measures "
+                         f"{sensors[sid].quantity}, expected {qty}")
+                return None
+        return sid
+
+    def _arrays(self, t: dict, key: str, inv_plane: Plane, p_dc: float | None,
+                inv_poa: str | None, inv_ghi: str | None, sensors: dict[str, Sensor],
+                planes: dict[str, Plane]) -> list[Array]:
+        """``[[inverters.arrays]]`` (or one array: the whole inverter), each with its source."""
+        raw = t.get("arrays")
+        specs = []
+        if raw is None:
+            specs.append(("1", p_dc or 1.0, inv_plane, None, None, key))
+        else:
+            ids = set()
+            for m, a in enumerate(self._list(raw, f"{key}.arrays")):
+                akey = f"{key}.arrays[{m}]"
+                aid = str(self.get(a, "id", akey, (str, int), m + 1))
+                if aid in ids:
+                    self.bad(f"{akey}.id", f"duplicate array id {aid!r}")
+                ids.add(aid)
+                specs.append((aid, self.get(a, "p_dc_kwp", akey, float, lo=0.01, hi=1e6) or 1.0,
+                              self.plane_of(a, akey, planes, inv_plane),
+                              self._sensor_ref(a, "poa_sensor", akey, "poa_wm2", sensors),
+                              self._sensor_ref(a, "ghi_sensor", akey, "ghi_wm2", sensors), akey))
+            if not specs:
+                self.bad(f"{key}.arrays", "give at least one array, or leave arrays out")
+        out = []
+        for aid, kwp, plane, a_poa, a_ghi, akey in specs:
+            poa = [(s, sensors[s].plane or inv_plane) for s in (a_poa, inv_poa) if s]
+            ghi = [s for s in (a_ghi, inv_ghi) if s]
+            got = choose_source(plane, poa, ghi)
+            if got is None:
+                self.bad(akey, "no irradiance sensor: set poa_sensor (a plane-of-array sensor) "
+                         "or ghi_sensor (a horizontal one)")
+                got = ("poa_same_plane", "")
+            out.append(Array(id=aid, p_dc_kwp=kwp, plane=plane, poa_sensor=a_poa, ghi_sensor=a_ghi,
+                             irradiance_basis=got[0], irradiance_sensor=got[1]))
+        return out
+
+    def inverters(self, items: Any, sensors: dict[str, Sensor], planes: dict[str, Plane],
+                  site_plane: Plane) -> list[Inverter]:
         out, seen = [], set()
         items = self._list(items, "inverters")
         if not items:
@@ -390,31 +535,40 @@ class _Validator:
                 self.bad(f"{key}.gamma_pmp_per_c",
                          "expected a negative number per °C (e.g. -0.0035 for -0.35 %/°C), "
                          f"got {gamma}")
-            refs = {}
-            for ref, qty, required in (("poa_sensor", "poa_wm2", True),
-                                       ("t_module_sensor", "t_module_c", True),
-                                       ("t_amb_sensor", "t_amb_c", False),
-                                       ("wind_sensor", "wind_ms", False)):
-                sid = self.get(t, ref, key, str, ... if required else None)
-                if sid is not None:
-                    if sid not in sensors:
-                        self.bad(f"{key}.{ref}", f"no sensor with id {sid!r}; known: "
-                                 f"{', '.join(sorted(sensors)) or '(none)'}")
-                    elif sensors[sid].quantity != qty:
-                        self.bad(f"{key}.{ref}", f"sensor {sid!r} measures "
-                                 f"{sensors[sid].quantity}, expected {qty}")
-                refs[ref] = sid
-            p_dc = self.get(t, "p_dc_kwp", key, float, lo=0.1, hi=1e6)
-            p_ac = self.get(t, "p_ac_max_kw", key, float, lo=0.1, hi=1e6)
+            refs = {ref: self._sensor_ref(t, ref, key, qty, sensors)
+                    for ref, qty in (("poa_sensor", "poa_wm2"), ("ghi_sensor", "ghi_wm2"),
+                                     ("t_module_sensor", "t_module_c"), ("t_amb_sensor", "t_amb_c"),
+                                     ("wind_sensor", "wind_ms"))}
+            if not refs["t_module_sensor"] and not refs["t_amb_sensor"] and not any(
+                    k in t for k in ("t_module_sensor", "t_amb_sensor")):
+                self.bad(key, "no t_module_sensor and no t_amb_sensor: cell temperature can be "
+                         "neither measured (back-of-module sensor) nor modelled (Sandia / "
+                         "Faiman from ambient temperature); assign at least one")
+            has_arrays = "arrays" in t
+            p_dc = self.get(t, "p_dc_kwp", key, float, None if has_arrays else ..., 0.1, 1e6)
+            inv_plane = self.plane_of(t, key, planes, site_plane)
+            arrays = self._arrays(t, key, inv_plane, p_dc, refs["poa_sensor"], refs["ghi_sensor"],
+                                  sensors, planes)
+            if has_arrays and arrays:
+                total = sum(a.p_dc_kwp for a in arrays)
+                if p_dc is not None and abs(total - p_dc) > 0.01 * p_dc:
+                    self.bad(f"{key}.p_dc_kwp", f"{p_dc} kWp but its arrays add up to {total:g} kWp")
+                p_dc = p_dc if p_dc is not None else total
+            p_ac = self.get(t, "p_ac_max_kw", key, float, None, 0.1, 1e6)
+            p_dc = p_dc or 1.0
             out.append(Inverter(
-                id=iid or f"?{n}", p_dc_kwp=p_dc or 1.0, p_ac_max_kw=p_ac or 1.0,
+                id=iid or f"?{n}", p_dc_kwp=p_dc,
+                # unknown AC rating: the DC nameplate is assumed (README, "Optional ratings")
+                p_ac_max_kw=p_ac if p_ac is not None else p_dc, p_ac_max_assumed=p_ac is None,
                 gamma_pmp_per_c=gamma if gamma is not None else -0.004,
                 mounting=self.choice(t, "mounting", key, MOUNTINGS),
                 eta_inv_nom=self.get(t, "eta_inv_nom", key, float, 0.96, 0.5, 1.0),
-                commissioned=self.date(t, "commissioned", key),
+                commissioned=self.date(t, "commissioned", key, None),
                 peer_group=self.get(t, "peer_group", key, str, "site"),
-                poa_sensor=refs["poa_sensor"], t_module_sensor=refs["t_module_sensor"],
+                poa_sensor=refs["poa_sensor"], ghi_sensor=refs["ghi_sensor"],
+                t_module_sensor=refs["t_module_sensor"],
                 t_amb_sensor=refs["t_amb_sensor"], wind_sensor=refs["wind_sensor"],
+                arrays=tuple(arrays),
             ))
         return out
 
