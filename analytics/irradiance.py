@@ -25,6 +25,8 @@ and, for ``kind == 'single_axis'``, ``axis_tilt_deg``, ``axis_azimuth_deg``,
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pvlib
@@ -178,18 +180,21 @@ def components_from_poa(poa_wm2, sensor_plane, geometry: pd.DataFrame, albedo: f
     """GHI, DNI, DHI [W/m²] from a POA reading of ``sensor_plane``: GTI-DIRINT (Marion 2015).
 
     :func:`pvlib.irradiance.gti_dirint` (Perez transposition inside, ``allsitescomposite1990``,
-    standard pressure, at most 30 iterations). Rows where it does not converge come back
-    as NaN from pvlib and stay NaN.
+    standard pressure, at most 30 iterations). Rows where it does not converge keep pvlib's
+    best iterate (pvlib's warning is silenced here); rows pvlib returns as NaN stay NaN.
     """
     g = np.clip(np.asarray(poa_wm2, dtype=float), 0.0, None)
     tilt, azim = plane_orientation(sensor_plane, geometry)
     aoi = pvlib.irradiance.aoi(tilt, azim, geometry["zenith_deg"].to_numpy(),
                                geometry["sun_azimuth_deg"].to_numpy())
-    out = pvlib.irradiance.gti_dirint(
-        pd.Series(g, index=geometry.index), pd.Series(np.asarray(aoi, float), index=geometry.index),
-        geometry["zenith_deg"], geometry["sun_azimuth_deg"], geometry.index,
-        pd.Series(tilt, index=geometry.index), pd.Series(azim, index=geometry.index),
-        albedo=albedo, model="perez", model_perez=PEREZ_MODEL)
+    with warnings.catch_warnings():  # pvlib warns of rows not converged; it returns its best
+        warnings.filterwarnings("ignore", message=".*failed to converge.*")
+        out = pvlib.irradiance.gti_dirint(
+            pd.Series(g, index=geometry.index),
+            pd.Series(np.asarray(aoi, float), index=geometry.index),
+            geometry["zenith_deg"], geometry["sun_azimuth_deg"], geometry.index,
+            pd.Series(tilt, index=geometry.index), pd.Series(azim, index=geometry.index),
+            albedo=albedo, model="perez", model_perez=PEREZ_MODEL)
     return (out["ghi"].to_numpy(float), out["dni"].to_numpy(float), out["dhi"].to_numpy(float))
 
 
