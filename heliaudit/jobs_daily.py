@@ -59,7 +59,7 @@ def _params(site_row: dict, filters: dict, offset_h: float) -> dict:
         "night": "solar elevation (pvlib ephemeris) < night_elevation_deg or G < night_poa_wm2",
         "coverage_weight": "measured POA, clear-sky POA (Ineichen, isotropic) where missing",
         "irradiance_sources": "per array, best first: POA sensor in the array plane; GHI "
-                              "sensor with Erbs (1982) decomposition and Perez (1990) "
+                              "sensor with DIRINT (Perez et al. 1992) decomposition and Perez (1990) "
                               "transposition; POA sensor of another plane via GTI-DIRINT "
                               "(Marion 2015) and Perez (1990); trackers by "
                               "pvlib.tracking.singleaxis (Marion & Dobos 2013)",

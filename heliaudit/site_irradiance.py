@@ -6,7 +6,7 @@ The store's inverter frame carries the reading of the inverter's first irradianc
 than their sensor, single-axis trackers, horizontal (GHI) sensors, several arrays on
 different planes — :class:`SiteIrradiance` replaces ``poa_wm2`` by the capacity-weighted
 irradiance of the inverter's arrays, each from its source (:mod:`ingest.site_model`), with
-the models of :mod:`analytics.irradiance` (Erbs 1982, GTI-DIRINT Marion 2015, Perez 1990,
+the models of :mod:`analytics.irradiance` (DIRINT Perez et al. 1992, GTI-DIRINT Marion 2015, Perez 1990,
 single-axis tracking Marion & Dobos 2013), and gives the matching clear-sky POA for the
 coverage weights.
 """

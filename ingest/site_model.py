@@ -8,7 +8,7 @@ that, every array gets its **irradiance source**, chosen in this order of prefer
 1. ``poa_same_plane``: a plane-of-array sensor in the array's own plane (measured POA,
    used as read);
 2. ``ghi_transposed``: a horizontal (GHI) sensor, split into beam and diffuse with the
-   Erbs et al. (1982) decomposition and transposed to the array's plane with the Perez et
+   DIRINT decomposition (Perez et al. 1992) and transposed to the array's plane with the Perez et
    al. (1990) sky-diffuse model (pvlib);
 3. ``poa_other_plane_transposed``: a POA sensor in another plane, turned back into GHI, DNI
    and DHI with GTI-DIRINT (Marion 2015, pvlib ``gti_dirint``) and transposed to the
@@ -31,8 +31,8 @@ IRRADIANCE_BASES = ("poa_same_plane", "ghi_transposed", "poa_other_plane_transpo
 #: The published models behind each code, for results and the computation record.
 BASIS_METHODS = {
     "poa_same_plane": "measured POA in the array plane",
-    "ghi_transposed": "GHI decomposed with Erbs et al. (1982), transposed with Perez et al. "
-                      "(1990) (pvlib)",
+    "ghi_transposed": "GHI decomposed with DIRINT (Perez et al. 1992), transposed with "
+                      "Perez et al. (1990) (pvlib)",
     "poa_other_plane_transposed": "POA of another plane inverted to GHI/DNI/DHI with "
                                   "GTI-DIRINT (Marion 2015), transposed with Perez et al. "
                                   "(1990) (pvlib)",

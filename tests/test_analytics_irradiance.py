@@ -45,6 +45,23 @@ def test_sun_geometry_matches_pvlib_at_midpoints(day):
     assert_allclose(geo["sun_azimuth_deg"].to_numpy(), np.asarray(sp["azimuth"]), atol=1e-9)
 
 
+def test_ghi_to_plane_equals_direct_pvlib_dirint_perez(day):
+    geo, ghi = day
+    times = geo.index
+    dni = pvlib.irradiance.dirint(pd.Series(ghi, times), geo["zenith_deg"].to_numpy(), times)
+    dni = dni.fillna(0).to_numpy()
+    dhi = ghi - dni * np.cos(np.radians(geo["zenith_deg"].to_numpy())).clip(0)
+    ref = pvlib.irradiance.get_total_irradiance(
+        30.0, 180.0, geo["apparent_zenith_deg"].to_numpy(), geo["sun_azimuth_deg"].to_numpy(),
+        dni, ghi, dhi.clip(0), dni_extra=geo["dni_extra_wm2"].to_numpy(),
+        airmass=pvlib.atmosphere.get_relative_airmass(geo["apparent_zenith_deg"].to_numpy()),
+        albedo=0.2, model="perez", model_perez="allsitescomposite1990")["poa_global"]
+    ours = ir.poa_from_ghi(ghi, FIXED30, geo, albedo=0.2)
+    up = geo["apparent_zenith_deg"].to_numpy() < 90
+    assert_allclose(ours[up], np.nan_to_num(np.asarray(ref, float)[up]), rtol=0, atol=1e-6)
+    assert ours.max() > 800
+
+
 def test_ghi_to_plane_equals_direct_pvlib_erbs_perez(day):
     geo, ghi = day
     sp_z, sp_az = geo["zenith_deg"].to_numpy(), geo["sun_azimuth_deg"].to_numpy()
@@ -58,22 +75,27 @@ def test_ghi_to_plane_equals_direct_pvlib_erbs_perez(day):
         albedo=0.2,
         model="perez", model_perez="allsitescomposite1990")["poa_global"]
     ref = np.asarray(ref, dtype=float)
-    ours = ir.poa_from_ghi(ghi, FIXED30, geo, albedo=0.2)
+    ours = ir.poa_from_ghi(ghi, FIXED30, geo, albedo=0.2, decomposition="erbs")
     up = geo["apparent_zenith_deg"].to_numpy() < 90
     assert_allclose(ours[up], np.nan_to_num(ref[up]), rtol=0, atol=1e-6)
     assert (ours[~up] == 0).all()
     assert ours.max() > 800  # the test covers high irradiance, not only the night
 
 
-def test_erbs_closes_on_ghi_and_flat_plane_returns_ghi(day):
-    # physical identity (Erbs 1982 keeps GHI = DNI cos z + DHI); a horizontal plane sees GHI.
-    # pvlib's Perez uses the apparent zenith for the beam, Erbs the true one: <0.5 W/m2 apart
+@pytest.mark.parametrize("decomposition", ["dirint", "erbs"])
+def test_decomposition_closes_on_ghi_and_flat_plane_returns_ghi(day, decomposition):
+    # physical identity (GHI = DNI cos z + DHI); a horizontal plane sees GHI. pvlib's Perez
+    # uses the apparent zenith for the beam, the decompositions the true one: <1 W/m2 apart
     geo, ghi = day
-    dni, dhi = ir.decompose_erbs(ghi, geo)
+    f = ir.decompose_dirint if decomposition == "dirint" else ir.decompose_erbs
+    dni, dhi = f(ghi, geo)
     cosz = np.cos(np.radians(geo["zenith_deg"].to_numpy()))
     up = geo["zenith_deg"].to_numpy() < 87
     assert_allclose((dni * cosz + dhi)[up], ghi[up], atol=1e-6)
-    assert_allclose(ir.poa_from_ghi(ghi, FLAT, geo)[up], ghi[up], atol=0.5)
+    assert_allclose(ir.poa_from_ghi(ghi, FLAT, geo, decomposition=decomposition)[up], ghi[up],
+                    atol=1.0)
+    with pytest.raises(ValueError, match="decomposition"):
+        ir.poa_from_ghi(ghi, FLAT, geo, decomposition="disc")
 
 
 @pytest.mark.filterwarnings("ignore:.*failed to converge")
