@@ -34,8 +34,30 @@ def _v2_daily_e_ac_pr(conn: sa.Connection) -> None:
 
 STEPS[2] = _v2_daily_e_ac_pr
 
+#: Degradation method codes of results schema 1 and their names since schema 2 (#10).
+METHOD_RENAMES_V3 = {
+    "yoy": "sensor_year_pairs",
+    "rlm": "sensor_monthly_robust_line",
+    "stl": "sensor_monthly_trend_line",
+    "peer_relative": "peer_ratio_year_pairs",
+    "clearsky_yoy": "modelled_sky_year_pairs",
+    "sensor_vs_clearsky": "sensor_drift_check",
+    "yoy_stable_segments": "sensor_year_pairs_between_shifts",
+    "summary": "overview",
+}
 
-def _v3_site_model(conn: sa.Connection) -> None:
+
+def _v3_method_names(conn: sa.Connection) -> None:
+    """degradation_result.method: our own plain-word method names (#10)."""
+    table = schema.degradation_result
+    for old, new in METHOD_RENAMES_V3.items():
+        conn.execute(table.update().where(table.c.method == old).values(method=new))
+
+
+STEPS[3] = _v3_method_names
+
+
+def _v4_site_model(conn: sa.Connection) -> None:
     """Site model (#11): daily_inverter.irradiance_basis / t_cell_basis; inverter.commissioned
     and t_module_sensor_id may be unknown (NULL)."""
     insp = sa.inspect(conn)
@@ -47,17 +69,17 @@ def _v3_site_model(conn: sa.Connection) -> None:
     if nullable.get("commissioned") and nullable.get("t_module_sensor_id"):
         return
     if conn.dialect.name == "sqlite":  # SQLite cannot drop NOT NULL: rebuild the table
-        conn.execute(sa.text("ALTER TABLE inverter RENAME TO inverter_v2"))
+        conn.execute(sa.text("ALTER TABLE inverter RENAME TO inverter_v3"))
         schema.inverter.create(conn)
         names = ", ".join(c.name for c in schema.inverter.columns)
-        conn.execute(sa.text(f"INSERT INTO inverter ({names}) SELECT {names} FROM inverter_v2"))
-        conn.execute(sa.text("DROP TABLE inverter_v2"))
+        conn.execute(sa.text(f"INSERT INTO inverter ({names}) SELECT {names} FROM inverter_v3"))
+        conn.execute(sa.text("DROP TABLE inverter_v3"))
     else:
         conn.execute(sa.text("ALTER TABLE inverter ALTER COLUMN commissioned DROP NOT NULL, "
                              "ALTER COLUMN t_module_sensor_id DROP NOT NULL"))
 
 
-STEPS[3] = _v3_site_model
+STEPS[4] = _v4_site_model
 
 
 def current_version(conn: sa.Connection) -> int | None:

@@ -13,7 +13,8 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 3  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: site model (#11)
+SCHEMA_VERSION = 4  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+#                    4: site model (#11)
 
 metadata = sa.MetaData()
 
