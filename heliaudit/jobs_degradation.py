@@ -508,6 +508,16 @@ def _flags(engine, site_id: str) -> tuple[pd.DataFrame, bool]:
     return read_flags(engine, site_id), True
 
 
+def _basis(d: pd.DataFrame) -> dict:
+    """Where a device's PR and rates got irradiance and cell temperature (#11): days per code
+    (ingest.site_model.IRRADIANCE_BASES, analytics.daily.T_CELL_BASES; null: not recorded)."""
+    def counts(col):
+        if col not in d:
+            return {}
+        return {str(k): int(v) for k, v in d[col].dropna().value_counts().sort_index().items()}
+    return {"irradiance": counts("irradiance_basis"), "cell_temperature": counts("t_cell_basis")}
+
+
 def _period(d: pd.DataFrame) -> dict:
     """Period and PRs of one device from daily sums: PR = Σ e_ac / Σ e_ref (IEC 61724-1),
     PR_STC = Σ e_ac / Σ e_ref_stc, over days where both terms exist (all days, not only valid
@@ -577,7 +587,8 @@ def results_document(engine, site_id: str) -> dict:
         block = {"device_id": dev, "p_dc_kwp": float(inv["p_dc_kwp"]),
                  "commissioned": str(inv["commissioned"]) if pd.notna(inv["commissioned"])
                  else None, "peer_group": inv["peer_group"],
-                 "period": _period(daily[daily["device_id"] == dev])}
+                 "period": _period(daily[daily["device_id"] == dev]),
+                 "basis_days": _basis(daily[daily["device_id"] == dev])}
         rows = deg[deg["device_id"] == dev]
         block.update(_device_block(rows) if len(rows) else
                      {"degradation": {}, "reason": "degradation not computed"})

@@ -228,14 +228,22 @@ def test_computation_record_states_sources_and_assumptions(tmp_path):
     import sqlalchemy as sa
 
     from db import schema
+    from heliaudit.jobs_degradation import results_document
     eng = _store(tmp_path, ["fernhollow_2023-12.csv.gz"])
     try:
         with eng.connect() as conn:
             params = conn.execute(sa.select(schema.computation.c.params_json).where(
                 schema.computation.c.kind == "daily").order_by(
                 schema.computation.c.computation_id.desc())).scalars().first()
+        doc = results_document(eng, "fernhollow")
     finally:
         eng.dispose()
+    # the results document states each inverter's basis, in days (31 December days, local
+    # standard time; the file's last rows fall on 1 January)
+    basis = {b["device_id"]: b["basis_days"] for b in doc["inverters"]}
+    assert basis["C2"]["irradiance"] == {"ghi_transposed": 31}
+    assert basis["A1"]["cell_temperature"] == {"module_sensor": 31}
+    assert basis["B1"]["cell_temperature"] == {"modelled_sandia_king2004": 31}
     inv = json.loads(params)["inverters"]
     assert [a["irradiance_basis"] for a in inv["D1"]["arrays"]] == ["poa_same_plane",
                                                                      "ghi_transposed"]
