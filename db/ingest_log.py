@@ -99,9 +99,11 @@ def rejected_rows(engine: sa.Engine, site_id: str, batch_id: int | None = None,
 def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
     """Per site: devices, date range, completeness, batches and rejects.
 
-    ``completeness`` = readings stored / readings expected, where expected counts, for every
-    channel holding data, one reading per nominal interval from the site's first to its last
-    interval (nominal interval = the most common final interval of its loaded batches).
+    ``completeness`` = time covered by stored readings / time expected: each reading covers
+    its own interval as recorded at ingest (a reading stored before intervals were recorded
+    counts one nominal interval = the most common final interval of the loaded batches), and
+    every channel holding data is expected from the site's first interval to the end of its
+    last one. A channel that changed from 15 to 5 minutes is therefore complete at 1.0.
     """
     s, d, c, r = schema.site, schema.device, schema.channel, schema.reading
     with engine.connect() as conn:
@@ -114,7 +116,8 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
             chans = [x[0] for x in conn.execute(sa.select(c.c.channel_id).join(
                 d, d.c.device_pk == c.c.device_pk).where(d.c.site_id == sid))]
             per = conn.execute(sa.select(r.c.channel_id, sa.func.count(), sa.func.min(r.c.ts_s),
-                                         sa.func.max(r.c.ts_s))
+                                         sa.func.max(r.c.ts_s), sa.func.sum(r.c.interval_s),
+                                         sa.func.count(r.c.interval_s))
                                .where(r.c.channel_id.in_(chans)).group_by(r.c.channel_id)).all() \
                 if chans else []
             b = conn.execute(sa.select(B.c.status, sa.func.count(), sa.func.sum(B.c.rows_rejected),
@@ -128,8 +131,9 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
             nominal = nominal_interval(intervals)
             completeness = None
             if per and nominal:
-                expected = len(per) * ((last - first) // nominal + 1)
-                completeness = n_read / expected if expected else None
+                covered = sum(float(x[4] or 0) + (x[1] - x[5]) * nominal for x in per)
+                expected = len(per) * (last - first + nominal)
+                completeness = covered / expected if expected else None
             by_status = {x[0]: x for x in b}
             loaded = by_status.get("loaded")
             out.append(dict(

@@ -57,7 +57,43 @@ def _v3_method_names(conn: sa.Connection) -> None:
 STEPS[3] = _v3_method_names
 
 
-def _v4_site_model(conn: sa.Connection) -> None:
+def _v4_reading_interval(conn: sa.Connection) -> None:
+    """reading.interval_s (interval recorded at ingest), channel.sampling and channel.input_id (#11)."""
+    insp = sa.inspect(conn)
+    if "interval_s" not in {c["name"] for c in insp.get_columns("reading")}:
+        # readings loaded before v4 keep NULL: the reader infers their interval from spacing
+        conn.execute(sa.text("ALTER TABLE reading ADD COLUMN interval_s INTEGER"))
+    cols = {c["name"] for c in insp.get_columns("channel")}
+    if conn.dialect.name == "sqlite":
+        # the unique key gains input_id: SQLite rebuilds the (small) table
+        if "input_id" not in cols:
+            conn.execute(sa.text(
+                "CREATE TABLE channel_v4 (channel_id INTEGER NOT NULL PRIMARY KEY, "
+                "device_pk INTEGER NOT NULL REFERENCES device (device_pk), "
+                "quantity VARCHAR(32) NOT NULL, sampling VARCHAR(8) DEFAULT 'mean' NOT NULL, "
+                "input_id VARCHAR(64) DEFAULT '' NOT NULL, "
+                "CONSTRAINT uq_channel_device_quantity_input UNIQUE (device_pk, quantity, input_id))"))
+            conn.execute(sa.text("INSERT INTO channel_v4 (channel_id, device_pk, quantity) "
+                                 "SELECT channel_id, device_pk, quantity FROM channel"))
+            conn.execute(sa.text("DROP TABLE channel"))
+            conn.execute(sa.text("ALTER TABLE channel_v4 RENAME TO channel"))
+        return
+    if "sampling" not in cols:
+        conn.execute(sa.text("ALTER TABLE channel ADD COLUMN sampling VARCHAR(8) "
+                             "NOT NULL DEFAULT 'mean'"))
+    if "input_id" not in cols:
+        conn.execute(sa.text("ALTER TABLE channel ADD COLUMN input_id VARCHAR(64) "
+                             "NOT NULL DEFAULT ''"))
+        conn.execute(sa.text("ALTER TABLE channel DROP CONSTRAINT IF EXISTS "
+                             "uq_channel_device_quantity"))
+        conn.execute(sa.text("ALTER TABLE channel ADD CONSTRAINT uq_channel_device_quantity_input "
+                             "UNIQUE (device_pk, quantity, input_id)"))
+
+
+STEPS[4] = _v4_reading_interval
+
+
+def _v5_site_model(conn: sa.Connection) -> None:
     """Site model (#11): daily_inverter.irradiance_basis / t_cell_basis; inverter.commissioned
     and t_module_sensor_id may be unknown (NULL)."""
     insp = sa.inspect(conn)
@@ -69,17 +105,17 @@ def _v4_site_model(conn: sa.Connection) -> None:
     if nullable.get("commissioned") and nullable.get("t_module_sensor_id"):
         return
     if conn.dialect.name == "sqlite":  # SQLite cannot drop NOT NULL: rebuild the table
-        conn.execute(sa.text("ALTER TABLE inverter RENAME TO inverter_v3"))
+        conn.execute(sa.text("ALTER TABLE inverter RENAME TO inverter_v4"))
         schema.inverter.create(conn)
         names = ", ".join(c.name for c in schema.inverter.columns)
-        conn.execute(sa.text(f"INSERT INTO inverter ({names}) SELECT {names} FROM inverter_v3"))
-        conn.execute(sa.text("DROP TABLE inverter_v3"))
+        conn.execute(sa.text(f"INSERT INTO inverter ({names}) SELECT {names} FROM inverter_v4"))
+        conn.execute(sa.text("DROP TABLE inverter_v4"))
     else:
         conn.execute(sa.text("ALTER TABLE inverter ALTER COLUMN commissioned DROP NOT NULL, "
                              "ALTER COLUMN t_module_sensor_id DROP NOT NULL"))
 
 
-STEPS[4] = _v4_site_model
+STEPS[5] = _v5_site_model
 
 
 def current_version(conn: sa.Connection) -> int | None:

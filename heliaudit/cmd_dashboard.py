@@ -13,7 +13,8 @@ from pathlib import Path
 
 import click
 
-from db.engine import ENV_VAR, resolve_url
+from db.engine import ENV_VAR
+from heliaudit.common import require_existing_db
 
 APP = Path(__file__).resolve().parents[1] / "dashboard" / "app.py"
 
@@ -63,7 +64,7 @@ def dashboard(ctx: click.Context, port: int, host: str, no_browser: bool) -> Non
     Example:
         heliaudit --db heliaudit.sqlite dashboard --port 8502 --no-browser
     """
-    url = resolve_url((ctx.find_root().obj or {}).get("db_url"))
+    url = require_existing_db((ctx.find_root().obj or {}).get("db_url"))
     env = dict(os.environ, **{ENV_VAR: url})
     # Always headless: a non-headless first run asks for an e-mail address on stdin and
     # exits when there is none (seen from `heliaudit demo`); we open the browser ourselves.

@@ -113,7 +113,7 @@ def ingest(ctx: click.Context, config: str, paths: tuple[str, ...], no_compute: 
         raise click.ClickException(
             f"no export files found in {where} matching "
             + ", ".join(repr(s.pattern) for s in cfg.sources))
-    engine = engine_from_ctx(ctx)
+    engine = engine_from_ctx(ctx, create=True)
     total = sum(os.path.getsize(f) for f, _s in files if f.is_file())
     show = not silent and sys.stderr.isatty()
     results: list[BatchResult] = []

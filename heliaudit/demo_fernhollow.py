@@ -349,6 +349,7 @@ def config_toml() -> str:
                 lines += ["", "[[inverters.arrays]]", f'id = "mppt{k + 1}"', f"p_dc_kwp = {kwp}",
                           f'plane = "{p}"']
         inv.append("\n".join(lines))
+    a, b, shift = CLOCK_ERROR
     cols = "\n\n".join(
         f'[[sources.columns]]\nheader = "{h}"\ndevice = "{d}"\nquantity = "{q}"\nunit = "{u}"'
         for h, d, q, u, _dec, _lg in _columns())
@@ -430,7 +431,8 @@ notes = "cup anemometer at 10 m"
 # One gzip CSV per month from two loggers merged by the data manager (LG1: roof, shed and
 # weather mast; LG2: trackers). Local time with DST, stamped at the END of each interval:
 # 15 minutes until April 2023, 5 minutes from May 2023. Counters in whole kWh.
-# LG2's clock ran 60 minutes fast for three weeks in June 2024 (truth.json, clock_errors).
+# LG2's clock ran 60 minutes fast for three weeks in June 2024 (truth.json, clock_errors):
+# corrected below for LG2's devices only (LG1's columns in the same rows are right).
 [[sources]]
 name = "loggers"
 pattern = "exports/fernhollow_*.csv.gz"
@@ -445,6 +447,13 @@ label = "end"
 ambiguous = "infer"
 
 {cols}
+
+[[sources.clock_corrections]]
+start = {a.isoformat()}            # in the export's own (LG2-shifted) time, inclusive
+end = {(b - dt.timedelta(seconds=1)).isoformat()}
+shift_minutes = {-shift}
+devices = ["C1", "C2", "POA-TRK"]
+note = "logger LG2 (trackers) ran {shift} min fast after a GPS outage"
 '''
 
 

@@ -14,7 +14,10 @@ What runs where:
 * each sensor channel -> range, flatline, dropout, night irradiance (POA/GHI), clock shift
   and clear-sky drift (POA), sibling drift (pairs of POA sensors).
 
-Solar position and clear-sky POA are computed once for the site's timestamp grid.
+Solar position and clear-sky POA are computed once per timestamp and interval length, at each
+reading's own interval midpoint (the interval recorded at ingest, #11): every sample gets a sun
+position however the logging interval changes. A device's expected timestamps (for dropouts)
+step by its own intervals from the site's first to last reading (``db.timeseries.fill_gaps``).
 """
 
 from __future__ import annotations
@@ -29,7 +32,7 @@ import pvlib
 import sqlalchemy as sa
 
 import heliaudit
-from analytics import clock, outages, outliers, sensor_qa, soiling
+from analytics import clock, energy_check, outages, outliers, sensor_qa, soiling
 from analytics.daily import standard_utc_offset_h
 from analytics.outliers import FLAG_COLUMNS, epoch_s, flag_frame
 from analytics.power import expected_ac_power
@@ -43,7 +46,15 @@ from db.computations import begin_computation, finish_computation
 from db.daily import daily_table
 from db.flags import write_flags
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
-from db.timeseries import inverter_frames, read_channel, site_channels
+from db.timeseries import (
+    fill_gaps,
+    fill_unknown_intervals,
+    instant_channels,
+    inverter_frames,
+    read_channel,
+    site_channels,
+)
+from ingest.counters import counter_resolution
 
 Progress = Callable[[int, int], None]  # progress(done, total), in devices
 
@@ -63,6 +74,8 @@ PARAMS = {
                "dropout_min_h": 1.0, "night_wm2": 5.0, "night_elevation_deg": -3.0,
                "drift_threshold_pct_per_yr": 1.0, "daytime_elevation_deg": 10.0},
     "clock": {"threshold_min": 10.0, "n_clear": 7, "clear_day_max_vi": 1.3},
+    "counter_mismatch": {"period": "local month", "rel_tol": energy_check.REL_TOL,
+                         "resolution_units": energy_check.RESOLUTION_UNITS},
     "temperature": "cell from back-of-module (King et al. 2004 Eq. 12), from ambient "
                    "(Eq. 11-12) where the module sensor is missing",
     "power_model": "PVWatts V5 (Dobos 2014) via analytics.power.expected_ac_power",
@@ -138,8 +151,12 @@ def _expected_power(frame: pd.DataFrame, inv: dict) -> pd.Series:
     return pd.Series(np.asarray(p, dtype=float), index=frame.index)
 
 
-def _tau_s(index: pd.DatetimeIndex) -> int:
-    ts = epoch_s(index[:5000])  # the logging interval: median spacing of the first rows
+def _tau_s(index: pd.DatetimeIndex, interval_s=None) -> int:
+    """A typical logging interval [s] for durations (median of the recorded intervals, else
+    of the spacing of all rows)."""
+    if interval_s is not None and np.isfinite(np.asarray(interval_s, dtype=float)).any():
+        return int(round(float(np.nanmedian(np.asarray(interval_s, dtype=float)))))
+    ts = epoch_s(index)
     return int(np.median(np.diff(ts))) if ts.size > 1 else 900
 
 
@@ -155,7 +172,7 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
         return []
     p_max = float(inv["p_ac_max_kw"])
     s = sun.reindex(frame.index)
-    tau_s = _tau_s(frame.index)
+    tau_s = _tau_s(frame.index, frame["interval_h"].to_numpy(float) * 3600.0)
     exp = _expected_power(frame, inv)
     out = [outages.outage_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
                                 std_offset_s=std_offset_s, sun_up=(s["elev"] > 0).to_numpy()),
@@ -190,7 +207,8 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
 
 def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) -> pd.DataFrame:
     """Missing inverter power while the sun is up (information unavailable)."""
-    tau_s = _tau_s(grid_sun.index)
+    tau_s = _tau_s(grid_sun.index, frame["interval_h"].to_numpy(float) * 3600.0
+                   if "interval_h" in frame else None)
     p = frame["p_ac_kw"] if len(frame) else pd.Series(dtype=float)
     return sensor_qa.dropout_flags(p, grid_sun["elev"] > 0, device_id=inv["device_id"],
                                    quantity="p_ac_kw", tau_s=tau_s)
@@ -198,9 +216,12 @@ def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) 
 
 def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataFrame, *,
                  std_offset_s: int, site_zone: str,
-                 source: tuple[str, str] | None = None) -> tuple[list[pd.DataFrame], pd.Series | None]:
-    """QA flags of one sensor; also returns its daily clear-sky ratio (POA) for sibling checks."""
-    tau_s = _tau_s(grid_sun.index)
+                 source: tuple[str, str] | None = None,
+                 interval_s: np.ndarray | None = None) -> tuple[list[pd.DataFrame], pd.Series | None]:
+    """QA flags of one sensor; also returns its daily clear-sky ratio (POA) for sibling checks.
+
+    ``interval_s``: each reading's interval as recorded at ingest (None: from the spacing)."""
+    tau_s = _tau_s(x.index, interval_s)
     s = grid_sun.reindex(x.index)
     out = [sensor_qa.dropout_flags(x, grid_sun["elev"] > 0, device_id=sensor_id,
                                    quantity=quantity, tau_s=tau_s)]
@@ -217,7 +238,8 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
         out.append(sensor_qa.night_irradiance_flags(x, s["elev"].to_numpy(), device_id=sensor_id,
                                                     quantity=quantity, tau_s=tau_s))
     if quantity == "poa_wm2":
-        tau_h = np.full(len(x), tau_s / 3600.0)
+        tau_h = (np.asarray(interval_s, dtype=float) / 3600.0 if interval_s is not None
+                 else np.full(len(x), tau_s / 3600.0))
         clear = clock.clear_day_mask(x, s["poa_cs"], std_offset_s=std_offset_s,
                                      ratio_range=(0.7, 1.3))
         off = clock.clock_offsets(x, s["poa_cs"], tau_h, std_offset_s=std_offset_s, clear=clear)
@@ -330,9 +352,27 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
     return pd.concat(out, ignore_index=True)
 
 
+def counter_flags(inv: dict, frame: pd.DataFrame, counter, *, std_offset_s: int) -> pd.DataFrame:
+    """Monthly cross-check of an inverter's energy counter against its integrated AC power
+    (:mod:`analytics.energy_check`); ``counter`` is ``(ts_s, reading_kwh, interval_s)``."""
+    ts, v, iv = counter
+    if frame.empty or not len(ts) or not frame["p_ac_kw"].notna().any():
+        return flag_frame([])
+    res = counter_resolution(np.diff(v)) or 0.0
+    c_day = energy_check.counter_daily_energy(np.asarray(ts) + np.asarray(iv).astype(np.int64),
+                                              v, std_offset_s=std_offset_s)
+    p_day = energy_check.power_daily_energy(epoch_s(frame.index), frame["p_ac_kw"].to_numpy(float),
+                                            frame["interval_h"].to_numpy(float),
+                                            std_offset_s=std_offset_s)
+    check = energy_check.monthly_crosscheck(c_day, p_day, resolution_kwh=res)
+    return energy_check.counter_mismatch_flags(check, device_id=inv["device_id"],
+                                               std_offset_s=std_offset_s, resolution_kwh=res)
+
+
 def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: pd.DataFrame, *,
                   economics: dict | None = None, sources: dict | None = None,
-                  progress: Progress | None = None, n_runs: int = 1000) -> pd.DataFrame:
+                  progress: Progress | None = None, n_runs: int = 1000,
+                  counters: dict | None = None) -> pd.DataFrame:
     """Every flag of a site from data in memory.
 
     Parameters
@@ -345,10 +385,14 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         ``eta_inv_nom``, ``mounting``, ``poa_sensor_id``, ``peer_group``).
     frames : iterable of (inverter row dict, interval frame)
         As :func:`db.timeseries.inverter_frames` yields them.
-    sensors : list of (sensor_id, quantity, Series)
-        Each sensor channel on its own timestamps (index ``ts_utc``).
+    sensors : list of (sensor_id, quantity, Series) or (sensor_id, quantity, Series, interval_s)
+        Each sensor channel on its own timestamps (index ``ts_utc``), optionally with each
+        reading's interval [s] as recorded at ingest (else inferred from the spacing).
     daily : DataFrame
         The daily table (:func:`db.daily.daily_table`).
+    counters : dict, optional
+        ``{inverter id: (ts_s, counter_kwh, interval_s)}``: energy-counter readings, checked
+        month by month against integrated AC power (:func:`counter_flags`).
 
     Returns
     -------
@@ -363,39 +407,59 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     n_total = len(inverters) + len(sensors)
     done = 0
     parts: list[pd.DataFrame] = []
-    grid_cache: dict[tuple[int, int, int], pd.DataFrame] = {}
+    sun_cache: dict[int, pd.DataFrame] = {}  # interval [s] -> sun at those interval starts
     cs_cache: dict[tuple, pd.Series] = {}
 
-    def grid_sun(index):
-        ts = epoch_s(index)
-        if ts.size == 0:
-            return pd.DataFrame({"elev": [], "aoi": [], "poa_cs": []},
-                                index=pd.DatetimeIndex([], tz="UTC"))
-        step = _tau_s(index)
-        key = (int(ts[0]), int(ts[-1]), step)
-        # share one grid across devices: reuse a cached grid that covers this span
-        for (a, b, st), g in grid_cache.items():
-            if st == step and a <= key[0] and key[1] <= b and (key[0] - a) % step == 0:
-                return g.loc[index[0]:index[-1]]
-        g = site_sun(regular_grid(key[0], key[1], step), site, step / 3600.0)
-        grid_cache[key] = g
-        return g
+    def sun_at(index: pd.DatetimeIndex, interval_s: np.ndarray) -> pd.DataFrame:
+        """Sun at each row's own interval midpoint; computed once per (timestamp, interval)."""
+        cols = ["elev", "aoi", "poa_cs"]
+        out = pd.DataFrame(np.full((len(index), 3), np.nan), index=index, columns=cols)
+        if len(index) == 0:
+            return out
+        iv = np.round(np.asarray(interval_s, dtype=float)).astype(np.int64)
+        for u in np.unique(iv):
+            m = iv == u
+            idx = index[m] if not m.all() else index
+            have = sun_cache.get(int(u))
+            missing = idx if have is None else idx.difference(have.index)
+            if len(missing):
+                new = site_sun(missing, site, u / 3600.0)
+                have = new if have is None else pd.concat([have, new]).sort_index()
+                sun_cache[int(u)] = have
+            vals = have.reindex(idx)[cols].to_numpy() if not (
+                len(have) == len(idx) and have.index.equals(idx)) else have[cols].to_numpy()
+            out.iloc[np.flatnonzero(m)] = vals
+        return out
 
-    # span of the site's data: sensors and inverters share one solar-geometry grid
-    spans = [(epoch_s(x.index)[[0, -1]], _tau_s(x.index)) for _s, _q, x in sensors if len(x) > 1]
-    if spans:
-        step = int(np.median([st for _sp, st in spans]))
-        lo = min(int(sp[0]) for sp, _st in spans)
-        hi = max(int(sp[1]) for sp, _st in spans)
-        grid_sun(regular_grid(lo, hi, step))
+    def expected_grid(x: pd.Series, iv: np.ndarray) -> tuple[pd.DatetimeIndex, np.ndarray]:
+        """The device's expected timestamps: its readings, the intervals missing between them
+        and out to the site's span, stepping by each neighbouring reading's interval."""
+        ts, step = fill_gaps(epoch_s(x.index), iv, span[0], span[1])
+        return pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc"), step
+
+    def sensor_intervals(entry) -> np.ndarray:
+        x = entry[2]
+        given = entry[3] if len(entry) > 3 and entry[3] is not None else np.full(len(x), np.nan)
+        return fill_unknown_intervals(epoch_s(x.sort_index().index), given)
+
+    # span of the site's sensor data: each sensor's dropouts are judged over it
+    spans = [(int(epoch_s(e[2].index).min()), int(epoch_s(e[2].index).max()
+                                                   + sensor_intervals(e)[-1]))
+             for e in sensors if len(e[2]) > 1]
+    span = (min(a for a, _b in spans), max(b for _a, b in spans)) if spans else (None, None)
     ratios: dict[str, pd.Series] = {}
     rain_parts: list[pd.Series] = []
-    for sid, q, x in sensors:
-        x = x.sort_index()
-        gs = grid_sun(x.index) if len(x) else pd.DataFrame(columns=["elev", "aoi", "poa_cs"])
-        if len(x) and len(gs):
+    for entry in sensors:
+        sid, q, x = entry[:3]
+        iv = sensor_intervals(entry)
+        if not x.index.is_monotonic_increasing:
+            order = np.argsort(epoch_s(x.index), kind="stable")
+            x = x.iloc[order]
+        if len(x):
+            g_idx, g_iv = expected_grid(x, iv)
+            gs = sun_at(g_idx, g_iv)
             fl, ratio = sensor_flags(sid, q, x, gs, std_offset_s=off_s, site_zone=zone,
-                                     source=sources.get(sid))
+                                     source=sources.get(sid), interval_s=iv)
             parts += fl
             if ratio is not None and len(ratio):
                 ratios[sid] = ratio
@@ -412,10 +476,13 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     rain_daily = pd.concat(rain_parts, axis=1).mean(axis=1) if rain_parts else None
     for inv, frame in frames:
         if len(frame):
-            gs = grid_sun(frame.index)
+            gs = sun_at(frame.index, frame["interval_h"].to_numpy(float) * 3600.0)
             parts += inverter_flags(inv, frame, gs, std_offset_s=off_s, site_zone=zone,
                                     source=sources.get(inv["device_id"]), cache=cs_cache)
             parts.append(power_dropout_flags(inv, frame, gs))
+            if counters and inv["device_id"] in counters:
+                parts.append(counter_flags(inv, frame, counters[inv["device_id"]],
+                                           std_offset_s=off_s))
         done += 1
         if progress:
             progress(done, n_total)
@@ -474,16 +541,28 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
     daily = daily_table(engine, site_id)
     sensors = []
     with engine.connect() as conn:
+        inst = instant_channels(conn, site_id)
         for sid, q in sensor_rows:
             ch = channels.get((sid, q))
             if ch is None:
                 continue
-            ts, v = read_channel(conn, ch)
+            ts, v, iv = read_channel(conn, ch, with_interval=True)
+            iv = fill_unknown_intervals(ts, iv)
+            if ch in inst:  # samples: QA runs on the samples, durations by their spacing
+                iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
             idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
-            sensors.append((sid, q, pd.Series(v, index=idx, name=q)))
+            sensors.append((sid, q, pd.Series(v, index=idx, name=q), iv))
+    counters = {}
+    with engine.connect() as conn:
+        for dev in inverters["device_id"]:
+            ch = channels.get((dev, "e_ac_total_kwh"))
+            if ch is not None:
+                ts, v, iv = read_channel(conn, ch, with_interval=True)
+                if ts.size:
+                    counters[dev] = (ts, v, fill_unknown_intervals(ts, iv))
     flags = compute_flags(site, inverters, inverter_frames(engine, site_id), sensors, daily,
                           economics=economics, sources=_sources_by_device(cfg),
-                          progress=progress)
+                          progress=progress, counters=counters)
     n = write_flags(engine, site_id, flags, comp_id)
     with engine.begin() as conn:
         finish_computation(conn, comp_id)

@@ -18,7 +18,14 @@ import pandas as pd
 import sqlalchemy as sa
 
 from analytics import irradiance as airr
-from db.timeseries import bin_mean, read_channel, site_channels
+from db.timeseries import (
+    fill_unknown_intervals,
+    instant_channels,
+    instant_to_means,
+    overlap_mean,
+    read_channel,
+    site_channels,
+)
 from ingest.config import ConfigError, SiteConfig, parse_site_config
 from ingest.site_model import BASIS_METHODS, inverter_basis, is_simple
 
@@ -41,7 +48,8 @@ class SiteIrradiance:
         self._inv = {i.id: i for i in self.cfg.inverters} if self.cfg else {}
         self._sensor = {s.id: s for s in self.cfg.sensors} if self.cfg else {}
         self._channels: dict | None = None
-        self._readings: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+        self._readings: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
+        self._instant: set[int] = set()
         self._geo: pd.DataFrame | None = None
         self._plane_cache: dict = {}
 
@@ -75,16 +83,22 @@ class SiteIrradiance:
     # ------------------------------------------------------------ data
     def _sensor_on_grid(self, sensor_id: str, quantity: str, ts_s: np.ndarray,
                         int_s: np.ndarray) -> np.ndarray:
+        # as db.timeseries does for the inverter frame: each reading's recorded interval,
+        # instantaneous samples as trapezoid means, time-overlap means into inverter intervals
         if self._channels is None:
             with self.engine.connect() as conn:
                 self._channels = site_channels(conn, self.site["site_id"])
+                self._instant = set(instant_channels(conn, self.site["site_id"]))
         ch = self._channels.get((sensor_id, quantity))
         if ch is None:
             return np.full(ts_s.size, np.nan)
         if ch not in self._readings:
             with self.engine.connect() as conn:
-                self._readings[ch] = read_channel(conn, ch, self.start_s, self.end_s)
-        return bin_mean(ts_s, int_s, *self._readings[ch])
+                ts, v, iv = read_channel(conn, ch, self.start_s, self.end_s, with_interval=True)
+            iv = fill_unknown_intervals(ts, iv)
+            self._readings[ch] = instant_to_means(ts, v, iv) if ch in self._instant else (ts, v, iv)
+        st, sv, siv = self._readings[ch]
+        return overlap_mean(ts_s, int_s, st, siv, sv)
 
     def _geometry(self, frame: pd.DataFrame) -> pd.DataFrame:
         if self._geo is None or not self._geo.index.equals(frame.index):

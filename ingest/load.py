@@ -42,7 +42,7 @@ import sqlalchemy as sa
 from db import ingest_log, readings
 from db.registry import register_site
 from ingest.config import SiteConfig, Source, normalise_unit
-from ingest.counters import CounterEvents, interval_energy
+from ingest.counters import CounterEvents, counter_resolution, interval_energy, is_coarse
 from ingest.errors import IngestError, Rejected
 from ingest.readers.csv_export import Chunk, _split, read_export
 from ingest.timestamps import NAT, TimestampConverter, describe_intervals, infer_intervals
@@ -237,6 +237,8 @@ class _VCol:
     channel: int
     p_ac_max_kw: float | None
     p_dc_kwp: float | None
+    instant: bool = False  # an instantaneous sample: keyed by the label time itself
+    group: int = 0  # clock-correction group (0: the corrections that apply to every column)
 
 
 class _FileLoader:
@@ -244,7 +246,11 @@ class _FileLoader:
                  channels: dict, batch_id: int, progress):
         self.conn, self.cfg, self.source, self.path = conn, cfg, source, path
         self.channels, self.batch_id, self.progress = channels, batch_id, progress
-        self.conv = TimestampConverter(source.timestamp, cfg.timezone, source.clock_corrections)
+        every = tuple(c for c in source.clock_corrections if getattr(c, "everywhere", True))
+        self.conv = TimestampConverter(source.timestamp, cfg.timezone, every)
+        # per-device corrections: one converter per set of corrections a column gets
+        self.group_keys: dict[tuple[int, ...], int] = {(): 0}
+        self.group_convs: list[TimestampConverter | None] = [None]
         self.counts = Counter()
         self.rejected: list[Rejected] = []
         self.intervals: list[np.ndarray] = []
@@ -253,31 +259,49 @@ class _FileLoader:
         self.stored: dict[int, tuple[int, int] | None] = {}  # channel -> stored (lo, hi), lazily
         self.counter_prev: dict[str, tuple[int, float] | None] = {}
         self.counter_events: dict[str, CounterEvents] = {}
+        self.counter_res: dict[str, float | None] = {}  # measured counter resolution [kWh]
+        self.counter_info: dict[str, dict] = {}
         self.derived = Counter()
         self.vcols: list[_VCol] = []
         self.vcol_index: dict[tuple[str, str], int] = {}
         self.pos = 0
 
     # ------------------------------------------------------------ set-up
-    def _vcol(self, name: str, device: str, quantity: str, unit: str) -> int:
+    def _vcol(self, name: str, device: str, quantity: str, unit: str, sampling: str = "mean",
+              input_id: str = "") -> int:
         k = (name, unit)
         if k not in self.vcol_index:
             inv = self.cfg.inverter(device) if self.cfg.device_kind(device) == "inverter" else None
-            ch = self.channels.get((device, quantity))
+            ch = self.channels.get((device, quantity, input_id) if input_id else (device, quantity))
             if ch is None:
                 raise IngestError(self.path, None, name, f"no channel for device {device!r} "
                                   f"quantity {quantity}; the site config does not deliver it")
             self.vcol_index[k] = len(self.vcols)
             self.vcols.append(_VCol(name, device, quantity, unit, ch,
-                                    inv.p_ac_max_kw if inv else None, inv.p_dc_kwp if inv else None))
+                                    inv.p_ac_max_kw if inv else None, inv.p_dc_kwp if inv else None,
+                                    instant=sampling == "instant",
+                                    group=self._group(device, name)))
         return self.vcol_index[k]
+
+    def _group(self, device: str, header: str) -> int:
+        """The clock-correction group of a column: which device-specific corrections apply."""
+        own = tuple(n for n, c in enumerate(self.source.clock_corrections)
+                    if not getattr(c, "everywhere", True) and c.applies_to(device, header))
+        if own not in self.group_keys:
+            corr = self.source.clock_corrections
+            self.group_keys[own] = len(self.group_convs)
+            self.group_convs.append(TimestampConverter(
+                self.source.timestamp, self.cfg.timezone,
+                tuple(c for n, c in enumerate(corr) if getattr(c, "everywhere", True) or n in own)))
+        return self.group_keys[own]
 
     def run(self, chunk_rows: int | None) -> None:
         kw = {"chunk_rows": chunk_rows} if chunk_rows else {}
         meta, chunks = read_export(self.path, self.source, **kw)
         self.meta = meta
         for c in meta.columns:
-            self._vcol(c.header, c.device, c.quantity, c.unit)
+            self._vcol(c.header, c.device, c.quantity, c.unit, getattr(c, "sampling", "mean"),
+                       getattr(c, "input", ""))
         it = ((ch, *self.conv.convert(ch.ts_raw)) for ch in chunks)
         cur = next(it, None)
         tail = np.empty(0, dtype=np.int64)
@@ -327,18 +351,20 @@ class _FileLoader:
 
         # entries: one per value cell, in value-column-major order
         e_row, e_col, e_val, bad = self._entries(ch, ok, iv)
+        e_ts, e_row, e_col, e_val = self._entry_times(ch, labels, ts, iv, e_row, e_col, e_val, bad)
         # in-chunk repeated intervals: identical -> duplicate, different -> reject the later row
         e_ch = np.array([self.vcols[j].channel for j in range(len(self.vcols))], dtype=np.int64)
-        ekey = readings.key(e_ch[e_col], ts[e_row]) if len(e_row) else np.empty(0, np.int64)
+        ekey = readings.key(e_ch[e_col], e_ts) if len(e_row) else np.empty(0, np.int64)
         status = np.zeros(len(e_row), dtype=np.int8)  # 0 new, 1 duplicate, 2 conflict
-        unique_rows = ch.long is None and labels_unique  # wide layout, no repeated label
+        shifted = any(vc.group for vc in self.vcols)  # per-device shifts may make keys collide
+        unique_rows = ch.long is None and labels_unique and not shifted
         conflict_rows = {} if unique_rows else self._in_chunk_duplicates(
             ekey, e_row, e_val, status, ch.line, ts)
         for r, why in conflict_rows.items():
             row_reason.setdefault(r, why)
             ok[r] = False
         # compare with stored readings where they overlap this chunk
-        derived = self._counters(ch, ok, ts, iv, e_row, e_col, e_val, ekey, status)
+        derived = self._counters(ch, ok, e_ts, iv, e_row, e_col, e_val, ekey, status)
         d_key, d_val, d_row = derived
         all_key = np.concatenate([ekey, d_key])
         all_val = np.concatenate([e_val, d_val])
@@ -396,12 +422,13 @@ class _FileLoader:
         # write new and changed values, in key order
         w = keep & (all_status != 1)
         wk, wv = all_key[w], all_val[w]
+        wi = iv[all_row[w]]  # each reading's interval, as inferred for its row
         order = np.argsort(wk, kind="stable")
-        wk, wv = wk[order], wv[order]
+        wk, wv, wi = wk[order], wv[order], wi[order]
         if len(wk):
             wts = wk & ((1 << readings.TS_BITS) - 1)
             readings.write_readings(self.conn, wk >> readings.TS_BITS, wts, wv, self.batch_id,
-                                    upsert=overlap)
+                                    upsert=overlap, interval_s=wi)
             lo, hi = int(wts.min()), int(wts.max())
             self.written = (lo, hi) if self.written is None else (
                 min(lo, self.written[0]), max(hi, self.written[1]))
@@ -452,6 +479,38 @@ class _FileLoader:
             return e, e, np.empty(0), bad
         return (np.concatenate(rows_l).astype(np.int64), np.concatenate(cols_l),
                 np.concatenate(vals_l), bad)
+
+    def _entry_times(self, ch: Chunk, labels, ts, iv, e_row, e_col, e_val, bad):
+        """Store key time of each entry: the row's interval start, or for an instantaneous
+        column the label itself; a column with its own clock correction is converted with it.
+        Entries whose corrected time does not exist locally become bad values."""
+        e_ts = ts[e_row] if len(e_row) else np.empty(0, np.int64)
+        if not len(e_row):
+            return e_ts, e_row, e_col, e_val
+        inst = np.array([vc.instant for vc in self.vcols], dtype=bool)
+        grp = np.array([vc.group for vc in self.vcols], dtype=np.int64)
+        if not inst.any() and not grp.any():
+            return e_ts, e_row, e_col, e_val
+        lab = labels[e_row].copy()
+        why = np.full(len(e_row), None, dtype=object)
+        for g in np.unique(grp[e_col]):
+            if g == 0:
+                continue
+            lab_g, reasons_g = self.group_convs[g].convert(ch.ts_raw)
+            m = grp[e_col] == g
+            lab[m] = lab_g[e_row[m]]
+            why[m] = reasons_g[e_row[m]]
+        shift = 0 if self.source.timestamp.label != "end" else np.nan_to_num(iv[e_row]).astype(np.int64)
+        e_ts = np.where(inst[e_col], lab, lab - shift)
+        gone = lab == NAT
+        if gone.any():
+            for k in np.flatnonzero(gone):
+                r, j = int(e_row[k]), int(e_col[k])
+                bad.append((r, j, str(ch.ts_raw[r]), (why[k] or "no valid time") +
+                            " (after this column's clock correction)"))
+            keep = ~gone
+            e_ts, e_row, e_col, e_val = e_ts[keep], e_row[keep], e_col[keep], e_val[keep]
+        return e_ts, e_row, e_col, e_val
 
     def _colname(self, j: int) -> str:
         if self.meta.long_index:
@@ -529,9 +588,15 @@ class _FileLoader:
                                   "with different values")
         return out
 
-    def _counters(self, ch, ok, ts, iv, e_row, e_col, e_val, ekey, status):
-        """Derived e_ac_kwh entries (keys, values, rows) from the chunk's counter readings."""
+    def _counters(self, ch, ok, e_ts, iv, e_row, e_col, e_val, ekey, status):
+        """Derived e_ac_kwh entries (keys, values, rows) from the chunk's counter readings.
+
+        The counter's resolution is measured from its steps (:func:`ingest.counters.counter_resolution`);
+        a coarse counter (:func:`ingest.counters.is_coarse`) of an inverter whose AC power is in
+        the same file gets no interval energy: its intervals take energy from AC power, and
+        its readings stay stored for the daily / monthly cross-check."""
         keys, vals, rows = [np.empty(0, np.int64)], [np.empty(0)], [np.empty(0, np.int64)]
+        power_devs = {vc.device for vc in self.vcols if vc.quantity == "p_ac_kw"}
         for j, vc in enumerate(self.vcols):
             if vc.quantity != "e_ac_total_kwh":
                 continue
@@ -539,20 +604,36 @@ class _FileLoader:
             r = e_row[m]
             if len(r) == 0:
                 continue
-            order = np.argsort(ts[r], kind="stable")
-            r, v = r[order], e_val[m][order]
+            t_r = e_ts[m]
+            order = np.argsort(t_r, kind="stable")
+            r, v, t_r = r[order], e_val[m][order], t_r[order]
             dev = vc.device
             if dev not in self.counter_prev:
-                prev = readings.previous_reading(self.conn, vc.channel, int(ts[r[0]]))
+                prev = readings.previous_reading(self.conn, vc.channel, int(t_r[0]))
                 self.counter_prev[dev] = (prev[0] + int(iv[r[0]]), prev[1]) if prev else None
             ev = self.counter_events.setdefault(dev, CounterEvents())
             inv = self.cfg.inverter(dev)
+            prev_v = self.counter_prev[dev][1] if self.counter_prev[dev] else np.nan
+            res = counter_resolution(np.diff(np.concatenate([[prev_v], v])))
+            if res is not None:
+                self.counter_res[dev] = res
+            res = self.counter_res.get(dev)
+            tau = float(np.nanmedian(iv[r]))
+            coarse = is_coarse(res, inv.p_ac_max_kw, tau)
+            from_power = coarse and dev in power_devs
+            info = self.counter_info.setdefault(dev, {})
+            if res is not None:
+                info.update(resolution_kwh=res, coarse=coarse,
+                            interval_energy_from="p_ac_kw" if from_power else "counter")
             energy, self.counter_prev[dev] = interval_energy(
-                ts[r], iv[r], v, self.counter_prev[dev], p_ac_max_kw=inv.p_ac_max_kw,
-                rollover_kwh=self.source.counter_rollover_kwh, events=ev)
+                t_r, iv[r], v, self.counter_prev[dev], p_ac_max_kw=inv.p_ac_max_kw,
+                rollover_kwh=self.source.counter_rollover_kwh, events=ev,
+                step_kwh=res if coarse else 0.0)
+            if from_power:
+                continue  # readings stored as read; interval energy comes from AC power
             good = ~np.isnan(energy)
             ch_e = self.channels[(dev, "e_ac_kwh")]
-            keys.append(readings.key(np.full(int(good.sum()), ch_e), ts[r[good]]))
+            keys.append(readings.key(np.full(int(good.sum()), ch_e), t_r[good]))
             vals.append(energy[good])
             rows.append(r[good])
         return np.concatenate(keys), np.concatenate(vals), np.concatenate(rows)
@@ -587,6 +668,14 @@ class _FileLoader:
     def result(self) -> BatchResult:
         notes: dict = {}
         notes.update(self.conv.notes())
+        for conv in self.group_convs[1:]:  # per-device corrections: rows shifted, by correction
+            for n, (_lo, _hi, _s, c) in enumerate(conv._corr):
+                if getattr(c, "everywhere", True) or not conv.corrected[n]:
+                    continue
+                notes.setdefault("clock_corrections", []).append(
+                    {"start": c.start.isoformat(), "end": c.end.isoformat(),
+                     "shift_minutes": c.shift_minutes, "note": c.note, "rows": conv.corrected[n],
+                     "devices": list(c.devices), "columns": list(c.columns)})
         if self.meta.missing:
             notes["configured_columns_missing"] = self.meta.missing
         if self.meta.ignored:
@@ -596,6 +685,8 @@ class _FileLoader:
         counters = {}
         for dev, ev in self.counter_events.items():
             counters.update(ev.as_notes(dev))
+        for dev, info in self.counter_info.items():
+            counters.setdefault(dev, {}).update(info)
         if counters:
             notes["counters"] = counters
         notes.update({k: v for k, v in self.derived.items() if v})

@@ -21,7 +21,11 @@ _LINEAR: dict[str, tuple[float, float]] = {
     "C": (1.0, 0.0), "K": (1.0, -273.15), "F": (5.0 / 9.0, -32.0 * 5.0 / 9.0),
     "m/s": (1.0, 0.0), "km/h": (1.0 / 3.6, 0.0),
     "mm": (1.0, 0.0),
+    "A": (1.0, 0.0), "mA": (1e-3, 0.0), "V": (1.0, 0.0), "kV": (1e3, 0.0),
 }
+#: DC input voltage above this is no PV string (IEC 60364-7-712 systems are at most 1500 V DC;
+#: the margin allows cold open-circuit overshoot; common practice).
+V_DC_MAX_V = 2000.0
 
 #: Irradiance below this is impossible rather than sensor offset at night (common practice:
 #: thermopile pyranometers read a few W/m² negative at night from thermal offset).
@@ -87,6 +91,9 @@ def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None 
         elif quantity == "wind_ms":
             bad |= (values < 0) | (values > WIND_MAX_MS)
             reason = f"is impossible: wind speed outside 0..{WIND_MAX_MS:g} m/s"
+        elif quantity == "v_dc_v":
+            bad |= (values < 0) | (values > V_DC_MAX_V)
+            reason = f"is impossible: DC voltage outside 0..{V_DC_MAX_V:g} V"
         elif quantity == "rain_mm":
             bad |= values < 0
             reason = "is impossible: negative rainfall"

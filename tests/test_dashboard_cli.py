@@ -8,7 +8,7 @@ import time
 
 from click.testing import CliRunner
 
-from db.engine import ENV_VAR, resolve_url
+from db.engine import ENV_VAR, make_engine, resolve_url
 from heliaudit import cmd_dashboard
 from heliaudit.cli import main
 
@@ -39,6 +39,7 @@ def _run(monkeypatch, args, returncode=0):
 
 def test_dashboard_passes_the_database_and_options(monkeypatch, tmp_path):
     db = tmp_path / "store.sqlite"
+    make_engine(db).dispose()  # the dashboard only reads: the database must exist (#11)
     res, seen = _run(monkeypatch, ["--db", str(db), "dashboard", "--port", "8777", "--no-browser"])
     assert res.exit_code == 0, res.output
     assert seen["env"][ENV_VAR] == resolve_url(str(db))  # HELIAUDIT_DB from --db
@@ -52,6 +53,7 @@ def test_dashboard_is_headless_even_when_opening_a_browser(monkeypatch, tmp_path
     # terminal; heliaudit serves headless and opens the browser itself.
     opened = []
     monkeypatch.setattr(cmd_dashboard, "_open_when_up", lambda *a: opened.append(a))
+    make_engine(tmp_path / "s.sqlite").dispose()
     res, seen = _run(monkeypatch, ["--db", str(tmp_path / "s.sqlite"), "dashboard"])
     assert res.exit_code == 0, res.output
     assert seen["cmd"][seen["cmd"].index("--server.headless") + 1] == "true"
@@ -63,6 +65,7 @@ def test_dashboard_is_headless_even_when_opening_a_browser(monkeypatch, tmp_path
 
 
 def test_dashboard_reports_a_failed_server(monkeypatch, tmp_path):
+    make_engine(tmp_path / "s.sqlite").dispose()
     res, _ = _run(monkeypatch, ["--db", str(tmp_path / "s.sqlite"), "dashboard"], returncode=3)
     assert res.exit_code == 1
     assert "Error: streamlit exited with code 3" in res.output

@@ -30,11 +30,11 @@ def test_v2_store_gets_the_schema_2_method_names(tmp_path):
 
 
 def test_v3_store_gets_the_site_model_columns_and_keeps_its_inverters(tmp_path):
-    """v3 -> v4 (#11): daily_inverter gains irradiance_basis / t_cell_basis; inverter rows are
+    """v3 -> v5 (#11; the v5 step): daily_inverter gains irradiance_basis / t_cell_basis; inverter rows are
     kept while commissioned and t_module_sensor_id become optional (SQLite: table rebuilt)."""
     eng = sa.create_engine(f"sqlite:///{tmp_path}/v3.sqlite")
     with eng.begin() as conn:
-        # the v3 shape: today's metadata without the v4 columns, NOT NULL where v3 had it
+        # the v3 shape of the two tables: without the v5 columns, NOT NULL where v3 had it
         conn.execute(sa.text(
             "CREATE TABLE inverter (device_pk INTEGER PRIMARY KEY, p_dc_kwp FLOAT NOT NULL, "
             "p_ac_max_kw FLOAT NOT NULL, gamma_pmp_per_c FLOAT NOT NULL, eta_inv_nom FLOAT NOT NULL, "
@@ -59,8 +59,8 @@ def test_v3_store_gets_the_site_model_columns_and_keeps_its_inverters(tmp_path):
     assert {"irradiance_basis", "t_cell_basis"} <= daily
 
 
-def test_v4_step_on_postgres_drops_not_null(pg_engine):
-    """The PostgreSQL branch of the v4 step (ALTER COLUMN ... DROP NOT NULL), run on a store
+def test_v5_step_on_postgres_drops_not_null(pg_engine):
+    """The PostgreSQL branch of the v5 site-model step (ALTER COLUMN ... DROP NOT NULL), run on a store
     put back to the v3 constraints."""
     from db.migrate import STEPS
     with pg_engine.begin() as conn:
@@ -69,7 +69,7 @@ def test_v4_step_on_postgres_drops_not_null(pg_engine):
         conn.execute(sa.text("ALTER TABLE daily_inverter DROP COLUMN irradiance_basis, "
                              "DROP COLUMN t_cell_basis"))
     with pg_engine.begin() as conn:
-        STEPS[4](conn)
+        STEPS[5](conn)
     with pg_engine.connect() as conn:
         cols = {c["name"]: c for c in sa.inspect(conn).get_columns("inverter")}
         daily = {c["name"] for c in sa.inspect(conn).get_columns("daily_inverter")}

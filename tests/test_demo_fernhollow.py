@@ -15,8 +15,9 @@ AC energy. heliaudit must find it through each system's configured irradiance so
   in December an untransposed GHI on the 10° plane is ~20 % off and a tracker taken as the
   30° fixed plane ~25 % (hand check below).
 
-Counters are left out here (``ignore_columns``): their whole-kWh steps are the coarse
-counters of issue #11, which the ingest side handles; energy comes from AC power.
+Most tests leave the counters out (``ignore_columns``) to test the site model alone; the June
+2024 test and the slow whole-period test use the committed configuration as is: whole-kWh
+(coarse) counters and LG2's per-device clock correction, both ingest features of issue #11.
 """
 
 from __future__ import annotations
@@ -106,12 +107,13 @@ def test_exports_have_the_interval_change_coarse_counters_and_the_clock_error():
     assert centroid(c1, ~inside) - centroid(a1, ~inside) == pytest.approx(0, abs=6)
 
 
-def _store(tmp_path, files):
+def _store(tmp_path, files, text: str | None = None):
     from db.engine import make_engine
     from heliaudit import jobs_daily
     from ingest import load
 
-    cfg = parse_site_config(_config_without_counters(), str(SITE / "fernhollow.toml"))
+    text = _config_without_counters() if text is None else text
+    cfg = parse_site_config(text, str(SITE / "fernhollow.toml"))
     eng = make_engine(tmp_path / "fh.sqlite")
     res = load.ingest_paths(eng, cfg, [SITE / "exports" / f for f in files])
     assert [r.status for r in res] == ["loaded"] * len(files), [r.message for r in res]
@@ -173,7 +175,7 @@ def test_pr_of_each_array_group_whole_5min_period(tmp_path):
     if os.environ.get("HELIAUDIT_SLOW") != "1":
         pytest.skip("slow (a minute): set HELIAUDIT_SLOW=1")
     files = sorted(p.name for p in (SITE / "exports").glob("fernhollow_*.csv.gz"))
-    eng = _store(tmp_path, files)
+    eng = _store(tmp_path, files, (SITE / "fernhollow.toml").read_text())  # counters included
     try:
         months = sorted({m for v in TRUTH["systems"].values() for m in v["pr_by_month"]
                          if m >= TRUTH["interval_change"]["from_local_day"][:7]})
@@ -252,3 +254,40 @@ def test_computation_record_states_sources_and_assumptions(tmp_path):
     assert any("AC rating unknown" in x for x in inv["D1"]["assumed"])
     assert any("commissioning date unknown" in x for x in inv["D1"]["assumed"])
     assert inv["A1"]["assumed"] == []
+
+
+def test_full_config_june_2024_counters_and_clock_correction(tmp_path):
+    # the committed configuration as is: whole-kWh counters mapped (coarse: interval energy
+    # must come from AC power) and LG2's clock corrected for its devices only. June 2024 holds
+    # the three weeks LG2 ran 60 min fast.
+    from db.engine import make_engine
+    from db.timeseries import inverter_frame
+    from heliaudit import jobs_daily
+    from ingest import load
+
+    cfg = load_site_config(SITE / "fernhollow.toml")
+    eng = make_engine(tmp_path / "fh.sqlite")
+    try:
+        res = load.ingest_paths(eng, cfg, [SITE / "exports" / "fernhollow_2024-06.csv.gz"])
+        assert [r.status for r in res] == ["loaded"], [r.message for r in res]
+        jobs_daily.recompute_all(eng, "fernhollow")
+        pr, _d = _pr_by_system(eng, ["2024-06"])
+        truth = {k: v["pr_by_month"]["2024-06"] for k, v in TRUTH["systems"].items()}
+        c1 = TRUTH["systems"]["C1"]["pr_by_month_effective_irradiance"]["2024-06"]
+        _check_pr(pr, truth, c1, TOL_DECEMBER)
+        # after the correction C1 (LG2) and A1 (LG1) peak together (power-weighted mean time
+        # of day within 6 min; 60 min apart in the raw export, test above)
+        err = TRUTH["clock_errors"][0]
+        t0 = pd.Timestamp(err["written_start_local"], tz="Europe/Paris").tz_convert("UTC")
+        t1 = pd.Timestamp(err["written_end_local"], tz="Europe/Paris").tz_convert("UTC")
+        s, e = int(t0.timestamp()) + 7200, int(t1.timestamp()) - 7200
+        a1 = inverter_frame(eng, "fernhollow", "A1", s, e)["p_ac_kw"]
+        c1p = inverter_frame(eng, "fernhollow", "C1", s, e)["p_ac_kw"]
+    finally:
+        eng.dispose()
+
+    def centroid(p):
+        m = np.asarray(p.index.hour * 60 + p.index.minute, dtype=float)
+        v = np.nan_to_num(p.to_numpy())
+        return float((v * m).sum() / v.sum())
+    assert centroid(c1p) - centroid(a1) == pytest.approx(0, abs=6)
