@@ -160,6 +160,24 @@ def peer_ratio(pi_wide: pd.DataFrame, *, min_peers: int = 5) -> pd.DataFrame:
     return out
 
 
+def own_history_ratio(pi_wide: pd.DataFrame, *, history_days: int = 90, lag_days: int = 30,
+                      min_days: int = 20) -> pd.DataFrame:
+    """Each inverter's daily ``pi`` over the median of its own valid ``pi`` in the
+    ``history_days`` calendar days that end ``lag_days`` before the day (NaN with fewer
+    than ``min_days`` valid days there). The lag keeps a fresh fault out of its own
+    reference for at least ``lag_days``.
+
+    Examples
+    --------
+    A step from 1.0 to 0.5 on day 100 gives a ratio 0.5 from day 100 to day 129 at least.
+    """
+    pw = pi_wide.sort_index()
+    idx = pd.DatetimeIndex(pw.index)
+    full = pw.reindex(pd.date_range(idx.min(), idx.max(), freq="D")) if len(idx) else pw
+    med = full.rolling(history_days, min_periods=min_days).median().shift(lag_days + 1)
+    return (full / med).reindex(pw.index)
+
+
 def persistent_low_events(low: pd.Series, valid: pd.Series, *, window: int = 5,
                           k_required: int = 3, clear_days: int = 3) -> list[tuple]:
     """Dated events from a daily "low" indicator with a persistence rule.
@@ -221,8 +239,21 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
                            z_threshold: float = -3.0, min_deficit: float = 0.02,
                            min_peers: int = 5, window: int = 5, k_required: int = 3,
                            escalate_days: int = 14, clear_days: int = 3,
-                           merge_gap_days: int = 14, std_offset_s: int = 0) -> pd.DataFrame:
+                           merge_gap_days: int = 14, std_offset_s: int = 0,
+                           own_min_pi: float = 0.80, own_history_deficit: float = 0.10,
+                           history_days: int = 90, history_lag_days: int = 30,
+                           min_history_days: int = 20) -> pd.DataFrame:
     """Underperformance flags from the daily inverter table.
+
+    Groups of at least ``min_peers`` inverters use the **peer** basis (peer ratio and
+    robust z, below). Smaller groups cannot form a robust peer median (METHODS §9: ≥ 5
+    peers), so each inverter is compared with **its own expected power and its own
+    history** instead, and the flag says so (``details['basis']``): a day is low when its
+    ``pi`` is below ``own_min_pi`` (a 20 % shortfall against the expected-power model,
+    larger than the model's usual bias; common practice) or below (1 −
+    ``own_history_deficit``) × the median of its own valid ``pi`` over the
+    ``history_days`` days ending ``history_lag_days`` before (at least
+    ``min_history_days`` of them). The same persistence rule applies.
 
     Parameters
     ----------
@@ -264,12 +295,25 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
     records = []
     for _g, cols in pd.Series(groups).groupby(pd.Series(groups)):
         cols = [c for c in cols.index if c in pi_wide.columns]
-        ratio = peer_ratio(pi_wide[cols], min_peers=min_peers)
-        z = robust_z(ratio, axis=1)
+        own = len(cols) < min_peers
+        if own:
+            ratio = own_history_ratio(pi_wide[cols], history_days=history_days,
+                                      lag_days=history_lag_days, min_days=min_history_days)
+            z = pd.DataFrame(np.nan, index=ratio.index, columns=cols)
+        else:
+            ratio = peer_ratio(pi_wide[cols], min_peers=min_peers)
+            z = robust_z(ratio, axis=1)
         for dev in cols:
             r, zd = ratio[dev], z[dev]
-            valid = r.notna() & zd.notna()
-            low = (zd < z_threshold) & (r < 1.0 - min_deficit)
+            if own:
+                pi_d = pi_wide[dev]
+                valid = pi_d.notna()
+                low = (pi_d < own_min_pi) | (r < 1.0 - own_history_deficit)
+                r = r.where(r.notna(), pi_d)  # the ratio reported: to history, else to model
+                zd = pd.Series(np.nan, index=r.index)
+            else:
+                valid = r.notna() & zd.notna()
+                low = (zd < z_threshold) & (r < 1.0 - min_deficit)
             events = _merge_close_events(persistent_low_events(
                 low, valid, window=window, k_required=k_required, clear_days=clear_days),
                 merge_gap_days)
@@ -288,13 +332,22 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
                         first_day=str(pd.Timestamp(first).date()),
                         last_day=str(pd.Timestamp(last).date()), n_days=n_days,
                         n_low_days=int(n_low), n_valid_days=int(rs.notna().sum()),
-                        median_peer_ratio=float(np.nanmedian(rs)),
-                        min_robust_z=float(np.nanmin(zs)),
-                        rule=(f"robust z < {z_threshold} and peer ratio < {1 - min_deficit:g} "
-                              f"on >= {k_required} of the last {window} valid days; cleared "
-                              f"after {clear_days} normal days; alarm from {escalate_days} days; "
-                              f"re-opened within {merge_gap_days} days = same event"),
-                        method="peer ratio to the peer-group median of daily pi; robust z "
-                               "with 1.4826 MAD (Iglewicz & Hoaglin 1993)",
+                        basis="own_expected_and_history" if own else "peers",
+                        n_peers=len(cols),
+                        median_peer_ratio=None if own else float(np.nanmedian(rs)),
+                        median_ratio_to_own=float(np.nanmedian(rs)) if own else None,
+                        min_robust_z=None if own else float(np.nanmin(zs)),
+                        rule=(f"group of {len(cols)} < {min_peers} peers: pi < {own_min_pi:g} "
+                              f"or pi < {1 - own_history_deficit:g} x own median pi of the "
+                              f"{history_days} days ending {history_lag_days} days before"
+                              if own else
+                              f"robust z < {z_threshold} and peer ratio < {1 - min_deficit:g}")
+                             + (f" on >= {k_required} of the last {window} valid days; cleared "
+                                f"after {clear_days} normal days; alarm from {escalate_days} "
+                                f"days; re-opened within {merge_gap_days} days = same event"),
+                        method=("own expected power (pi) and own history, too few peers for "
+                                "a peer median (METHODS §9 asks for >= 5)" if own else
+                                "peer ratio to the peer-group median of daily pi; robust z "
+                                "with 1.4826 MAD (Iglewicz & Hoaglin 1993)"),
                         caution=FIELD_CAUTION)))
     return flag_frame(records)
