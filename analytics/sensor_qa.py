@@ -532,8 +532,7 @@ def invalid_interval_mask(index: pd.DatetimeIndex, days: pd.DataFrame, *,
     if len(index) == 0 or days.empty or days["valid"].all():
         return np.zeros(len(index), dtype=bool)
     day = (_ts_s(index) + int(std_offset_s)) // 86400
-    bad = (pd.DatetimeIndex(days.index[~days["valid"].to_numpy(bool)]).asi8
-           // 10**9 // 86400)
+    bad = _ts_s(pd.DatetimeIndex(days.index[~days["valid"].to_numpy(bool)])) // 86400
     return np.isin(day, bad)
 
 
@@ -562,8 +561,8 @@ def validity_flags(days: pd.DataFrame, *, device_id: str, quantity: str,
             continue
         first, last, why = d[start], d[i - 1], reasons[start]
         n_days = int(i - start)
-        s0 = int(first.value // 10**9) - int(std_offset_s)
-        e0 = int(last.value // 10**9) - int(std_offset_s) + 86400
+        s0 = int(_ts_s(pd.DatetimeIndex([first]))[0]) - int(std_offset_s)
+        e0 = int(_ts_s(pd.DatetimeIndex([last]))[0]) - int(std_offset_s) + 86400
         recs.append(dict(
             device_id=device_id, kind="sensor_implausible", start_s=s0, end_s=e0,
             severity="alarm" if (last - first).days + 1 >= 7 else "warning", lost_kwh=np.nan,

@@ -430,7 +430,7 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
                                               std_offset_s=std_offset_s))
 
     def paired(tm_id: str, key: str, quantity: str) -> str | None:
-        if key in inverters:
+        if key in inverters and "t_module_sensor_id" in inverters:
             ids = inverters.loc[inverters["t_module_sensor_id"] == tm_id, key].dropna()
             ids = [i for i in ids if i in by_id]
             if ids:
