@@ -351,3 +351,90 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
                                 "with 1.4826 MAD (Iglewicz & Hoaglin 1993)"),
                         caution=FIELD_CAUTION)))
     return flag_frame(records)
+
+
+def input_mismatch_flags(p_dc_inputs: pd.DataFrame, input_kwp: dict, *, device_id: str,
+                         input_plane: dict | None = None, interval_h=None,
+                         min_deficit: float = 0.05, min_yield_kw_per_kwp: float = 0.1,
+                         window: int = 5, k_required: int = 3, clear_days: int = 3,
+                         min_day_kwh_per_kwp: float = 0.5, std_offset_s: int = 0
+                         ) -> pd.DataFrame:
+    """Inputs (MPPT trackers or string groups) of one inverter that yield persistently less
+    per kWp than their siblings on the same plane.
+
+    For input k on day d the specific yield is Y_k,d = Σ P_k τ / kWp_k over the intervals
+    where every input on its plane delivers at least ``min_yield_kw_per_kwp`` (10 % of
+    STC, so dawn, dusk and inverter stand-still do not count); its ratio is
+    R_k,d = Y_k,d / median_{j≠k} Y_j,d over its siblings on the same plane. A day is low
+    when R < 1 − ``min_deficit``; the persistence rule of :func:`persistent_low_events`
+    (≥ ``k_required`` of ``window`` days, cleared after ``clear_days`` normal days) makes
+    events (common practice: the peer-ratio idea of METHODS §9 applied inside one inverter,
+    where sky and sensor errors cancel exactly). Days with less than
+    ``min_day_kwh_per_kwp`` of sibling yield are skipped.
+
+    Parameters
+    ----------
+    p_dc_inputs : DataFrame
+        Index ``ts_utc``; one column per input id, DC power. [kW]
+    input_kwp : dict
+        input id -> DC nameplate of that input. [kWp]
+    input_plane : dict, optional
+        input id -> plane key (any hashable, e.g. (tilt, azimuth)); default: one plane.
+    interval_h : float or array, optional
+        Interval length; default from the index spacing. [h]
+
+    Returns
+    -------
+    Flag frame, kind 'input_mismatch', ``device_id`` the inverter; ``lost_kwh`` =
+    Σ_d (median sibling yield − Y_k,d) · kWp_k over the event's low days; details: input,
+    siblings, deficit (median 1 − R) and the plane.
+
+    Examples
+    --------
+    Three inputs of 10 kWp on one plane, input B at 91 % of A and C every day: one flag on
+    B with a 9 % deficit (tests/test_analytics_flag_rules.py).
+    """
+    if p_dc_inputs.empty or p_dc_inputs.shape[1] < 2:
+        return flag_frame([])
+    cols = [c for c in p_dc_inputs.columns if input_kwp.get(c, 0) > 0]
+    plane = input_plane or {c: "plane" for c in cols}
+    ts = epoch_s(p_dc_inputs.index)
+    if interval_h is None:
+        step = np.median(np.diff(ts)) if ts.size > 1 else 900
+        interval_h = step / 3600.0
+    tau = np.broadcast_to(np.asarray(interval_h, dtype=float), ts.shape)
+    day = (ts + int(std_offset_s)) // 86400
+    days = pd.to_datetime(np.unique(day) * 86400, unit="s")
+    records = []
+    for _pl, grp in pd.Series(plane).groupby(pd.Series(plane)):
+        ids = [c for c in grp.index if c in cols]
+        if len(ids) < 2:
+            continue
+        y = p_dc_inputs[ids].to_numpy(float) / np.array([input_kwp[c] for c in ids])
+        ok = np.all(y >= min_yield_kw_per_kwp, axis=1)
+        e = pd.DataFrame(np.where(ok[:, None], y * tau[:, None], 0.0), columns=ids)
+        yd = e.groupby(day).sum()
+        yd.index = days
+        for k in ids:
+            sib = yd[[c for c in ids if c != k]].median(axis=1)
+            r = yd[k] / sib.where(sib >= min_day_kwh_per_kwp)
+            valid = r.notna()
+            low = r < 1.0 - min_deficit
+            for first, last, n_low in persistent_low_events(
+                    low, valid, window=window, k_required=k_required, clear_days=clear_days):
+                span = (r.index >= first) & (r.index <= last) & low.to_numpy()
+                lost = float(((sib - yd[k])[span]).sum() * input_kwp[k])
+                records.append(dict(
+                    device_id=device_id, kind="input_mismatch",
+                    start_s=int(day_start_s([first], std_offset_s)[0]),
+                    end_s=int(day_start_s([last], std_offset_s)[0]) + 86400,
+                    severity="warning", lost_kwh=lost,
+                    details=dict(input=str(k), siblings=[str(c) for c in ids if c != k],
+                                 plane=str(_pl), deficit_pct=float(
+                                     100 * (1 - np.nanmedian(r[span]))),
+                                 n_low_days=int(n_low),
+                                 rule=f"specific yield < {1 - min_deficit:g} x median of the "
+                                      f"sibling inputs on the same plane on >= {k_required} "
+                                      f"of {window} days",
+                                 caution=FIELD_CAUTION)))
+    return flag_frame(records)

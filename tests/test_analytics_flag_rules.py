@@ -226,3 +226,30 @@ def test_own_history_boundary(ratio, low):
     fl = underperformance_flags(_daily({"a": a, "b": np.full(200, 0.95)}, days),
                                 min_peers=5)
     assert (list(fl["device_id"]) == ["a"]) == low
+
+
+@pytest.mark.parametrize("share,flagged", [(0.96, False), (0.95, False), (0.94, True),
+                                           (0.91, True)])
+def test_input_mismatch_deficit_boundary_and_exact_lost_energy(clear, share, flagged):
+    # issue #14: a 9 % weak input on a real plant went unseen. Three 10-kWp inputs on one
+    # plane; input B delivers `share` of A and C. Documented threshold: 5 % deficit.
+    from analytics.outliers import input_mismatch_flags
+
+    p = clear["poa_wm2"].to_numpy() / 1000 * 10.0  # 10 kWp at PR 1, noise-free
+    df = pd.DataFrame({"A": p, "B": share * p, "C": p}, index=clear.index)
+    fl = input_mismatch_flags(df, {"A": 10.0, "B": 10.0, "C": 10.0}, device_id="inv1",
+                              std_offset_s=STD_OFFSET_S)
+    assert (list(fl["details"].map(lambda d: d["input"])) == ["B"]) == flagged
+    if flagged:
+        d = fl.iloc[0]["details"]
+        assert d["deficit_pct"] == pytest.approx(100 * (1 - share), abs=1e-9)
+        # exact lost energy: (1 − share) x Σ A's energy over the counted intervals (every
+        # input >= 0.1 kW/kWp) of the event's days (hand rule, noise-free)
+        ok = (df / 10.0 >= 0.1).all(axis=1).to_numpy()
+        day = (clear.index.as_unit("s").asi8 + STD_OFFSET_S) // 86400
+        in_ev = (clear.index.as_unit("s").asi8 >= fl.iloc[0]["start_s"]) & (
+            clear.index.as_unit("s").asi8 < fl.iloc[0]["end_s"])
+        sibl = pd.Series(np.where(ok, p * 0.25, 0.0)).groupby(day).sum()
+        want = (1 - share) * pd.Series(np.where(ok & in_ev, p * 0.25, 0.0)).sum()
+        assert sibl.sum() > 0
+        assert fl.iloc[0]["lost_kwh"] == pytest.approx(want, rel=1e-9)
