@@ -203,3 +203,37 @@ def test_inverter_clock_uses_its_own_plane(case):
 
     assert clock_flags(WEST) == []
     assert len(clock_flags(None)) == 1
+
+
+def _clk(dev, level, start=0, end=10 * 86400):
+    return dict(device_id=dev, kind="clock_shift", start_s=start, end_s=end, severity="alarm",
+                lost_kwh=None, details=dict(
+                    shift_minutes_measured=level, shift_minutes_correction=-round(level),
+                    first_day="1970-01-01", last_day="1970-01-10", n_clear_days=8,
+                    correction_toml="[[sources.clock_corrections]]\nstart = 1970-01-01\n"
+                                    "end = 1970-01-10\nshift_minutes = -60\n"
+                                    'note = "heliaudit clock_shift on x"\n'))
+
+
+@pytest.mark.parametrize("levels,kept", [([60.0], False), ([60.0, 74.9], True),
+                                         ([60.0, 75.1], False)])
+def test_clock_needs_two_devices_agreeing_within_15_min(levels, kept):
+    # documented: a shift is kept when >= 2 devices show it with levels within 15 min
+    from analytics.outliers import flag_frame
+    from heliaudit.jobs_flags import consolidate_clock_flags
+
+    fl = flag_frame([_clk(f"d{i}", lv) for i, lv in enumerate(levels)])
+    out = consolidate_clock_flags(fl, n_clock_devices=5)
+    assert (len(out) == 1) == kept
+    if kept:
+        d = out.iloc[0]["details"]
+        assert out.iloc[0]["device_id"] is None and d["n_devices_agreeing"] == 2
+        assert d["shift_minutes_measured"] == pytest.approx(np.median(levels))
+
+
+def test_single_device_site_keeps_its_clock_flag():
+    from analytics.outliers import flag_frame
+    from heliaudit.jobs_flags import consolidate_clock_flags
+
+    out = consolidate_clock_flags(flag_frame([_clk("only", 60.0)]), n_clock_devices=1)
+    assert list(out["device_id"]) == ["only"]
