@@ -102,7 +102,10 @@ def range_flags(x: pd.Series, *, device_id: str, quantity: str, lo: float | None
     v = x.to_numpy(float)
     recs = _events(
         m, x.index, tau_s, device_id=device_id, kind="sensor_range", merge_gap_s=3600,
-        severity_fn=lambda n, dur: "alarm" if dur >= 86400 else "warning",
+        # one to three isolated values are a data glitch (a corrupted line, a transmission
+        # error), information rather than a sensor to fix (issue #14; common practice)
+        severity_fn=lambda n, dur: ("alarm" if dur >= 86400 else "warning" if n >= 4
+                                    else "info"),
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, range=[lo, hi],
             min_value=float(np.nanmin(v[a:b + 1])), max_value=float(np.nanmax(v[a:b + 1])),
@@ -182,9 +185,14 @@ def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
     m = flatline_mask(x.to_numpy(float), daytime, min_run=min_run, abs_tol=abs_tol,
                       exclude=exclude, sun_ref=sun_ref)
     v = x.to_numpy(float)
+    # a calm overcast spell can hold the air within 0.05 °C for a few hours: a temperature
+    # flat line shorter than 6 h is information, not a sensor to fix (issue #14: two 2-h
+    # "flatlines" of a healthy ambient sensor; common practice)
+    short = 6 * 3600 if temp else 0
     recs = _events(
         m, x.index, tau_s, device_id=device_id, kind="sensor_flatline", merge_gap_s=18 * 3600,
-        severity_fn=lambda n, dur: "alarm" if dur > 86400 else "warning",
+        severity_fn=lambda n, dur: ("alarm" if dur > 86400 else "info" if dur < short
+                                    else "warning"),
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, stuck_value=float(np.nanmedian(v[a:b + 1][m[a:b + 1]])),
             rule=f"daytime run of >= {min_run} samples without change (METHODS §5)"))
