@@ -86,10 +86,15 @@ def _canon(f: dict, inverters: set[str]) -> str | None:
     return None
 
 
-def map_flags(doc: dict) -> dict:
-    """heliaudit results document -> the scorer's accepted shape (flags and clipping level)."""
+def map_flags(doc: dict, actionable: bool = False) -> dict:
+    """heliaudit results document -> the scorer's accepted shape (flags and clipping level);
+    ``actionable``: only the warnings and alarms (what the weekly check asks a person to act
+    on), leaving out the information-level flags."""
     inverters = {b["device_id"] for b in doc.get("inverters", [])}
     flags = doc.get("flags", []) or []
+    if actionable:
+        flags = [f for f in flags if f.get("severity") in ("warning", "alarm")
+                 or f["kind"] in ("soiling", "power_limit")]
     soil = [{"start": f["start"], "end": f["end"]} for f in flags if f["kind"] == "soiling"]
     out = {"inverters": {i: {"flags": [], "soiling": {"intervals": soil}} for i in inverters},
            "flags": []}
@@ -110,15 +115,30 @@ def map_flags(doc: dict) -> dict:
     return out
 
 
-def score(res: dict, workdir: Path) -> dict:
-    mapped = map_flags(res["results"])
-    mp = workdir / "flags_mapped.json"
+def score(res: dict, workdir: Path, actionable: bool = False) -> dict:
+    mapped = map_flags(res["results"], actionable)
+    tag = "_actionable" if actionable else ""
+    mp = workdir / f"flags_mapped{tag}.json"
     mp.write_text(json.dumps(mapped, indent=1), encoding="utf-8")
-    sp = workdir / "flags_score.json"
+    sp = workdir / f"flags_score{tag}.json"
     subprocess.run([sys.executable, str(GENERATOR), "--score", str(mp), "--truth",
                     str(workdir / "gen" / "truth.json"), "--score-out", str(sp)],
                    capture_output=True, text=True, check=True)
     return json.loads(sp.read_text(encoding="utf-8"))
+
+
+def reflag(workdir: Path, site_id: str) -> dict:
+    """Re-run the flags job and the results export on a kept store; the new document."""
+    from harness import _heliaudit
+
+    db = f"sqlite:///{workdir / 'store.sqlite'}"
+    code = ("import sys; from db.engine import make_engine; from heliaudit.jobs_flags import "
+            "run_flags; run_flags(make_engine(sys.argv[1]), sys.argv[2])")
+    subprocess.run([sys.executable, "-c", code, db, site_id], check=True)
+    subprocess.run(_heliaudit() + ["--db", db, "results", "--site", site_id, "--out",
+                                   str(workdir / "results.json")], check=True,
+                   capture_output=True)
+    return json.loads((workdir / "results.json").read_text(encoding="utf-8"))
 
 
 def system_years(res: dict) -> float:
@@ -140,12 +160,16 @@ def main(argv=None) -> int:
     ap.add_argument("--case", default=None, help="run only cases whose label starts with this")
     ap.add_argument("--keep", type=Path, default=None, help="work folder root (kept, reused)")
     ap.add_argument("--json", type=Path, default=None)
+    ap.add_argument("--reflag", action="store_true",
+                    help="with --keep: re-run only the flags job and the results export on the "
+                         "kept stores (after a change to the flags), then score")
     a = ap.parse_args(argv)
     ok, why = shared_available()
     if not ok:
         print(why)
         return 0
     tot = {k: dict(truth=0, found=0, pred=0, correct=0) for k in KINDS}
+    tot_act = {k: dict(truth=0, found=0, pred=0, correct=0) for k in KINDS}
     clean_counts: dict[str, int] = {}
     clean_sy = 0.0
     report = []
@@ -154,24 +178,31 @@ def main(argv=None) -> int:
             continue
         wd = (a.keep / f"{scen}-{seed}") if a.keep else None
         res = run_case(scen, seed, sets, workdir=wd, keep=wd is not None, reuse=wd is not None)
+        if a.reflag and res.get("ok") and res.get("reused"):
+            res["results"] = reflag(Path(res["dir"]), res["site"]["site"]["id"])
         if not res["ok"]:
             print(f"{label}: FAILED {res['error']}")
             continue
         sc = score(res, Path(res["dir"]))
+        sca = score(res, Path(res["dir"]), actionable=True)
         flags = res["results"].get("flags", []) or []
         sy = system_years(res)
         line = [f"\n== {label} ({scen} seed {seed} {' '.join(sets)}): {len(flags)} flags, "
                 f"{sy:.1f} system-years, {len(flags) / sy:.1f} flags per system-year"]
         for k in KINDS:
-            s = sc["flags"].get(k, {})
-            t = tot[k]
-            t["truth"] += s.get("truth_events", 0)
-            t["found"] += s.get("found", 0)
-            t["pred"] += s.get("predicted", 0)
-            t["correct"] += s.get("correct", 0)
+            for sco, tt in ((sc, tot), (sca, tot_act)):
+                s = sco["flags"].get(k, {})
+                t = tt[k]
+                t["truth"] += s.get("truth_events", 0)
+                t["found"] += s.get("found", 0)
+                t["pred"] += s.get("predicted", 0)
+                t["correct"] += s.get("correct", 0)
+            s, sa = sc["flags"].get(k, {}), sca["flags"].get(k, {})
             line.append(f"  {k:<17} truth {s.get('truth_events', 0):3d} found "
                         f"{s.get('found', 0):3d}  pred {s.get('predicted', 0):4d} correct "
-                        f"{s.get('correct', 0):4d}")
+                        f"{s.get('correct', 0):4d}   | warnings+alarms: found "
+                        f"{sa.get('found', 0):3d} pred {sa.get('predicted', 0):4d} correct "
+                        f"{sa.get('correct', 0):4d}")
         if "soiling_loss" in sc:
             line.append(f"  soiling loss MAE {sc['soiling_loss']['mae_pct']:.2f} %-points")
         if "clipping_level" in sc:
@@ -188,16 +219,18 @@ def main(argv=None) -> int:
         print("\n".join(line), flush=True)
         report.append(dict(label=label, scenario=scen, seed=seed, sets=sets, clean=clean,
                            system_years=sy, flags_by_kind=by_kind, score=sc["flags"],
+                           score_actionable=sca["flags"],
                            soiling_loss=sc.get("soiling_loss", {}).get("mae_pct"),
                            clipping_rel_err=sc.get("clipping_level", {}).get("mean_rel_err")))
-    print("\n== totals over the cases (targets: recall >= 0.90, precision >= 0.90)")
-    for k in KINDS:
-        t = tot[k]
-        rec = t["found"] / t["truth"] if t["truth"] else None
-        prec = t["correct"] / t["pred"] if t["pred"] else None
-        f = lambda v: "  -  " if v is None else f"{v:5.2f}"  # noqa: E731
-        print(f"  {k:<17} recall {f(rec)} ({t['found']}/{t['truth']})   precision {f(prec)} "
-              f"({t['correct']}/{t['pred']})")
+    for title, tt in (("all flags", tot), ("warnings and alarms only", tot_act)):
+        print(f"\n== totals over the cases, {title} (targets: recall >= 0.90, precision >= 0.90)")
+        for k in KINDS:
+            t = tt[k]
+            rec = t["found"] / t["truth"] if t["truth"] else None
+            prec = t["correct"] / t["pred"] if t["pred"] else None
+            f = lambda v: "  -  " if v is None else f"{v:5.2f}"  # noqa: E731
+            print(f"  {k:<17} recall {f(rec)} ({t['found']}/{t['truth']})   precision "
+                  f"{f(prec)} ({t['correct']}/{t['pred']})")
     if clean_sy:
         n_all = sum(clean_counts.values())
         bad = {k: v for k, v in clean_counts.items()
@@ -206,7 +239,8 @@ def main(argv=None) -> int:
               f"system-year; by kind {dict(sorted(clean_counts.items()))}")
         print(f"   soiling / underperformance / sensor flags (target 0): {bad or 0}")
     if a.json:
-        a.json.write_text(json.dumps(dict(cases=report, totals=tot), indent=1, default=str),
+        a.json.write_text(json.dumps(dict(cases=report, totals=tot, totals_actionable=tot_act),
+                                     indent=1, default=str),
                           encoding="utf-8")
     return 0
 
