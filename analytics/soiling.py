@@ -270,6 +270,23 @@ def soiling_ratio_insolation_weighted_mc(index, intervals: pd.DataFrame, h_kwhm2
                 n_runs=int(n_runs))
 
 
+def soiling_site_summary(sr_weighted: float, mc: dict, days) -> dict:
+    """The site's insolation-weighted soiling ratio over the whole period, for every soiling
+    flag: the point estimate is the full-recovery value (a cleaning or a rain of at least the
+    threshold restores the clean level; Deceglie et al. 2018, step 4 with full recovery) and
+    the interval is the Monte-Carlo one, widened to contain the point where partial
+    recoveries pull it below (so the point is always inside its interval)."""
+    lo = mc.get("soiling_ratio_weighted_low", sr_weighted)
+    hi = mc.get("soiling_ratio_weighted_high", sr_weighted)
+    point = float(sr_weighted)
+    return dict(soiling_ratio_weighted=point,
+                soiling_ratio_weighted_low=float(min(lo, point)),
+                soiling_ratio_weighted_high=float(max(hi, point)),
+                soiling_loss_pct=100.0 * (1.0 - point),
+                soiling_ratio_weighted_period=[str(pd.Timestamp(days[0]).date()),
+                                               str(pd.Timestamp(days[-1]).date())])
+
+
 def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
                   rain_mm: pd.Series | None = None, tariff_per_kwh: float = 0.05,
                   cleaning_cost: float = 0.0, currency: str = "EUR",
@@ -330,6 +347,7 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
     mc = soiling_ratio_insolation_weighted_mc(days, iv, h, n_runs=n_runs) if n_runs else {}
     sr_weighted = soiling_ratio_insolation_weighted(sr, h)
     e_day = float(np.nanmedian(e_exp.iloc[-30:])) if e_exp.notna().any() else float("nan")
+    site = soiling_site_summary(sr_weighted, mc, days)
     for k, row in enumerate(iv.itertuples()):
         if not row.soiled:
             continue
@@ -352,7 +370,8 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
             loss_at_end_pct=100 * loss_end,
             lost_revenue=lost * tariff_per_kwh, currency=currency,
             method="Theil-Sen slope of site-median daily pi in the dry interval, relative to "
-                   "its clean level (Deceglie et al. 2018; scipy.stats.theilslopes)")
+                   "its clean level (Deceglie et al. 2018; scipy.stats.theilslopes)",
+            **site)
         sev = "info"
         if last:
             saving = tariff_per_kwh * e_day * loss_end * horizon_days

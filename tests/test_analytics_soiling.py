@@ -218,3 +218,20 @@ def test_min_loss_boundary(loss, flagged):
     fl = soiling_flags(pi, pd.Series(6.0, index=days), pd.Series(1000.0, index=days),
                        rain_mm=rain, n_runs=0)
     assert ((fl["kind"] == "soiling").sum() == 1) == flagged
+
+
+def test_site_summary_point_inside_interval_and_equal_to_full_recovery():
+    # the reported soiling ratio is the full-recovery SR_iw (METHODS §8 test vector style:
+    # weights H), its interval contains it; loss = 100 (1 − SR)
+    pi = _pi(4)
+    h = pd.Series(6.0, index=DAYS)
+    fl = soiling_flags(pi, h, pd.Series(4500.0, index=DAYS), n_runs=200)
+    so = fl[fl["kind"] == "soiling"]
+    assert len(so) >= 3
+    for d in so["details"]:
+        assert d["soiling_ratio_weighted_low"] <= d["soiling_ratio_weighted"] \
+            <= d["soiling_ratio_weighted_high"]
+        assert d["soiling_loss_pct"] == pytest.approx(100 * (1 - d["soiling_ratio_weighted"]))
+    truth = soiling_ratio_insolation_weighted(_true_sr(), h)
+    # within 0.5 percentage point of the injected loss (0.5 % daily noise)
+    assert so.iloc[0]["details"]["soiling_ratio_weighted"] == pytest.approx(truth, abs=0.005)

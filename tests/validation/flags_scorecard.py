@@ -96,8 +96,11 @@ def map_flags(doc: dict, actionable: bool = False) -> dict:
         flags = [f for f in flags if f.get("severity") in ("warning", "alarm")
                  or f["kind"] in ("soiling", "power_limit")]
     soil = [{"start": f["start"], "end": f["end"]} for f in flags if f["kind"] == "soiling"]
-    out = {"inverters": {i: {"flags": [], "soiling": {"intervals": soil}} for i in inverters},
-           "flags": []}
+    # the site's soiling loss over the period (every soiling flag carries it; none: 0 %)
+    loss = next((f["details"]["soiling_loss_pct"] for f in flags if f["kind"] == "soiling"
+                 and "soiling_loss_pct" in (f.get("details") or {})), 0.0)
+    out = {"inverters": {i: {"flags": [], "soiling": {"intervals": soil, "loss_pct": loss}}
+                         for i in inverters}, "flags": []}
     for f in flags:
         kind = _canon(f, inverters)
         if f["kind"] == "power_limit" and f.get("device_id") in inverters:
