@@ -435,3 +435,37 @@ def power_limit_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str
             note="the contract or grid-connection agreement says whether this energy is "
                  "compensated; check the inverter's active-power setting"))
     return flag_frame([rec]), per_day
+
+
+def merge_clipping_by_month(flags: pd.DataFrame, *, min_inverters: int = 2) -> pd.DataFrame:
+    """One site-wide 'clipping' flag per local month in which several inverters clipped.
+
+    Clipping is normal design behaviour (information); one flag per inverter and month
+    made it most of a healthy plant's flag list (issue #14: a list a person can read in a
+    weekly check). The site flag keeps each inverter's clipped hours and days in its details.
+    """
+    if flags.empty:
+        return flags
+    m = (flags["kind"] == "clipping") & flags["device_id"].notna()
+    clip = flags[m]
+    if clip.empty:
+        return flags
+    month = clip["details"].map(lambda d: d.get("month"))
+    out, drop = [], []
+    for mo, grp in clip.groupby(month):
+        if grp["device_id"].nunique() < min_inverters:
+            continue
+        drop += list(grp.index)
+        out.append(dict(
+            device_id=None, kind="clipping", start_s=int(grp["start_s"].min()),
+            end_s=int(grp["end_s"].max()), severity="info", lost_kwh=np.nan,
+            details=dict(month=str(mo), scope="site", devices=sorted(map(str, grp["device_id"])),
+                         clipped_hours_by_inverter={str(r.device_id): r.details["clipped_hours"]
+                                                    for r in grp.itertuples()},
+                         n_days_by_inverter={str(r.device_id): r.details["n_days"]
+                                             for r in grp.itertuples()},
+                         rule=grp["details"].iloc[0]["rule"],
+                         note=grp["details"].iloc[0]["note"])))
+    if not out:
+        return flags
+    return pd.concat([flags.drop(index=drop), flag_frame(out)], ignore_index=True)

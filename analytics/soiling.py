@@ -319,7 +319,8 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
     Returns
     -------
     DataFrame with :data:`~analytics.outliers.FLAG_COLUMNS`: kind 'cleaning' (info) for
-    each detected cleaning/rain, kind 'soiling' for each soiled dry interval ('warning' if
+    each detected cleaning/rain that ends a soiled interval, kind 'soiling' for each soiled
+    dry interval ('warning' if
     a cleaning is recommended, else 'info'); the last soiling flag carries the current
     loss, the site SR_iw with its Monte-Carlo interval, T* and the recommendation.
     """
@@ -333,7 +334,13 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
     iv = soiling_intervals(pi, cl.index, min_days=min_days)
     sr = soiling_ratio_series(days, iv)
     records = []
+    # a cleaning (or rain) is reported only when it ends a soiled interval: rain on a clean
+    # plant is weather, not news (issue #14: 81 "cleaning" flags on a fleet without soiling)
+    ends_soiled = {pd.Timestamp(r.end) + pd.Timedelta(days=1) for r in iv.itertuples()
+                   if r.soiled}
     for d, row in cl.iterrows():
+        if pd.Timestamp(d) not in ends_soiled:
+            continue
         s0 = int(day_start_s([d], std_offset_s)[0])
         records.append(dict(
             device_id=device_id, kind="cleaning", start_s=s0, end_s=s0 + 86400,

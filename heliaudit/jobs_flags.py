@@ -62,7 +62,8 @@ PARAMS = {
     "power_limit": {"min_poa_wm2": 600.0, "tol_frac": 0.003, "min_share": 0.1,
                     "max_level_frac": 0.97},
     "stopped": {"min_days": 3.0},
-    "clipping": {"frac": 0.98, "summary": "per local month"},
+    "clipping": {"frac": 0.98, "summary": "per local month; one site flag when >= 2 "
+                                          "inverters clip that month"},
     "soiling": {"input": "site median of valid daily pi", "window": 7, "min_days": 10,
                 "rain_threshold_mm": 5.0, "min_loss": 0.01, "horizon_days": 30,
                 "n_runs": 1000},
@@ -796,6 +797,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         return flag_frame([])
     out = pd.concat(parts, ignore_index=True)[list(FLAG_COLUMNS)]
     out = outages.site_outage_events(out, len(inverters), **PARAMS["site_outage"])
+    out = outages.merge_clipping_by_month(out)
     out = consolidate_clock_flags(out, n_clock_devices=n_clock)
     out = merge_shared_flags(out)
     out = attach_consequences(out)

@@ -253,3 +253,23 @@ def test_input_mismatch_deficit_boundary_and_exact_lost_energy(clear, share, fla
         want = (1 - share) * pd.Series(np.where(ok & in_ev, p * 0.25, 0.0)).sum()
         assert sibl.sum() > 0
         assert fl.iloc[0]["lost_kwh"] == pytest.approx(want, rel=1e-9)
+
+
+@pytest.mark.parametrize("n_inv,merged", [(1, False), (2, True), (3, True)])
+def test_clipping_months_merge_across_inverters(n_inv, merged):
+    # documented: one site clipping flag per month when >= 2 inverters clip that month,
+    # each inverter's hours kept in the details
+    from analytics.outages import merge_clipping_by_month
+
+    rec = [dict(device_id=f"inv{i}", kind="clipping", start_s=100 * i, end_s=1000 + i,
+                severity="info", lost_kwh=None,
+                details=dict(month="2024-05", clipped_hours=1.5 + i, n_days=2, rule="r",
+                             note="n")) for i in range(n_inv)]
+    out = merge_clipping_by_month(flag_frame(rec))
+    if merged:
+        assert len(out) == 1 and out.iloc[0]["device_id"] is None
+        assert out.iloc[0]["details"]["clipped_hours_by_inverter"] == {
+            f"inv{i}": 1.5 + i for i in range(n_inv)}
+        assert out.iloc[0]["start_s"] == 0 and out.iloc[0]["end_s"] == 1000 + n_inv - 1
+    else:
+        assert list(out["device_id"]) == ["inv0"]
