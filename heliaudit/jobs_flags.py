@@ -64,7 +64,7 @@ PARAMS = {
     "stopped": {"min_days": 3.0},
     "clipping": {"frac": 0.98, "summary": "per local month; one site flag when >= 2 "
                                           "inverters clip that month"},
-    "soiling": {"input": "site median of valid daily pi", "window": 7, "min_days": 10,
+    "soiling": {"input": "site median of valid daily pi", "window": 7, "min_days": 14,
                 "rain_threshold_mm": 5.0, "min_loss": 0.01, "horizon_days": 30,
                 "n_runs": 1000},
     "sensor": {"ranges": sensor_qa.RANGES, "p_ac_range": [-0.02, 1.05],

@@ -235,3 +235,11 @@ def test_site_summary_point_inside_interval_and_equal_to_full_recovery():
     truth = soiling_ratio_insolation_weighted(_true_sr(), h)
     # within 0.5 percentage point of the injected loss (0.5 % daily noise)
     assert so.iloc[0]["details"]["soiling_ratio_weighted"] == pytest.approx(truth, abs=0.005)
+
+
+@pytest.mark.parametrize("n_days,soiled", [(13, False), (14, True), (15, True)])
+def test_min_valid_days_boundary(n_days, soiled):
+    # documented: a dry interval needs at least 14 valid days to count as soiled
+    days = pd.date_range("2024-01-01", periods=n_days, freq="D")
+    pi = pd.Series(0.97 * (1 - 0.002 * np.arange(n_days)), index=days)
+    assert bool(soiling_intervals(pi, [])["soiled"].iloc[0]) == soiled
