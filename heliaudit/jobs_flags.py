@@ -64,7 +64,10 @@ PARAMS = {
     "stopped": {"min_days": 3.0},
     "clipping": {"frac": 0.98, "summary": "per local month; one site flag when >= 2 "
                                           "inverters clip that month"},
-    "soiling": {"input": "site median of valid daily pi", "window": 7, "min_days": 14,
+    "soiling": {"input": "site median of each inverter's daily pi over unclipped intervals "
+                         "(POA >= 200 W/m2, expected < 95 % of rating, 1-98 % of rating "
+                         "measured) on the daily table's valid days",
+                "window": 7, "min_days": 14,
                 "rain_threshold_mm": 5.0, "min_loss": 0.01, "horizon_days": 30,
                 "n_runs": 1000},
     "sensor": {"ranges": sensor_qa.RANGES, "p_ac_range": [-0.02, 1.05],
@@ -197,8 +200,8 @@ def mask_invalid_sensor_days(frame: pd.DataFrame, inv: dict, invalid_days: dict,
 
 def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_offset_s: int,
                    site_zone: str, source: tuple[str, str] | None = None,
-                   cache: dict | None = None, withheld: dict | None = None
-                   ) -> list[pd.DataFrame]:
+                   cache: dict | None = None, withheld: dict | None = None,
+                   soiling_pi: dict | None = None) -> list[pd.DataFrame]:
     """Outage, power limit, clipping, clock shift and power-channel QA flags of one inverter.
 
     ``sun`` is on the inverter's own plane (clock against the array's own geometry).
@@ -233,6 +236,8 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
         limited = outages.power_limit_mask(pv, float(lim["details"].iloc[0]["level_kw"]), p_max)
         if withheld is not None and per_day is not None:
             withheld[dev] = per_day
+    if soiling_pi is not None:
+        soiling_pi[dev] = unclipped_daily_pi(frame, exp, p_max, limited, std_offset_s)
     if p.notna().any():
         out.append(sensor_qa.range_flags(p, device_id=dev, quantity="p_ac_kw", lo=-0.02 * p_max,
                                          hi=1.05 * p_max, tau_s=tau_s))
@@ -261,6 +266,35 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
             source_name=source[0] if source else None,
             export_zone=source[1] if source else "local"))
     return out
+
+
+def unclipped_daily_pi(frame: pd.DataFrame, exp: pd.Series, p_max: float, limited,
+                       std_offset_s: int, *, min_poa_wm2: float = 200.0,
+                       max_exp_frac: float = 0.95) -> pd.Series:
+    """Daily performance index Σ P τ / Σ P_exp τ over the intervals where neither the
+    inverter nor the model is near the AC limit, for the soiling estimate.
+
+    An inverter at its limit hides soiling (the DC surplus absorbs it) and a model clipped at
+    the rating compresses the ratio, so soiling read from those intervals comes out low
+    (issue #14: summer soiling rates 30 % low on an arid site with DC/AC ≈ 1.3). Intervals:
+    plausible POA ≥ ``min_poa_wm2`` (Deceglie et al. 2018 filter their inputs likewise,
+    from memory), expected power below ``max_exp_frac`` of the rating, measured power above
+    1 % (no outage) and below the clipping and power-limit levels.
+    """
+    p = frame["p_ac_kw"].to_numpy(float)
+    e = exp.to_numpy(float)
+    g = frame["poa_wm2"].to_numpy(float)
+    tau = frame["interval_h"].to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        ok = ((g >= min_poa_wm2) & (e < max_exp_frac * p_max) & (p > 0.01 * p_max)
+              & (p < 0.98 * p_max) & ~np.asarray(limited, dtype=bool) & np.isfinite(e))
+    day = (epoch_s(frame.index) + int(std_offset_s)) // 86400
+    num = np.bincount(day[ok] - day.min(), weights=(p * tau)[ok]) if ok.any() else np.zeros(0)
+    den = np.bincount(day[ok] - day.min(), weights=(e * tau)[ok]) if ok.any() else np.zeros(0)
+    idx = pd.to_datetime((np.arange(num.size) + day.min()) * 86400, unit="s")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = np.where(den > 0, num / np.where(den > 0, den, 1.0), np.nan)
+    return pd.Series(r, index=idx)
 
 
 def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) -> pd.DataFrame:
@@ -338,8 +372,12 @@ def _adjust_pi_for_limits(d: pd.DataFrame, withheld: dict) -> pd.DataFrame:
 
 def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: int,
                 economics: dict, rain_daily: pd.Series | None = None,
-                n_runs: int = 1000, withheld: dict | None = None) -> list[pd.DataFrame]:
-    """Underperformance, soiling/cleaning and fleet-power drift flags from the daily table."""
+                n_runs: int = 1000, withheld: dict | None = None,
+                soiling_pi: dict | None = None) -> list[pd.DataFrame]:
+    """Underperformance, soiling/cleaning and fleet-power drift flags from the daily table.
+
+    Soiling reads the site median of each inverter's unclipped daily performance index
+    (:func:`unclipped_daily_pi`) where the flags job computed it, else the daily ``pi``."""
     if daily.empty:
         return []
     d = daily.copy()
@@ -352,6 +390,12 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
     valid = d[d["day_valid"].astype(bool)]
     if len(valid):
         pi = valid.groupby("day")["pi"].median()
+        if soiling_pi:
+            wide = pd.DataFrame(soiling_pi)
+            ok = valid.pivot_table(index="day", columns="device_id", values="pi",
+                                   aggfunc="first").notna()
+            wide = wide.reindex(index=ok.index, columns=ok.columns).where(ok)
+            pi = wide.median(axis=1).dropna()
         h = valid.groupby("day")["h_poa_kwhm2"].median()
         e_exp = d.groupby("day")["e_exp_kwh"].sum(min_count=1)
         out.append(soiling.soiling_flags(
@@ -769,6 +813,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     # several rain gauges: the daily mean of those that reported
     rain_daily = pd.concat(rain_parts, axis=1).mean(axis=1) if rain_parts else None
     withheld: dict[str, pd.Series] = {}
+    soiling_pi: dict[str, pd.Series] = {}
     for inv, frame in frames:
         if len(frame):
             pn = frame["p_ac_kw"].dropna()
@@ -780,14 +825,15 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
             fr = mask_invalid_sensor_days(frame, inv, invalid_days, off_s)
             parts += inverter_flags(inv, fr, gs, std_offset_s=off_s, site_zone=zone,
                                     source=sources.get(inv["device_id"]), cache=cs_cache,
-                                    withheld=withheld)
+                                    withheld=withheld, soiling_pi=soiling_pi)
             parts.append(power_dropout_flags(inv, frame, grid_sun(frame.index)))
             n_clock += 1
         done += 1
         if progress:
             progress(done, n_total)
     parts += daily_flags(daily, inverters, std_offset_s=off_s, economics=economics,
-                         rain_daily=rain_daily, n_runs=n_runs, withheld=withheld)
+                         rain_daily=rain_daily, n_runs=n_runs, withheld=withheld,
+                         soiling_pi=soiling_pi)
     if last_seen:
         parts.append(flag_frame(stopped_reporting_flags(
             last_seen, max(last_seen.values()), min_days=PARAMS["stopped"]["min_days"],
