@@ -303,8 +303,11 @@ def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) 
     tau_s = _tau_s(grid_sun.index)
     p = frame["p_ac_kw"] if len(frame) else pd.Series(dtype=float)
     day = grid_sun["elev"] >= PARAMS["outage"]["min_elevation_deg"]
-    return sensor_qa.dropout_flags(p, day, device_id=inv["device_id"],
-                                   quantity="p_ac_kw", tau_s=tau_s)
+    fl = sensor_qa.dropout_flags(p, day, device_id=inv["device_id"], quantity="p_ac_kw",
+                                 tau_s=tau_s)
+    # missing power is information unavailable (IEC TS 63019), not a faulty sensor
+    fl["kind"] = "data_dropout"
+    return fl
 
 
 def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataFrame, *,
@@ -634,7 +637,7 @@ def attach_consequences(flags: pd.DataFrame) -> pd.DataFrame:
     # an offset explains no gap or flat line
     parents = parents[[d.get("reason") != "ambient_offset" for d in parents["details"]]]
     child_kinds = {"sensor_range", "sensor_flatline", "sensor_night", "sensor_dropout",
-                   "clock_shift", "sensor_drift", "outage"}
+                   "data_dropout", "clock_shift", "sensor_drift", "outage"}
     for pr in parents.itertuples():
         m = ((flags["device_id"] == pr.device_id) & flags["kind"].isin(child_kinds)
              & (flags["start_s"] >= pr.start_s - 86400) & (flags["end_s"] <= pr.end_s + 86400)
@@ -677,12 +680,15 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
     """
     if flags.empty:
         return flags
-    keep = ~flags["kind"].isin(["sensor_dropout", "clock_shift"])
+    keep = ~flags["kind"].isin(["sensor_dropout", "data_dropout", "clock_shift"])
     out = [flags[keep]]
     rest = flags[~keep].copy()
     rest["shift"] = [d.get("shift_minutes_correction") for d in rest["details"]]
-    for (_kind, _a, _b, _sh), grp in rest.groupby(["kind", "start_s", "end_s", "shift"],
+    # a sensor's and an inverter's missing data over the same span are one logger gap
+    rest["group"] = rest["kind"].replace({"sensor_dropout": "data_dropout"})
+    for (_kind, _a, _b, _sh), grp in rest.groupby(["group", "start_s", "end_s", "shift"],
                                                   dropna=False, sort=False):
+        grp = grp.drop(columns="group")
         if len(grp) < min_devices:
             out.append(grp.drop(columns="shift"))
             continue
@@ -690,7 +696,7 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
         devices = sorted(str(d) for d in grp["device_id"])
         det = dict(first["details"])
         det["devices"] = devices
-        if first["kind"] == "sensor_dropout":
+        if first["kind"] in ("sensor_dropout", "data_dropout"):
             det["quantity"] = sorted({d["quantity"] for d in grp["details"]})
             det["probable_cause"] = ("logger or communication outage: every listed channel "
                                      "is missing over the same span")
@@ -705,6 +711,8 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
                 f"on {first['device_id']}:", f"on {len(devices)} devices:")
             det["probable_cause"] += "; the same shift on every listed device: one logger clock"
         row = first.drop(labels="shift").to_dict()
+        if row["kind"] == "sensor_dropout":
+            row["kind"] = "data_dropout"
         row.update(device_id=None, details=det,
                    severity=max(grp["severity"], key=["info", "warning", "alarm"].index))
         out.append(pd.DataFrame([row]))

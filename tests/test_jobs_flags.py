@@ -241,5 +241,6 @@ def test_merge_shared_flags_logger_gap():
     assert len(out) == 2
     site = out[out["device_id"].isna()].iloc[0]
     assert site["details"]["devices"] == ["inv1", "inv2", "poa1"]
+    assert site["kind"] == "data_dropout"  # a logger gap: information unavailable
     assert "logger" in site["details"]["probable_cause"]
     assert list(out.loc[out["device_id"].notna(), "device_id"]) == ["inv3"]

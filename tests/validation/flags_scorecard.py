@@ -16,7 +16,7 @@ Targets (issue #14): every kind >= 90 % recall and >= 90 % precision; on clean f
 soiling, underperformance or sensor flags at all.
 
 Mapping (ours, not the scorer's): ``sensor_*`` flags on a sensor -> sensor_fault of that sensor;
-a power dropout of an inverter and a site-wide dropout (logger or communication) -> data_gap;
+``data_dropout`` (an inverter's missing power, a site-wide logger gap) -> data_gap;
 ``outage`` (inverter or site-wide) -> outage; ``clock_shift`` -> clock; ``underperformance``
 -> underperformance; ``soiling`` -> soiling (site-wide: each inverter's soiling intervals);
 ``input_mismatch`` -> underperformance of its inverter; clipping, power_limit, cleaning and
@@ -79,7 +79,7 @@ def _canon(f: dict, inverters: set[str]) -> str | None:
         return "clock"
     if k == "soiling":
         return "soiling"
-    if k == "sensor_dropout" and (dev is None or dev in inverters):
+    if k == "data_dropout" or (k == "sensor_dropout" and (dev is None or dev in inverters)):
         return "data_gap"
     if k.startswith("sensor_"):
         return "sensor_fault" if dev not in inverters else "data_gap"
