@@ -96,13 +96,18 @@ def _runs(state: np.ndarray) -> list[tuple[int, int]]:
 def _window_edges(gate: np.ndarray, days: np.ndarray, ts: np.ndarray,
                   edge_s: float) -> np.ndarray:
     """True within ``edge_s`` of the first or last gated interval of each local day: the
-    first and last minutes of the day's production window (start-up and shut-down)."""
+    first and last minutes of the day's production window (start-up and shut-down).
+    ``ts`` ascending (so ``days`` is non-decreasing)."""
     if not gate.any() or edge_s <= 0:
         return np.zeros(gate.size, dtype=bool)
     gd, gt = days[gate], ts[gate]
-    s = pd.Series(gt)
-    first = s.groupby(gd).min().reindex(days).to_numpy(float)
-    last = s.groupby(gd).max().reindex(days).to_numpy(float)
+    ud, i0 = np.unique(gd, return_index=True)
+    i1 = np.r_[i0[1:], gd.size] - 1
+    k = np.searchsorted(ud, days)
+    k = np.clip(k, 0, ud.size - 1)
+    has = ud[k] == days
+    first = np.where(has, gt[i0][k], np.nan)
+    last = np.where(has, gt[i1][k], np.nan)
     with np.errstate(invalid="ignore"):
         return (ts - first < edge_s) | (last - ts < edge_s)
 
