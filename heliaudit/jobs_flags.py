@@ -62,6 +62,9 @@ PARAMS = {
     "power_limit": {"min_poa_wm2": 600.0, "tol_frac": 0.003, "min_share": 0.1,
                     "max_level_frac": 0.97},
     "stopped": {"min_days": 3.0},
+    "input_mismatch": {"min_deficit": 0.05, "min_yield_kw_per_kwp": 0.1, "window": 5,
+                       "k_required": 3, "runs_when": "an inverter has >= 2 loaded inputs and "
+                       "its [[inverters]] arrays give each input's id and p_dc_kwp"},
     "clipping": {"frac": 0.98, "summary": "per local month; one site flag when >= 2 "
                                           "inverters clip that month"},
     "soiling": {"input": "site median of each inverter's daily pi over unclipped intervals "
@@ -878,6 +881,59 @@ def _inverter_rows(conn: sa.Connection, site_id: str) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["device_id", *(c.name for c in i.columns)])
 
 
+def _arrays_by_inverter(cfg: dict) -> dict[str, list[dict]]:
+    """inverter id -> its ``arrays`` entries (id, p_dc_kwp, tilt_deg, azimuth_deg) from the
+    stored configuration, where given."""
+    out: dict[str, list[dict]] = {}
+    for inv in cfg.get("inverters", []) or []:
+        if isinstance(inv, dict) and inv.get("id") and isinstance(inv.get("arrays"), list):
+            out[str(inv["id"])] = [a for a in inv["arrays"] if isinstance(a, dict)]
+    return out
+
+
+def _with_planes(inverters: pd.DataFrame, arrays: dict[str, list[dict]]) -> pd.DataFrame:
+    """Inverter rows with ``tilt_deg``/``azimuth_deg`` where all of an inverter's arrays lie
+    on one plane (the clock check then uses that plane)."""
+    if not arrays or "tilt_deg" in inverters:
+        return inverters
+    tilt, azim = [], []
+    for dev in inverters["device_id"]:
+        planes = {(a.get("tilt_deg"), a.get("azimuth_deg")) for a in arrays.get(str(dev), [])}
+        t, a = planes.pop() if len(planes) == 1 else (None, None)
+        tilt.append(t)
+        azim.append(a)
+    return inverters.assign(tilt_deg=tilt, azimuth_deg=azim)
+
+
+def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, list[dict]],
+                            std_offset_s: int) -> tuple[list[pd.DataFrame], str]:
+    """Input-mismatch flags of every inverter whose inputs are loaded and whose arrays give
+    each input's kWp; returns the flags and a note on what ran."""
+    from db import timeseries as tsdb
+
+    read = getattr(tsdb, "input_dc_power", None)
+    if read is None:
+        return [], "not run: the store has no per-input DC query"
+    out, n_run = [], 0
+    for dev, arr in arrays.items():
+        kwp = {str(a["id"]): float(a["p_dc_kwp"]) for a in arr
+               if a.get("id") is not None and a.get("p_dc_kwp")}
+        if len(kwp) < 2:
+            continue
+        df = read(engine, site_id, dev)
+        cols = [c for c in df.columns if c in kwp]
+        if len(cols) < 2:
+            continue
+        plane = {str(a["id"]): (a.get("tilt_deg"), a.get("azimuth_deg")) for a in arr}
+        out.append(outliers.input_mismatch_flags(
+            df[cols], kwp, device_id=dev, input_plane={c: plane.get(c) for c in cols},
+            interval_h=df["interval_h"].to_numpy(float) if "interval_h" in df else None,
+            std_offset_s=std_offset_s))
+        n_run += 1
+    return out, (f"run on {n_run} inverters" if n_run else
+                 "not run: no inverter with two or more loaded inputs and their kWp")
+
+
 def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None) -> int:
     """Recompute every flag of ``site_id`` and replace the stored ones; return how many.
 
@@ -912,9 +968,16 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
             ts, v = read_channel(conn, ch)
             idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
             sensors.append((sid, q, pd.Series(v, index=idx, name=q)))
-    flags = compute_flags(site, inverters, inverter_frames(engine, site_id), sensors, daily,
+    arrays = _arrays_by_inverter(cfg)
+    flags = compute_flags(site, _with_planes(inverters, arrays),
+                          inverter_frames(engine, site_id), sensors, daily,
                           economics=economics, sources=_sources_by_device(cfg),
                           progress=progress)
+    off_s = int(round(standard_utc_offset_h(site["timezone"]) * 3600))
+    mism, _note = input_mismatch_for_site(engine, site_id, arrays, off_s)
+    mism = [m for m in mism if len(m)]
+    if mism:
+        flags = pd.concat([flags, *mism], ignore_index=True)
     n = write_flags(engine, site_id, flags, comp_id)
     with engine.begin() as conn:
         finish_computation(conn, comp_id)

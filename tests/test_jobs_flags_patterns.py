@@ -237,3 +237,26 @@ def test_single_device_site_keeps_its_clock_flag():
 
     out = consolidate_clock_flags(flag_frame([_clk("only", 60.0)]), n_clock_devices=1)
     assert list(out["device_id"]) == ["only"]
+
+
+def test_input_mismatch_wired_to_the_per_input_query(monkeypatch):
+    # the flags job reads each inverter's inputs (db.timeseries.input_dc_power) and the
+    # inputs' kWp and planes from the configuration's arrays; input B at 91 % of A and C
+    from db import timeseries as tsdb
+    from heliaudit.jobs_flags import _with_planes, input_mismatch_for_site
+
+    w = site_weather(start="2024-06-01", days=15, cloudy_share=0.0, seed=3)
+    p = w["poa_wm2"].to_numpy() / 1000 * 10.0
+    df = pd.DataFrame({"A": p, "B": 0.91 * p, "C": p, "interval_h": 0.25},
+                      index=w.index.rename("ts_utc"))
+    monkeypatch.setattr(tsdb, "input_dc_power", lambda eng, site, dev: df, raising=False)
+    arrays = {"inv1": [dict(id=k, p_dc_kwp=10.0, tilt_deg=30, azimuth_deg=180)
+                       for k in "ABC"]}
+    fl, note = input_mismatch_for_site(None, "s1", arrays, STD_OFFSET_S)
+    assert note == "run on 1 inverters"
+    f = pd.concat(fl)
+    assert list(f["details"].map(lambda d: d["input"])) == ["B"]
+    assert f.iloc[0]["details"]["deficit_pct"] == pytest.approx(9.0, abs=1e-9)
+    # one plane for all arrays of an inverter -> its clock plane
+    inv = _with_planes(pd.DataFrame({"device_id": ["inv1", "inv2"]}), arrays)
+    assert list(inv["tilt_deg"]) == [30, None] and list(inv["azimuth_deg"]) == [180, None]
