@@ -259,4 +259,5 @@ def test_input_mismatch_wired_to_the_per_input_query(monkeypatch):
     assert f.iloc[0]["details"]["deficit_pct"] == pytest.approx(9.0, abs=1e-9)
     # one plane for all arrays of an inverter -> its clock plane
     inv = _with_planes(pd.DataFrame({"device_id": ["inv1", "inv2"]}), arrays)
-    assert list(inv["tilt_deg"]) == [30, None] and list(inv["azimuth_deg"]) == [180, None]
+    assert inv["tilt_deg"].iloc[0] == 30 and inv["azimuth_deg"].iloc[0] == 180
+    assert inv[["tilt_deg", "azimuth_deg"]].iloc[1].isna().all()  # no arrays: site plane
