@@ -702,3 +702,82 @@ def frame_sensor_validity(frame: pd.DataFrame, solar_elevation_deg, poa_clearsky
                                            day_mask=el >= 15.0)
         t_bad = invalid_interval_mask(frame.index, days, std_offset_s=std_offset_s)
     return g_bad, t_bad
+
+
+def level_step(daily_ratio: pd.Series, *, min_side: int = 20, min_step: float = 0.03
+               ) -> dict | None:
+    """The largest persistent level step of a daily ratio (two sibling sensors, or a sensor
+    and clear sky): the day that best splits the series into two medians, kept when the
+    relative step |m_after / m_before − 1| reaches ``min_step`` with at least ``min_side``
+    days on each side (a sensor swapped, re-levelled or knocked; common practice).
+
+    Returns
+    -------
+    dict with ``day`` (first day after the step), ``step`` (relative, signed),
+    ``before``, ``after`` (medians), or None.
+
+    Examples
+    --------
+    A ratio of 1.00 for 40 days and 0.95 for 40 days gives step −0.05 on day 40.
+    """
+    s = daily_ratio.dropna()
+    n = len(s)
+    if n < 2 * min_side:
+        return None
+    v = s.to_numpy(float)
+    best, best_cost = None, np.inf
+    for k in range(min_side, n - min_side + 1, max(1, (n - 2 * min_side) // 200 or 1)):
+        a, b = v[:k], v[k:]
+        cost = np.abs(a - np.median(a)).sum() + np.abs(b - np.median(b)).sum()
+        if cost < best_cost:
+            best, best_cost = k, cost
+    m0, m1 = float(np.median(v[:best])), float(np.median(v[best:]))
+    step = m1 / m0 - 1.0 if m0 else np.nan
+    # abrupt, not a drift: the medians of the min_side days either side step as well
+    l0, l1 = float(np.median(v[best - min_side:best])), float(np.median(v[best:best + min_side]))
+    local = l1 / l0 - 1.0 if l0 else np.nan
+    if not (np.isfinite(step) and np.isfinite(local)) or min(abs(step), abs(local)) < min_step:
+        return None
+    return dict(day=pd.Timestamp(s.index[best]), step=step, before=m0, after=m1)
+
+
+def sibling_jump_flags(ratios: dict[str, pd.Series], *, std_offset_s: int = 0,
+                       min_step: float = 0.03) -> pd.DataFrame:
+    """A 'sensor_implausible' flag (reason ``jump_vs_sibling``) where the ratio of two
+    irradiance sensors' clear-day readings steps by ``min_step`` or more and stays there.
+
+    The suspect is the sensor whose own clear-sky ratio shows the larger step at that day
+    (the sky does not jump). The readings are not excluded (a re-levelled sensor may be
+    right afterwards); the flag says from when the two disagree.
+    """
+    recs = []
+    ids = sorted(ratios)
+    for i, a in enumerate(ids):
+        for b in ids[i + 1:]:
+            q = (ratios[a] / ratios[b].reindex(ratios[a].index)).dropna()
+            st = level_step(q, min_step=min_step)
+            if st is None:
+                continue
+            own = {}
+            for sid in (a, b):
+                r = ratios[sid].dropna()
+                before = r[r.index < st["day"]].tail(60)
+                after = r[r.index >= st["day"]].head(60)
+                own[sid] = (abs(np.median(after) / np.median(before) - 1)
+                            if len(before) >= 5 and len(after) >= 5 else 0.0)
+            suspect = max(own, key=own.get)
+            s0 = int(_ts_s(pd.DatetimeIndex([st["day"]]))[0]) - int(std_offset_s)
+            e0 = int(_ts_s(pd.DatetimeIndex([q.index[-1]]))[0]) - int(std_offset_s) + 86400
+            recs.append(dict(
+                device_id=suspect, kind="sensor_implausible", start_s=s0, end_s=e0,
+                severity="warning", lost_kwh=np.nan,
+                details=dict(quantity="poa_wm2", reason="jump_vs_sibling",
+                             meaning=f"clear-day ratio {a}/{b} steps by {100 * st['step']:+.1f} % "
+                                     f"on {st['day'].date()} and stays",
+                             pair=[a, b], step_pct=100 * st["step"],
+                             own_clear_sky_step_pct={k: 100 * v for k, v in own.items()},
+                             rule=f"median split of the daily clear-day ratio of two sensors, "
+                                  f"|step| >= {100 * min_step:g} % with >= 20 days each side",
+                             note="check the sensors' mounting, levelling and calibration; "
+                                  "split degradation series at this day")))
+    return flag_frame(recs)

@@ -821,6 +821,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         if progress:
             progress(done, n_total)
     parts += sibling_flags(ratios, std_offset_s=off_s)
+    parts.append(sensor_qa.sibling_jump_flags(ratios, std_offset_s=off_s))
     # several rain gauges: the daily mean of those that reported
     rain_daily = pd.concat(rain_parts, axis=1).mean(axis=1) if rain_parts else None
     withheld: dict[str, pd.Series] = {}

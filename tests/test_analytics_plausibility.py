@@ -183,3 +183,38 @@ def test_frame_validity_masks_the_faulty_days_only(july):
     sunny = f["elev"].to_numpy() >= 15
     assert g_bad[(f["poa_wm2"] == 3.0).to_numpy() & sunny & (local >= "2024-07-08")].all()
     assert_array_equal(g_bad & t_bad, np.zeros(len(f), bool))
+
+
+@pytest.mark.parametrize("step,found", [(0.029, False), (0.031, True), (-0.05, True)])
+def test_sibling_jump_boundary_and_suspect(step, found):
+    # documented: the clear-day ratio of two sensors steps by >= 3 % and stays; the suspect
+    # is the sensor whose own clear-sky ratio steps (A steps here, B is steady)
+    from analytics.sensor_qa import sibling_jump_flags
+
+    days = pd.date_range("2024-01-01", periods=120, freq="D")
+    rng = np.random.default_rng(9)
+    rb = pd.Series(0.97 + 0.002 * rng.standard_normal(120), index=days)
+    ra = pd.Series(np.where(np.arange(120) >= 70, 0.97 * (1 + step), 0.97)
+                   + 0.002 * rng.standard_normal(120), index=days)
+    fl = sibling_jump_flags({"A": ra, "B": rb})
+    assert (len(fl) == 1) == found
+    if found:
+        d = fl.iloc[0]["details"]
+        assert fl.iloc[0]["device_id"] == "A" and d["reason"] == "jump_vs_sibling"
+        assert d["step_pct"] == pytest.approx(100 * step, abs=0.3)
+        # the step day within 2 days of the truth (day 70 = 2024-03-11)
+        assert abs((pd.Timestamp(d["meaning"].split(" on ")[1][:10])
+                    - pd.Timestamp("2024-03-11")).days) <= 2
+
+
+def test_sibling_drift_is_not_a_jump():
+    # a sensor drifting −1.5 %/yr for 5 years (7.5 % in all) against a steady sibling: the
+    # halves differ by > 3 % but no 20-day window steps; drift has its own check
+    from analytics.sensor_qa import sibling_jump_flags
+
+    days = pd.date_range("2020-01-01", periods=1826, freq="D")
+    rng = np.random.default_rng(4)
+    t = np.arange(1826) / 365.25
+    ra = pd.Series(0.97 * (1 - 0.015 * t) + 0.002 * rng.standard_normal(1826), index=days)
+    rb = pd.Series(0.97 + 0.002 * rng.standard_normal(1826), index=days)
+    assert sibling_jump_flags({"A": ra, "B": rb}).empty
