@@ -175,6 +175,7 @@ def main(argv=None) -> int:
     tot_act = {k: dict(truth=0, found=0, pred=0, correct=0) for k in KINDS}
     clean_counts: dict[str, int] = {}
     clean_sy = 0.0
+    clean_act = 0
     report = []
     for label, scen, seed, sets, clean in SUITES[a.suite]:
         if a.case and not label.startswith(a.case):
@@ -214,9 +215,12 @@ def main(argv=None) -> int:
         by_kind: dict[str, int] = {}
         for f in flags:
             by_kind[f["kind"]] = by_kind.get(f["kind"], 0) + 1
+        n_act = sum(f.get("severity") in ("warning", "alarm") for f in flags)
+        line.append(f"  warnings + alarms: {n_act} ({n_act / sy:.2f} per system-year)")
         line.append(f"  flags by kind: {dict(sorted(by_kind.items()))}")
         if clean:
             clean_sy += sy
+            clean_act += n_act
             for k, n in by_kind.items():
                 clean_counts[k] = clean_counts.get(k, 0) + n
         print("\n".join(line), flush=True)
@@ -240,6 +244,7 @@ def main(argv=None) -> int:
                if k in ("soiling", "underperformance") or k.startswith("sensor_")}
         print(f"\n== clean fleets ({clean_sy:.1f} system-years): {n_all / clean_sy:.2f} flags per "
               f"system-year; by kind {dict(sorted(clean_counts.items()))}")
+        print(f"   warnings + alarms: {clean_act / clean_sy:.2f} per system-year")
         print(f"   soiling / underperformance / sensor flags (target 0): {bad or 0}")
     if a.json:
         a.json.write_text(json.dumps(dict(cases=report, totals=tot, totals_actionable=tot_act),
