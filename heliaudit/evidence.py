@@ -22,8 +22,10 @@ that period in a scratch SQLite store holding a copy of the site's inputs
 (:func:`db.evidence.copy_site_window`), so stored results are never touched.
 
 Reproducibility: everything under ``data/`` is a function of the store and the request; the
-creation time lives only in ``manifest.json`` and on the report's title page. Times of the
-computations are blanked in ``data/results.json`` (they are in the manifest).
+creation time lives only in ``manifest.json`` and on the report's title page. In
+``data/results.json`` ``generated_utc`` is when the numbers were computed (period packs: when
+the newest input file was loaded) and the computations' times are blanked (they are in the
+manifest).
 
 System-level field data are screening evidence; the warranty contract's own terms and test
 procedure govern any claim (analytics.warranty.DISCLAIMER).
