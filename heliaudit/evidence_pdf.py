@@ -456,10 +456,20 @@ def _data_section(pack, st) -> list:
     if sensor.empty:
         out.append(Paragraph("No sensor fault was flagged in the period.", st["body"]))
     else:
-        g = sensor.groupby(["kind", "device_id"]).size().reset_index(name="n")
-        srows = [["Fault", "Sensor / device", "Flags"]] + [
-            [r["kind"].replace("_", " "), r["device_id"], str(r["n"])] for _, r in g.iterrows()]
-        out.append(_table(srows, [5 * cm, 4 * cm, 2 * cm], st=st))
+        f = sensor.assign(s=pd.to_datetime(sensor["start_utc"], utc=True),
+                          e=pd.to_datetime(sensor["end_utc"], utc=True))
+        f["h"] = (f["e"] - f["s"]).dt.total_seconds() / 3600
+        g = f.groupby(["kind", "device_id"]).agg(n=("kind", "size"), first=("s", "min"),
+                                                 last=("e", "max"), h=("h", "sum")).reset_index()
+        srows = [["Fault", "Sensor / device", "Flags", "First starts (UTC)", "Last ends (UTC)",
+                  "Hours flagged"]] + [
+            [r["kind"].replace("_", " "), r["device_id"], str(r["n"]),
+             r["first"].strftime("%Y-%m-%d %H:%M") if pd.notna(r["first"]) else "",
+             r["last"].strftime("%Y-%m-%d %H:%M") if pd.notna(r["last"]) else "",
+             f"{r['h']:.1f}" if pd.notna(r["h"]) else ""] for _, r in g.iterrows()]
+        out.append(_table(srows, [3.4 * cm, 2.6 * cm, 1.2 * cm, 3.2 * cm, 3.2 * cm, 2.2 * cm],
+                          st=st))
+        out.append(Paragraph("Every flag with its details is in data/flags.csv.", st["small"]))
     out.append(Paragraph(
         "Intervals with a missing, out-of-range or stuck reading are excluded by the interval "
         "checks above (they lower the day's coverage). A drifting irradiance sensor cannot be "
