@@ -329,3 +329,43 @@ def test_packed_results_follow_the_results_schema(pack):
         schema, format_checker=jsonschema.Draft202012Validator.FORMAT_CHECKER)
     doc = json.loads((pack["dir"] / "data" / "results.json").read_text())
     assert [f"{list(e.path)}: {e.message}" for e in validator.iter_errors(doc)] == []
+
+
+def test_planes_and_arrays_of_the_configuration_are_tabled():
+    """The site model of issue #11 ([[planes]], [[inverters.arrays]]) reaches the report's
+    system section as configured (only the chosen inverters' arrays)."""
+    import tomllib
+
+    from heliaudit.evidence_pdf import _arrays, _plain_rows
+
+    cfg = tomllib.loads("""
+[[planes]]
+id = "roof30"
+tilt_deg = 30.0
+azimuth_deg = 180.0
+[[planes]]
+id = "trk"
+kind = "single_axis"
+max_angle_deg = 55.0
+[[inverters]]
+id = "D1"
+[[inverters.arrays]]
+id = "mppt1"
+p_dc_kwp = 6.0
+plane = "roof30"
+[[inverters.arrays]]
+id = "mppt2"
+p_dc_kwp = 4.0
+plane = "shed10"
+[[inverters]]
+id = "D2"
+[[inverters.arrays]]
+id = "x"
+p_dc_kwp = 1.0
+""")
+    assert _plain_rows(cfg["planes"]) == [
+        ["id", "tilt_deg", "azimuth_deg", "kind", "max_angle_deg"],
+        ["roof30", "30.0", "180.0", "", ""], ["trk", "", "", "single_axis", "55.0"]]
+    assert _arrays(cfg, {"D1"}) == [["Inverter", "id", "p_dc_kwp", "plane"],
+                                    ["D1", "mppt1", "6.0", "roof30"],
+                                    ["D1", "mppt2", "4.0", "shed10"]]
