@@ -13,7 +13,8 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 3  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10)
+SCHEMA_VERSION = 4  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+#                    4: reading.interval_s, channel.sampling/input_id (#11)
 
 metadata = sa.MetaData()
 
@@ -79,7 +80,12 @@ channel = sa.Table(
     sa.Column("channel_id", sa.Integer, primary_key=True, autoincrement=True),
     sa.Column("device_pk", sa.Integer, sa.ForeignKey("device.device_pk"), nullable=False),
     sa.Column("quantity", sa.String(32), nullable=False),  # p_ac_kw, poa_wm2, ... (stored unit)
-    sa.UniqueConstraint("device_pk", "quantity", name="uq_channel_device_quantity"),
+    # v4: "mean" (the value is the mean over its interval) or "instant" (a sample taken at the
+    # timestamp; such readings are keyed by the sample's own time, see db.timeseries)
+    sa.Column("sampling", sa.String(8), nullable=False, server_default="mean"),
+    # v4: an inverter's MPPT input / string group ("" = the whole device)
+    sa.Column("input_id", sa.String(64), nullable=False, server_default=""),
+    sa.UniqueConstraint("device_pk", "quantity", "input_id", name="uq_channel_device_quantity_input"),
 )
 
 # ---------------------------------------------------------------- readings
@@ -89,6 +95,9 @@ reading = sa.Table(
     sa.Column("ts_s", sa.BigInteger().with_variant(sa.Integer, "sqlite"), primary_key=True),
     sa.Column("value", sa.Float, nullable=False),
     sa.Column("batch_id", sa.Integer, nullable=False),  # the ingest batch that last wrote it
+    # v4: the reading's interval length [s] as recorded at ingest (NULL: loaded before v4,
+    # the reader then infers it from the spacing of neighbouring readings)
+    sa.Column("interval_s", sa.Integer),
     sqlite_with_rowid=False,
 )
 
@@ -211,4 +220,15 @@ degradation_result = sa.Table(
     sa.Column("reason", sa.Text),  # why not computed, when rate is None
     sa.Column("details_json", sa.Text),
     sa.Column("computation_id", sa.Integer, sa.ForeignKey("computation.computation_id")),
+)
+
+# ---------------------------------------------------------------- compute workers (#16)
+#: One row per site, created on demand: a worker computing a site holds this row locked
+#: (PostgreSQL ``SELECT … FOR UPDATE SKIP LOCKED``) for the whole computation, so two workers
+#: never compute the same site at once and a killed worker's lock ends with its connection.
+compute_claim = sa.Table(
+    "compute_claim", metadata,
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), primary_key=True),
+    sa.Column("worker", sa.String(128)),  # the last worker that finished the site
+    sa.Column("finished_utc", sa.String(32)),
 )

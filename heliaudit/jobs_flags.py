@@ -14,7 +14,10 @@ What runs where:
 * each sensor channel -> range, flatline, dropout, night irradiance (POA/GHI), clock shift
   and clear-sky drift (POA), sibling drift (pairs of POA sensors).
 
-Solar position and clear-sky POA are computed once for the site's timestamp grid.
+Solar position and clear-sky POA are computed once per timestamp and interval length, at each
+reading's own interval midpoint (the interval recorded at ingest, #11): every sample gets a sun
+position however the logging interval changes. A device's expected timestamps (for dropouts)
+step by its own intervals from the site's first to last reading (``db.timeseries.fill_gaps``).
 """
 
 from __future__ import annotations
@@ -29,7 +32,7 @@ import pvlib
 import sqlalchemy as sa
 
 import heliaudit
-from analytics import clock, outages, outliers, sensor_qa, soiling
+from analytics import clock, energy_check, outages, outliers, sensor_qa, soiling
 from analytics.availability import stopped_reporting_flags
 from analytics.daily import standard_utc_offset_h
 from analytics.outliers import FLAG_COLUMNS, epoch_s, flag_frame
@@ -45,7 +48,15 @@ from db.computations import begin_computation, finish_computation
 from db.daily import daily_table
 from db.flags import write_flags
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
-from db.timeseries import inverter_frames, read_channel, site_channels
+from db.timeseries import (
+    fill_gaps,
+    fill_unknown_intervals,
+    instant_channels,
+    inverter_frames,
+    read_channel,
+    site_channels,
+)
+from ingest.counters import counter_resolution
 
 Progress = Callable[[int, int], None]  # progress(done, total), in devices
 
@@ -86,6 +97,8 @@ PARAMS = {
     "clock": {"threshold_min": 10.0, "n_clear": 7, "clear_day_max_vi": 1.3,
               "agreement": "shift on >= 2 devices (levels within 15 min), or the only device",
               "geometry": "clear-sky POA on each array's own plane"},
+    "counter_mismatch": {"period": "local month", "rel_tol": energy_check.REL_TOL,
+                         "resolution_units": energy_check.RESOLUTION_UNITS},
     "temperature": "cell from back-of-module (King et al. 2004 Eq. 12), from ambient "
                    "(Eq. 11-12) where the module sensor is missing",
     "power_model": "PVWatts V5 (Dobos 2014) via analytics.power.expected_ac_power",
@@ -163,8 +176,12 @@ def _expected_power(frame: pd.DataFrame, inv: dict) -> pd.Series:
     return pd.Series(np.asarray(p, dtype=float), index=frame.index)
 
 
-def _tau_s(index: pd.DatetimeIndex) -> int:
-    ts = epoch_s(index[:5000])  # the logging interval: median spacing of the first rows
+def _tau_s(index: pd.DatetimeIndex, interval_s=None) -> int:
+    """A typical logging interval [s] for durations (median of the recorded intervals, else
+    of the spacing of all rows)."""
+    if interval_s is not None and np.isfinite(np.asarray(interval_s, dtype=float)).any():
+        return int(round(float(np.nanmedian(np.asarray(interval_s, dtype=float)))))
+    ts = epoch_s(index)
     return int(np.median(np.diff(ts))) if ts.size > 1 else 900
 
 
@@ -216,7 +233,7 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
         return []
     p_max = float(inv["p_ac_max_kw"])
     s = sun.reindex(frame.index)
-    tau_s = _tau_s(frame.index)
+    tau_s = _tau_s(frame.index, frame["interval_h"].to_numpy(float) * 3600.0)
     exp = _expected_power(frame, inv)
     o = PARAMS["outage"]
     out = [outages.outage_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
@@ -303,7 +320,8 @@ def unclipped_daily_pi(frame: pd.DataFrame, exp: pd.Series, p_max: float, limite
 def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) -> pd.DataFrame:
     """Missing inverter power while the sun is well up (information unavailable); night
     and a sleeping inverter at low sun are not dropouts."""
-    tau_s = _tau_s(grid_sun.index)
+    tau_s = _tau_s(grid_sun.index, frame["interval_h"].to_numpy(float) * 3600.0
+                   if "interval_h" in frame else None)
     p = frame["p_ac_kw"] if len(frame) else pd.Series(dtype=float)
     day = grid_sun["elev"] >= PARAMS["outage"]["min_elevation_deg"]
     fl = sensor_qa.dropout_flags(p, day, device_id=inv["device_id"], quantity="p_ac_kw",
@@ -316,12 +334,14 @@ def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) 
 def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataFrame, *,
                  std_offset_s: int, site_zone: str,
                  source: tuple[str, str] | None = None,
-                 x_valid: pd.Series | None = None) -> tuple[list[pd.DataFrame], pd.Series | None]:
+                 x_valid: pd.Series | None = None,
+                 interval_s: np.ndarray | None = None) -> tuple[list[pd.DataFrame], pd.Series | None]:
     """QA flags of one sensor; also returns its daily clear-sky ratio (POA) for sibling checks.
 
     Range, flatline, dropout and night checks run on the raw readings ``x``; the clock and
-    drift diagnoses only on ``x_valid`` (the readings of days judged plausible)."""
-    tau_s = _tau_s(grid_sun.index)
+    drift diagnoses only on ``x_valid`` (the readings of days judged plausible).
+    ``interval_s``: each reading's interval as recorded at ingest (None: from the spacing)."""
+    tau_s = _tau_s(x.index, interval_s)
     s = grid_sun.reindex(x.index)
     xv = x if x_valid is None else x_valid
     day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
@@ -340,7 +360,8 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
         out.append(sensor_qa.night_irradiance_flags(x, s["elev"].to_numpy(), device_id=sensor_id,
                                                     quantity=quantity, tau_s=tau_s))
     if quantity == "poa_wm2" and xv.notna().any():
-        tau_h = np.full(len(xv), tau_s / 3600.0)
+        tau_h = (np.asarray(interval_s, dtype=float) / 3600.0 if interval_s is not None
+                 else np.full(len(x), tau_s / 3600.0))
         clear = clock.clear_day_mask(xv, s["poa_cs"], std_offset_s=std_offset_s,
                                      ratio_range=(0.7, 1.3))
         off = clock.clock_offsets(xv, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
@@ -460,7 +481,7 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
     ``flags`` the 'sensor_implausible' flags (faulty periods with their reason and the
     calculations they are excluded from, and an ambient-sensor offset).
     """
-    by_id = {sid: (q, x.sort_index()) for sid, q, x in sensors}
+    by_id = {e[0]: (e[1], e[2].sort_index()) for e in sensors}
     yields = _yield_by_sensor(daily, inverters)
     invalid: dict = {}
     flags: list[pd.DataFrame] = []
@@ -722,9 +743,27 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
     return pd.concat(out, ignore_index=True)
 
 
+def counter_flags(inv: dict, frame: pd.DataFrame, counter, *, std_offset_s: int) -> pd.DataFrame:
+    """Monthly cross-check of an inverter's energy counter against its integrated AC power
+    (:mod:`analytics.energy_check`); ``counter`` is ``(ts_s, reading_kwh, interval_s)``."""
+    ts, v, iv = counter
+    if frame.empty or not len(ts) or not frame["p_ac_kw"].notna().any():
+        return flag_frame([])
+    res = counter_resolution(np.diff(v)) or 0.0
+    c_day = energy_check.counter_daily_energy(np.asarray(ts) + np.asarray(iv).astype(np.int64),
+                                              v, std_offset_s=std_offset_s)
+    p_day = energy_check.power_daily_energy(epoch_s(frame.index), frame["p_ac_kw"].to_numpy(float),
+                                            frame["interval_h"].to_numpy(float),
+                                            std_offset_s=std_offset_s)
+    check = energy_check.monthly_crosscheck(c_day, p_day, resolution_kwh=res)
+    return energy_check.counter_mismatch_flags(check, device_id=inv["device_id"],
+                                               std_offset_s=std_offset_s, resolution_kwh=res)
+
+
 def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: pd.DataFrame, *,
                   economics: dict | None = None, sources: dict | None = None,
-                  progress: Progress | None = None, n_runs: int = 1000) -> pd.DataFrame:
+                  progress: Progress | None = None, n_runs: int = 1000,
+                  counters: dict | None = None) -> pd.DataFrame:
     """Every flag of a site from data in memory.
 
     Order (issue #14): judge every sensor first (faulty days are masked for everything that
@@ -744,10 +783,14 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         ``tilt_deg``/``azimuth_deg``).
     frames : iterable of (inverter row dict, interval frame)
         As :func:`db.timeseries.inverter_frames` yields them.
-    sensors : list of (sensor_id, quantity, Series)
-        Each sensor channel on its own timestamps (index ``ts_utc``).
+    sensors : list of (sensor_id, quantity, Series) or (sensor_id, quantity, Series, interval_s)
+        Each sensor channel on its own timestamps (index ``ts_utc``), optionally with each
+        reading's interval [s] as recorded at ingest (else inferred from the spacing).
     daily : DataFrame
         The daily table (:func:`db.daily.daily_table`).
+    counters : dict, optional
+        ``{inverter id: (ts_s, counter_kwh, interval_s)}``: energy-counter readings, checked
+        month by month against integrated AC power (:func:`counter_flags`).
 
     Returns
     -------
@@ -757,57 +800,80 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     sources = sources or {}
     off_s = int(round(standard_utc_offset_h(site["timezone"]) * 3600))
     zone = site["timezone"]
-    sensors = [(sid, q, x.sort_index()) for sid, q, x in sensors]
+    sensors = list(sensors)
     frames = iter(frames)
     n_total = len(inverters) + len(sensors)
     done = 0
     parts: list[pd.DataFrame] = []
-    grid_cache: dict[tuple, pd.DataFrame] = {}
+    sun_cache: dict[tuple, pd.DataFrame] = {}  # (interval [s], plane) -> sun at those starts
     cs_cache: dict[tuple, pd.Series] = {}
 
-    def grid_sun(index, plane=None):
-        ts = epoch_s(index)
-        if ts.size == 0:
-            return pd.DataFrame({"elev": [], "aoi": [], "poa_cs": []},
-                                index=pd.DatetimeIndex([], tz="UTC"))
-        step = _tau_s(index)
-        key = (int(ts[0]), int(ts[-1]), step, plane)
-        # share one grid across devices: reuse a cached grid that covers this span
-        for (a, b, st, pl), g in grid_cache.items():
-            if st == step and pl == plane and a <= key[0] and key[1] <= b \
-                    and (key[0] - a) % step == 0:
-                return g.loc[index[0]:index[-1]]
-        g = site_sun(regular_grid(key[0], key[1], step), site, step / 3600.0, plane)
-        grid_cache[key] = g
-        return g
+    def sun_at(index: pd.DatetimeIndex, interval_s, plane=None) -> pd.DataFrame:
+        """Sun at each row's own interval midpoint, on the site's plane or ``plane``;
+        computed once per (timestamp, interval, plane)."""
+        cols = ["elev", "aoi", "poa_cs"]
+        out = pd.DataFrame(np.full((len(index), 3), np.nan), index=index, columns=cols)
+        if len(index) == 0:
+            return out
+        if interval_s is None:
+            interval_s = np.full(len(index), float(_tau_s(index)))
+        iv = np.round(np.asarray(interval_s, dtype=float)).astype(np.int64)
+        for u in np.unique(iv):
+            m = iv == u
+            idx = index[m] if not m.all() else index
+            have = sun_cache.get((int(u), plane))
+            missing = idx if have is None else idx.difference(have.index)
+            if len(missing):
+                new = site_sun(missing, site, u / 3600.0, plane)
+                have = new if have is None else pd.concat([have, new]).sort_index()
+                sun_cache[(int(u), plane)] = have
+            vals = have.reindex(idx)[cols].to_numpy() if not (
+                len(have) == len(idx) and have.index.equals(idx)) else have[cols].to_numpy()
+            out.iloc[np.flatnonzero(m)] = vals
+        return out
 
-    # span of the site's data: sensors and inverters share one solar-geometry grid
-    spans = [(epoch_s(x.index)[[0, -1]], _tau_s(x.index)) for _s, _q, x in sensors if len(x) > 1]
-    if spans:
-        step = int(np.median([st for _sp, st in spans]))
-        lo = min(int(sp[0]) for sp, _st in spans)
-        hi = max(int(sp[1]) for sp, _st in spans)
-        grid_sun(regular_grid(lo, hi, step))
+    def expected_grid(x: pd.Series, iv: np.ndarray) -> tuple[pd.DatetimeIndex, np.ndarray]:
+        """The device's expected timestamps: its readings, the intervals missing between them
+        and out to the site's span, stepping by each neighbouring reading's interval."""
+        ts, step = fill_gaps(epoch_s(x.index), iv, span[0], span[1])
+        return pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc"), step
+
+    def sensor_intervals(entry) -> np.ndarray:
+        x = entry[2]
+        given = entry[3] if len(entry) > 3 and entry[3] is not None else np.full(len(x), np.nan)
+        return fill_unknown_intervals(epoch_s(x.sort_index().index), given)
+
+    # span of the site's sensor data: each sensor's dropouts are judged over it
+    spans = [(int(epoch_s(e[2].index).min()), int(epoch_s(e[2].index).max()
+                                                   + sensor_intervals(e)[-1]))
+             for e in sensors if len(e[2]) > 1]
+    span = (min(a for a, _b in spans), max(b for _a, b in spans)) if spans else (None, None)
     # 1. plausibility of every sensor, before any diagnosis
-    invalid_days, judged = judge_sensors(sensors, grid_sun, inverters, daily,
-                                         std_offset_s=off_s)
+    invalid_days, judged = judge_sensors(sensors, lambda idx: sun_at(idx, None), inverters,
+                                         daily, std_offset_s=off_s)
     parts += judged
     last_seen: dict[str, int] = {}
     kinds: dict[str, str] = {}
     ratios: dict[str, pd.Series] = {}
     rain_parts: list[pd.Series] = []
     n_clock = 0
-    for sid, q, x in sensors:
-        gs = grid_sun(x.index) if len(x) else pd.DataFrame(columns=["elev", "aoi", "poa_cs"])
+    for entry in sensors:
+        sid, q, x = entry[:3]
+        iv = sensor_intervals(entry)
+        if not x.index.is_monotonic_increasing:
+            order = np.argsort(epoch_s(x.index), kind="stable")
+            x = x.iloc[order]
         xn = x.dropna()
         if len(xn):
             last_seen[sid], kinds[sid] = int(epoch_s(xn.index[-1:])[0]), q
-        if len(x) and len(gs):
+        if len(x):
+            g_idx, g_iv = expected_grid(x, iv)
+            gs = sun_at(g_idx, g_iv)
             days = invalid_days.get(sid)
             xv = x if days is None else x.mask(sensor_qa.invalid_interval_mask(
                 x.index, days, std_offset_s=off_s))
             fl, ratio = sensor_flags(sid, q, x, gs, std_offset_s=off_s, site_zone=zone,
-                                     source=sources.get(sid), x_valid=xv)
+                                     source=sources.get(sid), x_valid=xv, interval_s=iv)
             parts += fl
             n_clock += q == "poa_wm2"
             if ratio is not None and len(ratio):
@@ -832,14 +898,19 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
             if len(pn):
                 last_seen[inv["device_id"]] = int(epoch_s(pn.index[-1:])[0])
                 kinds[inv["device_id"]] = "inverter"
+            iv_s = frame["interval_h"].to_numpy(float) * 3600.0
+            gs = sun_at(frame.index, iv_s)
             plane = inverter_plane(inv, site)
-            gs = grid_sun(frame.index, plane)
+            gp = gs if plane is None else sun_at(frame.index, iv_s, plane)
             fr = mask_invalid_sensor_days(frame, inv, invalid_days, off_s)
-            parts += inverter_flags(inv, fr, gs, std_offset_s=off_s, site_zone=zone,
+            parts += inverter_flags(inv, fr, gp, std_offset_s=off_s, site_zone=zone,
                                     source=sources.get(inv["device_id"]), cache=cs_cache,
                                     withheld=withheld, soiling_pi=soiling_pi)
-            parts.append(power_dropout_flags(inv, frame, grid_sun(frame.index)))
+            parts.append(power_dropout_flags(inv, frame, gs))
             n_clock += 1
+            if counters and inv["device_id"] in counters:
+                parts.append(counter_flags(inv, frame, counters[inv["device_id"]],
+                                           std_offset_s=off_s))
         done += 1
         if progress:
             progress(done, n_total)
@@ -962,18 +1033,30 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
     daily = daily_table(engine, site_id)
     sensors = []
     with engine.connect() as conn:
+        inst = instant_channels(conn, site_id)
         for sid, q in sensor_rows:
             ch = channels.get((sid, q))
             if ch is None:
                 continue
-            ts, v = read_channel(conn, ch)
+            ts, v, iv = read_channel(conn, ch, with_interval=True)
+            iv = fill_unknown_intervals(ts, iv)
+            if ch in inst:  # samples: QA runs on the samples, durations by their spacing
+                iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
             idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
-            sensors.append((sid, q, pd.Series(v, index=idx, name=q)))
+            sensors.append((sid, q, pd.Series(v, index=idx, name=q), iv))
+    counters = {}
+    with engine.connect() as conn:
+        for dev in inverters["device_id"]:
+            ch = channels.get((dev, "e_ac_total_kwh"))
+            if ch is not None:
+                ts, v, iv = read_channel(conn, ch, with_interval=True)
+                if ts.size:
+                    counters[dev] = (ts, v, fill_unknown_intervals(ts, iv))
     arrays = _arrays_by_inverter(cfg)
     flags = compute_flags(site, _with_planes(inverters, arrays),
                           inverter_frames(engine, site_id), sensors, daily,
                           economics=economics, sources=_sources_by_device(cfg),
-                          progress=progress)
+                          progress=progress, counters=counters)
     off_s = int(round(standard_utc_offset_h(site["timezone"]) * 3600))
     mism, _note = input_mismatch_for_site(engine, site_id, arrays, off_s)
     mism = [m for m in mism if len(m)]

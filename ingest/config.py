@@ -25,6 +25,8 @@ FORMAT_VERSION = 1
 QUANTITY_UNITS: dict[str, tuple[str, ...]] = {
     "p_ac_kw": ("kW", "W", "MW"),
     "p_dc_kw": ("kW", "W", "MW"),
+    "i_dc_a": ("A", "mA"),  # DC current of an inverter input (with v_dc_v: DC power = I V)
+    "v_dc_v": ("V", "kV"),  # DC voltage of an inverter input
     "e_ac_kwh": ("kWh", "Wh", "MWh"),  # energy of the interval
     "e_ac_total_kwh": ("kWh", "Wh", "MWh"),  # cumulative counter, turned into e_ac_kwh
     "poa_wm2": ("W/m2", "kW/m2"),
@@ -34,7 +36,15 @@ QUANTITY_UNITS: dict[str, tuple[str, ...]] = {
     "wind_ms": ("m/s", "km/h"),
     "rain_mm": ("mm",),
 }
-INVERTER_QUANTITIES = ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh")
+INVERTER_QUANTITIES = ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh", "i_dc_a", "v_dc_v")
+#: Quantities an inverter input (MPPT / string group, ``input = "<id>"``) may carry.
+INPUT_QUANTITIES = ("p_dc_kw", "i_dc_a", "v_dc_v")
+#: How a column's value relates to its timestamp: "mean" over the interval (the default) or
+#: "instant", a sample taken at the timestamp (see README "Ingest rules").
+SAMPLINGS = ("mean", "instant")
+#: Quantities that may be declared instantaneous samples (not energies: an energy is a sum).
+SAMPLED_QUANTITIES = ("p_ac_kw", "p_dc_kw", "i_dc_a", "v_dc_v", "poa_wm2", "ghi_wm2",
+                      "t_module_c", "t_amb_c", "wind_ms")
 SENSOR_QUANTITIES = ("poa_wm2", "ghi_wm2", "t_module_c", "t_amb_c", "wind_ms", "rain_mm")
 INSTRUMENTS = ("thermopile_pyranometer", "reference_cell")
 #: Sandia (King et al. 2004) mounting types; keys of pvlib TEMPERATURE_MODEL_PARAMETERS['sapm'].
@@ -53,6 +63,7 @@ _UNIT_ALIASES = {
     "°c": "C", "degc": "C", "c": "C", "°f": "F", "degf": "F", "f": "F", "k": "K",
     "w": "W", "kw": "kW", "mw": "MW", "wh": "Wh", "kwh": "kWh", "mwh": "MWh",
     "m/s": "m/s", "km/h": "km/h", "mm": "mm",
+    "a": "A", "ma": "mA", "v": "V", "kv": "kV",
 }
 
 
@@ -103,6 +114,8 @@ class ColumnMap:
     device: str
     quantity: str
     unit: str
+    sampling: str = "mean"  # "mean" over the interval, or "instant" (a sample at the timestamp)
+    input: str = ""  # an inverter input (MPPT / string group) id; "" = the whole inverter
 
 
 @dataclass(frozen=True)
@@ -128,6 +141,15 @@ class ClockCorrection:
     end: dt.datetime
     shift_minutes: int
     note: str = ""
+    devices: tuple[str, ...] = ()  # only these devices' columns (empty: every column)
+    columns: tuple[str, ...] = ()  # only these column headers (wide layout)
+
+    @property
+    def everywhere(self) -> bool:
+        return not self.devices and not self.columns
+
+    def applies_to(self, device: str, header: str) -> bool:
+        return self.everywhere or device in self.devices or header in self.columns
 
 
 @dataclass(frozen=True)
@@ -326,6 +348,12 @@ register(
     header=Key("str", required=True, max_len=200), device=Key("id"),
     quantity=Key("str", required=True, choices=tuple(QUANTITY_UNITS)), unit=Key("str", max_len=16),
 )
+register(  # #11: how a value relates to its timestamp; an inverter input (MPPT / string group)
+    "sources[].columns[]",
+    sampling=Key("str", default="mean", choices=SAMPLINGS,
+                 doc="mean over the interval, or instant: a point sample at the timestamp"),
+    input=Key("id", doc="the inverter input's id (its array / input id in the inverter's arrays)"),
+)
 register(
     "sources[].long",
     device_column=Key("str", default="device", max_len=200),
@@ -342,6 +370,8 @@ register(
     "sources[].clock_corrections[]",
     start=Key("datetime", required=True), end=Key("datetime", required=True),
     shift_minutes=Key("int", required=True, lo=-1440, hi=1440), note=Key("str", default="", max_len=2000),
+    devices=Key("list", items="id", doc="only these devices' columns (#11)"),
+    columns=Key("list", items="str", doc="only these column headers (#11)"),
 )
 register(
     "economics",
@@ -359,6 +389,8 @@ register(
 #: logger data before 1990 is not expected (common practice); the latest date defaults to
 #: one day after the ingest runs (a logger clock may run a little ahead).
 EARLIEST_DEFAULT = dt.date(1990, 1, 1)
+#: Dates a configuration may name at all (inside what the nanosecond time axis can hold).
+DATE_MIN, DATE_MAX = dt.date(1900, 1, 1), dt.date(2200, 12, 31)
 
 
 def _filter_keys() -> dict[str, Key]:
@@ -379,6 +411,14 @@ def closest(name: str, options) -> str | None:
 
 
 # ---------------------------------------------------------------- loading
+
+
+def _input_ids(inv: Inverter) -> set[str] | None:
+    """The input (array) ids an inverter declares, or None when it declares fewer than two
+    (one array is the whole inverter: any input id a column names is then accepted)."""
+    arrays = getattr(inv, "arrays", None) or ()
+    ids = {str(a.id) for a in arrays if getattr(a, "id", None) is not None}
+    return ids if len(ids) > 1 else None
 
 
 def load_site_config(path: str | Path) -> SiteConfig:
@@ -748,6 +788,10 @@ class _Validator:
                     fmt = None
             earliest = self.val(ts, tkey, "earliest")
             latest = self.val(ts, tkey, "latest")
+            for nm, d in (("earliest", earliest), ("latest", latest)):
+                if d is not None and not (DATE_MIN <= d <= DATE_MAX):
+                    self.bad(f"{tkey}.{nm}", f"must be between {DATE_MIN} and {DATE_MAX}, got {d}")
+                    earliest, latest = (None, latest) if nm == "earliest" else (earliest, None)
             if earliest and latest and latest < earliest:
                 self.bad(f"{tkey}.latest", f"is before earliest ({earliest})")
             tspec = TimestampSpec(
@@ -817,11 +861,29 @@ class _Validator:
                               else dt.datetime.combine(x, dt.time()) for x in (start, end))
                 if isinstance(end, dt.datetime) and not isinstance(c.get("end"), dt.datetime):
                     end = end + dt.timedelta(days=1, seconds=-1)  # a date means the whole day
+                for nm, d in (("start", start), ("end", end)):
+                    if d is not None and not (DATE_MIN <= d.date() <= DATE_MAX):
+                        self.bad(f"{ckey}.{nm}", f"must be between {DATE_MIN} and {DATE_MAX}, got {d}")
+                        start = end = None
                 if start and end and end < start:
                     self.bad(ckey, "end is before start")
+                devs = list(self.val(c, ckey, "devices") or ())
+                for d in devs:
+                    if d not in device_ids:
+                        self.bad(f"{ckey}.devices", f"no inverter or sensor with id {d!r}")
+                cols = list(self.val(c, ckey, "columns") or ())
+                headers = {cm.header for cm in columns}
+                for h in cols:
+                    if layout == "wide" and h not in headers:
+                        self.bad(f"{ckey}.columns", f"no column with header {h!r} in this "
+                                 "source's [[sources.columns]]")
+                if cols and layout == "long":
+                    self.bad(f"{ckey}.columns", "a long-layout source has no per-device columns: "
+                             "name the devices with `devices = [...]`")
                 if start and end and shift is not None:
                     corrections.append(ClockCorrection(start, end, shift,
-                                                       self.val(c, ckey, "note") or ""))
+                                                       self.val(c, ckey, "note") or "",
+                                                       devices=tuple(devs), columns=tuple(cols)))
             name = self.val(s, key, "name") or f"source{n}"
             if name in names:
                 self.bad(f"{key}.name", f"duplicate source name {name!r}")
@@ -852,6 +914,8 @@ class _Validator:
         header = self.val(c, key, "header")
         q = self.val(c, key, "quantity")
         unit = normalise_unit(self.val(c, key, "unit") or (QUANTITY_UNITS[q][0] if q else ""))
+        sampling = self.val(c, key, "sampling") or "mean"
+        inp = self.val(c, key, "input") or ""
         if header is None or q is None:
             return []
         if not header.strip():
@@ -859,10 +923,26 @@ class _Validator:
             return []
         if unit not in QUANTITY_UNITS[q]:
             self.bad(f"{key}.unit", f"unit {unit!r} is not one of {', '.join(QUANTITY_UNITS[q])} for {q}")
+        if sampling == "instant" and q not in SAMPLED_QUANTITIES:
+            self.bad(f"{key}.sampling", f"{q} cannot be an instantaneous sample (only "
+                     f"{', '.join(SAMPLED_QUANTITIES)}): an energy or counter is a sum")
+        if inp:
+            if q not in INPUT_QUANTITIES:
+                self.bad(f"{key}.input", f"an inverter input carries {', '.join(INPUT_QUANTITIES)}; "
+                         f"got {q}")
+            if not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", inp):
+                self.bad(f"{key}.input", "use letters, digits, '-', '_' or '.', at most 64 characters")
+        elif q in ("i_dc_a", "v_dc_v"):
+            self.bad(f"{key}.input", f"{q} is loaded per inverter input: name it with "
+                     "input = \"<input id>\"")
         if "{inverter}" in header:
-            return [ColumnMap(header.replace("{inverter}", i.id), i.id, q, unit) for i in inverters]
+            if inp:
+                self.bad(f"{key}.input", "an input column names its device: use device = ... "
+                         "rather than {inverter} in the header")
+            return [ColumnMap(header.replace("{inverter}", i.id), i.id, q, unit, sampling)
+                    for i in inverters]
         if "{sensor}" in header:
-            return [ColumnMap(header.replace("{sensor}", s.id), s.id, q, unit)
+            return [ColumnMap(header.replace("{sensor}", s.id), s.id, q, unit, sampling)
                     for s in sensors if s.quantity == q]
         dev = self.check(c, key, "device", Key("id", required=True))
         if dev is None:
@@ -879,7 +959,14 @@ class _Validator:
             sq = next(s.quantity for s in sensors if s.id == dev)
             if q != sq:
                 self.bad(f"{key}.quantity", f"sensor {dev!r} is configured as {sq}, column says {q}")
-        return [ColumnMap(header, dev, q, unit)]
+            if inp:
+                self.bad(f"{key}.input", f"{dev!r} is a sensor; inputs belong to inverters")
+        elif inp:
+            known = _input_ids(next(i for i in inverters if i.id == dev))
+            if known is not None and inp not in known:
+                self.bad(f"{key}.input", f"inverter {dev!r} has no input {inp!r}; its arrays "
+                         f"are {', '.join(sorted(known)) or '(none)'}")
+        return [ColumnMap(header, dev, q, unit, sampling, inp)]
 
 
 def _or(val: Any, default: Any) -> Any:
