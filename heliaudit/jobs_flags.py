@@ -345,8 +345,12 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     s = grid_sun.reindex(x.index)
     xv = x if x_valid is None else x_valid
     day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
-    out = [sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id,
-                                   quantity=quantity, tau_s=tau_s)]
+    drop = sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id, quantity=quantity,
+                                   tau_s=tau_s)
+    # a gap of hours is data unavailable; a sensor silent for a day or more is a sensor
+    # problem (severity 'warning' from 24 h in dropout_flags)
+    drop.loc[drop["severity"] == "info", "kind"] = "data_dropout"
+    out = [drop]
     if x.empty:
         return out, None
     if quantity in sensor_qa.RANGES:
