@@ -376,6 +376,8 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
             export_zone=source[1] if source else "local"))
         ratio = sensor_qa.clear_period_ratio(xv, s["poa_cs"], s["aoi"].to_numpy(), clear,
                                              std_offset_s=std_offset_s)
+        out.append(sensor_qa.clear_sky_level_flags(ratio, device_id=sensor_id,
+                                                   std_offset_s=std_offset_s))
         out.append(sensor_qa.drift_flags(ratio, device_id=sensor_id, method="clearsky",
                                          std_offset_s=std_offset_s,
                                          extra={"reference": "pvlib Ineichen clear-sky POA"}))

@@ -218,3 +218,19 @@ def test_sibling_drift_is_not_a_jump():
     ra = pd.Series(0.97 * (1 - 0.015 * t) + 0.002 * rng.standard_normal(1826), index=days)
     rb = pd.Series(0.97 + 0.002 * rng.standard_normal(1826), index=days)
     assert sibling_jump_flags({"A": ra, "B": rb}).empty
+
+
+@pytest.mark.parametrize("level,found", [(1.19, False), (1.21, True), (0.79, True),
+                                         (0.81, False)])
+def test_off_clear_sky_boundary(level, found):
+    # documented: the 15-clear-day median of measured / clear-sky POA outside [0.8, 1.2]
+    # for >= 10 clear days (clear-sky models carry 5–10 % bias, METHODS §10)
+    from analytics.sensor_qa import clear_sky_level_flags
+
+    days = pd.date_range("2024-05-01", periods=40, freq="D")
+    r = pd.Series(level, index=days)
+    fl = clear_sky_level_flags(r, device_id="rc1")
+    assert (len(fl) == 1) == found
+    if found:
+        assert fl.iloc[0]["details"]["reason"] == "off_clear_sky"
+        assert fl.iloc[0]["details"]["median_clear_day_ratio"] == pytest.approx(level)
