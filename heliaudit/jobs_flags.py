@@ -347,9 +347,10 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
     drop = sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id, quantity=quantity,
                                    tau_s=tau_s)
-    # a gap of hours is data unavailable; a sensor silent for a day or more is a sensor
-    # problem (severity 'warning' from 24 h in dropout_flags)
-    drop.loc[drop["severity"] == "info", "kind"] = "data_dropout"
+    # a gap of hours (or a day and a half) is data unavailable; a sensor silent for 24 or
+    # more daylight hours (two days and more) is a sensor problem (common practice)
+    short = [d["missing_daytime_hours"] < 24.0 for d in drop["details"]]
+    drop.loc[np.asarray(short, dtype=bool), "kind"] = "data_dropout"
     out = [drop]
     if x.empty:
         return out, None
