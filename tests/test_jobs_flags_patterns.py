@@ -261,3 +261,21 @@ def test_input_mismatch_wired_to_the_per_input_query(monkeypatch):
     inv = _with_planes(pd.DataFrame({"device_id": ["inv1", "inv2"]}), arrays)
     assert inv["tilt_deg"].iloc[0] == 30 and inv["azimuth_deg"].iloc[0] == 180
     assert inv[["tilt_deg", "azimuth_deg"]].iloc[1].isna().all()  # no arrays: site plane
+
+
+@pytest.mark.parametrize("n_missing,kind", [(95, "data_dropout"), (96, "sensor_dropout"),
+                                            (97, "sensor_dropout")])
+def test_sensor_gap_24_daylight_hours_boundary(n_missing, kind):
+    # documented: a sensor gap of >= 24 missing daylight hours is a sensor_dropout, shorter
+    # gaps are data_dropout (grid all daylight here: 96 x 15 min = 24 h)
+    from heliaudit.jobs_flags import sensor_flags
+
+    idx = pd.date_range("2024-06-01", periods=960, freq="15min", tz="UTC", name="ts_utc")
+    grid = pd.DataFrame({"elev": 40.0, "aoi": 20.0, "poa_cs": 800.0}, index=idx)
+    x = pd.Series(20.0 + np.sin(np.arange(960) / 5.0), index=idx)  # a temperature, moving
+    x.iloc[200:200 + n_missing] = np.nan
+    fl, _ratio = sensor_flags("tamb1", "t_amb_c", x, grid, std_offset_s=0, site_zone="UTC")
+    drops = pd.concat([f for f in fl if len(f)])
+    drops = drops[drops["kind"].str.endswith("dropout")]
+    assert list(drops["kind"]) == [kind]
+    assert drops.iloc[0]["details"]["missing_daytime_hours"] == n_missing * 0.25
