@@ -234,3 +234,21 @@ def test_off_clear_sky_boundary(level, found):
     if found:
         assert fl.iloc[0]["details"]["reason"] == "off_clear_sky"
         assert fl.iloc[0]["details"]["median_clear_day_ratio"] == pytest.approx(level)
+
+
+@pytest.mark.parametrize("night,day,found", [(3.99, 5.0, False), (4.0, 5.0, False),
+                                             (4.01, 5.0, True), (6.0, 2.99, False),
+                                             (6.0, 3.0, False), (6.0, 3.01, True)])
+def test_ambient_offset_thresholds(july, night, day, found):
+    # documented: night median T_amb − T_mod > 4 °C and full-sun median T_mod − T_model
+    # < −3 °C (exact constructed medians: ambient 20 °C; module 20 − night at night; the
+    # model `day` °C above the module in full sun)
+    n = len(july)
+    el = july["elev"].to_numpy()
+    g = july["poa_wm2"].to_numpy()
+    t_amb = pd.Series(np.full(n, 20.0), index=july.index)
+    t_mod = np.where(el < -12, 20.0 - night, 40.0)
+    model = np.where(g >= 600, t_mod + day, t_mod)
+    fl = ambient_offset_flags(t_amb, pd.Series(t_mod, index=july.index), model, el, g,
+                              device_id="tamb1", module_sensor="tmod1", min_days=10)
+    assert (len(fl) == 1) == found
