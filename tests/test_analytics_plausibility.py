@@ -252,3 +252,15 @@ def test_ambient_offset_thresholds(july, night, day, found):
     fl = ambient_offset_flags(t_amb, pd.Series(t_mod, index=july.index), model, el, g,
                               device_id="tamb1", module_sensor="tmod1", min_days=10)
     assert (len(fl) == 1) == found
+
+
+@pytest.mark.parametrize("off,bad", [(19.99, False), (20.0, False), (20.01, True)])
+def test_module_model_margin_boundary(july, off, bad):
+    # documented: more than 20 °C from the Sandia module model on >= half the full-sun
+    # intervals makes the day invalid (implausible_vs_model)
+    g = july["poa_wm2"].to_numpy()
+    model = np.asarray(module_temperature_sandia(g, 25.0, 2.0), dtype=float)
+    t = pd.Series(np.where(g >= 600, model + off, model), index=july.index)
+    days = module_temperature_validity(t, poa_wm2=g, t_mod_model_c=model,
+                                       std_offset_s=STD_OFFSET_S)
+    assert (days["reason"] == "implausible_vs_model").any() == bad
