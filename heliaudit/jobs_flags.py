@@ -62,7 +62,7 @@ Progress = Callable[[int, int], None]  # progress(done, total), in devices
 
 #: Detector settings recorded with each computation (defaults cite METHODS §5, §8–§10).
 PARAMS = {
-    "underperformance": {"z_threshold": -3.0, "min_deficit": 0.03, "min_peers": 5,
+    "underperformance": {"z_threshold": -3.0, "min_deficit": 0.04, "min_peers": 5,
                          "window": 5, "k_required": 3, "escalate_days": 14,
                          "clear_days": 3, "own_min_pi": 0.80, "own_history_deficit": 0.10,
                          "history_days": 90, "history_lag_days": 30},
