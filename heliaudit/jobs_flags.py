@@ -347,9 +347,10 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
     drop = sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id, quantity=quantity,
                                    tau_s=tau_s)
-    # a gap of hours (or a day and a half) is data unavailable; a sensor silent for 24 or
-    # more daylight hours (two days and more) is a sensor problem (common practice)
-    short = [d["missing_daytime_hours"] < 24.0 for d in drop["details"]]
+    # a gap of hours or a day or two is data unavailable (communication); a sensor silent
+    # for 36 or more daylight hours (about three days) is a sensor problem (common practice;
+    # issue #14: 29-h column gaps of healthy sensors on generated fleets)
+    short = [d["missing_daytime_hours"] < 36.0 for d in drop["details"]]
     drop.loc[np.asarray(short, dtype=bool), "kind"] = "data_dropout"
     out = [drop]
     if x.empty:

@@ -263,11 +263,11 @@ def test_input_mismatch_wired_to_the_per_input_query(monkeypatch):
     assert inv[["tilt_deg", "azimuth_deg"]].iloc[1].isna().all()  # no arrays: site plane
 
 
-@pytest.mark.parametrize("n_missing,kind", [(95, "data_dropout"), (96, "sensor_dropout"),
-                                            (97, "sensor_dropout")])
-def test_sensor_gap_24_daylight_hours_boundary(n_missing, kind):
-    # documented: a sensor gap of >= 24 missing daylight hours is a sensor_dropout, shorter
-    # gaps are data_dropout (grid all daylight here: 96 x 15 min = 24 h)
+@pytest.mark.parametrize("n_missing,kind", [(143, "data_dropout"), (144, "sensor_dropout"),
+                                            (145, "sensor_dropout")])
+def test_sensor_gap_36_daylight_hours_boundary(n_missing, kind):
+    # documented: a sensor gap of >= 36 missing daylight hours is a sensor_dropout, shorter
+    # gaps are data_dropout (grid all daylight here: 144 x 15 min = 36 h)
     from heliaudit.jobs_flags import sensor_flags
 
     idx = pd.date_range("2024-06-01", periods=960, freq="15min", tz="UTC", name="ts_utc")
