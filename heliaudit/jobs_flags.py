@@ -433,11 +433,14 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
             pi = wide.median(axis=1).dropna()
         h = valid.groupby("day")["h_poa_kwhm2"].median()
         e_exp = d.groupby("day")["e_exp_kwh"].sum(min_count=1)
-        out.append(soiling.soiling_flags(
+        soil = soiling.soiling_flags(
             pi, h, e_exp, rain_mm=rain_daily, tariff_per_kwh=economics.get("tariff_per_kwh", 0.05),
             cleaning_cost=economics.get("cleaning_cost", 0.0),
             currency=economics.get("currency", "EUR"), std_offset_s=std_offset_s,
-            n_runs=n_runs))
+            n_runs=n_runs)
+        out[0], soil = attach_uneven_soiling(out[0], soil, valid, std_offset_s=std_offset_s,
+                                             min_deficit=up["min_deficit"])
+        out.append(soil)
         # fleet power: pi of the inverters on each POA sensor; a rising trend is the sensor
         for sid, invs in inverters.groupby("poa_sensor_id")["device_id"]:
             med = valid[valid["device_id"].isin(list(invs))].groupby("day")["pi"].median()
@@ -448,6 +451,56 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
                        "reading": "median daily pi of the inverters on this sensor rises: "
                                   "modules do not improve, the sensor reads low"}))
     return out
+
+
+def attach_uneven_soiling(up: pd.DataFrame, soil: pd.DataFrame, valid: pd.DataFrame, *,
+                          std_offset_s: int, min_deficit: float, after_days: int = 14,
+                          slack_days: int = 3) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Underperformance explained by uneven soiling is attached to the soiling flag.
+
+    An inverter that soils faster than its peers drifts below them during a dry interval
+    and comes back at the cleaning; a failed string does not come back (issue #14: false
+    underperformance flags on an arid soiling site). An underperformance event lying inside
+    one soiled interval (to ``slack_days``) whose inverter is back within ``min_deficit`` of
+    its peers (median daily pi ratio) in the ``after_days`` after that interval's cleaning
+    becomes a consequence of the soiling flag (``details.consequences``, with its lost
+    energy), not an alarm of its own.
+    """
+    if up.empty or soil.empty:
+        return up, soil
+    so = soil[soil["kind"] == "soiling"]
+    if so.empty:
+        return up, soil
+    wide = valid.pivot_table(index="day", columns="device_id", values="pi", aggfunc="first")
+    ratio = wide.div(wide.median(axis=1), axis=0)
+    day_s = _ts_days(ratio.index, std_offset_s)
+    drop = []
+    soil = soil.copy()
+    for u in up.itertuples():
+        hit = so[(so["start_s"] <= u.start_s + slack_days * 86400)
+                 & (so["end_s"] >= u.end_s - slack_days * 86400)]
+        if hit.empty or u.device_id not in ratio:
+            continue
+        k = hit.index[0]
+        e0 = int(hit.at[k, "end_s"])
+        m = (day_s >= e0) & (day_s < e0 + after_days * 86400)
+        after = ratio[u.device_id].to_numpy(float)[m]
+        after = after[np.isfinite(after)]
+        if after.size < 3 or np.median(after) < 1.0 - min_deficit:
+            continue
+        det = dict(soil.at[k, "details"])
+        det["consequences"] = det.get("consequences", []) + [dict(
+            kind="underperformance", device_id=u.device_id, start_s=int(u.start_s),
+            end_s=int(u.end_s), lost_kwh=None if not np.isfinite(u.lost_kwh) else float(u.lost_kwh),
+            reading="uneven soiling: below its peers while soiling, back after the cleaning")]
+        soil.at[k, "details"] = det
+        drop.append(u.Index)
+    return up.drop(index=drop).reset_index(drop=True), soil
+
+
+def _ts_days(days, std_offset_s: int) -> np.ndarray:
+    """UTC epoch seconds of the start of each local standard day."""
+    return pd.DatetimeIndex(days).as_unit("s").asi8 - int(std_offset_s)
 
 
 def _yield_by_sensor(daily: pd.DataFrame, inverters: pd.DataFrame) -> dict[str, pd.Series]:

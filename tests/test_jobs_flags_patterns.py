@@ -279,3 +279,31 @@ def test_sensor_gap_36_daylight_hours_boundary(n_missing, kind):
     drops = drops[drops["kind"].str.endswith("dropout")]
     assert list(drops["kind"]) == [kind]
     assert drops.iloc[0]["details"]["missing_daytime_hours"] == n_missing * 0.25
+
+
+@pytest.mark.parametrize("after_ratio,attached", [(0.97, True), (0.96, True), (0.95, False)])
+def test_uneven_soiling_attached_only_when_it_recovers(after_ratio, attached):
+    # documented: an underperformance event inside a soiled interval is uneven soiling when
+    # the inverter is back within 4 % of its peers (median ratio) in the 14 days after the
+    # cleaning; a failed string stays low and keeps its alarm
+    from analytics.outliers import flag_frame
+    from heliaudit.jobs_flags import attach_uneven_soiling
+
+    days = pd.date_range("2024-01-01", periods=60, freq="D")
+    rows = []
+    for dev in ("a", "b", "c", "d", "e"):
+        pi = np.full(60, 1.0)
+        if dev == "a":
+            pi[10:40] = 0.9
+            pi[40:] = after_ratio
+        rows.append(pd.DataFrame({"device_id": dev, "day": days, "pi": pi}))
+    valid = pd.concat(rows, ignore_index=True)
+    d0 = int(days[0].value // 10**9)
+    up = flag_frame([dict(device_id="a", kind="underperformance", start_s=d0 + 10 * 86400,
+                          end_s=d0 + 40 * 86400, severity="alarm", lost_kwh=50.0, details={})])
+    soil = flag_frame([dict(device_id=None, kind="soiling", start_s=d0 + 5 * 86400,
+                            end_s=d0 + 40 * 86400, severity="info", lost_kwh=10.0,
+                            details={})])
+    up2, soil2 = attach_uneven_soiling(up, soil, valid, std_offset_s=0, min_deficit=0.04)
+    assert up2.empty == attached
+    assert ("consequences" in soil2.iloc[0]["details"]) == attached
