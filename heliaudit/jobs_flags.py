@@ -660,7 +660,9 @@ def consolidate_clock_flags(flags: pd.DataFrame, *, n_clock_devices: int,
                    shift_minutes_measured=float(np.median(
                        [g.details["shift_minutes_measured"] for g in grp])),
                    first_day=str(first.date()), last_day=str(last.date()),
-                   agreement=f"{len(devices)} of {n_clock_devices} devices show the shift")
+                   agreement=f"{len(devices)} of {n_clock_devices} devices show the shift",
+                   last_day_partly_shifted=bool(np.median(
+                       [bool(g.details.get("last_day_partly_shifted")) for g in grp]) >= 0.5))
         det["correction_toml"] = _retarget_toml(det["correction_toml"], first, last,
                                                 len(devices))
         merged.append(dict(device_id=None if len(devices) > 1 else devices[0],
