@@ -1,0 +1,236 @@
+"""Degradation scorecard (issue #13): every method and the recommended rate on fresh synthetic
+fleets from the independent generator (``../shared/validation/synth_fleet.py``).
+
+For each case (scenario, seed, ``--set`` variations) the whole pipeline runs through the CLI
+(tests/validation/harness.py) and the outside scorer compares the rates with the injected truth.
+Printed per method and for the recommended rate, over inverters of drift-free, fault-free
+fleets ("clean") and over all inverters:
+
+* median and mean error (estimate − truth, %/yr), median absolute error, share within 0.2 %/yr;
+* coverage of the stated 95 % interval, and of the 68 % interval for the recommended rate;
+
+and for the warnings (scored here against truth.json, which only this scoring side reads):
+
+* sensor-drift warnings: share of inverters on a drift-free sensor that carry one (false
+  alarms), share of inverters on a drifting sensor that carry one (detections);
+* level shifts: inverters without a step that get a reported drop/rise (false), injected steps
+  found within 7 days and sized within 1 percentage point;
+* whether each warning (caveat) names the method it is about.
+
+Targets (issue #13): median |error| ≤ 0.05 %/yr and mean error within ±0.03 %/yr on clean
+fleets for DC/AC 1.1-1.4; 95 % coverage 90-98 %, 68 % coverage 60-76 %; drift false alarms
+≤ 5 % with a 1 %/yr drift caught.
+
+Run by hand (a few minutes per case on a shared 2-core machine)::
+
+    python tests/validation/scorecard_degradation.py                # the quick suite
+    python tests/validation/scorecard_degradation.py --suite full   # more seeds and variations
+    python tests/validation/scorecard_degradation.py --json out.json
+
+Skips with a reason when ``../shared/validation`` is absent.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from harness import run_case, shared_available  # noqa: E402
+
+FEW = ["n_inverters=8"]
+DRIFT_1 = ('faults={"sensor_faults": [{"sensor": "POA1", "kind": "drift", "rate_pct_per_yr": '
+           '-1.0, "frac": [0.05, 0.1], "until_end": true}]}')
+STEP_4 = ('faults={"underperformance": [{"frac": [0.45, 0.55], "loss": 0.04, "until_end": true, '
+          '"cause": "step"}]}')
+
+#: (label, scenario, seed, sets, clean): ``clean`` = drift-free and fault-free by construction
+SUITES = {
+    "quick": [
+        ("clean dcac1.1", "clean", 101, FEW + ["years=3", "array.dc_ac_ratio=[1.08,1.12]"], True),
+        ("clean dcac1.4", "clean", 102, FEW + ["years=3", "array.dc_ac_ratio=[1.36,1.42]"], True),
+        ("desert no soiling", "soiling_arid", 103, FEW + ["years=3", "soiling=null"], True),
+        ("clean + POA1 drift -1 %/yr", "clean", 104, FEW + ["years=3", DRIFT_1], False),
+        ("clean + 4 % step", "clean", 105, FEW + ["years=3", STEP_4], False),
+        ("soiling_arid", "soiling_arid", 106, FEW, False),
+        ("faults", "faults", 107, FEW, False),
+    ],
+}
+SUITES["full"] = SUITES["quick"] + [
+    ("clean", "clean", 201, FEW + ["years=4"], True),
+    ("clean dcac1.25", "clean", 202, FEW + ["years=3", "array.dc_ac_ratio=[1.22,1.28]"], True),
+    ("clean dcac1.4 b", "clean", 203, FEW + ["years=4", "array.dc_ac_ratio=[1.36,1.42]"], True),
+    ("po valley no faults", "faults", 204, FEW + ["years=3", "faults=null"], True),
+    ("clean + POA2 drift -1.5", "clean", 205, FEW + ["years=3", DRIFT_1.replace(
+        "POA1", "POA2").replace("-1.0", "-1.5")], False),
+    ("clean + 4 % step b", "clean", 206, FEW + ["years=3", STEP_4], False),
+    ("soiling_arid b", "soiling_arid", 207, FEW + ["years=4"], False),
+    ("messy_format", "messy_format", 208, FEW + ["years=3"], True),
+]
+
+DRIFT_WORDS = ("drift", "calibration")
+
+
+def _truth(case: dict) -> dict:
+    """The generator's truth (scoring side only)."""
+    return json.loads((Path(case["dir"]) / "gen" / "truth.json").read_text(encoding="utf-8"))
+
+
+def _inverter_warnings(block: dict) -> tuple[list[str], list[dict]]:
+    texts = list(block.get("warnings") or [])
+    for m in (block.get("degradation") or {}).values():
+        if isinstance(m, dict):
+            texts += list(m.get("warnings") or [])
+    rec = block.get("recommended") or {}
+    return texts, list(rec.get("caveats") or [])
+
+
+def warning_rates(case: dict) -> dict:
+    """Per-inverter warning outcomes of one case against its truth."""
+    truth = _truth(case)
+    drift_sensors = {f["sensor"] for f in truth.get("sensor_faults", []) if f["kind"] == "drift"}
+    steps = {}
+    for iid, t in truth["inverters"].items():
+        for u in t.get("underperformance", []):
+            steps[iid] = u
+    rows = []
+    for b in case["results"].get("inverters", []):
+        iid = b["device_id"]
+        t = truth["inverters"].get(iid, {})
+        texts, caveats = _inverter_warnings(b)
+        drift_warn = any(c.get("kind") == "sensor_drift" for c in caveats) or any(
+            any(w in x.lower() for w in DRIFT_WORDS) for x in texts)
+        shifts = [c for c in (b.get("change_points") or []) if c.get("kind") in ("drop", "rise")]
+        step = steps.get(iid)
+        found = sized = None
+        if step is not None:
+            t0 = pd.Timestamp(step["start"]).tz_convert(None).normalize()
+            near = [c for c in shifts if abs((pd.Timestamp(c["day"]) - t0).days) <= 7]
+            found = bool(near)
+            size_true = -100 * float(step["loss_frac"])
+            sized = bool(near) and min(abs(float(c["size_pct"]) - size_true) for c in near) <= 1.0
+        rows.append({"inverter": iid, "on_drifting_sensor": t.get("sensors", {}).get(
+            "poa_irradiance") in drift_sensors, "drift_warning": drift_warn,
+            "has_step": step is not None, "n_shifts": len(shifts), "step_found_7d": found,
+            "step_sized_1pp": sized, "soiling": bool(t.get("soiling_episodes")),
+            "caveats_without_method": sum(1 for c in caveats if c.get("kind") in (
+                "sensor_drift", "level_shift", "soiling", "methods_disagree")
+                and not c.get("method"))})
+    return {"rows": rows}
+
+
+def _summ(rows: list[dict]) -> dict:
+    if not rows:
+        return {}
+    err = np.array([r["err"] for r in rows])
+    cis = [r["in_ci"] for r in rows if r["in_ci"] is not None]
+    return {"n": len(rows), "median_err": float(np.median(err)), "mean_err": float(err.mean()),
+            "median_abs_err": float(np.median(np.abs(err))),
+            "within_0.2": float(np.mean(np.abs(err) <= 0.2)),
+            "coverage": float(np.mean(cis)) if cis else None}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--suite", choices=sorted(SUITES), default="quick")
+    ap.add_argument("--only", default=None, help="run only cases whose label contains this")
+    ap.add_argument("--json", type=Path, default=None, help="write the figures as JSON")
+    ap.add_argument("--keep", type=Path, default=None, help="keep the case folders here")
+    a = ap.parse_args(argv)
+    ok, why = shared_available()
+    if not ok:
+        print(why)
+        return 0
+    cases = [c for c in SUITES[a.suite] if not a.only or a.only in c[0]]
+    per_method: dict[str, dict[str, list]] = {}
+    warn_rows, timing, done = [], [], []
+    t_all = time.perf_counter()
+    for label, scen, seed, sets, clean in cases:
+        wd = a.keep / f"{scen}-{seed}" if a.keep else None
+        print(f"-- {label}: {scen} seed {seed} {' '.join(sets)}", flush=True)
+        res = run_case(scen, seed, sets, workdir=wd, keep=a.keep is not None)
+        if not res["ok"]:
+            print("   FAILED:", res["error"])
+            continue
+        timing.append((label, res["timing_s"]))
+        done.append(label)
+        print("   " + ", ".join(f"{k} {v:.0f} s" for k, v in res["timing_s"].items()), flush=True)
+        for m, blk in res["score"].get("degradation", {}).items():
+            for r in blk["per_inverter"]:
+                r = dict(r, case=label, clean_fleet=clean)
+                per_method.setdefault(m, {"clean": [], "all": [], "unconfounded": []})
+                per_method[m]["all"].append(r)
+                if clean:
+                    per_method[m]["clean"].append(r)
+                if not r["confounded"]:
+                    per_method[m]["unconfounded"].append(r)
+        for r in warning_rates(res)["rows"]:
+            warn_rows.append(dict(r, case=label, clean_fleet=clean))
+    print(f"\nDegradation scorecard, suite '{a.suite}': {len(done)} cases, "
+          f"{time.perf_counter() - t_all:.0f} s. Errors in %/yr (estimate - truth).")
+    print("(peer_ratio_year_pairs / peer_relative is a rate relative to the fleet, not an absolute "
+          "rate; the drift check is a sensor drift, not scored)")
+    hdr = f"{'method':<36}{'subset':<13}{'n':>4}{'med err':>9}{'mean err':>9}{'med|err|':>9}" \
+          f"{'<=0.2':>7}{'cover':>7}"
+    print(hdr)
+    figures = {}
+    for m in sorted(per_method, key=lambda x: (x != "recommended", x)):
+        figures[m] = {}
+        for subset in ("clean", "unconfounded", "all"):
+            s = _summ(per_method[m][subset])
+            if not s:
+                continue
+            figures[m][subset] = s
+            cov = "-" if s["coverage"] is None else f"{100 * s['coverage']:.0f}%"
+            print(f"{m:<36}{subset:<13}{s['n']:>4}{s['median_err']:>+9.3f}{s['mean_err']:>+9.3f}"
+                  f"{s['median_abs_err']:>9.3f}{100 * s['within_0.2']:>6.0f}%{cov:>7}")
+    w = pd.DataFrame(warn_rows)
+    wfig = {}
+    if len(w):
+        clean_drift_free = w[~w["on_drifting_sensor"]]
+        on_drift = w[w["on_drifting_sensor"]]
+        no_step = w[~w["has_step"]]
+        soil = w[w["soiling"] & ~w["has_step"]]
+        steps = w[w["has_step"]]
+        wfig = {
+            "drift_false_alarm": float(clean_drift_free["drift_warning"].mean()),
+            "drift_false_alarm_n": int(len(clean_drift_free)),
+            "drift_detection": float(on_drift["drift_warning"].mean()) if len(on_drift) else None,
+            "drift_detection_n": int(len(on_drift)),
+            "shift_false_inverters": float((no_step["n_shifts"] > 0).mean()),
+            "shift_false_n": int(len(no_step)),
+            "shift_false_on_soiling": float((soil["n_shifts"] > 0).mean()) if len(soil) else None,
+            "steps_found_7d": float(steps["step_found_7d"].mean()) if len(steps) else None,
+            "steps_sized_1pp": float(steps["step_sized_1pp"].mean()) if len(steps) else None,
+            "steps_n": int(len(steps)),
+            "caveats_without_method": int(w["caveats_without_method"].sum()),
+        }
+        print("\nWarnings (per inverter):")
+        print(f"  sensor-drift warning on drift-free sensors: {100 * wfig['drift_false_alarm']:.0f}% "
+              f"of {wfig['drift_false_alarm_n']}")
+        if wfig["drift_detection"] is not None:
+            print(f"  sensor-drift warning on drifting sensors:   {100 * wfig['drift_detection']:.0f}% "
+                  f"of {wfig['drift_detection_n']}")
+        print(f"  level shift reported without an injected step: "
+              f"{100 * wfig['shift_false_inverters']:.0f}% of {wfig['shift_false_n']} inverters"
+              + ("" if wfig["shift_false_on_soiling"] is None else
+                 f" (soiled: {100 * wfig['shift_false_on_soiling']:.0f}%)"))
+        if wfig["steps_n"]:
+            print(f"  injected steps found within 7 days: {100 * wfig['steps_found_7d']:.0f}%, "
+                  f"sized within 1 pp: {100 * wfig['steps_sized_1pp']:.0f}% of {wfig['steps_n']}")
+        print(f"  caveats that do not name their method: {wfig['caveats_without_method']}")
+    if a.json:
+        a.json.write_text(json.dumps({"suite": a.suite, "cases": done, "degradation": figures,
+                                      "warnings": wfig, "timing_s": timing}, indent=1))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
