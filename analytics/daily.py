@@ -33,7 +33,8 @@ Daily sums (ratios of sums, never means of ratios, METHODS §5):
   of pi for the plant's operating state (outage, clipping) or the irradiance window still
   count as covered, so that an inverter with a high DC/AC ratio, which clips on every clear
   summer day, keeps its summer days. ``day_valid``: coverage >= ``min_coverage`` (0.8), at
-  least ``min_valid_fraction`` (0.5) of the insolation in valid intervals (so that an
+  least ``min_valid_fraction`` (0.5) of the insolation outside clipped intervals in valid
+  intervals (so that an
   overcast day whose pi rests on two intervals does not enter trends; the share is in
   ``details_json`` as ``valid_insolation_fraction``), and a finite pi;
 * availability (:mod:`analytics.availability`): ``t_daylight_h`` (sun up, G >= 50 W/m² and
@@ -313,9 +314,12 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     breaks = np.concatenate(([True], (np.diff(k) > 1) | (np.diff(inv_no[k]) != 0)))
     gs, ps, es, taus, ds, pmax_s = g[k], p[k], e[k], tau[k], d[k], p_max[k]
     p_exp = expected_ac_power(gpos[k], t_cell[k], p_dc[k], gamma[k], pmax_s, eta[k])
+    # clipping also judged from the unlimited expected power (analytics.filters, issue #13)
+    p_exp_free = expected_ac_power(gpos[k], t_cell[k], p_dc[k], gamma[k], pmax_s, eta[k],
+                                   limit=False)
     codes_s = flt.classify_intervals(gs, t_mod[k], ps, pmax_s,
                                      None if elev is None else elev[k], t_amb[k], wind[k], f,
-                                     run_breaks=breaks)
+                                     run_breaks=breaks, p_ac_exp_kw=p_exp_free)
     codes = np.full(n, flt.NIGHT, dtype=np.int8)
     codes[k] = codes_s
     valid = codes_s == flt.VALID
@@ -330,7 +334,10 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     covered = ~np.isin(codes_s, flt.DATA_PROBLEMS)
     w_day = np.bincount(ds, weights=w_cov, minlength=nd)
     cov = _div(np.bincount(ds, weights=np.where(covered, w_cov, 0.0), minlength=nd), w_day)
-    frac_valid = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd), w_day)
+    # share of the insolation outside the clipping zone that is valid: the clipping zone is a
+    # plant state (judged from the expected power), not a reason to drop a clear day (#13)
+    w_free = np.bincount(ds, weights=np.where(codes_s == flt.CLIPPED, 0.0, w_cov), minlength=nd)
+    frac_valid = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd), w_free)
 
     base = (gs >= f["outage_poa_wm2"]) & np.isfinite(ps)
     unavail = base & unavailable_mask(ps, gs, pmax_s, f["outage_fraction"],

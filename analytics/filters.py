@@ -9,12 +9,23 @@ order wins, so an interval excluded for two reasons is counted once, under the e
  2  ``missing``          a needed input (power/energy, POA, module temperature) is missing
  3  ``out_of_range``     G, T_mod, T_amb, wind or P_ac outside its plausible range
  4  ``outage``           P_ac <= 1 % of the AC rating while G >= 50 W/m² (unavailable)
- 5  ``clipped``          P_ac >= 0.98 · P_ac,max (inverter at its AC limit; biases PI low)
+ 5  ``clipped``          P_ac >= 0.98 · P_ac,max (inverter at its AC limit; biases PI low), or
+                         the expected AC power without the limit >= 0.90 · P_ac,max (see below)
  6  ``stuck``            a daytime flat line: >= 4 samples of G or P_ac changing by < 0.1 % of
                          span, or >= 8 samples of T_mod changing by < 0.05 °C
  7  ``low_irradiance``   G < 200 W/m² (low-light, AOI and cosine errors)
  8  ``high_irradiance``  G > 1200 W/m² (cloud enhancement, sensor error)
 ==  ===================  =====================================================================
+
+Why clipping is also judged from the expected power: a filter on the measured power alone
+selects a set of intervals that changes as the array degrades (a degraded array reaches its
+AC limit less often, so intervals whose expected power is at the limit enter the index with
+measured / capped-expected > the array's true ratio). Year after year more such intervals
+enter and the index falls more slowly than the array: an optimistic degradation bias that
+grows with the DC/AC ratio and the clearness of the site. Excluding the intervals whose
+*unlimited* expected AC power reaches 0.90 of the rating keeps the selection independent of
+the array's state for arrays up to ~9 % above their model (measured by the validation
+scorecard in tests/validation/, issue #13).
 
 Outage and clipping come before "stuck" because an inverter at 0 kW or at its limit reads
 flat by nature. Only ``night`` intervals are left out of the energy PR's intervals
@@ -58,6 +69,7 @@ DEFAULT_FILTERS: dict[str, float] = {
     "outage_fraction": 0.01,  # P_ac <= this * P_ac,max with G >= outage_poa_wm2: unavailable
     "outage_poa_wm2": 50.0,  # also the daylight base of availability
     "clip_fraction": 0.98,  # P_ac >= this * P_ac,max: clipped
+    "clip_expected_fraction": 0.90,  # unlimited expected P_ac >= this * P_ac,max: clipped too
     "stuck_samples": 4.0,  # G / P_ac flat-line run length [samples]
     "stuck_rel_tol": 0.001,  # ... with |Δx| below this fraction of the sensor span
     "stuck_t_samples": 8.0,  # T_mod flat-line run length [samples]
@@ -261,7 +273,8 @@ def stuck_mask(x, min_samples: int = 4, tol: float = 1.5, run_breaks=None):
 
 
 def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_elevation_deg=None,
-                       t_amb_c=None, wind_ms=None, filters: dict | None = None, run_breaks=None):
+                       t_amb_c=None, wind_ms=None, filters: dict | None = None, run_breaks=None,
+                       p_ac_exp_kw=None):
     """Reason code of each interval (index into :data:`REASONS`; 0 = valid), first failing wins.
 
     Parameters
@@ -278,6 +291,10 @@ def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_e
         Overrides of :data:`DEFAULT_FILTERS`.
     run_breaks : bool array or None
         Passed to :func:`stuck_mask` (where the samples given are not contiguous in time).
+    p_ac_exp_kw : array, Series or None
+        Expected AC power *without* the inverter's limit (``expected_ac_power(...,
+        limit=False)``); intervals where it reaches ``clip_expected_fraction`` · P_ac,max are
+        ``clipped`` as well, so the selection does not drift as the array degrades. [kW]
 
     Returns
     -------
@@ -313,7 +330,12 @@ def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_e
                                  f["wind_max_ms"])
     assign(rng, OUT_OF_RANGE)
     assign(unavailable_mask(p, g, p_ac_max_kw, f["outage_fraction"], f["outage_poa_wm2"]), OUTAGE)
-    assign(clipping_mask(p, p_ac_max_kw, f["clip_fraction"]), CLIPPED)
+    clip = clipping_mask(p, p_ac_max_kw, f["clip_fraction"])
+    if p_ac_exp_kw is not None:
+        pe = np.broadcast_to(_arr(p_ac_exp_kw), g.shape)
+        with np.errstate(invalid="ignore"):
+            clip = clip | (pe >= f["clip_expected_fraction"] * p_ac_max_kw)
+    assign(clip, CLIPPED)
     day = codes == VALID  # flat lines are looked for in the remaining daytime samples only
     g_span = f["poa_range_max_wm2"] - f["poa_range_min_wm2"]
     p_span = (f["p_ac_max_fraction"] - f["p_ac_min_fraction"]) * p_ac_max_kw

@@ -261,13 +261,23 @@ def map_results(doc: dict) -> dict:
 
 
 def run_case(scenario: str, seed: int, sets: list[str] | tuple = (), *, workdir: Path | None = None,
-             keep: bool = False, env: dict | None = None, quiet: bool = True) -> dict:
+             keep: bool = False, env: dict | None = None, quiet: bool = True,
+             reuse: bool = False) -> dict:
     """Generate, configure, run the pipeline, score. Returns a dict with ``results`` (the
     heliaudit document), ``mapped``, ``score`` (the scorer's JSON report), ``timing_s``,
-    ``dir`` and ``ok``/``error``."""
+    ``dir`` and ``ok``/``error``. ``reuse``: a ``workdir`` that already holds a scored run
+    is read back instead of run again (to re-print a scorecard)."""
     ok, why = shared_available()
     if not ok:
         return {"ok": False, "error": why, "skipped": True}
+    if reuse and workdir is not None and (Path(workdir) / "score.json").is_file():
+        base = Path(workdir)
+        return {"ok": True, "scenario": scenario, "seed": seed, "sets": list(sets),
+                "dir": str(base), "reused": True, "timing_s": {},
+                "results": json.loads((base / "results.json").read_text(encoding="utf-8")),
+                "mapped": json.loads((base / "mapped.json").read_text(encoding="utf-8")),
+                "site": json.loads((base / "gen" / "site.json").read_text(encoding="utf-8")),
+                "score": json.loads((base / "score.json").read_text(encoding="utf-8"))}
     base = Path(workdir) if workdir else Path(tempfile.mkdtemp(prefix=f"ha-{scenario}-{seed}-"))
     base.mkdir(parents=True, exist_ok=True)
     gen = base / "gen"

@@ -143,6 +143,8 @@ def main(argv=None) -> int:
     ap.add_argument("--only", default=None, help="run only cases whose label contains this")
     ap.add_argument("--json", type=Path, default=None, help="write the figures as JSON")
     ap.add_argument("--keep", type=Path, default=None, help="keep the case folders here")
+    ap.add_argument("--reuse", action="store_true",
+                    help="with --keep: read back cases already scored there instead of re-running")
     a = ap.parse_args(argv)
     ok, why = shared_available()
     if not ok:
@@ -155,13 +157,14 @@ def main(argv=None) -> int:
     for label, scen, seed, sets, clean in cases:
         wd = a.keep / f"{scen}-{seed}" if a.keep else None
         print(f"-- {label}: {scen} seed {seed} {' '.join(sets)}", flush=True)
-        res = run_case(scen, seed, sets, workdir=wd, keep=a.keep is not None)
+        res = run_case(scen, seed, sets, workdir=wd, keep=a.keep is not None, reuse=a.reuse)
         if not res["ok"]:
             print("   FAILED:", res["error"])
             continue
         timing.append((label, res["timing_s"]))
         done.append(label)
-        print("   " + ", ".join(f"{k} {v:.0f} s" for k, v in res["timing_s"].items()), flush=True)
+        print("   " + (", ".join(f"{k} {v:.0f} s" for k, v in res["timing_s"].items())
+                       or "read back from an earlier run"), flush=True)
         for m, blk in res["score"].get("degradation", {}).items():
             for r in blk["per_inverter"]:
                 r = dict(r, case=label, clean_fleet=clean)
