@@ -247,7 +247,7 @@ def detect_level_shifts(pi: pd.Series, *, penalty_factor: float = 3.0, min_segme
     if gone:
         result["not_persistent"] = [
             {"day": x.index[b].date().isoformat(), "size_pct": round(float(sz), 3),
-             "size_yoy_pct": round(float(z), 3)}
+             "size_year_pairs_pct": round(float(z), 3)}
             for (b, sz, *_), z in zip(kept, yoy, strict=True) if b in gone]
         kept = _size_and_filter(tday, y, [b for b, *_ in kept if b not in gone], min_step_pct)
         yoy = _yoy_sizes(x, [b for b, *_ in kept], lag_days=persist_lag_days,

@@ -292,7 +292,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
                     reference: str = "pairwise", block_length: int | None = None,
                     min_years: float = 2.0, warn_years: float = 3.0, min_pairs: int = 90,
                     hist_bin_pct: float = 0.25, breaks=None, min_segment_months: int = 9,
-                    method: str = "yoy") -> RateResult:
+                    method: str = "sensor_year_pairs") -> RateResult:
     """Year-on-year degradation rate with a moving-block bootstrap interval.
 
     Parameters
@@ -325,7 +325,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
     -------
     RateResult
         ``rate_pct_per_yr`` = median pair rate [%/yr]; ``n_points`` = number of pairs;
-        ``details``: histogram of the pair rates, block length, 68.2 % interval, P90/P95
+        ``details``: the distribution of the pair rates (``pair_rate_distribution``), block length, 68.2 % interval, P90/P95
         exceedance (10th/5th percentile of the bootstrap rates, METHODS §6).
 
     Notes
@@ -409,7 +409,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         "p95_pct_per_yr": float(np.quantile(boot, 0.05)),
         "first_pair_day": r.index[0].date().isoformat(),
         "last_pair_day": (r.index[-1] + pd.Timedelta(days=lag_days)).date().isoformat(),
-        "histogram": {"edges_pct_per_yr": [round(float(e), 4) for e in edges],
+        "pair_rate_distribution": {"edges_pct_per_yr": [round(float(e), 4) for e in edges],
                       "counts": [int(c) for c in counts]},
     }
     return res
@@ -505,7 +505,7 @@ def _hac_lags(resid: np.ndarray) -> int:
 
 
 def rlm_rate(t_yr, y, *, harmonics: int = 1, confidence: float = 0.95, weights=None,
-             hac: bool = True, hac_maxlags: int | None = None, method: str = "rlm") -> RateResult:
+             hac: bool = True, hac_maxlags: int | None = None, method: str = "sensor_monthly_robust_line") -> RateResult:
     """Robust (Huber) regression rate of ``y`` on time with annual harmonic terms.
 
     Parameters
@@ -598,7 +598,7 @@ def _decimal_years(idx: pd.DatetimeIndex) -> np.ndarray:
 def degradation_rlm(pi: pd.Series, weights: pd.Series | None = None, *,
                     aggregate: str = "monthly", harmonics: int = 1, confidence: float = 0.95,
                     min_years: float = 2.0, warn_years: float = 3.0, min_days_per_month: int = 10,
-                    method: str = "rlm") -> RateResult:
+                    method: str = "sensor_monthly_robust_line") -> RateResult:
     """Robust-regression degradation rate of the daily index (METHODS §7 model A).
 
     ``aggregate='monthly'`` first forms the monthly insolation-weighted index
@@ -629,7 +629,7 @@ def degradation_rlm(pi: pd.Series, weights: pd.Series | None = None, *,
 def degradation_stl(pi: pd.Series, weights: pd.Series | None = None, *, confidence: float = 0.95,
                     seasonal: int = 7, min_years: float = 2.0, warn_years: float = 3.0,
                     min_days_per_month: int = 10, max_missing_fraction: float = 0.25,
-                    method: str = "stl") -> RateResult:
+                    method: str = "sensor_monthly_trend_line") -> RateResult:
     """Degradation rate from the trend of a robust STL decomposition (METHODS §7 model B).
 
     Steps: monthly insolation-weighted index; months without enough data linearly
@@ -743,28 +743,28 @@ def sensor_clearsky_drift(pi_sensor: pd.Series, pi_clearsky: pd.Series, *,
         raise InsufficientDataError("no day with both a sensor-based and a clear-sky index")
     full = q.reindex(pd.date_range(q.index[0], q.index[-1], freq="D"))
     dense = full.rolling(window_days, center=True, min_periods=2).median().dropna()
-    return degradation_yoy(dense, method="sensor_vs_clearsky", **yoy_kwargs)
+    return degradation_yoy(dense, method="sensor_drift_check", **yoy_kwargs)
 
 
-SENSOR_METHODS = ("yoy", "rlm", "stl")
+SENSOR_METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line")
 DRIFT_WARNING = ("sensor-based and clear-sky rates disagree: check POA sensor calibration "
                  "(drift) before using the sensor-based rate")
 
 
-def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "clearsky_yoy"
+def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "modelled_sky_year_pairs"
                     ) -> dict:
     """Verdict on whether absolute-rate methods agree within their intervals.
 
     Two methods agree when their intervals overlap (a lenient, easily explained rule; the
     methods share data, so their errors are positively correlated). The peer-relative rate is
     relative to the fleet and is not compared with absolute rates. The POA-drift warning also
-    fires when ``results["sensor_vs_clearsky"]`` (:func:`sensor_clearsky_drift`, a much
+    fires when ``results["sensor_drift_check"]`` (:func:`sensor_clearsky_drift`, a much
     tighter paired test) has an interval that excludes zero. Returns
     ``{"agree": bool | None, "compared": [...], "disagreements": [[a, b], ...],
     "warnings": [...]}``; ``agree`` is None when fewer than two methods have an interval.
     """
     have = {k: r for k, r in results.items()
-            if k not in ("peer_relative", "sensor_vs_clearsky") and r is not None and r.rate_pct_per_yr is not None
+            if k not in ("peer_ratio_year_pairs", "sensor_drift_check") and r is not None and r.rate_pct_per_yr is not None
             and r.ci_low is not None and r.ci_high is not None}
     names = sorted(have)
     bad = []
@@ -774,7 +774,7 @@ def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "c
             if ra.ci_high < rb.ci_low or rb.ci_high < ra.ci_low:
                 bad.append([a, b])
     msgs = []
-    drift = results.get("sensor_vs_clearsky")
+    drift = results.get("sensor_drift_check")
     drift_shown = (drift is not None and drift.rate_pct_per_yr is not None
                    and drift.ci_low is not None and (drift.ci_low > 0 or drift.ci_high < 0))
     if drift_shown or any(clearsky_method in p and (set(p) & set(SENSOR_METHODS)) for p in bad):

@@ -38,14 +38,14 @@ from scipy import stats
 from analytics.outliers import day_start_s, flag_frame
 
 
-def soiling_ratio_iw(sr, h_kwhm2) -> float:
+def soiling_ratio_insolation_weighted(sr, h_kwhm2) -> float:
     """Insolation-weighted soiling ratio SR_iw = Σ SR_d H_d / Σ H_d (METHODS §8).
 
     NaN days are left out of both sums.
 
     Examples
     --------
-    >>> round(soiling_ratio_iw([1.0, 0.99, 0.98], [2, 4, 6]), 5)
+    >>> round(soiling_ratio_insolation_weighted([1.0, 0.99, 0.98], [2, 4, 6]), 5)
     0.98667
     """
     sr = np.asarray(sr, dtype=float)
@@ -221,7 +221,7 @@ def soiling_ratio_series(index, intervals: pd.DataFrame) -> pd.Series:
     return sr
 
 
-def soiling_ratio_iw_mc(index, intervals: pd.DataFrame, h_kwhm2, *, n_runs: int = 1000,
+def soiling_ratio_insolation_weighted_mc(index, intervals: pd.DataFrame, h_kwhm2, *, n_runs: int = 1000,
                         recovery_min: float = 0.5, seed: int = 0,
                         percentiles=(2.5, 50.0, 97.5)) -> dict:
     """Monte-Carlo distribution of the insolation-weighted SR (Deceglie et al. 2018, step 4).
@@ -233,7 +233,7 @@ def soiling_ratio_iw_mc(index, intervals: pd.DataFrame, h_kwhm2, *, n_runs: int 
 
     Returns
     -------
-    dict with ``sr_iw_median``, ``sr_iw_low``, ``sr_iw_high`` (the given percentiles) and
+    dict with ``soiling_ratio_weighted``, ``soiling_ratio_weighted_low``, ``soiling_ratio_weighted_high`` (the given percentiles) and
     ``n_runs``.
     """
     rng = np.random.default_rng(seed)
@@ -257,9 +257,9 @@ def soiling_ratio_iw_mc(index, intervals: pd.DataFrame, h_kwhm2, *, n_runs: int 
         if len(t):
             level = seg[:, -1] + rate * 1.0  # one more day of soiling before the cleaning
     w = h.sum()
-    sr_iw = (sr * h[None, :]).sum(axis=1) / w if w > 0 else np.full(n_runs, np.nan)
-    lo, med, hi = np.percentile(sr_iw, percentiles)
-    return dict(sr_iw_median=float(med), sr_iw_low=float(lo), sr_iw_high=float(hi),
+    sr_weighted = (sr * h[None, :]).sum(axis=1) / w if w > 0 else np.full(n_runs, np.nan)
+    lo, med, hi = np.percentile(sr_weighted, percentiles)
+    return dict(soiling_ratio_weighted=float(med), soiling_ratio_weighted_low=float(lo), soiling_ratio_weighted_high=float(hi),
                 n_runs=int(n_runs))
 
 
@@ -319,8 +319,8 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
                          method="forward minus backward rolling median of site pi above the "
                                 "Tukey fence Q3 + 1.5 IQR, or rain >= "
                                 f"{rain_threshold_mm:g} mm/day (Deceglie et al. 2018)")))
-    mc = soiling_ratio_iw_mc(days, iv, h, n_runs=n_runs) if n_runs else {}
-    sr_iw = soiling_ratio_iw(sr, h)
+    mc = soiling_ratio_insolation_weighted_mc(days, iv, h, n_runs=n_runs) if n_runs else {}
+    sr_weighted = soiling_ratio_insolation_weighted(sr, h)
     e_day = float(np.nanmedian(e_exp.iloc[-30:])) if e_exp.notna().any() else float("nan")
     for k, row in enumerate(iv.itertuples()):
         if not row.soiled:
@@ -348,11 +348,11 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
             recommend = bool(cleaning_cost > 0 and saving > cleaning_cost)
             details.update(
                 current_loss_pct=100 * loss_end, ongoing=True,
-                sr_iw_site=sr_iw, sr_iw_period=[str(days[0].date()), str(days[-1].date())],
-                sr_iw_mc=mc, sr_iw_mc_assumption=(
+                soiling_ratio_weighted_site=sr_weighted, soiling_ratio_weighted_period=[str(days[0].date()), str(days[-1].date())],
+                soiling_ratio_weighted_mc=mc, soiling_ratio_weighted_mc_assumption=(
                     "rates drawn within each interval's 95 % Theil-Sen interval, recovery at "
                     "each cleaning between half and full, so the Monte-Carlo median sits "
-                    "below the full-recovery sr_iw_site when recoveries are in doubt"),
+                    "below the full-recovery soiling_ratio_weighted_site when recoveries are in doubt"),
                 cleaning_interval_days_opt=t_star,
                 expected_saving_next_days=saving, horizon_days=horizon_days,
                 cleaning_cost=cleaning_cost, tariff_per_kwh=tariff_per_kwh,

@@ -353,9 +353,9 @@ def flagged_days(chosen: pd.DataFrame, flags: pd.DataFrame, std_offset_s: int) -
 # ---------------------------------------------------------------- degradation
 
 
-#: The degradation job stores one extra row per device, method "summary": the headline
+#: The degradation job stores one extra row per device, method "overview": the headline
 #: rate plus, in ``details``, the method comparison and the warranty screening.
-SUMMARY_METHOD = "summary"
+SUMMARY_METHOD = "overview"
 
 
 @_cache
@@ -365,7 +365,7 @@ def degradation_table(url: str, site_id: str) -> pd.DataFrame:
 
 
 def rates_only(results: pd.DataFrame) -> pd.DataFrame:
-    """The per-method rows (without the job's "summary" rows)."""
+    """The per-method rows (without the job's "overview" rows)."""
     return results[results["method"] != SUMMARY_METHOD].reset_index(drop=True)
 
 
@@ -404,14 +404,14 @@ def _num(x):
     return None if x is None or pd.isna(x) else float(x)
 
 
-def yoy_histogram_data(results: pd.DataFrame, device_id: str, method: str = "yoy") -> dict | None:
+def yoy_histogram_data(results: pd.DataFrame, device_id: str, method: str = "sensor_year_pairs") -> dict | None:
     """The stored year-on-year pair-rate histogram (``edges_pct_per_yr``, ``counts``) of one
     device, with its rate and interval; None when not stored."""
     r = results[(results["device_id"] == device_id) & (results["method"] == method)]
     if r.empty:
         return None
     r = r.iloc[0]
-    h = (r["details"] or {}).get("histogram")
+    h = (r["details"] or {}).get("pair_rate_distribution")
     if not h or not h.get("counts"):
         return None
     return {"edges": h["edges_pct_per_yr"], "counts": h["counts"],

@@ -34,6 +34,28 @@ def _v2_daily_e_ac_pr(conn: sa.Connection) -> None:
 
 STEPS[2] = _v2_daily_e_ac_pr
 
+#: Degradation method codes of results schema 1 and their names since schema 2 (#10).
+METHOD_RENAMES_V3 = {
+    "yoy": "sensor_year_pairs",
+    "rlm": "sensor_monthly_robust_line",
+    "stl": "sensor_monthly_trend_line",
+    "peer_relative": "peer_ratio_year_pairs",
+    "clearsky_yoy": "modelled_sky_year_pairs",
+    "sensor_vs_clearsky": "sensor_drift_check",
+    "yoy_stable_segments": "sensor_year_pairs_between_shifts",
+    "summary": "overview",
+}
+
+
+def _v3_method_names(conn: sa.Connection) -> None:
+    """degradation_result.method: our own plain-word method names (#10)."""
+    table = schema.degradation_result
+    for old, new in METHOD_RENAMES_V3.items():
+        conn.execute(table.update().where(table.c.method == old).values(method=new))
+
+
+STEPS[3] = _v3_method_names
+
 
 def current_version(conn: sa.Connection) -> int | None:
     if not sa.inspect(conn).has_table("schema_version"):

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 2  # 2: daily_inverter.e_ac_pr_kwh (#4)
+SCHEMA_VERSION = 3  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10)
 
 metadata = sa.MetaData()
 

@@ -29,7 +29,7 @@ from heliaudit.jobs_degradation import (
 def results(ctx: click.Context, site_id: str, fmt: str, table: str, out_path: str | None) -> None:
     """Write a site's results: degradation per method, change points, warranty, PR, flags.
 
-    The JSON document (schema "heliaudit-results/1", see README "Results export") holds the
+    The JSON document (schema "heliaudit-results/2", see README "Results export") holds the
     site, software version and parameters, per inverter and for the site the period, PR,
     temperature-corrected PR and every degradation method with its interval, and the flags.
     CSV writes one flat table per call.

@@ -4,20 +4,20 @@
 clear-sky cross-check, the interval power), computes per inverter and for the site
 (``device_id = "(site)"``):
 
-* ``yoy`` — year-on-year (Jordan et al. 2018) with a moving-block bootstrap interval;
-* ``rlm`` — Huber RLM of the monthly insolation-weighted index with annual harmonics, HAC
+* ``sensor_year_pairs`` — year-on-year (Jordan et al. 2018) with a moving-block bootstrap interval;
+* ``sensor_monthly_robust_line`` — Huber RLM of the monthly insolation-weighted index with annual harmonics, HAC
   interval;
-* ``stl`` — RLM of the robust STL trend (Cleveland et al. 1990);
-* ``peer_relative`` — year-on-year rate of the index divided by the peer median (inverters
+* ``sensor_monthly_trend_line`` — RLM of the robust STL trend (Cleveland et al. 1990);
+* ``peer_ratio_year_pairs`` — year-on-year rate of the index divided by the peer median (inverters
   only; the rate *relative to the fleet*);
-* ``clearsky_yoy`` — year-on-year rate of the clear-sky index on clear periods found without
+* ``modelled_sky_year_pairs`` — year-on-year rate of the clear-sky index on clear periods found without
   the POA sensor (analytics.clearsky);
-* ``sensor_vs_clearsky`` — year-on-year rate of sensor-based / clear-sky index on clear days:
+* ``sensor_drift_check`` — year-on-year rate of sensor-based / clear-sky index on clear days:
   the POA sensor's drift against the clear-sky model (a paired, tight check);
-* ``yoy_stable_segments`` — year-on-year without pairs that span a detected level shift
+* ``sensor_year_pairs_between_shifts`` — year-on-year without pairs that span a detected level shift
   (drops and rises that persist in year-on-year pairs; upward steps after a soiling ramp,
   i.e. cleanings, are not breaks), from segments whose pairs cover ≥ 9 calendar months;
-* ``summary`` — the headline rate (``yoy``) with the data report, change points and segments,
+* ``overview`` — the headline rate (``sensor_year_pairs``) with the data report, change points and segments,
   the method-agreement verdict and warnings, and the warranty screening in ``details``.
 
 The per-series methods run in a pool of forked worker processes (:func:`methods_many`;
@@ -87,8 +87,8 @@ DEFAULTS: dict = {
     "site_min_inverter_fraction": 0.5,
     "sigma_extra_pct_per_yr": 0.0,
 }
-METHODS = ("yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "sensor_vs_clearsky",
-           "yoy_stable_segments")
+METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
+           "sensor_year_pairs_between_shifts")
 
 
 def _try(method: str, fn, *args, **kwargs) -> adeg.RateResult:
@@ -210,29 +210,29 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
     yoy_kw = dict(confidence=conf, n_resamples=p["n_resamples"], lag_days=p["lag_days"],
                   reference=p["reference"], min_years=p["min_years"], warn_years=p["warn_years"])
     res = {
-        "yoy": _try("yoy", adeg.degradation_yoy, s, rng=np.random.default_rng(seed + [1]), **yoy_kw),
-        "rlm": _try("rlm", adeg.degradation_rlm, s, weights, aggregate=p["rlm_aggregate"],
+        "sensor_year_pairs": _try("sensor_year_pairs", adeg.degradation_yoy, s, rng=np.random.default_rng(seed + [1]), **yoy_kw),
+        "sensor_monthly_robust_line": _try("sensor_monthly_robust_line", adeg.degradation_rlm, s, weights, aggregate=p["rlm_aggregate"],
                     harmonics=p["rlm_harmonics"], confidence=conf, min_years=p["min_years"],
                     warn_years=p["warn_years"]),
-        "stl": _try("stl", adeg.degradation_stl, s, weights, confidence=conf,
+        "sensor_monthly_trend_line": _try("sensor_monthly_trend_line", adeg.degradation_stl, s, weights, confidence=conf,
                     seasonal=p["stl_seasonal"], min_years=p["min_years"], warn_years=p["warn_years"]),
     }
     if ratio is not None:
-        res["peer_relative"] = _try("peer_relative", adeg.degradation_yoy, ratio.dropna(),
+        res["peer_ratio_year_pairs"] = _try("peer_ratio_year_pairs", adeg.degradation_yoy, ratio.dropna(),
                                     rng=np.random.default_rng(seed + [2]), **yoy_kw)
-        res["peer_relative"].details["relative_to"] = "median of the peer group (same day)"
+        res["peer_ratio_year_pairs"].details["relative_to"] = "median of the peer group (same day)"
     if clear_pi is not None:
         clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # METHODS §5 window
         dense = acs.densify_clear_days(clear_pi, window_days=p["clearsky_window_days"])
-        res["clearsky_yoy"] = _try("clearsky_yoy", adeg.degradation_yoy, dense,
+        res["modelled_sky_year_pairs"] = _try("modelled_sky_year_pairs", adeg.degradation_yoy, dense,
                                    rng=np.random.default_rng(seed + [3]), **yoy_kw)
-        res["clearsky_yoy"].details["n_clear_days"] = int(clear_pi.notna().sum())
-        res["sensor_vs_clearsky"] = _try("sensor_vs_clearsky", adeg.sensor_clearsky_drift, s,
+        res["modelled_sky_year_pairs"].details["n_clear_days"] = int(clear_pi.notna().sum())
+        res["sensor_drift_check"] = _try("sensor_drift_check", adeg.sensor_clearsky_drift, s,
                                          clear_pi, window_days=p["clearsky_window_days"],
                                          rng=np.random.default_rng(seed + [5]), **yoy_kw)
     else:
-        res["clearsky_yoy"] = adeg.RateResult.refused("clearsky_yoy", clear_reason or "not computed")
-        res["sensor_vs_clearsky"] = adeg.RateResult.refused("sensor_vs_clearsky",
+        res["modelled_sky_year_pairs"] = adeg.RateResult.refused("modelled_sky_year_pairs", clear_reason or "not computed")
+        res["sensor_drift_check"] = adeg.RateResult.refused("sensor_drift_check",
                                                             clear_reason or "not computed")
     base = ratio.dropna() if ratio is not None and ratio.notna().sum() > 400 else s
     cps = acp.detect_level_shifts(base, penalty_factor=p["changepoint_penalty_factor"],
@@ -242,12 +242,12 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
     # cleanings (recoveries) repeat with the seasons and largely cancel in year-on-year pairs
     breaks = [c["day"] for c in cps["change_points"] if c["kind"] != "recovery"]
     if breaks:
-        res["yoy_stable_segments"] = _try("yoy_stable_segments", adeg.degradation_yoy, s,
+        res["sensor_year_pairs_between_shifts"] = _try("sensor_year_pairs_between_shifts", adeg.degradation_yoy, s,
                                           breaks=breaks, rng=np.random.default_rng(seed + [4]),
                                           **yoy_kw)
     else:
-        res["yoy_stable_segments"] = adeg.RateResult.refused(
-            "yoy_stable_segments", "no level shift (drop or rise) found: the whole-period yoy "
+        res["sensor_year_pairs_between_shifts"] = adeg.RateResult.refused(
+            "sensor_year_pairs_between_shifts", "no level shift (drop or rise) found: the whole-period year-on-year "
                                    "rate applies")
     return res, cps
 
@@ -308,7 +308,7 @@ def _warranty_block(yoy: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series
     try:  # compare the envelope with the de-seasonalised index, not with seasonal dips
         m_pi = adeg.deseasonalised_monthly(s, weights, harmonics=p["rlm_harmonics"])
     except adeg.InsufficientDataError as exc:
-        return {**test, "method": "yoy", "terms": terms, "envelope": [], "shortfall_kwh": None,
+        return {**test, "method": "sensor_year_pairs", "terms": terms, "envelope": [], "shortfall_kwh": None,
                 "reason_envelope": str(exc), "disclaimer": awar.DISCLAIMER}
     e = e_ac.copy()
     e.index = pd.DatetimeIndex(e.index)
@@ -318,7 +318,7 @@ def _warranty_block(yoy: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series
                                  first_year_loss_pct=terms["first_year_loss_pct"],
                                  annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"],
                                  rate_pct_per_yr=yoy.rate_pct_per_yr)
-    return {**test, "method": "yoy", "terms": terms, "envelope": env["months"],
+    return {**test, "method": "sensor_year_pairs", "terms": terms, "envelope": env["months"],
             "shortfall_kwh": env["shortfall_kwh"], "months_below": env["months_below"],
             "baseline": env.get("baseline"), "disclaimer": awar.DISCLAIMER}
 
@@ -329,8 +329,8 @@ def _rows(device_id: str, res: dict[str, adeg.RateResult], summary: dict) -> lis
              "n_points": r.n_points if r.rate_pct_per_yr is not None else None,
              "reason": r.reason, "details": {**r.details, "warnings": r.warnings}}
             for m, r in res.items()]
-    head = res["yoy"]
-    rows.append({"device_id": device_id, "method": "summary", "rate_pct_per_yr": head.rate_pct_per_yr,
+    head = res["sensor_year_pairs"]
+    rows.append({"device_id": device_id, "method": "overview", "rate_pct_per_yr": head.rate_pct_per_yr,
                  "ci_low": head.ci_low, "ci_high": head.ci_high, "confidence": head.confidence,
                  "n_points": head.n_points if head.rate_pct_per_yr is not None else None,
                  "reason": head.reason, "details": summary})
@@ -423,27 +423,27 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
             ratio = ratios.get(dev)
             res, cps = results[task_of[dev]]
             if ratio is None:
-                res["peer_relative"] = adeg.RateResult.refused(
-                    "peer_relative", f"fewer than {p['min_peers'] + 1} inverters in peer group "
+                res["peer_ratio_year_pairs"] = adeg.RateResult.refused(
+                    "peer_ratio_year_pairs", f"fewer than {p['min_peers'] + 1} inverters in peer group "
                                      f"{inv['peer_group']!r}")
             summary = _summary(res, cps, reports[dev], how)
-            summary["warranty"] = _warranty_block(res["yoy"], usable[dev], weights[dev],
+            summary["warranty"] = _warranty_block(res["sensor_year_pairs"], usable[dev], weights[dev],
                                                   by_dev[dev]["e_ac_kwh"], terms,
                                                   inv["commissioned"], p)
             _note_steps(summary)
-        refused += res["yoy"].rate_pct_per_yr is None
+        refused += res["sensor_year_pairs"].rate_pct_per_yr is None
         rows += _rows(dev, res, summary)
     # the site as a whole
     if len(s):
         res, cps = results[-1]
-        res["peer_relative"] = adeg.RateResult.refused(
-            "peer_relative", "not defined for the site as a whole (relative to itself)")
+        res["peer_ratio_year_pairs"] = adeg.RateResult.refused(
+            "peer_ratio_year_pairs", "not defined for the site as a whole (relative to itself)")
         rep = {"n_days_used": int(len(s)), "n_inverters": len(usable),
                "rule": f"days with >= {p['site_min_inverter_fraction']:.0%} of inverters usable"}
         summary = _summary(res, cps, rep, how)
         e_site = pd.concat([by_dev[i]["e_ac_kwh"] for i in by_dev], axis=1).sum(axis=1)
         first = min((inv["commissioned"] for _, inv in invs.iterrows()), default=None)
-        summary["warranty"] = _warranty_block(res["yoy"], s, w, e_site, terms, first, p)
+        summary["warranty"] = _warranty_block(res["sensor_year_pairs"], s, w, e_site, terms, first, p)
         _note_steps(summary)
     else:
         res = {m: adeg.RateResult.refused(m, "no usable daily data for the site") for m in METHODS}
@@ -463,7 +463,7 @@ def _note_steps(summary: dict) -> None:
         return
     msg = ("level drop(s) on " + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
            + ": a step is a failure (string, module, inverter), not degradation; the whole-period "
-             "rate includes it, see yoy_stable_segments and inspect the equipment")
+             "rate includes it, see sensor_year_pairs_between_shifts and inspect the equipment")
     summary["warnings"] = sorted(set(summary.get("warnings", [])) | {msg})
     if isinstance(summary.get("warranty"), dict):
         summary["warranty"]["note"] = msg
@@ -472,7 +472,7 @@ def _note_steps(summary: dict) -> None:
 def _summary(res: dict[str, adeg.RateResult], cps: dict, report: dict, clear_how: str) -> dict:
     verdict = adeg.compare_methods(res)
     all_warn = sorted({w for r in res.values() for w in r.warnings} | set(verdict["warnings"]))
-    return {"headline_method": "yoy", "data": report, "comparison": verdict,
+    return {"recommended_method": "sensor_year_pairs", "data": report, "comparison": verdict,
             "change_points": cps.get("change_points", []), "segments": cps.get("segments", []),
             "changepoint_method": cps.get("method"), "changepoint_series": cps.get("series"),
             "clear_periods": clear_how or None, "warnings": all_warn,
@@ -481,7 +481,7 @@ def _summary(res: dict[str, adeg.RateResult], cps: dict, report: dict, clear_how
 
 # ---------------------------------------------------------------- results export
 
-RESULTS_SCHEMA = "heliaudit-results/1"
+RESULTS_SCHEMA = "heliaudit-results/2"
 CSV_TABLES = ("degradation", "daily", "flags")
 
 
@@ -528,7 +528,7 @@ def _period(d: pd.DataFrame) -> dict:
 def _device_block(res: pd.DataFrame) -> dict:
     methods, summary = {}, {}
     for _, r in res.iterrows():
-        if r["method"] == "summary":
+        if r["method"] == "overview":
             summary = r["details"] or {}
             continue
         det = dict(r["details"] or {})
@@ -540,7 +540,7 @@ def _device_block(res: pd.DataFrame) -> dict:
             "n_points": None if pd.isna(r["n_points"]) else int(r["n_points"]),
             "reason": r["reason"], "warnings": det.pop("warnings", []), "details": det}
     return {"degradation": methods,
-            "headline_method": summary.get("headline_method"),
+            "recommended_method": summary.get("recommended_method"),
             "comparison": summary.get("comparison"),
             "change_points": summary.get("change_points", []),
             "segments": summary.get("segments", []),
@@ -551,7 +551,7 @@ def _device_block(res: pd.DataFrame) -> dict:
 
 
 def results_document(engine, site_id: str) -> dict:
-    """Everything computed so far for a site, as the ``heliaudit-results/1`` JSON document.
+    """Everything computed so far for a site, as the ``heliaudit-results/2`` JSON document.
 
     Raises :class:`SiteNotFoundError` for an unknown site and :class:`NothingComputedError`
     when the site has no daily rows, no degradation rows and no flags.
@@ -631,7 +631,7 @@ def results_table(engine, site_id: str, table: str) -> pd.DataFrame:
         if out.empty:
             raise NothingComputedError(f"no degradation results for site {site_id!r}: run "
                                        f"`heliaudit compute --site {site_id}` first")
-        out["n_change_points"] = [len((d or {}).get("change_points", [])) if m == "summary" else None
+        out["n_change_points"] = [len((d or {}).get("change_points", [])) if m == "overview" else None
                                   for d, m in zip(out["details"], out["method"], strict=True)]
         return out.drop(columns=["details"])
     if table == "daily":

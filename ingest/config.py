@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
+import math
 import re
 import tomllib
 import zoneinfo
@@ -111,6 +112,8 @@ class TimestampSpec:
     zone: str = "local"  # "local" (site zone with DST), "UTC", or a fixed offset "+01:00"
     label: str = "end"  # the logger stamps each interval at its "start" or its "end"
     ambiguous: str = "infer"  # repeated autumn hour: infer from order, first, second, reject
+    earliest: dt.date | None = None  # plausible-date window: rows stamped before are rejected
+    latest: dt.date | None = None  # ... and after (None: one day after the ingest runs)
 
 
 @dataclass(frozen=True)
@@ -139,6 +142,7 @@ class LongSpec:
 class Source:
     name: str
     pattern: str
+    folder: str | None = None  # explicit search folder (may lie outside the config's folder)
     layout: str = "wide"
     encoding: str = "utf-8"  # utf-8 (BOM tolerated), utf-16, latin-1, or any Python codec
     delimiter: str = ","
@@ -209,6 +213,171 @@ class SiteConfig:
         return "inverter" if any(i.id == device_id for i in self.inverters) else "sensor"
 
 
+# ---------------------------------------------------------------- the key table
+#
+# Every key a site configuration may hold is declared here, table by table, with its type,
+# range and default. The validator rejects any key not declared (naming the closest declared
+# one), checks types and ranges, and rejects NaN/inf, NUL characters and strings longer than
+# the store's columns. To add a key: ``register("inverters[]", my_key=Key("float", lo=0))``
+# (usually next to the code that reads it) and read it with ``v.val(table, key_prefix, "my_key")``.
+
+#: Store limit of id-like strings (site, device, source ids: VARCHAR(64) in db/schema.py).
+ID_MAX = 64
+#: The device id the store reserves for site-level rows (degradation_result).
+RESERVED_IDS = ("(site)",)
+_ID_RE = re.compile(r"[^\x00-\x1f\x7f]+")
+
+
+@dataclass(frozen=True)
+class Key:
+    """One configuration key.
+
+    ``kind``: ``str`` | ``id`` (non-empty, ≤ :data:`ID_MAX` characters, no control characters,
+    no surrounding spaces) | ``int`` | ``float`` (finite) | ``bool`` | ``date`` | ``datetime``
+    (local, no UTC offset) | ``list`` (of ``items``) | ``table`` | ``tables`` (array of tables)
+    | ``any`` (checked by the reading code). ``lo``/``hi`` bound numbers (inclusive),
+    ``choices`` lists the allowed strings, ``max_len`` bounds strings.
+    """
+
+    kind: str
+    required: bool = False
+    default: Any = None
+    lo: float | None = None
+    hi: float | None = None
+    choices: tuple | None = None
+    items: str | None = None
+    max_len: int | None = None
+    doc: str = ""
+
+
+#: table path ("" = top level; "[]" marks an array of tables; "*" any name) -> key -> Key
+SCHEMA: dict[str, dict[str, Key]] = {}
+
+
+def register(table: str, **keys: Key) -> None:
+    """Declare keys of a table, e.g. ``register("inverters[].arrays[]", tilt_deg=Key("float"))``."""
+    SCHEMA.setdefault(table, {}).update(keys)
+
+
+def table_path(key: str) -> str:
+    """``sources[2].columns[0]`` -> ``sources[].columns[]`` (the :data:`SCHEMA` table path)."""
+    return re.sub(r"\[\d+\]", "[]", key)
+
+
+register(
+    "",
+    format_version=Key("int", default=FORMAT_VERSION, doc="format of this file"),
+    site=Key("table", required=True), economics=Key("table"), warranty=Key("table"),
+    filters=Key("table"), sensors=Key("tables"), inverters=Key("tables"), sources=Key("tables"),
+)
+register(
+    "site",
+    id=Key("id", required=True), name=Key("str", max_len=200), owner=Key("str", max_len=200),
+    timezone=Key("str", required=True, max_len=64),
+    latitude_deg=Key("float", required=True, lo=-90, hi=90),
+    longitude_deg=Key("float", required=True, lo=-180, hi=180),
+    altitude_m=Key("float", default=0.0, lo=-500, hi=9000),
+    tilt_deg=Key("float", required=True, lo=0, hi=90),
+    azimuth_deg=Key("float", required=True, lo=0, hi=360),
+    albedo=Key("float", default=0.2, lo=0.0, hi=1.0),
+)
+register(
+    "sensors[]",
+    id=Key("id", required=True), quantity=Key("str", required=True, choices=SENSOR_QUANTITIES),
+    instrument=Key("str", choices=INSTRUMENTS), notes=Key("str", default="", max_len=2000),
+)
+register(
+    "inverters[]",
+    id=Key("id", required=True),
+    p_dc_kwp=Key("float", required=True, lo=0.1, hi=1e6),
+    p_ac_max_kw=Key("float", required=True, lo=0.1, hi=1e6),
+    gamma_pmp_per_c=Key("float", required=True),
+    mounting=Key("str", required=True, choices=MOUNTINGS),
+    poa_sensor=Key("id", required=True), t_module_sensor=Key("id", required=True),
+    t_amb_sensor=Key("id"), wind_sensor=Key("id"),
+    commissioned=Key("date", required=True),
+    eta_inv_nom=Key("float", default=0.96, lo=0.5, hi=1.0),
+    peer_group=Key("id", default="site"),
+)
+register(
+    "sources[]",
+    name=Key("id"), pattern=Key("str", default="*.csv*", max_len=1000),
+    folder=Key("str", max_len=4096, doc="folder searched with pattern; absolute or relative to "
+               "the config's folder; only an explicit folder may lie outside it"),
+    layout=Key("str", default="wide", choices=LAYOUTS),
+    encoding=Key("str", default="utf-8", max_len=40), delimiter=Key("str", default=",", max_len=3),
+    decimal=Key("str", default=".", max_len=1), skip_lines=Key("int", default=0, lo=0, hi=1000),
+    unit_row=Key("bool", default=False),
+    missing_values=Key("list", items="str"), ignore_columns=Key("list", items="str"),
+    timestamp=Key("table"), columns=Key("tables"), long=Key("table"),
+    counter_rollover_kwh=Key("float", lo=1.0, hi=1e15), clock_corrections=Key("tables"),
+)
+register(
+    "sources[].timestamp",
+    column=Key("str", default="timestamp", max_len=200),
+    format=Key("str", default="%Y-%m-%d %H:%M:%S", max_len=100),
+    zone=Key("str", default="local", max_len=16), label=Key("str", default="end", choices=LABELS),
+    ambiguous=Key("str", default="infer", choices=AMBIGUOUS),
+    earliest=Key("date", doc="rows stamped before this date are rejected"),
+    latest=Key("date", doc="rows stamped after this date are rejected"),
+)
+register(
+    "sources[].columns[]",
+    header=Key("str", required=True, max_len=200), device=Key("id"),
+    quantity=Key("str", required=True, choices=tuple(QUANTITY_UNITS)), unit=Key("str", max_len=16),
+)
+register(
+    "sources[].long",
+    device_column=Key("str", default="device", max_len=200),
+    quantity_column=Key("str", default="quantity", max_len=200),
+    value_column=Key("str", default="value", max_len=200),
+    unit_column=Key("str", max_len=200), quantities=Key("table"),
+)
+register("sources[].long.quantities", **{"*": Key("table")})
+register(
+    "sources[].long.quantities.*",
+    quantity=Key("str", required=True, choices=tuple(QUANTITY_UNITS)), unit=Key("str", max_len=16),
+)
+register(
+    "sources[].clock_corrections[]",
+    start=Key("datetime", required=True), end=Key("datetime", required=True),
+    shift_minutes=Key("int", required=True, lo=-1440, hi=1440), note=Key("str", default="", max_len=2000),
+)
+register(
+    "economics",
+    currency=Key("str", default="EUR", max_len=8), tariff_per_kwh=Key("float", default=0.05, lo=0, hi=10),
+    cleaning_cost=Key("float", default=0.0, lo=0, hi=1e9),
+)
+register(
+    "warranty",
+    start_date=Key("date", required=True),
+    first_year_loss_pct=Key("float", required=True, lo=0, hi=20),
+    annual_loss_pct=Key("float", required=True, lo=0, hi=5),
+    years=Key("int", default=25, lo=1, hi=50), confidence=Key("float", default=0.95, lo=0.5, hi=0.999),
+)
+#: Default plausible-date window of timestamps (README "Ingest rules"): grid-connected PV
+#: logger data before 1990 is not expected (common practice); the latest date defaults to
+#: one day after the ingest runs (a logger clock may run a little ahead).
+EARLIEST_DEFAULT = dt.date(1990, 1, 1)
+
+
+def _filter_keys() -> dict[str, Key]:
+    from analytics.filters import DEFAULT_FILTERS  # the thresholds the daily table uses
+
+    return {k: Key("float") for k in DEFAULT_FILTERS}
+
+
+def closest(name: str, options) -> str | None:
+    """The declared key closest to a misspelt ``name`` (difflib), or None."""
+    import difflib
+
+    hit = difflib.get_close_matches(name, [o for o in options if o != "*"], n=1, cutoff=0.6)
+    if not hit:
+        low = {o.lower(): o for o in options}
+        return low.get(name.lower())
+    return hit[0]
+
+
 # ---------------------------------------------------------------- loading
 
 
@@ -216,9 +385,16 @@ def load_site_config(path: str | Path) -> SiteConfig:
     """Read and validate a site configuration file; raise :class:`ConfigError` listing every problem."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        data = path.read_bytes()
     except OSError as exc:
         raise ConfigError(str(path), [("(file)", f"cannot be read: {exc.strerror}")]) from None
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data[:exc.start].count(b"\n") + 1
+        raise ConfigError(str(path), [("(file)", (
+            f"line {line}: byte {data[exc.start:exc.start + 1]!r} is not UTF-8; TOML files are "
+            "UTF-8 text: save the file as UTF-8"))]) from None
     return parse_site_config(text, str(path))
 
 
@@ -235,6 +411,17 @@ def parse_site_config(text: str, path: str = "<string>") -> SiteConfig:
     return cfg
 
 
+_KIND_NAMES = {"str": "a string", "id": "an id (text)", "int": "an integer", "float": "a number",
+               "bool": "true or false", "date": "a date (YYYY-MM-DD)",
+               "datetime": "a local date-time (YYYY-MM-DDTHH:MM:SS)", "list": "an array",
+               "table": "a table", "tables": "an array of tables ([[...]])"}
+
+
+def _show(val: Any) -> str:
+    text = repr(val)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
 class _Validator:
     def __init__(self, path: str):
         self.path = path
@@ -243,293 +430,447 @@ class _Validator:
     def bad(self, key: str, msg: str) -> None:
         self.problems.append((key, msg))
 
-    # typed getters: record a problem and return a harmless default
+    # ---------------------------------------------------------- schema-driven access
+    def keys(self, table: dict, key: str, tpath: str | None = None) -> None:
+        """Report every key of ``table`` that :data:`SCHEMA` does not declare for it."""
+        tpath = table_path(key) if tpath is None else tpath
+        known = _filter_keys() if tpath == "filters" else SCHEMA.get(tpath, {})
+        if "*" in known:
+            return
+        for name in table:
+            if name not in known:
+                full = f"{key}.{name}" if key else name
+                hint = closest(name, known)
+                self.bad(full, "unknown key" + (f"; did you mean `{hint}`?" if hint else "")
+                         + f" (known here: {', '.join(sorted(known)) or 'none'})")
+
+    def table(self, parent: dict, name: str, key: str = "", *, required: bool = False) -> dict:
+        """A sub-table of ``parent``, checked for unknown keys; {} (and a problem) if not a table."""
+        full = f"{key}.{name}" if key else name
+        val = parent.get(name)
+        if val is None:
+            if required:
+                self.bad(full, f"a [{full}] table is required")
+            return {}
+        if not isinstance(val, dict):
+            self.bad(full, f"expected a table, got {type(val).__name__} {_show(val)}")
+            return {}
+        self.keys(val, full)
+        return val
+
+    def array(self, parent: dict, name: str, key: str = "") -> list[dict]:
+        """An array of tables of ``parent``, each checked for unknown keys."""
+        full = f"{key}.{name}" if key else name
+        items = parent.get(name, [])
+        if not isinstance(items, list) or not all(isinstance(x, dict) for x in items):
+            self.bad(full, f"expected an array of tables ([[{table_path(full)}]]), "
+                           f"got {_show(items)}")
+            return []
+        for n, x in enumerate(items):
+            self.keys(x, f"{full}[{n}]")
+        return items
+
+    def val(self, table: dict, key: str, name: str, tpath: str | None = None) -> Any:
+        """The value of ``name`` in ``table`` checked against its :data:`SCHEMA` entry."""
+        spec = SCHEMA[table_path(key) if tpath is None else tpath][name]
+        return self.check(table, key, name, spec)
+
+    def check(self, table: dict, key: str, name: str | int, spec: Key) -> Any:
+        full = f"{key}[{name}]" if isinstance(name, int) else f"{key}.{name}" if key else name
+        if name not in table:
+            if spec.required:
+                self.bad(full, "is required")
+            return spec.default
+        val = table[name]
+        kind = spec.kind
+        ok = True
+        if kind in ("str", "id"):
+            ok = isinstance(val, str)
+        elif kind == "int":
+            ok = isinstance(val, int) and not isinstance(val, bool)
+        elif kind == "float":
+            ok = isinstance(val, int | float) and not isinstance(val, bool)
+            if ok:
+                val = float(val)
+                if not math.isfinite(val):
+                    self.bad(full, f"expected a finite number, got {val}")
+                    return None if spec.required else spec.default
+        elif kind == "bool":
+            ok = isinstance(val, bool)
+        elif kind == "date":
+            if isinstance(val, dt.datetime):
+                val = val.date()
+            elif isinstance(val, str):
+                try:
+                    val = dt.date.fromisoformat(val)
+                except ValueError:
+                    ok = False
+            ok = ok and isinstance(val, dt.date)
+        elif kind == "datetime":
+            if isinstance(val, dt.datetime) and val.tzinfo is not None:
+                self.bad(full, f"give the export's own local time without a UTC offset, got "
+                               f"{val.isoformat()}")
+                return None
+            ok = isinstance(val, dt.date)
+        elif kind == "list":
+            ok = isinstance(val, list)
+            if ok and spec.items:
+                before = len(self.problems)
+                for n, x in enumerate(val):
+                    self.check({n: x}, full, n, Key(spec.items, required=True))
+                if len(self.problems) > before:
+                    return spec.default
+                return val
+        elif kind == "table":
+            ok = isinstance(val, dict)
+        elif kind == "tables":
+            ok = isinstance(val, list) and all(isinstance(x, dict) for x in val)
+        if not ok:
+            self.bad(full,
+                     f"expected {_KIND_NAMES.get(kind, kind)}, got {type(val).__name__} {_show(val)}")
+            return None if spec.required else spec.default
+        if isinstance(val, str):
+            if "\x00" in val:
+                self.bad(full, "contains a NUL character")
+                return None if spec.required else spec.default
+            limit = spec.max_len or (ID_MAX if kind == "id" else None)
+            if limit is not None and len(val) > limit:
+                self.bad(full,
+                         f"at most {limit} characters (the store's limit), got {len(val)}")
+                return None if spec.required else spec.default
+            if kind == "id":
+                if not val.strip():
+                    self.bad(full, "must not be empty")
+                    return None if spec.required else spec.default
+                if val != val.strip() or not _ID_RE.fullmatch(val):
+                    self.bad(full, f"no leading/trailing spaces or control characters, got {_show(val)}")
+                    return None if spec.required else spec.default
+            if spec.choices is not None and val not in spec.choices:
+                hint = closest(val, spec.choices)
+                self.bad(full, f"must be one of {', '.join(spec.choices)}; got {val!r}"
+                         + (f" (did you mean `{hint}`?)" if hint else ""))
+                return None if spec.required else spec.default
+        if isinstance(val, int | float) and not isinstance(val, bool):
+            if spec.lo is not None and val < spec.lo or spec.hi is not None and val > spec.hi:
+                self.bad(full, f"must be between {spec.lo:g} and {spec.hi:g}, got {val}"
+                         if spec.lo is not None and spec.hi is not None else
+                         f"must be at least {spec.lo:g}, got {val}" if spec.lo is not None else
+                         f"must be at most {spec.hi:g}, got {val}")
+        return val
+
+    # ---------------------------------------------------------- legacy typed getter
     def get(self, table: dict, name: str, key: str, kind: type | tuple, default: Any = ...,
             lo: float | None = None, hi: float | None = None) -> Any:
-        full = f"{key}.{name}" if key else name
-        if name not in table:
-            if default is ...:
-                self.bad(full, "is required")
-                return None
-            return default
-        val = table[name]
+        """Typed getter for keys read outside the schema (kept for code written against it)."""
         kinds = kind if isinstance(kind, tuple) else (kind,)
-        if float in kinds and isinstance(val, int) and not isinstance(val, bool):
-            val = float(val)
-        if not isinstance(val, kinds) or (isinstance(val, bool) and bool not in kinds):
-            names = " or ".join(k.__name__ for k in kinds)
-            self.bad(full, f"expected {names}, got {type(val).__name__} {val!r}")
-            return None if default is ... else default
-        if lo is not None and val < lo or hi is not None and val > hi:
-            self.bad(full, f"must be between {lo} and {hi}, got {val}")
-        return val
+        k = ("float" if float in kinds else "int" if int in kinds else "bool" if bool in kinds
+             else "date" if dt.date in kinds else "list" if list in kinds else "str")
+        spec = Key(k, required=default is ..., default=None if default is ... else default,
+                   lo=lo, hi=hi)
+        return self.check(table, key, name, spec)
 
-    def choice(self, table: dict, name: str, key: str, options: tuple, default: Any = ...) -> Any:
-        val = self.get(table, name, key, str, default)
-        if val is not None and val not in options:
-            self.bad(f"{key}.{name}", f"must be one of {', '.join(options)}; got {val!r}")
-        return val
-
-    def date(self, table: dict, name: str, key: str, default: Any = ...) -> dt.date | None:
-        val = self.get(table, name, key, (dt.date, str), default)
-        if isinstance(val, dt.datetime):
-            return val.date()
-        if isinstance(val, str):
-            try:
-                return dt.date.fromisoformat(val)
-            except ValueError:
-                self.bad(f"{key}.{name}", f"expected a date YYYY-MM-DD, got {val!r}")
-                return None
-        return val
-
+    # ---------------------------------------------------------- the site
     def site_config(self, raw: dict, text: str) -> SiteConfig:
-        fv = self.get(raw, "format_version", "", int, FORMAT_VERSION)
-        if fv != FORMAT_VERSION:
+        self.keys(raw, "")
+        fv = self.val(raw, "", "format_version")
+        if fv is not None and fv != FORMAT_VERSION:
             self.bad("format_version", f"this heliaudit reads format {FORMAT_VERSION}, got {fv}")
-        known = {"format_version", "site", "economics", "warranty", "filters", "sensors",
-                 "inverters", "sources"}
-        for extra in sorted(set(raw) - known):
-            self.bad(extra, f"unknown key; expected one of {', '.join(sorted(known))}")
-        site = raw.get("site")
-        if not isinstance(site, dict):
-            self.bad("site", "a [site] table is required")
-            site = {}
-        sid = self.get(site, "id", "site", str)
-        if sid is not None and not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", sid):
-            self.bad("site.id", "use letters, digits, '-', '_' or '.', at most 64 characters")
-        tz = self.get(site, "timezone", "site", str)
+        site = self.table(raw, "site", required=True)
+        sid = self.val(site, "site", "id")
+        tz = self.val(site, "site", "timezone")
         if tz is not None:
             try:
                 zoneinfo.ZoneInfo(tz)
-            except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+            except (zoneinfo.ZoneInfoNotFoundError, ValueError, OSError):
                 self.bad("site.timezone", f"unknown IANA time zone {tz!r} (e.g. 'Europe/Madrid')")
-        sensors = self.sensors(raw.get("sensors", []))
+                tz = None
+        sensors = self.sensors(self.array(raw, "sensors"), "sensors" in raw)
         sensor_ids = {s.id: s for s in sensors}
-        inverters = self.inverters(raw.get("inverters", []), sensor_ids)
+        inverters = self.inverters(self.array(raw, "inverters"), sensor_ids)
         device_ids = set(sensor_ids) | {i.id for i in inverters}
         dup = set(sensor_ids) & {i.id for i in inverters}
         for d in sorted(dup):
             self.bad("inverters", f"id {d!r} is also a sensor id; device ids must be unique")
-        sources = self.sources(raw.get("sources", []), sensors, inverters, device_ids)
-        econ = raw.get("economics", {})
+        sources = self.sources(self.array(raw, "sources"), sensors, inverters, device_ids)
+        econ = self.table(raw, "economics")
         economics = Economics(
-            currency=self.get(econ, "currency", "economics", str, "EUR"),
-            tariff_per_kwh=self.get(econ, "tariff_per_kwh", "economics", float, 0.05, 0.0, 10.0),
-            cleaning_cost=self.get(econ, "cleaning_cost", "economics", float, 0.0, 0.0, 1e9),
+            currency=self.val(econ, "economics", "currency"),
+            tariff_per_kwh=self.val(econ, "economics", "tariff_per_kwh"),
+            cleaning_cost=self.val(econ, "economics", "cleaning_cost"),
         )
         warranty = None
         if "warranty" in raw:
-            w = raw["warranty"]
+            w = self.table(raw, "warranty")
             warranty = Warranty(
-                start_date=self.date(w, "start_date", "warranty"),
-                first_year_loss_pct=self.get(w, "first_year_loss_pct", "warranty", float, lo=0, hi=20),
-                annual_loss_pct=self.get(w, "annual_loss_pct", "warranty", float, lo=0, hi=5),
-                years=self.get(w, "years", "warranty", int, 25, 1, 50),
-                confidence=self.get(w, "confidence", "warranty", float, 0.95, 0.5, 0.999),
+                start_date=self.val(w, "warranty", "start_date"),
+                first_year_loss_pct=self.val(w, "warranty", "first_year_loss_pct"),
+                annual_loss_pct=self.val(w, "warranty", "annual_loss_pct"),
+                years=self.val(w, "warranty", "years"),
+                confidence=self.val(w, "warranty", "confidence"),
             )
-        filters = raw.get("filters", {})
-        if not isinstance(filters, dict):
-            self.bad("filters", "expected a table of filter settings")
-            filters = {}
-        for k, val in filters.items():
-            if not isinstance(val, int | float) or isinstance(val, bool):
-                self.bad(f"filters.{k}", f"expected a number, got {val!r}")
+        filters_raw = self.table(raw, "filters")
+        filters = {}
+        for k in filters_raw:
+            if k in _filter_keys():
+                x = self.check(filters_raw, "filters", k, Key("float"))
+                if x is not None:
+                    filters[k] = x
+        name = self.val(site, "site", "name")
         return SiteConfig(
-            id=sid or "", name=self.get(site, "name", "site", str, sid or ""),
-            owner=self.get(site, "owner", "site", str, ""),
+            id=sid or "", name=name if name is not None else (sid or ""),
+            owner=self.val(site, "site", "owner") or "",
             timezone=tz or "UTC",
-            latitude_deg=self.get(site, "latitude_deg", "site", float, lo=-90, hi=90) or 0.0,
-            longitude_deg=self.get(site, "longitude_deg", "site", float, lo=-180, hi=180) or 0.0,
-            altitude_m=self.get(site, "altitude_m", "site", float, 0.0, -500, 9000),
-            tilt_deg=self.get(site, "tilt_deg", "site", float, lo=0, hi=90) or 0.0,
-            azimuth_deg=self.get(site, "azimuth_deg", "site", float, lo=0, hi=360) or 0.0,
-            albedo=self.get(site, "albedo", "site", float, 0.2, 0.0, 1.0),
+            latitude_deg=self.val(site, "site", "latitude_deg") or 0.0,
+            longitude_deg=self.val(site, "site", "longitude_deg") or 0.0,
+            altitude_m=self.val(site, "site", "altitude_m") or 0.0,
+            tilt_deg=self.val(site, "site", "tilt_deg") or 0.0,
+            azimuth_deg=self.val(site, "site", "azimuth_deg") or 0.0,
+            albedo=_or(self.val(site, "site", "albedo"), 0.2),
             sensors=tuple(sensors), inverters=tuple(inverters), sources=tuple(sources),
-            economics=economics, warranty=warranty,
-            filters={k: float(v) for k, v in filters.items() if isinstance(v, int | float)},
+            economics=economics, warranty=warranty, filters=filters,
             path=self.path, toml_text=text,
         )
 
-    def _list(self, items: Any, key: str) -> list[dict]:
-        if not isinstance(items, list) or not all(isinstance(x, dict) for x in items):
-            self.bad(key, f"expected an array of tables ([[{key}]])")
-            return []
-        return items
-
-    def sensors(self, items: Any) -> list[Sensor]:
+    def sensors(self, items: list[dict], given: bool = True) -> list[Sensor]:
         out, seen = [], set()
-        for n, s in enumerate(self._list(items, "sensors")):
+        for n, s in enumerate(items):
             key = f"sensors[{n}]"
-            sid = self.get(s, "id", key, str)
-            if sid in seen:
+            sid = self.val(s, key, "id")
+            if sid is not None and sid in seen:
                 self.bad(f"{key}.id", f"duplicate sensor id {sid!r}")
+            if sid in RESERVED_IDS:
+                self.bad(f"{key}.id", f"{sid!r} is reserved for site-level results")
             seen.add(sid)
-            q = self.choice(s, "quantity", key, SENSOR_QUANTITIES)
+            q = self.val(s, key, "quantity")
             inst = None
             if q in ("poa_wm2", "ghi_wm2"):
-                inst = self.choice(s, "instrument", key, INSTRUMENTS)
+                inst = self.check(s, key, "instrument", Key("str", required=True, choices=INSTRUMENTS))
+            elif "instrument" in s:
+                self.bad(f"{key}.instrument", f"applies to irradiance sensors only, not {q}")
             out.append(Sensor(id=sid or f"?{n}", quantity=q or "", instrument=inst,
-                              notes=self.get(s, "notes", key, str, "")))
+                              notes=self.val(s, key, "notes") or ""))
         if not any(s.quantity == "poa_wm2" for s in out):
             self.bad("sensors", "at least one POA irradiance sensor (quantity = \"poa_wm2\") is required")
         return out
 
-    def inverters(self, items: Any, sensors: dict[str, Sensor]) -> list[Inverter]:
+    def inverters(self, items: list[dict], sensors: dict[str, Sensor]) -> list[Inverter]:
         out, seen = [], set()
-        items = self._list(items, "inverters")
         if not items:
             self.bad("inverters", "at least one [[inverters]] entry is required")
         for n, t in enumerate(items):
             key = f"inverters[{n}]"
-            iid = self.get(t, "id", key, str)
-            if iid in seen:
+            iid = self.val(t, key, "id")
+            if iid is not None and iid in seen:
                 self.bad(f"{key}.id", f"duplicate inverter id {iid!r}")
+            if iid in RESERVED_IDS:
+                self.bad(f"{key}.id", f"{iid!r} is reserved for site-level results")
             seen.add(iid)
-            gamma = self.get(t, "gamma_pmp_per_c", key, float)
+            gamma = self.val(t, key, "gamma_pmp_per_c")
             if gamma is not None and not (-0.01 <= gamma < 0):
                 self.bad(f"{key}.gamma_pmp_per_c",
                          "expected a negative number per °C (e.g. -0.0035 for -0.35 %/°C), "
                          f"got {gamma}")
             refs = {}
-            for ref, qty, required in (("poa_sensor", "poa_wm2", True),
-                                       ("t_module_sensor", "t_module_c", True),
-                                       ("t_amb_sensor", "t_amb_c", False),
-                                       ("wind_sensor", "wind_ms", False)):
-                sid = self.get(t, ref, key, str, ... if required else None)
+            for ref, qty in (("poa_sensor", "poa_wm2"), ("t_module_sensor", "t_module_c"),
+                             ("t_amb_sensor", "t_amb_c"), ("wind_sensor", "wind_ms")):
+                sid = self.val(t, key, ref)
                 if sid is not None:
                     if sid not in sensors:
-                        self.bad(f"{key}.{ref}", f"no sensor with id {sid!r}; known: "
-                                 f"{', '.join(sorted(sensors)) or '(none)'}")
+                        hint = closest(sid, sensors)
+                        self.bad(f"{key}.{ref}", f"no sensor with id {sid!r}"
+                                 + (f" (did you mean `{hint}`?)" if hint else "")
+                                 + f"; known: {', '.join(sorted(sensors)) or '(none)'}")
                     elif sensors[sid].quantity != qty:
                         self.bad(f"{key}.{ref}", f"sensor {sid!r} measures "
                                  f"{sensors[sid].quantity}, expected {qty}")
                 refs[ref] = sid
-            p_dc = self.get(t, "p_dc_kwp", key, float, lo=0.1, hi=1e6)
-            p_ac = self.get(t, "p_ac_max_kw", key, float, lo=0.1, hi=1e6)
+            p_dc = self.val(t, key, "p_dc_kwp")
+            p_ac = self.val(t, key, "p_ac_max_kw")
             out.append(Inverter(
                 id=iid or f"?{n}", p_dc_kwp=p_dc or 1.0, p_ac_max_kw=p_ac or 1.0,
                 gamma_pmp_per_c=gamma if gamma is not None else -0.004,
-                mounting=self.choice(t, "mounting", key, MOUNTINGS),
-                eta_inv_nom=self.get(t, "eta_inv_nom", key, float, 0.96, 0.5, 1.0),
-                commissioned=self.date(t, "commissioned", key),
-                peer_group=self.get(t, "peer_group", key, str, "site"),
+                mounting=self.val(t, key, "mounting"),
+                eta_inv_nom=_or(self.val(t, key, "eta_inv_nom"), 0.96),
+                commissioned=self.val(t, key, "commissioned"),
+                peer_group=self.val(t, key, "peer_group") or "site",
                 poa_sensor=refs["poa_sensor"], t_module_sensor=refs["t_module_sensor"],
                 t_amb_sensor=refs["t_amb_sensor"], wind_sensor=refs["wind_sensor"],
             ))
         return out
 
-    def sources(self, items: Any, sensors: list[Sensor], inverters: list[Inverter],
+    def pattern(self, pat: str, key: str, folder_given: bool) -> str | None:
+        """A glob pattern relative to the search folder: not empty, '**' only as a whole part,
+        no '..' and not absolute (use ``folder`` for files elsewhere)."""
+        if pat is None:
+            return None
+        parts = pat.replace("\\", "/").split("/")
+        if not pat.strip():
+            self.bad(key, "must not be empty (e.g. \"*.csv\")")
+        elif pat.startswith(("/", "\\")) or re.match(r"^[A-Za-z]:", pat):
+            self.bad(key, "must be relative; set `folder` to search an absolute folder")
+        elif ".." in parts:
+            self.bad(key, "must not contain '..' (files outside the search folder); set `folder` "
+                          "explicitly to search another folder")
+        elif any("**" in p and p != "**" for p in parts):
+            self.bad(key, "'**' must be a whole path part (e.g. \"**/*.csv\"), got " + repr(pat))
+        elif not parts[-1] or parts[-1] == "**":
+            self.bad(key, "must end with a file name pattern (e.g. \"*.csv\")")
+        else:
+            try:
+                Path(".").glob(pat)  # syntax only; nothing is listed
+            except (ValueError, NotImplementedError) as exc:
+                self.bad(key, f"not a usable pattern: {exc}")
+            else:
+                return pat
+        return None
+
+    def sources(self, items: list[dict], sensors: list[Sensor], inverters: list[Inverter],
                 device_ids: set[str]) -> list[Source]:
         out = []
-        items = self._list(items, "sources")
         if not items:
             self.bad("sources", "at least one [[sources]] entry describing the export files is required")
+        names = set()
         for n, s in enumerate(items):
             key = f"sources[{n}]"
-            layout = self.choice(s, "layout", key, LAYOUTS, "wide")
-            ts = s.get("timestamp", {})
+            layout = self.val(s, key, "layout")
             tkey = f"{key}.timestamp"
-            zone = self.get(ts, "zone", tkey, str, "local")
-            if zone not in ("local", "UTC") and not re.fullmatch(r"[+-]\d\d:\d\d", zone or ""):
-                self.bad(f"{tkey}.zone", f"expected 'local', 'UTC' or a fixed offset like '+01:00', got {zone!r}")
+            ts = self.table(s, "timestamp", key)
+            zone = self.val(ts, tkey, "zone")
+            if zone is not None and zone not in ("local", "UTC") and not _valid_offset(zone):
+                self.bad(f"{tkey}.zone", "expected 'local', 'UTC' or a fixed offset from -12:00 "
+                                         f"to +14:00 like '+01:00', got {zone!r}")
+                zone = None
+            fmt = self.val(ts, tkey, "format")
+            if fmt is not None and fmt not in ("epoch_s", "iso8601"):
+                problem = _check_strftime(fmt)
+                if problem:
+                    self.bad(f"{tkey}.format", problem)
+                    fmt = None
+            earliest = self.val(ts, tkey, "earliest")
+            latest = self.val(ts, tkey, "latest")
+            if earliest and latest and latest < earliest:
+                self.bad(f"{tkey}.latest", f"is before earliest ({earliest})")
             tspec = TimestampSpec(
-                column=self.get(ts, "column", tkey, str, "timestamp"),
-                format=self.get(ts, "format", tkey, str, "%Y-%m-%d %H:%M:%S"),
-                zone=zone, label=self.choice(ts, "label", tkey, LABELS, "end"),
-                ambiguous=self.choice(ts, "ambiguous", tkey, AMBIGUOUS, "infer"),
+                column=_or(self.val(ts, tkey, "column"), "timestamp"),
+                format=fmt or "%Y-%m-%d %H:%M:%S",
+                zone=zone or "local", label=self.val(ts, tkey, "label") or "end",
+                ambiguous=self.val(ts, tkey, "ambiguous") or "infer",
+                earliest=earliest or EARLIEST_DEFAULT, latest=latest,
             )
             columns: list[ColumnMap] = []
-            for m, c in enumerate(self._list(s.get("columns", []), f"{key}.columns")):
+            for m, c in enumerate(self.array(s, "columns", key)):
                 columns.extend(self._columns(c, f"{key}.columns[{m}]", sensors, inverters, device_ids))
             long_spec, qnames = None, {}
             if layout == "long":
-                lt = s.get("long", {})
                 lkey = f"{key}.long"
+                lt = self.table(s, "long", key)
                 long_spec = LongSpec(
-                    device_column=self.get(lt, "device_column", lkey, str, "device"),
-                    quantity_column=self.get(lt, "quantity_column", lkey, str, "quantity"),
-                    value_column=self.get(lt, "value_column", lkey, str, "value"),
-                    unit_column=self.get(lt, "unit_column", lkey, str, None),
+                    device_column=self.val(lt, lkey, "device_column"),
+                    quantity_column=self.val(lt, lkey, "quantity_column"),
+                    value_column=self.val(lt, lkey, "value_column"),
+                    unit_column=self.val(lt, lkey, "unit_column"),
                 )
-                for name, spec in (lt.get("quantities") or {}).items():
+                quantities = self.table(lt, "quantities", lkey)
+                for name, spec in quantities.items():
+                    qkey = f"{lkey}.quantities.{name}"
                     if not isinstance(spec, dict):
-                        self.bad(f"{lkey}.quantities.{name}", "expected { quantity = ..., unit = ... }")
+                        self.bad(qkey, "expected { quantity = ..., unit = ... }, got " + _show(spec))
                         continue
-                    q = self.choice(spec, "quantity", f"{lkey}.quantities.{name}", tuple(QUANTITY_UNITS))
-                    u = normalise_unit(self.get(spec, "unit", f"{lkey}.quantities.{name}", str, ""))
+                    self.keys(spec, qkey, "sources[].long.quantities.*")
+                    q = self.val(spec, qkey, "quantity", "sources[].long.quantities.*")
+                    u = normalise_unit(self.val(spec, qkey, "unit", "sources[].long.quantities.*") or "")
                     if q in QUANTITY_UNITS and u and u not in QUANTITY_UNITS[q]:
-                        self.bad(f"{lkey}.quantities.{name}.unit",
+                        self.bad(f"{qkey}.unit",
                                  f"unit {u!r} is not one of {', '.join(QUANTITY_UNITS[q])} for {q}")
-                    qnames[name] = (q, u or (QUANTITY_UNITS.get(q, ("",))[0]))
+                    if q is not None:
+                        qnames[name] = (q, u or QUANTITY_UNITS[q][0])
                 if not qnames:
                     self.bad(f"{lkey}.quantities", "long layout needs a table mapping quantity names")
             elif not columns:
                 self.bad(f"{key}.columns", "wide layout needs at least one [[sources.columns]] entry")
-            delim = self.get(s, "delimiter", key, str, ",")
+            delim = self.val(s, key, "delimiter")
             if delim in ("\\t", "tab"):
                 delim = "\t"
             if delim not in (",", ";", "\t", "|"):
                 self.bad(f"{key}.delimiter", f"expected ',', ';', '\\t' or '|', got {delim!r}")
-            dec = self.get(s, "decimal", key, str, ".")
+                delim = ","
+            dec = self.val(s, key, "decimal")
             if dec not in (".", ","):
                 self.bad(f"{key}.decimal", f"expected '.' or ',', got {dec!r}")
+                dec = "."
             elif dec == delim:
                 self.bad(f"{key}.decimal", "the decimal separator cannot equal the delimiter")
-            enc = self.get(s, "encoding", key, str, "utf-8")
+            enc = self.val(s, key, "encoding")
             try:
                 "".encode(enc)
-            except LookupError:
+            except (LookupError, TypeError):
                 self.bad(f"{key}.encoding", f"unknown text encoding {enc!r} (utf-8, utf-16, latin-1)")
-            miss = self.get(s, "missing_values", key, list, list(Source.missing_values))
+                enc = "utf-8"
+            miss = self.val(s, key, "missing_values")
             corrections = []
-            for m, c in enumerate(self._list(s.get("clock_corrections", []), f"{key}.clock_corrections")):
+            for m, c in enumerate(self.array(s, "clock_corrections", key)):
                 ckey = f"{key}.clock_corrections[{m}]"
-                start = self.get(c, "start", ckey, (dt.datetime, dt.date))
-                end = self.get(c, "end", ckey, (dt.datetime, dt.date))
-                shift = self.get(c, "shift_minutes", ckey, int, lo=-1440, hi=1440)
+                start = self.val(c, ckey, "start")
+                end = self.val(c, ckey, "end")
+                shift = self.val(c, ckey, "shift_minutes")
                 start, end = (x if isinstance(x, dt.datetime) or x is None
                               else dt.datetime.combine(x, dt.time()) for x in (start, end))
-                if isinstance(end, dt.datetime) and end.time() == dt.time() and not isinstance(
-                        c.get("end"), dt.datetime):
+                if isinstance(end, dt.datetime) and not isinstance(c.get("end"), dt.datetime):
                     end = end + dt.timedelta(days=1, seconds=-1)  # a date means the whole day
                 if start and end and end < start:
                     self.bad(ckey, "end is before start")
                 if start and end and shift is not None:
-                    corrections.append(ClockCorrection(start, end, shift, self.get(c, "note", ckey, str, "")))
+                    corrections.append(ClockCorrection(start, end, shift,
+                                                       self.val(c, ckey, "note") or ""))
+            name = self.val(s, key, "name") or f"source{n}"
+            if name in names:
+                self.bad(f"{key}.name", f"duplicate source name {name!r}")
+            names.add(name)
+            folder = self.val(s, key, "folder")
+            if folder is not None and not folder.strip():
+                self.bad(f"{key}.folder", "must not be empty (leave it out to search the config's folder)")
+                folder = None
             out.append(Source(
-                name=self.get(s, "name", key, str, f"source{n}"),
-                pattern=self.get(s, "pattern", key, str, "*.csv*"),
+                name=name,
+                pattern=self.pattern(self.val(s, key, "pattern"), f"{key}.pattern",
+                                     folder is not None) or "*.csv*",
+                folder=folder,
                 layout=layout or "wide", encoding=enc, delimiter=delim, decimal=dec,
-                skip_lines=self.get(s, "skip_lines", key, int, 0, 0, 1000),
-                unit_row=self.get(s, "unit_row", key, bool, False),
-                missing_values=tuple(str(x) for x in miss),
+                skip_lines=_or(self.val(s, key, "skip_lines"), 0),
+                unit_row=bool(self.val(s, key, "unit_row")),
+                missing_values=tuple(miss) if miss is not None else Source.missing_values,
                 timestamp=tspec, columns=tuple(columns), long=long_spec, quantity_names=qnames,
-                counter_rollover_kwh=self.get(s, "counter_rollover_kwh", key, float, None, 1.0, 1e15),
+                counter_rollover_kwh=self.val(s, key, "counter_rollover_kwh"),
                 clock_corrections=tuple(corrections),
-                ignore_columns=tuple(str(x) for x in self.get(s, "ignore_columns", key, list, [])),
+                ignore_columns=tuple(self.val(s, key, "ignore_columns") or ()),
             ))
         return out
 
     def _columns(self, c: dict, key: str, sensors: list[Sensor], inverters: list[Inverter],
                  device_ids: set[str]) -> list[ColumnMap]:
         """One ``[[sources.columns]]`` entry; ``{inverter}`` / ``{sensor}`` in header expands."""
-        header = self.get(c, "header", key, str)
-        q = self.choice(c, "quantity", key, tuple(QUANTITY_UNITS))
-        unit = normalise_unit(self.get(c, "unit", key, str, QUANTITY_UNITS.get(q, ("",))[0] if q else ""))
+        header = self.val(c, key, "header")
+        q = self.val(c, key, "quantity")
+        unit = normalise_unit(self.val(c, key, "unit") or (QUANTITY_UNITS[q][0] if q else ""))
         if header is None or q is None:
             return []
-        if q in QUANTITY_UNITS and unit not in QUANTITY_UNITS[q]:
+        if not header.strip():
+            self.bad(f"{key}.header", "must not be empty")
+            return []
+        if unit not in QUANTITY_UNITS[q]:
             self.bad(f"{key}.unit", f"unit {unit!r} is not one of {', '.join(QUANTITY_UNITS[q])} for {q}")
         if "{inverter}" in header:
             return [ColumnMap(header.replace("{inverter}", i.id), i.id, q, unit) for i in inverters]
         if "{sensor}" in header:
             return [ColumnMap(header.replace("{sensor}", s.id), s.id, q, unit)
                     for s in sensors if s.quantity == q]
-        dev = self.get(c, "device", key, str)
+        dev = self.check(c, key, "device", Key("id", required=True))
         if dev is None:
             return []
         if dev not in device_ids:
-            self.bad(f"{key}.device", f"no inverter or sensor with id {dev!r}")
+            hint = closest(dev, device_ids)
+            self.bad(f"{key}.device", f"no inverter or sensor with id {dev!r}"
+                     + (f" (did you mean `{hint}`?)" if hint else ""))
             return []
         is_inv = any(i.id == dev for i in inverters)
         if is_inv and q not in INVERTER_QUANTITIES:
@@ -539,3 +880,33 @@ class _Validator:
             if q != sq:
                 self.bad(f"{key}.quantity", f"sensor {dev!r} is configured as {sq}, column says {q}")
         return [ColumnMap(header, dev, q, unit)]
+
+
+def _or(val: Any, default: Any) -> Any:
+    return default if val is None else val
+
+
+def _valid_offset(zone: str) -> bool:
+    """A fixed UTC offset ``±HH:MM`` within -12:00..+14:00 (the offsets in civil use)."""
+    m = re.fullmatch(r"([+-])(\d\d):(\d\d)", zone)
+    if not m:
+        return False
+    minutes = int(m.group(2)) * 60 + int(m.group(3))
+    return int(m.group(3)) < 60 and (minutes <= 14 * 60 if m.group(1) == "+" else minutes <= 12 * 60)
+
+
+def _check_strftime(fmt: str) -> str | None:
+    """Why ``fmt`` is not a usable strptime pattern, or None."""
+    import pandas as pd
+
+    if not fmt.strip():
+        return "must not be empty (a strptime pattern such as \"%Y-%m-%d %H:%M\", \"iso8601\" or \"epoch_s\")"
+    if "%" not in fmt:
+        return (f"{fmt!r} has no % directive; expected a strptime pattern such as "
+                "\"%Y-%m-%d %H:%M\", or \"iso8601\" or \"epoch_s\"")
+    try:
+        pd.to_datetime(pd.Series(["2001-02-03 04:05:06"]), format=fmt, errors="coerce")
+        dt.datetime(2001, 2, 3, 4, 5, 6).strftime(fmt)
+    except (ValueError, TypeError, re.error) as exc:
+        return f"not a valid strptime pattern: {exc}"
+    return None

@@ -87,33 +87,66 @@ def match_source(cfg: SiteConfig, path: str | os.PathLike) -> Source | None:
     """The first source whose ``pattern`` matches the file name (or its path relative to the config)."""
     p = Path(path)
     for src in cfg.sources:
-        if fnmatch.fnmatch(p.name, Path(src.pattern).name) or p.match(src.pattern):
-            return src
+        try:
+            if fnmatch.fnmatch(p.name, Path(src.pattern).name) or p.match(src.pattern):
+                return src
+        except ValueError:  # a pattern pathlib cannot match (the config check rejects these)
+            continue
     return None
+
+
+def search_folder(cfg: SiteConfig, src: Source) -> tuple[Path, bool]:
+    """The folder a source's pattern is searched in, and whether it was configured explicitly
+    (``folder``: absolute, or relative to the config's folder). Default: the config's folder."""
+    base = Path(cfg.path).parent if cfg.path else Path(".")
+    if src.folder:
+        return (base / Path(src.folder).expanduser()), True
+    return base, False
+
+
+def _inside(f: Path, root: Path) -> bool:
+    """Whether ``f`` (symlinks resolved) lies inside ``root`` (resolved)."""
+    try:
+        return f.resolve().is_relative_to(root.resolve())
+    except (OSError, RuntimeError):
+        return False
 
 
 def discover(cfg: SiteConfig, paths: Iterable[str | os.PathLike] | None = None
              ) -> list[tuple[Path, Source | None]]:
     """Files to load, in name order: given files, folders searched with each source's pattern;
-    with no paths, each source's pattern relative to the config file's folder."""
-    base = Path(cfg.path).parent if cfg.path else Path(".")
+    with no paths, each source's pattern in its search folder (:func:`search_folder`).
+
+    A pattern never leads out of the folder it searches: a match that is (or goes through) a
+    symbolic link to a file outside that folder is left out. Files named explicitly are
+    taken as given."""
     found: dict[Path, Source | None] = {}
     paths = list(paths or [])
+
+    def add(root: Path, hits: Iterable[Path], src: Source) -> None:
+        for f in sorted(hits):
+            if f.is_file() and _inside(f, root):
+                found.setdefault(f, src)
+
     if not paths:
         for src in cfg.sources:
-            for f in sorted(base.glob(src.pattern)):
-                if f.is_file():
-                    found.setdefault(f, src)
+            root, _explicit = search_folder(cfg, src)
+            add(root, _glob(root, src.pattern), src)
     for p in map(Path, paths):
         if p.is_dir():
             for src in cfg.sources:  # the pattern relative to the folder, else its file part
-                hits = sorted(p.glob(src.pattern)) or sorted(p.glob(Path(src.pattern).name))
-                for f in hits:
-                    if f.is_file():
-                        found.setdefault(f, src)
+                hits = _glob(p, src.pattern) or _glob(p, Path(src.pattern).name)
+                add(p, hits, src)
         else:
             found.setdefault(p, match_source(cfg, p))
     return sorted(found.items(), key=lambda kv: (kv[0].name, str(kv[0])))
+
+
+def _glob(root: Path, pattern: str) -> list[Path]:
+    try:
+        return sorted(root.glob(pattern))
+    except (ValueError, NotImplementedError, OSError):  # the config check rejects such patterns
+        return []
 
 
 def ingest_paths(engine: sa.Engine, cfg: SiteConfig, paths: Iterable | None = None, *,

@@ -31,10 +31,14 @@ from collections import Counter
 import numpy as np
 import pandas as pd
 
-from ingest.config import ClockCorrection, TimestampSpec
+from ingest.config import EARLIEST_DEFAULT, ClockCorrection, TimestampSpec
 
 NAT = np.iinfo(np.int64).min
 _OFFSET = re.compile(r"(?:Z|[+-]\d\d:?\d\d)\s*$")
+
+
+def _ns(day: dt.date) -> np.int64:
+    return np.datetime64(day, "ns").astype(np.int64)
 
 
 def parse_wall(raw: np.ndarray, fmt: str) -> tuple[np.ndarray, bool]:
@@ -80,6 +84,10 @@ class TimestampConverter:
         self.gap_rows = Counter()  # local date -> rows rejected (nonexistent time)
         self.repeat_rows: dict[str, Counter] = {}  # local date -> {"summer": n, "standard": n, "rejected": n}
         self._infer_state: dict[str, tuple[int, bool]] = {}  # date -> (last wall ns, stepped back)
+        self.earliest = spec.earliest or EARLIEST_DEFAULT
+        self.latest = spec.latest or (dt.datetime.now(dt.UTC).date() + dt.timedelta(days=1))
+        self._earliest = _ns(self.earliest)
+        self._latest = _ns(self.latest + dt.timedelta(days=1))  # inclusive of the latest day
         self.offset_s = None
         if spec.zone not in ("local", "UTC"):
             sign = -1 if spec.zone[0] == "-" else 1
@@ -97,6 +105,13 @@ class TimestampConverter:
                 reasons[i] = (f"timestamp {str(raw[i])!r} does not match format {fmt!r}"
                               if fmt != "epoch_s" else
                               f"timestamp {str(raw[i])!r} is not epoch seconds")
+        out_w = ~bad & ((wall < self._earliest) | (wall >= self._latest))
+        if out_w.any():
+            for i in np.flatnonzero(out_w):
+                reasons[i] = (f"timestamp {str(raw[i]).strip()!r} is outside the plausible dates "
+                              f"{self.earliest} .. {self.latest} (timestamp.earliest / latest)")
+            wall[out_w] = NAT
+            bad = bad | out_w
         for n, (lo, hi, shift, _c) in enumerate(self._corr):
             m = (wall >= lo) & (wall <= hi) & ~bad
             k = int(m.sum())

@@ -101,17 +101,17 @@ def test_drifting_sensor_biases_sensor_rate_not_clearsky_or_peers(drifting_site)
         d = clearsky_daily_pi(site["p_ac"][name], site["poa_cs"], clear, p_dc_kwp=site["p_dc_kwp"],
                               gamma_pmp_per_c=site["gamma"], eta_inv_nom=site["eta"],
                               t_cell_c=site["t_cell"])
-        cs = degradation_yoy(densify_clear_days(d["pi_clearsky"]), method="clearsky_yoy")
+        cs = degradation_yoy(densify_clear_days(d["pi_clearsky"]), method="modelled_sky_year_pairs")
         sb = degradation_yoy(sensor_pi[name].dropna())
-        peer = degradation_yoy(ratio[name].dropna(), method="peer_relative")
+        peer = degradation_yoy(ratio[name].dropna(), method="peer_ratio_year_pairs")
         assert abs(cs.rate_pct_per_yr - truth) < 0.1
         assert abs(sb.rate_pct_per_yr - (truth - 0.99)) < 0.1
         assert abs(peer.rate_pct_per_yr - (truth - fleet_rate)) < 0.15
         # paired drift check: ratio sensor/clear-sky index falls at ≈ 1 - 1/1.01 = 0.99 %/yr
         drift = sensor_clearsky_drift(sensor_pi[name], d["pi_clearsky"])
         assert abs(drift.rate_pct_per_yr + 0.99) < 0.1 and drift.ci_high < 0
-        verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs, "peer_relative": peer,
-                                   "sensor_vs_clearsky": drift})
+        verdict = compare_methods({"sensor_year_pairs": sb, "modelled_sky_year_pairs": cs, "peer_ratio_year_pairs": peer,
+                                   "sensor_drift_check": drift})
         assert verdict["agree"] is False
         assert DRIFT_WARNING in verdict["warnings"]
 
@@ -124,9 +124,9 @@ def test_stable_sensor_methods_agree():
     d = clearsky_daily_pi(site["p_ac"]["INV01"], site["poa_cs"], clear, p_dc_kwp=100,
                           gamma_pmp_per_c=site["gamma"], eta_inv_nom=site["eta"],
                           t_cell_c=site["t_cell"])
-    cs = degradation_yoy(densify_clear_days(d["pi_clearsky"]), method="clearsky_yoy")
+    cs = degradation_yoy(densify_clear_days(d["pi_clearsky"]), method="modelled_sky_year_pairs")
     sb = degradation_yoy(sensor_daily_pi(site, "INV01").dropna())
     drift = sensor_clearsky_drift(sensor_daily_pi(site, "INV01"), d["pi_clearsky"])
     assert drift.ci_low < 0 < drift.ci_high  # a stable sensor: no drift shown
-    verdict = compare_methods({"yoy": sb, "clearsky_yoy": cs, "sensor_vs_clearsky": drift})
+    verdict = compare_methods({"sensor_year_pairs": sb, "modelled_sky_year_pairs": cs, "sensor_drift_check": drift})
     assert verdict["agree"] is True and verdict["warnings"] == []

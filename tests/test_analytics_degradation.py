@@ -76,7 +76,7 @@ def test_yoy_recovers_rate_with_noise_outliers_gaps():
     res = degradation_yoy(pi.dropna())
     assert abs(res.rate_pct_per_yr + 0.5) < 0.1
     assert res.ci_low < -0.5 < res.ci_high
-    hist = res.details["histogram"]
+    hist = res.details["pair_rate_distribution"]
     assert sum(hist["counts"]) == res.n_points
     assert len(hist["edges_pct_per_yr"]) == len(hist["counts"]) + 1
 
@@ -284,17 +284,17 @@ def _r(m, rd, lo, hi):
 
 
 def test_compare_methods_verdicts():
-    ok = compare_methods({"yoy": _r("yoy", -0.5, -0.6, -0.4), "rlm": _r("rlm", -0.55, -0.7, -0.45),
-                          "clearsky_yoy": _r("clearsky_yoy", -0.45, -0.6, -0.3)})
+    ok = compare_methods({"sensor_year_pairs": _r("sensor_year_pairs", -0.5, -0.6, -0.4), "sensor_monthly_robust_line": _r("sensor_monthly_robust_line", -0.55, -0.7, -0.45),
+                          "modelled_sky_year_pairs": _r("modelled_sky_year_pairs", -0.45, -0.6, -0.3)})
     assert ok["agree"] is True and ok["warnings"] == []
-    bad = compare_methods({"yoy": _r("yoy", -1.5, -1.6, -1.4),
-                           "clearsky_yoy": _r("clearsky_yoy", -0.5, -0.6, -0.4),
-                           "peer_relative": _r("peer_relative", 0.0, -0.1, 0.1)})
+    bad = compare_methods({"sensor_year_pairs": _r("sensor_year_pairs", -1.5, -1.6, -1.4),
+                           "modelled_sky_year_pairs": _r("modelled_sky_year_pairs", -0.5, -0.6, -0.4),
+                           "peer_ratio_year_pairs": _r("peer_ratio_year_pairs", 0.0, -0.1, 0.1)})
     assert bad["agree"] is False
     assert DRIFT_WARNING in bad["warnings"]
-    assert "peer_relative" not in bad["compared"]
-    one = compare_methods({"yoy": _r("yoy", -0.5, -0.6, -0.4),
-                           "stl": RateResult.refused("stl", "too few months")})
+    assert "peer_ratio_year_pairs" not in bad["compared"]
+    one = compare_methods({"sensor_year_pairs": _r("sensor_year_pairs", -0.5, -0.6, -0.4),
+                           "sensor_monthly_trend_line": RateResult.refused("sensor_monthly_trend_line", "too few months")})
     assert one["agree"] is None
 
 

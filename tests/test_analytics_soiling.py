@@ -13,8 +13,8 @@ from analytics.soiling import (
     detect_cleanings,
     soiling_flags,
     soiling_intervals,
-    soiling_ratio_iw,
-    soiling_ratio_iw_mc,
+    soiling_ratio_insolation_weighted,
+    soiling_ratio_insolation_weighted_mc,
     soiling_ratio_series,
 )
 
@@ -52,9 +52,9 @@ def test_theilslopes_linear_interval_methods_vector():
 def test_sr_iw_methods_vector():
     # METHODS §8: SR = [1, 0.99, 0.98], H = [2, 4, 6] -> (2 + 3.96 + 5.88)/12 = 0.98667
     # (unweighted mean 0.99).
-    assert soiling_ratio_iw([1, 0.99, 0.98], [2, 4, 6]) == pytest.approx(0.986667, abs=1e-6)
-    assert soiling_ratio_iw([1, np.nan, 0.98], [2, 4, 6]) == pytest.approx((2 + 5.88) / 8)
-    assert math.isnan(soiling_ratio_iw([], []))
+    assert soiling_ratio_insolation_weighted([1, 0.99, 0.98], [2, 4, 6]) == pytest.approx(0.986667, abs=1e-6)
+    assert soiling_ratio_insolation_weighted([1, np.nan, 0.98], [2, 4, 6]) == pytest.approx((2 + 5.88) / 8)
+    assert math.isnan(soiling_ratio_insolation_weighted([], []))
 
 
 def test_cleaning_economics_methods_vector():
@@ -113,17 +113,17 @@ def test_monte_carlo_brackets_truth():
     # A 95 % interval should hold the injected SR_iw in most seeded runs: require >= 8 of 10
     # (binomial, p = 0.95: P(<= 7 of 10) ≈ 1 %).
     h = pd.Series(6.0, index=DAYS)
-    truth = soiling_ratio_iw(_true_sr(), h)
+    truth = soiling_ratio_insolation_weighted(_true_sr(), h)
     hits = 0
     for seed in range(10):
         iv = soiling_intervals(_pi(seed), CLEANINGS)
-        mc = soiling_ratio_iw_mc(DAYS, iv, h, n_runs=300, recovery_min=1.0)
-        hits += mc["sr_iw_low"] <= truth <= mc["sr_iw_high"]
-        assert mc["sr_iw_median"] == pytest.approx(truth, abs=0.003)
+        mc = soiling_ratio_insolation_weighted_mc(DAYS, iv, h, n_runs=300, recovery_min=1.0)
+        hits += mc["soiling_ratio_weighted_low"] <= truth <= mc["soiling_ratio_weighted_high"]
+        assert mc["soiling_ratio_weighted"] == pytest.approx(truth, abs=0.003)
     assert hits >= 8
     # partial recovery can only lower SR_iw
-    mc_partial = soiling_ratio_iw_mc(DAYS, iv, h, n_runs=300, recovery_min=0.5)
-    assert mc_partial["sr_iw_median"] < mc["sr_iw_median"]
+    mc_partial = soiling_ratio_insolation_weighted_mc(DAYS, iv, h, n_runs=300, recovery_min=0.5)
+    assert mc_partial["soiling_ratio_weighted"] < mc["soiling_ratio_weighted"]
 
 
 def test_soiling_flags_and_recommendation():
@@ -143,7 +143,7 @@ def test_soiling_flags_and_recommendation():
         cleaning_interval_days(1500, 0.08, 4500, 0.0015), rel=0.2)
     # lost energy of the last interval ≈ Σ E (1 − SR): 4500 x 0.0015 x Σ_{0..99} d = 33 412 kWh
     assert so.iloc[-1]["lost_kwh"] == pytest.approx(33412, rel=0.2)
-    assert "sr_iw_mc" in last and last["sr_iw_mc"]["sr_iw_low"] <= last["sr_iw_site"] + 0.01
+    assert "soiling_ratio_weighted_mc" in last and last["soiling_ratio_weighted_mc"]["soiling_ratio_weighted_low"] <= last["soiling_ratio_weighted_site"] + 0.01
     # a cleaning costing more than the loss -> no recommendation, severity info
     fl2 = soiling_flags(pi, h, e, tariff_per_kwh=0.08, cleaning_cost=50000, n_runs=0)
     assert not fl2[fl2["kind"] == "soiling"].iloc[-1]["details"]["recommend_cleaning"]

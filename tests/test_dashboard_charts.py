@@ -110,13 +110,13 @@ def test_pr_trend_empty_says_so():
 
 
 def test_degradation_forest_whiskers_are_the_intervals():
-    res = pd.DataFrame({"device_id": ["A", "A", "B"], "method": ["yoy", "rlm", "yoy"],
+    res = pd.DataFrame({"device_id": ["A", "A", "B"], "method": ["sensor_year_pairs", "sensor_monthly_robust_line", "sensor_year_pairs"],
                         "rate_pct_per_yr": [-0.62, -0.55, -0.40],
                         "ci_low": [-0.80, -0.70, -0.60], "ci_high": [-0.45, -0.40, -0.20]})
     fig = charts.degradation_forest(res)
     titles = _check_units(fig)
     assert titles["xaxis"] == "Degradation rate Rd [%/yr]"
-    yoy = next(t for t in fig.data if t.name == "yoy")
+    yoy = next(t for t in fig.data if t.name == "sensor_year_pairs")
     # METHODS §11 test vector: Rd = -0.62, 95 % CI [-0.80, -0.45]
     assert_allclose(yoy.error_x.array, [0.17, 0.20], atol=1e-12)  # ci_high - Rd
     assert_allclose(yoy.error_x.arrayminus, [0.18, 0.20], atol=1e-12)  # Rd - ci_low

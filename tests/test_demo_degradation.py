@@ -86,7 +86,7 @@ def test_stable_sensor_inverters_within_0p2(results, truth):
     for dev, rd in rates.items():
         if _sensor_of(truth, dev) != "POA-RC1" or dev in faulty:
             continue
-        got = results.loc[(dev, "yoy"), "rate_pct_per_yr"]
+        got = results.loc[(dev, "sensor_year_pairs"), "rate_pct_per_yr"]
         assert abs(got - rd) < 0.2, (dev, got, rd)
         checked += 1
     assert checked >= 4
@@ -99,10 +99,10 @@ def test_drifting_pyranometer_caught_by_clearsky(results, truth):
     assert devs
     cs_ok = warned = 0
     for dev in devs:
-        cs = results.loc[(dev, "clearsky_yoy"), "rate_pct_per_yr"]
+        cs = results.loc[(dev, "modelled_sky_year_pairs"), "rate_pct_per_yr"]
         if not np.isnan(cs) and abs(cs - rates[dev]) < 0.2:
             cs_ok += 1
-        summary = results.loc[(dev, "summary"), "details"]
+        summary = results.loc[(dev, "overview"), "details"]
         warned += any("POA sensor calibration" in w for w in summary["warnings"])
     assert cs_ok >= len(devs) - 1
     assert warned >= len(devs) // 2
@@ -113,7 +113,7 @@ def test_string_failure_found_as_level_shift(results, truth):
 
     sf = truth["string_failure"]
     day = dt.date.fromisoformat(sf["from_local"][:10])
-    cps = results.loc[(sf["inverter"], "summary"), "details"]["change_points"]
+    cps = results.loc[(sf["inverter"], "overview"), "details"]["change_points"]
     assert any(abs((dt.date.fromisoformat(c["day"]) - day).days) <= 14 and c["size_pct"] < -1
                for c in cps), cps
 
@@ -123,7 +123,7 @@ def test_fleet_median_near_published_median(results, truth):
     # demo's injected rates span -0.31..-0.93 %/yr (median -0.66): the recovered median of the
     # stable-sensor inverters must lie in that range.
     rates = truth["degradation"]["per_inverter_pct_per_yr"]
-    got = [results.loc[(d, "yoy"), "rate_pct_per_yr"] for d in rates
+    got = [results.loc[(d, "sensor_year_pairs"), "rate_pct_per_yr"] for d in rates
            if _sensor_of(truth, d) == "POA-RC1"]
     med = float(np.nanmedian(got))
     assert min(rates.values()) <= med <= max(rates.values())
@@ -138,11 +138,11 @@ def test_string_failure_step_sized_and_within_segment_rate(results, truth):
     # injected rate (the whole-period rate includes the step).
     sf = truth["string_failure"]
     dev = sf["inverter"]
-    cps = [c for c in results.loc[(dev, "summary"), "details"]["change_points"]
+    cps = [c for c in results.loc[(dev, "overview"), "details"]["change_points"]
            if c["kind"] == "drop"]
     assert len(cps) == 1 and abs(cps[0]["size_pct"] + 100 * sf["dc_loss_fraction"]) < 1.5, cps
     rd = truth["degradation"]["per_inverter_pct_per_yr"][dev]
-    got = results.loc[(dev, "yoy_stable_segments"), "rate_pct_per_yr"]
+    got = results.loc[(dev, "sensor_year_pairs_between_shifts"), "rate_pct_per_yr"]
     assert abs(got - rd) < 0.2, (got, rd)
 
 
@@ -153,5 +153,5 @@ def test_soiling_differences_are_not_level_shifts(results, truth):
     for d in truth["degradation"]["per_inverter_pct_per_yr"]:
         if d == truth["string_failure"]["inverter"]:
             continue
-        kinds = [c["kind"] for c in results.loc[(d, "summary"), "details"]["change_points"]]
+        kinds = [c["kind"] for c in results.loc[(d, "overview"), "details"]["change_points"]]
         assert not {"drop", "rise"} & set(kinds), (d, kinds)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -97,19 +98,19 @@ def test_job_stores_every_method(store):
     engine, summary = store
     assert summary["inverters"] == 5 and summary["refused"] == 1
     res = degradation_results(engine, "s1")
-    methods = {"yoy", "rlm", "stl", "peer_relative", "clearsky_yoy", "sensor_vs_clearsky",
-               "yoy_stable_segments", "summary"}
+    methods = {"sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
+               "sensor_year_pairs_between_shifts", "overview"}
     for dev in ("INV01", "INV02", "INV03", "INV04", "INV05", SITE_DEVICE):
         assert set(res.loc[res["device_id"] == dev, "method"]) == methods
-    one = res[(res["device_id"] == "INV01") & (res["method"] == "yoy")].iloc[0]
+    one = res[(res["device_id"] == "INV01") & (res["method"] == "sensor_year_pairs")].iloc[0]
     assert one["ci_low"] < one["rate_pct_per_yr"] < one["ci_high"]
-    assert one["details"]["histogram"]["counts"]
+    assert one["details"]["pair_rate_distribution"]["counts"]
 
 
 def test_short_inverter_refused_with_reason(store):
     engine, _ = store
     res = degradation_results(engine, "s1")
-    r = res[(res["device_id"] == "INV05") & (res["method"] == "yoy")].iloc[0]
+    r = res[(res["device_id"] == "INV05") & (res["method"] == "sensor_year_pairs")].iloc[0]
     assert np.isnan(r["rate_pct_per_yr"]) and "at least 2 years" in r["reason"]
 
 
@@ -120,11 +121,11 @@ def test_drift_detected_and_clearsky_recovers_truth(store):
     res = degradation_results(engine, "s1").set_index(["device_id", "method"])
     for i, truth in enumerate(RATES, start=1):
         dev = f"INV{i:02d}"
-        assert abs(res.loc[(dev, "clearsky_yoy"), "rate_pct_per_yr"] - truth) < 0.15
-        assert abs(res.loc[(dev, "yoy"), "rate_pct_per_yr"] - (truth - 0.99)) < 0.15
-        drift = res.loc[(dev, "sensor_vs_clearsky")]
+        assert abs(res.loc[(dev, "modelled_sky_year_pairs"), "rate_pct_per_yr"] - truth) < 0.15
+        assert abs(res.loc[(dev, "sensor_year_pairs"), "rate_pct_per_yr"] - (truth - 0.99)) < 0.15
+        drift = res.loc[(dev, "sensor_drift_check")]
         assert abs(drift["rate_pct_per_yr"] + 0.99) < 0.15 and drift["ci_high"] < 0
-        summ = res.loc[(dev, "summary"), "details"]
+        summ = res.loc[(dev, "overview"), "details"]
         assert any("check POA sensor calibration" in w for w in summ["warnings"])
         assert summ["comparison"]["agree"] is False
 
@@ -132,15 +133,15 @@ def test_drift_detected_and_clearsky_recovers_truth(store):
 def test_results_json_document(store):
     engine, _ = store
     doc = results_document(engine, "s1")
-    assert doc["schema"] == "heliaudit-results/1"
+    assert doc["schema"] == "heliaudit-results/2"
     assert doc["site"]["site_id"] == "s1" and doc["site"]["timezone"] == "UTC"
     assert doc["software"]["version"] and doc["parameters"]["confidence"] == 0.95
     inv = {b["device_id"]: b for b in doc["inverters"]}
     d1 = inv["INV01"]
     for k in ("rate_pct_per_yr", "ci_low", "ci_high", "confidence", "n_points"):
-        assert d1["degradation"]["yoy"][k] is not None
-    assert d1["degradation"]["peer_relative"]["rate_pct_per_yr"] is not None
-    assert inv["INV05"]["degradation"]["yoy"]["reason"]
+        assert d1["degradation"]["sensor_year_pairs"][k] is not None
+    assert d1["degradation"]["peer_ratio_year_pairs"]["rate_pct_per_yr"] is not None
+    assert inv["INV05"]["degradation"]["sensor_year_pairs"]["reason"]
     # PR from daily sums (IEC 61724-1 ratio of sums): recompute from the stored daily table
     from db.daily import daily_table
     t = daily_table(engine, "s1", ["INV01"])
@@ -152,7 +153,7 @@ def test_results_json_document(store):
     w4 = inv["INV04"]["warranty"]
     assert w4["exceeds"] is True and w4["warranted_rate_pct_per_yr"] == -0.55
     assert "Screening evidence" in w4["disclaimer"] and w4["shortfall_kwh"] >= 0
-    assert doc["site_result"]["degradation"]["yoy"]["rate_pct_per_yr"] is not None
+    assert doc["site_result"]["degradation"]["sensor_year_pairs"]["rate_pct_per_yr"] is not None
     assert isinstance(doc["flags"], list)
     json.dumps(doc, allow_nan=False)  # strict JSON
 
@@ -163,7 +164,7 @@ def test_cli_json_and_csv(store, tmp_path):
     out = tmp_path / "r.json"
     r = CliRunner().invoke(main, ["--db", url, "results", "--site", "s1", "--out", str(out)])
     assert r.exit_code == 0, r.output
-    assert json.loads(out.read_text())["schema"] == "heliaudit-results/1"
+    assert json.loads(out.read_text())["schema"] == "heliaudit-results/2"
     r = CliRunner().invoke(main, ["--db", url, "results", "--site", "s1", "--format", "csv"])
     assert r.exit_code == 0
     head = r.output.splitlines()[0].split(",")
@@ -222,3 +223,51 @@ def test_clearsky_inputs_read_only_power_and_module_temperature(store):
         np.testing.assert_allclose(power[dev].to_numpy(), ref.to_numpy(), rtol=1e-6)
         np.testing.assert_allclose(t_mod[dev].to_numpy(), f["t_module_c"].reindex(
             power.index).to_numpy(), rtol=1e-6, atol=1e-4)
+
+
+#: Codes of results schema 1 that recall an existing program's vocabulary (issue #10): none may
+#: appear in what heliaudit writes. Matched as whole tokens, case-insensitively.
+OLD_CODES = re.compile(r"(?<![a-z])(yoy|clearsky_yoy|sensor_vs_clearsky|yoy_stable_segments|"
+                       r"sr_iw\w*|headline_method)(?![a-z])", re.IGNORECASE)
+#: Schema-1 method codes that are ordinary words in prose (RLM, STL keep their names in text).
+OLD_METHOD_KEYS = {"rlm", "stl", "peer_relative", "summary"}
+
+
+def _strings(obj):
+    if isinstance(obj, dict):
+        for k, v in obj.items():
+            yield str(k)
+            yield from _strings(v)
+    elif isinstance(obj, list | tuple):
+        for v in obj:
+            yield from _strings(v)
+    elif isinstance(obj, str):
+        yield obj
+
+
+def test_results_use_our_own_names_only(store, tmp_path):
+    """Schema 2 keys and method names (issue #10): no schema-1 code in the JSON or CSV."""
+    engine, _ = store
+    doc = results_document(engine, "s1")
+    hits = sorted({m.group(0) for s in _strings(doc) for m in OLD_CODES.finditer(s)})
+    assert hits == [], f"schema-1 codes in the results JSON: {hits}"
+    for block in doc["inverters"] + [doc["site_result"]]:
+        assert not OLD_METHOD_KEYS & set(block["degradation"]), block["device_id"]
+    url = str(engine.url)
+    for table in ("degradation", "daily", "flags"):
+        r = CliRunner().invoke(main, ["--db", url, "results", "--site", "s1", "--format", "csv",
+                                      "--table", table])
+        assert r.exit_code == 0, r.output
+        hits = sorted({m.group(0) for m in OLD_CODES.finditer(r.output)})
+        assert hits == [], f"schema-1 codes in the {table} CSV: {hits}"
+        if table == "degradation":
+            methods = {line.split(",")[2] for line in r.output.splitlines()[1:]}
+            assert methods and not OLD_METHOD_KEYS & methods, methods
+
+
+def test_old_codes_pattern_is_live():
+    """The pattern above would catch each old code (so the test cannot pass vacuously)."""
+    for code in ("yoy", "clearsky_yoy", "sensor_vs_clearsky", "yoy_stable_segments", "sr_iw",
+                 "sr_iw_low", "headline_method"):
+        assert OLD_CODES.search(f'{{"method": "{code}"}}'), code
+    assert not OLD_CODES.search("sensor_year_pairs modelled_sky_year_pairs overview style")

@@ -63,7 +63,7 @@ def test_sqlite_and_postgres_agree(small_site, pg_engine):
     a = g_lite.sort_values(k).reset_index(drop=True)
     b = g_pg.sort_values(k).reset_index(drop=True)
     assert list(a["method"]) == list(b["method"])
-    assert a.loc[a["method"] == "yoy", "rate_pct_per_yr"].notna().sum() >= 4  # rates exist
+    assert a.loc[a["method"] == "sensor_year_pairs", "rate_pct_per_yr"].notna().sum() >= 4  # rates exist
     for c in ("rate_pct_per_yr", "ci_low", "ci_high"):
         np.testing.assert_allclose(a[c].to_numpy(float), b[c].to_numpy(float), rtol=1e-9,
                                    atol=1e-9, equal_nan=True)

@@ -49,9 +49,9 @@ devices = list(dict.fromkeys(res["device_id"]))
 c1, c2 = st.columns(2)
 device = c1.selectbox("Device", devices, key="deg_device")
 methods = sorted(res.loc[(res["device_id"] == device) & res["rate_pct_per_yr"].notna(),
-                         "method"].unique()) or ["yoy"]
+                         "method"].unique()) or ["sensor_year_pairs"]
 method = c2.selectbox("Method for the warranty check", methods, key="deg_method",
-                      index=methods.index("yoy") if "yoy" in methods else 0)
+                      index=methods.index("sensor_year_pairs") if "sensor_year_pairs" in methods else 0)
 v = agree[agree["device_id"] == device]
 if not v.empty:
     verdict = v.iloc[0]
@@ -69,7 +69,7 @@ if h is not None:
     left.plotly_chart(charts.yoy_histogram(h["edges"], h["counts"], h["rate"], h["ci"],
                                            title=f"{device}: year-on-year pair rates "
                                                  f"({h['n_points']:.0f} pairs)"),
-                      theme=None, key="yoy_hist")
+                      theme=None, key="pair_rates_chart")
     left.caption(f"Bars: rate of every pair of days one year apart (r_d); line: their median "
                  f"{h['rate']:+.2f} %/yr; shaded: its interval {h['ci'][0]:+.2f} … "
                  f"{h['ci'][1]:+.2f} %/yr (moving-block bootstrap). The outermost bins also hold "

@@ -23,7 +23,7 @@ period = c2.radio("Period", ["Full history", "Selected date range"], horizontal=
                   key="trend_period")
 results = data.degradation_table(url, site_id)
 rates = data.rates_only(results).dropna(subset=["rate_pct_per_yr"])
-methods = sorted(rates["method"].unique(), key=lambda m: (m != "yoy", m))
+methods = sorted(rates["method"].unique(), key=lambda m: (m != "sensor_year_pairs", m))
 method = c3.selectbox("Degradation fit", ["(none)", *methods], key="trend_method",
                       index=1 if methods else 0)
 

@@ -122,7 +122,7 @@ def build_fleet_db(path: Path, n_inverters: int = 100, years: int = 5, reading_d
     drows = []
     for did in inv_pk:
         r = float(rng.normal(-0.5, 0.2))
-        for m in ("yoy", "regression"):
+        for m in ("sensor_year_pairs", "regression"):
             drows.append((SITE, did, m, r, r - 0.2, r + 0.2, 0.95, 1500, None,
                           json.dumps({"yoy_rates_pct_per_yr": list(rng.normal(r, 1, 50))}), 1))
     con.executemany("INSERT INTO degradation_result VALUES (?,?,?,?,?,?,?,?,?,?,?)", drows)

@@ -55,7 +55,7 @@ def run_all(pis, weights, clear, p, workers: int | None = None) -> int:
                       rng_key=len(pis)))
     out = methods_many(tasks, workers=workers)
     return sum(all(r.rate_pct_per_yr is not None for m, r in res.items()
-                   if m != "yoy_stable_segments") for res, _ in out[:-1])
+                   if m != "sensor_year_pairs_between_shifts") for res, _ in out[:-1])
 
 
 def _cpu() -> float:
