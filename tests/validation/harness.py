@@ -161,7 +161,7 @@ def site_toml(site_json: dict, export_dir: Path, config_dir: Path) -> str:
                 out.append(f"{key} = {_toml_str(sid)}")
         out.append("")
     ts_fmt = "%Y-%m-%d %H:%M"
-    out += ["[[sources]]", 'name = "logger"', f"pattern = {_toml_str(rel + '/*.csv')}",
+    out += ["[[sources]]", 'name = "logger"', f"folder = {_toml_str(rel)}", 'pattern = "*.csv"',
             'layout = "wide"', f"encoding = {_toml_str(dia['encoding'])}",
             f"delimiter = {_toml_str(dia['delimiter'])}", f"decimal = {_toml_str(dia['decimal'])}",
             "missing_values = [" + ", ".join(_toml_str(m) for m in dia["missing"]) + "]", "",
