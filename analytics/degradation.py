@@ -747,19 +747,22 @@ def sensor_clearsky_drift(pi_sensor: pd.Series, pi_clearsky: pd.Series, *,
 
 
 SENSOR_METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line")
-DRIFT_WARNING = ("sensor-based and clear-sky rates disagree: check POA sensor calibration "
-                 "(drift) before using the sensor-based rate")
+DRIFT_WARNING = ("sensor_drift_check: the POA sensor drifts against the modelled clear sky: "
+                 "check its calibration before using sensor_year_pairs or any sensor-based rate")
 
 
-def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "modelled_sky_year_pairs"
-                    ) -> dict:
+def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "modelled_sky_year_pairs",
+                    drift: dict | None = None) -> dict:
     """Verdict on whether absolute-rate methods agree within their intervals.
 
     Two methods agree when their intervals overlap (a lenient, easily explained rule; the
     methods share data, so their errors are positively correlated). The peer-relative rate is
     relative to the fleet and is not compared with absolute rates. The POA-drift warning also
     fires when ``results["sensor_drift_check"]`` (:func:`sensor_clearsky_drift`, a much
-    tighter paired test) has an interval that excludes zero. Returns
+    tighter paired test) has an interval that excludes zero — unless ``drift`` (the sensor's
+    judgement over all its inverters, :func:`judge_sensor_drift`) is given, which then alone
+    decides: one inverter's interval is too narrow a basis (drift warnings fired on 27 % of
+    the inverters of drift-free validation fleets, issue #13). Returns
     ``{"agree": bool | None, "compared": [...], "disagreements": [[a, b], ...],
     "warnings": [...]}``; ``agree`` is None when fewer than two methods have an interval.
     """
@@ -774,10 +777,14 @@ def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "m
             if ra.ci_high < rb.ci_low or rb.ci_high < ra.ci_low:
                 bad.append([a, b])
     msgs = []
-    drift = results.get("sensor_drift_check")
-    drift_shown = (drift is not None and drift.rate_pct_per_yr is not None
-                   and drift.ci_low is not None and (drift.ci_low > 0 or drift.ci_high < 0))
-    if drift_shown or any(clearsky_method in p and (set(p) & set(SENSOR_METHODS)) for p in bad):
+    check = results.get("sensor_drift_check")
+    drift_shown = (check is not None and check.rate_pct_per_yr is not None
+                   and check.ci_low is not None and (check.ci_low > 0 or check.ci_high < 0))
+    if drift is not None:
+        drift_shown = bool(drift.get("judged"))
+    elif any(clearsky_method in p and (set(p) & set(SENSOR_METHODS)) for p in bad):
+        drift_shown = True
+    if drift_shown:
         msgs.append(DRIFT_WARNING)
     sensor_bad = [p for p in bad if set(p) <= set(SENSOR_METHODS)]
     if sensor_bad:
@@ -785,3 +792,209 @@ def compare_methods(results: dict[str, RateResult], *, clearsky_method: str = "m
                     + "): look for steps (change points), soiling or seasonal artefacts")
     return {"agree": None if len(names) < 2 else not bad, "compared": names,
             "disagreements": bad, "warnings": msgs}
+
+
+# ---------------------------------------------------------------- the recommended rate
+
+#: Method codes (README "Degradation rates").
+YEAR_PAIRS = "sensor_year_pairs"
+ROBUST_LINE = "sensor_monthly_robust_line"
+TREND_LINE = "sensor_monthly_trend_line"
+PEER_PAIRS = "peer_ratio_year_pairs"
+SKY_PAIRS = "modelled_sky_year_pairs"
+DRIFT_CHECK = "sensor_drift_check"
+BETWEEN_SHIFTS = "sensor_year_pairs_between_shifts"
+SOILING_CORRECTED = "sensor_year_pairs_soiling_corrected"
+#: Rates that rest on the irradiance sensor (a drift of the sensor shifts them one to one).
+SENSOR_BASED = (YEAR_PAIRS, ROBUST_LINE, TREND_LINE, BETWEEN_SHIFTS, SOILING_CORRECTED)
+
+
+def interval_68(res: RateResult) -> tuple[float | None, float | None]:
+    """The 68 % interval of a rate: the bootstrap's own (year-on-year methods,
+    ``details["ci_68"]``), else the stated interval scaled to one standard error under a
+    normal reading (half-width · z(0.84) / z(0.5 + confidence/2)).
+
+    Examples
+    --------
+    >>> r = RateResult("x", -0.5, ci_low=-0.696, ci_high=-0.304, confidence=0.95)
+    >>> [round(v, 3) for v in interval_68(r)]   # half-width 0.196 / 1.96 * 1.000 = 0.100
+    [-0.6, -0.4]
+    """
+    if res.rate_pct_per_yr is None or res.ci_low is None or res.ci_high is None:
+        return None, None
+    c68 = res.details.get("ci_68") if isinstance(res.details, dict) else None
+    if c68 and len(c68) == 2 and all(np.isfinite(c68)):
+        return float(c68[0]), float(c68[1])
+    conf = res.confidence or 0.95
+    z = scipy.stats.norm.ppf(0.5 + conf / 2)
+    z68 = scipy.stats.norm.ppf(0.5 + 0.6827 / 2)
+    lo = res.rate_pct_per_yr - (res.rate_pct_per_yr - res.ci_low) * z68 / z
+    hi = res.rate_pct_per_yr + (res.ci_high - res.rate_pct_per_yr) * z68 / z
+    return float(lo), float(hi)
+
+
+def judge_sensor_drift(checks: list[RateResult], *, min_drift_pct_per_yr: float = 0.5,
+                       min_share: float = 0.5) -> dict:
+    """Whether an irradiance sensor drifts, from the drift checks of the inverters it serves.
+
+    Each inverter's :func:`sensor_clearsky_drift` measures the same sensor against the modelled
+    clear sky; their median is the sensor's drift. It is judged to drift when that median is
+    at least ``min_drift_pct_per_yr`` in size **and** at least ``min_share`` of the checks
+    have an interval that excludes zero on that side. The size threshold: ISO 9060 class A
+    pyranometers are specified to a non-stability of 0.8 %/yr at most (from memory), and the
+    clear-sky checks of drift-free sensors on the project's validation fleets scatter by
+    about ±0.2 %/yr (tests/validation scorecard), so 0.5 %/yr keeps false alarms rare while
+    a 1 %/yr drift is caught.
+
+    Returns ``{"judged": bool, "drift_pct_per_yr": float | None, "n_checks": int,
+    "n_excluding_zero": int}``.
+
+    Examples
+    --------
+    >>> mk = lambda r, lo, hi: RateResult(DRIFT_CHECK, r, lo, hi, 0.95)
+    >>> judge_sensor_drift([mk(1.1, 0.8, 1.4), mk(0.9, 0.5, 1.2), mk(0.2, -0.1, 0.5)])["judged"]
+    True
+    >>> judge_sensor_drift([mk(0.3, 0.1, 0.5), mk(0.2, 0.05, 0.4)])["judged"]
+    False
+    """
+    ok = [c for c in checks if c is not None and c.rate_pct_per_yr is not None
+          and c.ci_low is not None and c.ci_high is not None]
+    if not ok:
+        return {"judged": False, "drift_pct_per_yr": None, "n_checks": 0, "n_excluding_zero": 0}
+    med = float(np.median([c.rate_pct_per_yr for c in ok]))
+    side = [c for c in ok if (c.ci_low > 0 if med > 0 else c.ci_high < 0)]
+    judged = abs(med) >= min_drift_pct_per_yr and len(side) >= min_share * len(ok)
+    return {"judged": bool(judged), "drift_pct_per_yr": med, "n_checks": len(ok),
+            "n_excluding_zero": len(side)}
+
+
+def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
+                   shifts: list[dict] | None = None, soiling: dict | None = None,
+                   sensor_id: str | None = None, low: float = -2.0, high: float = 0.5,
+                   min_soiling_loss_pct: float = 1.0) -> RateResult:
+    """The one rate to lead with, chosen by the evidence, with its reasons and caveats.
+
+    Rules, in order (each names the evidence):
+
+    1. the irradiance sensor is judged to drift (:func:`judge_sensor_drift`): the rate that
+       does not use it, ``modelled_sky_year_pairs`` (clear-sky index, Jordan et al. 2018
+       pairs); every sensor-based rate is shifted by about the drift;
+    2. a persistent level shift was found (``shifts``: drops/rises from
+       :func:`analytics.changepoint.detect_level_shifts`): the rate within the segments
+       between shifts, ``sensor_year_pairs_between_shifts``; each shift is reported beside it
+       (date, size, energy);
+    3. soiling is material (``soiling["loss_pct"]`` ≥ ``min_soiling_loss_pct``): the
+       year-on-year rate of the soiling-corrected index, ``sensor_year_pairs_soiling_corrected``
+       (soiling ratio after Deceglie et al. 2018); seasonally uneven soiling otherwise leaks
+       into year-on-year pairs;
+    4. otherwise the best-calibrated method on the validation fleets, ``sensor_year_pairs``
+       (then ``sensor_monthly_robust_line`` if it was refused).
+
+    A rule whose method was refused falls through to the next. Caveats (kinds of the results
+    contract): ``sensor_drift``, ``level_shift``, ``soiling``, ``out_of_range`` (outside
+    ``low``..``high`` %/yr, the band of published field rates, Jordan & Kurtz 2013),
+    ``little_data`` (fewer than 3 years), ``methods_disagree`` (another absolute method's
+    interval does not overlap the chosen one); each names the method it is about.
+
+    Returns a :class:`RateResult` with ``method = "recommended"``, the chosen method's rate,
+    interval, confidence and ``n_points``; ``details`` = ``{"chosen_method", "reasons",
+    "caveats", "ci68_low", "ci68_high"}``.
+
+    Examples
+    --------
+    >>> r = {YEAR_PAIRS: RateResult(YEAR_PAIRS, -0.5, -0.6, -0.4, 0.95, 700),
+    ...      SKY_PAIRS: RateResult(SKY_PAIRS, -0.7, -0.9, -0.5, 0.95, 600)}
+    >>> recommend_rate(r).details["chosen_method"]
+    'sensor_year_pairs'
+    >>> rec = recommend_rate(r, drift={"judged": True, "drift_pct_per_yr": 1.0})
+    >>> rec.details["chosen_method"], rec.rate_pct_per_yr
+    ('modelled_sky_year_pairs', -0.7)
+    """
+    shifts = [c for c in (shifts or []) if c.get("kind") in ("drop", "rise")]
+    reasons: list[str] = []
+    caveats: list[dict] = []
+
+    def have(m):
+        r = results.get(m)
+        return r is not None and r.rate_pct_per_yr is not None
+
+    chosen = None
+    sensor = f"POA sensor {sensor_id}" if sensor_id else "the POA sensor"
+    if drift and drift.get("judged"):
+        d = drift.get("drift_pct_per_yr")
+        text = (f"{sensor} drifts by about {d:+.2f} %/yr against the modelled clear sky "
+                f"({DRIFT_CHECK}); the sensor-based rates ({YEAR_PAIRS} and the others) are "
+                "shifted by about that much: check the sensor's calibration")
+        caveats.append({"kind": "sensor_drift", "method": YEAR_PAIRS, "text": text})
+        if have(SKY_PAIRS):
+            chosen = SKY_PAIRS
+            reasons.append(f"{sensor} is judged to drift ({d:+.2f} %/yr): the rate that does not "
+                           f"use it, {SKY_PAIRS}, is recommended")
+        else:
+            reasons.append(f"{sensor} is judged to drift but {SKY_PAIRS} was not computed "
+                           f"({results.get(SKY_PAIRS).reason if results.get(SKY_PAIRS) else 'absent'}): "
+                           "the sensor-based rate is shown, read it with the drift in mind")
+    if shifts:
+        txt = "; ".join(f"{c['day']}: {c['size_pct']:+.1f} %"
+                        + (f", {c['energy_kwh']:+,.0f} kWh since" if c.get("energy_kwh") is not None
+                           else "") for c in shifts)
+        caveats.append({"kind": "level_shift", "method": YEAR_PAIRS,
+                        "text": f"level shift(s) {txt}: a step is a failure or repair (string, "
+                                f"module, inverter), not degradation; {YEAR_PAIRS} over the whole "
+                                f"period mixes it in, {BETWEEN_SHIFTS} leaves it out. Inspection is "
+                                "for qualified people (PV arrays are energised whenever lit)"})
+        if chosen is None and have(BETWEEN_SHIFTS):
+            chosen = BETWEEN_SHIFTS
+            reasons.append(f"{len(shifts)} persistent level shift(s) found: the rate within the "
+                           f"segments between them, {BETWEEN_SHIFTS}, is recommended")
+    loss = None if not soiling else soiling.get("loss_pct")
+    if loss is not None and loss >= min_soiling_loss_pct:
+        caveats.append({"kind": "soiling", "method": YEAR_PAIRS,
+                        "text": f"soiling costs about {loss:.1f} % of the energy; seasonally uneven "
+                                f"soiling leaks into {YEAR_PAIRS}; {SOILING_CORRECTED} divides it out"})
+        if chosen is None and have(SOILING_CORRECTED):
+            chosen = SOILING_CORRECTED
+            reasons.append(f"soiling is material ({loss:.1f} % energy loss): the rate of the "
+                           f"soiling-corrected index, {SOILING_CORRECTED}, is recommended")
+    if chosen is None:
+        for m in (YEAR_PAIRS, ROBUST_LINE):
+            if have(m):
+                chosen = m
+                reasons.append(f"no sensor drift, level shift or material soiling found: "
+                               f"{m}, the best-calibrated method on the validation fleets, is "
+                               "recommended")
+                break
+    if chosen is None:
+        why = "; ".join(f"{m}: {r.reason}" for m, r in results.items() if r is not None and r.reason)
+        res = RateResult.refused("recommended", "no method gave a rate" + (f" ({why})" if why else ""))
+        res.details = {"chosen_method": None, "reasons": reasons, "caveats": caveats,
+                       "ci68_low": None, "ci68_high": None}
+        return res
+    r = results[chosen]
+    if r.rate_pct_per_yr is not None and not low <= r.rate_pct_per_yr <= high:
+        caveats.append({"kind": "out_of_range", "method": chosen,
+                        "text": f"{chosen}: {r.rate_pct_per_yr:+.2f} %/yr is outside "
+                                f"{low:+.1f}..{high:+.1f} %/yr, the range of published field rates "
+                                "(Jordan & Kurtz 2013): review the data before using it"})
+    span = r.details.get("span_years") if isinstance(r.details, dict) else None
+    if span is not None and span < 3:
+        caveats.append({"kind": "little_data", "method": chosen,
+                        "text": f"{chosen} rests on {span:.1f} years of usable data; 3 or more are "
+                                "recommended, seasonal effects may not average out"})
+    if r.ci_low is not None:
+        for m in (YEAR_PAIRS, ROBUST_LINE, SKY_PAIRS):
+            o = results.get(m)
+            if (m == chosen or o is None or o.ci_low is None or o.rate_pct_per_yr is None
+                    or (m in SENSOR_BASED and drift and drift.get("judged"))):
+                continue
+            if o.ci_high < r.ci_low or r.ci_high < o.ci_low:
+                caveats.append({"kind": "methods_disagree", "method": m,
+                                "text": f"{m} ({o.rate_pct_per_yr:+.2f} %/yr) disagrees with "
+                                        f"{chosen} ({r.rate_pct_per_yr:+.2f} %/yr): their intervals "
+                                        "do not overlap"})
+    lo68, hi68 = interval_68(r)
+    out = RateResult(method="recommended", rate_pct_per_yr=r.rate_pct_per_yr, ci_low=r.ci_low,
+                     ci_high=r.ci_high, confidence=r.confidence, n_points=r.n_points)
+    out.details = {"chosen_method": chosen, "reasons": reasons, "caveats": caveats,
+                   "ci68_low": lo68, "ci68_high": hi68}
+    return out

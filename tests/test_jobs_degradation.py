@@ -99,7 +99,8 @@ def test_job_stores_every_method(store):
     assert summary["inverters"] == 5 and summary["refused"] == 1
     res = degradation_results(engine, "s1")
     methods = {"sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
-               "sensor_year_pairs_between_shifts", "overview"}
+               "sensor_year_pairs_between_shifts", "sensor_year_pairs_soiling_corrected",
+               "recommended", "overview"}
     for dev in ("INV01", "INV02", "INV03", "INV04", "INV05", SITE_DEVICE):
         assert set(res.loc[res["device_id"] == dev, "method"]) == methods
     one = res[(res["device_id"] == "INV01") & (res["method"] == "sensor_year_pairs")].iloc[0]
@@ -126,8 +127,14 @@ def test_drift_detected_and_clearsky_recovers_truth(store):
         drift = res.loc[(dev, "sensor_drift_check")]
         assert abs(drift["rate_pct_per_yr"] + 0.99) < 0.15 and drift["ci_high"] < 0
         summ = res.loc[(dev, "overview"), "details"]
-        assert any("check POA sensor calibration" in w for w in summ["warnings"])
+        assert any("check its calibration" in w for w in summ["warnings"])
         assert summ["comparison"]["agree"] is False
+        # the sensor is judged to drift: the recommended rate is the one that does not use it
+        rec = res.loc[(dev, "recommended")]
+        assert rec["details"]["chosen_method"] == "modelled_sky_year_pairs"
+        assert rec["rate_pct_per_yr"] == res.loc[(dev, "modelled_sky_year_pairs"), "rate_pct_per_yr"]
+        assert [c["kind"] for c in rec["details"]["caveats"]][0] == "sensor_drift"
+        assert summ["recommended_method"] == "modelled_sky_year_pairs"
 
 
 def test_results_json_document(store):
