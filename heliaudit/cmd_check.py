@@ -110,21 +110,31 @@ def _print_degradation(engine, site_id, echo) -> None:
     by = {(r.device_id, r.method): r for r in deg.itertuples()}
     conf = deg.loc[deg["method"] == "sensor_year_pairs", "confidence"].dropna()
     conf_txt = f"{100 * conf.iloc[0]:.0f} %" if len(conf) else ""
-    echo(f"Degradation [%/yr, {conf_txt} interval], negative = loss: year-on-year (Jordan et "
-         "al. 2018), clear-sky year-on-year (independent of the POA sensor), within stable "
+    echo(f"Degradation [%/yr, {conf_txt} interval], negative = loss: the recommended rate "
+         "(chosen by the evidence, reasons below), year-on-year (Jordan et al. 2018), clear-sky year-on-year (independent of the POA sensor), within stable "
          "segments (steps removed); warranty screening against the configured terms")
-    echo(f"{'device':<10} {'year-on-year':<24} {'clear-sky':<24} {'within segments':<24} warranty")
+    echo(f"{'device':<10} {'recommended':<24} {'year-on-year':<24} {'clear-sky':<24} "
+         f"{'within segments':<24} warranty")
     for dev in sorted(deg["device_id"].unique(), key=lambda d: (d != "(site)", d)):
         yoy = by.get((dev, "sensor_year_pairs"))
-        if yoy is not None and pd.isna(yoy.rate_pct_per_yr):
-            echo(f"{dev:<10} not computed: {yoy.reason}")
+        rec = by.get((dev, "recommended")) or yoy  # stored before #13: no recommended row
+        if rec is not None and pd.isna(rec.rate_pct_per_yr):
+            echo(f"{dev:<10} not computed: {rec.reason}")
             continue
+        rdet = (rec.details or {}) if rec is not None and rec.method == "recommended" else {}
         summ = by.get((dev, "overview"))
         det = summ.details if summ is not None else {}
         w = det.get("warranty") or {}
         verdict = ("exceeds" if w.get("exceeds") else "not shown") if "exceeds" in w else "-"
-        echo(f"{dev:<10} {_rate(yoy):<24} {_rate(by.get((dev, 'modelled_sky_year_pairs'))):<24} "
+        echo(f"{dev:<10} {_rate(rec):<24} {_rate(yoy):<24} "
+             f"{_rate(by.get((dev, 'modelled_sky_year_pairs'))):<24} "
              f"{_rate(by.get((dev, 'sensor_year_pairs_between_shifts'))):<24} {verdict}")
+        if rdet.get("chosen_method"):
+            echo(f"{'':<10}   recommended = {rdet['chosen_method']}: "
+                 + "; ".join(rdet.get("reasons") or []))
+        for cav in rdet.get("caveats") or []:
+            if cav.get("kind") != "level_shift":  # steps are listed below
+                echo(f"{'':<10}   {cav.get('kind')} ({cav.get('method')}): {cav.get('text')}")
         for cp in det.get("change_points", []):
             if cp.get("kind") == "drop":
                 echo(f"{'':<10}   step {cp['day']} {cp['size_pct']:+.1f} %: a failure (string, "
