@@ -1,13 +1,13 @@
 """Clear-sky performance index: a degradation cross-check that does not use the POA sensor.
 
-A drifting irradiance sensor maps one to one into a sensor-based degradation rate (METHODS
-§6 pitfalls). Here the expected power comes from modelled clear-sky irradiance instead, on
+A drifting irradiance sensor maps one to one into a sensor-based degradation rate (Jordan
+et al. 2018 list sensor drift among the pitfalls). Here the expected power comes from modelled clear-sky irradiance instead, on
 periods identified as clear without the sensor under test:
 
 1. Clear-sky irradiance: Ineichen–Perez model with monthly Linke turbidity
    (``pvlib.location.Location.get_clearsky(model='ineichen')``), transposed to the plane of
    array with ``pvlib.irradiance.get_total_irradiance`` (Hay–Davies sky diffuse by default),
-   evaluated at interval mid-points (METHODS §10).
+   evaluated at interval mid-points (pvlib documentation).
 2. Clear periods: the Reno & Hansen (2016) test (``pvlib.clearsky.detect_clearsky``, with the
    thresholds of Jordan & Hansen 2023 for 1–30-minute data, ``infer_limits=True``) applied to
    every irradiance sensor (GHI against clear-sky GHI, POA against clear-sky POA;
@@ -249,7 +249,7 @@ def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd
         Expected-power share of the AC rating where the clipping zone starts
         (:data:`analytics.filters.DEFAULT_FILTERS`).
     utc_offset_h : float
-        Site standard-time offset: days are local standard time (METHODS §10).
+        Site standard-time offset: days are local standard time (pvlib documentation).
 
     Returns
     -------
@@ -297,7 +297,7 @@ def densify_clear_days(pi_clearsky: pd.Series, *, window_days: int = 15,
     """Centred rolling median of the clear-day index over ``window_days`` calendar days.
 
     Clear days one year apart rarely coincide, so pairing raw clear days leaves few pairs;
-    METHODS §6 step 1 allows weekly or monthly medians of a noisy index. Windows with fewer
+    Jordan et al. 2018 allows weekly or monthly medians of a noisy index. Windows with fewer
     than ``min_days`` clear days are NaN.
     """
     s = pi_clearsky.dropna()

@@ -1,4 +1,4 @@
-"""Degradation rates with uncertainty from the daily performance index (METHODS §6, §7).
+"""Degradation rates with uncertainty from the daily performance index (Jordan et al. 2018; Lindig et al. 2018).
 
 Every estimator here returns a :class:`RateResult`: a rate ``rd_pct_per_yr`` (negative = loss),
 its confidence interval, the number of points or pairs it rests on, the warnings raised, and
@@ -117,14 +117,14 @@ def usable_daily_pi(pi: pd.Series, day_valid: pd.Series | None = None, *,
     pi : Series
         Daily performance index, measured / expected energy, indexed by day. [fraction]
     day_valid : Series of bool, optional
-        The daily table's coverage verdict (METHODS §5: ≥80 % of insolation in valid intervals).
+        The daily table's coverage verdict (IEC 61724-1 filtering practice: ≥80 % of insolation in valid intervals).
     commissioned : date, optional
         Commissioning date; the first ``stabilisation_days`` after it are skipped.
     stabilisation_days : int, default 180
         Days skipped after commissioning for light-induced and metastable effects (LID, LeTID,
-        CdTe): METHODS §6 step 1, first 3–6 months (from memory); 180 d is the upper end.
+        CdTe): Jordan et al. 2018, first 3–6 months (from memory); 180 d is the upper end.
     pi_min, pi_max : float
-        Plausibility window for a daily index, METHODS §5 (common practice).
+        Plausibility window for a daily index, IEC 61724-1 filtering practice (common practice).
 
     Returns
     -------
@@ -154,7 +154,7 @@ def check_span(days: pd.DatetimeIndex, *, min_years: float = 2.0, warn_years: fl
     """Years spanned by ``days``; raise below ``min_years``, return a warning below ``warn_years``.
 
     Two years give one year of year-on-year pairs, the hard minimum; three or more are
-    recommended (METHODS §6, from memory).
+    recommended (Jordan et al. 2018, from memory).
     """
     if len(days) < 2:
         raise InsufficientDataError(f"{what}: {len(days)} usable days; at least "
@@ -179,7 +179,7 @@ def yoy_rates(pi: pd.Series, *, lag_days: int = 365, reference: str = "pairwise"
 
     Notes
     -----
-    METHODS §6 steps 2–3 (Jordan et al. 2018):
+    Jordan et al. 2018 (Jordan et al. 2018):
     ``r_d = 100 (PI_{d+365} - PI_d) / PI_ref``, ``PI_ref = PI_d`` (``reference='pairwise'``)
     or the median of the first 365 days (``'year0'``). The lag is fixed at 365 days, so a
     pair spanning 29 February is one day short of a calendar year; the rate is still
@@ -212,7 +212,7 @@ def acf_block_length(x, *, threshold: float = 0.2, max_block: int | None = None)
     """Smallest lag at which the autocorrelation of ``x`` falls below ``threshold`` (≥ 1).
 
     The block of a moving-block bootstrap must be long enough that observations in different
-    blocks are nearly independent (Künsch 1989); the 0.2 threshold is METHODS §6 step 5
+    blocks are nearly independent (Künsch 1989); the 0.2 threshold is common practice (Jordan et al. 2018 use a bootstrap)
     (common practice). Capped at ``max_block`` (default n/4) so enough blocks remain.
 
     Examples
@@ -303,13 +303,13 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
     confidence : float, default 0.95
         Two-sided level of the percentile interval.
     n_resamples : int, default 1000
-        Bootstrap resamples (METHODS §6: ≥ 1000).
+        Bootstrap resamples (Jordan et al. 2018: ≥ 1000).
     rng : Generator or int, default 0
         Seed or generator: the same seed gives the same interval.
     block_length : int, optional
         Default: :func:`acf_block_length` of the pair rates in time order.
     min_years, warn_years : float
-        Refuse below, warn below (METHODS §6 minimum data).
+        Refuse below, warn below (Jordan et al. 2018 minimum data).
     min_pairs : int, default 90
         Refuse with fewer pairs (a season's worth; common practice).
     breaks : list of dates, optional
@@ -326,7 +326,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
     RateResult
         ``rate_pct_per_yr`` = median pair rate [%/yr]; ``n_points`` = number of pairs;
         ``details``: the distribution of the pair rates (``pair_rate_distribution``), block length, 68.2 % interval, P90/P95
-        exceedance (10th/5th percentile of the bootstrap rates, METHODS §6).
+        exceedance (10th/5th percentile of the bootstrap rates, Jordan et al. 2018).
 
     Notes
     -----
@@ -425,7 +425,7 @@ def _hist_edges(vals: np.ndarray, width: float) -> np.ndarray:
 
 
 def _sanity(res: RateResult, *, low: float = -2.0, high: float = 0.5) -> None:
-    """Flag rates outside the review band of METHODS §6 (common practice; Jordan & Kurtz 2013)."""
+    """Flag rates outside the review band (common practice; Jordan & Kurtz 2013)."""
     rd = res.rate_pct_per_yr
     if rd is not None and not low <= rd <= high:
         _warn(res, f"{res.method}: rate {rd:+.2f} %/yr is outside {low:+.1f}..{high:+.1f} %/yr, "
@@ -440,7 +440,7 @@ def monthly_pi(pi: pd.Series, weights: pd.Series | None = None, *, min_days: int
     """Monthly insolation-weighted performance index, ``Σ w_d PI_d / Σ w_d`` per month.
 
     With ``weights`` = the day's expected energy over valid intervals (``e_exp_valid_kwh``)
-    this equals Σ measured / Σ expected energy, the ratio of sums METHODS §5 asks for.
+    this equals Σ measured / Σ expected energy, the ratio of sums IEC 61724-1 filtering practice asks for.
     Months with fewer than ``min_days`` usable days are NaN (common practice). The index is
     the first day of each month.
 
@@ -526,11 +526,11 @@ def rlm_rate(t_yr, y, *, harmonics: int = 1, confidence: float = 0.95, weights=N
     -------
     RateResult
         Rate = 100 β1/β0 [%/yr], β0 the de-seasonalised level at t = 0 (the start),
-        interval by the delta method (METHODS §7).
+        interval by the delta method (Lindig et al. 2018).
 
     Notes
     -----
-    Model A of METHODS §7: PI = β0 + β1 t + Σ_k (a_k sin 2πkt + b_k cos 2πkt), fitted with
+    The linear model with annual harmonics (Lindig et al. 2018): PI = β0 + β1 t + Σ_k (a_k sin 2πkt + b_k cos 2πkt), fitted with
     ``statsmodels.api.RLM(y, X, M=HuberT(t=1.345))`` (statsmodels docs). Interval: RLM's own
     covariances assume independent errors, but monthly residuals are serially correlated
     (soiling, weather regimes), which makes them too narrow. We therefore re-fit the
@@ -599,7 +599,7 @@ def degradation_rlm(pi: pd.Series, weights: pd.Series | None = None, *,
                     aggregate: str = "monthly", harmonics: int = 1, confidence: float = 0.95,
                     min_years: float = 2.0, warn_years: float = 3.0, min_days_per_month: int = 10,
                     method: str = "sensor_monthly_robust_line") -> RateResult:
-    """Robust-regression degradation rate of the daily index (METHODS §7 model A).
+    """Robust-regression degradation rate of the daily index (Lindig et al. 2018, linear model with harmonics).
 
     ``aggregate='monthly'`` first forms the monthly insolation-weighted index
     (:func:`monthly_pi`) — fewer, less correlated points; ``'daily'`` fits every usable day.
@@ -630,7 +630,7 @@ def degradation_stl(pi: pd.Series, weights: pd.Series | None = None, *, confiden
                     seasonal: int = 7, min_years: float = 2.0, warn_years: float = 3.0,
                     min_days_per_month: int = 10, max_missing_fraction: float = 0.25,
                     method: str = "sensor_monthly_trend_line") -> RateResult:
-    """Degradation rate from the trend of a robust STL decomposition (METHODS §7 model B).
+    """Degradation rate from the trend of a robust STL decomposition (Lindig et al. 2018, STL trend).
 
     Steps: monthly insolation-weighted index; months without enough data linearly
     interpolated (STL needs a regular series; refused above ``max_missing_fraction``);
@@ -693,14 +693,14 @@ def peer_relative_pi(pi_frame: pd.DataFrame, *, min_peers: int = 3) -> pd.DataFr
     pi_frame : DataFrame
         Daily index, one column per inverter of one peer group, NaN where not usable.
     min_peers : int, default 3
-        Days with fewer usable peers (excluding the inverter itself) are NaN. METHODS §9 asks
+        Days with fewer usable peers (excluding the inverter itself) are NaN. peer alarms (Iglewicz & Hoaglin 1993 robust z) ask
         for ≥ 5 peers for outlier alarms; a degradation trend averages over years, so 3 is
         accepted here (common practice).
 
     Returns
     -------
     DataFrame
-        Same shape: R_i,d = PI_i,d / median_{j≠i} PI_j,d (METHODS §9). Its year-on-year
+        Same shape: R_i,d = PI_i,d / median_{j≠i} PI_j,d (peer-median ratio, common practice). Its year-on-year
         rate is the inverter's rate relative to the fleet; what the site shares (irradiance
         sensor, weather, clear-sky model) cancels, so a drifting site sensor does not appear
         in it — but neither does degradation common to the whole fleet.
@@ -730,7 +730,7 @@ def sensor_clearsky_drift(pi_sensor: pd.Series, pi_clearsky: pd.Series, *,
     On a clear day both indices see the same energy; their ratio is
     ``E_exp(clear-sky POA) / E_exp(sensor POA)`` ≈ G_clearsky / G_sensor, so module
     degradation, soiling and weather cancel and what remains is the irradiance sensor's
-    drift against the clear-sky model (METHODS §10 drift check, here from yield). A rate
+    drift against the clear-sky model (a clear-sky drift check, here from yield; Reno & Hansen 2016 clear periods). A rate
     whose interval excludes 0 means the sensor-based and clear-sky degradation rates differ
     by that much. The ratio's centred rolling median over ``window_days`` (at least two clear
     days) is used, as for the clear-sky index. Negative = the sensor reads increasingly high

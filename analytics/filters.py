@@ -1,4 +1,4 @@
-"""Interval filters applied before PI, PR trends and degradation (METHODS §5, common practice).
+"""Interval filters applied before PI, PR trends and degradation (IEC 61724-1 filtering practice; common practice).
 
 Every interval gets one **reason code** (:data:`REASONS`); the first failing check in this
 order wins, so an interval excluded for two reasons is counted once, under the earlier one:
@@ -50,7 +50,7 @@ VALID, NIGHT, MISSING, OUT_OF_RANGE, OUTAGE, CLIPPED, STUCK, LOW_IRR, HIGH_IRR =
 #: the others are states of the plant or of the sky.
 DATA_PROBLEMS: tuple[int, ...] = (MISSING, OUT_OF_RANGE, STUCK)
 
-#: Default thresholds (METHODS §5, common practice unless noted); site-configurable.
+#: Default thresholds (common practice unless noted; IEC 61724-1); site-configurable.
 DEFAULT_FILTERS: dict[str, float] = {
     "night_elevation_deg": 0.0,  # sun below the horizon = night
     "night_poa_wm2": 5.0,  # G below this = night
@@ -184,7 +184,7 @@ def sun_and_clearsky(ts_utc, latitude_deg: float, longitude_deg: float, altitude
 
 def night_mask(solar_elevation_deg, poa_wm2, night_elevation_deg: float = 0.0,
                night_poa_wm2: float = 5.0):
-    """True at night: elevation < 0° or G < 5 W/m² (METHODS §5). NaN inputs do not make night.
+    """True at night: elevation < 0° or G < 5 W/m² (IEC 61724-1 practice). NaN inputs do not make night.
 
     Examples
     --------
@@ -223,7 +223,7 @@ def out_of_range_mask(x, lo: float, hi: float):
 
 
 def clipping_mask(p_ac_kw, p_ac_max_kw: float, clip_fraction: float = 0.98):
-    """True where P_ac >= ``clip_fraction`` · P_ac,max: the inverter limits its output (METHODS §5).
+    """True where P_ac >= ``clip_fraction`` · P_ac,max: the inverter limits its output (IEC 61724-1 practice).
 
     Examples
     --------
@@ -235,7 +235,7 @@ def clipping_mask(p_ac_kw, p_ac_max_kw: float, clip_fraction: float = 0.98):
 
 def stuck_mask(x, min_samples: int = 4, tol: float = 1.5, run_breaks=None):
     """True for samples inside a flat line: >= ``min_samples`` consecutive samples whose
-    successive differences are all below ``tol`` (METHODS §5). NaN breaks a run.
+    successive differences are all below ``tol`` (IEC 61724-1 practice). NaN breaks a run.
 
     Parameters
     ----------
@@ -387,7 +387,7 @@ def coverage_fraction(poa_weight_wm2, valid, considered, interval_h=1.0) -> floa
 
 
 def day_valid(coverage, min_coverage: float = 0.8):
-    """A day enters trends when its coverage >= ``min_coverage`` (80 %, METHODS §5). NaN -> False.
+    """A day enters trends when its coverage >= ``min_coverage`` (80 %, IEC 61724-1 practice). NaN -> False.
 
     Examples
     --------

@@ -196,7 +196,7 @@ def _clearsky_daily(engine, site: dict, invs: pd.DataFrame, offset_h: float, p: 
         dev = inv["device_id"]
         if dev not in p_ac:
             continue
-        d_t = 3.0  # Sandia ΔT at 1000 W/m² (King et al. 2004, open rack; METHODS §3)
+        d_t = 3.0  # Sandia ΔT at 1000 W/m² (King et al. 2004, open rack)
         t_cell = t_mod[dev].astype(float) + d_t * g_cs / 1000.0
         daily = acs.clearsky_daily_pi(
             power[dev].astype(float), g_cs, clear, p_dc_kwp=float(inv["p_dc_kwp"]),
@@ -229,7 +229,7 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
                                     rng=np.random.default_rng(seed + [2]), **yoy_kw)
         res["peer_ratio_year_pairs"].details["relative_to"] = "median of the peer group (same day)"
     if clear_pi is not None:
-        clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # METHODS §5 window
+        clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # plausibility window (common practice)
         dense = acs.densify_clear_days(clear_pi, window_days=p["clearsky_window_days"])
         res["modelled_sky_year_pairs"] = _try("modelled_sky_year_pairs", adeg.degradation_yoy, dense,
                                    rng=np.random.default_rng(seed + [3]), **yoy_kw)

@@ -63,7 +63,7 @@ def test_clearsky_daily_pi_clipping_and_clear_fraction():
     clear.iloc[:5] = False  # 3 of 8 equal intervals clear -> fraction 0.375 < 0.5 -> NaN
     out = clearsky_daily_pi(p, g, clear, p_dc_kwp=100, gamma_pmp_per_c=-0.004, p_ac_max_kw=100)
     assert np.isnan(out["pi_clearsky"].iloc[0])
-    # temperature correction: T_cell = 50 °C, γ = -0.004 -> expected ×0.9 (PVWatts, METHODS §4)
+    # temperature correction: T_cell = 50 °C, γ = -0.004 -> expected ×0.9 (PVWatts, Dobos 2014)
     out = clearsky_daily_pi(pd.Series(76.8 * 0.9, t), g, pd.Series(True, t), p_dc_kwp=100,
                             gamma_pmp_per_c=-0.004,
                             t_cell_c=pd.Series(50.0, t))

