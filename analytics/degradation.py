@@ -979,7 +979,7 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
     span = r.details.get("span_years") if isinstance(r.details, dict) else None
     if span is not None and span < 3:
         caveats.append({"kind": "little_data", "method": chosen,
-                        "text": f"{chosen} rests on {span:.1f} years of usable data; 3 or more are "
+                        "text": f"{chosen} rests on {span:.2f} years of usable data; 3 or more are "
                                 "recommended, seasonal effects may not average out"})
     if r.ci_low is not None:
         for m in (YEAR_PAIRS, ROBUST_LINE, SKY_PAIRS):
