@@ -833,18 +833,20 @@ def interval_68(res: RateResult) -> tuple[float | None, float | None]:
     return float(lo), float(hi)
 
 
-def judge_sensor_drift(checks: list[RateResult], *, min_drift_pct_per_yr: float = 0.5,
+def judge_sensor_drift(checks: list[RateResult], *, min_drift_pct_per_yr: float = 0.35,
                        min_share: float = 0.5) -> dict:
     """Whether an irradiance sensor drifts, from the drift checks of the inverters it serves.
 
     Each inverter's :func:`sensor_clearsky_drift` measures the same sensor against the modelled
     clear sky; their median is the sensor's drift. It is judged to drift when that median is
     at least ``min_drift_pct_per_yr`` in size **and** at least ``min_share`` of the checks
-    have an interval that excludes zero on that side. The size threshold: ISO 9060 class A
-    pyranometers are specified to a non-stability of 0.8 %/yr at most (from memory), and the
-    clear-sky checks of drift-free sensors on the project's validation fleets scatter by
-    about ±0.2 %/yr (tests/validation scorecard), so 0.5 %/yr keeps false alarms rare while
-    a 1 %/yr drift is caught.
+    have an interval that excludes zero on that side. The size threshold: the checks of
+    drift-free sensors on the project's validation fleets scatter by about ±0.2 %/yr around a
+    small model bias (tests/validation scorecard); a drift that starts part-way through the
+    period shows in the median of year-on-year pairs at only about half its rate (the demo's
+    0.8 %/yr drift from mid-2023 reads about +0.4 %/yr), so 0.35 %/yr still catches it while
+    a steady 1 %/yr drift reads about +1 %/yr. ISO 9060 class A pyranometers are specified to
+    a non-stability within 0.8 %/yr (from memory).
 
     Returns ``{"judged": bool, "drift_pct_per_yr": float | None, "n_checks": int,
     "n_excluding_zero": int}``.
