@@ -266,8 +266,9 @@ def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: l
     """Year-on-year rate of the index divided by its soiling ratio, and the soiling loss.
 
     The soiling ratio follows Deceglie, Micheli & Muller (2018) as analytics.soiling builds it
-    (cleanings from upward steps of the index, Theil-Sen rate per dry interval); the loss is
-    the expected-energy-weighted 1 - mean SR of the usable days.
+    (cleanings from upward steps of the index, Theil-Sen rate per dry interval, kept only when
+    its 95 % interval lies below zero, so noise is not read as soiling); the loss is the
+    expected-energy-weighted 1 - mean SR of the usable days.
     """
     from analytics import soiling as asoil
 
@@ -278,6 +279,10 @@ def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: l
             warnings.simplefilter("ignore")
             ev = asoil.detect_cleanings(full)
             iv = asoil.soiling_intervals(full, list(ev.index))
+        if len(iv):  # only dry intervals whose Theil-Sen slope is significantly negative
+            insignificant = iv["rate_high"] >= 0
+            iv.loc[insignificant, ["soiling_rate_per_day", "rate_low", "rate_high"]] = 0.0
+            iv.loc[insignificant, "soiled"] = False
         sr = asoil.soiling_ratio_series(full.index, iv).reindex(s.index)
     except (ValueError, KeyError, IndexError) as exc:
         return adeg.RateResult.refused(m, f"soiling ratio not computed: {exc}"), {}
@@ -581,6 +586,7 @@ def _summary(res: dict[str, adeg.RateResult], cps: dict, report: dict, clear_how
             "change_points": cps.get("change_points", []), "segments": cps.get("segments", []),
             "changepoint_method": cps.get("method"), "changepoint_series": cps.get("series"),
             "clear_periods": clear_how or None, "warnings": all_warn,
+            "soiling": cps.get("soiling"),
             "note": awar.DISCLAIMER}
 
 
@@ -671,6 +677,7 @@ def _device_block(res: pd.DataFrame) -> dict:
             "changepoint_method": summary.get("changepoint_method"),
             "warnings": summary.get("warnings", []),
             "data": summary.get("data"), "clear_periods": summary.get("clear_periods"),
+            "sensor_drift": summary.get("sensor_drift"), "soiling": summary.get("soiling"),
             "warranty": summary.get("warranty")}
 
 

@@ -422,10 +422,16 @@ def test_recommended_rules_in_order():
     # recoveries (cleanings) are not shifts
     assert recommend_rate(res, shifts=[dict(shift[0], kind="recovery")]).details[
         "chosen_method"] == "sensor_year_pairs"
-    # material soiling -> the soiling-corrected rate; below 1 % it is not material
-    assert recommend_rate(res, soiling={"loss_pct": 3.2}).details["chosen_method"] == \
+    # material soiling whose correction changes the rate beyond the 68 % intervals -> the
+    # soiling-corrected rate; a correction within them, or soiling below 2 %, does not switch
+    moved = dict(res, sensor_year_pairs_soiling_corrected=_r(
+        "sensor_year_pairs_soiling_corrected", -0.2, -0.3, -0.1))
+    assert recommend_rate(moved, soiling={"loss_pct": 3.2}).details["chosen_method"] == \
         "sensor_year_pairs_soiling_corrected"
-    assert recommend_rate(res, soiling={"loss_pct": 0.4}).details["chosen_method"] == \
+    same = recommend_rate(res, soiling={"loss_pct": 3.2})  # -0.50 vs -0.45: within
+    assert same.details["chosen_method"] == "sensor_year_pairs"
+    assert any(c["kind"] == "soiling" for c in same.details["caveats"])
+    assert recommend_rate(moved, soiling={"loss_pct": 1.5}).details["chosen_method"] == \
         "sensor_year_pairs"
     # a rule whose method was refused falls through
     from analytics.degradation import RateResult
