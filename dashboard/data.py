@@ -674,3 +674,27 @@ def flag_label(f) -> str:
     span = (f"{a:%Y-%m-%d %H:%M}–{b:%H:%M}" if a.date() == b.date()
             else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
     return f"#{f.flag_id} {dev} · {f.kind} ({f.severity}) · {span}{lost}"
+
+
+# ---------------------------------------------------------------- evidence pack (issue #17)
+
+
+def evidence_pack_zip(url: str, site_id: str, inverters: tuple[str, ...] | None = None
+                      ) -> tuple[str, bytes]:
+    """Build the warranty evidence pack (:func:`heliaudit.evidence.build_pack`, the same
+    pack as ``heliaudit evidence``) in a temporary folder; return ``(file name, zip bytes)``.
+
+    Not cached: every click builds a fresh pack from the store as it is now. Raises the
+    builder's errors (``EvidenceError``, ``NothingComputedError``) for the page to show.
+    """
+    import tempfile
+    from pathlib import Path
+
+    from heliaudit.evidence import build_pack, pack_zip, reproduce_command
+
+    name = f"evidence-{site_id}"
+    with tempfile.TemporaryDirectory(prefix="heliaudit-evidence-") as tmp:
+        out = Path(tmp) / name
+        build_pack(engine(url), site_id, out, inverters=inverters or None, db_url=url,
+                   command=reproduce_command(url, site_id, inverters, None, None, name))
+        return f"{name}.zip", pack_zip(out)

@@ -29,3 +29,13 @@ def finish_computation(conn: sa.Connection, computation_id: int) -> None:
     """Mark a computation finished (in the transaction that stores its results)."""
     conn.execute(schema.computation.update().where(
         schema.computation.c.computation_id == computation_id).values(finished_utc=now_utc()))
+
+
+def latest_finished(engine: sa.Engine, site_id: str) -> dict[str, int]:
+    """Per job kind, the id of the site's latest finished computation (kinds never run are
+    absent). Ids grow with time, so a later step is stale when its id is below the daily one."""
+    c = schema.computation.c
+    with engine.connect() as conn:
+        rows = conn.execute(sa.select(c.kind, sa.func.max(c.computation_id)).where(
+            c.site_id == site_id, c.finished_utc.is_not(None)).group_by(c.kind)).all()
+    return {k: int(v) for k, v in rows}

@@ -212,3 +212,14 @@ degradation_result = sa.Table(
     sa.Column("details_json", sa.Text),
     sa.Column("computation_id", sa.Integer, sa.ForeignKey("computation.computation_id")),
 )
+
+# ---------------------------------------------------------------- compute workers (#16)
+#: One row per site, created on demand: a worker computing a site holds this row locked
+#: (PostgreSQL ``SELECT … FOR UPDATE SKIP LOCKED``) for the whole computation, so two workers
+#: never compute the same site at once and a killed worker's lock ends with its connection.
+compute_claim = sa.Table(
+    "compute_claim", metadata,
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), primary_key=True),
+    sa.Column("worker", sa.String(128)),  # the last worker that finished the site
+    sa.Column("finished_utc", sa.String(32)),
+)

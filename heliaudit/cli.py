@@ -23,6 +23,7 @@ COMMAND_MODULES = {
     "compute": "heliaudit.cmd_compute",
     "check": "heliaudit.cmd_check",
     "results": "heliaudit.cmd_results",
+    "evidence": "heliaudit.cmd_evidence",
     "dashboard": "heliaudit.cmd_dashboard",
     "demo": "heliaudit.cmd_run_demo",
 }

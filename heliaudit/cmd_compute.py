@@ -5,12 +5,16 @@ from __future__ import annotations
 import importlib
 import importlib.util
 import json
+import os
+import socket
 import sys
 
 import click
 import sqlalchemy as sa
 
 from db import schema
+from db.computations import latest_finished
+from db.workqueue import claim_site, supports_claims
 from heliaudit.common import engine_from_ctx
 
 #: Steps chained after the daily table, when their modules exist: (module, function).
@@ -107,25 +111,78 @@ def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = Fals
     return summaries
 
 
+def _due(engine: sa.Engine, site_id: str) -> bool:
+    """Does the site need computing: files loaded since its last daily computation, never
+    computed, or a later step (flags, degradation) older than the daily table?"""
+    ranges = _new_batches(engine, site_id)
+    if ranges is None or ranges:
+        return True
+    latest = latest_finished(engine, site_id)
+    daily = latest.get("daily", -1)
+    return any(latest.get(func.removeprefix("run_"), -1) < daily
+               for module, func in LATER_STEPS if importlib.util.find_spec(module) is not None)
+
+
+def run_worker(engine: sa.Engine, worker: str, full: bool = False, tty: bool = False,
+               echo=click.echo) -> dict[str, list[str]]:
+    """Compute every due site that no other worker holds (db.workqueue): several workers on
+    one PostgreSQL store share a portfolio, each site computed once, a killed worker's site
+    taken over by the next. Returns the site ids ``computed``, ``busy`` and ``up_to_date``."""
+    out: dict[str, list[str]] = {"computed": [], "busy": [], "up_to_date": []}
+    for sid in _sites(engine, None):
+        with claim_site(engine, sid, worker) as mine:
+            if not mine:
+                out["busy"].append(sid)
+                echo(f"{sid}: being computed by another worker, skipped", err=True)
+            elif not full and not _due(engine, sid):
+                out["up_to_date"].append(sid)
+            else:
+                run_compute(engine, sid, full, tty, echo)
+                out["computed"].append(sid)
+    echo(f"worker {worker}: {len(out['computed'])} site(s) computed, {len(out['busy'])} held "
+         f"by other workers, {len(out['up_to_date'])} up to date", err=True)
+    return out
+
+
 @click.command("compute")
 @click.option("--site", "site_id", default=None, metavar="ID",
               help="Only this site (default: every site in the database).")
 @click.option("--full", is_flag=True,
               help="Recompute every day, e.g. after a configuration change (default: the days "
                    "of files loaded since the last computation; everything if never computed).")
+@click.option("--worker", "worker", is_flag=True,
+              help="Share the portfolio with other workers: compute every due site that no "
+                   "other `compute --worker` holds (PostgreSQL; on SQLite one worker at a time).")
+@click.option("--worker-id", default=None, metavar="NAME",
+              help="This worker's name in the store (default: host:pid).")
 @click.pass_context
-def compute(ctx: click.Context, site_id: str | None, full: bool) -> None:
+def compute(ctx: click.Context, site_id: str | None, full: bool, worker: bool,
+            worker_id: str | None) -> None:
     """Compute daily performance (PR, temperature-corrected PR, performance index,
     availability) for every inverter and day, then flags and degradation.
 
     Days are site-local standard time. Filter thresholds come from the site
     configuration's [filters] table. Progress goes to stderr.
 
+    With --worker, several processes (on one machine or many) share a PostgreSQL
+    portfolio: each takes the due sites no other worker holds, so no site is computed
+    twice, and a killed worker's site is taken over by the next run.
+
     \b
     Example:
         heliaudit compute --site quillpond --full
+        heliaudit --db postgresql://heliaudit@db/fleet compute --worker
     """
     engine = engine_from_ctx(ctx)
+    if worker:
+        if site_id is not None:
+            raise click.ClickException("--worker takes every due site; leave out --site")
+        if not supports_claims(engine):
+            click.echo("note: SQLite has one writer; run one `compute --worker` per SQLite "
+                       "file (several workers need PostgreSQL)", err=True)
+        run_worker(engine, worker_id or f"{socket.gethostname()}:{os.getpid()}", full,
+                   tty=sys.stderr.isatty())
+        return
     run_compute(engine, site_id, full, tty=sys.stderr.isatty())
 
 

@@ -105,3 +105,21 @@ else:
                "warranty start (the first year's median extrapolated back with the fitted "
                "rate), which leaves out initial light-induced loss and so understates a "
                "shortfall.")
+
+# ---- evidence pack (issue #17): the same pack as `heliaudit evidence`, as a zip ----
+st.subheader("Evidence pack")
+st.caption("A report (PDF) with the system, the data and exclusions, the methods and their "
+           "sources, every rate, level shifts and soiling, and the warranty comparison; the "
+           "daily series and results behind it; and a manifest with the SHA-256 of every "
+           "source export and pack file. Screening evidence: the contract governs any claim.")
+if st.button("Build evidence pack", key="evidence_build"):
+    with st.spinner("Building the evidence pack (report, data, manifest)…"):
+        try:
+            st.session_state["evidence_zip"] = (site_id, *data.evidence_pack_zip(url, site_id))
+        except (ValueError, LookupError) as exc:  # EvidenceError, NothingComputedError
+            st.session_state.pop("evidence_zip", None)
+            st.error(f"No evidence pack: {exc}")
+pack = st.session_state.get("evidence_zip")
+if pack and pack[0] == site_id:
+    st.download_button("Download evidence pack (.zip)", data=pack[2], file_name=pack[1],
+                       mime="application/zip", key="evidence_download")
