@@ -653,7 +653,8 @@ def _device_block(res: pd.DataFrame) -> dict:
             rec = {"method": det.get("chosen_method"), "rate_pct_per_yr": _num(r["rate_pct_per_yr"]),
                    "ci_low": _num(r["ci_low"]), "ci_high": _num(r["ci_high"]),
                    "confidence": _num(r["confidence"]), "ci68_low": _num(det.get("ci68_low")),
-                   "ci68_high": _num(det.get("ci68_high")), "reasons": det.get("reasons", []),
+                   "ci68_high": _num(det.get("ci68_high")),
+                   "n_points": None if pd.isna(r["n_points"]) else int(r["n_points"]), "reasons": det.get("reasons", []),
                    "caveats": det.get("caveats", []), "reason": r["reason"]}
             continue
         det = dict(r["details"] or {})
