@@ -161,6 +161,19 @@ def test_results_json_document(store):
     assert w4["exceeds"] is True and w4["warranted_rate_pct_per_yr"] == -0.55
     assert "Screening evidence" in w4["disclaimer"] and w4["shortfall_kwh"] >= 0
     assert doc["site_result"]["degradation"]["sensor_year_pairs"]["rate_pct_per_yr"] is not None
+    # the recommended block (contract, issue #13): its rate is the chosen method's, the
+    # warranty names it, the overview's key says which it is
+    for b in (d1, doc["site_result"]):
+        rec = b["recommended"]
+        assert set(rec) >= {"method", "rate_pct_per_yr", "ci_low", "ci_high", "confidence",
+                            "ci68_low", "ci68_high", "reasons", "caveats"}
+        assert rec["rate_pct_per_yr"] == b["degradation"][rec["method"]]["rate_pct_per_yr"]
+        assert rec["ci_low"] <= rec["ci68_low"] <= rec["rate_pct_per_yr"] <= rec["ci68_high"] <= rec["ci_high"]
+        assert b["recommended_method"] == rec["method"] and rec["reasons"]
+        assert all(c["method"] for c in rec["caveats"])
+        assert "recommended" not in b["degradation"]
+    assert w4["measured_method"] == inv["INV04"]["recommended"]["method"]
+    assert w4["measured_rate_pct_per_yr"] == inv["INV04"]["recommended"]["rate_pct_per_yr"]
     assert isinstance(doc["flags"], list)
     json.dumps(doc, allow_nan=False)  # strict JSON
 
