@@ -86,6 +86,7 @@ DEFAULTS: dict = {
     "clearsky_window_days": 15,
     "site_min_inverter_fraction": 0.5,
     "sigma_extra_pct_per_yr": 0.0,
+    "soiling_min_loss_pct": 2.0,  # below: soiling not material (recommended rate, issue #13)
 }
 METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
            "sensor_year_pairs_between_shifts", "sensor_year_pairs_soiling_corrected")
@@ -280,7 +281,13 @@ def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: l
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             ev = asoil.detect_cleanings(full)
-            iv = asoil.soiling_intervals(full, list(ev.index))
+            # slopes on 3-day medians: a ninth of the Theil-Sen pairs (O(n^2)) for rates of
+            # weeks-long dry intervals; an interval needs 4 such points (12 days)
+            thin = full.rolling(3, min_periods=1).median().iloc[2::3]
+            iv = asoil.soiling_intervals(thin, list(ev.index), min_days=4)
+            if len(iv):  # the intervals tile the daily index, first day to last
+                iv.loc[iv.index[0], "start"] = full.index[0]
+                iv.loc[iv.index[-1], "end"] = full.index[-1]
         if len(iv):  # only dry intervals whose Theil-Sen slope is significantly negative
             insignificant = iv["rate_high"] >= 0
             iv.loc[insignificant, ["soiling_rate_per_day", "rate_low", "rate_high"]] = 0.0
@@ -294,6 +301,12 @@ def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: l
     info = {"loss_pct": None if loss is None else round(loss, 3),
             "n_cleanings": int(len(ev)), "n_soiled_intervals": int(iv["soiled"].sum())
             if len(iv) else 0}
+    if loss is None or loss < p["soiling_min_loss_pct"]:
+        res = adeg.RateResult.refused(
+            m, f"soiling loss {0 if loss is None else loss:.1f} % is below "
+               f"{p['soiling_min_loss_pct']:g} %: not material, the year-on-year rate applies")
+        res.details["soiling_loss_pct"] = info["loss_pct"]
+        return res, info
     res = _try(m, adeg.degradation_yoy, (s / sr.where(sr > 0.5)).dropna(),
                rng=np.random.default_rng(seed), **yoy_kw)
     res.details.update({"soiling_loss_pct": info["loss_pct"],
@@ -517,7 +530,8 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         _shift_energy(cps, pd.DataFrame({"e_exp_kwh": e_exp_site}))
         res["recommended"] = adeg.recommend_rate(
             res, drift=site_drift, shifts=cps.get("change_points"), soiling=cps.get("soiling"),
-            sensor_id=site_drift["sensor_id"] if site_drift else None)
+            sensor_id=site_drift["sensor_id"] if site_drift else None,
+            min_soiling_loss_pct=p["soiling_min_loss_pct"])
         summary = _summary(res, cps, rep, how, site_drift)
         summary["sensor_drift"] = site_drift
         e_site = pd.concat([by_dev[i]["e_ac_kwh"] for i in by_dev], axis=1).sum(axis=1)
