@@ -60,7 +60,9 @@ def run_all(pis, weights, clear, p, workers: int | None = None) -> int:
                       rng_key=len(pis)))
     out = methods_many(tasks, workers=workers)
     return sum(all(r.rate_pct_per_yr is not None for m, r in res.items()
-                   if m != "sensor_year_pairs_between_shifts") for res, _ in out[:-1])
+                   if m not in ("sensor_year_pairs_between_shifts",  # no shift: refused
+                                "sensor_year_pairs_soiling_corrected"))  # no soiling: refused
+               for res, _ in out[:-1])
 
 
 def _cpu() -> float:
