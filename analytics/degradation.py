@@ -804,6 +804,7 @@ PEER_PAIRS = "peer_ratio_year_pairs"
 SKY_PAIRS = "modelled_sky_year_pairs"
 DRIFT_CHECK = "sensor_drift_check"
 BETWEEN_SHIFTS = "sensor_year_pairs_between_shifts"
+SKY_BETWEEN_SHIFTS = "modelled_sky_year_pairs_between_shifts"
 SOILING_CORRECTED = "sensor_year_pairs_soiling_corrected"
 #: Rates that rest on the irradiance sensor (a drift of the sensor shifts them one to one).
 SENSOR_BASED = (YEAR_PAIRS, ROBUST_LINE, TREND_LINE, BETWEEN_SHIFTS, SOILING_CORRECTED)
@@ -880,7 +881,8 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
 
     1. the irradiance sensor is judged to drift (:func:`judge_sensor_drift`): the rate that
        does not use it, ``modelled_sky_year_pairs`` (clear-sky index, Jordan et al. 2018
-       pairs); every sensor-based rate is shifted by about the drift;
+       pairs), or ``modelled_sky_year_pairs_between_shifts`` when a level shift was found
+       too; every sensor-based rate is shifted by about the drift;
     2. a persistent level shift was found (``shifts``: drops/rises from
        :func:`analytics.changepoint.detect_level_shifts`): the rate within the segments
        between shifts, ``sensor_year_pairs_between_shifts``; each shift is reported beside it
@@ -932,7 +934,12 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                 f"({DRIFT_CHECK}); the sensor-based rates ({YEAR_PAIRS} and the others) are "
                 "shifted by about that much: check the sensor's calibration")
         caveats.append({"kind": "sensor_drift", "method": YEAR_PAIRS, "text": text})
-        if have(SKY_PAIRS):
+        if shifts and have(SKY_BETWEEN_SHIFTS):
+            chosen = SKY_BETWEEN_SHIFTS
+            reasons.append(f"{sensor} is judged to drift ({d:+.2f} %/yr) and a persistent level "
+                           f"shift was found: the rate that does not use the sensor, between the "
+                           f"shifts, {SKY_BETWEEN_SHIFTS}, is recommended")
+        elif have(SKY_PAIRS):
             chosen = SKY_PAIRS
             reasons.append(f"{sensor} is judged to drift ({d:+.2f} %/yr): the rate that does not "
                            f"use it, {SKY_PAIRS}, is recommended")

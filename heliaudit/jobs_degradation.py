@@ -89,7 +89,7 @@ DEFAULTS: dict = {
     "soiling_min_loss_pct": 2.0,  # below: soiling not material (recommended rate, issue #13)
 }
 METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
-           "sensor_year_pairs_between_shifts", "sensor_year_pairs_soiling_corrected")
+           "sensor_year_pairs_between_shifts", "sensor_year_pairs_soiling_corrected", "modelled_sky_year_pairs_between_shifts")
 
 
 def _try(method: str, fn, *args, **kwargs) -> adeg.RateResult:
@@ -231,6 +231,7 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
         res["peer_ratio_year_pairs"] = _try("peer_ratio_year_pairs", adeg.degradation_yoy, ratio.dropna(),
                                     rng=np.random.default_rng(seed + [2]), **yoy_kw)
         res["peer_ratio_year_pairs"].details["relative_to"] = "median of the peer group (same day)"
+    dense = None
     if clear_pi is not None:
         clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # plausibility window (common practice)
         dense = acs.densify_clear_days(clear_pi, window_days=p["clearsky_window_days"])
@@ -256,7 +257,18 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
         res["sensor_year_pairs_between_shifts"] = _try("sensor_year_pairs_between_shifts", adeg.degradation_yoy, s,
                                           breaks=breaks, rng=np.random.default_rng(seed + [4]),
                                           **yoy_kw)
+        if res["modelled_sky_year_pairs"].rate_pct_per_yr is not None:
+            res[adeg.SKY_BETWEEN_SHIFTS] = _try(
+                adeg.SKY_BETWEEN_SHIFTS, adeg.degradation_yoy, dense, breaks=breaks,
+                rng=np.random.default_rng(seed + [7]), **yoy_kw)
+        else:
+            res[adeg.SKY_BETWEEN_SHIFTS] = adeg.RateResult.refused(
+                adeg.SKY_BETWEEN_SHIFTS, "no clear-sky index: " + str(
+                    res["modelled_sky_year_pairs"].reason))
     else:
+        res[adeg.SKY_BETWEEN_SHIFTS] = adeg.RateResult.refused(
+            adeg.SKY_BETWEEN_SHIFTS, "no level shift (drop or rise) found: the whole-period "
+                                     "clear-sky rate applies")
         res["sensor_year_pairs_between_shifts"] = adeg.RateResult.refused(
             "sensor_year_pairs_between_shifts", "no level shift (drop or rise) found: the whole-period year-on-year "
                                    "rate applies")

@@ -413,6 +413,13 @@ def test_recommended_rules_in_order():
     d = recommend_rate(res, drift={"judged": True, "drift_pct_per_yr": 0.7}, sensor_id="POA1")
     assert d.details["chosen_method"] == "modelled_sky_year_pairs" and d.rate_pct_per_yr == -1.1
     assert d.details["caveats"][0]["kind"] == "sensor_drift" and "POA1" in d.details["caveats"][0]["text"]
+    # drift and a step -> the clear-sky rate between the shifts
+    both = recommend_rate(dict(res, modelled_sky_year_pairs_between_shifts=_r(
+        "modelled_sky_year_pairs_between_shifts", -0.8, -1.1, -0.5)),
+        drift={"judged": True, "drift_pct_per_yr": 1.2},
+        shifts=[{"day": "2023-05-02", "kind": "drop", "size_pct": -8.0}])
+    assert both.details["chosen_method"] == "modelled_sky_year_pairs_between_shifts"
+    assert {c["kind"] for c in both.details["caveats"]} >= {"sensor_drift", "level_shift"}
     # a persistent step -> the rate between shifts, the shift beside it with date, size, energy
     shift = [{"day": "2023-05-02", "kind": "drop", "size_pct": -4.1, "energy_kwh": -12345.0}]
     s = recommend_rate(res, shifts=shift)

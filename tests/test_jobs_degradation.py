@@ -100,6 +100,7 @@ def test_job_stores_every_method(store):
     res = degradation_results(engine, "s1")
     methods = {"sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
                "sensor_year_pairs_between_shifts", "sensor_year_pairs_soiling_corrected",
+               "modelled_sky_year_pairs_between_shifts",
                "recommended", "overview"}
     for dev in ("INV01", "INV02", "INV03", "INV04", "INV05", SITE_DEVICE):
         assert set(res.loc[res["device_id"] == dev, "method"]) == methods
