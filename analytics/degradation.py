@@ -804,8 +804,8 @@ PEER_PAIRS = "peer_ratio_year_pairs"
 SKY_PAIRS = "modelled_sky_year_pairs"
 DRIFT_CHECK = "sensor_drift_check"
 BETWEEN_SHIFTS = "sensor_year_pairs_between_shifts"
-SKY_BETWEEN_SHIFTS = "modelled_sky_year_pairs_between_shifts"
-SOILING_CORRECTED = "sensor_year_pairs_soiling_corrected"
+SKY_BETWEEN_SHIFTS = "modelled_sky_between_shifts"
+SOILING_CORRECTED = "sensor_year_pairs_unsoiled"
 #: Rates that rest on the irradiance sensor (a drift of the sensor shifts them one to one).
 SENSOR_BASED = (YEAR_PAIRS, ROBUST_LINE, TREND_LINE, BETWEEN_SHIFTS, SOILING_CORRECTED)
 
@@ -881,14 +881,14 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
 
     1. the irradiance sensor is judged to drift (:func:`judge_sensor_drift`): the rate that
        does not use it, ``modelled_sky_year_pairs`` (clear-sky index, Jordan et al. 2018
-       pairs), or ``modelled_sky_year_pairs_between_shifts`` when a level shift was found
+       pairs), or ``modelled_sky_between_shifts`` when a level shift was found
        too; every sensor-based rate is shifted by about the drift;
     2. a persistent level shift was found (``shifts``: drops/rises from
        :func:`analytics.changepoint.detect_level_shifts`): the rate within the segments
        between shifts, ``sensor_year_pairs_between_shifts``; each shift is reported beside it
        (date, size, energy);
     3. soiling is material (``soiling["loss_pct"]`` ≥ ``min_soiling_loss_pct``, 2 %) and the
-       soiling-corrected rate ``sensor_year_pairs_soiling_corrected`` (soiling ratio after
+       soiling-corrected rate ``sensor_year_pairs_unsoiled`` (soiling ratio after
        Deceglie et al. 2018) differs from ``sensor_year_pairs`` by more than the sum of their
        68 % half-widths: soiling that differs from year to year leaks into year-on-year
        pairs, soiling that repeats with the seasons cancels in them (then rule 4 applies, with

@@ -89,7 +89,7 @@ DEFAULTS: dict = {
     "soiling_min_loss_pct": 2.0,  # below: soiling not material (recommended rate, issue #13)
 }
 METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
-           "sensor_year_pairs_between_shifts", "sensor_year_pairs_soiling_corrected", "modelled_sky_year_pairs_between_shifts")
+           "sensor_year_pairs_between_shifts", "sensor_year_pairs_unsoiled", "modelled_sky_between_shifts")
 
 
 def _try(method: str, fn, *args, **kwargs) -> adeg.RateResult:

@@ -401,7 +401,7 @@ def test_recommended_rules_in_order():
            "sensor_monthly_robust_line": _r("sensor_monthly_robust_line", -0.47, -0.6, -0.34),
            "modelled_sky_year_pairs": _r("modelled_sky_year_pairs", -1.1, -1.4, -0.8),
            "sensor_year_pairs_between_shifts": _r("sensor_year_pairs_between_shifts", -0.6, -0.8, -0.4),
-           "sensor_year_pairs_soiling_corrected": _r("sensor_year_pairs_soiling_corrected", -0.5, -0.6, -0.4)}
+           "sensor_year_pairs_unsoiled": _r("sensor_year_pairs_unsoiled", -0.5, -0.6, -0.4)}
     plain = recommend_rate(res)
     assert plain.details["chosen_method"] == "sensor_year_pairs"
     assert (plain.rate_pct_per_yr, plain.ci_low, plain.ci_high) == (-0.45, -0.55, -0.35)
@@ -414,11 +414,11 @@ def test_recommended_rules_in_order():
     assert d.details["chosen_method"] == "modelled_sky_year_pairs" and d.rate_pct_per_yr == -1.1
     assert d.details["caveats"][0]["kind"] == "sensor_drift" and "POA1" in d.details["caveats"][0]["text"]
     # drift and a step -> the clear-sky rate between the shifts
-    both = recommend_rate(dict(res, modelled_sky_year_pairs_between_shifts=_r(
-        "modelled_sky_year_pairs_between_shifts", -0.8, -1.1, -0.5)),
+    both = recommend_rate(dict(res, modelled_sky_between_shifts=_r(
+        "modelled_sky_between_shifts", -0.8, -1.1, -0.5)),
         drift={"judged": True, "drift_pct_per_yr": 1.2},
         shifts=[{"day": "2023-05-02", "kind": "drop", "size_pct": -8.0}])
-    assert both.details["chosen_method"] == "modelled_sky_year_pairs_between_shifts"
+    assert both.details["chosen_method"] == "modelled_sky_between_shifts"
     assert {c["kind"] for c in both.details["caveats"]} >= {"sensor_drift", "level_shift"}
     # a persistent step -> the rate between shifts, the shift beside it with date, size, energy
     shift = [{"day": "2023-05-02", "kind": "drop", "size_pct": -4.1, "energy_kwh": -12345.0}]
@@ -431,10 +431,10 @@ def test_recommended_rules_in_order():
         "chosen_method"] == "sensor_year_pairs"
     # material soiling whose correction changes the rate beyond the 68 % intervals -> the
     # soiling-corrected rate; a correction within them, or soiling below 2 %, does not switch
-    moved = dict(res, sensor_year_pairs_soiling_corrected=_r(
-        "sensor_year_pairs_soiling_corrected", -0.2, -0.3, -0.1))
+    moved = dict(res, sensor_year_pairs_unsoiled=_r(
+        "sensor_year_pairs_unsoiled", -0.2, -0.3, -0.1))
     assert recommend_rate(moved, soiling={"loss_pct": 3.2}).details["chosen_method"] == \
-        "sensor_year_pairs_soiling_corrected"
+        "sensor_year_pairs_unsoiled"
     same = recommend_rate(res, soiling={"loss_pct": 3.2})  # -0.50 vs -0.45: within
     assert same.details["chosen_method"] == "sensor_year_pairs"
     assert any(c["kind"] == "soiling" for c in same.details["caveats"])

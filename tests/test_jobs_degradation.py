@@ -99,8 +99,8 @@ def test_job_stores_every_method(store):
     assert summary["inverters"] == 5 and summary["refused"] == 1
     res = degradation_results(engine, "s1")
     methods = {"sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
-               "sensor_year_pairs_between_shifts", "sensor_year_pairs_soiling_corrected",
-               "modelled_sky_year_pairs_between_shifts",
+               "sensor_year_pairs_between_shifts", "sensor_year_pairs_unsoiled",
+               "modelled_sky_between_shifts",
                "recommended", "overview"}
     for dev in ("INV01", "INV02", "INV03", "INV04", "INV05", SITE_DEVICE):
         assert set(res.loc[res["device_id"] == dev, "method"]) == methods
@@ -292,3 +292,11 @@ def test_old_codes_pattern_is_live():
                  "sr_iw_low", "headline_method"):
         assert OLD_CODES.search(f'{{"method": "{code}"}}'), code
     assert not OLD_CODES.search("sensor_year_pairs modelled_sky_year_pairs overview style")
+
+
+def test_method_codes_fit_the_store_column():
+    # db/schema.py: degradation_result.method is VARCHAR(32) (PostgreSQL enforces it)
+    from db import schema
+    from heliaudit.jobs_degradation import METHODS
+    width = schema.degradation_result.c.method.type.length
+    assert all(len(m) <= width for m in (*METHODS, "recommended", "overview")), width
