@@ -120,33 +120,49 @@ def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
     start, UTC), one column per inverter that has power readings; ``t_module_c`` is NaN where
     the inverter has no module-temperature sensor. [kW], [°C]
     """
-    from db.timeseries import bin_mean, fill_gaps, interval_h_from_ts, read_channel, site_channels
+    from db.timeseries import (
+        fill_gaps,
+        fill_unknown_intervals,
+        instant_channels,
+        instant_to_means,
+        overlap_mean,
+        read_channel,
+        site_channels,
+    )
 
-    power: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    # each reading's own interval as recorded at ingest (#11), never a channel-wide spacing
+    power: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
     sensor_of: dict[str, int | None] = {}
-    temps: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    temps: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
     with engine.connect() as conn:
         ch = site_channels(conn, site_id)
+        inst = instant_channels(conn, site_id)
+
+        def read(c):
+            ts, v, iv = read_channel(conn, c, with_interval=True)
+            iv = fill_unknown_intervals(ts, iv)
+            return instant_to_means(ts, v, iv) if c in inst else (ts, v, iv)
+
         for _, inv in inverters.iterrows():
             dev = inv["device_id"]
             ts = np.zeros(0, dtype=np.int64)
-            val = np.zeros(0)
+            val = iv = np.zeros(0)
             pc = ch.get((dev, "p_ac_kw"))
             if pc is not None:
-                ts, val = read_channel(conn, pc)
+                ts, val, iv = read(pc)
             if not np.isfinite(val).any():
                 ec = ch.get((dev, "e_ac_kwh"))
                 if ec is not None:
-                    ts, e = read_channel(conn, ec)
-                    val = e / interval_h_from_ts(ts) if ts.size else e
+                    ts, e, iv = read(ec)
+                    val = e / (iv / 3600.0) if ts.size else e
             if not ts.size:
                 continue
-            power[dev] = (ts, val)
+            power[dev] = (ts, val, iv)
             sid = inv.get("t_module_sensor_id")
             tc = ch.get((sid, "t_module_c")) if isinstance(sid, str) and sid else None
             sensor_of[dev] = tc
             if tc is not None and tc not in temps:
-                temps[tc] = read_channel(conn, tc)
+                temps[tc] = read(tc)
     if not power:
         empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="ts_utc"))
         return empty, empty.copy()
@@ -156,16 +172,21 @@ def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
         grid = first  # inverters of one logger share the timestamps: no union needed
     else:
         grid = np.unique(np.concatenate(arrays))
-    grid, step_s = fill_gaps(grid, interval_h_from_ts(grid) * 3600.0)
+    grid_iv = np.full(grid.size, np.nan)
+    for ts, _v, iv in power.values():
+        pos = np.searchsorted(grid, ts)
+        grid_iv[pos] = np.where(np.isnan(grid_iv[pos]), iv, grid_iv[pos])
+    grid, step_s = fill_gaps(grid, grid_iv)
     p = np.full((grid.size, len(power)), np.nan, dtype=np.float32)
     t = np.full((grid.size, len(power)), np.nan, dtype=np.float32)
     binned: dict[int, np.ndarray] = {}
-    for j, (dev, (ts, val)) in enumerate(power.items()):
+    for j, (dev, (ts, val, _iv)) in enumerate(power.items()):
         p[np.searchsorted(grid, ts), j] = val
         tc = sensor_of.get(dev)
         if tc is not None:
             if tc not in binned:
-                binned[tc] = bin_mean(grid, step_s, *temps[tc])
+                tt, tv, tiv = temps[tc]
+                binned[tc] = overlap_mean(grid, step_s, tt, tiv, tv)
             t[:, j] = binned[tc]
     idx = pd.DatetimeIndex(pd.to_datetime(grid, unit="s", utc=True), name="ts_utc")
     cols = list(power)

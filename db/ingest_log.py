@@ -18,11 +18,19 @@ import sqlalchemy as sa
 
 from db import schema
 from db.computations import now_utc
+from db.engine import write_lock
 from ingest.errors import Rejected
 
 B = schema.ingest_batch
 COUNT_FIELDS = ("rows_read", "rows_loaded", "rows_duplicate", "rows_rejected", "values_loaded",
                 "values_duplicate", "values_conflict", "values_rejected")
+
+
+def lock_file(conn: sa.Connection, site_id: str, sha256: str) -> None:
+    """Hold the lock under which a file's duplicate check and load run (see
+    :func:`db.engine.write_lock`): the first statement of the file's transaction, so two
+    processes loading the same file at once load it once."""
+    write_lock(conn, f"heliaudit:file:{site_id}:{sha256}")
 
 
 def loaded_batch_with_sha(conn: sa.Connection, site_id: str, sha256: str) -> int | None:
@@ -32,13 +40,38 @@ def loaded_batch_with_sha(conn: sa.Connection, site_id: str, sha256: str) -> int
         .order_by(B.c.batch_id.desc()).limit(1)).scalar()
 
 
+def source_timestamp_offsets(conn: sa.Connection, site_id: str, source_name: str) -> bool | None:
+    """Whether the loaded files of a source had timestamps with UTC offsets (the decision
+    recorded in the notes of its latest loaded batch that made one), or None."""
+    rows = conn.execute(sa.select(B.c.notes_json).where(
+        B.c.site_id == site_id, B.c.source_name == source_name, B.c.status == "loaded",
+        B.c.notes_json.is_not(None)).order_by(B.c.batch_id.desc()).limit(50)).scalars()
+    for text in rows:
+        try:
+            val = json.loads(text).get("timestamp_offsets")
+        except (ValueError, AttributeError):
+            continue
+        if isinstance(val, bool):
+            return val
+    return None
+
+
+def _text(s: str | None, limit: int | None = None) -> str | None:
+    """Text as the store can hold it: NUL (which PostgreSQL text cannot hold) and lone
+    surrogates shown as U+FFFD; cut to ``limit`` characters."""
+    if s is None:
+        return None
+    s = str(s).replace("\x00", "\ufffd").encode("utf-8", "replace").decode("utf-8")
+    return s if limit is None or len(s) <= limit else s[: limit - 1] + "…"
+
+
 def start_batch(conn: sa.Connection, *, site_id: str, source_name: str, file_name: str,
                 file_path: str, sha256: str, size_bytes: int, status: str = "loading",
                 message: str | None = None, notes: dict | None = None) -> int:
     res = conn.execute(B.insert().values(
-        site_id=site_id, source_name=source_name, file_name=file_name, file_path=file_path,
-        sha256=sha256, size_bytes=size_bytes, started_utc=now_utc(), status=status,
-        message=message, notes_json=json.dumps(notes) if notes else None,
+        site_id=site_id, source_name=source_name, file_name=_text(file_name),
+        file_path=_text(file_path), sha256=sha256, size_bytes=size_bytes, started_utc=now_utc(),
+        status=status, message=_text(message), notes_json=json.dumps(notes) if notes else None,
         **{f: 0 for f in COUNT_FIELDS}))
     return int(res.inserted_primary_key[0])
 
@@ -49,7 +82,7 @@ def finish_batch(conn: sa.Connection, batch_id: int, *, status: str, counts: dic
     conn.execute(B.update().where(B.c.batch_id == batch_id).values(
         status=status, finished_utc=now_utc(), ts_first_s=ts_first_s, ts_last_s=ts_last_s,
         interval_s=interval_s, notes_json=json.dumps(notes, default=str) if notes else None,
-        message=message, **{f: int(counts.get(f, 0)) for f in COUNT_FIELDS}))
+        message=_text(message), **{f: int(counts.get(f, 0)) for f in COUNT_FIELDS}))
 
 
 def record_batch(engine: sa.Engine, *, status: str, message: str | None, **fields) -> int:
@@ -61,8 +94,8 @@ def record_batch(engine: sa.Engine, *, status: str, message: str | None, **field
 
 
 def add_rejected(conn: sa.Connection, batch_id: int, rejected: Iterable[Rejected]) -> int:
-    rows = [dict(batch_id=batch_id, line_no=int(r.line), column_name=r.column, reason=r.reason,
-                 raw_text=r.raw) for r in rejected]
+    rows = [dict(batch_id=batch_id, line_no=int(r.line), column_name=_text(r.column),
+                 reason=_text(r.reason), raw_text=_text(r.raw)) for r in rejected]
     if rows:
         conn.execute(schema.rejected_row.insert(), rows)
     return len(rows)
@@ -99,9 +132,11 @@ def rejected_rows(engine: sa.Engine, site_id: str, batch_id: int | None = None,
 def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
     """Per site: devices, date range, completeness, batches and rejects.
 
-    ``completeness`` = readings stored / readings expected, where expected counts, for every
-    channel holding data, one reading per nominal interval from the site's first to its last
-    interval (nominal interval = the most common final interval of its loaded batches).
+    ``completeness`` = time covered by stored readings / time expected: each reading covers
+    its own interval as recorded at ingest (a reading stored before intervals were recorded
+    counts one nominal interval = the most common final interval of the loaded batches), and
+    every channel holding data is expected from the site's first interval to the end of its
+    last one. A channel that changed from 15 to 5 minutes is therefore complete at 1.0.
     """
     s, d, c, r = schema.site, schema.device, schema.channel, schema.reading
     with engine.connect() as conn:
@@ -114,7 +149,8 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
             chans = [x[0] for x in conn.execute(sa.select(c.c.channel_id).join(
                 d, d.c.device_pk == c.c.device_pk).where(d.c.site_id == sid))]
             per = conn.execute(sa.select(r.c.channel_id, sa.func.count(), sa.func.min(r.c.ts_s),
-                                         sa.func.max(r.c.ts_s))
+                                         sa.func.max(r.c.ts_s), sa.func.sum(r.c.interval_s),
+                                         sa.func.count(r.c.interval_s))
                                .where(r.c.channel_id.in_(chans)).group_by(r.c.channel_id)).all() \
                 if chans else []
             b = conn.execute(sa.select(B.c.status, sa.func.count(), sa.func.sum(B.c.rows_rejected),
@@ -128,8 +164,9 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
             nominal = nominal_interval(intervals)
             completeness = None
             if per and nominal:
-                expected = len(per) * ((last - first) // nominal + 1)
-                completeness = n_read / expected if expected else None
+                covered = sum(float(x[4] or 0) + (x[1] - x[5]) * nominal for x in per)
+                expected = len(per) * (last - first + nominal)
+                completeness = covered / expected if expected else None
             by_status = {x[0]: x for x in b}
             loaded = by_status.get("loaded")
             out.append(dict(

@@ -186,7 +186,8 @@ def channel_readings(engine: sa.Engine, site_id: str, device_ids: list[str],
     ch = (sa.select(s.channel.c.channel_id, s.device.c.device_id, s.channel.c.quantity)
           .select_from(s.channel.join(s.device, s.device.c.device_pk == s.channel.c.device_pk))
           .where(s.device.c.site_id == site_id, s.device.c.device_id.in_(list(device_ids)),
-                 s.channel.c.quantity.in_(list(quantities)))
+                 s.channel.c.quantity.in_(list(quantities)),
+                 s.channel.c.input_id == "")  # whole-device channels, not inverter inputs
           .order_by(s.device.c.device_id, s.channel.c.quantity))
     with engine.connect() as conn:
         chans = conn.execute(ch).all()

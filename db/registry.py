@@ -12,9 +12,29 @@ import sqlalchemy as sa
 
 from db import schema
 from db.computations import now_utc
+from db.engine import write_lock
 from ingest.config import SiteConfig
 
 DERIVED = {"e_ac_total_kwh": "e_ac_kwh"}  # counter quantity -> the quantity ingest derives
+
+
+def channel_specs(cfg: SiteConfig) -> dict[str, dict[tuple[str, str], str]]:
+    """device_id -> {(quantity, input_id): sampling} of every channel the config delivers.
+
+    ``input_id`` is "" for whole-device channels; ``sampling`` is "mean" or "instant" (the
+    first column delivering the channel decides; a derived channel is "mean")."""
+    out: dict[str, dict[tuple[str, str], str]] = {
+        d: {(q, ""): "mean" for q in sorted(qs)} for d, qs in channel_quantities(cfg).items()}
+    for src in cfg.sources:
+        for c in src.columns:
+            inp = getattr(c, "input", "") or ""
+            key = (c.quantity, inp)
+            sampling = getattr(c, "sampling", "mean") or "mean"
+            if inp and key not in out[c.device]:
+                out[c.device][key] = sampling
+            elif sampling != "mean":
+                out[c.device][key] = sampling
+    return out
 
 
 def channel_quantities(cfg: SiteConfig) -> dict[str, set[str]]:
@@ -25,7 +45,8 @@ def channel_quantities(cfg: SiteConfig) -> dict[str, set[str]]:
     inv_ids = [i.id for i in cfg.inverters]
     for src in cfg.sources:
         for c in src.columns:
-            out[c.device].add(c.quantity)
+            if not getattr(c, "input", ""):
+                out[c.device].add(c.quantity)
         for q, _u in src.quantity_names.values():
             targets = inv_ids if q in ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh") else [
                 s.id for s in cfg.sensors if s.quantity == q]
@@ -42,6 +63,7 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
     """Insert or update the site, its devices and channels; return the channel map."""
     if isinstance(engine_or_conn, sa.Engine):
         with engine_or_conn.begin() as conn:
+            write_lock(conn, f"heliaudit:site:{cfg.id}")  # two ingests of a new site at once
             return register_site(conn, cfg)
     conn = engine_or_conn
     t = schema.site
@@ -71,7 +93,7 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
         vals = dict(p_dc_kwp=inv.p_dc_kwp, p_ac_max_kw=inv.p_ac_max_kw,
                     gamma_pmp_per_c=inv.gamma_pmp_per_c, eta_inv_nom=inv.eta_inv_nom,
                     mounting=inv.mounting, commissioned=inv.commissioned,
-                    poa_sensor_id=inv.poa_sensor, t_module_sensor_id=inv.t_module_sensor,
+                    poa_sensor_id=inv.irradiance_sensor, t_module_sensor_id=inv.t_module_sensor,
                     t_amb_sensor_id=inv.t_amb_sensor, wind_sensor_id=inv.wind_sensor,
                     peer_group=inv.peer_group)
         _upsert_by_pk(conn, schema.inverter, have[inv.id], vals)
@@ -79,12 +101,18 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
         _upsert_by_pk(conn, schema.sensor, have[s.id],
                       dict(quantity=s.quantity, instrument=s.instrument))
     c = schema.channel
-    existing = {(r.device_pk, r.quantity) for r in conn.execute(
-        sa.select(c.c.device_pk, c.c.quantity).where(c.c.device_pk.in_(list(have.values()))))}
-    for dev_id, qs in channel_quantities(cfg).items():
-        for q in sorted(qs):
-            if (have[dev_id], q) not in existing:
-                conn.execute(c.insert().values(device_pk=have[dev_id], quantity=q))
+    existing = {(r.device_pk, r.quantity, r.input_id): (r.channel_id, r.sampling)
+                for r in conn.execute(sa.select(c.c.device_pk, c.c.quantity, c.c.input_id,
+                                                c.c.channel_id, c.c.sampling)
+                                      .where(c.c.device_pk.in_(list(have.values()))))}
+    for dev_id, specs in channel_specs(cfg).items():
+        for (q, inp), sampling in sorted(specs.items()):
+            got = existing.get((have[dev_id], q, inp))
+            if got is None:
+                conn.execute(c.insert().values(device_pk=have[dev_id], quantity=q, input_id=inp,
+                                               sampling=sampling))
+            elif got[1] != sampling:  # the config now says how this channel is sampled
+                conn.execute(c.update().where(c.c.channel_id == got[0]).values(sampling=sampling))
     return channel_map(conn, cfg.id)
 
 
@@ -95,17 +123,19 @@ def _upsert_by_pk(conn: sa.Connection, table: sa.Table, device_pk: int, vals: di
         conn.execute(table.insert().values(device_pk=device_pk, **vals))
 
 
-def channel_map(engine_or_conn: sa.Engine | sa.Connection, site_id: str) -> dict[tuple[str, str], int]:
-    """``{(device_id, quantity): channel_id}`` for a site."""
+def channel_map(engine_or_conn: sa.Engine | sa.Connection, site_id: str) -> dict[tuple, int]:
+    """``{(device_id, quantity): channel_id}`` for a site's whole-device channels, and
+    ``{(device_id, quantity, input_id): channel_id}`` for its inverter-input channels."""
     d, c = schema.device, schema.channel
-    q = (sa.select(d.c.device_id, c.c.quantity, c.c.channel_id)
+    q = (sa.select(d.c.device_id, c.c.quantity, c.c.input_id, c.c.channel_id)
          .join(c, c.c.device_pk == d.c.device_pk).where(d.c.site_id == site_id))
     if isinstance(engine_or_conn, sa.Engine):
         with engine_or_conn.connect() as conn:
             rows = conn.execute(q).all()
     else:
         rows = engine_or_conn.execute(q).all()
-    return {(r.device_id, r.quantity): r.channel_id for r in rows}
+    return {((r.device_id, r.quantity) if not r.input_id else
+             (r.device_id, r.quantity, r.input_id)): r.channel_id for r in rows}
 
 
 class SiteNotFoundError(LookupError):

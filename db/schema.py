@@ -13,7 +13,9 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 3  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10)
+SCHEMA_VERSION = 5  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+#                    4: reading.interval_s, channel.sampling/input_id (#11);
+#                    5: site model: daily bases, optional commissioning/module sensor (#11)
 
 metadata = sa.MetaData()
 
@@ -59,9 +61,10 @@ inverter = sa.Table(
     sa.Column("gamma_pmp_per_c", sa.Float, nullable=False),
     sa.Column("eta_inv_nom", sa.Float, nullable=False),
     sa.Column("mounting", sa.String(48), nullable=False),
-    sa.Column("commissioned", sa.Date, nullable=False),
+    sa.Column("commissioned", sa.Date),  # v3: None when unknown (#11)
+    # the irradiance sensor of the inverter's (first) array: POA or, since v3, GHI (#11)
     sa.Column("poa_sensor_id", sa.String(64), nullable=False),
-    sa.Column("t_module_sensor_id", sa.String(64), nullable=False),
+    sa.Column("t_module_sensor_id", sa.String(64)),  # v3: None = modelled cell temperature
     sa.Column("t_amb_sensor_id", sa.String(64)),
     sa.Column("wind_sensor_id", sa.String(64)),
     sa.Column("peer_group", sa.String(64), nullable=False),
@@ -79,7 +82,12 @@ channel = sa.Table(
     sa.Column("channel_id", sa.Integer, primary_key=True, autoincrement=True),
     sa.Column("device_pk", sa.Integer, sa.ForeignKey("device.device_pk"), nullable=False),
     sa.Column("quantity", sa.String(32), nullable=False),  # p_ac_kw, poa_wm2, ... (stored unit)
-    sa.UniqueConstraint("device_pk", "quantity", name="uq_channel_device_quantity"),
+    # v4: "mean" (the value is the mean over its interval) or "instant" (a sample taken at the
+    # timestamp; such readings are keyed by the sample's own time, see db.timeseries)
+    sa.Column("sampling", sa.String(8), nullable=False, server_default="mean"),
+    # v4: an inverter's MPPT input / string group ("" = the whole device)
+    sa.Column("input_id", sa.String(64), nullable=False, server_default=""),
+    sa.UniqueConstraint("device_pk", "quantity", "input_id", name="uq_channel_device_quantity_input"),
 )
 
 # ---------------------------------------------------------------- readings
@@ -89,6 +97,9 @@ reading = sa.Table(
     sa.Column("ts_s", sa.BigInteger().with_variant(sa.Integer, "sqlite"), primary_key=True),
     sa.Column("value", sa.Float, nullable=False),
     sa.Column("batch_id", sa.Integer, nullable=False),  # the ingest batch that last wrote it
+    # v4: the reading's interval length [s] as recorded at ingest (NULL: loaded before v4,
+    # the reader then infers it from the spacing of neighbouring readings)
+    sa.Column("interval_s", sa.Integer),
     sqlite_with_rowid=False,
 )
 
@@ -179,6 +190,10 @@ daily_inverter = sa.Table(
     # energy value): the numerator matching e_ref_kwh / e_ref_stc_kwh / e_ref_tcell_kwhc.
     # pr = e_ac_pr_kwh / e_ref_kwh; equals e_ac_kwh when no POA reading is missing.
     sa.Column("e_ac_pr_kwh", sa.Float),
+    # v3 (#11): where the day's irradiance and cell temperature came from, as codes
+    # (ingest.site_model.IRRADIANCE_BASES, analytics.daily.T_CELL_BASES); sums keep their meaning
+    sa.Column("irradiance_basis", sa.String(64)),
+    sa.Column("t_cell_basis", sa.String(64)),
 )
 
 # flag: owned by the flags issue (#5).

@@ -56,7 +56,7 @@ def demo(ctx: click.Context, config_path: str | None, no_dashboard: bool, port: 
         cfg = load_site_config(path)
     except ConfigError as exc:
         raise click.ClickException(str(exc)) from None
-    engine = engine_from_ctx(ctx)
+    engine = engine_from_ctx(ctx, create=True)
     click.echo(f"1/4 loading {cfg.name} ({cfg.id}) from {path.parent} into {engine.url}",
                err=True)
     tty = sys.stderr.isatty()

@@ -31,6 +31,7 @@ from __future__ import annotations
 import fnmatch
 import hashlib
 import os
+import time
 from collections import Counter
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
@@ -40,9 +41,10 @@ import numpy as np
 import sqlalchemy as sa
 
 from db import ingest_log, readings
+from db.engine import is_busy
 from db.registry import register_site
 from ingest.config import SiteConfig, Source, normalise_unit
-from ingest.counters import CounterEvents, interval_energy
+from ingest.counters import CounterEvents, counter_resolution, interval_energy, is_coarse
 from ingest.errors import IngestError, Rejected
 from ingest.readers.csv_export import Chunk, _split, read_export
 from ingest.timestamps import NAT, TimestampConverter, describe_intervals, infer_intervals
@@ -195,17 +197,39 @@ def ingest_file(engine: sa.Engine, cfg: SiteConfig, source: Source, path: str | 
                                                f"cannot be read: {exc.strerror}").render())
     fields = dict(site_id=cfg.id, source_name=source.name, file_name=os.path.basename(path),
                   file_path=os.path.abspath(path), sha256=sha, size_bytes=size)
-    with engine.connect() as conn:
-        prev = ingest_log.loaded_batch_with_sha(conn, cfg.id, sha)
-    if prev is not None:
-        msg = f"same content (SHA-256) as batch {prev}; nothing to do"
-        bid = ingest_log.record_batch(engine, status="unchanged", message=msg, **fields)
-        if progress:
-            progress(size)
-        return BatchResult(path=path, site_id=cfg.id, source_name=source.name,
-                           status="unchanged", batch_id=bid, message=msg)
+    for attempt in range(BUSY_RETRIES + 1):
+        try:
+            return _load_once(engine, cfg, source, path, channels, fields, progress, chunk_rows)
+        except sa.exc.OperationalError as exc:
+            if not is_busy(exc) or attempt == BUSY_RETRIES:
+                raise
+            time.sleep(min(30.0, 0.5 * 2 ** attempt))  # another writer holds the store
+    raise AssertionError("unreachable")
+
+
+#: How often a file is tried again when another process holds SQLite's write lock longer
+#: than the busy timeout (30 s each): about ten minutes in all.
+BUSY_RETRIES = 12
+
+
+def _load_once(engine, cfg, source, path, channels, fields, progress, chunk_rows) -> BatchResult:
+    sha = fields["sha256"]
     try:
         with engine.begin() as conn:
+            # The duplicate check runs inside the file's transaction, under a lock on the
+            # file's content: two processes loading the same file at once load it once.
+            ingest_log.lock_file(conn, cfg.id, sha)
+            prev = ingest_log.loaded_batch_with_sha(conn, cfg.id, sha)
+            if prev is not None:
+                msg = f"same content (SHA-256) as batch {prev}; nothing to do"
+                bid = ingest_log.start_batch(conn, status="unchanged", message=msg, **fields)
+                ingest_log.finish_batch(conn, bid, status="unchanged", counts={},
+                                        ts_first_s=None, ts_last_s=None, interval_s=None,
+                                        notes={}, message=msg)
+                if progress:
+                    progress(fields["size_bytes"])
+                return BatchResult(path=path, site_id=cfg.id, source_name=source.name,
+                                   status="unchanged", batch_id=bid, message=msg)
             bid = ingest_log.start_batch(conn, **fields)
             fl = _FileLoader(conn, cfg, source, path, channels, bid, progress)
             fl.run(chunk_rows)
@@ -220,10 +244,14 @@ def ingest_file(engine: sa.Engine, cfg: SiteConfig, source: Source, path: str | 
         bid = ingest_log.record_batch(engine, status="failed", message=msg, **fields)
         return BatchResult(path=path, site_id=cfg.id, source_name=source.name, status="failed",
                            batch_id=bid, message=msg)
-    except Exception as exc:  # a bug or a database failure: record it, then let it surface
-        ingest_log.record_batch(engine, status="failed", message=(
-            f"{os.path.basename(path)}: internal error {type(exc).__name__}: {exc}"), **fields)
-        raise
+    except sa.exc.SQLAlchemyError:
+        raise  # the store failed (or is busy): the caller reports it; nothing was written
+    except Exception as exc:  # a bug: record it and report it as this file's failure
+        msg = (f"{os.path.basename(path)}: internal error {type(exc).__name__}: {exc} "
+               "(a bug in heliaudit: please report it with this file)")
+        bid = ingest_log.record_batch(engine, status="failed", message=msg, **fields)
+        return BatchResult(path=path, site_id=cfg.id, source_name=source.name, status="failed",
+                           batch_id=bid, message=msg)
 
 
 @dataclass
@@ -237,6 +265,8 @@ class _VCol:
     channel: int
     p_ac_max_kw: float | None
     p_dc_kwp: float | None
+    instant: bool = False  # an instantaneous sample: keyed by the label time itself
+    group: int = 0  # clock-correction group (0: the corrections that apply to every column)
 
 
 class _FileLoader:
@@ -244,40 +274,74 @@ class _FileLoader:
                  channels: dict, batch_id: int, progress):
         self.conn, self.cfg, self.source, self.path = conn, cfg, source, path
         self.channels, self.batch_id, self.progress = channels, batch_id, progress
-        self.conv = TimestampConverter(source.timestamp, cfg.timezone, source.clock_corrections)
+        every = tuple(c for c in source.clock_corrections if getattr(c, "everywhere", True))
+        self.conv = TimestampConverter(source.timestamp, cfg.timezone, every)
+        # per-device corrections: one converter per set of corrections a column gets
+        self.group_keys: dict[tuple[int, ...], int] = {(): 0}
+        self.group_convs: list[TimestampConverter | None] = [None]
+        # offsets or not: decided once per source (its earlier files), else at this file's first row
+        self.source_offsets = (ingest_log.source_timestamp_offsets(conn, cfg.id, source.name)
+                               if source.timestamp.format == "iso8601" else None)
+        self._source_offsets(self.conv)
         self.counts = Counter()
         self.rejected: list[Rejected] = []
         self.intervals: list[np.ndarray] = []
+        self.steps: Counter = Counter()  # steps between distinct labels: the file's nominal interval
         self.first = self.last = None
         self.written: tuple[int, int] | None = None
         self.stored: dict[int, tuple[int, int] | None] = {}  # channel -> stored (lo, hi), lazily
         self.counter_prev: dict[str, tuple[int, float] | None] = {}
         self.counter_events: dict[str, CounterEvents] = {}
+        self.counter_res: dict[str, float | None] = {}  # measured counter resolution [kWh]
+        self.counter_info: dict[str, dict] = {}
         self.derived = Counter()
         self.vcols: list[_VCol] = []
         self.vcol_index: dict[tuple[str, str], int] = {}
         self.pos = 0
 
     # ------------------------------------------------------------ set-up
-    def _vcol(self, name: str, device: str, quantity: str, unit: str) -> int:
+    def _vcol(self, name: str, device: str, quantity: str, unit: str, sampling: str = "mean",
+              input_id: str = "") -> int:
         k = (name, unit)
         if k not in self.vcol_index:
             inv = self.cfg.inverter(device) if self.cfg.device_kind(device) == "inverter" else None
-            ch = self.channels.get((device, quantity))
+            ch = self.channels.get((device, quantity, input_id) if input_id else (device, quantity))
             if ch is None:
                 raise IngestError(self.path, None, name, f"no channel for device {device!r} "
                                   f"quantity {quantity}; the site config does not deliver it")
             self.vcol_index[k] = len(self.vcols)
             self.vcols.append(_VCol(name, device, quantity, unit, ch,
-                                    inv.p_ac_max_kw if inv else None, inv.p_dc_kwp if inv else None))
+                                    inv.p_ac_max_kw if inv else None, inv.p_dc_kwp if inv else None,
+                                    instant=sampling == "instant",
+                                    group=self._group(device, name)))
         return self.vcol_index[k]
+
+    def _group(self, device: str, header: str) -> int:
+        """The clock-correction group of a column: which device-specific corrections apply."""
+        own = tuple(n for n, c in enumerate(self.source.clock_corrections)
+                    if not getattr(c, "everywhere", True) and c.applies_to(device, header))
+        if own not in self.group_keys:
+            corr = self.source.clock_corrections
+            self.group_keys[own] = len(self.group_convs)
+            self.group_convs.append(self._source_offsets(TimestampConverter(
+                self.source.timestamp, self.cfg.timezone,
+                tuple(c for n, c in enumerate(corr) if getattr(c, "everywhere", True) or n in own))))
+        return self.group_keys[own]
+
+    def _source_offsets(self, conv: TimestampConverter) -> TimestampConverter:
+        """Give a converter the source's offset / no-offset decision (iso8601; None: undecided)."""
+        if getattr(self, "source_offsets", None) is not None:
+            conv.offsets = self.source_offsets
+            conv.offsets_from = "earlier files of this source"
+        return conv
 
     def run(self, chunk_rows: int | None) -> None:
         kw = {"chunk_rows": chunk_rows} if chunk_rows else {}
         meta, chunks = read_export(self.path, self.source, **kw)
         self.meta = meta
         for c in meta.columns:
-            self._vcol(c.header, c.device, c.quantity, c.unit)
+            self._vcol(c.header, c.device, c.quantity, c.unit, getattr(c, "sampling", "mean"),
+                       getattr(c, "input", ""))
         it = ((ch, *self.conv.convert(ch.ts_raw)) for ch in chunks)
         cur = next(it, None)
         tail = np.empty(0, dtype=np.int64)
@@ -294,6 +358,10 @@ class _FileLoader:
         read = self.counts["rows_read"]
         accounted = self.counts["rows_loaded"] + self.counts["rows_duplicate"] + self.counts["rows_rejected"]
         assert read == accounted, f"row accounting broken: {read} read, {accounted} accounted"
+        lines = meta.data_line + read + meta.blank_lines
+        assert lines == meta.lines_read, (f"line accounting broken: {meta.lines_read} lines, "
+                                          f"{lines} accounted")
+        self._counter_boundaries()
 
     # ------------------------------------------------------------ one chunk
     def _chunk(self, ch: Chunk, labels: np.ndarray, reasons: np.ndarray, tail, head) -> None:
@@ -307,7 +375,11 @@ class _FileLoader:
             ok[r] = False
         # interval of each row, from the distinct labels with the neighbouring chunks' edges
         u = np.unique(np.concatenate([tail, labels[ok], head]))
-        iv_u = infer_intervals(u, self.source.timestamp.label)
+        step = np.diff(u)
+        self.steps.update(step[step > 0].tolist())
+        nominal = float(max(self.steps.items(), key=lambda kv: (kv[1], -kv[0]))[0]) \
+            if self.steps else None
+        iv_u = infer_intervals(u, self.source.timestamp.label, nominal)
         own = np.unique(labels[ok])
         labels_unique = len(own) == int(ok.sum())  # no label repeats among the usable rows
         if len(own):
@@ -327,18 +399,20 @@ class _FileLoader:
 
         # entries: one per value cell, in value-column-major order
         e_row, e_col, e_val, bad = self._entries(ch, ok, iv)
+        e_ts, e_row, e_col, e_val = self._entry_times(ch, labels, ts, iv, e_row, e_col, e_val, bad)
         # in-chunk repeated intervals: identical -> duplicate, different -> reject the later row
         e_ch = np.array([self.vcols[j].channel for j in range(len(self.vcols))], dtype=np.int64)
-        ekey = readings.key(e_ch[e_col], ts[e_row]) if len(e_row) else np.empty(0, np.int64)
+        ekey = readings.key(e_ch[e_col], e_ts) if len(e_row) else np.empty(0, np.int64)
         status = np.zeros(len(e_row), dtype=np.int8)  # 0 new, 1 duplicate, 2 conflict
-        unique_rows = ch.long is None and labels_unique  # wide layout, no repeated label
+        shifted = any(vc.group for vc in self.vcols)  # per-device shifts may make keys collide
+        unique_rows = ch.long is None and labels_unique and not shifted
         conflict_rows = {} if unique_rows else self._in_chunk_duplicates(
             ekey, e_row, e_val, status, ch.line, ts)
         for r, why in conflict_rows.items():
             row_reason.setdefault(r, why)
             ok[r] = False
         # compare with stored readings where they overlap this chunk
-        derived = self._counters(ch, ok, ts, iv, e_row, e_col, e_val, ekey, status)
+        derived = self._counters(ch, ok, e_ts, iv, e_row, e_col, e_val, ekey, status)
         d_key, d_val, d_row = derived
         all_key = np.concatenate([ekey, d_key])
         all_val = np.concatenate([e_val, d_val])
@@ -396,12 +470,13 @@ class _FileLoader:
         # write new and changed values, in key order
         w = keep & (all_status != 1)
         wk, wv = all_key[w], all_val[w]
+        wi = iv[all_row[w]]  # each reading's interval, as inferred for its row
         order = np.argsort(wk, kind="stable")
-        wk, wv = wk[order], wv[order]
+        wk, wv, wi = wk[order], wv[order], wi[order]
         if len(wk):
             wts = wk & ((1 << readings.TS_BITS) - 1)
             readings.write_readings(self.conn, wk >> readings.TS_BITS, wts, wv, self.batch_id,
-                                    upsert=overlap)
+                                    upsert=overlap, interval_s=wi)
             lo, hi = int(wts.min()), int(wts.max())
             self.written = (lo, hi) if self.written is None else (
                 min(lo, self.written[0]), max(hi, self.written[1]))
@@ -435,13 +510,14 @@ class _FileLoader:
             present = ~np.isnan(v) & ok[sel]
             inf = present & np.isinf(v)
             imp, why = implausible(np.where(inf, np.nan, v), vc.quantity, p_ac_max_kw=vc.p_ac_max_kw,
-                                   p_dc_kwp=vc.p_dc_kwp, interval_h=iv[sel] / 3600.0)
+                                   p_dc_kwp=vc.p_dc_kwp, interval_h=iv[sel] / 3600.0,
+                                   rollover_kwh=self.source.counter_rollover_kwh)
             imp &= present & ~inf
             for k in np.flatnonzero(inf | imp):
                 r = int(sel[k])
                 text = self._cell_text(ch, r, vc)
                 reason = (f"value {text!r} is not a finite number" if inf[k] else
-                          f"value {text!r} ({vc.unit}) {why}")
+                          f"value {text!r} ({vc.unit}) {why[k]}")
                 bad.append((r, j, text, reason))
             good = present & ~inf & ~imp
             rows_l.append(sel[good])
@@ -452,6 +528,38 @@ class _FileLoader:
             return e, e, np.empty(0), bad
         return (np.concatenate(rows_l).astype(np.int64), np.concatenate(cols_l),
                 np.concatenate(vals_l), bad)
+
+    def _entry_times(self, ch: Chunk, labels, ts, iv, e_row, e_col, e_val, bad):
+        """Store key time of each entry: the row's interval start, or for an instantaneous
+        column the label itself; a column with its own clock correction is converted with it.
+        Entries whose corrected time does not exist locally become bad values."""
+        e_ts = ts[e_row] if len(e_row) else np.empty(0, np.int64)
+        if not len(e_row):
+            return e_ts, e_row, e_col, e_val
+        inst = np.array([vc.instant for vc in self.vcols], dtype=bool)
+        grp = np.array([vc.group for vc in self.vcols], dtype=np.int64)
+        if not inst.any() and not grp.any():
+            return e_ts, e_row, e_col, e_val
+        lab = labels[e_row].copy()
+        why = np.full(len(e_row), None, dtype=object)
+        for g in np.unique(grp[e_col]):
+            if g == 0:
+                continue
+            lab_g, reasons_g = self.group_convs[g].convert(ch.ts_raw)
+            m = grp[e_col] == g
+            lab[m] = lab_g[e_row[m]]
+            why[m] = reasons_g[e_row[m]]
+        shift = 0 if self.source.timestamp.label != "end" else np.nan_to_num(iv[e_row]).astype(np.int64)
+        e_ts = np.where(inst[e_col], lab, lab - shift)
+        gone = lab == NAT
+        if gone.any():
+            for k in np.flatnonzero(gone):
+                r, j = int(e_row[k]), int(e_col[k])
+                bad.append((r, j, str(ch.ts_raw[r]), (why[k] or "no valid time") +
+                            " (after this column's clock correction)"))
+            keep = ~gone
+            e_ts, e_row, e_col, e_val = e_ts[keep], e_row[keep], e_col[keep], e_val[keep]
+        return e_ts, e_row, e_col, e_val
 
     def _colname(self, j: int) -> str:
         if self.meta.long_index:
@@ -529,9 +637,15 @@ class _FileLoader:
                                   "with different values")
         return out
 
-    def _counters(self, ch, ok, ts, iv, e_row, e_col, e_val, ekey, status):
-        """Derived e_ac_kwh entries (keys, values, rows) from the chunk's counter readings."""
+    def _counters(self, ch, ok, e_ts, iv, e_row, e_col, e_val, ekey, status):
+        """Derived e_ac_kwh entries (keys, values, rows) from the chunk's counter readings.
+
+        The counter's resolution is measured from its steps (:func:`ingest.counters.counter_resolution`);
+        a coarse counter (:func:`ingest.counters.is_coarse`) of an inverter whose AC power is in
+        the same file gets no interval energy: its intervals take energy from AC power, and
+        its readings stay stored for the daily / monthly cross-check."""
         keys, vals, rows = [np.empty(0, np.int64)], [np.empty(0)], [np.empty(0, np.int64)]
+        power_devs = {vc.device for vc in self.vcols if vc.quantity == "p_ac_kw"}
         for j, vc in enumerate(self.vcols):
             if vc.quantity != "e_ac_total_kwh":
                 continue
@@ -539,23 +653,73 @@ class _FileLoader:
             r = e_row[m]
             if len(r) == 0:
                 continue
-            order = np.argsort(ts[r], kind="stable")
-            r, v = r[order], e_val[m][order]
+            t_r = e_ts[m]
+            order = np.argsort(t_r, kind="stable")
+            r, v, t_r = r[order], e_val[m][order], t_r[order]
             dev = vc.device
             if dev not in self.counter_prev:
-                prev = readings.previous_reading(self.conn, vc.channel, int(ts[r[0]]))
+                prev = readings.previous_reading(self.conn, vc.channel, int(t_r[0]))
                 self.counter_prev[dev] = (prev[0] + int(iv[r[0]]), prev[1]) if prev else None
             ev = self.counter_events.setdefault(dev, CounterEvents())
             inv = self.cfg.inverter(dev)
+            prev_v = self.counter_prev[dev][1] if self.counter_prev[dev] else np.nan
+            res = counter_resolution(np.diff(np.concatenate([[prev_v], v])))
+            if res is not None:
+                self.counter_res[dev] = res
+            res = self.counter_res.get(dev)
+            tau = float(np.nanmedian(iv[r]))
+            coarse = is_coarse(res, inv.p_ac_max_kw, tau)
+            from_power = coarse and dev in power_devs
+            info = self.counter_info.setdefault(dev, {})
+            if res is not None:
+                info.update(resolution_kwh=res, coarse=coarse,
+                            interval_energy_from="p_ac_kw" if from_power else "counter")
             energy, self.counter_prev[dev] = interval_energy(
-                ts[r], iv[r], v, self.counter_prev[dev], p_ac_max_kw=inv.p_ac_max_kw,
-                rollover_kwh=self.source.counter_rollover_kwh, events=ev)
+                t_r, iv[r], v, self.counter_prev[dev], p_ac_max_kw=inv.p_ac_max_kw,
+                rollover_kwh=self.source.counter_rollover_kwh, events=ev,
+                step_kwh=res if coarse else 0.0)
+            if from_power:
+                continue  # readings stored as read; interval energy comes from AC power
             good = ~np.isnan(energy)
             ch_e = self.channels[(dev, "e_ac_kwh")]
-            keys.append(readings.key(np.full(int(good.sum()), ch_e), ts[r[good]]))
+            keys.append(readings.key(np.full(int(good.sum()), ch_e), t_r[good]))
             vals.append(energy[good])
             rows.append(r[good])
         return np.concatenate(keys), np.concatenate(vals), np.concatenate(rows)
+
+    def _counter_boundaries(self) -> None:
+        """Interval energy of the stored counter reading right after this file's last one.
+
+        Loaded in time order, a file's first derived interval energy comes from the stored
+        reading before it. Loaded out of order (January after February), February's first
+        interval energy could not be derived when February was loaded; it is derived now,
+        so the store does not depend on load order. Only where no e_ac_kwh is stored yet.
+        """
+        nominal = (max(self.steps.items(), key=lambda kv: (kv[1], -kv[0]))[0]
+                   if self.steps else None)
+        for dev, prev in self.counter_prev.items():
+            if prev is None or nominal is None:
+                continue
+            vc = next(v for v in self.vcols if v.device == dev and v.quantity == "e_ac_total_kwh")
+            nxt = readings.next_reading(self.conn, vc.channel, prev[0] - 1)
+            if nxt is None or nxt[0] != prev[0]:
+                continue  # nothing stored right after this file (or a gap)
+            ch_e = self.channels.get((dev, "e_ac_kwh"))
+            if ch_e is None or readings.has_reading(self.conn, ch_e, nxt[0]):
+                continue
+            inv = self.cfg.inverter(dev)
+            energy, _ = interval_energy(
+                np.array([nxt[0]], dtype=np.int64), np.array([float(nominal)]),
+                np.array([nxt[1]]), prev, p_ac_max_kw=inv.p_ac_max_kw,
+                rollover_kwh=self.source.counter_rollover_kwh,
+                events=self.counter_events.setdefault(dev, CounterEvents()))
+            if np.isfinite(energy[0]):
+                readings.write_readings(self.conn, np.array([ch_e]), np.array([nxt[0]]),
+                                        energy, self.batch_id, upsert=True)
+                self.derived["e_ac_kwh_derived_after_file"] += 1
+                lo, hi = nxt[0], nxt[0]
+                self.written = (lo, hi) if self.written is None else (
+                    min(lo, self.written[0]), max(hi, self.written[1]))
 
     def _overlaps(self, chans: list[int], lo: int, hi: int) -> bool:
         if self.written and lo <= self.written[1] and hi >= self.written[0]:
@@ -587,6 +751,14 @@ class _FileLoader:
     def result(self) -> BatchResult:
         notes: dict = {}
         notes.update(self.conv.notes())
+        for conv in self.group_convs[1:]:  # per-device corrections: rows shifted, by correction
+            for n, (_lo, _hi, _s, c) in enumerate(conv._corr):
+                if getattr(c, "everywhere", True) or not conv.corrected[n]:
+                    continue
+                notes.setdefault("clock_corrections", []).append(
+                    {"start": c.start.isoformat(), "end": c.end.isoformat(),
+                     "shift_minutes": c.shift_minutes, "note": c.note, "rows": conv.corrected[n],
+                     "devices": list(c.devices), "columns": list(c.columns)})
         if self.meta.missing:
             notes["configured_columns_missing"] = self.meta.missing
         if self.meta.ignored:
@@ -596,10 +768,14 @@ class _FileLoader:
         counters = {}
         for dev, ev in self.counter_events.items():
             counters.update(ev.as_notes(dev))
+        for dev, info in self.counter_info.items():
+            counters.setdefault(dev, {}).update(info)
         if counters:
             notes["counters"] = counters
         notes.update({k: v for k, v in self.derived.items() if v})
         notes["compressed"] = self.meta.compressed
+        notes["lines"] = {"total": self.meta.lines_read, "before_data": self.meta.data_line,
+                          "blank": self.meta.blank_lines}
         intervals = np.concatenate(self.intervals) if self.intervals else np.empty(0)
         return BatchResult(
             path=self.path, site_id=self.cfg.id, source_name=self.source.name, status="loaded",

@@ -33,6 +33,7 @@ def test_ingest_prints_per_file_summary(tmp_path, site):
     r = run(tmp_path / "s.sqlite", "ingest", "--no-compute", site)
     assert r.exit_code == 0, r.output
     assert r.output == (
+        f"creating a new database at {tmp_path / 's.sqlite'}\n"  # only ingest creates one
         "basic_2023-06-01.csv: 6 rows: 4 loaded, 0 duplicate, 2 rejected; 2023-06-01 10:00 .. "
         "2023-06-01 11:00 UTC (interval start); interval 900 s; values: 14 new or changed "
         "(0 conflicting), 0 duplicate, 2 rejected\n"
@@ -60,7 +61,8 @@ def test_failed_file_exits_1_with_error_line(tmp_path, site):
            "configured but missing: 'INV2_PAC', 'Irr', 'TMod'); map each column in "
            "[[sources.columns]] (header, device, quantity, unit) or list it in ignore_columns")
     assert r.stdout == f"basic_bad.csv: FAILED: {msg}\n"
-    assert r.stderr == f"Error: 1 of 1 files failed: {msg}\n"
+    assert r.stderr == (f"creating a new database at {tmp_path / 's.sqlite'}\n"
+                        f"Error: 1 of 1 files failed: {msg}\n")
     eng = make_engine(tmp_path / "s.sqlite")
     with eng.connect() as conn:
         assert conn.execute(sa.select(schema.ingest_batch.c.status)).scalars().all() == ["failed"]
@@ -131,5 +133,29 @@ def test_summary(tmp_path, site):
 
 
 def test_summary_empty_database(tmp_path):
+    make_engine(tmp_path / "s.sqlite").dispose()  # an existing, empty database
     r = run(tmp_path / "s.sqlite", "summary")
     assert r.exit_code == 0 and r.output == "no sites loaded yet; load one with `heliaudit ingest CONFIG`\n"
+
+
+@pytest.mark.parametrize("args", [["summary"], ["check", "--site", "quillpond"],
+                                  ["results", "--site", "quillpond"],
+                                  ["compute"], ["dashboard", "--no-browser"]])
+def test_read_commands_refuse_a_missing_database(tmp_path, args):
+    # a mistyped --db must not create an empty store and report "no sites loaded yet" (#11)
+    missing = tmp_path / "typo" / "heliaudit.sqlit"
+    r = CliRunner().invoke(main, ["--db", str(missing), *args])
+    assert r.exit_code != 0
+    assert f"no database at {missing}" in r.output
+    assert "Only `heliaudit ingest` creates a database" in r.output
+    assert not missing.exists() and not missing.parent.exists()
+
+
+def test_ingest_creates_the_database_and_says_so(tmp_path, site):
+    db = tmp_path / "new.sqlite"
+    r = run(db, "ingest", "--no-compute", site)
+    assert r.exit_code == 0 and db.exists()
+    assert r.output.splitlines()[0] == f"creating a new database at {db}"
+    again = run(db, "ingest", "--no-compute", site)
+    assert "creating a new database" not in again.output  # only when it is new
+    assert run(db, "summary").exit_code == 0

@@ -60,8 +60,9 @@ def _weather(ts: pd.DatetimeIndex, rng) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _insert(raw: sqlite3.Connection, ch: int, ts_s: np.ndarray, v: np.ndarray) -> None:
-    raw.executemany("INSERT OR REPLACE INTO reading (channel_id, ts_s, value, batch_id) "
-                    "VALUES (?, ?, ?, 0)", zip(repeat(ch), ts_s.tolist(), v.tolist(), strict=False))
+    # each reading with its 15-min interval, as ingest records it (schema v3, #11)
+    raw.executemany("INSERT OR REPLACE INTO reading (channel_id, ts_s, value, batch_id, interval_s) "
+                    "VALUES (?, ?, ?, 0, 900)", zip(repeat(ch), ts_s.tolist(), v.tolist(), strict=False))
 
 
 def build(path: Path, n_inv: int, years: float, seed: int = 7) -> dict:
