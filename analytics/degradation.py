@@ -871,6 +871,14 @@ def judge_sensor_drift(checks: list[RateResult], *, min_drift_pct_per_yr: float 
             "n_excluding_zero": len(side)}
 
 
+def _lbl(code: str) -> str:
+    """A method's name in words (analytics.labels), for reasons and caveat texts: the code
+    itself travels in the caveat's ``method`` and the row's ``chosen_method``."""
+    from analytics.labels import METHOD_LABELS
+    name = METHOD_LABELS.get(code, code)
+    return f"'{name}'"
+
+
 def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                    shifts: list[dict] | None = None, soiling: dict | None = None,
                    sensor_id: str | None = None, low: float = -2.0, high: float = 0.5,
@@ -931,20 +939,20 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
     if drift and drift.get("judged"):
         d = drift.get("drift_pct_per_yr")
         text = (f"{sensor} drifts by about {d:+.2f} %/yr against the modelled clear sky "
-                f"({DRIFT_CHECK}); the sensor-based rates ({YEAR_PAIRS} and the others) are "
+                f"({_lbl(DRIFT_CHECK)}); the sensor-based rates ({_lbl(YEAR_PAIRS)} and the others) are "
                 "shifted by about that much: check the sensor's calibration")
         caveats.append({"kind": "sensor_drift", "method": YEAR_PAIRS, "text": text})
         if shifts and have(SKY_BETWEEN_SHIFTS):
             chosen = SKY_BETWEEN_SHIFTS
             reasons.append(f"{sensor} is judged to drift ({d:+.2f} %/yr) and a persistent level "
                            f"shift was found: the rate that does not use the sensor, between the "
-                           f"shifts, {SKY_BETWEEN_SHIFTS}, is recommended")
+                           f"shifts, {_lbl(SKY_BETWEEN_SHIFTS)}, is recommended")
         elif have(SKY_PAIRS):
             chosen = SKY_PAIRS
             reasons.append(f"{sensor} is judged to drift ({d:+.2f} %/yr): the rate that does not "
-                           f"use it, {SKY_PAIRS}, is recommended")
+                           f"use it, {_lbl(SKY_PAIRS)}, is recommended")
         else:
-            reasons.append(f"{sensor} is judged to drift but {SKY_PAIRS} was not computed "
+            reasons.append(f"{sensor} is judged to drift but {_lbl(SKY_PAIRS)} was not computed "
                            f"({results.get(SKY_PAIRS).reason if results.get(SKY_PAIRS) else 'absent'}): "
                            "the sensor-based rate is shown, read it with the drift in mind")
     if shifts:
@@ -953,18 +961,18 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                            else "") for c in shifts)
         caveats.append({"kind": "level_shift", "method": YEAR_PAIRS,
                         "text": f"level shift(s) {txt}: a step is a failure or repair (string, "
-                                f"module, inverter), not degradation; {YEAR_PAIRS} over the whole "
-                                f"period mixes it in, {BETWEEN_SHIFTS} leaves it out. Inspection is "
+                                f"module, inverter), not degradation; {_lbl(YEAR_PAIRS)} over the whole "
+                                f"period mixes it in, {_lbl(BETWEEN_SHIFTS)} leaves it out. Inspection is "
                                 "for qualified people (PV arrays are energised whenever lit)"})
         if chosen is None and have(BETWEEN_SHIFTS):
             chosen = BETWEEN_SHIFTS
             reasons.append(f"{len(shifts)} persistent level shift(s) found: the rate within the "
-                           f"segments between them, {BETWEEN_SHIFTS}, is recommended")
+                           f"segments between them, {_lbl(BETWEEN_SHIFTS)}, is recommended")
     loss = None if not soiling else soiling.get("loss_pct")
     if loss is not None and loss >= min_soiling_loss_pct:
         caveats.append({"kind": "soiling", "method": YEAR_PAIRS,
                         "text": f"soiling costs about {loss:.1f} % of the energy; soiling that differs "
-                                f"from year to year leaks into {YEAR_PAIRS}; {SOILING_CORRECTED} "
+                                f"from year to year leaks into {_lbl(YEAR_PAIRS)}; {_lbl(SOILING_CORRECTED)} "
                                 "divides it out"})
         if chosen is None and have(SOILING_CORRECTED) and have(YEAR_PAIRS):
             a, b = results[YEAR_PAIRS], results[SOILING_CORRECTED]
@@ -975,12 +983,12 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
             if gap > half:
                 chosen = SOILING_CORRECTED
                 reasons.append(f"soiling is material ({loss:.1f} % energy loss) and the "
-                               f"soiling-corrected rate differs from {YEAR_PAIRS} by {gap:.2f} %/yr, "
+                               f"soiling-corrected rate differs from {_lbl(YEAR_PAIRS)} by {gap:.2f} %/yr, "
                                "more than their 68 % intervals allow: soiling differs between "
-                               f"years, so {SOILING_CORRECTED} is recommended")
+                               f"years, so {_lbl(SOILING_CORRECTED)} is recommended")
             else:
                 reasons.append(f"soiling is material ({loss:.1f} % energy loss) but "
-                               f"{SOILING_CORRECTED} agrees with {YEAR_PAIRS} within their 68 % "
+                               f"{_lbl(SOILING_CORRECTED)} agrees with {_lbl(YEAR_PAIRS)} within their 68 % "
                                "intervals: the soiling repeats with the seasons and cancels in the "
                                "year pairs")
     if chosen is None:
@@ -988,7 +996,7 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
             if have(m):
                 chosen = m
                 reasons.append(f"no sensor drift, level shift or material soiling found: "
-                               f"{m}, the best-calibrated method on the validation fleets, is "
+                               f"{_lbl(m)}, the best-calibrated method on the validation fleets, is "
                                "recommended")
                 break
     if chosen is None:
@@ -1000,13 +1008,13 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
     r = results[chosen]
     if r.rate_pct_per_yr is not None and not low <= r.rate_pct_per_yr <= high:
         caveats.append({"kind": "out_of_range", "method": chosen,
-                        "text": f"{chosen}: {r.rate_pct_per_yr:+.2f} %/yr is outside "
+                        "text": f"{_lbl(chosen)}: {r.rate_pct_per_yr:+.2f} %/yr is outside "
                                 f"{low:+.1f}..{high:+.1f} %/yr, the range of published field rates "
                                 "(Jordan & Kurtz 2013): review the data before using it"})
     span = r.details.get("span_years") if isinstance(r.details, dict) else None
     if span is not None and span < 3:
         caveats.append({"kind": "little_data", "method": chosen,
-                        "text": f"{chosen} rests on {span:.2f} years of usable data; 3 or more are "
+                        "text": f"{_lbl(chosen)} rests on {span:.2f} years of usable data; 3 or more are "
                                 "recommended, seasonal effects may not average out"})
     if r.ci_low is not None:
         for m in (YEAR_PAIRS, ROBUST_LINE, SKY_PAIRS):
@@ -1016,8 +1024,8 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                 continue
             if o.ci_high < r.ci_low or r.ci_high < o.ci_low:
                 caveats.append({"kind": "methods_disagree", "method": m,
-                                "text": f"{m} ({o.rate_pct_per_yr:+.2f} %/yr) disagrees with "
-                                        f"{chosen} ({r.rate_pct_per_yr:+.2f} %/yr): their intervals "
+                                "text": f"{_lbl(m)} ({o.rate_pct_per_yr:+.2f} %/yr) disagrees with "
+                                        f"{_lbl(chosen)} ({r.rate_pct_per_yr:+.2f} %/yr): their intervals "
                                         "do not overlap"})
     lo68, hi68 = interval_68(r)
     out = RateResult(method="recommended", rate_pct_per_yr=r.rate_pct_per_yr, ci_low=r.ci_low,
