@@ -33,8 +33,7 @@ Daily sums (ratios of sums, never means of ratios, METHODS §5):
   of pi for the plant's operating state (outage, clipping) or the irradiance window still
   count as covered, so that an inverter with a high DC/AC ratio, which clips on every clear
   summer day, keeps its summer days. ``day_valid``: coverage >= ``min_coverage`` (0.8), at
-  least ``min_valid_fraction`` (0.5) of the insolation outside clipped intervals in valid
-  intervals (so that an
+  least ``min_valid_fraction`` (0.5) of the insolation in valid intervals (so that an
   overcast day whose pi rests on two intervals does not enter trends; the share is in
   ``details_json`` as ``valid_insolation_fraction``), and a finite pi;
 * availability (:mod:`analytics.availability`): ``t_daylight_h`` (sun up, G >= 50 W/m² and
@@ -353,10 +352,7 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     covered = ~np.isin(codes_s, flt.DATA_PROBLEMS)
     w_day = np.bincount(ds, weights=w_cov, minlength=nd)
     cov = _div(np.bincount(ds, weights=np.where(covered, w_cov, 0.0), minlength=nd), w_day)
-    # share of the insolation outside the clipping zone that is valid: the clipping zone is a
-    # plant state (judged from the expected power), not a reason to drop a clear day (#13)
-    w_free = np.bincount(ds, weights=np.where(codes_s == flt.CLIPPED, 0.0, w_cov), minlength=nd)
-    frac_valid = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd), w_free)
+    frac_valid = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd), w_day)
 
     base = (gs >= f["outage_poa_wm2"]) & np.isfinite(ps)
     unavail = base & unavailable_mask(ps, gs, pmax_s, f["outage_fraction"],
