@@ -77,6 +77,8 @@ DEFAULT_FILTERS: dict[str, float] = {
     # for the underperformance flags of high-DC/AC inverters (issue #13; a separate index for
     # trends in the daily table is the way to have both). Sites may set it in [filters].
     "clip_expected_fraction": 10.0,
+    # the same rule for the daily index of degradation trends (daily details "trend"), on
+    "trend_clip_expected_fraction": 0.90,
     "stuck_samples": 4.0,  # G / P_ac flat-line run length [samples]
     "stuck_rel_tol": 0.001,  # ... with |Δx| below this fraction of the sensor span
     "stuck_t_samples": 8.0,  # T_mod flat-line run length [samples]
