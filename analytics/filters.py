@@ -27,8 +27,9 @@ grows with the DC/AC ratio and the clearness of the site. Excluding the interval
 *unlimited* expected AC power reaches 0.90 of the rating keeps the selection independent of
 the array's state for arrays up to ~9 % above their model (measured by the validation
 scorecard in tests/validation/, issue #13: year-on-year bias on a clear desert fleet with
-DC/AC 1.25-1.38 from +0.14 to -0.01 %/yr). It is off by default because the same daily index
-feeds the underperformance flags, which need the clear summer hours.
+DC/AC 1.25-1.38 from +0.14 to -0.01 %/yr). The daily table applies it to a separate index
+for trends (``trend_clip_expected_fraction``); in ``pi``, which feeds the underperformance
+flags and needs the clear summer hours, it is off by default (``clip_expected_fraction``).
 
 Outage and clipping come before "stuck" because an inverter at 0 kW or at its limit reads
 flat by nature. Only ``night`` intervals are left out of the energy PR's intervals
