@@ -7,12 +7,12 @@ injected rates; known answers of our own generator):
 each at the README's own figures ("What the main job does", "Degradation rates"):
 
 * inverters on the stable POA sensor (POA-RC1) and without faults: year-on-year within
-  0.05 %/yr of the injected rate, and it is their recommended rate;
+  0.06 %/yr of the injected rate, and it is their recommended rate;
 * inverters on POA-PY2 (the generator drifts it −0.8 %/yr from 2023-07): the sensor is judged
-  to drift, the year-on-year rate reads 0.62-0.70 %/yr too optimistic, the recommended rate
+  to drift, the year-on-year rate reads 0.65-0.75 %/yr too optimistic, the recommended rate
   is the clear-sky one, 0.18-0.25 %/yr too pessimistic and inside its interval;
 * INV-05 (a string opens on 2023-09-12): a level shift on that day, sized −5.6 %, and the
-  within-segment rate −0.97 %/yr (truth −0.93) recommended;
+  within-segment rate −0.93 %/yr (truth −0.93) recommended;
 * the fleet's median recovered rate is near the published median for crystalline silicon,
   0.5 %/yr loss (Jordan & Kurtz 2013), here within the generator's truth range.
 
@@ -85,7 +85,7 @@ def _sensor_of(truth, dev):
 
 def test_stable_sensor_inverters_within_readme_figure(results, truth):
     # README "What the main job does": the year-on-year rates of the inverters on the stable
-    # reference cell land within 0.05 %/yr of the injected truth,
+    # reference cell land within 0.06 %/yr of the injected truth (0.01-0.06 too pessimistic),
     # and for them the recommended rate is the year-on-year rate.
     rates = truth["degradation"]["per_inverter_pct_per_yr"]
     faulty = {truth["string_failure"]["inverter"]}
@@ -94,7 +94,7 @@ def test_stable_sensor_inverters_within_readme_figure(results, truth):
         if _sensor_of(truth, dev) != "POA-RC1" or dev in faulty:
             continue
         got = results.loc[(dev, "sensor_year_pairs"), "rate_pct_per_yr"]
-        assert abs(got - rd) < 0.05, (dev, got, rd)
+        assert -0.065 < got - rd <= 0.0, (dev, got, rd)
         rec = results.loc[(dev, "recommended")]
         assert rec["details"]["chosen_method"] == "sensor_year_pairs"
         assert rec["rate_pct_per_yr"] == got
@@ -104,7 +104,7 @@ def test_stable_sensor_inverters_within_readme_figure(results, truth):
 
 def test_drifting_pyranometer_judged_and_recommended_rate_sensor_independent(results, truth):
     # README: POA-PY2 (drifting -0.8 %/yr from 2023-07) is judged to drift; its inverters'
-    # year-on-year rates read 0.62-0.70 %/yr too optimistic; the recommended rate is the
+    # year-on-year rates read 0.65-0.75 %/yr too optimistic; the recommended rate is the
     # clear-sky one, 0.18-0.25 %/yr too pessimistic and inside its 95 % interval, and every
     # one carries the "check its calibration" warning.
     rates = truth["degradation"]["per_inverter_pct_per_yr"]
@@ -113,7 +113,7 @@ def test_drifting_pyranometer_judged_and_recommended_rate_sensor_independent(res
     assert len(devs) == 7
     for dev in devs:
         yoy = results.loc[(dev, "sensor_year_pairs"), "rate_pct_per_yr"]
-        assert 0.615 <= yoy - rates[dev] <= 0.705, (dev, yoy)
+        assert 0.645 <= yoy - rates[dev] <= 0.755, (dev, yoy)
         rec = results.loc[(dev, "recommended")]
         assert rec["details"]["chosen_method"] == "modelled_sky_year_pairs", dev
         assert -0.255 <= rec["rate_pct_per_yr"] - rates[dev] <= -0.175, (dev, rec["rate_pct_per_yr"])
@@ -151,7 +151,7 @@ def test_fleet_median_near_published_median(results, truth):
 
 def test_string_failure_step_sized_and_within_segment_rate(results, truth):
     # README: the step is sized -5.6 % (truth: one string of INV-05, 6 % of DC power, on top
-    # of its degradation) and the recommended rate is the within-segment rate, -0.97 %/yr
+    # of its degradation) and the recommended rate is the within-segment rate, -0.93 %/yr
     # against the injected -0.93 %/yr.
     sf = truth["string_failure"]
     dev = sf["inverter"]
@@ -162,7 +162,7 @@ def test_string_failure_step_sized_and_within_segment_rate(results, truth):
     rd = truth["degradation"]["per_inverter_pct_per_yr"][dev]
     rec = results.loc[(dev, "recommended")]
     assert rec["details"]["chosen_method"] == "sensor_year_pairs_between_shifts"
-    assert round(rec["rate_pct_per_yr"], 2) == -0.97 and round(rd, 2) == -0.93, (rec["rate_pct_per_yr"], rd)
+    assert round(rec["rate_pct_per_yr"], 2) == round(rd, 2) == -0.93, (rec["rate_pct_per_yr"], rd)
 
 
 def test_soiling_differences_are_not_level_shifts(results, truth):
