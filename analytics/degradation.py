@@ -149,6 +149,42 @@ def usable_daily_pi(pi: pd.Series, day_valid: pd.Series | None = None, *,
     return _as_daily(s[keep]), report
 
 
+def trend_index(d: pd.DataFrame) -> pd.DataFrame:
+    """Daily rows with ``pi``, ``day_valid``, ``e_ac_valid_kwh`` and ``e_exp_valid_kwh``
+    replaced by the daily index for trends (``details_json`` → ``trend`` of
+    :mod:`analytics.daily`: valid intervals outside the clipping zone judged from the expected
+    power without the AC limit, a selection that does not move as the array degrades);
+    rows computed before it keep their values. Frame in, frame out.
+
+    Examples
+    --------
+    >>> d = pd.DataFrame({"pi": [0.9], "day_valid": [False], "e_ac_valid_kwh": [9.0],
+    ...                   "e_exp_valid_kwh": [10.0], "details_json": ['{"trend": {"pi": 0.95, '
+    ...                   '"day_valid": true, "e_ac_kwh": 9.5, "e_exp_kwh": 10.0}}']})
+    >>> trend_index(d)[["pi", "day_valid"]].iloc[0].tolist()
+    [0.95, True]
+    """
+    import json
+
+    if "details_json" not in d or not len(d):
+        return d
+    t = [(json.loads(x).get("trend") if isinstance(x, str) and '"trend"' in x else None)
+         for x in d["details_json"]]
+    have = np.array([x is not None for x in t])
+    if not have.any():
+        return d
+    d = d.copy()
+    def pick(key):
+        return np.array([x[key] if x is not None and x[key] is not None else np.nan
+                         for x in t], dtype=float)
+
+    d.loc[have, "pi"] = pick("pi")[have]
+    d.loc[have, "e_ac_valid_kwh"] = pick("e_ac_kwh")[have]
+    d.loc[have, "e_exp_valid_kwh"] = pick("e_exp_kwh")[have]
+    d.loc[have, "day_valid"] = [bool(x["day_valid"]) for x in t if x is not None]
+    return d
+
+
 def check_span(days: pd.DatetimeIndex, *, min_years: float = 2.0, warn_years: float = 3.0,
                what: str = "daily index") -> tuple[float, str | None]:
     """Years spanned by ``days``; raise below ``min_years``, return a warning below ``warn_years``.

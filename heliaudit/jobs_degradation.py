@@ -125,36 +125,11 @@ def warranty_terms(config_toml: str | None) -> dict | None:
 # ---------------------------------------------------------------- inputs
 
 
-def _trend_index(d: pd.DataFrame) -> pd.DataFrame:
-    """Use the daily index for trends (analytics.daily details ``trend``: the clipping zone
-    judged from the expected power, issue #13) where the daily rows carry it; rows computed
-    before it keep their ``pi``."""
-    import json
-
-    if "details_json" not in d or not len(d):
-        return d
-    t = [(json.loads(x).get("trend") if isinstance(x, str) and '"trend"' in x else None)
-         for x in d["details_json"]]
-    have = np.array([x is not None for x in t])
-    if not have.any():
-        return d
-    d = d.copy()
-    def pick(key):
-        return np.array([x[key] if x is not None and x[key] is not None else np.nan
-                         for x in t], dtype=float)
-
-    d.loc[have, "pi"] = pick("pi")[have]
-    d.loc[have, "e_ac_valid_kwh"] = pick("e_ac_kwh")[have]
-    d.loc[have, "e_exp_valid_kwh"] = pick("e_exp_kwh")[have]
-    d.loc[have, "day_valid"] = [bool(x["day_valid"]) for x in t if x is not None]
-    return d
-
-
 def _daily_by_device(daily: pd.DataFrame) -> dict[str, pd.DataFrame]:
     out = {}
     for dev, d in daily.groupby("device_id"):
         d = d.set_index(pd.DatetimeIndex(pd.to_datetime(d["day"]))).sort_index()
-        out[str(dev)] = _trend_index(d)
+        out[str(dev)] = adeg.trend_index(d)
     return out
 
 
