@@ -161,8 +161,9 @@ def trend_index(d: pd.DataFrame) -> pd.DataFrame:
     >>> d = pd.DataFrame({"pi": [0.9], "day_valid": [False], "e_ac_valid_kwh": [9.0],
     ...                   "e_exp_valid_kwh": [10.0], "details_json": ['{"trend": {"pi": 0.95, '
     ...                   '"day_valid": true, "e_ac_kwh": 9.5, "e_exp_kwh": 10.0}}']})
-    >>> trend_index(d)[["pi", "day_valid"]].iloc[0].tolist()
-    [0.95, True]
+    >>> t = trend_index(d)
+    >>> float(t["pi"].iloc[0]), bool(t["day_valid"].iloc[0])
+    (0.95, True)
     """
     import json
 
