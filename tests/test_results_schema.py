@@ -119,7 +119,10 @@ def test_degradation_csv_carries_warnings_caveats_and_notice(dashboard_store):
     assert r.exit_code == 0, r.output
     rows = list(csv.DictReader(io.StringIO(r.output)))
     assert {"warnings", "reasons", "caveats", "notice", "recommended"} <= set(rows[0])
-    assert not {row["method"] for row in rows} & {"overview", "summary", "recommended"}
+    assert not {row["method"] for row in rows} & {"overview", "summary"}  # no pseudo-method
+    for dev in {row["device_id"] for row in rows}:  # the recommended rate, once per device
+        recs = [row for row in rows if row["device_id"] == dev and row["method"] == "recommended"]
+        assert len(recs) <= 1
     assert all(row["notice"].startswith("Screening evidence") for row in rows)
     for dev in {row["device_id"] for row in rows}:  # at most one recommended row per device
         assert sum(row["recommended"] == "True" for row in rows if row["device_id"] == dev) <= 1
