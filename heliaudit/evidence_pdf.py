@@ -97,6 +97,17 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
         "Year-on-year rate of the ratio of the sensor-based to the clear-sky-based index on "
         "clear days: a trend here is the irradiance sensor drifting (soiling of the sensor, "
         "calibration), not the modules."),
+    "modelled_sky_between_shifts": (
+        "Clear-sky year-on-year rate without pairs that span a level shift",
+        "The clear-sky index of \"modelled_sky_year_pairs\" (independent of the irradiance "
+        "sensor), with the pairs that straddle a lasting step (PELT, Killick et al. 2012) "
+        "left out: for an inverter with both a drifting sensor and a failure."),
+    "sensor_year_pairs_unsoiled": (
+        "Year-on-year rate of the soiling-corrected index",
+        "The daily index is divided by its soiling ratio, estimated from the dry intervals "
+        "between cleanings (Deceglie et al. 2018), then the year-on-year method (Jordan et al. "
+        "2018). Used when soiling is material and uneven between seasons, which otherwise "
+        "leaks into year-on-year pairs."),
     "sensor_year_pairs_soiling_corrected": (
         "Year-on-year rate of the soiling-corrected index",
         "The daily index is divided by its soiling ratio, estimated from the dry intervals "
@@ -301,12 +312,14 @@ def _summary_section(pack, st) -> list:
     out.append(Spacer(1, 4))
     notes = []
     for s in pack.summary:
+        # the recommended rate's caveats (issue #13) already say these in their own words
+        kinds = {c.get("kind") for c in s["caveats"] if isinstance(c, dict)}
         drops = [c for c in s["change_points"] if c.get("kind") == "drop"]
-        if drops:
+        if drops and "level_shift" not in kinds:
             notes.append(f"{_label(s['device_id'])}: level drop on "
                          + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
                          + ": a failure, not degradation; see sections 5 and 6.")
-        if s["agree"] is False:
+        if s["agree"] is False and "methods_disagree" not in kinds:
             notes.append(f"{_label(s['device_id'])}: methods disagree ("
                          f"{_pairs(s['disagreements'])}); read section 5 before using the rate.")
         for c in s["caveats"]:
