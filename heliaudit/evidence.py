@@ -63,7 +63,7 @@ MANIFEST_SCHEMA = "heliaudit-evidence/1"
 SITE = "(site)"
 #: Method used when no ``recommended`` row exists (contract in issue #13).
 FALLBACK_METHOD = "sensor_year_pairs"
-STORED_BASIS = "stored results of the last `heliaudit compute`"
+STORED_BASIS = "stored results of the last \"heliaudit compute\""
 FLOAT_FORMAT = "%.6g"
 #: Libraries whose versions the manifest records.
 LIBRARIES = ("numpy", "pandas", "scipy", "statsmodels", "pvlib", "ruptures", "sqlalchemy",

@@ -216,6 +216,13 @@ def test_cli_errors_and_force(store, tmp_path):
     assert (busy / "report.pdf").is_file() and (busy / "notes.txt").read_text() == "mine"
     r = runner.invoke(main, [*base, "--from", "2023-13-01", "--out", str(tmp_path / "c")])
     assert r.exit_code == 2 and "YYYY-MM-DD" in r.output
+    r = runner.invoke(main, [*base, "--from", "2024-01-01", "--to", "2023-01-01",
+                             "--out", str(tmp_path / "d")])
+    assert r.exit_code == 1 and "--from 2024-01-01 is after --to 2023-01-01" in r.output
+    missing = tmp_path / "nope.sqlite"
+    r = runner.invoke(main, ["--db", str(missing), "evidence", "--site", SITE,
+                             "--out", str(tmp_path / "e")])
+    assert r.exit_code == 1 and "no database at" in r.output and not missing.exists()
 
 
 def test_short_period_gives_a_pack_that_says_too_little_data(store):
