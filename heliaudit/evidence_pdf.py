@@ -369,13 +369,14 @@ def _system_section(pack, st) -> list:
                      _fmt(i["p_ac_max_kw"], "{:.1f}"),
                      _fmt(i["gamma_pmp_per_c"], "{:.2f}", 100),
                      _txt(i["mounting"]).replace("_", " "), _txt(i["commissioned"], "unknown"),
-                     _txt(c.get("plane"), "site plane"), _txt(i["poa_sensor_id"]),
+                     _txt(c.get("plane"), "per array" if c.get("arrays") else "site plane"),
+                     _txt(i["poa_sensor_id"]),
                      _txt(i["t_module_sensor_id"], "none (modelled)"), _txt(i["peer_group"])])
     total = pd.to_numeric(pack.inverters["p_dc_kwp"], errors="coerce").sum()
     out += [Paragraph(f"Inverters in this report: {len(pack.inverters)}, "
                       f"{total:.1f} kWp DC in total (ratings as configured).", st["body"]),
-            _table(rows, [1.5 * cm, 1.2 * cm, 1.2 * cm, 1.2 * cm, 2.6 * cm, 2.0 * cm, 1.6 * cm,
-                          2.0 * cm, 2.0 * cm, 1.7 * cm], st=st)]
+            _table(rows, [1.4 * cm, 1.2 * cm, 1.1 * cm, 1.2 * cm, 2.5 * cm, 2.2 * cm, 1.6 * cm,
+                          2.0 * cm, 2.0 * cm, 1.8 * cm], st=st)]
     planes = _plain_rows(cfg.get("planes"))
     if planes:
         out += [Paragraph("Planes (as configured)", st["h3"]), _table(planes, st=st)]
