@@ -100,15 +100,11 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
     "modelled_sky_between_shifts": (
         "Clear-sky year-on-year rate without pairs that span a level shift",
         "The clear-sky index of \"modelled_sky_year_pairs\" (independent of the irradiance "
-        "sensor), with the pairs that straddle a lasting step (PELT, Killick et al. 2012) "
-        "left out: for an inverter with both a drifting sensor and a failure."),
+        "sensor; clear periods after Reno & Hansen 2016), with the year-on-year pairs that "
+        "straddle a lasting step (PELT, Killick et al. 2012) left out: used when the "
+        "irradiance sensor drifts and a step (failure, repair) was found too (Jordan et al. "
+        "2018 pairs)."),
     "sensor_year_pairs_unsoiled": (
-        "Year-on-year rate of the soiling-corrected index",
-        "The daily index is divided by its soiling ratio, estimated from the dry intervals "
-        "between cleanings (Deceglie et al. 2018), then the year-on-year method (Jordan et al. "
-        "2018). Used when soiling is material and uneven between seasons, which otherwise "
-        "leaks into year-on-year pairs."),
-    "sensor_year_pairs_soiling_corrected": (
         "Year-on-year rate of the soiling-corrected index",
         "The daily index is divided by its soiling ratio, estimated from the dry intervals "
         "between cleanings (Deceglie et al. 2018), then the year-on-year method (Jordan et al. "
