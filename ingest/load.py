@@ -553,7 +553,8 @@ class _FileLoader:
                     else:
                         try:
                             to_stored(np.empty(0), quantity, uu)
-                            cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu)
+                            cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu,
+                                                  src.quantity_sampling.get(q, "mean"))
                         except ValueError as exc:
                             cache[k] = str(exc)
             v = cache[k]
