@@ -538,3 +538,18 @@ def test_long_layout_instant_samples_and_device_correction(engine, tmp_path):
     fr = inverter_frame(engine, "real", "INV1")
     hours = np.arange(5) / 6.0
     assert (fr["p_ac_kw"] * fr["interval_h"]).sum() == pytest.approx(_trapezoid(p, hours))
+
+
+def test_ingest_command_reports_coarse_counters(tmp_path):
+    from click.testing import CliRunner
+
+    from heliaudit.cli import main
+
+    _site(tmp_path, COUNTER_SOURCE, inverters=(("INV1", 3.0, 2.8),))
+    _write_counter_days(tmp_path, n_days=1)
+    r = CliRunner().invoke(main, ["--db", str(tmp_path / "s.sqlite"), "ingest", "--no-compute",
+                                  str(tmp_path / "site.toml")])
+    assert r.exit_code == 0, r.output
+    assert ("note: coarse energy counters (steps of 1 kWh) on 1 inverters (INV1): interval "
+            "energy from AC power") in r.output
+    assert "energy counters of" not in r.output  # no resets, jumps or gaps to report
