@@ -256,6 +256,25 @@ def test_coarse_counter_daily_energy_equals_integrated_power(engine, tmp_path):
     assert len(v) == len(truth) and set(np.diff(v)) <= {0.0, 1.0}
 
 
+def test_coarse_counter_in_small_chunks(engine, tmp_path):
+    """Chunks of 100 rows (8 h 20 min): the first holds too few steps to measure the
+    resolution; a step beyond one interval's possible energy already marks the counter
+    coarse, so no chunk writes counter energy and the day is still integrated power."""
+    from ingest.load import ingest_file
+
+    cfg = _site(tmp_path, COUNTER_SOURCE, inverters=(("INV1", 3.0, 2.8),))
+    f, truth = _write_counter_days(tmp_path)
+    res = ingest_file(engine, cfg, cfg.sources[0], f, chunk_rows=100)
+    assert res.status == "loaded" and res.notes["counters"]["INV1"]["resolution_kwh"] == 1.0
+    with engine.connect() as conn:
+        _ts, e = read_channel(conn, site_channels(conn, "real")[("INV1", "e_ac_kwh")])
+    assert e.size == 0  # no interval energy from the coarse counter in any chunk
+    jobs_daily.recompute_all(engine, "real")
+    d = daily_table(engine, "real").sort_values("day")
+    np.testing.assert_allclose(d["e_ac_kwh"].to_numpy(),
+                               truth.groupby("day")["p"].sum().to_numpy() * 5 / 60, rtol=1e-9)
+
+
 def test_fine_counter_still_gives_interval_energy(engine, tmp_path):
     cfg = _site(tmp_path, COUNTER_SOURCE, inverters=(("INV1", 3.0, 2.8),))
     f, truth = _write_counter_days(tmp_path, n_days=1, step=0.001)
