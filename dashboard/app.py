@@ -12,6 +12,7 @@ import datetime as dt
 import streamlit as st
 
 from dashboard import data, ui
+from db.engine import display_url
 
 st.set_page_config(page_title="heliaudit", page_icon=":material/solar_power:", layout="wide")
 
@@ -41,7 +42,7 @@ def _reset_window() -> None:
 with st.sidebar:
     st.markdown("### heliaudit")
     if sites.empty:
-        st.caption(f"Database: `{url}` — no site loaded.")
+        st.caption(f"Database: `{display_url(url)}` — no site loaded.")  # password masked
     else:
         ids = list(sites["site_id"])
         if "site" not in st.session_state or st.session_state["site"] not in ids:

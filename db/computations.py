@@ -5,6 +5,7 @@ how it was computed."""
 from __future__ import annotations
 
 import datetime as dt
+import json
 
 import sqlalchemy as sa
 
@@ -39,3 +40,21 @@ def latest_finished(engine: sa.Engine, site_id: str) -> dict[str, int]:
         rows = conn.execute(sa.select(c.kind, sa.func.max(c.computation_id)).where(
             c.site_id == site_id, c.finished_utc.is_not(None)).group_by(c.kind)).all()
     return {k: int(v) for k, v in rows}
+
+
+def batches_since_last_daily(engine: sa.Engine, site_id: str) -> list[tuple[int, int]] | None:
+    """``(ts_first_s, ts_last_s)`` of the batches loaded after those the site's last finished
+    daily computation saw (by batch id, recorded as ``through_batch_id``), or None when the
+    site's daily table was never computed."""
+    c, b = schema.computation.c, schema.ingest_batch.c
+    with engine.connect() as conn:
+        last = conn.execute(sa.select(c.params_json).where(
+            c.site_id == site_id, c.kind == "daily", c.finished_utc.is_not(None))
+            .order_by(c.computation_id.desc()).limit(1)).scalar()
+        if last is None:
+            return None
+        through = json.loads(last).get("through_batch_id") or 0
+        rows = conn.execute(sa.select(b.ts_first_s, b.ts_last_s).where(
+            b.site_id == site_id, b.status == "loaded", b.batch_id > through,
+            b.ts_first_s.is_not(None))).all()
+    return [(int(r[0]), int(r[1])) for r in rows]

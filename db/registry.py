@@ -12,6 +12,7 @@ import sqlalchemy as sa
 
 from db import schema
 from db.computations import now_utc
+from db.engine import write_lock
 from ingest.config import INVERTER_QUANTITIES, SiteConfig
 
 DERIVED = {"e_ac_total_kwh": "e_ac_kwh"}  # counter quantity -> the quantity ingest derives
@@ -68,6 +69,7 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
     """Insert or update the site, its devices and channels; return the channel map."""
     if isinstance(engine_or_conn, sa.Engine):
         with engine_or_conn.begin() as conn:
+            write_lock(conn, f"heliaudit:site:{cfg.id}")  # two ingests of a new site at once
             return register_site(conn, cfg)
     conn = engine_or_conn
     t = schema.site

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import importlib
 import importlib.util
-import json
 import os
 import socket
 import sys
@@ -12,8 +11,8 @@ import sys
 import click
 import sqlalchemy as sa
 
-from db import schema
-from db.computations import latest_finished
+from db import queries
+from db.computations import batches_since_last_daily, latest_finished
 from db.workqueue import claim_site, supports_claims
 from heliaudit.common import engine_from_ctx
 
@@ -23,30 +22,11 @@ LATER_STEPS = (("heliaudit.jobs_flags", "run_flags"),
 
 
 def _sites(engine: sa.Engine, site_id: str | None) -> list[str]:
-    with engine.connect() as conn:
-        known = conn.execute(sa.select(schema.site.c.site_id).order_by(
-            schema.site.c.site_id)).scalars().all()
+    known = queries.sites(engine)["site_id"].tolist()
     if site_id is not None and site_id not in known:
         raise click.ClickException(f"no site {site_id!r} in the database; known: "
                                    f"{', '.join(known) or '(none)'}")
     return [site_id] if site_id else list(known)
-
-
-def _new_batches(engine: sa.Engine, site_id: str) -> list[tuple[int, int]] | None:
-    """``(ts_first_s, ts_last_s)`` of batches loaded after those the site's last daily
-    computation saw (by batch id), or None when the site was never computed."""
-    c, b = schema.computation.c, schema.ingest_batch.c
-    with engine.connect() as conn:
-        last = conn.execute(sa.select(c.params_json).where(
-            c.site_id == site_id, c.kind == "daily", c.finished_utc.is_not(None))
-            .order_by(c.computation_id.desc()).limit(1)).scalar()
-        if last is None:
-            return None
-        through = json.loads(last).get("through_batch_id") or 0
-        rows = conn.execute(sa.select(b.ts_first_s, b.ts_last_s).where(
-            b.site_id == site_id, b.status == "loaded", b.batch_id > through,
-            b.ts_first_s.is_not(None))).all()
-    return [(int(r[0]), int(r[1])) for r in rows]
 
 
 class _Bar:
@@ -82,7 +62,7 @@ def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = Fals
     for sid in _sites(engine, site_id):
         bar = _Bar(f"{sid}: daily", tty)
         try:
-            ranges = None if full else _new_batches(engine, sid)
+            ranges = None if full else batches_since_last_daily(engine, sid)
             if ranges is None:
                 summaries += jobs_daily.recompute_all(engine, sid, progress=bar)
             else:
@@ -114,7 +94,7 @@ def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = Fals
 def _due(engine: sa.Engine, site_id: str) -> bool:
     """Does the site need computing: files loaded since its last daily computation, never
     computed, or a later step (flags, degradation) older than the daily table?"""
-    ranges = _new_batches(engine, site_id)
+    ranges = batches_since_last_daily(engine, site_id)
     if ranges is None or ranges:
         return True
     latest = latest_finished(engine, site_id)

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import click
 
-from db.engine import ENV_VAR
+from db.engine import ENV_VAR, display_url
 from heliaudit.common import require_existing_db
 
 APP = Path(__file__).resolve().parents[1] / "dashboard" / "app.py"
@@ -70,7 +70,8 @@ def dashboard(ctx: click.Context, port: int, host: str, no_browser: bool) -> Non
     # exits when there is none (seen from `heliaudit demo`); we open the browser ourselves.
     cmd = streamlit_command(port, host, headless=True)
     address = f"http://{host}:{port}"
-    click.echo(f"heliaudit dashboard on {address} (database {url}); Ctrl-C stops it", err=True)
+    click.echo(f"heliaudit dashboard on {address} (database {display_url(url)}); Ctrl-C stops it",
+               err=True)
     if not no_browser:
         threading.Thread(target=_open_when_up, args=(host, port, address), daemon=True).start()
     try:

@@ -131,10 +131,12 @@ def recommended_of(block: dict) -> dict:
     ``sensor_year_pairs`` method with a reason saying so (``fallback`` True).
     """
     rec = block.get("recommended")
-    if isinstance(rec, dict) and rec.get("method"):
+    if isinstance(rec, dict) and (rec.get("method") or rec.get("rate_pct_per_yr") is None
+                                  and rec.get("reason")):
         out = dict(rec)
-        out.setdefault("reasons", [])
-        out.setdefault("caveats", [])
+        out["method"] = rec.get("method") or "none"  # refused: no method could be chosen
+        out["reasons"] = list(rec.get("reasons") or [])
+        out["caveats"] = list(rec.get("caveats") or [])
         out["fallback"] = False
         return out
     m = (block.get("degradation") or {}).get(FALLBACK_METHOD) or {}
@@ -595,13 +597,24 @@ def build_pack(engine: sa.Engine, site_id: str, out_dir: str | Path, *, inverter
                 work.dispose()
     pack.created_utc = created
     pack.command = command or reproduce_command(db_url, site_id, inverters, start, end, out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    if force:
-        _clear_pack(out_dir)
-    write_data(pack, out_dir / "data")
-    pack.results_sha256 = sha256_file(out_dir / "data" / "results.json")
-    evidence_pdf.write_report(pack, out_dir / "report.pdf")
-    return write_manifest(pack, out_dir, db_url)
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    # build beside the target, then move in: a failure leaves no half-written pack
+    with tempfile.TemporaryDirectory(prefix=".evidence-", dir=out_dir.parent) as tmp:
+        stage = Path(tmp)
+        write_data(pack, stage / "data")
+        pack.results_sha256 = sha256_file(stage / "data" / "results.json")
+        try:
+            evidence_pdf.write_report(pack, stage / "report.pdf")
+        except Exception as exc:  # noqa: BLE001 - reportlab layout errors: a bug, said plainly
+            raise EvidenceError(f"the report could not be laid out ({type(exc).__name__}: "
+                                f"{str(exc)[:200]}); nothing was written to {out_dir}") from exc
+        manifest = write_manifest(pack, stage, db_url)
+        out_dir.mkdir(parents=True, exist_ok=True)
+        if force:
+            _clear_pack(out_dir)
+        for item in ("data", "report.pdf", "manifest.json"):
+            shutil.move(str(stage / item), str(out_dir / item))
+    return manifest
 
 
 def _recompute_window(engine: sa.Engine, site_id: str, start, end, tmp: Path) -> sa.Engine:

@@ -97,6 +97,12 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
         "Year-on-year rate of the ratio of the sensor-based to the clear-sky-based index on "
         "clear days: a trend here is the irradiance sensor drifting (soiling of the sensor, "
         "calibration), not the modules."),
+    "sensor_year_pairs_soiling_corrected": (
+        "Year-on-year rate of the soiling-corrected index",
+        "The daily index is divided by its soiling ratio, estimated from the dry intervals "
+        "between cleanings (Deceglie et al. 2018), then the year-on-year method (Jordan et al. "
+        "2018). Used when soiling is material and uneven between seasons, which otherwise "
+        "leaks into year-on-year pairs."),
     "sensor_year_pairs_between_shifts": (
         "Year-on-year rate without pairs that span a level shift",
         "Change points are found by PELT (Killick et al. 2012); pairs of days that straddle "
@@ -191,9 +197,9 @@ def _styles() -> dict:
                              leading=19, textColor=colors.HexColor(PRIMARY), spaceAfter=6),
         "h2": ParagraphStyle("h2", parent=base["Heading2"], fontName=FONT_BOLD, fontSize=12.5,
                              leading=15, textColor=colors.HexColor(PRIMARY), spaceBefore=10,
-                             spaceAfter=4),
+                             spaceAfter=4, keepWithNext=1),
         "h3": ParagraphStyle("h3", parent=base["Heading3"], fontName=FONT_BOLD, fontSize=10,
-                             leading=12.5, spaceBefore=6, spaceAfter=3),
+                             leading=12.5, spaceBefore=6, spaceAfter=3, keepWithNext=1),
         "box": ParagraphStyle("box", fontName=FONT, fontSize=8.6, leading=11.2, leftIndent=4,
                               rightIndent=4),
     }
@@ -229,9 +235,11 @@ def _box(paragraphs: list[str], st: dict, title: str) -> Table:
     return t
 
 
-def _image(png: bytes, width_cm: float = 17.0) -> Image:
+def _image(png: bytes, width_cm: float = 17.0, max_height_cm: float = 23.0) -> Image:
+    """A PNG at the text width, scaled down to fit a page when it is taller."""
     img = Image(io.BytesIO(png))
     ratio = img.imageHeight / img.imageWidth
+    width_cm = min(width_cm, max_height_cm / ratio)
     img.drawWidth = width_cm * cm
     img.drawHeight = width_cm * cm * ratio
     img.hAlign = "LEFT"
@@ -272,8 +280,8 @@ def _title(pack, st) -> list:
 
 def _summary_section(pack, st) -> list:
     out = [Paragraph("1. Summary", st["h2"])]
-    rows = [["Device", "Recommended rate [%/yr]", "Interval [%/yr]", "Method",
-             "Methods agree", "Warranty test", "Shortfall [kWh]"]]
+    rows = [["Device", "Rate [%/yr]", "Interval [%/yr]", "Method",
+             "Methods agree", "Exceeds warranty?", "Shortfall [kWh]"]]
     short = []
     for s in pack.summary:
         conf = s["confidence"]
@@ -281,15 +289,15 @@ def _summary_section(pack, st) -> list:
         if s["exceeds"] is None:
             test = "not tested"
         else:
-            test = "exceeds warranty" if s["exceeds"] else "no exceedance shown"
+            test = "exceeds" if s["exceeds"] else "not shown"
         rows.append([_label(s["device_id"]), fmt_rate(s["rate_pct_per_yr"]),
                      (fmt_interval(s["ci_low"], s["ci_high"])
                       + (f" ({conf:.0%})" if conf is not None else "")),
                      s["method"], agree, test, fmt_kwh(s["shortfall_kwh"])])
         if s["rate_pct_per_yr"] is None:
             short.append(s)
-    out.append(_table(rows, [2.6 * cm, 2.2 * cm, 3.5 * cm, 3.4 * cm, 1.5 * cm, 2.2 * cm,
-                             1.6 * cm], st=st))
+    out.append(_table(rows, [2.6 * cm, 1.5 * cm, 3.4 * cm, 4.6 * cm, 1.5 * cm, 2.0 * cm,
+                             1.4 * cm], st=st))
     out.append(Spacer(1, 4))
     notes = []
     for s in pack.summary:
@@ -319,10 +327,12 @@ def _summary_section(pack, st) -> list:
             "least two years of valid days after the stabilisation period; no rate and no "
             "warranty test are reported for these devices.", st["body"]))
     out.append(Paragraph(
-        "Negative rates are losses. A rate is the relative change of the performance index "
+        "Rate: the recommended rate (section 5). Negative rates are losses. A rate is the "
+        "relative change of the performance index "
         "per year; the interval is two-sided at the confidence shown. \"Methods agree\" means "
         "the intervals of the absolute-rate methods overlap. The warranty test is one-sided "
-        "(section 7); the shortfall is energy below the warranted envelope (section 7).",
+        "(section 7); \"not shown\" means the data do not show the loss rate to exceed the "
+        "warranted rate. The shortfall is energy below the warranted envelope (section 7).",
         st["small"]))
     out.append(Spacer(1, 4))
     out.append(_box(list(CAUTIONS), st, "Read before using these numbers"))
@@ -530,7 +540,10 @@ def _results_section(pack, st) -> list:
             blk.append(Paragraph("Warning: " + _esc(w), st["small"]))
         out.append(KeepTogether(blk))
     out.append(Spacer(1, 4))
-    out.append(_image(charts.rates_chart(pack.rates)))
+    shown = pack.rates[pack.rates["method"] != "sensor_drift_check"]
+    devs = list(dict.fromkeys(shown["device_id"]))
+    for k in range(0, max(len(devs), 1), 6):  # at most 6 devices per chart
+        out.append(_image(charts.rates_chart(shown[shown["device_id"].isin(devs[k:k + 6])])))
     si = pack.site_index
     trend = (si[["day"]].assign(pi_trend=si["pi_recommended_line"])
              if "pi_recommended_line" in si else None)
@@ -540,7 +553,8 @@ def _results_section(pack, st) -> list:
         si[["day", "pi"]] if len(si) else si, trend, site_s["change_points"], spans,
         "Daily performance index of the inverters in this report")))
     out.append(Paragraph("Data: data/site_daily_index.csv (points, line) and data/rates.csv "
-                         "(rates chart). The dashed line is the site's recommended rate drawn "
+                         "(rates chart; the sensor drift check is left out of the chart because it is the "
+                         "sensor's drift, not a rate of the plant). The dashed line is the site's recommended rate drawn "
                          "through the median level; it shows the slope, not a fit.",
                          st["small"]))
     return out
@@ -672,6 +686,11 @@ def _warranty_section(pack, st) -> list:
     site_env = env[env["device_id"] == "(site)"]
     out.append(_image(charts.warranty_chart(
         site_env, "Warranted minimum and measured index, site (all inverters)")))
+    devs = [d for d in pack.inverters["device_id"]]
+    for k in range(0, len(devs), 8):
+        part = devs[k:k + 8]
+        out.append(_image(charts.warranty_panels(
+            env, part, "Per inverter" + (f" ({k // 8 + 1})" if len(devs) > 8 else ""))))
     out.append(Paragraph("Data: data/warranty_envelope.csv (every device).", st["small"]))
     return out
 

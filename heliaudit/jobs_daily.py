@@ -27,6 +27,7 @@ from analytics.temperature import SAPM_PARAMETERS
 from db import schema
 from db.computations import begin_computation, finish_computation
 from db.daily import write_daily
+from db.readings import stored_range
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 from db.timeseries import inverter_frames, site_channels
 
@@ -181,13 +182,12 @@ def recompute_range(engine: sa.Engine, site_id: str, start_s: int, end_s: int,
 
 
 def _site_span(conn: sa.Connection, site_id: str) -> tuple[int | None, int | None]:
-    chans = list(site_channels(conn, site_id).values())
-    if not chans:
+    # per-channel index seeks: one MIN/MAX over "channel_id IN (...)" scans every reading of
+    # the site (4 M readings, 40 channels: 0.6-1.2 s against 2-13 ms, issue #16)
+    spans = stored_range(conn, list(site_channels(conn, site_id).values())).values()
+    if not spans:
         return None, None
-    r = schema.reading.c
-    lo, hi = conn.execute(sa.select(sa.func.min(r.ts_s), sa.func.max(r.ts_s))
-                          .where(r.channel_id.in_(chans))).one()
-    return lo, hi
+    return min(lo for lo, _ in spans), max(hi for _, hi in spans)
 
 
 def recompute_all(engine: sa.Engine, site_id: str | None = None,

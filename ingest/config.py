@@ -392,6 +392,8 @@ register(
 #: logger data before 1990 is not expected (common practice); the latest date defaults to
 #: one day after the ingest runs (a logger clock may run a little ahead).
 EARLIEST_DEFAULT = dt.date(1990, 1, 1)
+#: Dates a configuration may name at all (inside what the nanosecond time axis can hold).
+DATE_MIN, DATE_MAX = dt.date(1900, 1, 1), dt.date(2200, 12, 31)
 
 
 def _filter_keys() -> dict[str, Key]:
@@ -789,6 +791,10 @@ class _Validator:
                     fmt = None
             earliest = self.val(ts, tkey, "earliest")
             latest = self.val(ts, tkey, "latest")
+            for nm, d in (("earliest", earliest), ("latest", latest)):
+                if d is not None and not (DATE_MIN <= d <= DATE_MAX):
+                    self.bad(f"{tkey}.{nm}", f"must be between {DATE_MIN} and {DATE_MAX}, got {d}")
+                    earliest, latest = (None, latest) if nm == "earliest" else (earliest, None)
             if earliest and latest and latest < earliest:
                 self.bad(f"{tkey}.latest", f"is before earliest ({earliest})")
             tspec = TimestampSpec(
@@ -865,6 +871,10 @@ class _Validator:
                               else dt.datetime.combine(x, dt.time()) for x in (start, end))
                 if isinstance(end, dt.datetime) and not isinstance(c.get("end"), dt.datetime):
                     end = end + dt.timedelta(days=1, seconds=-1)  # a date means the whole day
+                for nm, d in (("start", start), ("end", end)):
+                    if d is not None and not (DATE_MIN <= d.date() <= DATE_MAX):
+                        self.bad(f"{ckey}.{nm}", f"must be between {DATE_MIN} and {DATE_MAX}, got {d}")
+                        start = end = None
                 if start and end and end < start:
                     self.bad(ckey, "end is before start")
                 devs = list(self.val(c, ckey, "devices") or ())

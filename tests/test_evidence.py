@@ -271,3 +271,44 @@ def test_dashboard_button_builds_the_same_pack(store, pack, monkeypatch):
     assert (site, fname) == (SITE, f"evidence-{SITE}.zip")
     with zipfile.ZipFile(io.BytesIO(z)) as zf:
         assert "report.pdf" in zf.namelist()
+
+
+@pytest.mark.postgres
+def test_pack_from_postgres_store(store, pack, pg_engine, tmp_path):
+    """The same export files in a PostgreSQL store give the same sources and rates (the pack
+    reads the ingest log and copies a period out of PostgreSQL into the scratch store)."""
+    import numpy as np
+
+    from heliaudit.cmd_compute import run_compute
+    from ingest.config import load_site_config
+    from ingest.load import ingest_paths
+
+    cfg = load_site_config(store["exports"].parent / f"{SITE}.toml")
+    ingest_paths(pg_engine, cfg)
+    run_compute(pg_engine, SITE, full=True, echo=lambda *a, **k: None)
+    man = build_pack(pg_engine, SITE, tmp_path / "pg")
+    assert ({(s["file_name"], s["sha256"]) for s in man["sources"]}
+            == {(s["file_name"], s["sha256"]) for s in pack["manifest"]["sources"]})
+    a = json.loads((tmp_path / "pg" / "data" / "results.json").read_text())
+    b = json.loads((pack["dir"] / "data" / "results.json").read_text())
+    ra, rb = recommended_of(a["site_result"]), recommended_of(b["site_result"])
+    assert ra["method"] == rb["method"]
+    np.testing.assert_allclose([ra["rate_pct_per_yr"], ra["ci_low"], ra["ci_high"]],
+                               [rb["rate_pct_per_yr"], rb["ci_low"], rb["ci_high"]], rtol=1e-9)
+    win = build_pack(pg_engine, SITE, tmp_path / "pgwin", start=dt.date(2023, 1, 1),
+                     end=dt.date(2023, 6, 30))
+    assert win["results_basis"].startswith("recomputed for the period 2023-01-01 .. 2023-06-30")
+    assert {f"{SITE}_2023-03.csv.gz"} <= {s["file_name"] for s in win["sources"]}
+
+
+def test_failed_report_leaves_no_pack(store, tmp_path, monkeypatch):
+    from heliaudit import evidence_pdf
+
+    def boom(pack, path):
+        raise RuntimeError("layout")
+
+    monkeypatch.setattr(evidence_pdf, "write_report", boom)
+    with pytest.raises(EvidenceError, match="could not be laid out.*nothing was written"):
+        build_pack(store["engine"], SITE, tmp_path / "never")
+    assert not (tmp_path / "never").exists()
+    assert [p.name for p in tmp_path.iterdir()] == []  # the staging folder is gone too
