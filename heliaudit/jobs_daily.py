@@ -23,6 +23,7 @@ import sqlalchemy as sa
 import heliaudit
 from analytics import daily as adaily
 from analytics import filters as flt
+from analytics import sensor_qa
 from analytics.temperature import SAPM_PARAMETERS
 from db import schema
 from db.computations import begin_computation, finish_computation
@@ -72,6 +73,22 @@ class _Inv:
         self.mounting = row["mounting"]
 
 
+def _mask_faulty_sensor_days(frame: pd.DataFrame, inv: dict, sun: pd.DataFrame,
+                             off_s: int) -> pd.DataFrame:
+    """POA / module temperature of days on which the sensor is judged faulty -> NaN
+    (reason 'missing' in the filters; issue #14, ``analytics.sensor_qa.frame_sensor_validity``)."""
+    par = SAPM_PARAMETERS.get(inv.get("mounting"), SAPM_PARAMETERS["open_rack_glass_polymer"])
+    g_bad, t_bad = sensor_qa.frame_sensor_validity(
+        frame, sun["solar_elevation_deg"].to_numpy(), sun["poa_clearsky_wm2"].to_numpy(),
+        p_dc_kwp=float(inv["p_dc_kwp"]), std_offset_s=off_s, a=par["a"], b=par["b"])
+    if not (g_bad.any() or t_bad.any()):
+        return frame
+    frame = frame.copy()
+    frame.loc[g_bad, "poa_wm2"] = np.nan
+    frame.loc[t_bad, "t_module_c"] = np.nan
+    return frame
+
+
 def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: int | None,
              scope: str, progress: Progress | None) -> dict:
     with engine.connect() as conn:
@@ -116,6 +133,8 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         if not batch:
             return
         suns = [sun_for(fr) for _inv, fr in batch]
+        for k, (inv, fr) in enumerate(batch):  # a sensor judged faulty gives no PR evidence
+            batch[k] = (inv, _mask_faulty_sensor_days(fr, inv, suns[k], off_s))
         rows = adaily.daily_performance_many(
             [fr for _inv, fr in batch], [_Inv(inv) for inv, _fr in batch],
             utc_offset_h=offset_h,
