@@ -31,6 +31,7 @@ from db.daily import write_daily
 from db.readings import stored_range
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 from db.timeseries import inverter_frames, site_channels
+from heliaudit.site_irradiance import SiteIrradiance
 
 Progress = Callable[[int, int], None]  # progress(done, total), in inverters
 BATCH_ROWS = 300_000  # intervals per vectorised call (a week of 100 inverters is ~70 000)
@@ -59,13 +60,19 @@ def _params(site_row: dict, filters: dict, offset_h: float) -> dict:
         "power_model": "PVWatts V5 DC + inverter curve (Dobos 2014)",
         "night": "solar elevation (pvlib ephemeris) < night_elevation_deg or G < night_poa_wm2",
         "coverage_weight": "measured POA, clear-sky POA (Ineichen, isotropic) where missing",
+        "irradiance_sources": "per array, best first: POA sensor in the array plane; GHI "
+                              "sensor with DIRINT (Perez et al. 1992) decomposition and Perez (1990) "
+                              "transposition; POA sensor of another plane via GTI-DIRINT "
+                              "(Marion 2015) and Perez (1990); trackers by "
+                              "pvlib.tracking.singleaxis (Marion & Dobos 2013)",
     }
 
 
 class _Inv:
     """Duck-typed inverter parameters for analytics.daily from an inverter-table row."""
 
-    def __init__(self, row: dict):
+    def __init__(self, row: dict, irradiance_basis: str = "poa_same_plane"):
+        self.irradiance_basis = irradiance_basis
         self.p_dc_kwp = float(row["p_dc_kwp"])
         self.p_ac_max_kw = float(row["p_ac_max_kw"])
         self.gamma_pmp_per_c = float(row["gamma_pmp_per_c"])
@@ -105,7 +112,9 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         # loaded after it (ids, not clock times, which tie within a second).
         through = conn.execute(sa.select(sa.func.max(schema.ingest_batch.c.batch_id)).where(
             schema.ingest_batch.c.site_id == site_id)).scalar()
-        params = {**_params(site, filters, offset_h), "through_batch_id": through}
+        site_irr = SiteIrradiance(engine, site, start_s, end_s)
+        params = {**_params(site, filters, offset_h), "through_batch_id": through,
+                  "inverters": site_irr.describe()}
         comp_id = begin_computation(conn, site_id, "daily", params, scope=scope,
                                     software_version=heliaudit.__version__)
 
@@ -133,13 +142,22 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         if not batch:
             return
         suns = [sun_for(fr) for _inv, fr in batch]
-        for k, (inv, fr) in enumerate(batch):  # a sensor judged faulty gives no PR evidence
-            batch[k] = (inv, _mask_faulty_sensor_days(fr, inv, suns[k], off_s))
+        frames, clearsky = [], []
+        for k, (inv, fr) in enumerate(batch):
+            sun_k = suns[k]
+            cs = sun_k["poa_clearsky_wm2"].to_numpy()
+            # an inverter whose arrays are not all in its POA sensor's plane (#11)
+            if site_irr.needs_model(inv["device_id"]):
+                fr, cs = site_irr.apply(inv["device_id"], fr)
+                sun_k = sun_k.assign(poa_clearsky_wm2=cs)
+            # a sensor judged faulty gives no PR evidence (#14)
+            frames.append(_mask_faulty_sensor_days(fr, inv, sun_k, off_s))
+            clearsky.append(cs)
         rows = adaily.daily_performance_many(
-            [fr for _inv, fr in batch], [_Inv(inv) for inv, _fr in batch],
+            frames, [_Inv(inv, site_irr.basis(inv["device_id"])) for inv, _fr in batch],
             utc_offset_h=offset_h,
             solar_elevation_deg=[x["solar_elevation_deg"].to_numpy() for x in suns],
-            poa_clearsky_wm2=[x["poa_clearsky_wm2"].to_numpy() for x in suns], filters=filters)
+            poa_clearsky_wm2=clearsky, filters=filters)
         names = np.array([inv["device_id"] for inv, _fr in batch], dtype=object)
         rows.insert(0, "device_id", names[rows.pop("inverter_no").to_numpy()])
         if len(rows):
