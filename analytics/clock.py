@@ -164,6 +164,15 @@ def _refine_boundary(all_delta: pd.Series, lo, hi, before: float, after: float):
     return cands[int(np.argmin(cost))]
 
 
+def _partly_shifted(delta, level: float, other: float, share: float = 0.15) -> bool:
+    """A boundary day whose Δ lies between the shifted ``level`` and the ``other`` side's,
+    more than ``share`` of the way from ``other`` (common practice)."""
+    if delta is None or not np.isfinite(delta):
+        return False
+    span = level - other
+    return abs(span) > 0 and share < (delta - other) / span < 1.0 - share / 3
+
+
 def _dst_dates(zone: str | None, first, last) -> list[pd.Timestamp]:
     """Local dates in [first − 1 d, last + 2 d] on which ``zone`` changes its UTC offset."""
     if not zone or zone == "UTC":
@@ -231,7 +240,16 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
             all_delta, prev_day, first, before, level)
         end = offsets.index[-1]
         if next_day is not None:
-            end = _refine_boundary(all_delta, last, next_day, level, after) - pd.Timedelta(days=1)
+            change = _refine_boundary(all_delta, last, next_day, level, after)
+            end = change - pd.Timedelta(days=1)
+            # the clock is usually fixed during a day: that day is partly shifted, which
+            # moves its centroid part of the way; its readings before the fix need the
+            # correction too, so the block ends on it (issue #14: end date one day short)
+            if _partly_shifted(all_delta.get(change), level, after):
+                end = change
+        if prev_day is not None and _partly_shifted(
+                all_delta.get(start - pd.Timedelta(days=1)), level, before):
+            start = start - pd.Timedelta(days=1)
         shift = -_snap(level)
         dst = False
         if abs(abs(level) - 60) <= threshold_min:

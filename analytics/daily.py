@@ -67,7 +67,13 @@ DAILY_COLUMNS: tuple[str, ...] = (
     "e_ref_stc_kwh", "e_ref_tcell_kwhc", "e_exp_kwh", "e_ac_valid_kwh", "e_exp_valid_kwh", "pr",
     "pr_stc", "pi", "t_cell_wavg_c", "coverage", "day_valid", "t_daylight_h", "t_unavailable_h",
     "e_lost_kwh", "avail_time", "avail_energy", "t_clipped_h", "details_json", "e_ac_pr_kwh",
+    "irradiance_basis", "t_cell_basis",
 )
+#: How a day's cell temperature was obtained over its PR intervals: codes joined by '+'
+#: when a day mixes them (e.g. a module sensor with gaps). None: no temperature at all.
+T_CELL_BASES = ("module_sensor", "modelled_sandia_king2004", "modelled_faiman2008")
+_T_BASIS_BY_MASK = [None] + ["+".join(b for j, b in enumerate(T_CELL_BASES) if m >> j & 1)
+                             for m in range(1, 8)]
 _EPOCH_DAY = dt.date(1970, 1, 1)
 
 
@@ -178,7 +184,8 @@ def daily_performance(frame: pd.DataFrame, inverter, *, utc_offset_h: float = 0.
 
 
 def _empty_daily(extra: tuple[str, ...] = ()) -> pd.DataFrame:
-    return pd.DataFrame({c: pd.Series([], dtype=object if c in ("day", "details_json")
+    return pd.DataFrame({c: pd.Series([], dtype=object if c in (
+        "day", "details_json", "irradiance_basis", "t_cell_basis")
                                       else bool if c == "day_valid" else "int64"
                                       if c.startswith("n_") or c == "inverter_no" else float)
                          for c in (*extra, *DAILY_COLUMNS)})
@@ -306,6 +313,18 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     n_pr = np.bincount(d, weights=in_pr, minlength=nd)
     modelled = ~np.isfinite(t_mod_meas) & has_t
     n_mod = np.bincount(d, weights=modelled, minlength=nd).astype(int)
+    # temperature basis over the PR intervals: measured, Sandia from ambient + wind, or
+    # Faiman from ambient alone (1 m/s) - stated per day (#11)
+    pr_t = in_pr & has_t
+    by_meas = np.bincount(d, weights=pr_t & np.isfinite(t_mod_meas), minlength=nd) > 0
+    by_sandia = np.bincount(d, weights=pr_t & modelled & np.isfinite(t_mod_sandia),
+                            minlength=nd) > 0
+    by_faiman = np.bincount(d, weights=pr_t & modelled & ~np.isfinite(t_mod_sandia),
+                            minlength=nd) > 0
+    t_basis = np.asarray(_T_BASIS_BY_MASK, dtype=object)[
+        by_meas.astype(int) + 2 * by_sandia.astype(int) + 4 * by_faiman.astype(int)]
+    irr_basis = np.asarray([getattr(x, "irradiance_basis", None) for x in inverters],
+                           dtype=object)
 
     # the model and the filters only where the sun is up (night is night: code 1)
     k = np.flatnonzero(sun_up)
@@ -367,6 +386,7 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
         "details_json": [_details(tuple(c), m, v) for c, m, v in zip(
             counts.tolist(), n_mod.tolist(), np.round(frac_valid, 4).tolist(), strict=True)],
         "e_ac_pr_kwh": np.where(n_pr > 0, e_ac_pr, np.nan),
+        "irradiance_basis": irr_basis[group_inv], "t_cell_basis": t_basis,
     }, columns=["inverter_no", *DAILY_COLUMNS])
     # a day whose rows are all gaps (no reading at all) gets no row
     return out[n_int > 0].reset_index(drop=True) if (n_int == 0).any() else out

@@ -94,6 +94,31 @@ def _v4_reading_interval(conn: sa.Connection) -> None:
 STEPS[4] = _v4_reading_interval
 
 
+def _v5_site_model(conn: sa.Connection) -> None:
+    """Site model (#11): daily_inverter.irradiance_basis / t_cell_basis; inverter.commissioned
+    and t_module_sensor_id may be unknown (NULL)."""
+    insp = sa.inspect(conn)
+    cols = {c["name"] for c in insp.get_columns("daily_inverter")}
+    for name in ("irradiance_basis", "t_cell_basis"):
+        if name not in cols:
+            conn.execute(sa.text(f"ALTER TABLE daily_inverter ADD COLUMN {name} VARCHAR(64)"))
+    nullable = {c["name"]: c["nullable"] for c in insp.get_columns("inverter")}
+    if nullable.get("commissioned") and nullable.get("t_module_sensor_id"):
+        return
+    if conn.dialect.name == "sqlite":  # SQLite cannot drop NOT NULL: rebuild the table
+        conn.execute(sa.text("ALTER TABLE inverter RENAME TO inverter_v4"))
+        schema.inverter.create(conn)
+        names = ", ".join(c.name for c in schema.inverter.columns)
+        conn.execute(sa.text(f"INSERT INTO inverter ({names}) SELECT {names} FROM inverter_v4"))
+        conn.execute(sa.text("DROP TABLE inverter_v4"))
+    else:
+        conn.execute(sa.text("ALTER TABLE inverter ALTER COLUMN commissioned DROP NOT NULL, "
+                             "ALTER COLUMN t_module_sensor_id DROP NOT NULL"))
+
+
+STEPS[5] = _v5_site_model
+
+
 def current_version(conn: sa.Connection) -> int | None:
     if not sa.inspect(conn).has_table("schema_version"):
         return None

@@ -93,7 +93,7 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
         vals = dict(p_dc_kwp=inv.p_dc_kwp, p_ac_max_kw=inv.p_ac_max_kw,
                     gamma_pmp_per_c=inv.gamma_pmp_per_c, eta_inv_nom=inv.eta_inv_nom,
                     mounting=inv.mounting, commissioned=inv.commissioned,
-                    poa_sensor_id=inv.poa_sensor, t_module_sensor_id=inv.t_module_sensor,
+                    poa_sensor_id=inv.irradiance_sensor, t_module_sensor_id=inv.t_module_sensor,
                     t_amb_sensor_id=inv.t_amb_sensor, wind_sensor_id=inv.wind_sensor,
                     peer_group=inv.peer_group)
         _upsert_by_pk(conn, schema.inverter, have[inv.id], vals)

@@ -212,7 +212,8 @@ def summary(ctx: click.Context, site_id: str | None) -> None:
         click.echo(f"  batches:    {row.batches_loaded} loaded, {row.batches_unchanged} unchanged, "
                    f"{row.batches_failed} failed; last {row.last_ingest_utc or '-'}")
         click.echo(f"  rejected:   {row.rows_rejected} rows, {row.values_rejected} values "
-                   "(see the dashboard's ingest page or db.ingest_log.rejected_rows)")
+                   "(each with file, line and reason: `heliaudit dashboard`, page "
+                   "\"Data quality\", table \"Rejected rows\")")
 
 
 COMMANDS = [ingest, summary]

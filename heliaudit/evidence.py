@@ -22,8 +22,10 @@ that period in a scratch SQLite store holding a copy of the site's inputs
 (:func:`db.evidence.copy_site_window`), so stored results are never touched.
 
 Reproducibility: everything under ``data/`` is a function of the store and the request; the
-creation time lives only in ``manifest.json`` and on the report's title page. Times of the
-computations are blanked in ``data/results.json`` (they are in the manifest).
+creation time lives only in ``manifest.json`` and on the report's title page. In
+``data/results.json`` ``generated_utc`` is when the numbers were computed (period packs: when
+the newest input file was loaded) and the computations' times are blanked (they are in the
+manifest).
 
 System-level field data are screening evidence; the warranty contract's own terms and test
 procedure govern any claim (analytics.warranty.DISCLAIMER).
@@ -60,6 +62,7 @@ MANIFEST_SCHEMA = "heliaudit-evidence/1"
 SITE = "(site)"
 #: Method used when no ``recommended`` row exists (contract in issue #13).
 FALLBACK_METHOD = "sensor_year_pairs"
+STORED_BASIS = "stored results of the last `heliaudit compute`"
 FLOAT_FORMAT = "%.6g"
 #: Libraries whose versions the manifest records.
 LIBRARIES = ("numpy", "pandas", "scipy", "statsmodels", "pvlib", "ruptures", "sqlalchemy",
@@ -382,16 +385,18 @@ def _flags(doc: dict, devices: set[str], start_s, end_s) -> pd.DataFrame:
     return out.reset_index(drop=True)
 
 
-def _pack_doc(doc: dict, inv_ids: list[str]) -> dict:
-    """The results document restricted to the chosen inverters, with its times blanked
-    (they are in the manifest) so that a rebuild gives the same file."""
+def _pack_doc(doc: dict, inv_ids: list[str], as_of: str | None) -> dict:
+    """The results document restricted to the chosen inverters, with its times fixed so
+    that a rebuild gives the same file: ``generated_utc`` is ``as_of`` (when the numbers
+    were computed, or for a period pack when the newest input was loaded) and the
+    computations' times are blanked (the manifest has them)."""
     out = dict(doc)
     out["inverters"] = [b for b in doc.get("inverters", []) if b.get("device_id") in inv_ids]
     all_invs = {b.get("device_id") for b in doc.get("inverters", [])}
     # flags of inverters that were not chosen are left out; sensor and site flags stay
     out["flags"] = [f for f in doc.get("flags", []) if f.get("device_id") not in all_invs
                     or f.get("device_id") in inv_ids]
-    out["generated_utc"] = None
+    out["generated_utc"] = as_of
     comps = {}
     for k, v in (doc.get("computations") or {}).items():
         comps[k] = None if v is None else {**v, "started_utc": None, "finished_utc": None}
@@ -482,8 +487,13 @@ def gather(engine: sa.Engine, site_id: str, *, inverters=None, start: dt.date | 
     totals = {k: int(pd.to_numeric(sources[k]).sum()) if len(sources) else 0
               for k in ("rows_read", "rows_loaded", "rows_duplicate", "rows_rejected",
                         "values_rejected", "n_readings")}
+    comp = (doc.get("computations") or {}).get("degradation") or {}
+    if basis in ("stored", STORED_BASIS) and comp.get("finished_utc"):
+        as_of = comp["finished_utc"]
+    else:  # recomputed now: the time the newest input file was loaded
+        as_of = max((x for x in batches["finished_utc"] if isinstance(x, str)), default=None)
     return Pack(
-        site=site, doc=_pack_doc(doc, inv_ids), inverters=invs, sensors=sensors, config=cfg,
+        site=site, doc=_pack_doc(doc, inv_ids, as_of), inverters=invs, sensors=sensors, config=cfg,
         config_toml=toml_text, daily=daily, site_index=site_idx,
         coverage=_coverage(daily, inv_ids, first, last),
         exclusions=_exclusions(daily, inv_ids, n_days, blocks), rates=_rates(
@@ -588,7 +598,7 @@ def build_pack(engine: sa.Engine, site_id: str, out_dir: str | Path, *, inverter
             basis = (f"recomputed for the period {start or 'first day'} .. {end or 'last day'} "
                      "from a copy of the site's readings (daily table, flags, degradation)")
         else:
-            work, basis = engine, "stored results of the last `heliaudit compute`"
+            work, basis = engine, STORED_BASIS
         try:
             pack = gather(work, site_id, inverters=inverters, start=start, end=end,
                           source_engine=engine, basis=basis)

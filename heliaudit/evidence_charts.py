@@ -50,8 +50,8 @@ def _empty(message: str, height_in: float = 1.4) -> bytes:
 
 
 def coverage_chart(monthly: pd.DataFrame) -> bytes:
-    """Stacked monthly bars of inverter-days: used for the rates, valid but in the
-    stabilisation period, not valid (coverage below the minimum), and no data.
+    """Stacked monthly bars of inverter-days: valid (coverage at or above the minimum),
+    not valid (coverage below the minimum), and no data.
 
     ``monthly``: columns ``month`` (YYYY-MM), ``days_valid``, ``days_not_valid``,
     ``days_missing`` (inverter-days summed over the chosen inverters).
@@ -60,7 +60,7 @@ def coverage_chart(monthly: pd.DataFrame) -> bytes:
         return _empty("No daily rows in the period")
     x = range(len(monthly))
     fig, ax = plt.subplots(figsize=(WIDTH_IN, 2.5))
-    parts = [("days_valid", "valid days (enter the rates)", OKABE_ITO["blue"], None),
+    parts = [("days_valid", "valid days (coverage at or above the minimum)", OKABE_ITO["blue"], None),
              ("days_not_valid", "days excluded (coverage below the minimum)",
               OKABE_ITO["orange"], "////"),
              ("days_missing", "days without data", "#D9D9D9", "..")]

@@ -347,32 +347,40 @@ def _system_section(pack, st) -> list:
                      f"{_esc(site['timezone'])}. Site plane as configured: tilt "
                      f"{site['tilt_deg']:.1f}°, azimuth {site['azimuth_deg']:.1f}° "
                      f"(180° = south), ground albedo {site['albedo']:.2f}.", st["body"])]
+    inv_cfg = {x.get("id"): x for x in cfg.get("inverters", []) or [] if isinstance(x, dict)}
     rows = [["Inverter", "DC [kWp]", "AC [kW]", "γ [%/°C]", "Mounting (thermal class)",
-             "Commissioned", "POA sensor", "Module T sensor", "Peer group"]]
+             "Commissioned", "Plane", "Irradiance sensor", "Module T sensor", "Peer group"]]
     for _, i in pack.inverters.iterrows():
-        rows.append([i["device_id"], f"{i['p_dc_kwp']:.1f}", f"{i['p_ac_max_kw']:.1f}",
-                     f"{100 * i['gamma_pmp_per_c']:.2f}", str(i["mounting"]),
-                     str(i["commissioned"]), str(i["poa_sensor_id"]),
-                     str(i["t_module_sensor_id"]), str(i["peer_group"])])
-    total = pack.inverters["p_dc_kwp"].sum()
+        c = inv_cfg.get(i["device_id"], {})
+        rows.append([i["device_id"], _fmt(i["p_dc_kwp"], "{:.1f}"),
+                     _fmt(i["p_ac_max_kw"], "{:.1f}"),
+                     _fmt(i["gamma_pmp_per_c"], "{:.2f}", 100),
+                     _txt(i["mounting"]).replace("_", " "), _txt(i["commissioned"], "unknown"),
+                     _txt(c.get("plane"), "site plane"), _txt(i["poa_sensor_id"]),
+                     _txt(i["t_module_sensor_id"], "none (modelled)"), _txt(i["peer_group"])])
+    total = pd.to_numeric(pack.inverters["p_dc_kwp"], errors="coerce").sum()
     out += [Paragraph(f"Inverters in this report: {len(pack.inverters)}, "
-                      f"{total:.1f} kWp DC in total.", st["body"]),
-            _table(rows, [1.7 * cm, 1.4 * cm, 1.3 * cm, 1.4 * cm, 3.4 * cm, 2.0 * cm, 1.9 * cm,
-                          2.1 * cm, 1.8 * cm], st=st)]
+                      f"{total:.1f} kWp DC in total (ratings as configured).", st["body"]),
+            _table(rows, [1.5 * cm, 1.2 * cm, 1.2 * cm, 1.2 * cm, 2.6 * cm, 2.0 * cm, 1.6 * cm,
+                          2.0 * cm, 2.0 * cm, 1.7 * cm], st=st)]
+    planes = _plain_rows(cfg.get("planes"))
+    if planes:
+        out += [Paragraph("Planes (as configured)", st["h3"]), _table(planes, st=st)]
     arrays = _arrays(cfg, set(pack.inverters["device_id"]))
     if arrays:
-        out += [Paragraph("Arrays and planes per inverter (as configured)", st["h3"]),
+        out += [Paragraph("Arrays (inverter inputs) as configured", st["h3"]),
                 _table(arrays, st=st)]
-    else:
-        out.append(Paragraph("No arrays or planes are configured per inverter: every inverter "
-                             "is taken to face the site plane above.", st["small"]))
-    srows = [["Sensor", "Quantity", "Instrument", "Notes (from the configuration)"]]
+    if not planes and not arrays:
+        out.append(Paragraph("No planes or arrays are configured: every inverter is taken to "
+                             "face the site plane above.", st["small"]))
+    sens_cfg = {x.get("id"): x for x in cfg.get("sensors", []) or [] if isinstance(x, dict)}
+    srows = [["Sensor", "Quantity", "Instrument", "Plane", "Notes (from the configuration)"]]
     for _, s in pack.sensors.iterrows():
-        inst = s["instrument"] if isinstance(s["instrument"], str) and s["instrument"] else "–"
-        srows.append([s["device_id"], str(s["quantity"] or ""), inst.replace("_", " "),
-                      str(s["notes"] or "")])
+        srows.append([s["device_id"], _txt(s["quantity"]), _txt(s["instrument"]).replace("_", " "),
+                      _txt(sens_cfg.get(s["device_id"], {}).get("plane"), ""),
+                      _txt(s["notes"], "")])
     out += [Paragraph("Sensors", st["h3"]),
-            _table(srows, [2.2 * cm, 2.2 * cm, 3.6 * cm, 9.0 * cm], st=st)]
+            _table(srows, [2.0 * cm, 2.0 * cm, 3.2 * cm, 1.8 * cm, 8.0 * cm], st=st)]
     w = cfg.get("warranty")
     out.append(Paragraph("Warranty terms as configured", st["h3"]))
     if isinstance(w, dict):
@@ -387,6 +395,32 @@ def _system_section(pack, st) -> list:
         out.append(Paragraph("No [warranty] table in the site configuration: no warranty "
                              "comparison is made.", st["body"]))
     return out
+
+
+def _fmt(x, spec: str, scale: float = 1.0) -> str:
+    """A configured number, or "–" when it is not configured."""
+    try:
+        f = float(x)
+    except (TypeError, ValueError):
+        return "–"
+    return "–" if pd.isna(f) else spec.format(scale * f)
+
+
+def _txt(x, missing: str = "–") -> str:
+    if x is None or (isinstance(x, float) and pd.isna(x)) or (isinstance(x, str) and not x):
+        return missing
+    return str(x)
+
+
+def _plain_rows(items) -> list[list]:
+    """A table of a configuration array of tables (scalar keys only), header first."""
+    items = [x for x in items or [] if isinstance(x, dict)]
+    keys: list[str] = []
+    for x in items:
+        keys += [k for k in x if k not in keys and not isinstance(x[k], dict | list)]
+    if not keys:
+        return []
+    return [keys, *[[_txt(x.get(k), "") for k in keys] for x in items]]
 
 
 def _arrays(cfg: dict, chosen: set[str]) -> list[list]:
@@ -456,10 +490,20 @@ def _data_section(pack, st) -> list:
     if sensor.empty:
         out.append(Paragraph("No sensor fault was flagged in the period.", st["body"]))
     else:
-        g = sensor.groupby(["kind", "device_id"]).size().reset_index(name="n")
-        srows = [["Fault", "Sensor / device", "Flags"]] + [
-            [r["kind"].replace("_", " "), r["device_id"], str(r["n"])] for _, r in g.iterrows()]
-        out.append(_table(srows, [5 * cm, 4 * cm, 2 * cm], st=st))
+        f = sensor.assign(s=pd.to_datetime(sensor["start_utc"], utc=True),
+                          e=pd.to_datetime(sensor["end_utc"], utc=True))
+        f["h"] = (f["e"] - f["s"]).dt.total_seconds() / 3600
+        g = f.groupby(["kind", "device_id"]).agg(n=("kind", "size"), first=("s", "min"),
+                                                 last=("e", "max"), h=("h", "sum")).reset_index()
+        srows = [["Fault", "Sensor / device", "Flags", "First starts (UTC)", "Last ends (UTC)",
+                  "Hours flagged"]] + [
+            [r["kind"].replace("_", " "), r["device_id"], str(r["n"]),
+             r["first"].strftime("%Y-%m-%d %H:%M") if pd.notna(r["first"]) else "",
+             r["last"].strftime("%Y-%m-%d %H:%M") if pd.notna(r["last"]) else "",
+             f"{r['h']:.1f}" if pd.notna(r["h"]) else ""] for _, r in g.iterrows()]
+        out.append(_table(srows, [3.4 * cm, 2.6 * cm, 1.2 * cm, 3.2 * cm, 3.2 * cm, 2.2 * cm],
+                          st=st))
+        out.append(Paragraph("Every flag with its details is in data/flags.csv.", st["small"]))
     out.append(Paragraph(
         "Intervals with a missing, out-of-range or stuck reading are excluded by the interval "
         "checks above (they lower the day's coverage). A drifting irradiance sensor cannot be "

@@ -374,7 +374,9 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         if d is None or d.empty:
             reports[dev] = {"n_days_input": 0, "n_days_used": 0}
             continue
-        s, rep = adeg.usable_daily_pi(d["pi"], d["day_valid"], commissioned=inv["commissioned"],
+        # commissioning date unknown (#11): no stabilisation period is excluded
+        comm = inv["commissioned"] if pd.notna(inv["commissioned"]) else None
+        s, rep = adeg.usable_daily_pi(d["pi"], d["day_valid"], commissioned=comm,
                                       stabilisation_days=p["stabilisation_days"])
         usable[dev], reports[dev] = s, rep
         weights[dev] = d["e_exp_valid_kwh"].reindex(s.index)
@@ -442,7 +444,8 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
                "rule": f"days with >= {p['site_min_inverter_fraction']:.0%} of inverters usable"}
         summary = _summary(res, cps, rep, how)
         e_site = pd.concat([by_dev[i]["e_ac_kwh"] for i in by_dev], axis=1).sum(axis=1)
-        first = min((inv["commissioned"] for _, inv in invs.iterrows()), default=None)
+        first = min((inv["commissioned"] for _, inv in invs.iterrows()
+                     if pd.notna(inv["commissioned"])), default=None)
         summary["warranty"] = _warranty_block(res["sensor_year_pairs"], s, w, e_site, terms, first, p)
         _note_steps(summary)
     else:
@@ -503,6 +506,16 @@ def _flags(engine, site_id: str) -> tuple[pd.DataFrame, bool]:
         return pd.DataFrame(columns=["flag_id", "site_id", "device_id", "kind", "start_s", "end_s",
                                      "severity", "lost_kwh", "details_json"]), False
     return read_flags(engine, site_id), True
+
+
+def _basis(d: pd.DataFrame) -> dict:
+    """Where a device's PR and rates got irradiance and cell temperature (#11): days per code
+    (ingest.site_model.IRRADIANCE_BASES, analytics.daily.T_CELL_BASES; null: not recorded)."""
+    def counts(col):
+        if col not in d:
+            return {}
+        return {str(k): int(v) for k, v in d[col].dropna().value_counts().sort_index().items()}
+    return {"irradiance": counts("irradiance_basis"), "cell_temperature": counts("t_cell_basis")}
 
 
 def _period(d: pd.DataFrame) -> dict:
@@ -572,8 +585,10 @@ def results_document(engine, site_id: str) -> dict:
     for _, inv in invs.iterrows():
         dev = inv["device_id"]
         block = {"device_id": dev, "p_dc_kwp": float(inv["p_dc_kwp"]),
-                 "commissioned": str(inv["commissioned"]), "peer_group": inv["peer_group"],
-                 "period": _period(daily[daily["device_id"] == dev])}
+                 "commissioned": str(inv["commissioned"]) if pd.notna(inv["commissioned"])
+                 else None, "peer_group": inv["peer_group"],
+                 "period": _period(daily[daily["device_id"] == dev]),
+                 "basis_days": _basis(daily[daily["device_id"] == dev])}
         rows = deg[deg["device_id"] == dev]
         block.update(_device_block(rows) if len(rows) else
                      {"degradation": {}, "reason": "degradation not computed"})

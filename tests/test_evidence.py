@@ -127,7 +127,8 @@ def test_pdf_numbers_equal_results_json(store, pack):
     assert n_rates >= 1  # 32 months: year-on-year rates exist
     # the packed document is the store's, with only the times blanked
     assert packed["site_result"]["degradation"] == doc["site_result"]["degradation"]
-    assert packed["generated_utc"] is None
+    assert packed["generated_utc"] == doc["computations"]["degradation"]["finished_utc"]
+    assert packed["computations"]["degradation"]["finished_utc"] is None  # in the manifest
 
 
 def test_pdf_renders_and_states_the_cautions(pack):
@@ -312,3 +313,59 @@ def test_failed_report_leaves_no_pack(store, tmp_path, monkeypatch):
         build_pack(store["engine"], SITE, tmp_path / "never")
     assert not (tmp_path / "never").exists()
     assert [p.name for p in tmp_path.iterdir()] == []  # the staging folder is gone too
+
+
+def test_packed_results_follow_the_results_schema(pack):
+    """data/results.json validates against docs/results.schema.json (issue #15), when the
+    schema and the jsonschema reference implementation are present."""
+    from pathlib import Path
+
+    jsonschema = pytest.importorskip("jsonschema")
+    path = Path(__file__).resolve().parents[1] / "docs" / "results.schema.json"
+    if not path.exists():
+        pytest.skip("docs/results.schema.json not in this tree yet")
+    schema = json.loads(path.read_text(encoding="utf-8"))
+    validator = jsonschema.Draft202012Validator(
+        schema, format_checker=jsonschema.Draft202012Validator.FORMAT_CHECKER)
+    doc = json.loads((pack["dir"] / "data" / "results.json").read_text())
+    assert [f"{list(e.path)}: {e.message}" for e in validator.iter_errors(doc)] == []
+
+
+def test_planes_and_arrays_of_the_configuration_are_tabled():
+    """The site model of issue #11 ([[planes]], [[inverters.arrays]]) reaches the report's
+    system section as configured (only the chosen inverters' arrays)."""
+    import tomllib
+
+    from heliaudit.evidence_pdf import _arrays, _plain_rows
+
+    cfg = tomllib.loads("""
+[[planes]]
+id = "roof30"
+tilt_deg = 30.0
+azimuth_deg = 180.0
+[[planes]]
+id = "trk"
+kind = "single_axis"
+max_angle_deg = 55.0
+[[inverters]]
+id = "D1"
+[[inverters.arrays]]
+id = "mppt1"
+p_dc_kwp = 6.0
+plane = "roof30"
+[[inverters.arrays]]
+id = "mppt2"
+p_dc_kwp = 4.0
+plane = "shed10"
+[[inverters]]
+id = "D2"
+[[inverters.arrays]]
+id = "x"
+p_dc_kwp = 1.0
+""")
+    assert _plain_rows(cfg["planes"]) == [
+        ["id", "tilt_deg", "azimuth_deg", "kind", "max_angle_deg"],
+        ["roof30", "30.0", "180.0", "", ""], ["trk", "", "", "single_axis", "55.0"]]
+    assert _arrays(cfg, {"D1"}) == [["Inverter", "id", "p_dc_kwp", "plane"],
+                                    ["D1", "mppt1", "6.0", "roof30"],
+                                    ["D1", "mppt2", "4.0", "shed10"]]

@@ -444,7 +444,8 @@ def test_v3_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
         conn.execute(sa.text("UPDATE schema_version SET version = 3"))
     eng.dispose()
     eng = sa.create_engine(f"sqlite:///{path}")
-    assert upgrade(eng) == 4
+    from db import schema
+    assert upgrade(eng) == schema.SCHEMA_VERSION  # v4, and the later steps (v5: site model)
     fr = inverter_frame(eng, "real", "INV1")
     assert fr["interval_h"].iloc[0] == 0.25 and fr["interval_h"].iloc[-1] == pytest.approx(5 / 60)
     with eng.connect() as conn:
