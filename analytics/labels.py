@@ -17,7 +17,8 @@ METHOD_LABELS = {
     "modelled_sky_year_pairs": "Year-on-year on modelled clear sky (no POA sensor)",
     "sensor_drift_check": "POA sensor drift against clear sky",
     "sensor_year_pairs_between_shifts": "Year-on-year between level shifts",
-    "sensor_year_pairs_soiling_corrected": "Year-on-year with soiling removed, POA sensor",
+    "sensor_year_pairs_unsoiled": "Year-on-year with soiling removed, POA sensor",
+    "modelled_sky_between_shifts": "Year-on-year on modelled clear sky between level shifts",
     "overview": "Overview",
 }
 #: Method codes before schema heliaudit-results/2, read from stores written by older runs.

@@ -781,3 +781,42 @@ def sibling_jump_flags(ratios: dict[str, pd.Series], *, std_offset_s: int = 0,
                              note="check the sensors' mounting, levelling and calibration; "
                                   "split degradation series at this day")))
     return flag_frame(recs)
+
+
+def clear_sky_level_flags(daily_ratio: pd.Series, *, device_id: str, lo: float = 0.8,
+                          hi: float = 1.2, window: int = 15, min_days: int = 10,
+                          std_offset_s: int = 0) -> pd.DataFrame:
+    """A 'sensor_implausible' flag (reason ``off_clear_sky``) where a POA sensor's clear-day
+    readings sit outside [``lo``, ``hi``] × the modelled clear-sky POA.
+
+    Clear-sky models carry 5–10 % bias (METHODS §10), so only a gross disagreement counts:
+    the rolling median of ``window`` clear days outside ±20 % for at least ``min_days``
+    clear days (a wrong scale factor, a sensor on the wrong plane, a covered or dead cell
+    that still reads something; common practice). Report only: the level of a sensor is
+    for a calibration to settle, the clock and drift checks use its shape and trend.
+    """
+    r = daily_ratio.dropna()
+    if len(r) < min_days:
+        return flag_frame([])
+    med = r.rolling(window, center=True, min_periods=min(min_days, window)).median()
+    out_m = ((med < lo) | (med > hi)).to_numpy()
+    recs = []
+    for a, b in _true_runs(out_m):
+        if b - a + 1 < min_days:
+            continue
+        seg = med.iloc[a:b + 1]
+        s0 = int(_ts_s(pd.DatetimeIndex([r.index[a]]))[0]) - int(std_offset_s)
+        e0 = int(_ts_s(pd.DatetimeIndex([r.index[b]]))[0]) - int(std_offset_s) + 86400
+        level = float(np.median(seg))
+        recs.append(dict(
+            device_id=device_id, kind="sensor_implausible", start_s=s0, end_s=e0,
+            severity="warning", lost_kwh=np.nan,
+            details=dict(quantity="poa_wm2", reason="off_clear_sky",
+                         meaning=f"reads {100 * (level - 1):+.0f} % against modelled clear-sky "
+                                 "POA on clear days",
+                         median_clear_day_ratio=level, n_clear_days=int(b - a + 1),
+                         rule=f"{window}-clear-day median of measured / clear-sky POA outside "
+                              f"[{lo:g}, {hi:g}] for >= {min_days} clear days",
+                         note="check the sensor's plane (tilt, azimuth), its calibration "
+                              "factor and its unit")))
+    return flag_frame(recs)

@@ -25,7 +25,13 @@ import pandas as pd
 import sqlalchemy as sa
 import streamlit as st
 
-from analytics.degradation import RateResult, compare_methods, usable_daily_pi, yoy_rates
+from analytics.degradation import (
+    RateResult,
+    compare_methods,
+    trend_index,
+    usable_daily_pi,
+    yoy_rates,
+)
 from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label, method_code
 from analytics.performance_ratio import period_sums as monthly_sums
 from analytics.power import expected_ac_power
@@ -620,10 +626,12 @@ def pair_rates(url: str, site_id: str, device_id: str) -> pd.Series:
     inv = inverter_list(url, site_id).set_index("device_id")
     ids = list(inv.index) if device_id == "(site)" else [device_id]
     d = queries.daily_rows(engine(url), site_id, device_ids=ids,
-                           columns=("pi", "day_valid", "e_ac_valid_kwh", "e_exp_valid_kwh"))
+                           columns=("pi", "day_valid", "e_ac_valid_kwh", "e_exp_valid_kwh",
+                                    "details_json"))
     usable = {}
     for dev, g in d.groupby("device_id"):
         g = g.set_index(pd.DatetimeIndex(pd.to_datetime(g["day"])))
+        g = trend_index(g)  # the daily index for trends, as the degradation job uses it
         s_, _ = usable_daily_pi(g["pi"], g["day_valid"], commissioned=inv.loc[dev, "commissioned"],
                                 stabilisation_days=stab)
         usable[dev] = (s_, g)

@@ -97,7 +97,12 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
         "Year-on-year rate of the ratio of the sensor-based to the clear-sky-based index on "
         "clear days: a trend here is the irradiance sensor drifting (soiling of the sensor, "
         "calibration), not the modules."),
-    "sensor_year_pairs_soiling_corrected": (
+    "modelled_sky_between_shifts": (
+        "Clear-sky year-on-year rate between level shifts",
+        "The clear-sky index's year-on-year pairs that span no level shift: used when the "
+        "irradiance sensor drifts and a step (failure, repair) was found too (Jordan et al. "
+        "2018 pairs; Reno & Hansen 2016 clear periods)."),
+    "sensor_year_pairs_unsoiled": (
         "Year-on-year rate of the soiling-corrected index",
         "The daily index is divided by its soiling ratio, estimated from the dry intervals "
         "between cleanings (Deceglie et al. 2018), then the year-on-year method (Jordan et al. "

@@ -62,7 +62,7 @@ Progress = Callable[[int, int], None]  # progress(done, total), in devices
 
 #: Detector settings recorded with each computation (defaults cite METHODS §5, §8–§10).
 PARAMS = {
-    "underperformance": {"z_threshold": -3.0, "min_deficit": 0.03, "min_peers": 5,
+    "underperformance": {"z_threshold": -3.0, "min_deficit": 0.04, "min_peers": 5,
                          "window": 5, "k_required": 3, "escalate_days": 14,
                          "clear_days": 3, "own_min_pi": 0.80, "own_history_deficit": 0.10,
                          "history_days": 90, "history_lag_days": 30},
@@ -345,8 +345,14 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     s = grid_sun.reindex(x.index)
     xv = x if x_valid is None else x_valid
     day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
-    out = [sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id,
-                                   quantity=quantity, tau_s=tau_s)]
+    drop = sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id, quantity=quantity,
+                                   tau_s=tau_s)
+    # a gap of hours or a day or two is data unavailable (communication); a sensor silent
+    # for 36 or more daylight hours (about three days) is a sensor problem (common practice;
+    # issue #14: 29-h column gaps of healthy sensors on generated fleets)
+    short = [d["missing_daytime_hours"] < 36.0 for d in drop["details"]]
+    drop.loc[np.asarray(short, dtype=bool), "kind"] = "data_dropout"
+    out = [drop]
     if x.empty:
         return out, None
     if quantity in sensor_qa.RANGES:
@@ -372,6 +378,8 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
             export_zone=source[1] if source else "local"))
         ratio = sensor_qa.clear_period_ratio(xv, s["poa_cs"], s["aoi"].to_numpy(), clear,
                                              std_offset_s=std_offset_s)
+        out.append(sensor_qa.clear_sky_level_flags(ratio, device_id=sensor_id,
+                                                   std_offset_s=std_offset_s))
         out.append(sensor_qa.drift_flags(ratio, device_id=sensor_id, method="clearsky",
                                          std_offset_s=std_offset_s,
                                          extra={"reference": "pvlib Ineichen clear-sky POA"}))
@@ -425,11 +433,14 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
             pi = wide.median(axis=1).dropna()
         h = valid.groupby("day")["h_poa_kwhm2"].median()
         e_exp = d.groupby("day")["e_exp_kwh"].sum(min_count=1)
-        out.append(soiling.soiling_flags(
+        soil = soiling.soiling_flags(
             pi, h, e_exp, rain_mm=rain_daily, tariff_per_kwh=economics.get("tariff_per_kwh", 0.05),
             cleaning_cost=economics.get("cleaning_cost", 0.0),
             currency=economics.get("currency", "EUR"), std_offset_s=std_offset_s,
-            n_runs=n_runs))
+            n_runs=n_runs)
+        out[0], soil = attach_uneven_soiling(out[0], soil, valid, std_offset_s=std_offset_s,
+                                             min_deficit=up["min_deficit"])
+        out.append(soil)
         # fleet power: pi of the inverters on each POA sensor; a rising trend is the sensor
         for sid, invs in inverters.groupby("poa_sensor_id")["device_id"]:
             med = valid[valid["device_id"].isin(list(invs))].groupby("day")["pi"].median()
@@ -440,6 +451,56 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
                        "reading": "median daily pi of the inverters on this sensor rises: "
                                   "modules do not improve, the sensor reads low"}))
     return out
+
+
+def attach_uneven_soiling(up: pd.DataFrame, soil: pd.DataFrame, valid: pd.DataFrame, *,
+                          std_offset_s: int, min_deficit: float, after_days: int = 14,
+                          slack_days: int = 3) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Underperformance explained by uneven soiling is attached to the soiling flag.
+
+    An inverter that soils faster than its peers drifts below them during a dry interval
+    and comes back at the cleaning; a failed string does not come back (issue #14: false
+    underperformance flags on an arid soiling site). An underperformance event lying inside
+    one soiled interval (to ``slack_days``) whose inverter is back within ``min_deficit`` of
+    its peers (median daily pi ratio) in the ``after_days`` after that interval's cleaning
+    becomes a consequence of the soiling flag (``details.consequences``, with its lost
+    energy), not an alarm of its own.
+    """
+    if up.empty or soil.empty:
+        return up, soil
+    so = soil[soil["kind"] == "soiling"]
+    if so.empty:
+        return up, soil
+    wide = valid.pivot_table(index="day", columns="device_id", values="pi", aggfunc="first")
+    ratio = wide.div(wide.median(axis=1), axis=0)
+    day_s = _ts_days(ratio.index, std_offset_s)
+    drop = []
+    soil = soil.copy()
+    for u in up.itertuples():
+        hit = so[(so["start_s"] <= u.start_s + slack_days * 86400)
+                 & (so["end_s"] >= u.end_s - slack_days * 86400)]
+        if hit.empty or u.device_id not in ratio:
+            continue
+        k = hit.index[0]
+        e0 = int(hit.at[k, "end_s"])
+        m = (day_s >= e0) & (day_s < e0 + after_days * 86400)
+        after = ratio[u.device_id].to_numpy(float)[m]
+        after = after[np.isfinite(after)]
+        if after.size < 3 or np.median(after) < 1.0 - min_deficit:
+            continue
+        det = dict(soil.at[k, "details"])
+        det["consequences"] = det.get("consequences", []) + [dict(
+            kind="underperformance", device_id=u.device_id, start_s=int(u.start_s),
+            end_s=int(u.end_s), lost_kwh=None if not np.isfinite(u.lost_kwh) else float(u.lost_kwh),
+            reading="uneven soiling: below its peers while soiling, back after the cleaning")]
+        soil.at[k, "details"] = det
+        drop.append(u.Index)
+    return up.drop(index=drop).reset_index(drop=True), soil
+
+
+def _ts_days(days, std_offset_s: int) -> np.ndarray:
+    """UTC epoch seconds of the start of each local standard day."""
+    return pd.DatetimeIndex(days).as_unit("s").asi8 - int(std_offset_s)
 
 
 def _yield_by_sensor(daily: pd.DataFrame, inverters: pd.DataFrame) -> dict[str, pd.Series]:
@@ -599,7 +660,9 @@ def consolidate_clock_flags(flags: pd.DataFrame, *, n_clock_devices: int,
                    shift_minutes_measured=float(np.median(
                        [g.details["shift_minutes_measured"] for g in grp])),
                    first_day=str(first.date()), last_day=str(last.date()),
-                   agreement=f"{len(devices)} of {n_clock_devices} devices show the shift")
+                   agreement=f"{len(devices)} of {n_clock_devices} devices show the shift",
+                   last_day_partly_shifted=bool(np.median(
+                       [bool(g.details.get("last_day_partly_shifted")) for g in grp]) >= 0.5))
         det["correction_toml"] = _retarget_toml(det["correction_toml"], first, last,
                                                 len(devices))
         merged.append(dict(device_id=None if len(devices) > 1 else devices[0],

@@ -275,13 +275,48 @@ def test_clipping_months_merge_across_inverters(n_inv, merged):
         assert list(out["device_id"]) == ["inv0"]
 
 
-@pytest.mark.parametrize("ratio,low", [(0.975, False), (0.97, False), (0.965, True)])
+@pytest.mark.parametrize("ratio,low", [(0.965, False), (0.96, False), (0.955, True)])
 def test_peer_min_deficit_boundary(ratio, low):
-    # documented: a day is low when z < −3 and the peer ratio is below 1 − 0.03 (the at
-    # case, 0.97, is not below). Seven peers at exactly 1.00 (median 1.00, so the ratio is
+    # documented: a day is low when z < −3 and the peer ratio is below 1 − 0.04 (the at
+    # case, 0.96, is not below). Seven peers at exactly 1.00 (median 1.00, so the ratio is
     # the value itself; MAD 0 -> the mean-absolute-deviation fallback gives z ≈ −6 here).
     days = pd.date_range("2024-01-01", periods=20, freq="D")
     pis = {f"p{i}": np.full(20, 1.0) for i in range(7)}
     pis["x"] = np.full(20, ratio)
     fl = underperformance_flags(_daily(pis, days))
     assert (list(fl["device_id"]) == ["x"]) == low
+
+
+@pytest.mark.parametrize("late_min,found", [(15, False), (30, False), (45, True)])
+def test_edge_minutes_boundary(clear, late_min, found):
+    # documented: not within 30 min of the ends of the day's gated window. One day the
+    # inverter starts `late_min` after its gated window opens; each 15-min interval inside
+    # the edge is ignored, the ones after it count (min duration 0.25 h here).
+    w = clear.copy()
+    exp = w["p_ac_kw"].copy()
+    gate = ((w["elev"] >= 10) & (exp >= 5.0)).to_numpy()
+    local = (w.index + pd.Timedelta(seconds=STD_OFFSET_S)).tz_localize(None)
+    day = (local.normalize() == pd.Timestamp("2024-04-06")) & gate
+    first = np.flatnonzero(day)[0]
+    n = late_min // 15
+    w.iloc[first:first + n, w.columns.get_loc("p_ac_kw")] = 0.0
+    fl = _out(w, exp, min_duration_h=0.25)
+    assert (len(fl) > 0) == found
+
+
+@pytest.mark.parametrize("gap_h,ends_at_resume", [(17.75, True), (18.0, True), (18.25, False)])
+def test_resume_gap_boundary(clear, gap_h, ends_at_resume):
+    # documented: an outage ends when production resumes, unless that is more than 18 h
+    # after the last outage interval (missing data in between): then at that interval
+    w = clear.copy()
+    exp = w["p_ac_kw"].copy()
+    a = pd.Timestamp("2024-04-05 17:00", tz="UTC")
+    b = a + pd.Timedelta(hours=2)
+    w.loc[(w.index >= a) & (w.index < b), "p_ac_kw"] = 0.0
+    gap = (w.index >= b) & (w.index < b + pd.Timedelta(hours=gap_h))
+    w.loc[gap, "p_ac_kw"] = np.nan
+    resume = w.index[(w.index >= b + pd.Timedelta(hours=gap_h)) & (w["p_ac_kw"] > 1.0)][0]
+    fl = _out(w, exp)
+    assert len(fl) == 1
+    want = resume if ends_at_resume else b
+    assert fl.iloc[0]["end_s"] == want.value // 10**9

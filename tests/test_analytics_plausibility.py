@@ -218,3 +218,49 @@ def test_sibling_drift_is_not_a_jump():
     ra = pd.Series(0.97 * (1 - 0.015 * t) + 0.002 * rng.standard_normal(1826), index=days)
     rb = pd.Series(0.97 + 0.002 * rng.standard_normal(1826), index=days)
     assert sibling_jump_flags({"A": ra, "B": rb}).empty
+
+
+@pytest.mark.parametrize("level,found", [(1.19, False), (1.21, True), (0.79, True),
+                                         (0.81, False)])
+def test_off_clear_sky_boundary(level, found):
+    # documented: the 15-clear-day median of measured / clear-sky POA outside [0.8, 1.2]
+    # for >= 10 clear days (clear-sky models carry 5–10 % bias, METHODS §10)
+    from analytics.sensor_qa import clear_sky_level_flags
+
+    days = pd.date_range("2024-05-01", periods=40, freq="D")
+    r = pd.Series(level, index=days)
+    fl = clear_sky_level_flags(r, device_id="rc1")
+    assert (len(fl) == 1) == found
+    if found:
+        assert fl.iloc[0]["details"]["reason"] == "off_clear_sky"
+        assert fl.iloc[0]["details"]["median_clear_day_ratio"] == pytest.approx(level)
+
+
+@pytest.mark.parametrize("night,day,found", [(3.99, 5.0, False), (4.0, 5.0, False),
+                                             (4.01, 5.0, True), (6.0, 2.99, False),
+                                             (6.0, 3.0, False), (6.0, 3.01, True)])
+def test_ambient_offset_thresholds(july, night, day, found):
+    # documented: night median T_amb − T_mod > 4 °C and full-sun median T_mod − T_model
+    # < −3 °C (exact constructed medians: ambient 20 °C; module 20 − night at night; the
+    # model `day` °C above the module in full sun)
+    n = len(july)
+    el = july["elev"].to_numpy()
+    g = july["poa_wm2"].to_numpy()
+    t_amb = pd.Series(np.full(n, 20.0), index=july.index)
+    t_mod = np.where(el < -12, 20.0 - night, 40.0)
+    model = np.where(g >= 600, t_mod + day, t_mod)
+    fl = ambient_offset_flags(t_amb, pd.Series(t_mod, index=july.index), model, el, g,
+                              device_id="tamb1", module_sensor="tmod1", min_days=10)
+    assert (len(fl) == 1) == found
+
+
+@pytest.mark.parametrize("off,bad", [(19.99, False), (20.0, False), (20.01, True)])
+def test_module_model_margin_boundary(july, off, bad):
+    # documented: more than 20 °C from the Sandia module model on >= half the full-sun
+    # intervals makes the day invalid (implausible_vs_model)
+    g = july["poa_wm2"].to_numpy()
+    model = np.asarray(module_temperature_sandia(g, 25.0, 2.0), dtype=float)
+    t = pd.Series(np.where(g >= 600, model + off, model), index=july.index)
+    days = module_temperature_validity(t, poa_wm2=g, t_mod_model_c=model,
+                                       std_offset_s=STD_OFFSET_S)
+    assert (days["reason"] == "implausible_vs_model").any() == bad

@@ -267,7 +267,9 @@ def test_dashboard_button_builds_the_same_pack(store, pack, monkeypatch):
     at.switch_page("views/degradation.py")
     at.run()
     at.button(key="evidence_build").click().run()
-    assert not at.exception and not at.error
+    # the page may show the warranty verdict as an error box (a measured breach); nothing else
+    assert not at.exception
+    assert all("warranted rate" in e.value for e in at.error), [e.value for e in at.error]
     site, fname, z = at.session_state["evidence_zip"]
     assert (site, fname) == (SITE, f"evidence-{SITE}.zip")
     with zipfile.ZipFile(io.BytesIO(z)) as zf:

@@ -261,3 +261,49 @@ def test_input_mismatch_wired_to_the_per_input_query(monkeypatch):
     inv = _with_planes(pd.DataFrame({"device_id": ["inv1", "inv2"]}), arrays)
     assert inv["tilt_deg"].iloc[0] == 30 and inv["azimuth_deg"].iloc[0] == 180
     assert inv[["tilt_deg", "azimuth_deg"]].iloc[1].isna().all()  # no arrays: site plane
+
+
+@pytest.mark.parametrize("n_missing,kind", [(143, "data_dropout"), (144, "sensor_dropout"),
+                                            (145, "sensor_dropout")])
+def test_sensor_gap_36_daylight_hours_boundary(n_missing, kind):
+    # documented: a sensor gap of >= 36 missing daylight hours is a sensor_dropout, shorter
+    # gaps are data_dropout (grid all daylight here: 144 x 15 min = 36 h)
+    from heliaudit.jobs_flags import sensor_flags
+
+    idx = pd.date_range("2024-06-01", periods=960, freq="15min", tz="UTC", name="ts_utc")
+    grid = pd.DataFrame({"elev": 40.0, "aoi": 20.0, "poa_cs": 800.0}, index=idx)
+    x = pd.Series(20.0 + np.sin(np.arange(960) / 5.0), index=idx)  # a temperature, moving
+    x.iloc[200:200 + n_missing] = np.nan
+    fl, _ratio = sensor_flags("tamb1", "t_amb_c", x, grid, std_offset_s=0, site_zone="UTC")
+    drops = pd.concat([f for f in fl if len(f)])
+    drops = drops[drops["kind"].str.endswith("dropout")]
+    assert list(drops["kind"]) == [kind]
+    assert drops.iloc[0]["details"]["missing_daytime_hours"] == n_missing * 0.25
+
+
+@pytest.mark.parametrize("after_ratio,attached", [(0.97, True), (0.96, True), (0.95, False)])
+def test_uneven_soiling_attached_only_when_it_recovers(after_ratio, attached):
+    # documented: an underperformance event inside a soiled interval is uneven soiling when
+    # the inverter is back within 4 % of its peers (median ratio) in the 14 days after the
+    # cleaning; a failed string stays low and keeps its alarm
+    from analytics.outliers import flag_frame
+    from heliaudit.jobs_flags import attach_uneven_soiling
+
+    days = pd.date_range("2024-01-01", periods=60, freq="D")
+    rows = []
+    for dev in ("a", "b", "c", "d", "e"):
+        pi = np.full(60, 1.0)
+        if dev == "a":
+            pi[10:40] = 0.9
+            pi[40:] = after_ratio
+        rows.append(pd.DataFrame({"device_id": dev, "day": days, "pi": pi}))
+    valid = pd.concat(rows, ignore_index=True)
+    d0 = int(days[0].value // 10**9)
+    up = flag_frame([dict(device_id="a", kind="underperformance", start_s=d0 + 10 * 86400,
+                          end_s=d0 + 40 * 86400, severity="alarm", lost_kwh=50.0, details={})])
+    soil = flag_frame([dict(device_id=None, kind="soiling", start_s=d0 + 5 * 86400,
+                            end_s=d0 + 40 * 86400, severity="info", lost_kwh=10.0,
+                            details={})])
+    up2, soil2 = attach_uneven_soiling(up, soil, valid, std_offset_s=0, min_deficit=0.04)
+    assert up2.empty == attached
+    assert ("consequences" in soil2.iloc[0]["details"]) == attached
