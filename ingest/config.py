@@ -664,6 +664,10 @@ class _Validator:
             self.bad("format_version", f"this heliaudit reads format {FORMAT_VERSION}, got {fv}")
         site = self.table(raw, "site", required=True)
         sid = self.val(site, "site", "id")
+        if sid is not None and not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", sid):
+            self.bad("site.id", "use letters, digits, '-', '_' or '.' (starting with a letter or "
+                                f"digit), at most 64 characters; got {_show(sid)}")
+            sid = None
         tz = self.val(site, "site", "timezone")
         if tz is not None:
             try:
