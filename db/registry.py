@@ -13,7 +13,7 @@ import sqlalchemy as sa
 from db import schema
 from db.computations import now_utc
 from db.engine import write_lock
-from ingest.config import SiteConfig
+from ingest.config import INVERTER_QUANTITIES, SiteConfig
 
 DERIVED = {"e_ac_total_kwh": "e_ac_kwh"}  # counter quantity -> the quantity ingest derives
 
@@ -34,6 +34,12 @@ def channel_specs(cfg: SiteConfig) -> dict[str, dict[tuple[str, str], str]]:
                 out[c.device][key] = sampling
             elif sampling != "mean":
                 out[c.device][key] = sampling
+        inv_ids = {i.id for i in cfg.inverters}
+        for name, sampling in (getattr(src, "quantity_sampling", None) or {}).items():
+            q = src.quantity_names[name][0]
+            for dev, specs in out.items():
+                if (q, "") in specs and ((dev in inv_ids) == (q in INVERTER_QUANTITIES)):
+                    specs[(q, "")] = sampling
     return out
 
 

@@ -48,7 +48,21 @@ def _note_lines(r: BatchResult) -> list[str]:
     for day, k in n.get("dst_repeated_hour", {}).items():
         out.append(f"DST {day}: repeated hour ({k['rule']}): {k.get('summer', 0)} rows as summer "
                    f"time, {k.get('standard', 0)} as standard time, {k.get('rejected', 0)} rejected")
-    counters = n.get("counters", {})
+    all_counters = n.get("counters", {})
+    coarse = {d: ev for d, ev in all_counters.items() if ev.get("coarse")}
+    for source in ("p_ac_kw", "counter"):
+        devs = sorted(d for d, ev in coarse.items() if ev.get("interval_energy_from") == source)
+        if devs:
+            steps = sorted({coarse[d]["resolution_kwh"] for d in devs})
+            out.append(f"coarse energy counters (steps of {', '.join(f'{x:g}' for x in steps)} kWh) "
+                       f"on {len(devs)} inverters ({', '.join(devs[:8])}): " + (
+                           "interval energy from AC power; the counters are kept for daily and "
+                           "monthly totals (cross-checked against integrated power)"
+                           if source == "p_ac_kw" else
+                           "no AC power in this file, interval energy from counter steps (daily "
+                           "totals are right, single intervals are not)"))
+    counters = {d: ev for d, ev in all_counters.items()
+                if any(ev.get(k) for k in ("resets", "rollovers", "jumps", "gaps_not_assigned"))}
     if counters:  # one line for all counters: totals, and the devices with resets
         tot = {k: sum(ev.get(k, {}).get("count", 0) for ev in counters.values())
                for k in ("resets", "rollovers", "jumps")}

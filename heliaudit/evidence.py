@@ -54,6 +54,7 @@ from analytics.daily import standard_utc_offset_h
 from analytics.filters import REASONS
 from db import queries
 from db.daily import daily_table
+from db.engine import display_url
 from db.evidence import contributing_batches, copy_site_window
 from db.registry import SiteNotFoundError, site_row
 from heliaudit.jobs_degradation import NothingComputedError, results_document
@@ -62,7 +63,7 @@ MANIFEST_SCHEMA = "heliaudit-evidence/1"
 SITE = "(site)"
 #: Method used when no ``recommended`` row exists (contract in issue #13).
 FALLBACK_METHOD = "sensor_year_pairs"
-STORED_BASIS = "stored results of the last `heliaudit compute`"
+STORED_BASIS = "stored results of the last \"heliaudit compute\""
 FLOAT_FORMAT = "%.6g"
 #: Libraries whose versions the manifest records.
 LIBRARIES = ("numpy", "pandas", "scipy", "statsmodels", "pvlib", "ruptures", "sqlalchemy",
@@ -172,11 +173,8 @@ def _iso(ts_s) -> str | None:
 
 
 def mask_url(url: str) -> str:
-    """The store's URL with any password replaced by ``***``."""
-    try:
-        return sa.engine.make_url(url).render_as_string(hide_password=True)
-    except Exception:  # noqa: BLE001 - not a URL: a path, shown as given
-        return url
+    """The store's URL as shown to a user, password replaced by ``***`` (db.engine)."""
+    return display_url(url)
 
 
 def reproduce_command(db_url: str | None, site_id: str, inverters, start, end,

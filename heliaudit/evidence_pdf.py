@@ -98,10 +98,12 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
         "clear days: a trend here is the irradiance sensor drifting (soiling of the sensor, "
         "calibration), not the modules."),
     "modelled_sky_between_shifts": (
-        "Clear-sky year-on-year rate between level shifts",
-        "The clear-sky index's year-on-year pairs that span no level shift: used when the "
+        "Clear-sky year-on-year rate without pairs that span a level shift",
+        "The clear-sky index of \"modelled_sky_year_pairs\" (independent of the irradiance "
+        "sensor; clear periods after Reno & Hansen 2016), with the year-on-year pairs that "
+        "straddle a lasting step (PELT, Killick et al. 2012) left out: used when the "
         "irradiance sensor drifts and a step (failure, repair) was found too (Jordan et al. "
-        "2018 pairs; Reno & Hansen 2016 clear periods)."),
+        "2018 pairs)."),
     "sensor_year_pairs_unsoiled": (
         "Year-on-year rate of the soiling-corrected index",
         "The daily index is divided by its soiling ratio, estimated from the dry intervals "
@@ -306,12 +308,14 @@ def _summary_section(pack, st) -> list:
     out.append(Spacer(1, 4))
     notes = []
     for s in pack.summary:
+        # the recommended rate's caveats (issue #13) already say these in their own words
+        kinds = {c.get("kind") for c in s["caveats"] if isinstance(c, dict)}
         drops = [c for c in s["change_points"] if c.get("kind") == "drop"]
-        if drops:
+        if drops and "level_shift" not in kinds:
             notes.append(f"{_label(s['device_id'])}: level drop on "
                          + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
                          + ": a failure, not degradation; see sections 5 and 6.")
-        if s["agree"] is False:
+        if s["agree"] is False and "methods_disagree" not in kinds:
             notes.append(f"{_label(s['device_id'])}: methods disagree ("
                          f"{_pairs(s['disagreements'])}); read section 5 before using the rate.")
         for c in s["caveats"]:
@@ -361,13 +365,14 @@ def _system_section(pack, st) -> list:
                      _fmt(i["p_ac_max_kw"], "{:.1f}"),
                      _fmt(i["gamma_pmp_per_c"], "{:.2f}", 100),
                      _txt(i["mounting"]).replace("_", " "), _txt(i["commissioned"], "unknown"),
-                     _txt(c.get("plane"), "site plane"), _txt(i["poa_sensor_id"]),
+                     _txt(c.get("plane"), "per array" if c.get("arrays") else "site plane"),
+                     _txt(i["poa_sensor_id"]),
                      _txt(i["t_module_sensor_id"], "none (modelled)"), _txt(i["peer_group"])])
     total = pd.to_numeric(pack.inverters["p_dc_kwp"], errors="coerce").sum()
     out += [Paragraph(f"Inverters in this report: {len(pack.inverters)}, "
                       f"{total:.1f} kWp DC in total (ratings as configured).", st["body"]),
-            _table(rows, [1.5 * cm, 1.2 * cm, 1.2 * cm, 1.2 * cm, 2.6 * cm, 2.0 * cm, 1.6 * cm,
-                          2.0 * cm, 2.0 * cm, 1.7 * cm], st=st)]
+            _table(rows, [1.4 * cm, 1.2 * cm, 1.1 * cm, 1.2 * cm, 2.5 * cm, 2.2 * cm, 1.6 * cm,
+                          2.0 * cm, 2.0 * cm, 1.8 * cm], st=st)]
     planes = _plain_rows(cfg.get("planes"))
     if planes:
         out += [Paragraph("Planes (as configured)", st["h3"]), _table(planes, st=st)]

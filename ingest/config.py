@@ -192,6 +192,7 @@ class Source:
     columns: tuple[ColumnMap, ...] = ()  # wide layout: one entry per mapped column
     long: LongSpec | None = None  # long layout: which columns hold device/quantity/value
     quantity_names: dict[str, tuple[str, str]] = field(default_factory=dict)  # long: name -> (quantity, unit)
+    quantity_sampling: dict[str, str] = field(default_factory=dict)  # long: name -> "instant" (#11)
     counter_rollover_kwh: float | None = None  # wrap-around value of e_ac_total_kwh counters
     clock_corrections: tuple[ClockCorrection, ...] = ()
     ignore_columns: tuple[str, ...] = ()  # header names deliberately not loaded (status codes, ...)
@@ -409,6 +410,8 @@ register("sources[].long.quantities", **{"*": Key("table")})
 register(
     "sources[].long.quantities.*",
     quantity=Key("str", required=True, choices=tuple(QUANTITY_UNITS)), unit=Key("str", max_len=16),
+    sampling=Key("str", default="mean", choices=SAMPLINGS,
+                 doc="mean over the interval, or instant: a point sample at the timestamp (#11)"),
 )
 register(
     "sources[].clock_corrections[]",
@@ -661,6 +664,10 @@ class _Validator:
             self.bad("format_version", f"this heliaudit reads format {FORMAT_VERSION}, got {fv}")
         site = self.table(raw, "site", required=True)
         sid = self.val(site, "site", "id")
+        if sid is not None and not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", sid):
+            self.bad("site.id", "use letters, digits, '-', '_' or '.' (starting with a letter or "
+                                f"digit), at most 64 characters; got {_show(sid)}")
+            sid = None
         tz = self.val(site, "site", "timezone")
         if tz is not None:
             try:
@@ -999,7 +1006,7 @@ class _Validator:
             columns: list[ColumnMap] = []
             for m, c in enumerate(self.array(s, "columns", key)):
                 columns.extend(self._columns(c, f"{key}.columns[{m}]", sensors, inverters, device_ids))
-            long_spec, qnames = None, {}
+            long_spec, qnames, qsampling = None, {}, {}
             if layout == "long":
                 lkey = f"{key}.long"
                 lt = self.table(s, "long", key)
@@ -1023,6 +1030,13 @@ class _Validator:
                                  f"unit {u!r} is not one of {', '.join(QUANTITY_UNITS[q])} for {q}")
                     if q is not None:
                         qnames[name] = (q, u or QUANTITY_UNITS[q][0])
+                        smp = self.val(spec, qkey, "sampling", "sources[].long.quantities.*")
+                        if smp == "instant":
+                            if q not in SAMPLED_QUANTITIES:
+                                self.bad(f"{qkey}.sampling", f"{q} cannot be an instantaneous "
+                                         "sample: an energy or counter is a sum")
+                            else:
+                                qsampling[name] = "instant"
                 if not qnames:
                     self.bad(f"{lkey}.quantities", "long layout needs a table mapping quantity names")
             elif not columns:
@@ -1097,6 +1111,7 @@ class _Validator:
                 unit_row=bool(self.val(s, key, "unit_row")),
                 missing_values=tuple(miss) if miss is not None else Source.missing_values,
                 timestamp=tspec, columns=tuple(columns), long=long_spec, quantity_names=qnames,
+                quantity_sampling=qsampling,
                 counter_rollover_kwh=self.val(s, key, "counter_rollover_kwh"),
                 clock_corrections=tuple(corrections),
                 ignore_columns=tuple(self.val(s, key, "ignore_columns") or ()),

@@ -48,7 +48,7 @@ from ingest.counters import CounterEvents, counter_resolution, interval_energy, 
 from ingest.errors import IngestError, Rejected
 from ingest.readers.csv_export import Chunk, _split, read_export
 from ingest.timestamps import NAT, TimestampConverter, describe_intervals, infer_intervals
-from ingest.units import implausible, to_stored
+from ingest.units import POWER_MAX_FACTOR, implausible, to_stored
 
 CONTEXT = 3  # labels of the neighbouring chunks used to infer intervals at chunk edges
 
@@ -602,7 +602,8 @@ class _FileLoader:
                     else:
                         try:
                             to_stored(np.empty(0), quantity, uu)
-                            cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu)
+                            cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu,
+                                                  src.quantity_sampling.get(q, "mean"))
                         except ValueError as exc:
                             cache[k] = str(exc)
             v = cache[k]
@@ -663,21 +664,31 @@ class _FileLoader:
             ev = self.counter_events.setdefault(dev, CounterEvents())
             inv = self.cfg.inverter(dev)
             prev_v = self.counter_prev[dev][1] if self.counter_prev[dev] else np.nan
-            res = counter_resolution(np.diff(np.concatenate([[prev_v], v])))
+            steps = np.diff(np.concatenate([[prev_v], v]))
+            res = counter_resolution(steps)
             if res is not None:
                 self.counter_res[dev] = res
             res = self.counter_res.get(dev)
             tau = float(np.nanmedian(iv[r]))
-            coarse = is_coarse(res, inv.p_ac_max_kw, tau)
-            from_power = coarse and dev in power_devs
             info = self.counter_info.setdefault(dev, {})
             if res is not None:
+                coarse = is_coarse(res, inv.p_ac_max_kw, tau)
+                step = res
+            else:
+                # too few steps yet to measure the resolution (a night, a short chunk): a step
+                # beyond one interval's possible energy marks the counter coarse here
+                pos = steps[np.isfinite(steps) & (steps > 1e-9)]
+                coarse = bool(pos.size and pos.max() > POWER_MAX_FACTOR * inv.p_ac_max_kw
+                              * tau / 3600.0)
+                step = float(pos.min()) if coarse else 0.0
+            from_power = coarse and dev in power_devs
+            if res is not None or coarse:
                 info.update(resolution_kwh=res, coarse=coarse,
                             interval_energy_from="p_ac_kw" if from_power else "counter")
             energy, self.counter_prev[dev] = interval_energy(
                 t_r, iv[r], v, self.counter_prev[dev], p_ac_max_kw=inv.p_ac_max_kw,
                 rollover_kwh=self.source.counter_rollover_kwh, events=ev,
-                step_kwh=res if coarse else 0.0)
+                step_kwh=step if coarse else 0.0)
             if from_power:
                 continue  # readings stored as read; interval energy comes from AC power
             good = ~np.isnan(energy)

@@ -26,6 +26,9 @@ _LINEAR: dict[str, tuple[float, float]] = {
 #: DC input voltage above this is no PV string (IEC 60364-7-712 systems are at most 1500 V DC;
 #: the margin allows cold open-circuit overshoot; common practice).
 V_DC_MAX_V = 2000.0
+#: DC current above 1.5 x the nameplate power at this voltage is impossible: no PV input
+#: delivers full power below ~150 V (common practice); the lower bound is -5 % of that, as power.
+I_DC_MIN_V = 150.0
 
 #: Irradiance below this is impossible rather than sensor offset at night (common practice:
 #: thermopile pyranometers read a few W/m² negative at night from thermal offset).
@@ -113,6 +116,10 @@ def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None 
         lo[:], hi[:], what, unit = 0.0, WIND_MAX_MS, "wind speed", "m/s"
     elif quantity == "v_dc_v":
         lo[:], hi[:], what, unit = 0.0, V_DC_MAX_V, "DC voltage", "V"
+    elif quantity == "i_dc_a" and p_dc_kwp:
+        i_max = POWER_MAX_FACTOR * p_dc_kwp * 1000.0 / I_DC_MIN_V
+        lo[:], hi[:] = POWER_MIN_FRACTION * i_max, i_max
+        what, unit = f"DC current ({POWER_MAX_FACTOR:g} x nameplate at {I_DC_MIN_V:g} V)", "A"
     elif quantity == "rain_mm":
         lo[:], hi[:], what, unit = 0.0, RAIN_MAX_MM, "rainfall", "mm"
     with np.errstate(invalid="ignore"):

@@ -103,3 +103,10 @@ def test_air_temperature_and_rain_records():
         True, False, False, True]
     assert implausible(np.array([-0.1, 0.0, 1825.0, 1900.0]), "rain_mm")[0].tolist() == [
         True, False, False, True]
+
+
+def test_dc_current_limits_from_the_nameplate():
+    # 120 kWp: 1.5 x 120 kW / 150 V = 1200 A (common practice bound); -5 % of it below zero
+    bad, why = implausible(np.array([-61.0, -59.0, 1199.0, 1201.0]), "i_dc_a", p_dc_kwp=120.0)
+    assert bad.tolist() == [True, False, False, True]
+    assert "DC current" in why[3]
