@@ -99,3 +99,58 @@ def availability_energy(e_ac_kwh, e_lost_kwh):
     with np.errstate(divide="ignore", invalid="ignore"):
         a = np.where(tot > 0, e / np.where(tot > 0, tot, 1.0), np.nan)
     return _restore_type(a, e_ac_kwh, e_lost_kwh)
+
+
+def stopped_reporting_flags(last_seen_s: dict, site_last_s: int, *, min_days: float = 3.0,
+                            kinds: dict | None = None, interval_s: int = 900) -> list[dict]:
+    """Devices with no data while the rest of the site still reports: an open flag each.
+
+    A device whose last reading is more than ``min_days`` days before the site's last
+    reading (any device) has stopped reporting (a failed logger input, a replaced inverter
+    never re-mapped, a system whose data ended). The flag runs from the interval after its
+    last reading to the end of the site's data and stays open (``ongoing``) while the
+    condition holds; the details say "no data since …". Three days is common practice:
+    long enough to pass a weekend logger restart, short enough for a weekly check.
+
+    Parameters
+    ----------
+    last_seen_s : dict
+        device_id -> UTC epoch seconds of its last interval start with a reading.
+    site_last_s : int
+        The site's last interval start with any reading. [s]
+    kinds : dict, optional
+        device_id -> 'inverter' or a sensor quantity (inverters get 'alarm', sensors
+        'warning').
+
+    Returns
+    -------
+    list of flag dicts (kind 'stopped_reporting').
+
+    Examples
+    --------
+    >>> f = stopped_reporting_flags({"inv1": 0, "inv2": 10 * 86400}, 10 * 86400)
+    >>> [(r["device_id"], r["details"]["days_silent"]) for r in f]
+    [('inv1', 10.0)]
+    """
+    import datetime as _dt
+
+    kinds = kinds or {}
+    out = []
+    for dev, last in sorted(last_seen_s.items()):
+        silent = (int(site_last_s) - int(last)) / 86400.0
+        if silent <= min_days:
+            continue
+        since = _dt.datetime.fromtimestamp(int(last) + interval_s, tz=_dt.UTC)
+        is_inv = kinds.get(dev, "inverter") == "inverter"
+        out.append(dict(
+            device_id=dev, kind="stopped_reporting", start_s=int(last) + int(interval_s),
+            end_s=int(site_last_s) + int(interval_s), severity="alarm" if is_inv else "warning",
+            lost_kwh=np.nan,
+            details=dict(no_data_since=since.strftime("%Y-%m-%d %H:%M UTC"),
+                         days_silent=round(silent, 2), ongoing=True,
+                         quantity=kinds.get(dev, "inverter"),
+                         rule=f"no reading for more than {min_days:g} days while other "
+                              "devices of the site report",
+                         note="check the device's communication and the logger mapping "
+                              "before assuming a production loss")))
+    return out

@@ -1,24 +1,30 @@
 """Clear-sky performance index: a degradation cross-check that does not use the POA sensor.
 
-A drifting irradiance sensor maps one to one into a sensor-based degradation rate (METHODS
-§6 pitfalls). Here the expected power comes from modelled clear-sky irradiance instead, on
+A drifting irradiance sensor maps one to one into a sensor-based degradation rate (Jordan
+et al. 2018 list sensor drift among the pitfalls). Here the expected power comes from modelled clear-sky irradiance instead, on
 periods identified as clear without the sensor under test:
 
 1. Clear-sky irradiance: Ineichen–Perez model with monthly Linke turbidity
    (``pvlib.location.Location.get_clearsky(model='ineichen')``), transposed to the plane of
    array with ``pvlib.irradiance.get_total_irradiance`` (Hay–Davies sky diffuse by default),
-   evaluated at interval mid-points (METHODS §10).
+   evaluated at interval mid-points (pvlib documentation).
 2. Clear periods: the Reno & Hansen (2016) test (``pvlib.clearsky.detect_clearsky``, with the
    thresholds of Jordan & Hansen 2023 for 1–30-minute data, ``infer_limits=True``) applied to
-   GHI when a GHI sensor is logged, otherwise to the *shape* of the fleet's AC power scaled
-   to W/m² (1000·ΣP_ac/ΣP0). The test fits a scale factor between the measured and the
+   every irradiance sensor (GHI against clear-sky GHI, POA against clear-sky POA;
+   :func:`clear_periods_from_sensors`): an interval is clear when every sensor that reads
+   there and is not judged faulty that day calls it clear, so the result does not depend on
+   the order of the sensors. Without any irradiance reading, the *shape* of the fleet's AC
+   power scaled to W/m² (1000·ΣP_ac/ΣP0) is used. The test fits a scale factor between the measured and the
    clear-sky curve in every window set, then compares means, maxima, line length and
    variability, so it judges shape, not level: the fleet's PR and slow degradation do not
    decide clarity. It runs month by month so that the scale factor follows seasonal
    clear-sky-model bias and long-term change.
 3. Clear-sky index per day: PI_cs,d = Σ P_ac τ / Σ P0 (G_cs/1000)(1 + γ (T_cell − 25)) η τ
-   over clear, unclipped intervals with G_cs ≥ 200 W/m² (METHODS §4–5), for days where such
-   intervals carry at least half of the day's clear-sky insolation.
+   over clear intervals with G_cs ≥ 200 W/m² (IEC 61724-1 practice for PI windows) outside
+   the clipping zone, for days where such intervals carry at least half of the day's
+   clear-sky insolation outside that zone. The clipping zone is judged from the expected
+   power (≥ 0.90 of the AC rating), not only from the measured power: a measured-power filter
+   admits more intervals as the array degrades and biases the rate (issue #13).
 
 Its year-on-year rate (:func:`analytics.degradation.degradation_yoy`) has the clear-sky
 model's absolute bias (5–10 %, from memory) cancelled because each pair compares the same
@@ -142,11 +148,86 @@ def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
     return out
 
 
+def clear_periods_from_sensors(readings: dict[str, pd.Series], clearsky: dict[str, pd.Series], *,
+                               max_disagreement: float = 0.05, window_days: int = 31
+                               ) -> tuple[pd.Series, dict]:
+    """Clear intervals from every irradiance sensor, each checked against the others.
+
+    Parameters
+    ----------
+    readings : dict of Series
+        Sensor id -> measured irradiance on the common interval index (GHI or POA). [W/m²]
+    clearsky : dict of Series
+        Sensor id -> the matching clear-sky irradiance (GHI or POA) on that index. [W/m²]
+    max_disagreement : float, default 0.05
+        With two or more sensors, a sensor's daily clear-sky index (median of measured /
+        clear-sky over intervals with clear-sky ≥ 200 W/m²) divided by the median of all
+        sensors' that day is compared with its own centred ``window_days`` rolling median of
+        that ratio; a departure above this fraction marks the sensor faulty that day (stuck,
+        offset, shaded, dropped out). A slow drift moves the rolling median with it and is
+        not excluded here (it does not change which periods are clear). [fraction]
+
+    Returns
+    -------
+    (Series of bool, dict)
+        Clear intervals: every sensor with a reading there that is not faulty that day calls
+        the interval clear (Reno & Hansen 2016 per sensor, :func:`detect_clear_periods`), and
+        at least one does; the result is the same for any order of the sensors. The dict
+        gives per sensor the number of clear intervals and of days judged faulty.
+
+    Examples
+    --------
+    The result is symmetric in the sensors (hand-checkable: the same dict in either order):
+
+    >>> t = pd.date_range("2021-06-01 10:00", periods=4, freq="15min", tz="UTC")
+    >>> cs = pd.Series(800.0, t)
+    >>> a, _ = clear_periods_from_sensors({"A": cs, "B": cs * 0.9}, {"A": cs, "B": cs})
+    >>> b, _ = clear_periods_from_sensors({"B": cs * 0.9, "A": cs}, {"B": cs, "A": cs})
+    >>> bool(a.equals(b))
+    True
+    """
+    ids = sorted(readings)
+    if not ids:
+        raise ValueError("no irradiance sensor given")
+    idx = readings[ids[0]].index
+    for sid in ids[1:]:
+        idx = idx.union(readings[sid].index)
+    day = idx.floor("D")
+    kc, flags = {}, {}
+    for sid in ids:
+        m = readings[sid].reindex(idx).astype(float)
+        c = clearsky[sid].reindex(idx).astype(float)
+        kc[sid] = (m / c).where(c >= 200.0)
+        try:
+            flags[sid] = detect_clear_periods(m, c) if len(idx) >= 10 else pd.Series(False, idx)
+        except ValueError:
+            flags[sid] = pd.Series(False, idx)
+    k = pd.DataFrame(kc)
+    have = pd.DataFrame({sid: readings[sid].reindex(idx).notna() for sid in ids})
+    faulty = pd.DataFrame(False, index=idx, columns=ids)
+    info = {}
+    if len(ids) >= 2:
+        daily = k.groupby(day).median()
+        rel = daily.div(daily.median(axis=1), axis=0)
+        typ = rel.rolling(window_days, center=True, min_periods=5).median()
+        bad_day = ((rel / typ - 1).abs() > max_disagreement).fillna(False)
+        faulty = bad_day.reindex(day).set_axis(idx).astype(bool)
+        info = {sid: {"days_faulty": int(bad_day[sid].sum())} for sid in ids}
+    ok = have & ~faulty
+    f = pd.DataFrame({sid: flags[sid].reindex(idx).fillna(False).astype(bool) for sid in ids})
+    n_ok = ok.sum(axis=1)
+    all_clear = (f | ~ok).all(axis=1) & (n_ok > 0)
+    for sid in ids:
+        info.setdefault(sid, {"days_faulty": 0})["n_clear"] = int(f[sid].sum())
+    return all_clear.rename("clear"), info
+
+
 def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd.Series, *,
                       p_dc_kwp: float, gamma_pmp_per_c: float, eta_inv_nom: float = 0.96,
                       p_ac_max_kw: float | None = None, t_cell_c: pd.Series | None = None,
                       interval_h: float | None = None, utc_offset_h: float = 0.0,
-                      min_poa_wm2: float = 200.0, min_clear_fraction: float = 0.5) -> pd.DataFrame:
+                      min_poa_wm2: float = 200.0, min_clear_fraction: float = 0.5,
+                      clip_expected_fraction: float = 0.90) -> pd.DataFrame:
     """Daily clear-sky performance index of one inverter (Notes step 3 of this module).
 
     Parameters
@@ -162,9 +243,13 @@ def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd
         temperature effect then cancels in year-on-year pairs, but year-to-year weather does
         not).
     p_ac_max_kw : float, optional
-        Intervals at or above 0.98 of it are clipped and excluded (METHODS §5).
+        Intervals whose measured power is at or above 0.98 of it, or whose expected power
+        reaches ``clip_expected_fraction`` of it, are left out (clipping zone).
+    clip_expected_fraction : float, default 0.90
+        Expected-power share of the AC rating where the clipping zone starts
+        (:data:`analytics.filters.DEFAULT_FILTERS`).
     utc_offset_h : float
-        Site standard-time offset: days are local standard time (METHODS §10).
+        Site standard-time offset: days are local standard time (pvlib documentation).
 
     Returns
     -------
@@ -190,6 +275,8 @@ def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd
     p_exp = p_dc_kwp * g / 1000.0 * temp * eta_inv_nom
     day = (idx + pd.Timedelta(hours=utc_offset_h)).tz_localize(None).normalize()
     window = g >= min_poa_wm2
+    if p_ac_max_kw is not None:
+        window &= ~(p_exp >= clip_expected_fraction * p_ac_max_kw)
     use = window & clear.reindex(idx).fillna(False).astype(bool) & p_ac_kw.notna() & p_exp.notna()
     if p_ac_max_kw is not None:
         use &= p_ac_kw < 0.98 * p_ac_max_kw
@@ -210,7 +297,7 @@ def densify_clear_days(pi_clearsky: pd.Series, *, window_days: int = 15,
     """Centred rolling median of the clear-day index over ``window_days`` calendar days.
 
     Clear days one year apart rarely coincide, so pairing raw clear days leaves few pairs;
-    METHODS §6 step 1 allows weekly or monthly medians of a noisy index. Windows with fewer
+    Jordan et al. 2018 allows weekly or monthly medians of a noisy index. Windows with fewer
     than ``min_days`` clear days are NaN.
     """
     s = pi_clearsky.dropna()

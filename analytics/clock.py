@@ -164,6 +164,16 @@ def _refine_boundary(all_delta: pd.Series, lo, hi, before: float, after: float):
     return cands[int(np.argmin(cost))]
 
 
+def _partly_shifted(delta, level: float, other: float, share: float = 0.08) -> bool:
+    """A boundary day whose Δ lies between the shifted ``level`` and the ``other`` side's,
+    more than ``share`` of the way from ``other`` (≈ 5 min of a 60-min shift: the morning
+    hours before a fix at 10:00 carry about 15 % of a day's light; common practice)."""
+    if delta is None or not np.isfinite(delta):
+        return False
+    span = level - other
+    return abs(span) > 0 and share < (delta - other) / span < 1.0 - share / 3
+
+
 def _dst_dates(zone: str | None, first, last) -> list[pd.Timestamp]:
     """Local dates in [first − 1 d, last + 2 d] on which ``zone`` changes its UTC offset."""
     if not zone or zone == "UTC":
@@ -230,8 +240,18 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
         start = offsets.index[0] if prev_day is None else _refine_boundary(
             all_delta, prev_day, first, before, level)
         end = offsets.index[-1]
+        partial_end = False
         if next_day is not None:
-            end = _refine_boundary(all_delta, last, next_day, level, after) - pd.Timedelta(days=1)
+            change = _refine_boundary(all_delta, last, next_day, level, after)
+            end = change - pd.Timedelta(days=1)
+            # the clock is usually fixed during a day: that day is partly shifted, which
+            # moves its centroid part of the way; its readings before the fix need the
+            # correction too, so the block ends on it (issue #14: end date one day short)
+            if _partly_shifted(all_delta.get(change), level, after):
+                end, partial_end = change, True
+        if prev_day is not None and _partly_shifted(
+                all_delta.get(start - pd.Timedelta(days=1)), level, before):
+            start = start - pd.Timedelta(days=1)
         shift = -_snap(level)
         dst = False
         if abs(abs(level) - 60) <= threshold_min:
@@ -265,12 +285,15 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
                 end_between=[str(last.date()), str((next_day - pd.Timedelta(days=1)).date())
                              if next_day is not None else str(last.date())],
                 n_clear_days=int(len(grp)), probable_cause=cause, dst_change=dst,
+                last_day_partly_shifted=bool(partial_end and not dst),
                 export_zone=export_zone, correction_toml=toml,
                 note="start/end are dates in the export's own (shifted) local time; ingest "
                      "adds shift_minutes to each timestamp in that range before converting to "
                      "UTC. Re-load the affected files after adding the block. At the "
                      "boundaries |shift| minutes of night-time readings may overlap or leave a "
-                     "gap.",
+                     "gap. When last_day_partly_shifted is true the clock was fixed during that "
+                     "day: replace the end date by the date and hour of the fix "
+                     "(end = YYYY-MM-DDTHH:MM:SS) so its later readings stay as they are.",
                 method="irradiance-weighted centroid of the day's profile minus the centroid "
                        "of modelled clear-sky POA (pvlib Ineichen); 7-clear-day median "
                        "> 10 min (METHODS §10)")))

@@ -39,7 +39,10 @@ Daily sums (ratios of sums, never means of ratios, METHODS §5):
 * availability (:mod:`analytics.availability`): ``t_daylight_h`` (sun up, G >= 50 W/m² and
   a power reading), ``t_unavailable_h``, ``e_lost_kwh``, ``avail_time``, ``avail_energy``;
 * ``t_clipped_h``: hours with P_ac >= clip_fraction · P_ac,max;
-* ``details_json``: excluded-interval counts by reason and how temperature was obtained.
+* ``details_json``: excluded-interval counts by reason and how temperature was obtained, and
+  ``trend`` {pi, day_valid, e_ac_kwh, e_exp_kwh}: the same index without the clipping zone
+  judged from the expected power (``trend_clip_expected_fraction``), for degradation
+  (issue #13).
 """
 
 from __future__ import annotations
@@ -67,7 +70,13 @@ DAILY_COLUMNS: tuple[str, ...] = (
     "e_ref_stc_kwh", "e_ref_tcell_kwhc", "e_exp_kwh", "e_ac_valid_kwh", "e_exp_valid_kwh", "pr",
     "pr_stc", "pi", "t_cell_wavg_c", "coverage", "day_valid", "t_daylight_h", "t_unavailable_h",
     "e_lost_kwh", "avail_time", "avail_energy", "t_clipped_h", "details_json", "e_ac_pr_kwh",
+    "irradiance_basis", "t_cell_basis",
 )
+#: How a day's cell temperature was obtained over its PR intervals: codes joined by '+'
+#: when a day mixes them (e.g. a module sensor with gaps). None: no temperature at all.
+T_CELL_BASES = ("module_sensor", "modelled_sandia_king2004", "modelled_faiman2008")
+_T_BASIS_BY_MASK = [None] + ["+".join(b for j, b in enumerate(T_CELL_BASES) if m >> j & 1)
+                             for m in range(1, 8)]
 _EPOCH_DAY = dt.date(1970, 1, 1)
 
 
@@ -123,11 +132,16 @@ def _div(num: np.ndarray, den: np.ndarray) -> np.ndarray:
 
 
 @functools.lru_cache(maxsize=4096)
-def _details(counts: tuple[int, ...], n_modelled: int, valid_fraction: float) -> str:
+def _details(counts: tuple[int, ...], n_modelled: int, valid_fraction: float,
+             trend: tuple | None = None) -> str:
     d: dict = {"excluded": {r: int(counts[i]) for i, r in enumerate(flt.REASONS)
                             if i and counts[i]},
                "valid_insolation_fraction": None if valid_fraction != valid_fraction
                else valid_fraction}
+    if trend is not None:  # the index for degradation trends (issue #13)
+        pi_t, ok_t, e_ac_t, e_exp_t = trend
+        d["trend"] = {"pi": None if pi_t != pi_t else pi_t, "day_valid": bool(ok_t),
+                      "e_ac_kwh": e_ac_t, "e_exp_kwh": e_exp_t}
     if n_modelled:
         d["t_cell_modelled_from_ambient"] = int(n_modelled)
     return json.dumps(d, sort_keys=True)
@@ -178,7 +192,8 @@ def daily_performance(frame: pd.DataFrame, inverter, *, utc_offset_h: float = 0.
 
 
 def _empty_daily(extra: tuple[str, ...] = ()) -> pd.DataFrame:
-    return pd.DataFrame({c: pd.Series([], dtype=object if c in ("day", "details_json")
+    return pd.DataFrame({c: pd.Series([], dtype=object if c in (
+        "day", "details_json", "irradiance_basis", "t_cell_basis")
                                       else bool if c == "day_valid" else "int64"
                                       if c.startswith("n_") or c == "inverter_no" else float)
                          for c in (*extra, *DAILY_COLUMNS)})
@@ -306,6 +321,18 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     n_pr = np.bincount(d, weights=in_pr, minlength=nd)
     modelled = ~np.isfinite(t_mod_meas) & has_t
     n_mod = np.bincount(d, weights=modelled, minlength=nd).astype(int)
+    # temperature basis over the PR intervals: measured, Sandia from ambient + wind, or
+    # Faiman from ambient alone (1 m/s) - stated per day (#11)
+    pr_t = in_pr & has_t
+    by_meas = np.bincount(d, weights=pr_t & np.isfinite(t_mod_meas), minlength=nd) > 0
+    by_sandia = np.bincount(d, weights=pr_t & modelled & np.isfinite(t_mod_sandia),
+                            minlength=nd) > 0
+    by_faiman = np.bincount(d, weights=pr_t & modelled & ~np.isfinite(t_mod_sandia),
+                            minlength=nd) > 0
+    t_basis = np.asarray(_T_BASIS_BY_MASK, dtype=object)[
+        by_meas.astype(int) + 2 * by_sandia.astype(int) + 4 * by_faiman.astype(int)]
+    irr_basis = np.asarray([getattr(x, "irradiance_basis", None) for x in inverters],
+                           dtype=object)
 
     # the model and the filters only where the sun is up (night is night: code 1)
     k = np.flatnonzero(sun_up)
@@ -313,9 +340,12 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     breaks = np.concatenate(([True], (np.diff(k) > 1) | (np.diff(inv_no[k]) != 0)))
     gs, ps, es, taus, ds, pmax_s = g[k], p[k], e[k], tau[k], d[k], p_max[k]
     p_exp = expected_ac_power(gpos[k], t_cell[k], p_dc[k], gamma[k], pmax_s, eta[k])
+    # clipping also judged from the unlimited expected power (analytics.filters, issue #13)
+    p_exp_free = expected_ac_power(gpos[k], t_cell[k], p_dc[k], gamma[k], pmax_s, eta[k],
+                                   limit=False)
     codes_s = flt.classify_intervals(gs, t_mod[k], ps, pmax_s,
                                      None if elev is None else elev[k], t_amb[k], wind[k], f,
-                                     run_breaks=breaks)
+                                     run_breaks=breaks, p_ac_exp_kw=p_exp_free)
     codes = np.full(n, flt.NIGHT, dtype=np.int8)
     codes[k] = codes_s
     valid = codes_s == flt.VALID
@@ -331,6 +361,17 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     w_day = np.bincount(ds, weights=w_cov, minlength=nd)
     cov = _div(np.bincount(ds, weights=np.where(covered, w_cov, 0.0), minlength=nd), w_day)
     frac_valid = _div(np.bincount(ds, weights=np.where(valid, w_cov, 0.0), minlength=nd), w_day)
+    # an index for degradation trends (issue #13): the valid set without the clipping zone
+    # judged from the expected power without the AC limit, a selection that does not move as
+    # the array degrades (analytics.filters); kept apart from pi, which the flags use
+    zone = p_exp_free >= f["trend_clip_expected_fraction"] * pmax_s
+    tvalid = valid & ~zone
+    e_ac_t = _sum_by(ds, es, tvalid, nd)
+    e_exp_t = _sum_by(ds, e_exp_k, tvalid, nd)
+    w_free = np.bincount(ds, weights=np.where(zone, 0.0, w_cov), minlength=nd)
+    frac_t = _div(np.bincount(ds, weights=np.where(tvalid, w_cov, 0.0), minlength=nd), w_free)
+    pi_t = _div(e_ac_t, e_exp_t)
+    ok_t = (cov >= f["min_coverage"]) & (frac_t >= f["min_valid_fraction"]) & np.isfinite(pi_t)
 
     base = (gs >= f["outage_poa_wm2"]) & np.isfinite(ps)
     unavail = base & unavailable_mask(ps, gs, pmax_s, f["outage_fraction"],
@@ -364,9 +405,12 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
         "t_daylight_h": t_daylight, "t_unavailable_h": t_unav, "e_lost_kwh": e_lost,
         "avail_time": np.where(t_daylight > 0, 1.0 - _div(t_unav, t_daylight), np.nan),
         "avail_energy": _div(e_base, e_base + e_lost), "t_clipped_h": t_clip,
-        "details_json": [_details(tuple(c), m, v) for c, m, v in zip(
-            counts.tolist(), n_mod.tolist(), np.round(frac_valid, 4).tolist(), strict=True)],
+        "details_json": [_details(tuple(c), m, v, t) for c, m, v, t in zip(
+            counts.tolist(), n_mod.tolist(), np.round(frac_valid, 4).tolist(),
+            zip(np.round(pi_t, 6).tolist(), ok_t.tolist(), np.round(e_ac_t, 4).tolist(),
+                np.round(e_exp_t, 4).tolist(), strict=True), strict=True)],
         "e_ac_pr_kwh": np.where(n_pr > 0, e_ac_pr, np.nan),
+        "irradiance_basis": irr_basis[group_inv], "t_cell_basis": t_basis,
     }, columns=["inverter_no", *DAILY_COLUMNS])
     # a day whose rows are all gaps (no reading at all) gets no row
     return out[n_int > 0].reset_index(drop=True) if (n_int == 0).any() else out

@@ -1,4 +1,4 @@
-"""Interval filters applied before PI, PR trends and degradation (METHODS §5, common practice).
+"""Interval filters applied before PI, PR trends and degradation (IEC 61724-1 filtering practice; common practice).
 
 Every interval gets one **reason code** (:data:`REASONS`); the first failing check in this
 order wins, so an interval excluded for two reasons is counted once, under the earlier one:
@@ -9,12 +9,27 @@ order wins, so an interval excluded for two reasons is counted once, under the e
  2  ``missing``          a needed input (power/energy, POA, module temperature) is missing
  3  ``out_of_range``     G, T_mod, T_amb, wind or P_ac outside its plausible range
  4  ``outage``           P_ac <= 1 % of the AC rating while G >= 50 W/m² (unavailable)
- 5  ``clipped``          P_ac >= 0.98 · P_ac,max (inverter at its AC limit; biases PI low)
+ 5  ``clipped``          P_ac >= 0.98 · P_ac,max (inverter at its AC limit; biases PI low), or
+                         the expected AC power without the limit >= ``clip_expected_fraction``
+                         · P_ac,max (off by default; 0.90 recommended for trends, see below)
  6  ``stuck``            a daytime flat line: >= 4 samples of G or P_ac changing by < 0.1 % of
                          span, or >= 8 samples of T_mod changing by < 0.05 °C
  7  ``low_irradiance``   G < 200 W/m² (low-light, AOI and cosine errors)
  8  ``high_irradiance``  G > 1200 W/m² (cloud enhancement, sensor error)
 ==  ===================  =====================================================================
+
+Why clipping is also judged from the expected power: a filter on the measured power alone
+selects a set of intervals that changes as the array degrades (a degraded array reaches its
+AC limit less often, so intervals whose expected power is at the limit enter the index with
+measured / capped-expected > the array's true ratio). Year after year more such intervals
+enter and the index falls more slowly than the array: an optimistic degradation bias that
+grows with the DC/AC ratio and the clearness of the site. Excluding the intervals whose
+*unlimited* expected AC power reaches 0.90 of the rating keeps the selection independent of
+the array's state for arrays up to ~9 % above their model (measured by the validation
+scorecard in tests/validation/, issue #13: year-on-year bias on a clear desert fleet with
+DC/AC 1.25-1.38 from +0.14 to -0.01 %/yr). The daily table applies it to a separate index
+for trends (``trend_clip_expected_fraction``); in ``pi``, which feeds the underperformance
+flags and needs the clear summer hours, it is off by default (``clip_expected_fraction``).
 
 Outage and clipping come before "stuck" because an inverter at 0 kW or at its limit reads
 flat by nature. Only ``night`` intervals are left out of the energy PR's intervals
@@ -39,7 +54,7 @@ VALID, NIGHT, MISSING, OUT_OF_RANGE, OUTAGE, CLIPPED, STUCK, LOW_IRR, HIGH_IRR =
 #: the others are states of the plant or of the sky.
 DATA_PROBLEMS: tuple[int, ...] = (MISSING, OUT_OF_RANGE, STUCK)
 
-#: Default thresholds (METHODS §5, common practice unless noted); site-configurable.
+#: Default thresholds (common practice unless noted; IEC 61724-1); site-configurable.
 DEFAULT_FILTERS: dict[str, float] = {
     "night_elevation_deg": 0.0,  # sun below the horizon = night
     "night_poa_wm2": 5.0,  # G below this = night
@@ -58,6 +73,13 @@ DEFAULT_FILTERS: dict[str, float] = {
     "outage_fraction": 0.01,  # P_ac <= this * P_ac,max with G >= outage_poa_wm2: unavailable
     "outage_poa_wm2": 50.0,  # also the daylight base of availability
     "clip_fraction": 0.98,  # P_ac >= this * P_ac,max: clipped
+    # unlimited expected P_ac >= this * P_ac,max: clipped too. Off (10) by default: 0.90 removes
+    # the degradation bias described above but leaves too few valid hours on clear summer days
+    # for the underperformance flags of high-DC/AC inverters (issue #13; a separate index for
+    # trends in the daily table is the way to have both). Sites may set it in [filters].
+    "clip_expected_fraction": 10.0,
+    # the same rule for the daily index of degradation trends (daily details "trend"), on
+    "trend_clip_expected_fraction": 0.90,
     "stuck_samples": 4.0,  # G / P_ac flat-line run length [samples]
     "stuck_rel_tol": 0.001,  # ... with |Δx| below this fraction of the sensor span
     "stuck_t_samples": 8.0,  # T_mod flat-line run length [samples]
@@ -172,7 +194,7 @@ def sun_and_clearsky(ts_utc, latitude_deg: float, longitude_deg: float, altitude
 
 def night_mask(solar_elevation_deg, poa_wm2, night_elevation_deg: float = 0.0,
                night_poa_wm2: float = 5.0):
-    """True at night: elevation < 0° or G < 5 W/m² (METHODS §5). NaN inputs do not make night.
+    """True at night: elevation < 0° or G < 5 W/m² (IEC 61724-1 practice). NaN inputs do not make night.
 
     Examples
     --------
@@ -211,7 +233,7 @@ def out_of_range_mask(x, lo: float, hi: float):
 
 
 def clipping_mask(p_ac_kw, p_ac_max_kw: float, clip_fraction: float = 0.98):
-    """True where P_ac >= ``clip_fraction`` · P_ac,max: the inverter limits its output (METHODS §5).
+    """True where P_ac >= ``clip_fraction`` · P_ac,max: the inverter limits its output (IEC 61724-1 practice).
 
     Examples
     --------
@@ -223,7 +245,7 @@ def clipping_mask(p_ac_kw, p_ac_max_kw: float, clip_fraction: float = 0.98):
 
 def stuck_mask(x, min_samples: int = 4, tol: float = 1.5, run_breaks=None):
     """True for samples inside a flat line: >= ``min_samples`` consecutive samples whose
-    successive differences are all below ``tol`` (METHODS §5). NaN breaks a run.
+    successive differences are all below ``tol`` (IEC 61724-1 practice). NaN breaks a run.
 
     Parameters
     ----------
@@ -261,7 +283,8 @@ def stuck_mask(x, min_samples: int = 4, tol: float = 1.5, run_breaks=None):
 
 
 def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_elevation_deg=None,
-                       t_amb_c=None, wind_ms=None, filters: dict | None = None, run_breaks=None):
+                       t_amb_c=None, wind_ms=None, filters: dict | None = None, run_breaks=None,
+                       p_ac_exp_kw=None):
     """Reason code of each interval (index into :data:`REASONS`; 0 = valid), first failing wins.
 
     Parameters
@@ -278,6 +301,10 @@ def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_e
         Overrides of :data:`DEFAULT_FILTERS`.
     run_breaks : bool array or None
         Passed to :func:`stuck_mask` (where the samples given are not contiguous in time).
+    p_ac_exp_kw : array, Series or None
+        Expected AC power *without* the inverter's limit (``expected_ac_power(...,
+        limit=False)``); intervals where it reaches ``clip_expected_fraction`` · P_ac,max are
+        ``clipped`` as well, so the selection does not drift as the array degrades. [kW]
 
     Returns
     -------
@@ -313,7 +340,12 @@ def classify_intervals(poa_wm2, t_module_c, p_ac_kw, p_ac_max_kw: float, solar_e
                                  f["wind_max_ms"])
     assign(rng, OUT_OF_RANGE)
     assign(unavailable_mask(p, g, p_ac_max_kw, f["outage_fraction"], f["outage_poa_wm2"]), OUTAGE)
-    assign(clipping_mask(p, p_ac_max_kw, f["clip_fraction"]), CLIPPED)
+    clip = clipping_mask(p, p_ac_max_kw, f["clip_fraction"])
+    if p_ac_exp_kw is not None:
+        pe = np.broadcast_to(_arr(p_ac_exp_kw), g.shape)
+        with np.errstate(invalid="ignore"):
+            clip = clip | (pe >= f["clip_expected_fraction"] * p_ac_max_kw)
+    assign(clip, CLIPPED)
     day = codes == VALID  # flat lines are looked for in the remaining daytime samples only
     g_span = f["poa_range_max_wm2"] - f["poa_range_min_wm2"]
     p_span = (f["p_ac_max_fraction"] - f["p_ac_min_fraction"]) * p_ac_max_kw
@@ -365,7 +397,7 @@ def coverage_fraction(poa_weight_wm2, valid, considered, interval_h=1.0) -> floa
 
 
 def day_valid(coverage, min_coverage: float = 0.8):
-    """A day enters trends when its coverage >= ``min_coverage`` (80 %, METHODS §5). NaN -> False.
+    """A day enters trends when its coverage >= ``min_coverage`` (80 %, IEC 61724-1 practice). NaN -> False.
 
     Examples
     --------

@@ -160,6 +160,24 @@ def peer_ratio(pi_wide: pd.DataFrame, *, min_peers: int = 5) -> pd.DataFrame:
     return out
 
 
+def own_history_ratio(pi_wide: pd.DataFrame, *, history_days: int = 90, lag_days: int = 30,
+                      min_days: int = 20) -> pd.DataFrame:
+    """Each inverter's daily ``pi`` over the median of its own valid ``pi`` in the
+    ``history_days`` calendar days that end ``lag_days`` before the day (NaN with fewer
+    than ``min_days`` valid days there). The lag keeps a fresh fault out of its own
+    reference for at least ``lag_days``.
+
+    Examples
+    --------
+    A step from 1.0 to 0.5 on day 100 gives a ratio 0.5 from day 100 to day 129 at least.
+    """
+    pw = pi_wide.sort_index()
+    idx = pd.DatetimeIndex(pw.index)
+    full = pw.reindex(pd.date_range(idx.min(), idx.max(), freq="D")) if len(idx) else pw
+    med = full.rolling(history_days, min_periods=min_days).median().shift(lag_days + 1)
+    return (full / med).reindex(pw.index)
+
+
 def persistent_low_events(low: pd.Series, valid: pd.Series, *, window: int = 5,
                           k_required: int = 3, clear_days: int = 3) -> list[tuple]:
     """Dated events from a daily "low" indicator with a persistence rule.
@@ -218,11 +236,24 @@ def _merge_close_events(events: list[tuple], gap_days: int) -> list[tuple]:
 
 
 def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = None,
-                           z_threshold: float = -3.0, min_deficit: float = 0.02,
+                           z_threshold: float = -3.0, min_deficit: float = 0.04,
                            min_peers: int = 5, window: int = 5, k_required: int = 3,
                            escalate_days: int = 14, clear_days: int = 3,
-                           merge_gap_days: int = 14, std_offset_s: int = 0) -> pd.DataFrame:
+                           merge_gap_days: int = 14, std_offset_s: int = 0,
+                           own_min_pi: float = 0.80, own_history_deficit: float = 0.10,
+                           history_days: int = 90, history_lag_days: int = 30,
+                           min_history_days: int = 20) -> pd.DataFrame:
     """Underperformance flags from the daily inverter table.
+
+    Groups of at least ``min_peers`` inverters use the **peer** basis (peer ratio and
+    robust z, below). Smaller groups cannot form a robust peer median (METHODS §9: ≥ 5
+    peers), so each inverter is compared with **its own expected power and its own
+    history** instead, and the flag says so (``details['basis']``): a day is low when its
+    ``pi`` is below ``own_min_pi`` (a 20 % shortfall against the expected-power model,
+    larger than the model's usual bias; common practice) or below (1 −
+    ``own_history_deficit``) × the median of its own valid ``pi`` over the
+    ``history_days`` days ending ``history_lag_days`` before (at least
+    ``min_history_days`` of them). The same persistence rule applies.
 
     Parameters
     ----------
@@ -235,8 +266,10 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
         A day is low when its robust z across peers is below this (METHODS §9: −3) ...
     min_deficit : float
         ... and its peer ratio is at least this far below 1 (a statistically clear but
-        tiny deficit, e.g. a 1 % nameplate mismatch, is not a field problem; common
-        practice). [-]
+        tiny deficit, e.g. a 1 % nameplate mismatch, the 2.2 % winter deficit of a healthy
+        inverter or the 3.3 % that a faster-degrading inverter (−1.2 against −0.7 %/yr)
+        reaches after four years, measured on generated fleets in issue #14, is not a field
+        event; one lost string of 12 is 8.3 %, of 24 4.2 %; common practice). [-]
     escalate_days : int
         Severity 'warning' becomes 'alarm' once an event spans this many days (METHODS §9).
     merge_gap_days : int
@@ -264,12 +297,25 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
     records = []
     for _g, cols in pd.Series(groups).groupby(pd.Series(groups)):
         cols = [c for c in cols.index if c in pi_wide.columns]
-        ratio = peer_ratio(pi_wide[cols], min_peers=min_peers)
-        z = robust_z(ratio, axis=1)
+        own = len(cols) < min_peers
+        if own:
+            ratio = own_history_ratio(pi_wide[cols], history_days=history_days,
+                                      lag_days=history_lag_days, min_days=min_history_days)
+            z = pd.DataFrame(np.nan, index=ratio.index, columns=cols)
+        else:
+            ratio = peer_ratio(pi_wide[cols], min_peers=min_peers)
+            z = robust_z(ratio, axis=1)
         for dev in cols:
             r, zd = ratio[dev], z[dev]
-            valid = r.notna() & zd.notna()
-            low = (zd < z_threshold) & (r < 1.0 - min_deficit)
+            if own:
+                pi_d = pi_wide[dev]
+                valid = pi_d.notna()
+                low = (pi_d < own_min_pi) | (r < 1.0 - own_history_deficit)
+                r = r.where(r.notna(), pi_d)  # the ratio reported: to history, else to model
+                zd = pd.Series(np.nan, index=r.index)
+            else:
+                valid = r.notna() & zd.notna()
+                low = (zd < z_threshold) & (r < 1.0 - min_deficit)
             events = _merge_close_events(persistent_low_events(
                 low, valid, window=window, k_required=k_required, clear_days=clear_days),
                 merge_gap_days)
@@ -288,13 +334,109 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
                         first_day=str(pd.Timestamp(first).date()),
                         last_day=str(pd.Timestamp(last).date()), n_days=n_days,
                         n_low_days=int(n_low), n_valid_days=int(rs.notna().sum()),
-                        median_peer_ratio=float(np.nanmedian(rs)),
-                        min_robust_z=float(np.nanmin(zs)),
-                        rule=(f"robust z < {z_threshold} and peer ratio < {1 - min_deficit:g} "
-                              f"on >= {k_required} of the last {window} valid days; cleared "
-                              f"after {clear_days} normal days; alarm from {escalate_days} days; "
-                              f"re-opened within {merge_gap_days} days = same event"),
-                        method="peer ratio to the peer-group median of daily pi; robust z "
-                               "with 1.4826 MAD (Iglewicz & Hoaglin 1993)",
+                        basis="own_expected_and_history" if own else "peers",
+                        n_peers=len(cols),
+                        median_peer_ratio=None if own else float(np.nanmedian(rs)),
+                        median_ratio_to_own=float(np.nanmedian(rs)) if own else None,
+                        min_robust_z=None if own else float(np.nanmin(zs)),
+                        rule=(f"group of {len(cols)} < {min_peers} peers: pi < {own_min_pi:g} "
+                              f"or pi < {1 - own_history_deficit:g} x own median pi of the "
+                              f"{history_days} days ending {history_lag_days} days before"
+                              if own else
+                              f"robust z < {z_threshold} and peer ratio < {1 - min_deficit:g}")
+                             + (f" on >= {k_required} of the last {window} valid days; cleared "
+                                f"after {clear_days} normal days; alarm from {escalate_days} "
+                                f"days; re-opened within {merge_gap_days} days = same event"),
+                        method=("own expected power (pi) and own history, too few peers for "
+                                "a peer median (METHODS §9 asks for >= 5)" if own else
+                                "peer ratio to the peer-group median of daily pi; robust z "
+                                "with 1.4826 MAD (Iglewicz & Hoaglin 1993)"),
                         caution=FIELD_CAUTION)))
+    return flag_frame(records)
+
+
+def input_mismatch_flags(p_dc_inputs: pd.DataFrame, input_kwp: dict, *, device_id: str,
+                         input_plane: dict | None = None, interval_h=None,
+                         min_deficit: float = 0.05, min_yield_kw_per_kwp: float = 0.1,
+                         window: int = 5, k_required: int = 3, clear_days: int = 3,
+                         min_day_kwh_per_kwp: float = 0.5, std_offset_s: int = 0
+                         ) -> pd.DataFrame:
+    """Inputs (MPPT trackers or string groups) of one inverter that yield persistently less
+    per kWp than their siblings on the same plane.
+
+    For input k on day d the specific yield is Y_k,d = Σ P_k τ / kWp_k over the intervals
+    where every input on its plane delivers at least ``min_yield_kw_per_kwp`` (10 % of
+    STC, so dawn, dusk and inverter stand-still do not count); its ratio is
+    R_k,d = Y_k,d / median_{j≠k} Y_j,d over its siblings on the same plane. A day is low
+    when R < 1 − ``min_deficit``; the persistence rule of :func:`persistent_low_events`
+    (≥ ``k_required`` of ``window`` days, cleared after ``clear_days`` normal days) makes
+    events (common practice: the peer-ratio idea of METHODS §9 applied inside one inverter,
+    where sky and sensor errors cancel exactly). Days with less than
+    ``min_day_kwh_per_kwp`` of sibling yield are skipped.
+
+    Parameters
+    ----------
+    p_dc_inputs : DataFrame
+        Index ``ts_utc``; one column per input id, DC power. [kW]
+    input_kwp : dict
+        input id -> DC nameplate of that input. [kWp]
+    input_plane : dict, optional
+        input id -> plane key (any hashable, e.g. (tilt, azimuth)); default: one plane.
+    interval_h : float or array, optional
+        Interval length; default from the index spacing. [h]
+
+    Returns
+    -------
+    Flag frame, kind 'input_mismatch', ``device_id`` the inverter; ``lost_kwh`` =
+    Σ_d (median sibling yield − Y_k,d) · kWp_k over the event's low days; details: input,
+    siblings, deficit (median 1 − R) and the plane.
+
+    Examples
+    --------
+    Three inputs of 10 kWp on one plane, input B at 91 % of A and C every day: one flag on
+    B with a 9 % deficit (tests/test_analytics_flag_rules.py).
+    """
+    if p_dc_inputs.empty or p_dc_inputs.shape[1] < 2:
+        return flag_frame([])
+    cols = [c for c in p_dc_inputs.columns if input_kwp.get(c, 0) > 0]
+    plane = input_plane or {c: "plane" for c in cols}
+    ts = epoch_s(p_dc_inputs.index)
+    if interval_h is None:
+        step = np.median(np.diff(ts)) if ts.size > 1 else 900
+        interval_h = step / 3600.0
+    tau = np.broadcast_to(np.asarray(interval_h, dtype=float), ts.shape)
+    day = (ts + int(std_offset_s)) // 86400
+    days = pd.to_datetime(np.unique(day) * 86400, unit="s")
+    records = []
+    for _pl, grp in pd.Series(plane).groupby(pd.Series(plane)):
+        ids = [c for c in grp.index if c in cols]
+        if len(ids) < 2:
+            continue
+        y = p_dc_inputs[ids].to_numpy(float) / np.array([input_kwp[c] for c in ids])
+        ok = np.all(y >= min_yield_kw_per_kwp, axis=1)
+        e = pd.DataFrame(np.where(ok[:, None], y * tau[:, None], 0.0), columns=ids)
+        yd = e.groupby(day).sum()
+        yd.index = days
+        for k in ids:
+            sib = yd[[c for c in ids if c != k]].median(axis=1)
+            r = yd[k] / sib.where(sib >= min_day_kwh_per_kwp)
+            valid = r.notna()
+            low = r < 1.0 - min_deficit
+            for first, last, n_low in persistent_low_events(
+                    low, valid, window=window, k_required=k_required, clear_days=clear_days):
+                span = (r.index >= first) & (r.index <= last) & low.to_numpy()
+                lost = float(((sib - yd[k])[span]).sum() * input_kwp[k])
+                records.append(dict(
+                    device_id=device_id, kind="input_mismatch",
+                    start_s=int(day_start_s([first], std_offset_s)[0]),
+                    end_s=int(day_start_s([last], std_offset_s)[0]) + 86400,
+                    severity="warning", lost_kwh=lost,
+                    details=dict(input=str(k), siblings=[str(c) for c in ids if c != k],
+                                 plane=str(_pl), deficit_pct=float(
+                                     100 * (1 - np.nanmedian(r[span]))),
+                                 n_low_days=int(n_low),
+                                 rule=f"specific yield < {1 - min_deficit:g} x median of the "
+                                      f"sibling inputs on the same plane on >= {k_required} "
+                                      f"of {window} days",
+                                 caution=FIELD_CAUTION)))
     return flag_frame(records)

@@ -64,7 +64,7 @@ def dc_power_pvwatts(poa_wm2, t_cell_c, p_dc_kwp: float, gamma_pmp_per_c: float,
 
 
 def ac_power_pvwatts(p_dc_kw, p_ac_max_kw: float, eta_inv_nom: float = 0.96,
-                     eta_inv_ref: float = 0.9637):
+                     eta_inv_ref: float = 0.9637, *, limit: bool = True):
     """Expected AC power through the PVWatts inverter curve, limited to the AC rating (Dobos 2014).
 
     Parameters
@@ -77,6 +77,9 @@ def ac_power_pvwatts(p_dc_kw, p_ac_max_kw: float, eta_inv_nom: float = 0.96,
         Nominal inverter efficiency (PVWatts default). [-]
     eta_inv_ref : float, default 0.9637
         Reference efficiency of the CEC curve used by PVWatts. [-]
+    limit : bool, default True
+        Cap at the AC rating. ``False`` gives what the inverter would deliver without its
+        limit, which tells the filters where clipping can occur whatever the array's state.
 
     Returns
     -------
@@ -100,12 +103,12 @@ def ac_power_pvwatts(p_dc_kw, p_ac_max_kw: float, eta_inv_nom: float = 0.96,
     with np.errstate(divide="ignore", invalid="ignore"):
         inv = np.where(pdc != 0, 0.0059 / np.where(zeta == 0, 1.0, zeta), 0.0)
     eta = eta_inv_nom / eta_inv_ref * (-0.0162 * zeta - inv + 0.9858)
-    pac = np.maximum(0.0, np.minimum(p_ac_max_kw, eta * pdc))  # NaN propagates
+    pac = np.maximum(0.0, np.minimum(p_ac_max_kw, eta * pdc) if limit else eta * pdc)  # NaN propagates
     return _restore_type(pac, p_dc_kw)
 
 
 def expected_ac_power(poa_wm2, t_cell_c, p_dc_kwp: float, gamma_pmp_per_c: float,
-                      p_ac_max_kw: float, eta_inv_nom: float = 0.96):
+                      p_ac_max_kw: float, eta_inv_nom: float = 0.96, *, limit: bool = True):
     """Expected AC power: :func:`dc_power_pvwatts` then :func:`ac_power_pvwatts` (Dobos 2014).
 
     Returns the expected AC power [kW] with the type of the inputs.
@@ -116,4 +119,5 @@ def expected_ac_power(poa_wm2, t_cell_c, p_dc_kwp: float, gamma_pmp_per_c: float
     96.0
     """
     p_dc = dc_power_pvwatts(poa_wm2, t_cell_c, p_dc_kwp, gamma_pmp_per_c)
-    return _restore_type(_arr(ac_power_pvwatts(p_dc, p_ac_max_kw, eta_inv_nom)), poa_wm2, t_cell_c)
+    return _restore_type(_arr(ac_power_pvwatts(p_dc, p_ac_max_kw, eta_inv_nom, limit=limit)),
+                         poa_wm2, t_cell_c)

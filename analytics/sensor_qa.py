@@ -102,7 +102,10 @@ def range_flags(x: pd.Series, *, device_id: str, quantity: str, lo: float | None
     v = x.to_numpy(float)
     recs = _events(
         m, x.index, tau_s, device_id=device_id, kind="sensor_range", merge_gap_s=3600,
-        severity_fn=lambda n, dur: "alarm" if dur >= 86400 else "warning",
+        # one to three isolated values are a data glitch (a corrupted line, a transmission
+        # error), information rather than a sensor to fix (issue #14; common practice)
+        severity_fn=lambda n, dur: ("alarm" if dur >= 86400 else "warning" if n >= 4
+                                    else "info"),
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, range=[lo, hi],
             min_value=float(np.nanmin(v[a:b + 1])), max_value=float(np.nanmax(v[a:b + 1])),
@@ -182,9 +185,14 @@ def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
     m = flatline_mask(x.to_numpy(float), daytime, min_run=min_run, abs_tol=abs_tol,
                       exclude=exclude, sun_ref=sun_ref)
     v = x.to_numpy(float)
+    # a calm overcast spell can hold the air within 0.05 °C for a few hours: a temperature
+    # flat line shorter than 6 h is information, not a sensor to fix (issue #14: two 2-h
+    # "flatlines" of a healthy ambient sensor; common practice)
+    short = 6 * 3600 if temp else 0
     recs = _events(
         m, x.index, tau_s, device_id=device_id, kind="sensor_flatline", merge_gap_s=18 * 3600,
-        severity_fn=lambda n, dur: "alarm" if dur > 86400 else "warning",
+        severity_fn=lambda n, dur: ("alarm" if dur > 86400 else "info" if dur < short
+                                    else "warning"),
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, stuck_value=float(np.nanmedian(v[a:b + 1][m[a:b + 1]])),
             rule=f"daytime run of >= {min_run} samples without change (METHODS §5)"))
@@ -342,3 +350,473 @@ def drift_flags(daily_ratio: pd.Series, *, device_id: str, method: str,
     return flag_frame([dict(device_id=device_id, kind="sensor_drift", start_s=start, end_s=end,
                             severity="alarm" if abs(rate) > 2 * threshold_pct_per_yr
                             else "warning", lost_kwh=np.nan, details=details)])
+
+
+# ---------------------------------------------------------------- plausibility before diagnosis
+#
+# Every sensor is judged first, day by day (local standard days), before any diagnosis that
+# divides by it or times it (issue #14: a reference cell stuck at 3.0 W/m² for months became
+# seven "clock shift" alarms and a drift alarm; a module sensor reading −19 °C in July was
+# used in every calculation). A day on which a sensor is judged faulty is excluded from PR,
+# filters, clock, drift, soiling and outage evidence, and the exclusion is reported with its
+# reason. The rules look at one day at a time, so the daily job can apply them to any range.
+
+#: Reason codes of :func:`irradiance_validity` / :func:`module_temperature_validity`.
+VALIDITY_REASONS = {
+    "stuck": "constant while the sun moved (dead or stuck sensor)",
+    "night_reading": "reads light at night, beyond a thermopile's offset",
+    "low_vs_power": "reads far less than the array's own power implies",
+    "out_of_range": "outside physical limits",
+    "colder_than_ambient": "module colder than ambient air in full sun",
+    "implausible_vs_model": "module temperature far from the value expected from ambient and "
+                            "irradiance (Sandia module model)",
+}
+
+
+def _day_index(index: pd.DatetimeIndex, std_offset_s: int) -> tuple[np.ndarray, np.ndarray]:
+    day = (_ts_s(index) + int(std_offset_s)) // 86400
+    if day.size == 0:
+        return day, day
+    d0 = int(day.min())
+    return day - d0, np.arange(int(day.max()) - d0 + 1) + d0
+
+
+def _days_frame(uday: np.ndarray, invalid: dict[str, np.ndarray]) -> pd.DataFrame:
+    """Day table (index: local standard day Timestamps) with 'valid' and the first reason."""
+    reason = np.full(uday.size, "", dtype=object)
+    for name, m in invalid.items():  # dict order = priority: the first reason found wins
+        reason[(reason == "") & m] = name
+    return pd.DataFrame({"valid": reason == "", "reason": reason},
+                        index=pd.to_datetime(uday * 86400, unit="s"))
+
+
+def irradiance_validity(g: pd.Series, solar_elevation_deg, poa_clearsky_wm2, *,
+                        std_offset_s: int = 0, p_norm=None, day_elev_deg: float = 15.0,
+                        night_elev_deg: float = -12.0, night_max_wm2: float = 5.0,
+                        min_night_samples: int = 2, stuck_tol_wm2: float = 0.5,
+                        min_day_samples: int = 4, low_share: float = 0.5,
+                        min_p_norm: float = 0.2, low_factor: float = 0.25,
+                        range_wm2=(-10.0, 1500.0)) -> pd.DataFrame:
+    """Judge an irradiance sensor day by day.
+
+    A local standard day is **invalid** for the sensor when
+
+    * ``stuck``: its daytime readings (sun ≥ ``day_elev_deg``, at least
+      ``min_day_samples`` of them) span at most ``stuck_tol_wm2`` while the modelled
+      clear-sky POA changed by more than half its peak (a dead cell at 3.0 W/m², a frozen
+      logger value; METHODS §5 flatline idea applied to a whole day);
+    * ``night_reading``: at least ``min_night_samples`` readings ≥ ``night_max_wm2`` with
+      the sun below ``night_elev_deg`` (−12°, nautical dusk: a thermopile's night offset is
+      a few W/m² *negative*, METHODS §10; the deep-night gate keeps a clock error of an hour
+      out of this rule, so the clock check still sees it);
+    * ``low_vs_power``: on at least ``low_share`` of the daytime intervals where the array
+      produces at least ``min_p_norm`` of its DC rating, the sensor reads less than
+      ``low_factor`` × the irradiance that power implies (1000 W/m² · P_ac / P_dc,STC): the
+      sensor is covered, dead or unplugged while the array works (common practice);
+    * ``out_of_range``: more than half of its daytime readings are outside ``range_wm2``.
+
+    Parameters
+    ----------
+    g : Series
+        Irradiance readings, index ``ts_utc``. [W/m²]
+    solar_elevation_deg, poa_clearsky_wm2 : array-like
+        On the same rows. [°], [W/m²]
+    p_norm : array-like, optional
+        Measured AC power / DC rating of the array(s) on this sensor (median across
+        inverters) on the same rows. [kW/kWp]
+
+    Returns
+    -------
+    DataFrame indexed by local standard day: ``valid`` (bool) and ``reason`` (a key of
+    :data:`VALIDITY_REASONS`, '' when valid).
+
+    Examples
+    --------
+    A cell reading exactly 3.0 W/m² all day is ``stuck``; the same day with a normal
+    profile is valid (see tests/test_analytics_sensor_qa.py).
+    """
+    code, uday = _day_index(g.index, std_offset_s)
+    n = uday.size
+    if n == 0:
+        return _days_frame(uday, {})
+    x = g.to_numpy(float)
+    el = np.asarray(solar_elevation_deg, dtype=float)
+    cs = np.nan_to_num(np.asarray(poa_clearsky_wm2, dtype=float))
+    fin = np.isfinite(x)
+    day = (el >= day_elev_deg) & fin
+    nd = np.bincount(code, weights=day, minlength=n)
+    xd = np.where(day, x, np.nan)
+    s = pd.Series(xd)
+    mx = s.groupby(code).max().reindex(range(n)).to_numpy(float)
+    mn = s.groupby(code).min().reindex(range(n)).to_numpy(float)
+    c = pd.Series(np.where(day, cs, np.nan)).groupby(code)
+    cmx = c.max().reindex(range(n)).to_numpy(float)
+    cmn = c.min().reindex(range(n)).to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        stuck = (nd >= min_day_samples) & (mx - mn <= stuck_tol_wm2) & (cmx - cmn > 0.5 * cmx)
+        night = (el < night_elev_deg) & fin & (x >= night_max_wm2)
+    night_n = np.bincount(code, weights=night, minlength=n) >= min_night_samples
+    with np.errstate(invalid="ignore"):
+        oor = day & ((x < range_wm2[0]) | (x > range_wm2[1]))
+    oor_d = np.bincount(code, weights=oor, minlength=n) > 0.5 * np.maximum(nd, 1)
+    low_d = np.zeros(n, dtype=bool)
+    if p_norm is not None:
+        pn = np.asarray(p_norm, dtype=float)
+        with np.errstate(invalid="ignore"):
+            prod = day & (pn >= min_p_norm)
+            low = prod & (x < low_factor * 1000.0 * pn)
+        n_prod = np.bincount(code, weights=prod, minlength=n)
+        low_d = (n_prod >= min_day_samples) & (
+            np.bincount(code, weights=low, minlength=n) >= low_share * n_prod)
+    return _days_frame(uday, {"out_of_range": oor_d, "stuck": stuck,
+                              "night_reading": night_n, "low_vs_power": low_d})
+
+
+def module_temperature_validity(t_mod: pd.Series, *, poa_wm2=None, t_amb_c=None,
+                                t_mod_model_c=None, std_offset_s: int = 0,
+                                full_sun_wm2: float = 600.0, colder_margin_c: float = 2.0,
+                                model_margin_c: float = 20.0, share: float = 0.5,
+                                min_samples: int = 4, stuck_tol_c: float = 0.05,
+                                day_mask=None, range_c=(-40.0, 90.0)) -> pd.DataFrame:
+    """Judge a back-of-module temperature sensor day by day.
+
+    A local standard day is invalid when, among its full-sun intervals (POA ≥
+    ``full_sun_wm2``, at least ``min_samples``), at least ``share`` have the module
+
+    * ``colder_than_ambient``: more than ``colder_margin_c`` below the ambient air (a lit
+      module runs 15–30 °C above ambient; King et al. 2004, Eq. 11 with the open-rack
+      parameters gives ≈ +25 °C at 1000 W/m² and 1 m/s), or
+    * ``implausible_vs_model``: more than ``model_margin_c`` from the Sandia module
+      temperature expected from ambient, irradiance and wind (``t_mod_model_c``);
+
+    or when all its daytime readings (``day_mask``) vary by at most ``stuck_tol_c``
+    (``stuck``, METHODS §5: |ΔT| < 0.05 °C), or more than half are outside ``range_c``.
+
+    Returns
+    -------
+    DataFrame indexed by local standard day: ``valid``, ``reason``.
+    """
+    code, uday = _day_index(t_mod.index, std_offset_s)
+    n = uday.size
+    if n == 0:
+        return _days_frame(uday, {})
+    t = t_mod.to_numpy(float)
+    fin = np.isfinite(t)
+    inv: dict[str, np.ndarray] = {}
+    dm = fin if day_mask is None else (np.asarray(day_mask, dtype=bool) & fin)
+    nd = np.bincount(code, weights=dm, minlength=n)
+    with np.errstate(invalid="ignore"):
+        oor = dm & ((t < range_c[0]) | (t > range_c[1]))
+    inv["out_of_range"] = np.bincount(code, weights=oor, minlength=n) > 0.5 * np.maximum(nd, 1)
+    s = pd.Series(np.where(dm, t, np.nan)).groupby(code)
+    rng = (s.max() - s.min()).reindex(range(n)).to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        inv["stuck"] = (nd >= 2 * min_samples) & (rng <= stuck_tol_c)
+    if poa_wm2 is not None:
+        g = np.asarray(poa_wm2, dtype=float)
+        with np.errstate(invalid="ignore"):
+            sun = fin & (g >= full_sun_wm2)
+        n_sun = np.bincount(code, weights=sun, minlength=n)
+        enough = n_sun >= min_samples
+        if t_amb_c is not None:
+            ta = np.asarray(t_amb_c, dtype=float)
+            with np.errstate(invalid="ignore"):
+                cold = sun & (t < ta - colder_margin_c)
+            inv["colder_than_ambient"] = enough & (
+                np.bincount(code, weights=cold, minlength=n) >= share * n_sun)
+        if t_mod_model_c is not None:
+            tm = np.asarray(t_mod_model_c, dtype=float)
+            with np.errstate(invalid="ignore"):
+                far = sun & (np.abs(t - tm) > model_margin_c)
+            inv["implausible_vs_model"] = enough & (
+                np.bincount(code, weights=far, minlength=n) >= share * n_sun)
+    return _days_frame(uday, inv)
+
+
+def invalid_interval_mask(index: pd.DatetimeIndex, days: pd.DataFrame, *,
+                          std_offset_s: int = 0) -> np.ndarray:
+    """True on the intervals of ``index`` whose local standard day is invalid in ``days``
+    (the table of :func:`irradiance_validity` / :func:`module_temperature_validity`)."""
+    if len(index) == 0 or days.empty or days["valid"].all():
+        return np.zeros(len(index), dtype=bool)
+    day = (_ts_s(index) + int(std_offset_s)) // 86400
+    bad = _ts_s(pd.DatetimeIndex(days.index[~days["valid"].to_numpy(bool)])) // 86400
+    return np.isin(day, bad)
+
+
+def validity_flags(days: pd.DataFrame, *, device_id: str, quantity: str,
+                   std_offset_s: int = 0, max_gap_days: int = 3,
+                   excluded_from: tuple[str, ...] = ("pr", "filters", "degradation", "clock",
+                                                     "drift", "soiling", "outage"),
+                   ) -> pd.DataFrame:
+    """One 'sensor_implausible' flag per run of invalid days with the same reason.
+
+    Runs with the same reason separated by at most ``max_gap_days`` valid or missing days
+    are one event (a dead cell that reads normal on one overcast day is still dead).
+    Severity 'alarm' from 7 days, else 'warning'. The details say what the reason means,
+    the days excluded and from which calculations.
+    """
+    bad = days[~days["valid"].to_numpy(bool)]
+    if bad.empty:
+        return flag_frame([])
+    recs = []
+    d = pd.DatetimeIndex(bad.index)
+    reasons = bad["reason"].to_numpy(object)
+    start = 0
+    for i in range(1, len(d) + 1):
+        if i < len(d) and reasons[i] == reasons[start] and (
+                (d[i] - d[i - 1]).days <= max_gap_days + 1):
+            continue
+        first, last, why = d[start], d[i - 1], reasons[start]
+        n_days = int(i - start)
+        s0 = int(_ts_s(pd.DatetimeIndex([first]))[0]) - int(std_offset_s)
+        e0 = int(_ts_s(pd.DatetimeIndex([last]))[0]) - int(std_offset_s) + 86400
+        recs.append(dict(
+            device_id=device_id, kind="sensor_implausible", start_s=s0, end_s=e0,
+            severity="alarm" if (last - first).days + 1 >= 7 else "warning", lost_kwh=np.nan,
+            details=dict(quantity=quantity, reason=why, meaning=VALIDITY_REASONS.get(why, why),
+                         first_day=str(first.date()), last_day=str(last.date()),
+                         n_days_excluded=n_days, excluded_from=list(excluded_from),
+                         note="readings of these days are left out of every calculation "
+                              "named in excluded_from; check, clean, re-seat or replace the "
+                              "sensor")))
+        start = i
+    return flag_frame(recs)
+
+
+def ambient_offset(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c, solar_elevation_deg,
+                   poa_wm2, *, night_elev_deg: float = -12.0, full_sun_wm2: float = 600.0,
+                   min_samples: int = 200) -> dict:
+    """How far the ambient sensor disagrees with the module sensor(s), night and day.
+
+    At night (sun below ``night_elev_deg``) an unlit module sits at or a few degrees below
+    the air (radiative sky cooling); in full sun the measured module temperature should
+    match the Sandia module model driven by the ambient reading (King et al. 2004, Eq. 11).
+    An ambient sensor reading Δ too high shows as T_amb − T_mod ≈ Δ + (0…3) °C at night
+    *and* as T_mod − T_model ≈ −Δ in full sun; both are medians over the period.
+
+    Returns
+    -------
+    dict with ``night_diff_c`` (median T_amb − T_mod at night), ``day_residual_c`` (median
+    T_mod − T_model in full sun), ``n_night``, ``n_day`` (NaN medians with fewer than
+    ``min_samples`` samples).
+    """
+    ta = t_amb_c.to_numpy(float)
+    tm = t_mod_c.reindex(t_amb_c.index).to_numpy(float)
+    el = np.asarray(solar_elevation_deg, dtype=float)
+    g = np.asarray(poa_wm2, dtype=float)
+    model = np.asarray(t_mod_model_c, dtype=float)
+    with np.errstate(invalid="ignore"):
+        night = (el < night_elev_deg) & np.isfinite(ta) & np.isfinite(tm)
+        day = (g >= full_sun_wm2) & np.isfinite(tm) & np.isfinite(model)
+    nd = (ta - tm)[night]
+    dr = (tm - model)[day]
+    return dict(night_diff_c=float(np.median(nd)) if nd.size >= min_samples else np.nan,
+                day_residual_c=float(np.median(dr)) if dr.size >= min_samples else np.nan,
+                n_night=int(nd.size), n_day=int(dr.size))
+
+
+def ambient_offset_flags(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c,
+                         solar_elevation_deg, poa_wm2, *, device_id: str,
+                         module_sensor: str, night_max_c: float = 4.0,
+                         day_max_c: float = 3.0, min_days: int = 30, **kw) -> pd.DataFrame:
+    """A 'sensor_implausible' flag (reason ``ambient_offset``) on an ambient sensor that
+    reads high (or low) against a module sensor both at night and in full sun.
+
+    Flagged when the night median T_amb − T_mod exceeds ``night_max_c`` and the full-sun
+    median T_mod − T_model is below −``day_max_c`` (ambient too high), or the night median
+    is below −``night_max_c`` and the day residual above ``day_max_c`` (too low); both
+    over at least ``min_days`` days of data (common practice; sky cooling keeps the normal
+    night difference within about 0…3 °C). The estimated offset is minus the day residual.
+    """
+    if t_amb_c.notna().sum() == 0 or t_mod_c.notna().sum() == 0:
+        return flag_frame([])
+    ts = _ts_s(t_amb_c.index)
+    if ts.size == 0 or ts[-1] - ts[0] < min_days * 86400:
+        return flag_frame([])
+    r = ambient_offset(t_amb_c, t_mod_c, t_mod_model_c, solar_elevation_deg, poa_wm2, **kw)
+    nd, dr = r["night_diff_c"], r["day_residual_c"]
+    if not (np.isfinite(nd) and np.isfinite(dr)):
+        return flag_frame([])
+    high = nd > night_max_c and dr < -day_max_c
+    low = nd < -night_max_c and dr > day_max_c
+    if not (high or low):
+        return flag_frame([])
+    return flag_frame([dict(
+        device_id=device_id, kind="sensor_implausible", start_s=int(ts[0]),
+        end_s=int(ts[-1]) + 900, severity="warning", lost_kwh=np.nan,
+        details=dict(quantity="t_amb_c", reason="ambient_offset",
+                     meaning=f"ambient reads about {-dr:+.1f} °C against module sensor "
+                             f"{module_sensor} (night and full-sun evidence agree)",
+                     offset_c=-dr, night_diff_c=nd, day_residual_c=dr,
+                     n_night=r["n_night"], n_day=r["n_day"], module_sensor=module_sensor,
+                     rule=f"night median T_amb - T_mod > {night_max_c:g} C and full-sun "
+                          f"median T_mod - T_model < -{day_max_c:g} C (or the reverse); "
+                          "T_model: Sandia module model (King et al. 2004, Eq. 11)",
+                     note="modelled cell temperatures from this ambient sensor are biased; "
+                          "check the radiation shield and the sensor's calibration"))])
+
+
+def frame_sensor_validity(frame: pd.DataFrame, solar_elevation_deg, poa_clearsky_wm2, *,
+                          p_dc_kwp: float, std_offset_s: int = 0, a: float = -3.56,
+                          b: float = -0.0750) -> tuple[np.ndarray, np.ndarray]:
+    """Invalid-interval masks of one inverter frame's POA and module-temperature readings.
+
+    The per-day rules of :func:`irradiance_validity` (with the inverter's own AC power per
+    kWp as the power evidence) and :func:`module_temperature_validity` (ambient and the
+    Sandia module model, King et al. 2004 Eq. 11, with coefficients ``a``, ``b``), turned
+    into interval masks. Used by the daily job to leave a faulty sensor's days out of PR
+    and filters, and by the flags job before any diagnosis.
+
+    Returns
+    -------
+    (poa_invalid, t_module_invalid): bool arrays on the frame's rows.
+    """
+    from analytics.temperature import module_temperature_sandia
+
+    n = len(frame)
+    if n == 0:
+        return np.zeros(0, bool), np.zeros(0, bool)
+    el = np.asarray(solar_elevation_deg, dtype=float)
+    p_norm = None
+    if "p_ac_kw" in frame and p_dc_kwp > 0:
+        p_norm = frame["p_ac_kw"].to_numpy(float) / float(p_dc_kwp)
+    g_bad = np.zeros(n, bool)
+    if "poa_wm2" in frame and frame["poa_wm2"].notna().any():
+        days = irradiance_validity(frame["poa_wm2"], el, poa_clearsky_wm2, p_norm=p_norm,
+                                   std_offset_s=std_offset_s)
+        g_bad = invalid_interval_mask(frame.index, days, std_offset_s=std_offset_s)
+    t_bad = np.zeros(n, bool)
+    if "t_module_c" in frame and frame["t_module_c"].notna().any():
+        g = np.where(g_bad, np.nan, frame["poa_wm2"].to_numpy(float)) if "poa_wm2" in frame \
+            else None
+        ta = frame["t_amb_c"].to_numpy(float) if "t_amb_c" in frame else None
+        model = None
+        if g is not None and ta is not None and np.isfinite(ta).any():
+            wind = (frame["wind_ms"].fillna(1.0).to_numpy(float) if "wind_ms" in frame
+                    else 1.0)
+            model = np.asarray(module_temperature_sandia(np.nan_to_num(g), ta, wind, a=a, b=b),
+                               dtype=float)
+        days = module_temperature_validity(frame["t_module_c"], poa_wm2=g, t_amb_c=ta,
+                                           t_mod_model_c=model, std_offset_s=std_offset_s,
+                                           day_mask=el >= 15.0)
+        t_bad = invalid_interval_mask(frame.index, days, std_offset_s=std_offset_s)
+    return g_bad, t_bad
+
+
+def level_step(daily_ratio: pd.Series, *, min_side: int = 20, min_step: float = 0.03
+               ) -> dict | None:
+    """The largest persistent level step of a daily ratio (two sibling sensors, or a sensor
+    and clear sky): the day that best splits the series into two medians, kept when the
+    relative step |m_after / m_before − 1| reaches ``min_step`` with at least ``min_side``
+    days on each side (a sensor swapped, re-levelled or knocked; common practice).
+
+    Returns
+    -------
+    dict with ``day`` (first day after the step), ``step`` (relative, signed),
+    ``before``, ``after`` (medians), or None.
+
+    Examples
+    --------
+    A ratio of 1.00 for 40 days and 0.95 for 40 days gives step −0.05 on day 40.
+    """
+    s = daily_ratio.dropna()
+    n = len(s)
+    if n < 2 * min_side:
+        return None
+    v = s.to_numpy(float)
+    best, best_cost = None, np.inf
+    for k in range(min_side, n - min_side + 1, max(1, (n - 2 * min_side) // 200 or 1)):
+        a, b = v[:k], v[k:]
+        cost = np.abs(a - np.median(a)).sum() + np.abs(b - np.median(b)).sum()
+        if cost < best_cost:
+            best, best_cost = k, cost
+    m0, m1 = float(np.median(v[:best])), float(np.median(v[best:]))
+    step = m1 / m0 - 1.0 if m0 else np.nan
+    # abrupt, not a drift: the medians of the min_side days either side step as well
+    l0, l1 = float(np.median(v[best - min_side:best])), float(np.median(v[best:best + min_side]))
+    local = l1 / l0 - 1.0 if l0 else np.nan
+    if not (np.isfinite(step) and np.isfinite(local)) or min(abs(step), abs(local)) < min_step:
+        return None
+    return dict(day=pd.Timestamp(s.index[best]), step=step, before=m0, after=m1)
+
+
+def sibling_jump_flags(ratios: dict[str, pd.Series], *, std_offset_s: int = 0,
+                       min_step: float = 0.03) -> pd.DataFrame:
+    """A 'sensor_implausible' flag (reason ``jump_vs_sibling``) where the ratio of two
+    irradiance sensors' clear-day readings steps by ``min_step`` or more and stays there.
+
+    The suspect is the sensor whose own clear-sky ratio shows the larger step at that day
+    (the sky does not jump). The readings are not excluded (a re-levelled sensor may be
+    right afterwards); the flag says from when the two disagree.
+    """
+    recs = []
+    ids = sorted(ratios)
+    for i, a in enumerate(ids):
+        for b in ids[i + 1:]:
+            q = (ratios[a] / ratios[b].reindex(ratios[a].index)).dropna()
+            st = level_step(q, min_step=min_step)
+            if st is None:
+                continue
+            own = {}
+            for sid in (a, b):
+                r = ratios[sid].dropna()
+                before = r[r.index < st["day"]].tail(60)
+                after = r[r.index >= st["day"]].head(60)
+                own[sid] = (abs(np.median(after) / np.median(before) - 1)
+                            if len(before) >= 5 and len(after) >= 5 else 0.0)
+            suspect = max(own, key=own.get)
+            s0 = int(_ts_s(pd.DatetimeIndex([st["day"]]))[0]) - int(std_offset_s)
+            e0 = int(_ts_s(pd.DatetimeIndex([q.index[-1]]))[0]) - int(std_offset_s) + 86400
+            recs.append(dict(
+                device_id=suspect, kind="sensor_implausible", start_s=s0, end_s=e0,
+                severity="warning", lost_kwh=np.nan,
+                details=dict(quantity="poa_wm2", reason="jump_vs_sibling",
+                             meaning=f"clear-day ratio {a}/{b} steps by {100 * st['step']:+.1f} % "
+                                     f"on {st['day'].date()} and stays",
+                             pair=[a, b], step_pct=100 * st["step"],
+                             own_clear_sky_step_pct={k: 100 * v for k, v in own.items()},
+                             rule=f"median split of the daily clear-day ratio of two sensors, "
+                                  f"|step| >= {100 * min_step:g} % with >= 20 days each side",
+                             note="check the sensors' mounting, levelling and calibration; "
+                                  "split degradation series at this day")))
+    return flag_frame(recs)
+
+
+def clear_sky_level_flags(daily_ratio: pd.Series, *, device_id: str, lo: float = 0.8,
+                          hi: float = 1.2, window: int = 15, min_days: int = 10,
+                          std_offset_s: int = 0) -> pd.DataFrame:
+    """A 'sensor_implausible' flag (reason ``off_clear_sky``) where a POA sensor's clear-day
+    readings sit outside [``lo``, ``hi``] × the modelled clear-sky POA.
+
+    Clear-sky models carry 5–10 % bias (METHODS §10), so only a gross disagreement counts:
+    the rolling median of ``window`` clear days outside ±20 % for at least ``min_days``
+    clear days (a wrong scale factor, a sensor on the wrong plane, a covered or dead cell
+    that still reads something; common practice). Report only: the level of a sensor is
+    for a calibration to settle, the clock and drift checks use its shape and trend.
+    """
+    r = daily_ratio.dropna()
+    if len(r) < min_days:
+        return flag_frame([])
+    med = r.rolling(window, center=True, min_periods=min(min_days, window)).median()
+    out_m = ((med < lo) | (med > hi)).to_numpy()
+    recs = []
+    for a, b in _true_runs(out_m):
+        if b - a + 1 < min_days:
+            continue
+        seg = med.iloc[a:b + 1]
+        s0 = int(_ts_s(pd.DatetimeIndex([r.index[a]]))[0]) - int(std_offset_s)
+        e0 = int(_ts_s(pd.DatetimeIndex([r.index[b]]))[0]) - int(std_offset_s) + 86400
+        level = float(np.median(seg))
+        recs.append(dict(
+            device_id=device_id, kind="sensor_implausible", start_s=s0, end_s=e0,
+            severity="warning", lost_kwh=np.nan,
+            details=dict(quantity="poa_wm2", reason="off_clear_sky",
+                         meaning=f"reads {100 * (level - 1):+.0f} % against modelled clear-sky "
+                                 "POA on clear days",
+                         median_clear_day_ratio=level, n_clear_days=int(b - a + 1),
+                         rule=f"{window}-clear-day median of measured / clear-sky POA outside "
+                              f"[{lo:g}, {hi:g}] for >= {min_days} clear days",
+                         note="check the sensor's plane (tilt, azimuth), its calibration "
+                              "factor and its unit")))
+    return flag_frame(recs)

@@ -155,8 +155,8 @@ def detect_cleanings(pi: pd.Series, *, rain_mm: pd.Series | None = None,
     return out.sort_index()
 
 
-def soiling_intervals(pi: pd.Series, cleanings, *, min_days: int = 10,
-                      alpha: float = 0.95) -> pd.DataFrame:
+def soiling_intervals(pi: pd.Series, cleanings, *, min_days: int = 14,
+                      alpha: float = 0.95, min_rate_per_day: float = 0.0004) -> pd.DataFrame:
     """Theil–Sen soiling rate of each dry interval between cleanings.
 
     Parameters
@@ -166,9 +166,18 @@ def soiling_intervals(pi: pd.Series, cleanings, *, min_days: int = 10,
     cleanings : sequence of days
         First clean days; each starts a new interval (so does the first day of ``pi``).
     min_days : int
-        Intervals with fewer valid days are treated as unsoiled (METHODS §8). [d]
+        Intervals with fewer valid days are treated as unsoiled (METHODS §8 suggests about
+        10; 14 here, issue #14: a two-week weather regime in a clean fleet gave a 12-day
+        "soiling" interval of −0.24 %/day between two pi steps; common practice). [d]
     alpha : float
-        Confidence of the slope interval (``theilslopes(..., alpha)``).
+        Confidence of the slope interval (``theilslopes(..., alpha)``). An interval counts
+        as soiled only when the whole interval lies below zero (issue #14: soiling flags on
+        generated fleets without soiling came from slopes indistinguishable from zero).
+    min_rate_per_day : float
+        ... and the rate is at least this steep (0.04 %/day: a seasonal model artefact of
+        ±1.5 % a year changes pi by at most 0.026 %/day, while soiling rates of
+        0.05–0.4 %/day are typical of dry climates; Deceglie et al. 2018 report rates of
+        that order, from memory). Slower soiling is left to the degradation analysis. [1/day]
 
     Returns
     -------
@@ -197,10 +206,10 @@ def soiling_intervals(pi: pd.Series, cleanings, *, min_days: int = 10,
             res = stats.theilslopes(seg.to_numpy(float), x, alpha=alpha, method="separate")
             level = res.intercept  # line value at x = 0 (interval start)
             row["clean_level"] = float(level)
-            if res.slope < 0 and level > 0:
+            if level > 0 and res.high_slope < 0 and res.slope / level <= -min_rate_per_day:
                 row.update(soiling_rate_per_day=float(res.slope / level),
                            rate_low=float(res.low_slope / level),
-                           rate_high=float(min(res.high_slope, 0.0) / level), soiled=True)
+                           rate_high=float(res.high_slope / level), soiled=True)
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -263,10 +272,27 @@ def soiling_ratio_insolation_weighted_mc(index, intervals: pd.DataFrame, h_kwhm2
                 n_runs=int(n_runs))
 
 
+def soiling_site_summary(sr_weighted: float, mc: dict, days) -> dict:
+    """The site's insolation-weighted soiling ratio over the whole period, for every soiling
+    flag: the point estimate is the full-recovery value (a cleaning or a rain of at least the
+    threshold restores the clean level; Deceglie et al. 2018, step 4 with full recovery) and
+    the interval is the Monte-Carlo one, widened to contain the point where partial
+    recoveries pull it below (so the point is always inside its interval)."""
+    lo = mc.get("soiling_ratio_weighted_low", sr_weighted)
+    hi = mc.get("soiling_ratio_weighted_high", sr_weighted)
+    point = float(sr_weighted)
+    return dict(soiling_ratio_weighted=point,
+                soiling_ratio_weighted_low=float(min(lo, point)),
+                soiling_ratio_weighted_high=float(max(hi, point)),
+                soiling_loss_pct=100.0 * (1.0 - point),
+                soiling_ratio_weighted_period=[str(pd.Timestamp(days[0]).date()),
+                                               str(pd.Timestamp(days[-1]).date())])
+
+
 def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
                   rain_mm: pd.Series | None = None, tariff_per_kwh: float = 0.05,
                   cleaning_cost: float = 0.0, currency: str = "EUR",
-                  window: int = 7, min_days: int = 10, rain_threshold_mm: float = 5.0,
+                  window: int = 7, min_days: int = 14, rain_threshold_mm: float = 5.0,
                   min_loss: float = 0.01, horizon_days: int = 30, n_runs: int = 1000,
                   std_offset_s: int = 0, device_id: str | None = None) -> pd.DataFrame:
     """Soiling and cleaning flags of a site from its daily series.
@@ -284,7 +310,8 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
     tariff_per_kwh, cleaning_cost, currency
         Site economics (configuration ``[economics]``).
     min_loss : float
-        A dry interval is flagged when its soiling loss reaches this at its end. [-]
+        A dry interval is flagged when its soiling loss reaches this at its end, also when
+        computed with the shallow end of the rate's 95 % interval. [-]
     horizon_days : int
         Look-ahead for the cleaning recommendation: cleaning now is worth it when the
         current loss, held over this horizon, costs more than a cleaning,
@@ -294,7 +321,8 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
     Returns
     -------
     DataFrame with :data:`~analytics.outliers.FLAG_COLUMNS`: kind 'cleaning' (info) for
-    each detected cleaning/rain, kind 'soiling' for each soiled dry interval ('warning' if
+    each detected cleaning/rain that ends a soiled interval, kind 'soiling' for each soiled
+    dry interval ('warning' if
     a cleaning is recommended, else 'info'); the last soiling flag carries the current
     loss, the site SR_iw with its Monte-Carlo interval, T* and the recommendation.
     """
@@ -308,7 +336,13 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
     iv = soiling_intervals(pi, cl.index, min_days=min_days)
     sr = soiling_ratio_series(days, iv)
     records = []
+    # a cleaning (or rain) is reported only when it ends a soiled interval: rain on a clean
+    # plant is weather, not news (issue #14: 81 "cleaning" flags on a fleet without soiling)
+    ends_soiled = {pd.Timestamp(r.end) + pd.Timedelta(days=1) for r in iv.itertuples()
+                   if r.soiled}
     for d, row in cl.iterrows():
+        if pd.Timestamp(d) not in ends_soiled:
+            continue
         s0 = int(day_start_s([d], std_offset_s)[0])
         records.append(dict(
             device_id=device_id, kind="cleaning", start_s=s0, end_s=s0 + 86400,
@@ -322,12 +356,16 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
     mc = soiling_ratio_insolation_weighted_mc(days, iv, h, n_runs=n_runs) if n_runs else {}
     sr_weighted = soiling_ratio_insolation_weighted(sr, h)
     e_day = float(np.nanmedian(e_exp.iloc[-30:])) if e_exp.notna().any() else float("nan")
+    site = soiling_site_summary(sr_weighted, mc, days)
     for k, row in enumerate(iv.itertuples()):
         if not row.soiled:
             continue
         m = (days >= row.start) & (days <= row.end)
         loss_end = 1.0 - float(sr[m].iloc[-1])
-        if loss_end < min_loss:
+        # the loss must reach min_loss even at the shallow end of the slope's 95 % interval
+        # (issue #14: short noisy intervals gave 1 % "soiling" on clean fleets)
+        loss_end_low = -row.rate_high * float((row.end - row.start).days)
+        if loss_end < min_loss or loss_end_low < min_loss:
             continue
         lost = float(np.nansum(e_exp[m] * (1.0 - sr[m])))
         last = k == len(iv) - 1
@@ -341,7 +379,8 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
             loss_at_end_pct=100 * loss_end,
             lost_revenue=lost * tariff_per_kwh, currency=currency,
             method="Theil-Sen slope of site-median daily pi in the dry interval, relative to "
-                   "its clean level (Deceglie et al. 2018; scipy.stats.theilslopes)")
+                   "its clean level (Deceglie et al. 2018; scipy.stats.theilslopes)",
+            **site)
         sev = "info"
         if last:
             saving = tariff_per_kwh * e_day * loss_end * horizon_days

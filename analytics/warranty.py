@@ -1,4 +1,4 @@
-"""Power-warranty screening: measured degradation against a linear warranty (METHODS §11).
+"""Power-warranty screening: measured degradation against a linear warranty (linear power warranty, common practice).
 
 IMPORTANT: system-level field data are screening evidence, not proof. The measured index
 contains balance-of-system losses, soiling, availability and irradiance-sensor drift, and it
@@ -7,7 +7,7 @@ procedure — usually STC flash tests of sampled modules with IEC 60891 correcti
 measurement tolerance — and is prepared by qualified people. Working on a PV array (it is
 energised whenever lit) is for qualified staff under local electrical codes and lockout/tagout.
 
-Warranty shape (METHODS §11, manufacturers' linear warranties): the guaranteed fraction of
+Warranty shape (manufacturers' linear warranties, common practice): the guaranteed fraction of
 nameplate power is W1 = 1 − first-year loss for year 1, then W1 − d_w·(y − 1) until the end
 of the term, e.g. W1 = 97 %, d_w = 0.7 %/yr → 80.2 % at year 25.
 """
@@ -34,7 +34,7 @@ def warranted_fraction(years, *, first_year_loss_pct: float, annual_loss_pct: fl
     """Guaranteed fraction of nameplate power at ``years`` since the warranty start.
 
     ``W(y) = W1`` for 0 ≤ y ≤ 1 and ``W1 − d_w (y − 1)`` up to ``term_years``, NaN outside,
-    with W1 = 1 − first_year_loss_pct/100 and d_w = annual_loss_pct/100 (METHODS §11).
+    with W1 = 1 − first_year_loss_pct/100 and d_w = annual_loss_pct/100 (linear power warranty, common practice).
 
     Examples
     --------
@@ -55,7 +55,7 @@ def one_sided_upper(rate_pct_per_yr: float, ci_high: float, ci_confidence: float
     """Upper bound of the one-sided ``confidence`` interval of a rate [%/yr].
 
     The upper half-width of the two-sided ``ci_confidence`` interval gives σ_up =
-    (ci_high − Rd)/z_{(1+c)/2}; independent uncertainties (sensor drift, soiling; METHODS §11)
+    (ci_high − Rd)/z_{(1+c)/2}; independent uncertainties (sensor drift, soiling; added in quadrature, GUM JCGM 100:2008)
     are added in quadrature, σ = √(σ_up² + σ_extra²); the bound is Rd + z_p σ (normal
     approximation). With σ_extra = 0 and p = (1 + c)/2 it returns ``ci_high`` itself.
 
@@ -73,7 +73,7 @@ def one_sided_upper(rate_pct_per_yr: float, ci_high: float, ci_confidence: float
 def warranty_rate_test(rate_pct_per_yr: float, ci_high: float, ci_confidence: float, *,
                        annual_loss_pct: float, confidence: float = 0.95,
                        sigma_extra_pct_per_yr: float = 0.0) -> dict:
-    """One-sided test of the measured rate against the warranted annual loss (METHODS §11).
+    """One-sided test of the measured rate against the warranted annual loss (linear power warranty, common practice).
 
     H0: the loss rate −Rd is at most the warranted d_w. The measured loss exceeds the
     warranty at level ``confidence`` when the upper bound of the one-sided interval of Rd
@@ -81,7 +81,7 @@ def warranty_rate_test(rate_pct_per_yr: float, ci_high: float, ci_confidence: fl
 
     Examples
     --------
-    METHODS §11 test vectors (two-sided 95 % interval used as it stands, p = 0.975):
+    hand-checkable test vector (two-sided 95 % interval used as it stands, p = 0.975):
 
     >>> warranty_rate_test(-0.62, -0.45, 0.95, annual_loss_pct=0.55, confidence=0.975)["exceeds"]
     False

@@ -11,6 +11,16 @@ An inverter is "below peers" when its PR_STC is lower than the median of its pee
 by more than ``below_peers_pct`` (3 % by default, common practice for a weekly screen:
 larger than the week-to-week scatter of healthy inverters on one POA sensor, smaller than
 one failed string in ~20).
+
+Peers are compared only within one POA instrument type (a c-Si reference cell and a
+thermopile pyranometer differ by a few per cent in what they report as irradiance: Dunn,
+Gostein & Emery 2012, NREL/CP-5200-55487), so a pyranometer inverter is never called "below
+peers" because its peers are measured against a reference cell.
+
+A flag spans its own period, often much longer than a week (an alarm that has lasted 22
+months carries 22 months of lost energy); :func:`week_share_of_lost_energy` gives the part of
+each flag's lost energy that falls in the week, in proportion to the expected energy of the
+flagged device (the clean model's energy: the energy that could have been lost).
 """
 
 from __future__ import annotations
@@ -74,7 +84,9 @@ def weekly_comparison(week_sums: pd.DataFrame, trailing_sums: pd.DataFrame,
         Per-inverter sums (``device_id`` plus :data:`SUM_COLUMNS`) of the week and of the
         weeks before it.
     inverters : DataFrame
-        ``device_id, peer_group, p_dc_kwp`` [kWp] of every inverter of the site.
+        ``device_id, peer_group, p_dc_kwp`` [kWp] of every inverter of the site; optional
+        ``instrument`` (the POA sensor's instrument type): peers are then the inverters of
+        the same peer group on the same instrument type.
     below_peers_pct : float, default 3.0
         Margin below the peer median that sets ``below_peers``. [%]
 
@@ -83,17 +95,115 @@ def weekly_comparison(week_sums: pd.DataFrame, trailing_sums: pd.DataFrame,
     DataFrame
         ``device_id, peer_group, p_dc_kwp, e_ac_kwh, yf_h`` (final yield, kWh/kWp),
         ``pr, pr_stc, pr_stc_trailing, d_trailing_pct, pr_stc_peers, d_peers_pct,
-        avail_energy, avail_time, n_days_valid, below_peers``; ``d_*_pct`` =
-        100 (PR_STC / reference − 1). Inverters with no data keep NaN KPIs.
+        avail_energy, avail_time, n_days_valid, below_peers, instrument, n_peers``;
+        ``d_*_pct`` = 100 (PR_STC / reference − 1); ``n_peers`` counts the inverters of
+        the comparison group with a PR_STC (the inverter itself included). Inverters with
+        no data keep NaN KPIs.
     """
     week = period_kpis(week_sums)
     trail = period_kpis(trailing_sums)[["device_id", "pr_stc"]].rename(
         columns={"pr_stc": "pr_stc_trailing"})
-    out = inverters[["device_id", "peer_group", "p_dc_kwp"]].merge(
+    cols = ["device_id", "peer_group", "p_dc_kwp"]
+    inv = inverters.copy()
+    if "instrument" not in inv:
+        inv["instrument"] = None
+    inv["instrument"] = inv["instrument"].fillna("unknown").astype(str)
+    out = inv[[*cols, "instrument"]].merge(
         week, on="device_id", how="left").merge(trail, on="device_id", how="left")
     out["yf_h"] = out["e_ac_kwh"] / out["p_dc_kwp"]
     out["d_trailing_pct"] = 100 * (out["pr_stc"] / out["pr_stc_trailing"] - 1)
-    out["pr_stc_peers"] = out.groupby("peer_group")["pr_stc"].transform("median")
+    group = out.groupby(["peer_group", "instrument"])["pr_stc"]
+    out["pr_stc_peers"] = group.transform("median")
+    out["n_peers"] = group.transform("count").astype(int)
     out["d_peers_pct"] = 100 * (out["pr_stc"] / out["pr_stc_peers"] - 1)
     out["below_peers"] = out["d_peers_pct"] < -abs(below_peers_pct)
+    return out
+
+
+def _day_start_s(days, std_offset_s: int) -> np.ndarray:
+    """UTC epoch seconds of the start of local-standard-time days."""
+    d = pd.to_datetime(pd.Series(list(days))).to_numpy(dtype="datetime64[D]").astype("int64")
+    return d * 86400 - int(std_offset_s)
+
+
+def week_share_of_lost_energy(flags: pd.DataFrame, daily_expected: pd.DataFrame,
+                              week_start_s: int, week_end_s: int, *,
+                              std_offset_s: int) -> pd.Series:
+    """The part of each flag's lost energy that falls inside one week. [kWh]
+
+    A flag's ``lost_kwh`` covers its whole span ``[start_s, end_s)``. It is shared out over
+    the days of the span in proportion to the expected energy of the flagged device on each
+    day (``e_exp_kwh``, the clean model's energy), each day weighted by the part of it the
+    flag covers (uniform in time within a day: only the flag's first and last day are
+    partial); the week's share is the sum over the days inside ``[week_start_s, week_end_s)``:
+
+        L_week = L · Σ_{d ∈ week} w_d E_exp,d / Σ_{d ∈ flag} w_d E_exp,d,
+        w_d = overlap of the flag with day d / 24 h
+
+    A site-wide or sensor flag (``device_id`` not an inverter of ``daily_expected``) uses
+    the site's total expected energy. When the expected energy over the span is zero or
+    unknown the share falls back to time: L · overlap / span.
+
+    Parameters
+    ----------
+    flags : DataFrame
+        ``start_s, end_s, lost_kwh`` and ``device_id``.
+    daily_expected : DataFrame
+        ``device_id, day`` (local standard day) and ``e_exp_kwh`` [kWh], covering the flags'
+        spans.
+    week_start_s, week_end_s : int
+        The week, UTC epoch seconds (start inclusive, end exclusive).
+    std_offset_s : int
+        Site standard UTC offset (days are local standard time). [s]
+
+    Returns
+    -------
+    Series
+        ``lost_week_kwh`` aligned with ``flags``; NaN where ``lost_kwh`` is NaN.
+
+    Examples
+    --------
+    A 10-day flag that lost 100 kWh on a device with the same expected energy every day:
+    a week holding 3 of its days carries 30 kWh (hand calculation).
+
+    >>> days = pd.date_range("2024-06-01", periods=20, freq="D").date
+    >>> exp = pd.DataFrame({"device_id": "A", "day": days, "e_exp_kwh": 50.0})
+    >>> fl = pd.DataFrame({"device_id": ["A"], "start_s": [_day_start_s([days[0]], 0)[0]],
+    ...                    "end_s": [_day_start_s([days[10]], 0)[0]], "lost_kwh": [100.0]})
+    >>> w0 = int(_day_start_s([days[7]], 0)[0])
+    >>> float(week_share_of_lost_energy(fl, exp, w0, w0 + 7 * 86400, std_offset_s=0).iloc[0])
+    30.0
+    """
+    out = pd.Series(np.nan, index=flags.index, name="lost_week_kwh", dtype=float)
+    if flags.empty:
+        return out
+    de = daily_expected[["device_id", "day", "e_exp_kwh"]].copy()
+    de["e_exp_kwh"] = de["e_exp_kwh"].astype(float)
+    per_dev = {d: g.set_index("day")["e_exp_kwh"] for d, g in de.groupby("device_id")}
+    site = de.groupby("day")["e_exp_kwh"].sum(min_count=1)
+    for i, f in flags.iterrows():
+        lost = f["lost_kwh"]
+        if lost is None or pd.isna(lost):
+            continue
+        a, b = int(f["start_s"]), int(f["end_s"])
+        if b <= a:
+            out[i] = float(lost) if week_start_s <= a < week_end_s else 0.0
+            continue
+        series = per_dev.get(f["device_id"], site)
+        d0 = (a + std_offset_s) // 86400
+        d1 = (b - 1 + std_offset_s) // 86400
+        day_num = np.arange(d0, d1 + 1)
+        starts = day_num * 86400 - std_offset_s
+        cover = (np.minimum(starts + 86400, b) - np.maximum(starts, a)) / 86400.0
+        in_week = (np.minimum(starts + 86400, min(b, week_end_s))
+                   - np.maximum(starts, max(a, week_start_s))).clip(min=0) / 86400.0
+        days = (np.datetime64("1970-01-01") + day_num.astype("timedelta64[D]")).astype(object)
+        e = series.reindex(days).to_numpy(dtype=float)
+        e = np.where(np.isfinite(e), e, 0.0)
+        den = float(np.sum(cover * e))
+        if den > 0:
+            out[i] = float(lost) * float(np.sum(in_week * e)) / den
+        else:
+            overlap = max(0, min(b, week_end_s) - max(a, week_start_s))
+            out[i] = float(lost) * overlap / (b - a)
     return out

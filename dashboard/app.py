@@ -8,12 +8,17 @@ range, in the sidebar), then runs the chosen page. Pages are thin: they read wid
 from __future__ import annotations
 
 import datetime as dt
+from pathlib import Path
 
 import streamlit as st
 
 from dashboard import data, ui
+from db.engine import display_url
 
-st.set_page_config(page_title="heliaudit", page_icon=":material/solar_power:", layout="wide")
+# The page icon is a file of the package: a Material-symbol or emoji icon would make the
+# browser fetch it from an outside font/CDN server, which a plant network blocks.
+ICON = str(Path(__file__).resolve().parent / "static" / "page_icon.png")
+st.set_page_config(page_title="heliaudit", page_icon=ICON, layout="wide")
 
 pages = [
     st.Page(ui.PAGES["weekly"], title="Weekly check", icon=":material/calendar_view_week:",
@@ -30,7 +35,16 @@ pages = [
 page = st.navigation(pages)
 
 url = data.db_url()
-sites = data.site_list(url)
+try:
+    sites = data.site_list(url)
+except data.DatabaseUnreadable as exc:
+    st.title("heliaudit cannot read this database")
+    st.error(str(exc), icon=":material/database:")
+    st.markdown("Start the dashboard against a heliaudit store: "
+                "`heliaudit --db PATH_OR_URL dashboard`, where the store was made by "
+                "`heliaudit ingest SITE.toml` (or `heliaudit demo`). A SQLite path must be a "
+                "file written by heliaudit; a PostgreSQL URL needs a running server.")
+    st.stop()
 qp = st.query_params
 
 
@@ -41,7 +55,7 @@ def _reset_window() -> None:
 with st.sidebar:
     st.markdown("### heliaudit")
     if sites.empty:
-        st.caption(f"Database: `{url}` — no site loaded.")
+        st.caption(f"Database: `{display_url(url)}` — no site loaded.")  # password masked
     else:
         ids = list(sites["site_id"])
         if "site" not in st.session_state or st.session_state["site"] not in ids:
@@ -67,6 +81,11 @@ with st.sidebar:
         if len(window) == 2:
             qp["start"], qp["end"] = window[0].isoformat(), window[1].isoformat()
         st.caption(f"{names[site_id]} · data {first} → {last}")
+        st.toggle("Wall-clock times (with daylight saving)", key="wall_clock",
+                  help="Tables of events show the site's wall-clock time, as the logger and "
+                       "the operators read it. Off: local standard time all year (the basis "
+                       "of the daily figures; no hour repeats or goes missing).")
     st.caption("Colours: Okabe & Ito (2008) and Paul Tol (2021) colour-blind-safe schemes.")
 
-page.run()
+with st.spinner("Computing this page…"):  # shown only when it takes longer than 0.5 s
+    page.run()

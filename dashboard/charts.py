@@ -22,9 +22,13 @@ def _tz_label(std_offset_s: int) -> str:
     return f"Local standard time (UTC{sign}{h:02d}:{m:02d})"
 
 
-def _local(ts: pd.Series | pd.DatetimeIndex, std_offset_s: int):
-    """tz-aware UTC -> naive local standard time, for display."""
+def _local(ts: pd.Series | pd.DatetimeIndex, std_offset_s: int, tz: str | None = None):
+    """tz-aware UTC -> naive local time for display: standard time (``std_offset_s``), or
+    the wall clock of the zone ``tz`` (with daylight saving) when given."""
     idx = pd.DatetimeIndex(ts)
+    if tz is not None:
+        idx = idx if idx.tz is not None else idx.tz_localize("UTC")
+        return idx.tz_convert(tz).tz_localize(None)
     if idx.tz is not None:
         idx = idx.tz_convert("UTC").tz_localize(None)
     return idx + pd.Timedelta(seconds=int(std_offset_s))
@@ -47,30 +51,39 @@ def empty(message: str, x_title: str = "", y_title: str = "") -> go.Figure:
 # ---------------------------------------------------------------- weekly check
 
 
-def pr_heatmap(heat: pd.DataFrame, limit_pct: float = 10.0) -> go.Figure:
-    """Calendar heatmap: inverter x day of PR_STC relative to the site median that day.
+PERIOD_WORDS = {"day": ("Day", "%Y-%m-%d", "day"), "week": ("Week starting", "%Y-%m-%d", "week"),
+                "month": ("Month", "%Y-%m", "month")}
 
-    ``heat`` is :func:`dashboard.data.pr_relative_heatmap` (index device_id, columns days, %).
+
+def pr_heatmap(heat: pd.DataFrame, limit_pct: float = 10.0, period: str = "day") -> go.Figure:
+    """Calendar heatmap: inverter x period of PR_STC relative to the site median.
+
+    ``heat`` is :func:`dashboard.data.pr_relative_heatmap` (index device_id, columns the
+    first day of each period, %); ``period`` is ``"day"``, ``"week"`` or ``"month"``.
     The scale is diverging and symmetric about 0 (Tol's BuRd, red = below the median),
     saturating at ± ``limit_pct``.
     """
+    x_word, x_fmt, p_word = PERIOD_WORDS.get(period, PERIOD_WORDS["day"])
     if heat.empty:
-        return empty("No daily results in this window", "Day (local standard time)", "Inverter")
+        return empty("No daily results in this window", f"{x_word} (local standard time)",
+                     "Inverter")
     z = heat.to_numpy(dtype=float)
     n = len(heat.index)
     # one dict, one validation pass (a 100-inverter fleet over 12 weeks is 8400 cells);
     # not-valid days are gaps on the grey plot background, without hover
     trace = dict(type="heatmap", z=z, x=pd.to_datetime(pd.Index(heat.columns)).to_numpy(),
                  y=[str(i) for i in heat.index], colorscale=theme.DIVERGING, zmid=0,
-                 zmin=-limit_pct, zmax=limit_pct, hoverongaps=False, xgap=1, ygap=1,
-                 hovertemplate="%{y} · %{x|%Y-%m-%d}<br>PR_STC vs site median: "
-                               "%{z:+.1f} %<extra></extra>",
+                 zmin=-limit_pct, zmax=limit_pct, hoverongaps=False,
+                 xgap=1 if heat.shape[1] <= 200 else 0, ygap=1,
+                 hovertemplate="%{y} · " + p_word + " %{x|" + x_fmt + "}<br>PR_STC vs site "
+                               "median: %{z:+.1f} %<extra></extra>",
                  colorbar=dict(title=dict(text="PR_STC vs<br>site median [%]", side="right"),
                                ticksuffix=" %", thickness=14))
     layout = dict(template=TEMPLATE, height=_heat_height(n), plot_bgcolor=theme.MISSING,
                   hovermode="closest",
-                  title=dict(text="Daily temperature-corrected PR relative to the site median"),
-                  xaxis=dict(title=dict(text="Day (local standard time)"), showgrid=False),
+                  title=dict(text={"day": "Daily", "week": "Weekly", "month": "Monthly"}.get(
+                      period, "Daily") + " temperature-corrected PR relative to the site median"),
+                  xaxis=dict(title=dict(text=f"{x_word} (local standard time)"), showgrid=False),
                   yaxis=dict(title=dict(text="Inverter"), autorange="reversed", showgrid=False,
                              type="category", dtick=1 if n <= 60 else None,
                              tickfont=dict(size=10 if n > 40 else 12)))
@@ -86,8 +99,10 @@ def _heat_height(n_rows: int) -> int:
 def fleet_quadrant(fleet: pd.DataFrame) -> go.Figure:
     """Last week's PR_STC against the inverter's own trailing weeks (x) and its peers (y).
 
-    Each marker is one inverter, sized by last week's energy; the lower-left quadrant
-    (worse than its own history and its peers) is where problems sit.
+    Each marker is one inverter, sized by last week's energy and coloured by its most
+    severe warning or alarm of the week (``worst_severity``; info flags such as clipping do
+    not colour it); the lower-left quadrant (worse than its own history and its peers) is
+    where problems sit.
     """
     f = fleet.dropna(subset=["d_trailing_pct", "d_peers_pct"])
     if f.empty:
@@ -95,17 +110,25 @@ def fleet_quadrant(fleet: pd.DataFrame) -> go.Figure:
                      "PR_STC vs own trailing weeks [%]", "PR_STC vs peer median [%]")
     size = f["e_ac_kwh"].fillna(0).to_numpy()
     size = 8 + 14 * size / size.max() if size.max() > 0 else np.full(len(f), 10)
-    colour = np.where(f["n_flags"] > 0, theme.OKABE_ITO["vermillion"], theme.MEASURED)
+    worst = (f["worst_severity"] if "worst_severity" in f
+             else pd.Series(np.where(f["n_flags"] > 0, "alarm", "none"), index=f.index))
+    colour = [theme.SEVERITY.get(w, theme.MEASURED) for w in worst]
     fig = go.Figure(go.Scatter(
         x=f["d_trailing_pct"], y=f["d_peers_pct"], mode="markers+text",
         text=np.where((f["d_peers_pct"] < -3) | (f["d_trailing_pct"] < -3), f["device_id"], ""),
         textposition="top center", textfont=dict(size=10),
         marker=dict(size=size, color=colour, line=dict(width=0.5, color="white"), opacity=0.85),
-        customdata=np.stack([f["device_id"], f["e_ac_kwh"], f["n_flags"]], axis=1),
+        customdata=np.stack([f["device_id"], f["e_ac_kwh"], worst.replace("none", "no")],
+                            axis=1),
         hovertemplate="%{customdata[0]}<br>vs own trailing weeks: %{x:+.1f} %"
                       "<br>vs peers: %{y:+.1f} %<br>energy: %{customdata[1]:,.0f} kWh"
-                      "<br>flags: %{customdata[2]}<extra></extra>",
+                      "<br>worst flag: %{customdata[2]}<extra></extra>",
         showlegend=False))
+    for sev, name in (("alarm", "alarm this week"), ("warning", "warning this week"),
+                      ("none", "no warning or alarm")):
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=name,
+                                 marker=dict(size=10, color=theme.SEVERITY.get(sev,
+                                                                              theme.MEASURED))))
     for axis in ("x", "y"):
         fig.add_shape(type="line", xref="x" if axis == "x" else "paper",
                       yref="paper" if axis == "x" else "y",
@@ -200,60 +223,211 @@ def pr_trend(chosen: pd.DataFrame, peers: pd.DataFrame, flagged: pd.DataFrame | 
 # ---------------------------------------------------------------- degradation
 
 
-def degradation_forest(results: pd.DataFrame) -> go.Figure:
-    """Rate per inverter and method with its interval (dot and whisker)."""
+def degradation_forest(results: pd.DataFrame, recommended: dict | None = None) -> go.Figure:
+    """Rate per device and method with its interval (dot and whisker), in two panels with
+    their own axes: rates of the plant (absolute), and relative figures (rate relative to
+    the peers, the POA sensor's drift against clear sky), which are not degradation rates.
+    ``recommended`` maps a device to its recommended method (drawn as a ring)."""
+    from analytics.labels import RELATIVE_METHODS, method_label
+
     r = results.dropna(subset=["rate_pct_per_yr"])
     if r.empty:
-        return empty("No degradation rate computed yet", "Degradation rate Rd [%/yr]",
-                     "Inverter")
-    fig = go.Figure()
-    methods = sorted(r["method"].unique())
+        return empty("No degradation rate computed yet", "Degradation rate [%/yr]", "Device")
+    rel = r[r["method"].isin(RELATIVE_METHODS)]
+    absolute = r[~r["method"].isin(RELATIVE_METHODS)]
+    methods = list(dict.fromkeys(sorted(absolute["method"].unique())
+                                 + sorted(rel["method"].unique())))
+    devices = list(dict.fromkeys(r["device_id"]))
+    names = {d: ("whole site" if d == "(site)" else d) for d in devices}
+    traces = []
     for k, m in enumerate(methods):
         g = r[r["method"] == m]
-        fig.add_trace(go.Scatter(
-            x=g["rate_pct_per_yr"], y=g["device_id"], mode="markers", name=m,
+        axis = "x2" if m in RELATIVE_METHODS else "x"
+        traces.append(dict(
+            type="scatter", x=g["rate_pct_per_yr"], y=[names[d] for d in g["device_id"]],
+            mode="markers", name=method_label(m), xaxis=axis, yaxis="y",
             marker=dict(size=8, color=theme.SERIES[k % len(theme.SERIES)],
-                        symbol=["circle", "diamond", "square", "triangle-up"][k % 4]),
+                        symbol=["circle", "diamond", "square", "triangle-up", "x",
+                                "star"][k % 6]),
             error_x=dict(type="data", symmetric=False,
                          array=(g["ci_high"] - g["rate_pct_per_yr"]).to_numpy(),
                          arrayminus=(g["rate_pct_per_yr"] - g["ci_low"]).to_numpy(),
                          thickness=1.5, width=3),
-            offsetgroup=m, orientation="h",
-            hovertemplate="%{y} · " + m + ": %{x:.2f} %/yr<extra></extra>"))
-    n = r["device_id"].nunique()
-    fig.add_vline(x=0, line=dict(color="#888", width=1, dash="dot"))
-    fig.update_layout(template=TEMPLATE, height=int(min(1800, max(340, 170 + n * (10 + 9 * len(methods))))),
-                      hovermode="closest",
-                      title="Degradation rate by inverter and method (negative = loss)",
-                      scattermode="group", scattergap=0.5)
-    fig.update_xaxes(title_text="Degradation rate Rd [%/yr]")
-    fig.update_yaxes(title_text="Inverter", type="category", autorange="reversed")
+            hovertemplate="%{y} · " + method_label(m) + ": %{x:.2f} %/yr<extra></extra>"))
+    if recommended:
+        pts = [(names[d], r[(r["device_id"] == d) & (r["method"] == m)]["rate_pct_per_yr"])
+               for d, m in recommended.items() if d in names]
+        pts = [(y, float(v.iloc[0])) for y, v in pts if len(v)]
+        if pts:
+            traces.append(dict(type="scatter", x=[p[1] for p in pts], y=[p[0] for p in pts],
+                               mode="markers", name="recommended rate", xaxis="x", yaxis="y",
+                               marker=dict(size=16, color="rgba(0,0,0,0)",
+                                           line=dict(width=2, color=theme.TEXT)),
+                               hoverinfo="skip"))
+    n = len(devices)
+    layout = dict(
+        template=TEMPLATE, height=int(min(1400, max(340, 170 + n * 26))), hovermode="closest",
+        title=dict(text="Rates by device and method (negative = loss)"),
+        xaxis=dict(domain=[0, 0.64], title=dict(text="Degradation rate of the plant [%/yr]"),
+                   zeroline=True, zerolinecolor="#888"),
+        xaxis2=dict(domain=[0.72, 1], anchor="y",
+                    title=dict(text="Relative to peers / sensor drift [%/yr]"),
+                    zeroline=True, zerolinecolor="#888"),
+        yaxis=dict(title=dict(text="Device"), type="category", autorange="reversed",
+                   categoryorder="array", categoryarray=[names[d] for d in devices]),
+        legend=dict(orientation="h", y=1.02, yanchor="bottom", x=0, font=dict(size=11)),
+        margin=dict(t=110))
+    return go.Figure(data=traces, layout=layout)
+
+
+def pair_grid_chart(grid: pd.DataFrame, warranted_pct_per_yr: float | None = None,
+                    title: str = "") -> go.Figure:
+    """Year x season grid of the median year-on-year pair rate (Jordan et al. 2018 pairs,
+    grouped by :func:`analytics.reporting.pair_rate_grid`).
+
+    Colour is diverging about the warranted rate when one is given (red: the pairs of that
+    season lost more than the warranty allows; blue: less), else about 0 (Tol's BuRd). Each
+    cell is labelled with its median and number of pairs; cells with too few pairs are
+    empty.
+    """
+    from analytics.reporting import SEASON_ORDER
+
+    if grid.empty:
+        return empty("No year-on-year pairs (less than a year of usable days)",
+                     "Season of the later day", "Year of the later day")
+    g = grid.copy()
+    g["season"] = g["season"].astype(str)
+    z = g.pivot(index="year", columns="season", values="median_pct_per_yr").reindex(
+        columns=list(SEASON_ORDER))
+    n = g.pivot(index="year", columns="season", values="n_pairs").reindex(
+        columns=list(SEASON_ORDER))
+    mid = float(warranted_pct_per_yr) if warranted_pct_per_yr is not None else 0.0
+    text = [[("" if not np.isfinite(v) else f"{v:+.1f}<br>({int(c)})")
+             for v, c in zip(zr, cr, strict=True)]
+            for zr, cr in zip(z.to_numpy(dtype=float), n.fillna(0).to_numpy(), strict=True)]
+    span = max(2.0, float(np.nanmax(np.abs(z.to_numpy(dtype=float) - mid)))
+               if np.isfinite(z.to_numpy(dtype=float)).any() else 2.0)
+    span = min(span, 6.0)
+    fig = go.Figure(go.Heatmap(
+        z=z.to_numpy(dtype=float), x=list(z.columns), y=[str(y) for y in z.index],
+        text=text, texttemplate="%{text}", colorscale=theme.DIVERGING, zmid=mid,
+        zmin=mid - span, zmax=mid + span, xgap=3, ygap=3, hoverongaps=False,
+        textfont=dict(size=12),
+        hovertemplate="%{y} %{x}: median pair rate %{z:+.2f} %/yr<extra></extra>",
+        colorbar=dict(title=dict(text="Median pair<br>rate [%/yr]", side="right"),
+                      thickness=14)))
+    fig.update_layout(template=TEMPLATE, height=420, margin=dict(t=50),
+                      hovermode="closest", plot_bgcolor=theme.MISSING,
+                      title=title or "Is the rate stable over the years and seasons?")
+    fig.update_xaxes(title_text="Season of the later day of each pair", showgrid=False,
+                     side="bottom")
+    fig.update_yaxes(title_text="Year of the later day", showgrid=False, type="category",
+                     autorange="reversed")
     return fig
 
 
-def yoy_histogram(edges, counts, rd: float | None = None,
-                  ci: tuple[float | None, float | None] | None = None,
-                  title: str = "") -> go.Figure:
-    """Histogram of the year-on-year pair rates r_d (Jordan et al. 2018) as stored by the
-    degradation job (bin ``edges`` [%/yr], ``counts``), with the median rate and its interval."""
-    edges = np.asarray(edges, dtype=float)
-    counts = np.asarray(counts, dtype=float)
-    if counts.size == 0 or edges.size != counts.size + 1:
-        return empty("No year-on-year pairs stored", "Year-on-year rate r_d [%/yr]",
-                     "Pairs [count]")
-    mids = (edges[:-1] + edges[1:]) / 2
-    fig = go.Figure(go.Bar(x=mids, y=counts, width=np.diff(edges) * 0.95,
-                           marker=dict(color=theme.MEASURED), opacity=0.8, name="pairs",
-                           hovertemplate="%{x:.2f} %/yr: %{y} pairs<extra></extra>"))
-    if ci is not None and None not in ci and all(np.isfinite(ci)):
-        fig.add_vrect(x0=ci[0], x1=ci[1], fillcolor=theme.BAND_FILL, line_width=0)
-    if rd is not None and np.isfinite(rd):
-        fig.add_vline(x=rd, line=dict(color=theme.FIT, width=2.5),
-                      annotation_text=f"median {rd:+.2f} %/yr", annotation_position="top right")
-    fig.update_layout(template=TEMPLATE, height=340, bargap=0.02, hovermode="closest",
-                      title=title or "Year-on-year pair rates", showlegend=False)
-    fig.update_xaxes(title_text="Year-on-year rate r_d [%/yr]")
-    fig.update_yaxes(title_text="Pairs [count]")
+def year_rates_chart(grid: pd.DataFrame, rate: float | None = None,
+                     ci: tuple[float | None, float | None] | None = None,
+                     warranted_pct_per_yr: float | None = None, title: str = "") -> go.Figure:
+    """Per pair year: the median of that year's pair rates with the middle half of its pairs
+    (a spread, not a confidence interval), against the whole-period rate with its interval
+    (band) and the warranted rate (line)."""
+    from analytics.reporting import SEASON_ORDER  # noqa: F401 (same grouping as the grid)
+
+    if grid.empty:
+        return empty("No year-on-year pairs", "Year of the later day", "Rate [%/yr]")
+    g = grid.dropna(subset=["median_pct_per_yr"])
+    fig = go.Figure()
+    years = sorted({str(y) for y in grid["year"]})
+    if ci is not None and None not in ci:
+        fig.add_hrect(y0=ci[0], y1=ci[1], fillcolor=theme.BAND_FILL, line_width=0)
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name="interval of the "
+                                 "whole-period rate", marker=dict(symbol="square", size=12,
+                                                                   color=theme.BAND_FILL)))
+    if rate is not None:
+        fig.add_hline(y=rate, line=dict(color=theme.FIT, width=2.5))
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", name=f"whole period "
+                                 f"{rate:+.2f} %/yr", line=dict(color=theme.FIT, width=2.5)))
+    if warranted_pct_per_yr is not None:
+        fig.add_hline(y=warranted_pct_per_yr, line=dict(color=theme.WARRANTY, width=2,
+                                                        dash="dash"))
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines",
+                                 name=f"warranted {warranted_pct_per_yr:+.2f} %/yr",
+                                 line=dict(color=theme.WARRANTY, width=2, dash="dash")))
+    for k, (season, s) in enumerate(g.groupby("season", observed=True, sort=True)):
+        fig.add_trace(go.Scatter(
+            x=[str(y) for y in s["year"]], y=s["median_pct_per_yr"], mode="markers",
+            name=str(season), offsetgroup=str(season),
+            marker=dict(size=9, color=theme.SERIES[k % len(theme.SERIES)]),
+            error_y=dict(type="data", symmetric=False,
+                         array=(s["q75_pct_per_yr"] - s["median_pct_per_yr"]).to_numpy(),
+                         arrayminus=(s["median_pct_per_yr"] - s["q25_pct_per_yr"]).to_numpy(),
+                         thickness=1.3, width=3),
+            customdata=s["n_pairs"],
+            hovertemplate="%{x} " + str(season) + ": median %{y:+.2f} %/yr, "
+                          "%{customdata} pairs<extra></extra>"))
+    fig.update_layout(template=TEMPLATE, height=420, hovermode="closest", scattermode="group",
+                      title=title or "Which periods drive the rate?", margin=dict(t=50, b=120),
+                      legend=dict(orientation="h", x=0, xanchor="left", y=-0.22,
+                                  yanchor="top", font=dict(size=11)))
+    fig.update_xaxes(title_text="Year of the later day of each pair", type="category",
+                     categoryorder="array", categoryarray=years)
+    fig.update_yaxes(title_text="Pair rate, median and middle half [%/yr]")
+    return fig
+
+
+def soiling_loss_chart(summary: dict) -> go.Figure:
+    """Energy lost to soiling in each dry period [kWh] (bars over time), coloured by whether
+    a cleaning was recommended at its end."""
+    p = summary.get("periods") if summary else None
+    if p is None or p.empty:
+        return empty("No soiling period", "Dry period", "Energy lost to soiling [kWh]")
+    x = pd.to_datetime(p["first_day"])
+    colour = [theme.SEVERITY["warning"] if s == "warning" else theme.OKABE_ITO["sky_blue"]
+              for s in p["severity"]]
+    fig = go.Figure(go.Bar(
+        x=x, y=p["lost_kwh"], marker_color=colour, name="dry period",
+        customdata=np.stack([p["first_day"], p["last_day"],
+                             p["loss_at_end_pct"].astype(float)], axis=1),
+        hovertemplate="%{customdata[0]} → %{customdata[1]}: %{y:,.0f} kWh lost, "
+                      "%{customdata[2]:.1f} % at its end<extra></extra>"))
+    fig.update_layout(template=TEMPLATE, height=300, hovermode="closest", showlegend=False,
+                      title="Energy lost to soiling in each dry period (between cleanings)")
+    fig.update_xaxes(title_text="Start of the dry period")
+    fig.update_yaxes(title_text="Energy lost to soiling [kWh]")
+    return fig
+
+
+def soiling_loss_bar(summary: dict) -> go.Figure:
+    """The insolation-weighted soiling loss over the period [%] as one bar, with the range
+    the Monte-Carlo runs give when recoveries at cleanings are in doubt."""
+    loss = summary.get("loss_pct") if summary else None
+    if loss is None:
+        return empty("No soiling loss computed", "Energy lost to soiling [%]", "")
+    lo, hi = summary.get("loss_low_pct"), summary.get("loss_high_pct")
+    fig = go.Figure()
+    fig.add_trace(go.Bar(x=[loss], y=["whole period"], orientation="h",
+                         marker_color=theme.OKABE_ITO["orange"], name="full recovery",
+                         hovertemplate="%{x:.2f} % (full recovery at each cleaning)"
+                                       "<extra></extra>", width=0.5))
+    if lo is not None and hi is not None:
+        fig.add_trace(go.Scatter(x=[lo, hi], y=["whole period", "whole period"],
+                                 mode="lines+markers", name="range if recoveries are partial",
+                                 line=dict(color=theme.TEXT, width=3),
+                                 marker=dict(symbol="line-ns-open", size=16,
+                                             line=dict(width=3, color=theme.TEXT)),
+                                 hovertemplate="%{x:.2f} %<extra></extra>"))
+    cur = summary.get("current_loss_pct")
+    if cur is not None:
+        fig.add_trace(go.Bar(x=[cur], y=["now"], orientation="h", width=0.5,
+                             marker_color=theme.OKABE_ITO["vermillion"], name="present loss",
+                             hovertemplate="%{x:.2f} % now<extra></extra>"))
+    top = max(v for v in (loss, hi, cur, 1.0) if v is not None)
+    fig.update_layout(template=TEMPLATE, height=230, hovermode="closest", barmode="overlay",
+                      title="Energy lost to soiling")
+    fig.update_xaxes(title_text="Energy lost to soiling [%]", range=[0, top * 1.25],
+                     ticksuffix=" %")
+    fig.update_yaxes(title_text="", type="category")
     return fig
 
 
@@ -300,7 +474,7 @@ def warranty_chart(envelope: pd.DataFrame | None, measured: pd.DataFrame | None 
 
 def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
               inverter_id: str, std_offset_s: int = 0,
-              highlight_flag_id: int | None = None) -> go.Figure:
+              highlight_flag_id: int | None = None, tz: str | None = None) -> go.Figure:
     """Four stacked panels on one zoomable time axis.
 
     1. AC power against expected AC power [kW]; 2. normalised power of the inverter and its
@@ -309,10 +483,10 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
     darker). The figure is assembled as one dict (one validation pass): a week of 5-minute
     data with a dozen peers builds in a few tens of milliseconds.
     """
-    x_title = _tz_label(std_offset_s)
+    x_title = _tz_label(std_offset_s) if tz is None else f"Local wall-clock time ({tz})"
     if frame.empty:
         return empty("No interval readings in this window", x_title, "AC power [kW]")
-    x = _local(frame.index, std_offset_s)
+    x = _local(frame.index, std_offset_s, tz)
 
     def line(y, name, axis, color, width=1.6, dash=None, **kw):
         return dict(type="scatter", mode="lines", x=x, y=np.asarray(y, dtype=float), name=name,
@@ -324,7 +498,7 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
         for k, (dev, g) in enumerate(peers.groupby("device_id", sort=True)):
             traces.append(dict(type="scatter", mode="lines", name="peers", legendgroup="peers",
                                showlegend=k == 0, xaxis="x", yaxis="y2", opacity=0.85,
-                               x=_local(g["ts_utc"], std_offset_s).to_numpy(),
+                               x=_local(g["ts_utc"], std_offset_s, tz).to_numpy(),
                                y=g["p_ac_kw_per_kwp"].to_numpy(dtype=float),
                                line=dict(color=theme.PEER, width=1),
                                hovertemplate=f"{dev}: " + "%{y:.3f} kW/kWp<extra></extra>"))
@@ -347,14 +521,22 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
         if not strong and (getattr(f, "severity", "warning") == "info"
                            or not isinstance(getattr(f, "device_id", inverter_id), str)):
             continue
-        a = max(pd.Timestamp(f.start_local), lo)
-        b = min(pd.Timestamp(f.end_local), hi)
+        if hasattr(f, "start_s"):
+            a = max(_local(pd.to_datetime([f.start_s], unit="s", utc=True), std_offset_s,
+                           tz)[0], lo)
+            b = min(_local(pd.to_datetime([f.end_s], unit="s", utc=True), std_offset_s,
+                           tz)[0], hi)
+        else:  # only local standard times given
+            a, b = max(pd.Timestamp(f.start_local), lo), min(pd.Timestamp(f.end_local), hi)
         if b <= a:
             continue
         fill = "rgba(213, 94, 0, 0.28)" if strong else theme.FLAG_FILL
         shapes.append(dict(type="rect", xref="x", yref="paper", x0=a, x1=b, y0=0, y1=1,
                            fillcolor=fill, line=dict(width=0), layer="below"))
-        notes.append(dict(x=a, y=1.0, xref="x", yref="paper", text=f"#{f.flag_id} {f.kind}",
+        from analytics.labels import kind_label
+
+        notes.append(dict(x=a, y=1.0, xref="x", yref="paper",
+                          text=f"#{f.flag_id} {kind_label(f.kind)}",
                           showarrow=False, xanchor="left", yanchor="bottom",
                           font=dict(size=10, color=theme.OKABE_ITO["vermillion"])))
     gap = 0.035
@@ -377,21 +559,25 @@ def drilldown(frame: pd.DataFrame, peers: pd.DataFrame, flags: pd.DataFrame,
 # ---------------------------------------------------------------- data quality
 
 
-def completeness_heatmap(comp: pd.DataFrame) -> go.Figure:
-    """Device x day completeness [%] (sequential Tol YlOrBr: light = complete, dark = gaps)."""
+def completeness_heatmap(comp: pd.DataFrame, period: str = "day") -> go.Figure:
+    """Device x period completeness [%] (sequential Tol YlOrBr: light = complete, dark =
+    gaps); ``period`` "week" or "month" when the columns are periods (means of days)."""
+    x_word, x_fmt, p_word = PERIOD_WORDS.get(period, PERIOD_WORDS["day"])
     if comp.empty:
-        return empty("No devices", "Day (local standard time)", "Device · quantity")
+        return empty("No devices", f"{x_word} (local standard time)", "Device · quantity")
     z = 100 * comp.to_numpy(dtype=float)
     fig = go.Figure(go.Heatmap(
         z=z, x=pd.to_datetime(pd.Index(comp.columns)), y=list(comp.index),
-        colorscale=theme.SEQUENTIAL_GAPS, zmin=0, zmax=100, xgap=1, ygap=1,
-        hovertemplate="%{y} · %{x|%Y-%m-%d}: %{z:.0f} % of intervals<extra></extra>",
+        colorscale=theme.SEQUENTIAL_GAPS, zmin=0, zmax=100,
+        xgap=1 if comp.shape[1] <= 200 else 0, ygap=1,
+        hovertemplate="%{y} · " + p_word + " %{x|" + x_fmt + "}: %{z:.0f} % of intervals"
+                      "<extra></extra>",
         colorbar=dict(title=dict(text="Readings<br>present [%]", side="right"),
                       ticksuffix=" %", thickness=14)))
     n = len(comp.index)
     fig.update_layout(template=TEMPLATE, height=_heat_height(n), hovermode="closest",
-                      title="Completeness per device and day")
-    fig.update_xaxes(title_text="Day (local standard time)", showgrid=False)
+                      title=f"Completeness per device and {p_word}")
+    fig.update_xaxes(title_text=f"{x_word} (local standard time)", showgrid=False)
     fig.update_yaxes(title_text="Device · quantity", autorange="reversed", showgrid=False,
                      type="category", dtick=1 if n <= 60 else None,
                      tickfont=dict(size=10 if n > 40 else 12))

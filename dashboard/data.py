@@ -25,17 +25,30 @@ import pandas as pd
 import sqlalchemy as sa
 import streamlit as st
 
-from analytics.degradation import RateResult, compare_methods
+from analytics.degradation import (
+    RateResult,
+    compare_methods,
+    trend_index,
+    usable_daily_pi,
+    yoy_rates,
+)
+from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label, method_code
 from analytics.performance_ratio import period_sums as monthly_sums
 from analytics.power import expected_ac_power
+from analytics.reporting import (
+    normalise_methods,
+    pair_rate_grid,
+    recommended_rate,
+    shortfall_from_rate,
+)
 from analytics.temperature import cell_temperature_from_module, sapm_parameters
 from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
-from analytics.weekly import period_kpis, weekly_comparison
+from analytics.weekly import period_kpis, week_share_of_lost_energy, weekly_comparison
 from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log
 from db import queries
 from db import timeseries as db_timeseries
-from db.engine import ENV_VAR, make_engine, resolve_url
+from db.engine import ENV_VAR, display_url, make_engine, resolve_url
 
 TTL_S = 300
 #: The weekly check compares last week with the mean of this many weeks before it.
@@ -87,12 +100,34 @@ def _cache(fn):
 # ---------------------------------------------------------------- plant and time
 
 
+class DatabaseUnreadable(RuntimeError):
+    """The configured database cannot be opened or is not a heliaudit store."""
+
+
+def safe_url(url: str) -> str:
+    """The URL with any password masked, for messages (:func:`db.engine.display_url`)."""
+    return display_url(url)
+
+
 @_cache
 def site_list(url: str) -> pd.DataFrame:
+    """Every site of the store; raises :class:`DatabaseUnreadable` with one plain sentence
+    when the database cannot be opened or read (a file that is not a database, a server
+    that does not answer)."""
     try:
         return queries.sites(engine(url))
-    except sa.exc.OperationalError:  # an empty or foreign database: no site table
-        return pd.DataFrame(columns=["site_id", "name", "timezone", "n_inverters"])
+    except sa.exc.OperationalError as exc:
+        text = str(getattr(exc, "orig", exc)).strip().splitlines()
+        first = text[0] if text else type(exc).__name__
+        if "no such table" in first:  # an empty SQLite file: no site yet
+            return pd.DataFrame(columns=["site_id", "name", "timezone", "n_inverters"])
+        raise DatabaseUnreadable(f"Cannot open the database {safe_url(url)}: {first}.") \
+            from None
+    except (sa.exc.SQLAlchemyError, OSError, ValueError) as exc:
+        text = str(getattr(exc, "orig", None) or exc).strip().splitlines()
+        first = text[0] if text else type(exc).__name__
+        raise DatabaseUnreadable(f"Cannot read the database {safe_url(url)}: {first}.") \
+            from None
 
 
 @_cache
@@ -148,29 +183,130 @@ def week_of(end: dt.date) -> tuple[dt.date, dt.date]:
 
 
 @_cache
+def economics(url: str, site_id: str) -> dict:
+    """The ``[economics]`` table of the site configuration (``currency``,
+    ``tariff_per_kwh``, ``cleaning_cost``); empty when absent or without a tariff."""
+    import tomllib
+
+    try:
+        e = tomllib.loads(queries.site_config_toml(engine(url), site_id) or "").get("economics")
+    except tomllib.TOMLDecodeError:
+        return {}
+    if not e or not e.get("tariff_per_kwh"):
+        return {}
+    return {"currency": str(e.get("currency", "")), "tariff_per_kwh": float(e["tariff_per_kwh"]),
+            "cleaning_cost": float(e.get("cleaning_cost", 0.0) or 0.0)}
+
+
+def money(value_kwh: float, econ: dict) -> str | None:
+    """Lost energy as revenue in the site currency (``None`` without a tariff)."""
+    if not econ or value_kwh is None or value_kwh != value_kwh:
+        return None
+    return f"{value_kwh * econ['tariff_per_kwh']:,.0f} {econ['currency']}".strip()
+
+
+@_cache
+def inverter_instruments(url: str, site_id: str) -> pd.DataFrame:
+    """Per inverter: ``device_id, poa_sensor_id, instrument`` (the POA sensor's instrument
+    type: ``reference_cell``, ``thermopile_pyranometer`` or ``unknown``)."""
+    inv = inverter_list(url, site_id)
+    dev = device_list(url, site_id)
+    kind = dict(zip(dev["device_id"], dev["instrument"], strict=True))
+    out = inv[["device_id", "poa_sensor_id"]].copy()
+    out["instrument"] = [kind.get(s) or "unknown" for s in out["poa_sensor_id"]]
+    return out
+
+
+def _week_bounds_s(url: str, site_id: str, end: dt.date) -> tuple[int, int]:
+    info = site_info(url, site_id)
+    w0, w1 = week_of(end)
+    return (day_to_s(w0, info["std_offset_s"]),
+            day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"]))
+
+
+def _with_week_share(url: str, site_id: str, fl: pd.DataFrame, end: dt.date) -> pd.DataFrame:
+    """Adds ``lost_week_kwh``: the week's share of each flag's lost energy
+    (:func:`analytics.weekly.week_share_of_lost_energy`)."""
+    fl = fl.copy()
+    if fl.empty:
+        fl["lost_week_kwh"] = pd.Series(dtype=float)
+        return fl
+    info = site_info(url, site_id)
+    a, b = _week_bounds_s(url, site_id, end)
+    lo = min(int(fl["start_s"].min()), a) + info["std_offset_s"]
+    hi = max(int(fl["end_s"].max()), b) + info["std_offset_s"]
+    d0 = dt.date(1970, 1, 1) + dt.timedelta(days=lo // 86400)
+    d1 = dt.date(1970, 1, 1) + dt.timedelta(days=hi // 86400)
+    exp = queries.daily_rows(engine(url), site_id, d0, d1, columns=("e_exp_kwh",))
+    fl["lost_week_kwh"] = week_share_of_lost_energy(fl, exp, a, b,
+                                                    std_offset_s=info["std_offset_s"]).to_numpy()
+    return fl
+
+
+@_cache
 def fleet_week(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
     """One row per inverter for the week ending ``end``.
 
-    Columns: ``device_id, peer_group, p_dc_kwp, e_ac_kwh, yf_h, pr_stc, pr_stc_trailing,
-    d_trailing_pct, pr_stc_peers, d_peers_pct, avail_energy, avail_time, n_flags,
-    flags_lost_kwh, n_days_valid``. ``d_*_pct`` = 100 (PR_STC / reference − 1).
+    Columns: ``device_id, peer_group, instrument, n_peers, p_dc_kwp, e_ac_kwh, yf_h, pr_stc,
+    pr_stc_trailing, d_trailing_pct, pr_stc_peers, d_peers_pct, avail_energy, avail_time,
+    n_flags, n_alarms, n_warnings, worst_severity, lost_week_kwh, n_days_valid``.
+    ``d_*_pct`` = 100 (PR_STC / reference − 1); peers share the peer group and the POA
+    instrument type; ``lost_week_kwh`` is the week's share of the lost energy of the
+    inverter's flags.
     """
     eng = engine(url)
     w0, w1 = week_of(end)
     t1 = w0 - dt.timedelta(days=1)
     t0 = w0 - dt.timedelta(days=7 * TRAILING_WEEKS)
+    inv = inverter_list(url, site_id).merge(
+        inverter_instruments(url, site_id)[["device_id", "instrument"]], on="device_id")
     out = weekly_comparison(queries.period_sums(eng, site_id, w0, w1),
-                            queries.period_sums(eng, site_id, t0, t1),
-                            inverter_list(url, site_id))
-    info = site_info(url, site_id)
-    fl = queries.flags_overlapping(eng, site_id, day_to_s(w0, info["std_offset_s"]),
-                                   day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"]))
-    agg = (fl.dropna(subset=["device_id"]).groupby("device_id")
-           .agg(n_flags=("flag_id", "size"), flags_lost_kwh=("lost_kwh", "sum")))
+                            queries.period_sums(eng, site_id, t0, t1), inv)
+    fl = week_flags(url, site_id, end)
+    fl = fl.dropna(subset=["device_id"])
+    agg = (fl.groupby("device_id")
+           .agg(n_flags=("flag_id", "size"),
+                n_alarms=("severity", lambda s: int((s == "alarm").sum())),
+                n_warnings=("severity", lambda s: int((s == "warning").sum())),
+                lost_week_kwh=("lost_week_kwh", "sum")))
     out = out.merge(agg, left_on="device_id", right_index=True, how="left")
-    out["n_flags"] = out["n_flags"].fillna(0).astype(int)
-    out["flags_lost_kwh"] = out["flags_lost_kwh"].fillna(0.0)
+    for c in ("n_flags", "n_alarms", "n_warnings"):
+        out[c] = out[c].fillna(0).astype(int)
+    out["lost_week_kwh"] = out["lost_week_kwh"].fillna(0.0)
+    out["worst_severity"] = np.where(out["n_alarms"] > 0, "alarm",
+                                     np.where(out["n_warnings"] > 0, "warning", "none"))
     return out
+
+
+@_cache
+def week_energy(url: str, site_id: str, end: dt.date) -> dict:
+    """The site's week: measured and expected AC energy [kWh] (all days), their ratio, and
+    per POA instrument type the insolation [kWh/m²] (median over the inverters measured by
+    that type) and PR_STC (ratio of sums over valid days, IEC 61724-1)."""
+    w0, w1 = week_of(end)
+    d = queries.daily_rows(engine(url), site_id, w0, w1,
+                           columns=("e_ac_kwh", "e_exp_kwh", "h_poa_kwhm2", "e_ac_pr_kwh",
+                                    "e_ref_stc_kwh", "day_valid"))
+    ins = inverter_instruments(url, site_id)
+    d = d.merge(ins, on="device_id", how="left")
+    by = []
+    for inst, g in d.groupby("instrument", sort=True):
+        v = g[g["day_valid"]]
+        h = g.groupby("device_id")["h_poa_kwhm2"].sum(min_count=1)
+        by.append({"instrument": inst,
+                   "sensors": ", ".join(sorted(ins.loc[ins["instrument"] == inst,
+                                                       "poa_sensor_id"].dropna().unique())),
+                   "n_inverters": int(g["device_id"].nunique()),
+                   "h_poa_kwhm2": float(h.median()) if h.notna().any() else np.nan,
+                   "pr_stc": (float(v["e_ac_pr_kwh"].sum() / v["e_ref_stc_kwh"].sum())
+                              if not v.empty and v["e_ref_stc_kwh"].sum() > 0 else np.nan)})
+    e_ac = float(d["e_ac_kwh"].sum()) if not d.empty else np.nan
+    e_exp = float(d["e_exp_kwh"].sum()) if not d.empty else np.nan
+    return {"e_ac_kwh": e_ac, "e_exp_kwh": e_exp,
+            "ratio": e_ac / e_exp if e_exp and e_exp == e_exp and e_exp > 0 else np.nan,
+            "n_days": int(d["day"].nunique()) if not d.empty else 0,
+            "by_instrument": pd.DataFrame(by, columns=["instrument", "sensors", "n_inverters",
+                                                       "h_poa_kwhm2", "pr_stc"])}
 
 
 @_cache
@@ -188,56 +324,158 @@ def fleet_sites(url: str, end: dt.date) -> pd.DataFrame:
         k = period_kpis(wk).iloc[0]
         tk = period_kpis(tr.to_frame().T).iloc[0]
         info = site_info(url, site_id)
-        fl = queries.flags_overlapping(eng, site_id, day_to_s(w0, info["std_offset_s"]),
-                                       day_to_s(w1 + dt.timedelta(days=1),
-                                                info["std_offset_s"]))
+        fl = week_flags(url, site_id, end)
+        insts = inverter_instruments(url, site_id)["instrument"].unique()
         rows.append({"site_id": site_id, "name": info["name"],
                      "n_inverters": len(inverter_list(url, site_id)),
+                     "instruments": ", ".join(sorted(map(str, insts))),
                      "e_ac_kwh": k["e_ac_kwh"], "pr_stc": k["pr_stc"],
                      "d_trailing_pct": 100 * (k["pr_stc"] / tk["pr_stc"] - 1)
                      if tk["pr_stc"] and not pd.isna(tk["pr_stc"]) else np.nan,
-                     "avail_energy": k["avail_energy"], "n_flags": len(fl),
-                     "flags_lost_kwh": float(fl["lost_kwh"].fillna(0).sum())})
+                     "avail_energy": k["avail_energy"],
+                     "n_alarms": int((fl["severity"] == "alarm").sum()),
+                     "n_warnings": int((fl["severity"] == "warning").sum()),
+                     "n_flags": len(fl),
+                     "lost_week_kwh": float(fl["lost_week_kwh"].fillna(0).sum())})
     return pd.DataFrame(rows)
+
+
+#: Heatmaps show one column per day up to this many days, then one per week up to
+#: :data:`HEAT_WEEKLY_MAX_DAYS`, then one per month (a column stays wider than a few pixels
+#: on a 1440-pixel screen).
+HEAT_DAILY_MAX_DAYS = 120
+HEAT_WEEKLY_MAX_DAYS = 730
+
+
+def heat_period(start: dt.date, end: dt.date) -> str:
+    """``"day"``, ``"week"`` or ``"month"``: the column of a heatmap over ``[start, end]``."""
+    n = (end - start).days + 1
+    return "day" if n <= HEAT_DAILY_MAX_DAYS else "week" if n <= HEAT_WEEKLY_MAX_DAYS \
+        else "month"
+
+
+def aggregate_columns(wide: pd.DataFrame, period: str) -> pd.DataFrame:
+    """Mean over the days of each week or month of a device x day matrix (columns = days);
+    the new columns are the first day of each period."""
+    if wide.empty or period == "day":
+        return wide
+    starts = _period_start(wide.columns, period).date
+    out = wide.T.groupby(starts).mean().T
+    return out
+
+
+def _period_start(days, period: str) -> pd.DatetimeIndex:
+    idx = pd.DatetimeIndex(pd.to_datetime(pd.Series(list(days))))
+    if period == "week":  # weeks start on Monday (ISO 8601)
+        return idx - pd.to_timedelta(idx.dayofweek, unit="D")
+    if period == "month":
+        return idx.to_period("M").to_timestamp()
+    return idx
 
 
 @_cache
 def pr_relative_heatmap(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.DataFrame:
-    """Inverter x day matrix of 100 (PR_STC / site median that day − 1) [%], valid days only.
+    """Inverter x period matrix of 100 (PR_STC / median of the period − 1) [%], the median
+    taken over the site's inverters on the same POA instrument type.
 
-    Index: device_id; columns: every day in ``[start, end]`` (NaN where a day is not valid).
+    Periods are days up to :data:`HEAT_DAILY_MAX_DAYS` days, then ISO weeks, then months
+    (:func:`heat_period`); a week's or month's PR_STC is the ratio of sums over its valid
+    days (IEC 61724-1). Index: device_id; columns: the first day of every period in
+    ``[start, end]`` (NaN where an inverter has no valid day in it).
     """
-    d = queries.daily_rows(engine(url), site_id, start, end, columns=("pr_stc", "day_valid"))
-    d["pr_v"] = d["pr_stc"].where(d["day_valid"])
-    wide = d.pivot_table(index="device_id", columns="day", values="pr_v", aggfunc="first",
-                         dropna=False)
-    days = pd.date_range(start, end, freq="D").date
-    wide = wide.reindex(columns=days)
-    med = wide.median(axis=0, skipna=True)
+    d = queries.daily_rows(engine(url), site_id, start, end,
+                           columns=("pr_stc", "day_valid", "e_ac_pr_kwh", "e_ref_stc_kwh"))
+    period = heat_period(start, end)
+    if period == "day":
+        d["pr_v"] = d["pr_stc"].where(d["day_valid"])
+        wide = d.pivot_table(index="device_id", columns="day", values="pr_v", aggfunc="first",
+                             dropna=False)
+        cols = pd.date_range(start, end, freq="D").date
+    else:
+        v = d[d["day_valid"]].copy()
+        v["period"] = _period_start(v["day"], period).date
+        g = v.groupby(["device_id", "period"])[["e_ac_pr_kwh", "e_ref_stc_kwh"]].sum()
+        g["pr_v"] = g["e_ac_pr_kwh"] / g["e_ref_stc_kwh"].where(g["e_ref_stc_kwh"] > 0)
+        wide = g["pr_v"].unstack("period")
+        cols = sorted(set(_period_start(pd.date_range(start, end, freq="D").date, period).date))
+    wide = wide.reindex(columns=cols)
+    # relative to the median of the inverters on the same POA instrument type: a reference
+    # cell and a pyranometer are never compared (Dunn, Gostein & Emery 2012)
+    inst = inverter_instruments(url, site_id).set_index("device_id")["instrument"]
+    groups = inst.reindex(wide.index).fillna("unknown")
+    med = wide.groupby(groups).transform(lambda g: g.median(axis=0, skipna=True))
     return 100 * (wide / med - 1)
 
 
-def _flag_table(fl: pd.DataFrame, std_offset_s: int) -> pd.DataFrame:
+def is_ongoing(flag, data_end_s: int | None) -> bool:
+    """A flag still open at the end of the data: its details say so, or its span reaches the
+    last reading (within two hours)."""
+    det = flag.get("details")
+    if det is None:
+        det = _json_text(flag.get("details_json"))
+    if isinstance(det, dict) and det.get("ongoing") is True:
+        return True
+    return data_end_s is not None and int(flag["end_s"]) >= int(data_end_s) - 7200
+
+
+def _json_text(text):
+    import json
+
+    if not isinstance(text, str):
+        return None
+    try:
+        return json.loads(text)
+    except ValueError:
+        return None
+
+
+def duration_text(hours: float, ongoing: bool = False) -> str:
+    """A duration in words a reader takes in at once: minutes, hours or days; "so far" when
+    the event is still open."""
+    if hours is None or hours != hours:
+        return "–"
+    txt = (f"{hours * 60:.0f} min" if hours < 1 else f"{hours:.1f} h" if hours < 48
+           else f"{hours / 24:,.0f} days")
+    return txt + (" so far" if ongoing else "")
+
+
+def _flag_table(fl: pd.DataFrame, std_offset_s: int, data_end_s: int | None = None
+                ) -> pd.DataFrame:
     out = fl.copy()
     out["start_local"] = s_to_local(out["start_s"], std_offset_s).values
-    out["end_local"] = s_to_local(out["end_s"], std_offset_s).values
-    out["duration_h"] = (out["end_s"] - out["start_s"]) / 3600.0
+    out["ongoing"] = [is_ongoing(r, data_end_s) for r in out.to_dict("records")]
+    last = data_end_s if data_end_s is not None else out["end_s"]
+    span_end = np.where(out["ongoing"], last, out["end_s"]) if len(out) else []
+    # charts shade up to the end of the data for an open flag; tables say "ongoing"
+    out["end_local"] = s_to_local(pd.Series(span_end, dtype="float64"), std_offset_s).values
+    out["duration_h"] = (pd.Series(span_end, index=out.index, dtype=float)
+                         - out["start_s"]) / 3600.0
+    out["duration_text"] = [duration_text(h, o) for h, o in zip(out["duration_h"],
+                                                                 out["ongoing"], strict=True)]
+    out["kind_label"] = [kind_label(k) for k in out["kind"]]
+    out["severity_label"] = [SEVERITY_LABELS.get(s, str(s)) for s in out["severity"]]
+    out["device_label"] = [d if isinstance(d, str) and d else "whole site"
+                           for d in out["device_id"]]
     return out
 
 
 @_cache
 def week_flags(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
-    """Flags overlapping the week ending ``end``: new ones (starting in the week) first,
-    then by lost energy. Adds ``is_new``, ``start_local``, ``end_local``, ``duration_h``."""
+    """Flags overlapping the week ending ``end``: alarms, then warnings, then info; within a
+    severity new ones (starting in the week) and then the week's share of lost energy.
+    Adds ``is_new``, ``ongoing`` (still open at the end of the data), ``lost_week_kwh``
+    (the week's share of the flag's lost energy), ``start_local``, ``end_local`` (the end
+    of the data when ongoing), ``duration_h`` (so far, when ongoing) and human labels."""
     info = site_info(url, site_id)
-    w0, w1 = week_of(end)
-    a = day_to_s(w0, info["std_offset_s"])
-    b = day_to_s(w1 + dt.timedelta(days=1), info["std_offset_s"])
+    a, b = _week_bounds_s(url, site_id, end)
     fl = queries.flags_overlapping(engine(url), site_id, a, b)
     fl["is_new"] = (fl["start_s"] >= a).astype(bool)
-    fl = fl.sort_values(["is_new", "lost_kwh", "start_s"], ascending=[False, False, False],
-                        na_position="last")
-    return _flag_table(fl, info["std_offset_s"]).reset_index(drop=True)
+    fl = _with_week_share(url, site_id, fl, end)
+    fl["severity_rank"] = [SEVERITY_ORDER.get(s, 3) for s in fl["severity"]]
+    fl = fl.sort_values(["severity_rank", "is_new", "lost_week_kwh", "start_s"],
+                        ascending=[True, False, False, False], na_position="last")
+    return _flag_table(fl, info["std_offset_s"], readings_end(url, site_id)
+                       ).reset_index(drop=True)
 
 
 # ---------------------------------------------------------------- flags
@@ -255,7 +493,7 @@ def flags_for(url: str, site_id: str, device_ids: list[str] | None, start_s: int
     fl = queries.flags_overlapping(engine(url), site_id, start_s, end_s,
                                    device_ids=list(device_ids) if device_ids else None,
                                    include_site_wide=include_site_wide)
-    return _flag_table(fl, site_info(url, site_id)["std_offset_s"])
+    return _flag_table(fl, site_info(url, site_id)["std_offset_s"], readings_end(url, site_id))
 
 
 @_cache
@@ -263,7 +501,7 @@ def flags_in_window(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.
     info = site_info(url, site_id)
     fl = queries.flags_overlapping(engine(url), site_id, day_to_s(start, info["std_offset_s"]),
                                    day_to_s(end + dt.timedelta(days=1), info["std_offset_s"]))
-    return _flag_table(fl, info["std_offset_s"])
+    return _flag_table(fl, info["std_offset_s"], readings_end(url, site_id))
 
 
 def flag_window(fl: dict, pad_h: float = 24.0, max_days: float = 14.0) -> tuple[int, int]:
@@ -353,20 +591,136 @@ def flagged_days(chosen: pd.DataFrame, flags: pd.DataFrame, std_offset_s: int) -
 # ---------------------------------------------------------------- degradation
 
 
-#: The degradation job stores one extra row per device, method "overview": the headline
-#: rate plus, in ``details``, the method comparison and the warranty screening.
+#: The degradation job stores one extra row per device, method "overview": in ``details``
+#: the method comparison, change points and the warranty screening; and one row
+#: "recommended" (issue #13): the rate to show first, its reasons and caveats.
 SUMMARY_METHOD = "overview"
+RECOMMENDED = "recommended"
 
 
 @_cache
 def degradation_table(url: str, site_id: str) -> pd.DataFrame:
-    """Every degradation result of the site (one row per device and method), details parsed."""
-    return db_degradation.degradation_results(engine(url), site_id)
+    """Every degradation result of the site (one row per device and method), details parsed,
+    method codes as of results schema heliaudit-results/2 (older stores are mapped)."""
+    return normalise_methods(db_degradation.degradation_results(engine(url), site_id))
 
 
 def rates_only(results: pd.DataFrame) -> pd.DataFrame:
-    """The per-method rows (without the job's "overview" rows)."""
-    return results[results["method"] != SUMMARY_METHOD].reset_index(drop=True)
+    """The per-method rows (without the "overview" and "recommended" rows)."""
+    return results[~results["method"].isin([SUMMARY_METHOD, RECOMMENDED])].reset_index(
+        drop=True)
+
+
+def recommended(results: pd.DataFrame, device_id: str) -> dict | None:
+    """The recommended rate of a device with its reasons and caveats
+    (:func:`analytics.reporting.recommended_rate`)."""
+    return recommended_rate(results, device_id)
+
+
+@_cache
+def pair_rates(url: str, site_id: str, device_id: str) -> pd.Series:
+    """The year-on-year pair rates (Jordan et al. 2018) of one inverter or the site, from
+    the daily performance index as the degradation job selects it
+    (:func:`analytics.degradation.usable_daily_pi` with the stored stabilisation period;
+    for the site Σ e_ac_valid / Σ e_exp_valid over inverters with a usable day, on days
+    where at least half of them have one). Indexed by the earlier day of each pair. [%/yr]"""
+    comp = db_degradation.last_computation(engine(url), site_id) or {}
+    params = comp.get("params") or {}
+    stab = int(params.get("stabilisation_days", 180))
+    frac = float(params.get("site_min_inverter_fraction", 0.5))
+    inv = inverter_list(url, site_id).set_index("device_id")
+    ids = list(inv.index) if device_id == "(site)" else [device_id]
+    d = queries.daily_rows(engine(url), site_id, device_ids=ids,
+                           columns=("pi", "day_valid", "e_ac_valid_kwh", "e_exp_valid_kwh",
+                                    "details_json"))
+    usable = {}
+    for dev, g in d.groupby("device_id"):
+        g = g.set_index(pd.DatetimeIndex(pd.to_datetime(g["day"])))
+        g = trend_index(g)  # the daily index for trends, as the degradation job uses it
+        s_, _ = usable_daily_pi(g["pi"], g["day_valid"], commissioned=inv.loc[dev, "commissioned"],
+                                stabilisation_days=stab)
+        usable[dev] = (s_, g)
+    if device_id != "(site)":
+        series = usable[device_id][0] if device_id in usable else pd.Series(dtype=float)
+    else:
+        num = pd.concat([g["e_ac_valid_kwh"].reindex(s_.index) for s_, g in usable.values()],
+                        axis=1, sort=True).sum(axis=1, min_count=1)
+        den = pd.concat([g["e_exp_valid_kwh"].reindex(s_.index) for s_, g in usable.values()],
+                        axis=1, sort=True).sum(axis=1, min_count=1)
+        n = pd.concat([pd.Series(1, s_.index) for s_, _ in usable.values()], axis=1,
+                      sort=True).sum(axis=1)
+        ok = (n >= frac * len(usable)) & (den > 0)
+        series = (num / den)[ok]
+    if series.empty:
+        return pd.Series(dtype=float, name="rd_pct_per_yr")
+    return yoy_rates(series)
+
+
+@_cache
+def pair_grid(url: str, site_id: str, device_id: str) -> pd.DataFrame:
+    """Year x season medians of the pair rates (:func:`analytics.reporting.pair_rate_grid`)."""
+    return pair_rate_grid(pair_rates(url, site_id, device_id))
+
+
+@_cache
+def soiling_summary(url: str, site_id: str) -> dict | None:
+    """The site's soiling result for its own panel: the insolation-weighted loss over the
+    whole period (1 − SR, Deceglie et al. 2018) with its Monte-Carlo range, the present loss
+    and soiling rate, the cleaning economics, and the lost energy of every dry period.
+    None when the site has no soiling flag."""
+    fl = queries.flags_overlapping(engine(url), site_id, kinds=["soiling"])
+    if fl.empty:
+        return None
+    fl = fl.sort_values("start_s").reset_index(drop=True)
+    dets = [(_json_text(t) or {}) for t in fl["details_json"]]
+    last = next((d for d in reversed(dets) if _soiling_site_ratio(d) is not None), dets[-1])
+    sr = _soiling_site_ratio(last)
+    # the Monte-Carlo range: top-level `soiling_ratio_weighted_low/_high`, or (older
+    # stores) a nested dict of percentiles
+    mc = {k: v for k, v in last.items() if k in ("soiling_ratio_weighted_low",
+                                                 "soiling_ratio_weighted_high")}
+    if not mc:
+        mc = next((v for v in last.values() if isinstance(v, dict)
+                   and any(str(k).endswith("_low") for k in v)
+                   and any(str(k).endswith("_high") for k in v)), {})
+    lo = next((v for k, v in mc.items() if str(k).endswith("_low")), None)
+    hi = next((v for k, v in mc.items() if str(k).endswith("_high")), None)
+    period = next((v for k, v in last.items() if str(k).endswith("_period")
+                   and isinstance(v, list)), None)
+    econ = economics(url, site_id)
+    periods = pd.DataFrame({
+        "first_day": [d.get("first_day") for d in dets],
+        "last_day": [d.get("last_day") for d in dets],
+        "lost_kwh": fl["lost_kwh"].astype(float),
+        "loss_at_end_pct": [d.get("loss_at_end_pct") for d in dets],
+        "rate_pct_per_day": [d.get("soiling_rate_pct_per_day") for d in dets],
+        "severity": fl["severity"]})
+    periods["lost_revenue"] = (periods["lost_kwh"] * econ["tariff_per_kwh"]
+                               if econ else np.nan)
+    return {"loss_pct": None if sr is None else 100 * (1 - sr),
+            "loss_low_pct": None if hi is None else 100 * (1 - hi),
+            "loss_high_pct": None if lo is None else 100 * (1 - lo),
+            "mc_assumption": next((v for k, v in last.items() if str(k).endswith("assumption")),
+                                  None),
+            "period": period, "current_loss_pct": last.get("current_loss_pct"),
+            "rate_pct_per_day": last.get("soiling_rate_pct_per_day"),
+            "rate_ci_pct_per_day": last.get("soiling_rate_ci_pct_per_day"),
+            "recommendation": last.get("recommendation"),
+            "recommend_cleaning": last.get("recommend_cleaning"),
+            "cleaning_cost": last.get("cleaning_cost"),
+            "saving": last.get("expected_saving_next_days"),
+            "horizon_days": last.get("horizon_days"),
+            "t_star_days": last.get("cleaning_interval_days_opt"),
+            "currency": last.get("currency") or econ.get("currency", ""),
+            "caution": last.get("caution"), "ongoing": bool(last.get("ongoing")),
+            "periods": periods}
+
+
+def _soiling_site_ratio(d: dict):
+    for k in ("soiling_ratio_weighted", "soiling_ratio_weighted_site", "sr_iw_site"):
+        if isinstance(d.get(k), (int, float)):
+            return float(d[k])
+    return None
 
 
 def summary_details(results: pd.DataFrame, device_id: str) -> dict:
@@ -404,22 +758,6 @@ def _num(x):
     return None if x is None or pd.isna(x) else float(x)
 
 
-def yoy_histogram_data(results: pd.DataFrame, device_id: str, method: str = "sensor_year_pairs") -> dict | None:
-    """The stored year-on-year pair-rate histogram (``edges_pct_per_yr``, ``counts``) of one
-    device, with its rate and interval; None when not stored."""
-    r = results[(results["device_id"] == device_id) & (results["method"] == method)]
-    if r.empty:
-        return None
-    r = r.iloc[0]
-    h = (r["details"] or {}).get("pair_rate_distribution")
-    if not h or not h.get("counts"):
-        return None
-    return {"edges": h["edges_pct_per_yr"], "counts": h["counts"],
-            "rate": _num(r["rate_pct_per_yr"]), "ci": (_num(r["ci_low"]), _num(r["ci_high"])),
-            "ci_68": (r["details"] or {}).get("ci_68"), "confidence": _num(r["confidence"]),
-            "n_points": r["n_points"]}
-
-
 @_cache
 def warranty_terms(url: str, site_id: str) -> dict | None:
     """The ``[warranty]`` table of the site's configuration as loaded (None when absent)."""
@@ -441,21 +779,28 @@ def warranty_terms(url: str, site_id: str) -> dict | None:
 
 @_cache
 def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict | None:
-    """Warranted envelope against the measured index for one inverter (or ``"(site)"``).
+    """Warranted envelope against the measured index for one inverter (or ``"(site)"``),
+    for the rate of ``method`` (the recommended method by default on the page).
 
     Monthly insolation-weighted PI (ratio of sums of valid days,
     :func:`analytics.performance_ratio.period_sums`) goes to
-    :func:`analytics.warranty.warranty_envelope` with the stored rate of ``method``;
-    :func:`analytics.warranty.warranty_rate_test` gives the one-sided verdict. Returns
-    ``envelope`` (years, warranted_pct), ``measured`` (years, index_pct, lo_pct, hi_pct from the
-    rate interval), ``monthly`` (years, relative_pct), ``shortfall_kwh``, ``months_below``,
-    ``test`` and ``terms``; None without warranty terms or a rate.
+    :func:`analytics.warranty.warranty_envelope` with the stored rate of ``method``. The
+    one-sided verdict is the stored one when the degradation job screened the same method
+    (so the page says what ``heliaudit results`` says), else
+    :func:`analytics.warranty.warranty_rate_test` with the run's extra uncertainty. The
+    shortfall is the part the rate attributes to degradation
+    (:func:`analytics.reporting.shortfall_from_rate`), not the monthly dips. Returns
+    ``envelope`` (years, warranted_pct), ``measured`` (years, index_pct, lo_pct, hi_pct),
+    ``monthly`` (years, relative_pct), ``shortfall_kwh``, ``months_below`` (monthly index
+    under the envelope), ``test`` and ``terms``; None without warranty terms or a rate.
     """
     res = degradation_table(url, site_id)
     stored = summary_details(res, device_id).get("warranty") or {}
-    if stored.get("envelope") and stored.get("method") == method:
-        return _stored_warranty(stored, res, device_id)
+    stored_method = method_code(stored.get("measured_method") or stored.get("method"))
     terms = warranty_terms(url, site_id)
+    if terms is None and stored.get("terms"):
+        terms = dict(stored["terms"])
+        terms["start_date"] = dt.date.fromisoformat(str(terms["start_date"])[:10])
     r = res[(res["device_id"] == device_id) & (res["method"] == method)]
     if terms is None or r.empty or pd.isna(r["rate_pct_per_yr"].iloc[0]):
         return None
@@ -476,13 +821,40 @@ def warranty_view(url: str, site_id: str, device_id: str, method: str) -> dict |
                             first_year_loss_pct=terms["first_year_loss_pct"],
                             annual_loss_pct=terms["annual_loss_pct"],
                             term_years=terms["years"], rate_pct_per_yr=rate)
-    test = None
-    if _num(r["ci_high"]) is not None and _num(r["confidence"]) is not None:
-        test = warranty_rate_test(rate, float(r["ci_high"]), float(r["confidence"]),
-                                  annual_loss_pct=terms["annual_loss_pct"],
-                                  confidence=terms["confidence"])
-    return _warranty_frames(terms, r, method, pd.DataFrame(env["months"]),
-                            env["shortfall_kwh"], env["months_below"], test)
+    months = pd.DataFrame(env["months"])
+    months_below, monthly_kwh = env["months_below"], env["shortfall_kwh"]
+    if stored_method == method and stored.get("envelope"):
+        # the job's envelope (de-seasonalised index) and figures: what `heliaudit results`
+        # exports, so the page never shows another number for the same thing
+        months = pd.DataFrame(stored["envelope"])
+        months_below = stored.get("months_below")
+        monthly_kwh = stored.get("shortfall_kwh")
+    if stored_method == method and "exceeds" in stored:
+        test = {k: stored[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
+                                       "warranted_rate_pct_per_yr") if k in stored}
+    elif _num(r["ci_high"]) is not None and _num(r["confidence"]) is not None:
+        comp = db_degradation.last_computation(engine(url), site_id) or {}
+        extra = float((comp.get("params") or {}).get("sigma_extra_pct_per_yr", 0.0) or 0.0)
+        try:
+            test = warranty_rate_test(rate, float(r["ci_high"]), float(r["confidence"]),
+                                      annual_loss_pct=terms["annual_loss_pct"],
+                                      confidence=terms["confidence"],
+                                      sigma_extra_pct_per_yr=extra)
+        except TypeError:  # an analytics version without the extra-uncertainty term
+            test = warranty_rate_test(rate, float(r["ci_high"]), float(r["confidence"]),
+                                      annual_loss_pct=terms["annual_loss_pct"],
+                                      confidence=terms["confidence"])
+    else:
+        test = None
+    shortfall = None
+    if not months.empty:
+        e = e_m.reindex(pd.DatetimeIndex(pd.to_datetime(months["month"] + "-01"))).to_numpy()
+        shortfall = shortfall_from_rate(months["years"].to_numpy(dtype=float), e,
+                                        months["warranted"].to_numpy(dtype=float), rate)
+    out = _warranty_frames(terms, r, method, months, shortfall, months_below, test)
+    out["shortfall_monthly_kwh"] = monthly_kwh
+    out["stored"] = stored_method == method and bool(stored.get("envelope"))
+    return out
 
 
 def _warranty_frames(terms: dict, r, method: str, months: pd.DataFrame, shortfall_kwh,
@@ -505,16 +877,6 @@ def _warranty_frames(terms: dict, r, method: str, months: pd.DataFrame, shortfal
             "monthly": (months.assign(relative_pct=100 * months["relative"])
                         if not months.empty else months),
             "shortfall_kwh": shortfall_kwh, "months_below": months_below, "test": test}
-
-
-def _stored_warranty(w: dict, res: pd.DataFrame, device_id: str) -> dict:
-    """The warranty block the degradation job stored, as frames for the chart."""
-    r = res[(res["device_id"] == device_id) & (res["method"] == w["method"])].iloc[0]
-    test = ({k: w[k] for k in ("exceeds", "verdict", "one_sided_upper_pct_per_yr",
-                               "warranted_rate_pct_per_yr") if k in w}
-            if "exceeds" in w else None)
-    return _warranty_frames(dict(w["terms"]), r, w["method"], pd.DataFrame(w["envelope"]),
-                            w.get("shortfall_kwh"), w.get("months_below"), test)
 
 
 # ---------------------------------------------------------------- drill-down
@@ -665,15 +1027,28 @@ def sensor_flags(url: str, site_id: str, start: dt.date, end: dt.date) -> pd.Dat
     return fl[keep].reset_index(drop=True)
 
 
-def flag_label(f) -> str:
-    """One-line label of a flag row: ``#id device — kind (severity), start → end``."""
-    dev = f.device_id if isinstance(f.device_id, str) and f.device_id else "site"
-    lost = (f" · {f.lost_kwh:,.0f} kWh lost" if f.lost_kwh is not None and f.lost_kwh == f.lost_kwh
-            and f.lost_kwh > 0 else "")
-    a, b = pd.Timestamp(f.start_local), pd.Timestamp(f.end_local)
-    span = (f"{a:%Y-%m-%d %H:%M}–{b:%H:%M}" if a.date() == b.date()
-            else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
-    return f"#{f.flag_id} {dev} · {f.kind} ({f.severity}) · {span}{lost}"
+def flag_label(f, econ: dict | None = None) -> str:
+    """One-line label of a flag row in words: ``#id device — kind (severity), span``; an
+    ongoing flag says "since" its start instead of inventing an end."""
+    dev = f.device_id if isinstance(f.device_id, str) and f.device_id else "whole site"
+    lost = getattr(f, "lost_week_kwh", None)
+    if lost is not None and lost == lost and lost > 0:
+        lost_txt = f" · {lost:,.0f} kWh lost this week"
+        if money(lost, econ or {}):
+            lost_txt += f" ({money(lost, econ)})"
+    else:
+        lost = f.lost_kwh
+        lost_txt = (f" · {lost:,.0f} kWh lost" if lost is not None and lost == lost
+                    and lost > 0 else "")
+    a = pd.Timestamp(f.start_local)
+    if getattr(f, "ongoing", False):
+        span = f"since {a:%Y-%m-%d %H:%M}, ongoing"
+    else:
+        b = pd.Timestamp(f.end_local)
+        span = (f"{a:%Y-%m-%d %H:%M}–{b:%H:%M}" if a.date() == b.date()
+                else f"{a:%Y-%m-%d} → {b:%Y-%m-%d}")
+    sev = SEVERITY_LABELS.get(f.severity, str(f.severity)).lower()
+    return f"#{f.flag_id} {dev} · {kind_label(f.kind)} ({sev}) · {span}{lost_txt}"
 
 
 # ---------------------------------------------------------------- evidence pack (issue #17)

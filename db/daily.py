@@ -21,6 +21,7 @@ VALUE_COLUMNS: tuple[str, ...] = tuple(
     c.name for c in schema.daily_inverter.columns
     if c.name not in ("device_pk", "day", "computation_id"))
 _INT_COLUMNS = {"n_intervals", "n_daylight", "n_valid"}
+_TEXT_COLUMNS = {"details_json", "irradiance_basis", "t_cell_basis"}
 
 
 def _device_pks(conn: sa.Connection, site_id: str) -> dict[str, int]:
@@ -41,7 +42,7 @@ def _records(rows: pd.DataFrame, pks: dict[str, int], computation_id: int | None
             data[c] = [None] * n
         elif c == "day_valid":
             data[c] = [bool(x) for x in rows[c].tolist()]
-        elif c == "details_json":
+        elif c in _TEXT_COLUMNS:
             data[c] = [None if x is None or (isinstance(x, float) and np.isnan(x)) else str(x)
                        for x in rows[c].tolist()]
         elif c in _INT_COLUMNS:
@@ -146,7 +147,7 @@ def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None
     if len(out) and isinstance(out["day"].iloc[0], str):
         out["day"] = pd.to_datetime(out["day"], format="%Y-%m-%d").dt.date
     for c in VALUE_COLUMNS:
-        if c in ("day_valid", "details_json"):
+        if c == "day_valid" or c in _TEXT_COLUMNS:
             continue
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(
             "int64" if c in _INT_COLUMNS else "float64")

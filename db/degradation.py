@@ -94,6 +94,17 @@ def ghi_channels(engine: sa.Engine, site_id: str) -> list[tuple[str, int]]:
         return [(r[0], int(r[1])) for r in conn.execute(q)]
 
 
+def irradiance_channels(engine: sa.Engine, site_id: str) -> list[tuple[str, str, int]]:
+    """``(sensor_id, quantity, channel_id)`` of every GHI and POA sensor of the site, by id."""
+    d, c = schema.device, schema.channel
+    q = (sa.select(d.c.device_id, c.c.quantity, c.c.channel_id)
+         .join(c, c.c.device_pk == d.c.device_pk)
+         .where(d.c.site_id == site_id, c.c.quantity.in_(("ghi_wm2", "poa_wm2")))
+         .order_by(d.c.device_id, c.c.quantity))
+    with engine.connect() as conn:
+        return [(r[0], r[1], int(r[2])) for r in conn.execute(q)]
+
+
 def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
                     ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Interval inputs of the clear-sky method, and nothing else: AC power and module

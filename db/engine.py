@@ -9,6 +9,7 @@ an ingest writes.
 
 from __future__ import annotations
 
+import hashlib
 import os
 from pathlib import Path
 
@@ -60,3 +61,50 @@ def make_engine(url: str | os.PathLike | None = None, *, create: bool = True) ->
 
 def is_sqlite(engine: sa.Engine) -> bool:
     return engine.dialect.name == "sqlite"
+
+
+def write_lock(conn: sa.Connection, name: str) -> None:
+    """Serialise writers on ``name`` for the rest of ``conn``'s transaction.
+
+    SQLite: start the transaction with ``BEGIN IMMEDIATE`` (the database's one write lock,
+    waiting up to the busy timeout), so what the transaction reads next cannot be changed by
+    another writer before it commits. Must be the transaction's first statement.
+    PostgreSQL: a transaction-scoped advisory lock on a 64-bit hash of ``name``
+    (``pg_advisory_xact_lock``), released at commit or rollback.
+    """
+    if conn.dialect.name == "sqlite":
+        raw = conn.connection.driver_connection
+        if not raw.in_transaction:
+            conn.exec_driver_sql("BEGIN IMMEDIATE")
+    elif conn.dialect.name == "postgresql":
+        k = int.from_bytes(hashlib.sha256(name.encode("utf-8")).digest()[:8], "big", signed=True)
+        conn.execute(sa.text("SELECT pg_advisory_xact_lock(:k)"), {"k": k})
+
+
+def is_busy(exc: BaseException) -> bool:
+    """Whether a database error means another writer holds the lock (SQLite ``database is
+    locked``), so the same work may simply be tried again."""
+    text = str(getattr(exc, "orig", exc)).lower()
+    return "database is locked" in text or "database table is locked" in text
+
+
+def display_url(url: str | os.PathLike | None) -> str:
+    """The database URL as shown to a user: the password replaced by ``***``."""
+    full = resolve_url(url)
+    try:
+        return sa.engine.make_url(full).render_as_string(hide_password=True)
+    except Exception:  # noqa: BLE001 - not a URL SQLAlchemy can parse: hide anything after ':' before '@'
+        import re
+
+        return re.sub(r"(://[^:/@]*:)[^@]*@", r"\1***@", full)
+
+
+def mask_secrets(text: str, url: str | os.PathLike | None) -> str:
+    """``text`` with the password of ``url`` (if any) replaced by ``***``."""
+    try:
+        pw = sa.engine.make_url(resolve_url(url)).password
+    except Exception:  # noqa: BLE001
+        pw = None
+    if pw:
+        text = text.replace(str(pw), "***")
+    return text

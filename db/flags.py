@@ -17,10 +17,11 @@ import sqlalchemy as sa
 from db import schema
 from db.jsontext import to_json
 
-#: Stable flag kinds (issue #5); other strings are refused.
+#: Stable flag kinds (issues #5, #14); other strings are refused.
 FLAG_KINDS = ("underperformance", "outage", "clipping", "soiling", "cleaning", "sensor_range",
               "sensor_flatline", "sensor_dropout", "sensor_night", "sensor_drift",
-              "clock_shift", "counter_mismatch")
+              "clock_shift", "counter_mismatch", "sensor_implausible", "stopped_reporting",
+              "power_limit", "input_mismatch", "data_dropout")
 SEVERITIES = ("info", "warning", "alarm")
 READ_COLUMNS = ("flag_id", "site_id", "device_id", "kind", "start_s", "end_s", "severity",
                 "lost_kwh", "details_json")

@@ -18,11 +18,19 @@ import sqlalchemy as sa
 
 from db import schema
 from db.computations import now_utc
+from db.engine import write_lock
 from ingest.errors import Rejected
 
 B = schema.ingest_batch
 COUNT_FIELDS = ("rows_read", "rows_loaded", "rows_duplicate", "rows_rejected", "values_loaded",
                 "values_duplicate", "values_conflict", "values_rejected")
+
+
+def lock_file(conn: sa.Connection, site_id: str, sha256: str) -> None:
+    """Hold the lock under which a file's duplicate check and load run (see
+    :func:`db.engine.write_lock`): the first statement of the file's transaction, so two
+    processes loading the same file at once load it once."""
+    write_lock(conn, f"heliaudit:file:{site_id}:{sha256}")
 
 
 def loaded_batch_with_sha(conn: sa.Connection, site_id: str, sha256: str) -> int | None:
@@ -32,13 +40,38 @@ def loaded_batch_with_sha(conn: sa.Connection, site_id: str, sha256: str) -> int
         .order_by(B.c.batch_id.desc()).limit(1)).scalar()
 
 
+def source_timestamp_offsets(conn: sa.Connection, site_id: str, source_name: str) -> bool | None:
+    """Whether the loaded files of a source had timestamps with UTC offsets (the decision
+    recorded in the notes of its latest loaded batch that made one), or None."""
+    rows = conn.execute(sa.select(B.c.notes_json).where(
+        B.c.site_id == site_id, B.c.source_name == source_name, B.c.status == "loaded",
+        B.c.notes_json.is_not(None)).order_by(B.c.batch_id.desc()).limit(50)).scalars()
+    for text in rows:
+        try:
+            val = json.loads(text).get("timestamp_offsets")
+        except (ValueError, AttributeError):
+            continue
+        if isinstance(val, bool):
+            return val
+    return None
+
+
+def _text(s: str | None, limit: int | None = None) -> str | None:
+    """Text as the store can hold it: NUL (which PostgreSQL text cannot hold) and lone
+    surrogates shown as U+FFFD; cut to ``limit`` characters."""
+    if s is None:
+        return None
+    s = str(s).replace("\x00", "\ufffd").encode("utf-8", "replace").decode("utf-8")
+    return s if limit is None or len(s) <= limit else s[: limit - 1] + "…"
+
+
 def start_batch(conn: sa.Connection, *, site_id: str, source_name: str, file_name: str,
                 file_path: str, sha256: str, size_bytes: int, status: str = "loading",
                 message: str | None = None, notes: dict | None = None) -> int:
     res = conn.execute(B.insert().values(
-        site_id=site_id, source_name=source_name, file_name=file_name, file_path=file_path,
-        sha256=sha256, size_bytes=size_bytes, started_utc=now_utc(), status=status,
-        message=message, notes_json=json.dumps(notes) if notes else None,
+        site_id=site_id, source_name=source_name, file_name=_text(file_name),
+        file_path=_text(file_path), sha256=sha256, size_bytes=size_bytes, started_utc=now_utc(),
+        status=status, message=_text(message), notes_json=json.dumps(notes) if notes else None,
         **{f: 0 for f in COUNT_FIELDS}))
     return int(res.inserted_primary_key[0])
 
@@ -49,7 +82,7 @@ def finish_batch(conn: sa.Connection, batch_id: int, *, status: str, counts: dic
     conn.execute(B.update().where(B.c.batch_id == batch_id).values(
         status=status, finished_utc=now_utc(), ts_first_s=ts_first_s, ts_last_s=ts_last_s,
         interval_s=interval_s, notes_json=json.dumps(notes, default=str) if notes else None,
-        message=message, **{f: int(counts.get(f, 0)) for f in COUNT_FIELDS}))
+        message=_text(message), **{f: int(counts.get(f, 0)) for f in COUNT_FIELDS}))
 
 
 def record_batch(engine: sa.Engine, *, status: str, message: str | None, **fields) -> int:
@@ -61,8 +94,8 @@ def record_batch(engine: sa.Engine, *, status: str, message: str | None, **field
 
 
 def add_rejected(conn: sa.Connection, batch_id: int, rejected: Iterable[Rejected]) -> int:
-    rows = [dict(batch_id=batch_id, line_no=int(r.line), column_name=r.column, reason=r.reason,
-                 raw_text=r.raw) for r in rejected]
+    rows = [dict(batch_id=batch_id, line_no=int(r.line), column_name=_text(r.column),
+                 reason=_text(r.reason), raw_text=_text(r.raw)) for r in rejected]
     if rows:
         conn.execute(schema.rejected_row.insert(), rows)
     return len(rows)

@@ -15,6 +15,7 @@ import sqlalchemy as sa
 
 from db import schema
 from db.computations import now_utc
+from db.engine import write_lock
 
 
 class SchemaTooNewError(RuntimeError):
@@ -93,6 +94,31 @@ def _v4_reading_interval(conn: sa.Connection) -> None:
 STEPS[4] = _v4_reading_interval
 
 
+def _v5_site_model(conn: sa.Connection) -> None:
+    """Site model (#11): daily_inverter.irradiance_basis / t_cell_basis; inverter.commissioned
+    and t_module_sensor_id may be unknown (NULL)."""
+    insp = sa.inspect(conn)
+    cols = {c["name"] for c in insp.get_columns("daily_inverter")}
+    for name in ("irradiance_basis", "t_cell_basis"):
+        if name not in cols:
+            conn.execute(sa.text(f"ALTER TABLE daily_inverter ADD COLUMN {name} VARCHAR(64)"))
+    nullable = {c["name"]: c["nullable"] for c in insp.get_columns("inverter")}
+    if nullable.get("commissioned") and nullable.get("t_module_sensor_id"):
+        return
+    if conn.dialect.name == "sqlite":  # SQLite cannot drop NOT NULL: rebuild the table
+        conn.execute(sa.text("ALTER TABLE inverter RENAME TO inverter_v4"))
+        schema.inverter.create(conn)
+        names = ", ".join(c.name for c in schema.inverter.columns)
+        conn.execute(sa.text(f"INSERT INTO inverter ({names}) SELECT {names} FROM inverter_v4"))
+        conn.execute(sa.text("DROP TABLE inverter_v4"))
+    else:
+        conn.execute(sa.text("ALTER TABLE inverter ALTER COLUMN commissioned DROP NOT NULL, "
+                             "ALTER COLUMN t_module_sensor_id DROP NOT NULL"))
+
+
+STEPS[5] = _v5_site_model
+
+
 def current_version(conn: sa.Connection) -> int | None:
     if not sa.inspect(conn).has_table("schema_version"):
         return None
@@ -100,8 +126,23 @@ def current_version(conn: sa.Connection) -> int | None:
 
 
 def upgrade(engine: sa.Engine, target: int = schema.SCHEMA_VERSION) -> int:
-    """Create or migrate the schema of ``engine`` to ``target``; return the version reached."""
+    """Create or migrate the schema of ``engine`` to ``target``; return the version reached.
+
+    Safe when several processes start at once on a new or old database: a first look
+    without a lock; if anything is to be done, it is done under the store's write lock
+    (:func:`db.engine.write_lock`) after looking again, so one process creates or migrates
+    and the others find it done.
+    """
+    with engine.connect() as conn:
+        version = current_version(conn)
+    if version is not None and version > target:
+        raise SchemaTooNewError(
+            f"the database has schema version {version}, this heliaudit knows up to {target}; "
+            "upgrade heliaudit before using this database")
+    if version == target and _complete(engine):
+        return target
     with engine.begin() as conn:
+        write_lock(conn, "heliaudit:schema")
         version = current_version(conn)
         if version is None:
             schema.metadata.create_all(conn)
@@ -114,9 +155,21 @@ def upgrade(engine: sa.Engine, target: int = schema.SCHEMA_VERSION) -> int:
             "upgrade heliaudit before using this database")
     for step in range(version + 1, target + 1):
         with engine.begin() as conn:
+            write_lock(conn, "heliaudit:schema")
+            if (current_version(conn) or 0) >= step:
+                continue  # another process did this step meanwhile
             STEPS[step](conn)
             conn.execute(schema.schema_version.insert().values(
                 version=step, applied_utc=now_utc(), note=STEPS[step].__doc__ or ""))
     # tables added in later versions without data changes
-    schema.metadata.create_all(engine)
+    with engine.begin() as conn:
+        write_lock(conn, "heliaudit:schema")
+        schema.metadata.create_all(conn)
     return target
+
+
+def _complete(engine: sa.Engine) -> bool:
+    """Whether every table of :mod:`db.schema` exists (tables added without a version step)."""
+    with engine.connect() as conn:
+        have = set(sa.inspect(conn).get_table_names())
+    return all(t in have for t in schema.metadata.tables)

@@ -88,6 +88,21 @@ def previous_reading(conn: sa.Connection, channel_id: int, before_s: int) -> tup
     return (int(row[0]), float(row[1])) if row else None
 
 
+def next_reading(conn: sa.Connection, channel_id: int, after_s: int) -> tuple[int, float] | None:
+    """The first stored ``(ts_s, value)`` of a channel strictly after ``after_s``, or None."""
+    r = schema.reading
+    row = conn.execute(sa.select(r.c.ts_s, r.c.value).where(
+        r.c.channel_id == channel_id, r.c.ts_s > after_s).order_by(r.c.ts_s).limit(1)).first()
+    return (int(row[0]), float(row[1])) if row else None
+
+
+def has_reading(conn: sa.Connection, channel_id: int, ts_s: int) -> bool:
+    """Whether a reading is stored for ``(channel_id, ts_s)``."""
+    r = schema.reading
+    return conn.execute(sa.select(r.c.ts_s).where(
+        r.c.channel_id == channel_id, r.c.ts_s == ts_s)).first() is not None
+
+
 def write_readings(conn: sa.Connection, channel_id: np.ndarray, ts_s: np.ndarray,
                    value: np.ndarray, batch_id: int, *, upsert: bool,
                    interval_s: np.ndarray | None = None) -> int:

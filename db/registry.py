@@ -12,7 +12,8 @@ import sqlalchemy as sa
 
 from db import schema
 from db.computations import now_utc
-from ingest.config import SiteConfig
+from db.engine import write_lock
+from ingest.config import INVERTER_QUANTITIES, SiteConfig
 
 DERIVED = {"e_ac_total_kwh": "e_ac_kwh"}  # counter quantity -> the quantity ingest derives
 
@@ -33,6 +34,12 @@ def channel_specs(cfg: SiteConfig) -> dict[str, dict[tuple[str, str], str]]:
                 out[c.device][key] = sampling
             elif sampling != "mean":
                 out[c.device][key] = sampling
+        inv_ids = {i.id for i in cfg.inverters}
+        for name, sampling in (getattr(src, "quantity_sampling", None) or {}).items():
+            q = src.quantity_names[name][0]
+            for dev, specs in out.items():
+                if (q, "") in specs and ((dev in inv_ids) == (q in INVERTER_QUANTITIES)):
+                    specs[(q, "")] = sampling
     return out
 
 
@@ -62,6 +69,7 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
     """Insert or update the site, its devices and channels; return the channel map."""
     if isinstance(engine_or_conn, sa.Engine):
         with engine_or_conn.begin() as conn:
+            write_lock(conn, f"heliaudit:site:{cfg.id}")  # two ingests of a new site at once
             return register_site(conn, cfg)
     conn = engine_or_conn
     t = schema.site
@@ -91,7 +99,7 @@ def register_site(engine_or_conn: sa.Engine | sa.Connection, cfg: SiteConfig) ->
         vals = dict(p_dc_kwp=inv.p_dc_kwp, p_ac_max_kw=inv.p_ac_max_kw,
                     gamma_pmp_per_c=inv.gamma_pmp_per_c, eta_inv_nom=inv.eta_inv_nom,
                     mounting=inv.mounting, commissioned=inv.commissioned,
-                    poa_sensor_id=inv.poa_sensor, t_module_sensor_id=inv.t_module_sensor,
+                    poa_sensor_id=inv.irradiance_sensor, t_module_sensor_id=inv.t_module_sensor,
                     t_amb_sensor_id=inv.t_amb_sensor, wind_sensor_id=inv.wind_sensor,
                     peer_group=inv.peer_group)
         _upsert_by_pk(conn, schema.inverter, have[inv.id], vals)

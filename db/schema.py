@@ -13,8 +13,9 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 4  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
-#                    4: reading.interval_s, channel.sampling/input_id (#11)
+SCHEMA_VERSION = 5  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+#                    4: reading.interval_s, channel.sampling/input_id (#11);
+#                    5: site model: daily bases, optional commissioning/module sensor (#11)
 
 metadata = sa.MetaData()
 
@@ -60,9 +61,10 @@ inverter = sa.Table(
     sa.Column("gamma_pmp_per_c", sa.Float, nullable=False),
     sa.Column("eta_inv_nom", sa.Float, nullable=False),
     sa.Column("mounting", sa.String(48), nullable=False),
-    sa.Column("commissioned", sa.Date, nullable=False),
+    sa.Column("commissioned", sa.Date),  # v3: None when unknown (#11)
+    # the irradiance sensor of the inverter's (first) array: POA or, since v3, GHI (#11)
     sa.Column("poa_sensor_id", sa.String(64), nullable=False),
-    sa.Column("t_module_sensor_id", sa.String(64), nullable=False),
+    sa.Column("t_module_sensor_id", sa.String(64)),  # v3: None = modelled cell temperature
     sa.Column("t_amb_sensor_id", sa.String(64)),
     sa.Column("wind_sensor_id", sa.String(64)),
     sa.Column("peer_group", sa.String(64), nullable=False),
@@ -188,6 +190,10 @@ daily_inverter = sa.Table(
     # energy value): the numerator matching e_ref_kwh / e_ref_stc_kwh / e_ref_tcell_kwhc.
     # pr = e_ac_pr_kwh / e_ref_kwh; equals e_ac_kwh when no POA reading is missing.
     sa.Column("e_ac_pr_kwh", sa.Float),
+    # v3 (#11): where the day's irradiance and cell temperature came from, as codes
+    # (ingest.site_model.IRRADIANCE_BASES, analytics.daily.T_CELL_BASES); sums keep their meaning
+    sa.Column("irradiance_basis", sa.String(64)),
+    sa.Column("t_cell_basis", sa.String(64)),
 )
 
 # flag: owned by the flags issue (#5).

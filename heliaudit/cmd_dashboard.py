@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import signal
 import socket
 import subprocess
 import sys
@@ -13,7 +14,7 @@ from pathlib import Path
 
 import click
 
-from db.engine import ENV_VAR
+from db.engine import ENV_VAR, display_url
 from heliaudit.common import require_existing_db
 
 APP = Path(__file__).resolve().parents[1] / "dashboard" / "app.py"
@@ -46,6 +47,51 @@ def _open_when_up(host: str, port: int, address: str, timeout_s: float = 60.0) -
             time.sleep(0.5)
 
 
+def _die_with_parent() -> None:
+    """In the child before exec: ask Linux to send SIGTERM when the parent dies (prctl
+    PR_SET_PDEATHSIG), so a killed ``heliaudit dashboard`` never leaves Streamlit serving
+    the port. Elsewhere a no-op (the parent's signal handlers still stop the child)."""
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGTERM), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+
+
+def _serve(cmd: list[str], env: dict) -> int:
+    """Run the server until it exits; stop it when this process is interrupted or
+    terminated (Ctrl-C, SIGTERM, SIGHUP) or dies. Returns the server's exit code."""
+    preexec = _die_with_parent if sys.platform.startswith("linux") else None
+    proc = subprocess.Popen(cmd, env=env, preexec_fn=preexec)  # noqa: PLW1509
+
+    def _stop(signum, _frame):
+        raise KeyboardInterrupt
+
+    old = {}
+    for sig in (signal.SIGTERM, getattr(signal, "SIGHUP", None)):
+        if sig is not None:
+            try:
+                old[sig] = signal.signal(sig, _stop)
+            except ValueError:  # not the main thread (tests): rely on the death signal
+                pass
+    try:
+        return proc.wait()
+    except KeyboardInterrupt:
+        return 130
+    finally:
+        if proc.poll() is None:
+            proc.terminate()
+            try:
+                proc.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait()
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
+
+
 @click.command("dashboard")
 @click.option("--port", default=8501, show_default=True, type=click.IntRange(1, 65535),
               help="TCP port to serve on.")
@@ -70,17 +116,16 @@ def dashboard(ctx: click.Context, port: int, host: str, no_browser: bool) -> Non
     # exits when there is none (seen from `heliaudit demo`); we open the browser ourselves.
     cmd = streamlit_command(port, host, headless=True)
     address = f"http://{host}:{port}"
-    click.echo(f"heliaudit dashboard on {address} (database {url}); Ctrl-C stops it", err=True)
+    click.echo(f"heliaudit dashboard on {address} (database {display_url(url)}); Ctrl-C stops it",
+               err=True)
     if not no_browser:
         threading.Thread(target=_open_when_up, args=(host, port, address), daemon=True).start()
     try:
-        proc = subprocess.run(cmd, env=env, check=False)
-    except KeyboardInterrupt:  # Streamlit stops with the same signal
-        return
+        code = _serve(cmd, env)
     except OSError as exc:
         raise click.ClickException(f"cannot start streamlit: {exc}") from None
-    if proc.returncode not in (0, -2, 130):
-        raise click.ClickException(f"streamlit exited with code {proc.returncode}")
+    if code not in (0, -2, -15, 130):
+        raise click.ClickException(f"streamlit exited with code {code}")
 
 
 COMMANDS = [dashboard]

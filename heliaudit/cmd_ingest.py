@@ -9,7 +9,9 @@ import sys
 
 import click
 import pandas as pd
+import sqlalchemy as sa
 
+from db.engine import mask_secrets
 from db.ingest_log import rejected_rows, site_summary
 from heliaudit.common import engine_from_ctx
 from ingest.config import ConfigError, load_site_config
@@ -25,8 +27,10 @@ def _file_line(r: BatchResult) -> str:
     if r.status == "unchanged":
         return f"{r.file_name}: unchanged, skipped ({r.message})"
     c = r.counts
+    blank = (r.notes or {}).get("lines", {}).get("blank", 0)
     return (f"{r.file_name}: {c.get('rows_read', 0)} rows: {c.get('rows_loaded', 0)} loaded, "
-            f"{c.get('rows_duplicate', 0)} duplicate, {c.get('rows_rejected', 0)} rejected; "
+            f"{c.get('rows_duplicate', 0)} duplicate, {c.get('rows_rejected', 0)} rejected"
+            + (f", {blank} blank" if blank else "") + "; "
             f"{fmt_utc(r.ts_first_s)} .. {fmt_utc(r.ts_last_s)} UTC (interval start); "
             f"interval {r.interval_s or '?'} s; values: {c.get('values_loaded', 0)} new or "
             f"changed ({c.get('values_conflict', 0)} conflicting), "
@@ -44,7 +48,21 @@ def _note_lines(r: BatchResult) -> list[str]:
     for day, k in n.get("dst_repeated_hour", {}).items():
         out.append(f"DST {day}: repeated hour ({k['rule']}): {k.get('summer', 0)} rows as summer "
                    f"time, {k.get('standard', 0)} as standard time, {k.get('rejected', 0)} rejected")
-    counters = n.get("counters", {})
+    all_counters = n.get("counters", {})
+    coarse = {d: ev for d, ev in all_counters.items() if ev.get("coarse")}
+    for source in ("p_ac_kw", "counter"):
+        devs = sorted(d for d, ev in coarse.items() if ev.get("interval_energy_from") == source)
+        if devs:
+            steps = sorted({coarse[d]["resolution_kwh"] for d in devs})
+            out.append(f"coarse energy counters (steps of {', '.join(f'{x:g}' for x in steps)} kWh) "
+                       f"on {len(devs)} inverters ({', '.join(devs[:8])}): " + (
+                           "interval energy from AC power; the counters are kept for daily and "
+                           "monthly totals (cross-checked against integrated power)"
+                           if source == "p_ac_kw" else
+                           "no AC power in this file, interval energy from counter steps (daily "
+                           "totals are right, single intervals are not)"))
+    counters = {d: ev for d, ev in all_counters.items()
+                if any(ev.get(k) for k in ("resets", "rollovers", "jumps", "gaps_not_assigned"))}
     if counters:  # one line for all counters: totals, and the devices with resets
         tot = {k: sum(ev.get(k, {}).get("count", 0) for ev in counters.values())
                for k in ("resets", "rollovers", "jumps")}
@@ -93,7 +111,8 @@ def ingest(ctx: click.Context, config: str, paths: tuple[str, ...], no_compute: 
     source's `pattern` is searched relative to CONFIG's folder. The site, its devices and
     channels are registered (or updated) from CONFIG first. A file already loaded unchanged
     is skipped; each file is loaded completely or not at all. Prints one summary line per
-    file and exits with status 1 if any file failed.
+    file and exits with status 1 if any file failed or had no usable row (every row rejected,
+    or none at all).
 
     \b
     Example:
@@ -117,12 +136,19 @@ def ingest(ctx: click.Context, config: str, paths: tuple[str, ...], no_compute: 
     total = sum(os.path.getsize(f) for f, _s in files if f.is_file())
     show = not silent and sys.stderr.isatty()
     results: list[BatchResult] = []
-    if show:
-        with click.progressbar(length=total, label=f"Loading {len(files)} files",
-                               file=sys.stderr) as bar:
-            results = ingest_paths(engine, cfg, paths, progress=bar.update)
-    else:
-        results = ingest_paths(engine, cfg, paths)
+    try:
+        if show:
+            with click.progressbar(length=total, label=f"Loading {len(files)} files",
+                                   file=sys.stderr) as bar:
+                results = ingest_paths(engine, cfg, paths, progress=bar.update)
+        else:
+            results = ingest_paths(engine, cfg, paths)
+    except sa.exc.SQLAlchemyError as exc:
+        detail = str(getattr(exc, "orig", None) or exc).strip().splitlines()
+        url = (ctx.find_root().obj or {}).get("db_url")
+        raise click.ClickException(mask_secrets(
+            "database error while loading (the file being loaded was rolled back): "
+            + (detail[0] if detail else type(exc).__name__), url)) from None
     for r in results:
         click.echo(_file_line(r))
         for line in _note_lines(r):
@@ -136,6 +162,14 @@ def ingest(ctx: click.Context, config: str, paths: tuple[str, ...], no_compute: 
         raise click.ClickException(
             f"{len(failed)} of {len(results)} files failed: " + failed[0].message
             + (" (and more above)" if len(failed) > 1 else ""))
+    unusable = [r for r in results if r.status == "loaded"
+                and r.counts.get("rows_loaded", 0) + r.counts.get("rows_duplicate", 0) == 0]
+    if unusable:
+        r = unusable[0]
+        raise click.ClickException(
+            f"{len(unusable)} of {len(results)} files had no usable row: {r.file_name}: "
+            f"{r.counts.get('rows_rejected', 0)} rows rejected, none loaded (see the rejected "
+            "lines above)" + (" (and more above)" if len(unusable) > 1 else ""))
 
 
 def _recompute(engine, ranges: dict[str, tuple[int, int]]) -> None:
@@ -192,7 +226,8 @@ def summary(ctx: click.Context, site_id: str | None) -> None:
         click.echo(f"  batches:    {row.batches_loaded} loaded, {row.batches_unchanged} unchanged, "
                    f"{row.batches_failed} failed; last {row.last_ingest_utc or '-'}")
         click.echo(f"  rejected:   {row.rows_rejected} rows, {row.values_rejected} values "
-                   "(see the dashboard's ingest page or db.ingest_log.rejected_rows)")
+                   "(each with file, line and reason: `heliaudit dashboard`, page "
+                   "\"Data quality\", table \"Rejected rows\")")
 
 
 COMMANDS = [ingest, summary]

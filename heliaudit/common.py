@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 import sqlalchemy as sa
 
-from db.engine import make_engine, resolve_url
+from db.engine import display_url, make_engine, mask_secrets, resolve_url
 
 
 def sqlite_path(url: str) -> Path | None:
@@ -51,7 +51,8 @@ def engine_from_ctx(ctx: click.Context, *, create: bool = False) -> sa.Engine:
             obj["engine"] = make_engine(obj.get("db_url"))
         except Exception as exc:  # noqa: BLE001 - any driver error becomes one line
             detail = str(getattr(exc, "orig", None) or exc).strip().splitlines()
-            raise click.ClickException(
-                f"cannot open database: {detail[0] if detail else type(exc).__name__}") from None
+            raise click.ClickException(mask_secrets(
+                f"cannot open database {display_url(obj.get('db_url'))}: "
+                f"{detail[0] if detail else type(exc).__name__}", obj.get("db_url"))) from None
         root.obj = obj
     return obj["engine"]

@@ -22,8 +22,10 @@ that period in a scratch SQLite store holding a copy of the site's inputs
 (:func:`db.evidence.copy_site_window`), so stored results are never touched.
 
 Reproducibility: everything under ``data/`` is a function of the store and the request; the
-creation time lives only in ``manifest.json`` and on the report's title page. Times of the
-computations are blanked in ``data/results.json`` (they are in the manifest).
+creation time lives only in ``manifest.json`` and on the report's title page. In
+``data/results.json`` ``generated_utc`` is when the numbers were computed (period packs: when
+the newest input file was loaded) and the computations' times are blanked (they are in the
+manifest).
 
 System-level field data are screening evidence; the warranty contract's own terms and test
 procedure govern any claim (analytics.warranty.DISCLAIMER).
@@ -52,6 +54,7 @@ from analytics.daily import standard_utc_offset_h
 from analytics.filters import REASONS
 from db import queries
 from db.daily import daily_table
+from db.engine import display_url
 from db.evidence import contributing_batches, copy_site_window
 from db.registry import SiteNotFoundError, site_row
 from heliaudit.jobs_degradation import NothingComputedError, results_document
@@ -60,6 +63,7 @@ MANIFEST_SCHEMA = "heliaudit-evidence/1"
 SITE = "(site)"
 #: Method used when no ``recommended`` row exists (contract in issue #13).
 FALLBACK_METHOD = "sensor_year_pairs"
+STORED_BASIS = "stored results of the last \"heliaudit compute\""
 FLOAT_FORMAT = "%.6g"
 #: Libraries whose versions the manifest records.
 LIBRARIES = ("numpy", "pandas", "scipy", "statsmodels", "pvlib", "ruptures", "sqlalchemy",
@@ -131,10 +135,12 @@ def recommended_of(block: dict) -> dict:
     ``sensor_year_pairs`` method with a reason saying so (``fallback`` True).
     """
     rec = block.get("recommended")
-    if isinstance(rec, dict) and rec.get("method"):
+    if isinstance(rec, dict) and (rec.get("method") or rec.get("rate_pct_per_yr") is None
+                                  and rec.get("reason")):
         out = dict(rec)
-        out.setdefault("reasons", [])
-        out.setdefault("caveats", [])
+        out["method"] = rec.get("method") or "none"  # refused: no method could be chosen
+        out["reasons"] = list(rec.get("reasons") or [])
+        out["caveats"] = list(rec.get("caveats") or [])
         out["fallback"] = False
         return out
     m = (block.get("degradation") or {}).get(FALLBACK_METHOD) or {}
@@ -167,11 +173,8 @@ def _iso(ts_s) -> str | None:
 
 
 def mask_url(url: str) -> str:
-    """The store's URL with any password replaced by ``***``."""
-    try:
-        return sa.engine.make_url(url).render_as_string(hide_password=True)
-    except Exception:  # noqa: BLE001 - not a URL: a path, shown as given
-        return url
+    """The store's URL as shown to a user, password replaced by ``***`` (db.engine)."""
+    return display_url(url)
 
 
 def reproduce_command(db_url: str | None, site_id: str, inverters, start, end,
@@ -380,16 +383,18 @@ def _flags(doc: dict, devices: set[str], start_s, end_s) -> pd.DataFrame:
     return out.reset_index(drop=True)
 
 
-def _pack_doc(doc: dict, inv_ids: list[str]) -> dict:
-    """The results document restricted to the chosen inverters, with its times blanked
-    (they are in the manifest) so that a rebuild gives the same file."""
+def _pack_doc(doc: dict, inv_ids: list[str], as_of: str | None) -> dict:
+    """The results document restricted to the chosen inverters, with its times fixed so
+    that a rebuild gives the same file: ``generated_utc`` is ``as_of`` (when the numbers
+    were computed, or for a period pack when the newest input was loaded) and the
+    computations' times are blanked (the manifest has them)."""
     out = dict(doc)
     out["inverters"] = [b for b in doc.get("inverters", []) if b.get("device_id") in inv_ids]
     all_invs = {b.get("device_id") for b in doc.get("inverters", [])}
     # flags of inverters that were not chosen are left out; sensor and site flags stay
     out["flags"] = [f for f in doc.get("flags", []) if f.get("device_id") not in all_invs
                     or f.get("device_id") in inv_ids]
-    out["generated_utc"] = None
+    out["generated_utc"] = as_of
     comps = {}
     for k, v in (doc.get("computations") or {}).items():
         comps[k] = None if v is None else {**v, "started_utc": None, "finished_utc": None}
@@ -480,8 +485,13 @@ def gather(engine: sa.Engine, site_id: str, *, inverters=None, start: dt.date | 
     totals = {k: int(pd.to_numeric(sources[k]).sum()) if len(sources) else 0
               for k in ("rows_read", "rows_loaded", "rows_duplicate", "rows_rejected",
                         "values_rejected", "n_readings")}
+    comp = (doc.get("computations") or {}).get("degradation") or {}
+    if basis in ("stored", STORED_BASIS) and comp.get("finished_utc"):
+        as_of = comp["finished_utc"]
+    else:  # recomputed now: the time the newest input file was loaded
+        as_of = max((x for x in batches["finished_utc"] if isinstance(x, str)), default=None)
     return Pack(
-        site=site, doc=_pack_doc(doc, inv_ids), inverters=invs, sensors=sensors, config=cfg,
+        site=site, doc=_pack_doc(doc, inv_ids, as_of), inverters=invs, sensors=sensors, config=cfg,
         config_toml=toml_text, daily=daily, site_index=site_idx,
         coverage=_coverage(daily, inv_ids, first, last),
         exclusions=_exclusions(daily, inv_ids, n_days, blocks), rates=_rates(
@@ -586,7 +596,7 @@ def build_pack(engine: sa.Engine, site_id: str, out_dir: str | Path, *, inverter
             basis = (f"recomputed for the period {start or 'first day'} .. {end or 'last day'} "
                      "from a copy of the site's readings (daily table, flags, degradation)")
         else:
-            work, basis = engine, "stored results of the last `heliaudit compute`"
+            work, basis = engine, STORED_BASIS
         try:
             pack = gather(work, site_id, inverters=inverters, start=start, end=end,
                           source_engine=engine, basis=basis)
@@ -595,13 +605,24 @@ def build_pack(engine: sa.Engine, site_id: str, out_dir: str | Path, *, inverter
                 work.dispose()
     pack.created_utc = created
     pack.command = command or reproduce_command(db_url, site_id, inverters, start, end, out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    if force:
-        _clear_pack(out_dir)
-    write_data(pack, out_dir / "data")
-    pack.results_sha256 = sha256_file(out_dir / "data" / "results.json")
-    evidence_pdf.write_report(pack, out_dir / "report.pdf")
-    return write_manifest(pack, out_dir, db_url)
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    # build beside the target, then move in: a failure leaves no half-written pack
+    with tempfile.TemporaryDirectory(prefix=".evidence-", dir=out_dir.parent) as tmp:
+        stage = Path(tmp)
+        write_data(pack, stage / "data")
+        pack.results_sha256 = sha256_file(stage / "data" / "results.json")
+        try:
+            evidence_pdf.write_report(pack, stage / "report.pdf")
+        except Exception as exc:  # noqa: BLE001 - reportlab layout errors: a bug, said plainly
+            raise EvidenceError(f"the report could not be laid out ({type(exc).__name__}: "
+                                f"{str(exc)[:200]}); nothing was written to {out_dir}") from exc
+        manifest = write_manifest(pack, stage, db_url)
+        out_dir.mkdir(parents=True, exist_ok=True)
+        if force:
+            _clear_pack(out_dir)
+        for item in ("data", "report.pdf", "manifest.json"):
+            shutil.move(str(stage / item), str(out_dir / item))
+    return manifest
 
 
 def _recompute_window(engine: sa.Engine, site_id: str, start, end, tmp: Path) -> sa.Engine:

@@ -50,8 +50,8 @@ def _empty(message: str, height_in: float = 1.4) -> bytes:
 
 
 def coverage_chart(monthly: pd.DataFrame) -> bytes:
-    """Stacked monthly bars of inverter-days: used for the rates, valid but in the
-    stabilisation period, not valid (coverage below the minimum), and no data.
+    """Stacked monthly bars of inverter-days: valid (coverage at or above the minimum),
+    not valid (coverage below the minimum), and no data.
 
     ``monthly``: columns ``month`` (YYYY-MM), ``days_valid``, ``days_not_valid``,
     ``days_missing`` (inverter-days summed over the chosen inverters).
@@ -60,7 +60,7 @@ def coverage_chart(monthly: pd.DataFrame) -> bytes:
         return _empty("No daily rows in the period")
     x = range(len(monthly))
     fig, ax = plt.subplots(figsize=(WIDTH_IN, 2.5))
-    parts = [("days_valid", "valid days (enter the rates)", OKABE_ITO["blue"], None),
+    parts = [("days_valid", "valid days (coverage at or above the minimum)", OKABE_ITO["blue"], None),
              ("days_not_valid", "days excluded (coverage below the minimum)",
               OKABE_ITO["orange"], "////"),
              ("days_missing", "days without data", "#D9D9D9", "..")]
@@ -176,4 +176,36 @@ def warranty_chart(env: pd.DataFrame, title: str) -> bytes:
     ax.set_ylabel("relative to nameplate [%]")
     ax.set_title(title, loc="left")
     ax.legend(loc="upper left", bbox_to_anchor=(0, -0.2), ncol=3)
+    return _png(fig)
+
+
+def warranty_panels(env: pd.DataFrame, devices: list[str], title: str) -> bytes:
+    """Small multiples of :func:`warranty_chart`, one panel per device (2 columns, shared
+    axes). ``env``: ``device_id, years, warranted_pct, relative_pct``."""
+    devices = [d for d in devices if (env["device_id"] == d).any()]
+    if not devices:
+        return _empty("No warranty comparison per inverter (no terms, or too little data)")
+    n_rows = (len(devices) + 1) // 2
+    fig, axes = plt.subplots(n_rows, 2, figsize=(WIDTH_IN, 0.4 + 1.55 * n_rows), sharex=True,
+                             sharey=True, squeeze=False)
+    for k, ax in enumerate(axes.flat):
+        if k >= len(devices):
+            ax.axis("off")
+            continue
+        d = env[env["device_id"] == devices[k]]
+        ax.plot(d["years"], d["relative_pct"], ls="none", marker="o", ms=2.4, mfc="white",
+                color=OKABE_ITO["blue"])
+        ax.plot(d["years"], d["warranted_pct"], color=OKABE_ITO["vermillion"], lw=1.5)
+        below = d[d["relative_pct"] < d["warranted_pct"]]
+        ax.plot(below["years"], below["relative_pct"], ls="none", marker="x", ms=4,
+                color="black")
+        ax.set_title(devices[k], loc="left", fontsize=8, color=PRIMARY)
+        ax.tick_params(labelsize=7)
+    for ax in axes[-1]:
+        ax.set_xlabel("years since warranty start [yr]", fontsize=7)
+    for ax in axes[:, 0]:
+        ax.set_ylabel("[% of nameplate]", fontsize=7)
+    fig.suptitle(title + " (circles: measured index; line: warranted minimum; x: below)",
+                 x=0.01, ha="left", fontsize=8.5, color=PRIMARY, fontweight="bold")
+    fig.tight_layout()
     return _png(fig)

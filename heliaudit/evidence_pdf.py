@@ -97,6 +97,19 @@ METHOD_TEXT: dict[str, tuple[str, str]] = {
         "Year-on-year rate of the ratio of the sensor-based to the clear-sky-based index on "
         "clear days: a trend here is the irradiance sensor drifting (soiling of the sensor, "
         "calibration), not the modules."),
+    "modelled_sky_between_shifts": (
+        "Clear-sky year-on-year rate without pairs that span a level shift",
+        "The clear-sky index of \"modelled_sky_year_pairs\" (independent of the irradiance "
+        "sensor; clear periods after Reno & Hansen 2016), with the year-on-year pairs that "
+        "straddle a lasting step (PELT, Killick et al. 2012) left out: used when the "
+        "irradiance sensor drifts and a step (failure, repair) was found too (Jordan et al. "
+        "2018 pairs)."),
+    "sensor_year_pairs_unsoiled": (
+        "Year-on-year rate of the soiling-corrected index",
+        "The daily index is divided by its soiling ratio, estimated from the dry intervals "
+        "between cleanings (Deceglie et al. 2018), then the year-on-year method (Jordan et al. "
+        "2018). Used when soiling is material and uneven between seasons, which otherwise "
+        "leaks into year-on-year pairs."),
     "sensor_year_pairs_between_shifts": (
         "Year-on-year rate without pairs that span a level shift",
         "Change points are found by PELT (Killick et al. 2012); pairs of days that straddle "
@@ -191,9 +204,9 @@ def _styles() -> dict:
                              leading=19, textColor=colors.HexColor(PRIMARY), spaceAfter=6),
         "h2": ParagraphStyle("h2", parent=base["Heading2"], fontName=FONT_BOLD, fontSize=12.5,
                              leading=15, textColor=colors.HexColor(PRIMARY), spaceBefore=10,
-                             spaceAfter=4),
+                             spaceAfter=4, keepWithNext=1),
         "h3": ParagraphStyle("h3", parent=base["Heading3"], fontName=FONT_BOLD, fontSize=10,
-                             leading=12.5, spaceBefore=6, spaceAfter=3),
+                             leading=12.5, spaceBefore=6, spaceAfter=3, keepWithNext=1),
         "box": ParagraphStyle("box", fontName=FONT, fontSize=8.6, leading=11.2, leftIndent=4,
                               rightIndent=4),
     }
@@ -229,9 +242,11 @@ def _box(paragraphs: list[str], st: dict, title: str) -> Table:
     return t
 
 
-def _image(png: bytes, width_cm: float = 17.0) -> Image:
+def _image(png: bytes, width_cm: float = 17.0, max_height_cm: float = 23.0) -> Image:
+    """A PNG at the text width, scaled down to fit a page when it is taller."""
     img = Image(io.BytesIO(png))
     ratio = img.imageHeight / img.imageWidth
+    width_cm = min(width_cm, max_height_cm / ratio)
     img.drawWidth = width_cm * cm
     img.drawHeight = width_cm * cm * ratio
     img.hAlign = "LEFT"
@@ -272,8 +287,8 @@ def _title(pack, st) -> list:
 
 def _summary_section(pack, st) -> list:
     out = [Paragraph("1. Summary", st["h2"])]
-    rows = [["Device", "Recommended rate [%/yr]", "Interval [%/yr]", "Method",
-             "Methods agree", "Warranty test", "Shortfall [kWh]"]]
+    rows = [["Device", "Rate [%/yr]", "Interval [%/yr]", "Method",
+             "Methods agree", "Exceeds warranty?", "Shortfall [kWh]"]]
     short = []
     for s in pack.summary:
         conf = s["confidence"]
@@ -281,24 +296,26 @@ def _summary_section(pack, st) -> list:
         if s["exceeds"] is None:
             test = "not tested"
         else:
-            test = "exceeds warranty" if s["exceeds"] else "no exceedance shown"
+            test = "exceeds" if s["exceeds"] else "not shown"
         rows.append([_label(s["device_id"]), fmt_rate(s["rate_pct_per_yr"]),
                      (fmt_interval(s["ci_low"], s["ci_high"])
                       + (f" ({conf:.0%})" if conf is not None else "")),
                      s["method"], agree, test, fmt_kwh(s["shortfall_kwh"])])
         if s["rate_pct_per_yr"] is None:
             short.append(s)
-    out.append(_table(rows, [2.6 * cm, 2.2 * cm, 3.5 * cm, 3.4 * cm, 1.5 * cm, 2.2 * cm,
-                             1.6 * cm], st=st))
+    out.append(_table(rows, [2.6 * cm, 1.5 * cm, 3.4 * cm, 4.6 * cm, 1.5 * cm, 2.0 * cm,
+                             1.4 * cm], st=st))
     out.append(Spacer(1, 4))
     notes = []
     for s in pack.summary:
+        # the recommended rate's caveats (issue #13) already say these in their own words
+        kinds = {c.get("kind") for c in s["caveats"] if isinstance(c, dict)}
         drops = [c for c in s["change_points"] if c.get("kind") == "drop"]
-        if drops:
+        if drops and "level_shift" not in kinds:
             notes.append(f"{_label(s['device_id'])}: level drop on "
                          + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
                          + ": a failure, not degradation; see sections 5 and 6.")
-        if s["agree"] is False:
+        if s["agree"] is False and "methods_disagree" not in kinds:
             notes.append(f"{_label(s['device_id'])}: methods disagree ("
                          f"{_pairs(s['disagreements'])}); read section 5 before using the rate.")
         for c in s["caveats"]:
@@ -319,10 +336,12 @@ def _summary_section(pack, st) -> list:
             "least two years of valid days after the stabilisation period; no rate and no "
             "warranty test are reported for these devices.", st["body"]))
     out.append(Paragraph(
-        "Negative rates are losses. A rate is the relative change of the performance index "
+        "Rate: the recommended rate (section 5). Negative rates are losses. A rate is the "
+        "relative change of the performance index "
         "per year; the interval is two-sided at the confidence shown. \"Methods agree\" means "
         "the intervals of the absolute-rate methods overlap. The warranty test is one-sided "
-        "(section 7); the shortfall is energy below the warranted envelope (section 7).",
+        "(section 7); \"not shown\" means the data do not show the loss rate to exceed the "
+        "warranted rate. The shortfall is energy below the warranted envelope (section 7).",
         st["small"]))
     out.append(Spacer(1, 4))
     out.append(_box(list(CAUTIONS), st, "Read before using these numbers"))
@@ -337,32 +356,41 @@ def _system_section(pack, st) -> list:
                      f"{_esc(site['timezone'])}. Site plane as configured: tilt "
                      f"{site['tilt_deg']:.1f}°, azimuth {site['azimuth_deg']:.1f}° "
                      f"(180° = south), ground albedo {site['albedo']:.2f}.", st["body"])]
+    inv_cfg = {x.get("id"): x for x in cfg.get("inverters", []) or [] if isinstance(x, dict)}
     rows = [["Inverter", "DC [kWp]", "AC [kW]", "γ [%/°C]", "Mounting (thermal class)",
-             "Commissioned", "POA sensor", "Module T sensor", "Peer group"]]
+             "Commissioned", "Plane", "Irradiance sensor", "Module T sensor", "Peer group"]]
     for _, i in pack.inverters.iterrows():
-        rows.append([i["device_id"], f"{i['p_dc_kwp']:.1f}", f"{i['p_ac_max_kw']:.1f}",
-                     f"{100 * i['gamma_pmp_per_c']:.2f}", str(i["mounting"]),
-                     str(i["commissioned"]), str(i["poa_sensor_id"]),
-                     str(i["t_module_sensor_id"]), str(i["peer_group"])])
-    total = pack.inverters["p_dc_kwp"].sum()
+        c = inv_cfg.get(i["device_id"], {})
+        rows.append([i["device_id"], _fmt(i["p_dc_kwp"], "{:.1f}"),
+                     _fmt(i["p_ac_max_kw"], "{:.1f}"),
+                     _fmt(i["gamma_pmp_per_c"], "{:.2f}", 100),
+                     _txt(i["mounting"]).replace("_", " "), _txt(i["commissioned"], "unknown"),
+                     _txt(c.get("plane"), "per array" if c.get("arrays") else "site plane"),
+                     _txt(i["poa_sensor_id"]),
+                     _txt(i["t_module_sensor_id"], "none (modelled)"), _txt(i["peer_group"])])
+    total = pd.to_numeric(pack.inverters["p_dc_kwp"], errors="coerce").sum()
     out += [Paragraph(f"Inverters in this report: {len(pack.inverters)}, "
-                      f"{total:.1f} kWp DC in total.", st["body"]),
-            _table(rows, [1.7 * cm, 1.4 * cm, 1.3 * cm, 1.4 * cm, 3.4 * cm, 2.0 * cm, 1.9 * cm,
-                          2.1 * cm, 1.8 * cm], st=st)]
+                      f"{total:.1f} kWp DC in total (ratings as configured).", st["body"]),
+            _table(rows, [1.4 * cm, 1.2 * cm, 1.1 * cm, 1.2 * cm, 2.5 * cm, 2.2 * cm, 1.6 * cm,
+                          2.0 * cm, 2.0 * cm, 1.8 * cm], st=st)]
+    planes = _plain_rows(cfg.get("planes"))
+    if planes:
+        out += [Paragraph("Planes (as configured)", st["h3"]), _table(planes, st=st)]
     arrays = _arrays(cfg, set(pack.inverters["device_id"]))
     if arrays:
-        out += [Paragraph("Arrays and planes per inverter (as configured)", st["h3"]),
+        out += [Paragraph("Arrays (inverter inputs) as configured", st["h3"]),
                 _table(arrays, st=st)]
-    else:
-        out.append(Paragraph("No arrays or planes are configured per inverter: every inverter "
-                             "is taken to face the site plane above.", st["small"]))
-    srows = [["Sensor", "Quantity", "Instrument", "Notes (from the configuration)"]]
+    if not planes and not arrays:
+        out.append(Paragraph("No planes or arrays are configured: every inverter is taken to "
+                             "face the site plane above.", st["small"]))
+    sens_cfg = {x.get("id"): x for x in cfg.get("sensors", []) or [] if isinstance(x, dict)}
+    srows = [["Sensor", "Quantity", "Instrument", "Plane", "Notes (from the configuration)"]]
     for _, s in pack.sensors.iterrows():
-        inst = s["instrument"] if isinstance(s["instrument"], str) and s["instrument"] else "–"
-        srows.append([s["device_id"], str(s["quantity"] or ""), inst.replace("_", " "),
-                      str(s["notes"] or "")])
+        srows.append([s["device_id"], _txt(s["quantity"]), _txt(s["instrument"]).replace("_", " "),
+                      _txt(sens_cfg.get(s["device_id"], {}).get("plane"), ""),
+                      _txt(s["notes"], "")])
     out += [Paragraph("Sensors", st["h3"]),
-            _table(srows, [2.2 * cm, 2.2 * cm, 3.6 * cm, 9.0 * cm], st=st)]
+            _table(srows, [2.0 * cm, 2.0 * cm, 3.2 * cm, 1.8 * cm, 8.0 * cm], st=st)]
     w = cfg.get("warranty")
     out.append(Paragraph("Warranty terms as configured", st["h3"]))
     if isinstance(w, dict):
@@ -377,6 +405,32 @@ def _system_section(pack, st) -> list:
         out.append(Paragraph("No [warranty] table in the site configuration: no warranty "
                              "comparison is made.", st["body"]))
     return out
+
+
+def _fmt(x, spec: str, scale: float = 1.0) -> str:
+    """A configured number, or "–" when it is not configured."""
+    try:
+        f = float(x)
+    except (TypeError, ValueError):
+        return "–"
+    return "–" if pd.isna(f) else spec.format(scale * f)
+
+
+def _txt(x, missing: str = "–") -> str:
+    if x is None or (isinstance(x, float) and pd.isna(x)) or (isinstance(x, str) and not x):
+        return missing
+    return str(x)
+
+
+def _plain_rows(items) -> list[list]:
+    """A table of a configuration array of tables (scalar keys only), header first."""
+    items = [x for x in items or [] if isinstance(x, dict)]
+    keys: list[str] = []
+    for x in items:
+        keys += [k for k in x if k not in keys and not isinstance(x[k], dict | list)]
+    if not keys:
+        return []
+    return [keys, *[[_txt(x.get(k), "") for k in keys] for x in items]]
 
 
 def _arrays(cfg: dict, chosen: set[str]) -> list[list]:
@@ -446,10 +500,20 @@ def _data_section(pack, st) -> list:
     if sensor.empty:
         out.append(Paragraph("No sensor fault was flagged in the period.", st["body"]))
     else:
-        g = sensor.groupby(["kind", "device_id"]).size().reset_index(name="n")
-        srows = [["Fault", "Sensor / device", "Flags"]] + [
-            [r["kind"].replace("_", " "), r["device_id"], str(r["n"])] for _, r in g.iterrows()]
-        out.append(_table(srows, [5 * cm, 4 * cm, 2 * cm], st=st))
+        f = sensor.assign(s=pd.to_datetime(sensor["start_utc"], utc=True),
+                          e=pd.to_datetime(sensor["end_utc"], utc=True))
+        f["h"] = (f["e"] - f["s"]).dt.total_seconds() / 3600
+        g = f.groupby(["kind", "device_id"]).agg(n=("kind", "size"), first=("s", "min"),
+                                                 last=("e", "max"), h=("h", "sum")).reset_index()
+        srows = [["Fault", "Sensor / device", "Flags", "First starts (UTC)", "Last ends (UTC)",
+                  "Hours flagged"]] + [
+            [r["kind"].replace("_", " "), r["device_id"], str(r["n"]),
+             r["first"].strftime("%Y-%m-%d %H:%M") if pd.notna(r["first"]) else "",
+             r["last"].strftime("%Y-%m-%d %H:%M") if pd.notna(r["last"]) else "",
+             f"{r['h']:.1f}" if pd.notna(r["h"]) else ""] for _, r in g.iterrows()]
+        out.append(_table(srows, [3.4 * cm, 2.6 * cm, 1.2 * cm, 3.2 * cm, 3.2 * cm, 2.2 * cm],
+                          st=st))
+        out.append(Paragraph("Every flag with its details is in data/flags.csv.", st["small"]))
     out.append(Paragraph(
         "Intervals with a missing, out-of-range or stuck reading are excluded by the interval "
         "checks above (they lower the day's coverage). A drifting irradiance sensor cannot be "
@@ -530,7 +594,10 @@ def _results_section(pack, st) -> list:
             blk.append(Paragraph("Warning: " + _esc(w), st["small"]))
         out.append(KeepTogether(blk))
     out.append(Spacer(1, 4))
-    out.append(_image(charts.rates_chart(pack.rates)))
+    shown = pack.rates[pack.rates["method"] != "sensor_drift_check"]
+    devs = list(dict.fromkeys(shown["device_id"]))
+    for k in range(0, max(len(devs), 1), 6):  # at most 6 devices per chart
+        out.append(_image(charts.rates_chart(shown[shown["device_id"].isin(devs[k:k + 6])])))
     si = pack.site_index
     trend = (si[["day"]].assign(pi_trend=si["pi_recommended_line"])
              if "pi_recommended_line" in si else None)
@@ -540,7 +607,8 @@ def _results_section(pack, st) -> list:
         si[["day", "pi"]] if len(si) else si, trend, site_s["change_points"], spans,
         "Daily performance index of the inverters in this report")))
     out.append(Paragraph("Data: data/site_daily_index.csv (points, line) and data/rates.csv "
-                         "(rates chart). The dashed line is the site's recommended rate drawn "
+                         "(rates chart; the sensor drift check is left out of the chart because it is the "
+                         "sensor's drift, not a rate of the plant). The dashed line is the site's recommended rate drawn "
                          "through the median level; it shows the slope, not a fit.",
                          st["small"]))
     return out
@@ -672,6 +740,11 @@ def _warranty_section(pack, st) -> list:
     site_env = env[env["device_id"] == "(site)"]
     out.append(_image(charts.warranty_chart(
         site_env, "Warranted minimum and measured index, site (all inverters)")))
+    devs = [d for d in pack.inverters["device_id"]]
+    for k in range(0, len(devs), 8):
+        part = devs[k:k + 8]
+        out.append(_image(charts.warranty_panels(
+            env, part, "Per inverter" + (f" ({k // 8 + 1})" if len(devs) > 8 else ""))))
     out.append(Paragraph("Data: data/warranty_envelope.csv (every device).", st["small"]))
     return out
 

@@ -23,6 +23,7 @@ import sqlalchemy as sa
 import heliaudit
 from analytics import daily as adaily
 from analytics import filters as flt
+from analytics import sensor_qa
 from analytics.temperature import SAPM_PARAMETERS
 from db import schema
 from db.computations import begin_computation, finish_computation
@@ -30,6 +31,7 @@ from db.daily import write_daily
 from db.readings import stored_range
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 from db.timeseries import inverter_frames, site_channels
+from heliaudit.site_irradiance import SiteIrradiance
 
 Progress = Callable[[int, int], None]  # progress(done, total), in inverters
 BATCH_ROWS = 300_000  # intervals per vectorised call (a week of 100 inverters is ~70 000)
@@ -58,18 +60,40 @@ def _params(site_row: dict, filters: dict, offset_h: float) -> dict:
         "power_model": "PVWatts V5 DC + inverter curve (Dobos 2014)",
         "night": "solar elevation (pvlib ephemeris) < night_elevation_deg or G < night_poa_wm2",
         "coverage_weight": "measured POA, clear-sky POA (Ineichen, isotropic) where missing",
+        "irradiance_sources": "per array, best first: POA sensor in the array plane; GHI "
+                              "sensor with DIRINT (Perez et al. 1992) decomposition and Perez (1990) "
+                              "transposition; POA sensor of another plane via GTI-DIRINT "
+                              "(Marion 2015) and Perez (1990); trackers by "
+                              "pvlib.tracking.singleaxis (Marion & Dobos 2013)",
     }
 
 
 class _Inv:
     """Duck-typed inverter parameters for analytics.daily from an inverter-table row."""
 
-    def __init__(self, row: dict):
+    def __init__(self, row: dict, irradiance_basis: str = "poa_same_plane"):
+        self.irradiance_basis = irradiance_basis
         self.p_dc_kwp = float(row["p_dc_kwp"])
         self.p_ac_max_kw = float(row["p_ac_max_kw"])
         self.gamma_pmp_per_c = float(row["gamma_pmp_per_c"])
         self.eta_inv_nom = float(row["eta_inv_nom"])
         self.mounting = row["mounting"]
+
+
+def _mask_faulty_sensor_days(frame: pd.DataFrame, inv: dict, sun: pd.DataFrame,
+                             off_s: int) -> pd.DataFrame:
+    """POA / module temperature of days on which the sensor is judged faulty -> NaN
+    (reason 'missing' in the filters; issue #14, ``analytics.sensor_qa.frame_sensor_validity``)."""
+    par = SAPM_PARAMETERS.get(inv.get("mounting"), SAPM_PARAMETERS["open_rack_glass_polymer"])
+    g_bad, t_bad = sensor_qa.frame_sensor_validity(
+        frame, sun["solar_elevation_deg"].to_numpy(), sun["poa_clearsky_wm2"].to_numpy(),
+        p_dc_kwp=float(inv["p_dc_kwp"]), std_offset_s=off_s, a=par["a"], b=par["b"])
+    if not (g_bad.any() or t_bad.any()):
+        return frame
+    frame = frame.copy()
+    frame.loc[g_bad, "poa_wm2"] = np.nan
+    frame.loc[t_bad, "t_module_c"] = np.nan
+    return frame
 
 
 def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: int | None,
@@ -88,7 +112,9 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         # loaded after it (ids, not clock times, which tie within a second).
         through = conn.execute(sa.select(sa.func.max(schema.ingest_batch.c.batch_id)).where(
             schema.ingest_batch.c.site_id == site_id)).scalar()
-        params = {**_params(site, filters, offset_h), "through_batch_id": through}
+        site_irr = SiteIrradiance(engine, site, start_s, end_s)
+        params = {**_params(site, filters, offset_h), "through_batch_id": through,
+                  "inverters": site_irr.describe()}
         comp_id = begin_computation(conn, site_id, "daily", params, scope=scope,
                                     software_version=heliaudit.__version__)
 
@@ -116,11 +142,22 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         if not batch:
             return
         suns = [sun_for(fr) for _inv, fr in batch]
+        frames, clearsky = [], []
+        for k, (inv, fr) in enumerate(batch):
+            sun_k = suns[k]
+            cs = sun_k["poa_clearsky_wm2"].to_numpy()
+            # an inverter whose arrays are not all in its POA sensor's plane (#11)
+            if site_irr.needs_model(inv["device_id"]):
+                fr, cs = site_irr.apply(inv["device_id"], fr)
+                sun_k = sun_k.assign(poa_clearsky_wm2=cs)
+            # a sensor judged faulty gives no PR evidence (#14)
+            frames.append(_mask_faulty_sensor_days(fr, inv, sun_k, off_s))
+            clearsky.append(cs)
         rows = adaily.daily_performance_many(
-            [fr for _inv, fr in batch], [_Inv(inv) for inv, _fr in batch],
+            frames, [_Inv(inv, site_irr.basis(inv["device_id"])) for inv, _fr in batch],
             utc_offset_h=offset_h,
             solar_elevation_deg=[x["solar_elevation_deg"].to_numpy() for x in suns],
-            poa_clearsky_wm2=[x["poa_clearsky_wm2"].to_numpy() for x in suns], filters=filters)
+            poa_clearsky_wm2=clearsky, filters=filters)
         names = np.array([inv["device_id"] for inv, _fr in batch], dtype=object)
         rows.insert(0, "device_id", names[rows.pop("inverter_no").to_numpy()])
         if len(rows):

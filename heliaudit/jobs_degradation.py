@@ -57,7 +57,7 @@ from db.daily import daily_table
 from db.degradation import (
     SITE_DEVICE,
     clearsky_inputs,
-    ghi_channels,
+    irradiance_channels,
     write_degradation,
 )
 from db.jsontext import clean
@@ -80,19 +80,22 @@ DEFAULTS: dict = {
     "rlm_harmonics": 1,
     "stl_seasonal": 7,
     "changepoint_penalty_factor": 3.0,
-    "changepoint_min_step_pct": 2.0,
+    "changepoint_min_step_pct": 2.75,  # false shifts of 2.1-2.5 % on validation fleets (#13)
     "clearsky": True,
     "clearsky_transposition": "haydavies",
     "clearsky_window_days": 15,
     "site_min_inverter_fraction": 0.5,
     "sigma_extra_pct_per_yr": 0.0,
+    "soiling_min_loss_pct": 2.0,  # below: soiling not material (recommended rate, issue #13)
 }
 METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
-           "sensor_year_pairs_between_shifts")
+           "sensor_year_pairs_between_shifts", "sensor_year_pairs_unsoiled", "modelled_sky_between_shifts")
 
 
 def _try(method: str, fn, *args, **kwargs) -> adeg.RateResult:
     """Run one estimator; too little data or invalid input becomes a refused result."""
+    if fn in (adeg.degradation_yoy, adeg.degradation_rlm, adeg.degradation_stl):
+        kwargs["method"] = method  # its warnings name the method they are about
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # estimator warnings are kept in result.warnings
         try:
@@ -126,7 +129,7 @@ def _daily_by_device(daily: pd.DataFrame) -> dict[str, pd.DataFrame]:
     out = {}
     for dev, d in daily.groupby("device_id"):
         d = d.set_index(pd.DatetimeIndex(pd.to_datetime(d["day"]))).sort_index()
-        out[str(dev)] = d
+        out[str(dev)] = adeg.trend_index(d)
     return out
 
 
@@ -170,14 +173,21 @@ def _clearsky_daily(engine, site: dict, invs: pd.DataFrame, offset_h: float, p: 
                           longitude_deg=site["longitude_deg"], altitude_m=site["altitude_m"],
                           tilt_deg=site["tilt_deg"], azimuth_deg=site["azimuth_deg"],
                           albedo=site["albedo"], transposition=p["clearsky_transposition"])
-    ghi = ghi_channels(engine, site["site_id"])
-    if ghi:
+    # clear periods from every irradiance sensor, each checked against the others (#13)
+    readings, refs = {}, {}
+    for sid, qty, ch in irradiance_channels(engine, site["site_id"]):
         with engine.connect() as conn:
-            ts, val = read_channel(conn, ghi[0][1])
+            ts, val = read_channel(conn, ch)
+        if not np.isfinite(val).any():
+            continue
         meas = pd.Series(val, pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True)))
-        meas = meas.groupby(meas.index).mean().reindex(power.index)
-        clear = acs.detect_clear_periods(meas, cs["ghi_clearsky_wm2"])
-        how = f"Reno & Hansen 2016 on GHI sensor {ghi[0][0]}"
+        readings[sid] = meas.groupby(meas.index).mean().reindex(power.index)
+        refs[sid] = cs["ghi_clearsky_wm2" if qty == "ghi_wm2" else "poa_clearsky_wm2"]
+    if readings:
+        clear, info = acs.clear_periods_from_sensors(readings, refs)
+        how = ("Reno & Hansen 2016 on every irradiance sensor (" + ", ".join(
+            f"{sid}: {v['days_faulty']} days judged faulty" for sid, v in sorted(info.items()))
+            + "); clear where every healthy sensor agrees")
     else:
         rated_on = power.notna().mul(pd.Series(p0), axis=1).sum(axis=1)
         fleet = 1000 * power.sum(axis=1, min_count=1) / rated_on.where(rated_on > 0)
@@ -189,7 +199,7 @@ def _clearsky_daily(engine, site: dict, invs: pd.DataFrame, offset_h: float, p: 
         dev = inv["device_id"]
         if dev not in p_ac:
             continue
-        d_t = 3.0  # Sandia ΔT at 1000 W/m² (King et al. 2004, open rack; METHODS §3)
+        d_t = 3.0  # Sandia ΔT at 1000 W/m² (King et al. 2004, open rack)
         t_cell = t_mod[dev].astype(float) + d_t * g_cs / 1000.0
         daily = acs.clearsky_daily_pi(
             power[dev].astype(float), g_cs, clear, p_dc_kwp=float(inv["p_dc_kwp"]),
@@ -221,8 +231,9 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
         res["peer_ratio_year_pairs"] = _try("peer_ratio_year_pairs", adeg.degradation_yoy, ratio.dropna(),
                                     rng=np.random.default_rng(seed + [2]), **yoy_kw)
         res["peer_ratio_year_pairs"].details["relative_to"] = "median of the peer group (same day)"
+    dense = None
     if clear_pi is not None:
-        clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # METHODS §5 window
+        clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # plausibility window (common practice)
         dense = acs.densify_clear_days(clear_pi, window_days=p["clearsky_window_days"])
         res["modelled_sky_year_pairs"] = _try("modelled_sky_year_pairs", adeg.degradation_yoy, dense,
                                    rng=np.random.default_rng(seed + [3]), **yoy_kw)
@@ -234,6 +245,7 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
         res["modelled_sky_year_pairs"] = adeg.RateResult.refused("modelled_sky_year_pairs", clear_reason or "not computed")
         res["sensor_drift_check"] = adeg.RateResult.refused("sensor_drift_check",
                                                             clear_reason or "not computed")
+    res[adeg.SOILING_CORRECTED], soil = _soiling_corrected(s, weights, p, seed + [6], yoy_kw)
     base = ratio.dropna() if ratio is not None and ratio.notna().sum() > 400 else s
     cps = acp.detect_level_shifts(base, penalty_factor=p["changepoint_penalty_factor"],
                                   min_step_pct=p["changepoint_min_step_pct"],
@@ -245,11 +257,73 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
         res["sensor_year_pairs_between_shifts"] = _try("sensor_year_pairs_between_shifts", adeg.degradation_yoy, s,
                                           breaks=breaks, rng=np.random.default_rng(seed + [4]),
                                           **yoy_kw)
+        if res["modelled_sky_year_pairs"].rate_pct_per_yr is not None:
+            res[adeg.SKY_BETWEEN_SHIFTS] = _try(
+                adeg.SKY_BETWEEN_SHIFTS, adeg.degradation_yoy, dense, breaks=breaks,
+                rng=np.random.default_rng(seed + [7]), **yoy_kw)
+        else:
+            res[adeg.SKY_BETWEEN_SHIFTS] = adeg.RateResult.refused(
+                adeg.SKY_BETWEEN_SHIFTS, "no clear-sky index: " + str(
+                    res["modelled_sky_year_pairs"].reason))
     else:
+        res[adeg.SKY_BETWEEN_SHIFTS] = adeg.RateResult.refused(
+            adeg.SKY_BETWEEN_SHIFTS, "no level shift (drop or rise) found: the whole-period "
+                                     "clear-sky rate applies")
         res["sensor_year_pairs_between_shifts"] = adeg.RateResult.refused(
             "sensor_year_pairs_between_shifts", "no level shift (drop or rise) found: the whole-period year-on-year "
                                    "rate applies")
+    cps["soiling"] = soil
     return res, cps
+
+
+def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: list,
+                       yoy_kw: dict) -> tuple[adeg.RateResult, dict]:
+    """Year-on-year rate of the index divided by its soiling ratio, and the soiling loss.
+
+    The soiling ratio follows Deceglie, Micheli & Muller (2018) as analytics.soiling builds it
+    (cleanings from upward steps of the index, Theil-Sen rate per dry interval, kept only when
+    its 95 % interval lies below zero, so noise is not read as soiling); the loss is the
+    expected-energy-weighted 1 - mean SR of the usable days.
+    """
+    from analytics import soiling as asoil
+
+    m = adeg.SOILING_CORRECTED
+    try:
+        full = s.reindex(pd.date_range(s.index[0], s.index[-1], freq="D"))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ev = asoil.detect_cleanings(full)
+            # slopes on 3-day medians: a ninth of the Theil-Sen pairs (O(n^2)) for rates of
+            # weeks-long dry intervals; an interval needs 4 such points (12 days)
+            thin = full.rolling(3, min_periods=1).median().iloc[2::3]
+            iv = asoil.soiling_intervals(thin, list(ev.index), min_days=4)
+            if len(iv):  # the intervals tile the daily index, first day to last
+                iv.loc[iv.index[0], "start"] = full.index[0]
+                iv.loc[iv.index[-1], "end"] = full.index[-1]
+        if len(iv):  # only dry intervals whose Theil-Sen slope is significantly negative
+            insignificant = iv["rate_high"] >= 0
+            iv.loc[insignificant, ["soiling_rate_per_day", "rate_low", "rate_high"]] = 0.0
+            iv.loc[insignificant, "soiled"] = False
+        sr = asoil.soiling_ratio_series(full.index, iv).reindex(s.index)
+    except (ValueError, KeyError, IndexError) as exc:
+        return adeg.RateResult.refused(m, f"soiling ratio not computed: {exc}"), {}
+    w = (weights.reindex(s.index).fillna(0.0) if weights is not None
+         else pd.Series(1.0, s.index))
+    loss = float(100 * (1 - (sr * w).sum() / w.sum())) if w.sum() > 0 else None
+    info = {"loss_pct": None if loss is None else round(loss, 3),
+            "n_cleanings": int(len(ev)), "n_soiled_intervals": int(iv["soiled"].sum())
+            if len(iv) else 0}
+    if loss is None or loss < p["soiling_min_loss_pct"]:
+        res = adeg.RateResult.refused(
+            m, f"soiling loss {0 if loss is None else loss:.1f} % is below "
+               f"{p['soiling_min_loss_pct']:g} %: not material, the year-on-year rate applies")
+        res.details["soiling_loss_pct"] = info["loss_pct"]
+        return res, info
+    res = _try(m, adeg.degradation_yoy, (s / sr.where(sr > 0.5)).dropna(),
+               rng=np.random.default_rng(seed), **yoy_kw)
+    res.details.update({"soiling_loss_pct": info["loss_pct"],
+                        "soiling_ratio": "Deceglie et al. 2018 (analytics.soiling)"})
+    return res, info
 
 
 def _methods_task(task: dict) -> tuple[dict[str, adeg.RateResult], dict]:
@@ -294,21 +368,22 @@ def methods_many(tasks: list[dict], *, workers: int | None = None,
     return out
 
 
-def _warranty_block(yoy: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series,
+def _warranty_block(rate: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series,
                     terms: dict | None, commissioned, p: dict) -> dict:
     if terms is None:
         return {"reason": "no [warranty] in the site configuration"}
-    if yoy.rate_pct_per_yr is None:
-        return {"reason": f"no measured rate: {yoy.reason}"}
-    test = awar.warranty_rate_test(yoy.rate_pct_per_yr, yoy.ci_high, yoy.confidence,
+    if rate.rate_pct_per_yr is None:
+        return {"reason": f"no measured rate: {rate.reason}"}
+    test = awar.warranty_rate_test(rate.rate_pct_per_yr, rate.ci_high, rate.confidence,
                                    annual_loss_pct=terms["annual_loss_pct"],
                                    confidence=terms["confidence"],
                                    sigma_extra_pct_per_yr=p["sigma_extra_pct_per_yr"])
+    chosen = (rate.details or {}).get("chosen_method") or rate.method
     start = terms["start_date"] or commissioned
     try:  # compare the envelope with the de-seasonalised index, not with seasonal dips
         m_pi = adeg.deseasonalised_monthly(s, weights, harmonics=p["rlm_harmonics"])
     except adeg.InsufficientDataError as exc:
-        return {**test, "method": "sensor_year_pairs", "terms": terms, "envelope": [], "shortfall_kwh": None,
+        return {**test, "measured_method": chosen, "method": chosen, "terms": terms, "envelope": [], "shortfall_kwh": None,
                 "reason_envelope": str(exc), "disclaimer": awar.DISCLAIMER}
     e = e_ac.copy()
     e.index = pd.DatetimeIndex(e.index)
@@ -317,19 +392,25 @@ def _warranty_block(yoy: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series
     env = awar.warranty_envelope(m_pi, m_e, start_date=start,
                                  first_year_loss_pct=terms["first_year_loss_pct"],
                                  annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"],
-                                 rate_pct_per_yr=yoy.rate_pct_per_yr)
-    return {**test, "method": "sensor_year_pairs", "terms": terms, "envelope": env["months"],
+                                 rate_pct_per_yr=rate.rate_pct_per_yr)
+    return {**test, "measured_method": chosen, "method": chosen, "terms": terms, "envelope": env["months"],
             "shortfall_kwh": env["shortfall_kwh"], "months_below": env["months_below"],
             "baseline": env.get("baseline"), "disclaimer": awar.DISCLAIMER}
 
 
 def _rows(device_id: str, res: dict[str, adeg.RateResult], summary: dict) -> list[dict]:
+    if "recommended" not in res:
+        why = next((r.reason for r in res.values() if r.reason), "no method gave a rate")
+        res = {**res, "recommended": adeg.RateResult.refused("recommended", why)}
+        res["recommended"].details = {"chosen_method": None, "reasons": [], "caveats": [],
+                                      "ci68_low": None, "ci68_high": None}
     rows = [{"device_id": device_id, "method": m, "rate_pct_per_yr": r.rate_pct_per_yr,
              "ci_low": r.ci_low, "ci_high": r.ci_high, "confidence": r.confidence,
              "n_points": r.n_points if r.rate_pct_per_yr is not None else None,
              "reason": r.reason, "details": {**r.details, "warnings": r.warnings}}
             for m, r in res.items()]
-    head = res["sensor_year_pairs"]
+    head = res["recommended"] if res["recommended"].rate_pct_per_yr is not None \
+        else res["sensor_year_pairs"]
     rows.append({"device_id": device_id, "method": "overview", "rate_pct_per_yr": head.rate_pct_per_yr,
                  "ci_low": head.ci_low, "ci_high": head.ci_high, "confidence": head.confidence,
                  "n_points": head.n_points if head.rate_pct_per_yr is not None else None,
@@ -374,7 +455,9 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         if d is None or d.empty:
             reports[dev] = {"n_days_input": 0, "n_days_used": 0}
             continue
-        s, rep = adeg.usable_daily_pi(d["pi"], d["day_valid"], commissioned=inv["commissioned"],
+        # commissioning date unknown (#11): no stabilisation period is excluded
+        comm = inv["commissioned"] if pd.notna(inv["commissioned"]) else None
+        s, rep = adeg.usable_daily_pi(d["pi"], d["day_valid"], commissioned=comm,
                                       stabilisation_days=p["stabilisation_days"])
         usable[dev], reports[dev] = s, rep
         weights[dev] = d["e_exp_valid_kwh"].reindex(s.index)
@@ -412,6 +495,11 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
                           p=p, rng_key=len(invs)))
     results = methods_many(tasks, workers=workers,
                            progress=(lambda i: progress(i, total)) if progress else None)
+    # the irradiance sensor's drift, judged from the drift checks of all inverters it serves
+    drift_by_sensor = {}
+    for sid, members in invs.groupby("poa_sensor_id")["device_id"]:
+        checks = [results[task_of[d]][0].get(adeg.DRIFT_CHECK) for d in members if d in task_of]
+        drift_by_sensor[sid] = {**adeg.judge_sensor_drift(checks), "sensor_id": sid}
     rows, refused = [], 0
     for _, inv in invs.iterrows():
         dev = inv["device_id"]
@@ -426,8 +514,14 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
                 res["peer_ratio_year_pairs"] = adeg.RateResult.refused(
                     "peer_ratio_year_pairs", f"fewer than {p['min_peers'] + 1} inverters in peer group "
                                      f"{inv['peer_group']!r}")
-            summary = _summary(res, cps, reports[dev], how)
-            summary["warranty"] = _warranty_block(res["sensor_year_pairs"], usable[dev], weights[dev],
+            drift = drift_by_sensor.get(inv["poa_sensor_id"])
+            _shift_energy(cps, by_dev[dev])
+            res["recommended"] = adeg.recommend_rate(
+                res, drift=drift, shifts=cps.get("change_points"), soiling=cps.get("soiling"),
+                sensor_id=inv["poa_sensor_id"])
+            summary = _summary(res, cps, reports[dev], how, drift)
+            summary["sensor_drift"] = drift
+            summary["warranty"] = _warranty_block(res["recommended"], usable[dev], weights[dev],
                                                   by_dev[dev]["e_ac_kwh"], terms,
                                                   inv["commissioned"], p)
             _note_steps(summary)
@@ -440,10 +534,24 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
             "peer_ratio_year_pairs", "not defined for the site as a whole (relative to itself)")
         rep = {"n_days_used": int(len(s)), "n_inverters": len(usable),
                "rule": f"days with >= {p['site_min_inverter_fraction']:.0%} of inverters usable"}
-        summary = _summary(res, cps, rep, how)
+        judged = [d for d in drift_by_sensor.values() if d["judged"]]
+        site_drift = None
+        if judged:  # a drifting sensor biases the site index through its inverters
+            site_drift = {"judged": True, "sensor_id": ", ".join(d["sensor_id"] for d in judged),
+                          "drift_pct_per_yr": float(np.median([d["drift_pct_per_yr"]
+                                                               for d in judged]))}
+        e_exp_site = pd.concat([by_dev[i]["e_exp_kwh"] for i in by_dev], axis=1).sum(axis=1)
+        _shift_energy(cps, pd.DataFrame({"e_exp_kwh": e_exp_site}))
+        res["recommended"] = adeg.recommend_rate(
+            res, drift=site_drift, shifts=cps.get("change_points"), soiling=cps.get("soiling"),
+            sensor_id=site_drift["sensor_id"] if site_drift else None,
+            min_soiling_loss_pct=p["soiling_min_loss_pct"])
+        summary = _summary(res, cps, rep, how, site_drift)
+        summary["sensor_drift"] = site_drift
         e_site = pd.concat([by_dev[i]["e_ac_kwh"] for i in by_dev], axis=1).sum(axis=1)
-        first = min((inv["commissioned"] for _, inv in invs.iterrows()), default=None)
-        summary["warranty"] = _warranty_block(res["sensor_year_pairs"], s, w, e_site, terms, first, p)
+        first = min((inv["commissioned"] for _, inv in invs.iterrows()
+                     if pd.notna(inv["commissioned"])), default=None)
+        summary["warranty"] = _warranty_block(res["recommended"], s, w, e_site, terms, first, p)
         _note_steps(summary)
     else:
         res = {m: adeg.RateResult.refused(m, "no usable daily data for the site") for m in METHODS}
@@ -456,12 +564,25 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
             "refused": int(refused)}
 
 
+def _shift_energy(cps: dict, d: pd.DataFrame) -> None:
+    """Energy of each level shift since its day: size × expected energy after it [kWh]
+    (negative for a drop: energy lost against the level before the shift)."""
+    if "e_exp_kwh" not in d:
+        return
+    e = d["e_exp_kwh"]
+    idx = pd.DatetimeIndex(pd.to_datetime(e.index))
+    for c in cps.get("change_points", []):
+        if c.get("kind") in ("drop", "rise") and c.get("size_pct") is not None:
+            after = float(e[idx >= pd.Timestamp(c["day"])].sum())
+            c["energy_kwh"] = round(c["size_pct"] / 100.0 * after, 1)
+
+
 def _note_steps(summary: dict) -> None:
     """A level drop inside the period: the whole-period rate mixes a failure with degradation."""
     drops = [c for c in summary.get("change_points", []) if c.get("kind") == "drop"]
     if not drops:
         return
-    msg = ("level drop(s) on " + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
+    msg = ("sensor_year_pairs: level drop(s) on " + ", ".join(f"{c['day']} ({c['size_pct']:+.1f} %)" for c in drops)
            + ": a step is a failure (string, module, inverter), not degradation; the whole-period "
              "rate includes it, see sensor_year_pairs_between_shifts and inspect the equipment")
     summary["warnings"] = sorted(set(summary.get("warnings", [])) | {msg})
@@ -469,13 +590,34 @@ def _note_steps(summary: dict) -> None:
         summary["warranty"]["note"] = msg
 
 
-def _summary(res: dict[str, adeg.RateResult], cps: dict, report: dict, clear_how: str) -> dict:
-    verdict = adeg.compare_methods(res)
-    all_warn = sorted({w for r in res.values() for w in r.warnings} | set(verdict["warnings"]))
-    return {"recommended_method": "sensor_year_pairs", "data": report, "comparison": verdict,
+def _summary(res: dict[str, adeg.RateResult], cps: dict, report: dict, clear_how: str,
+             drift: dict | None = None) -> dict:
+    """The overview row: data report, method comparison, change points, warnings.
+
+    Every warning starts with the code of the method it is about. The sensor-drift warning
+    comes from the sensor's judged drift (:func:`analytics.degradation.judge_sensor_drift`
+    over all inverters on the sensor), not from one inverter's intervals."""
+    verdict = adeg.compare_methods({k: v for k, v in res.items() if k != "recommended"},
+                                   drift=drift if drift is not None else {"judged": False})
+
+    def named(m, w):
+        return w if w.startswith(m) else f"{m}: {w}"
+
+    all_warn = {named(m, w) for m, r in res.items() if m != "recommended" for w in r.warnings}
+    all_warn |= set(verdict["warnings"])
+    rec = res.get("recommended")
+    if rec is not None:
+        all_warn |= {c["text"] if c["text"].startswith(str(c.get("method"))) else
+                     f"{c.get('method')}: {c['text']}"
+                     for c in rec.details.get("caveats", []) if c["kind"] == "sensor_drift"}
+    all_warn = sorted(all_warn)
+    rec = res.get("recommended")
+    chosen = rec.details.get("chosen_method") if rec is not None else None
+    return {"recommended_method": chosen, "data": report, "comparison": verdict,
             "change_points": cps.get("change_points", []), "segments": cps.get("segments", []),
             "changepoint_method": cps.get("method"), "changepoint_series": cps.get("series"),
             "clear_periods": clear_how or None, "warnings": all_warn,
+            "soiling": cps.get("soiling"),
             "note": awar.DISCLAIMER}
 
 
@@ -505,6 +647,16 @@ def _flags(engine, site_id: str) -> tuple[pd.DataFrame, bool]:
     return read_flags(engine, site_id), True
 
 
+def _basis(d: pd.DataFrame) -> dict:
+    """Where a device's PR and rates got irradiance and cell temperature (#11): days per code
+    (ingest.site_model.IRRADIANCE_BASES, analytics.daily.T_CELL_BASES; null: not recorded)."""
+    def counts(col):
+        if col not in d:
+            return {}
+        return {str(k): int(v) for k, v in d[col].dropna().value_counts().sort_index().items()}
+    return {"irradiance": counts("irradiance_basis"), "cell_temperature": counts("t_cell_basis")}
+
+
 def _period(d: pd.DataFrame) -> dict:
     """Period and PRs of one device from daily sums: PR = Σ e_ac / Σ e_ref (IEC 61724-1),
     PR_STC = Σ e_ac / Σ e_ref_stc, over days where both terms exist (all days, not only valid
@@ -525,11 +677,24 @@ def _period(d: pd.DataFrame) -> dict:
             "pr_basis": "sums over all days of the daily table (energy PR, outages included)"}
 
 
+def _num(v) -> float | None:
+    return None if v is None or pd.isna(v) else float(v)
+
+
 def _device_block(res: pd.DataFrame) -> dict:
-    methods, summary = {}, {}
+    methods, summary, rec = {}, {}, None
     for _, r in res.iterrows():
         if r["method"] == "overview":
             summary = r["details"] or {}
+            continue
+        if r["method"] == "recommended":
+            det = r["details"] or {}
+            rec = {"method": det.get("chosen_method"), "rate_pct_per_yr": _num(r["rate_pct_per_yr"]),
+                   "ci_low": _num(r["ci_low"]), "ci_high": _num(r["ci_high"]),
+                   "confidence": _num(r["confidence"]), "ci68_low": _num(det.get("ci68_low")),
+                   "ci68_high": _num(det.get("ci68_high")),
+                   "n_points": None if pd.isna(r["n_points"]) else int(r["n_points"]), "reasons": det.get("reasons", []),
+                   "caveats": det.get("caveats", []), "reason": r["reason"]}
             continue
         det = dict(r["details"] or {})
         methods[r["method"]] = {
@@ -539,7 +704,14 @@ def _device_block(res: pd.DataFrame) -> dict:
             "confidence": None if pd.isna(r["confidence"]) else float(r["confidence"]),
             "n_points": None if pd.isna(r["n_points"]) else int(r["n_points"]),
             "reason": r["reason"], "warnings": det.pop("warnings", []), "details": det}
-    return {"degradation": methods,
+    if rec is None and "sensor_year_pairs" in methods:  # stored before issue #13
+        y = methods["sensor_year_pairs"]
+        rec = {"method": "sensor_year_pairs", **{k: y[k] for k in ("rate_pct_per_yr", "ci_low",
+                                                                   "ci_high", "confidence")},
+               "ci68_low": None, "ci68_high": None, "reasons": [
+                   "stored by an older version without a recommended rate: sensor_year_pairs"],
+               "caveats": [], "reason": y["reason"]}
+    return {"degradation": methods, "recommended": rec,
             "recommended_method": summary.get("recommended_method"),
             "comparison": summary.get("comparison"),
             "change_points": summary.get("change_points", []),
@@ -547,6 +719,7 @@ def _device_block(res: pd.DataFrame) -> dict:
             "changepoint_method": summary.get("changepoint_method"),
             "warnings": summary.get("warnings", []),
             "data": summary.get("data"), "clear_periods": summary.get("clear_periods"),
+            "sensor_drift": summary.get("sensor_drift"), "soiling": summary.get("soiling"),
             "warranty": summary.get("warranty")}
 
 
@@ -572,8 +745,10 @@ def results_document(engine, site_id: str) -> dict:
     for _, inv in invs.iterrows():
         dev = inv["device_id"]
         block = {"device_id": dev, "p_dc_kwp": float(inv["p_dc_kwp"]),
-                 "commissioned": str(inv["commissioned"]), "peer_group": inv["peer_group"],
-                 "period": _period(daily[daily["device_id"] == dev])}
+                 "commissioned": str(inv["commissioned"]) if pd.notna(inv["commissioned"])
+                 else None, "peer_group": inv["peer_group"],
+                 "period": _period(daily[daily["device_id"] == dev]),
+                 "basis_days": _basis(daily[daily["device_id"] == dev])}
         rows = deg[deg["device_id"] == dev]
         block.update(_device_block(rows) if len(rows) else
                      {"degradation": {}, "reason": "degradation not computed"})

@@ -33,6 +33,7 @@ import sqlalchemy as sa
 
 import heliaudit
 from analytics import clock, energy_check, outages, outliers, sensor_qa, soiling
+from analytics.availability import stopped_reporting_flags
 from analytics.daily import standard_utc_offset_h
 from analytics.outliers import FLAG_COLUMNS, epoch_s, flag_frame
 from analytics.power import expected_ac_power
@@ -40,6 +41,7 @@ from analytics.temperature import (
     SAPM_PARAMETERS,
     cell_temperature_from_module,
     cell_temperature_sandia,
+    module_temperature_sandia,
 )
 from db import schema
 from db.computations import begin_computation, finish_computation
@@ -60,20 +62,41 @@ Progress = Callable[[int, int], None]  # progress(done, total), in devices
 
 #: Detector settings recorded with each computation (defaults cite METHODS §5, §8–§10).
 PARAMS = {
-    "underperformance": {"z_threshold": -3.0, "min_deficit": 0.02, "min_peers": 5,
+    "underperformance": {"z_threshold": -3.0, "min_deficit": 0.04, "min_peers": 5,
                          "window": 5, "k_required": 3, "escalate_days": 14,
-                         "clear_days": 3},
+                         "clear_days": 3, "own_min_pi": 0.80, "own_history_deficit": 0.10,
+                         "history_days": 90, "history_lag_days": 30},
     "outage": {"min_poa_wm2": 50.0, "max_frac": 0.01, "min_duration_h": 0.5,
-               "warning_h": 1.0, "alarm_h": 4.0},
-    "clipping": {"frac": 0.98, "summary": "per local month"},
-    "soiling": {"input": "site median of valid daily pi", "window": 7, "min_days": 10,
+               "warning_h": 1.0, "alarm_h": 4.0, "min_elevation_deg": 10.0,
+               "startup_frac": 0.01, "min_expected_multiple": 5.0, "edge_minutes": 30.0},
+    "site_outage": {"min_share": 0.5, "min_inverters": 2, "max_start_diff_s": 7200},
+    "power_limit": {"min_poa_wm2": 600.0, "tol_frac": 0.003, "min_share": 0.1,
+                    "max_level_frac": 0.97},
+    "stopped": {"min_days": 3.0},
+    "input_mismatch": {"min_deficit": 0.05, "min_yield_kw_per_kwp": 0.1, "window": 5,
+                       "k_required": 3, "runs_when": "an inverter has >= 2 loaded inputs and "
+                       "its [[inverters]] arrays give each input's id and p_dc_kwp"},
+    "clipping": {"frac": 0.98, "summary": "per local month; one site flag when >= 2 "
+                                          "inverters clip that month"},
+    "soiling": {"input": "site median of each inverter's daily pi over unclipped intervals "
+                         "(POA >= 200 W/m2, expected < 95 % of rating, 1-98 % of rating "
+                         "measured) on the daily table's valid days",
+                "window": 7, "min_days": 14,
                 "rain_threshold_mm": 5.0, "min_loss": 0.01, "horizon_days": 30,
                 "n_runs": 1000},
     "sensor": {"ranges": sensor_qa.RANGES, "p_ac_range": [-0.02, 1.05],
                "flatline_samples": {"irradiance_power": 4, "temperature": 8},
+               "p_ac_flat_min_frac": 0.05,
                "dropout_min_h": 1.0, "night_wm2": 5.0, "night_elevation_deg": -3.0,
-               "drift_threshold_pct_per_yr": 1.0, "daytime_elevation_deg": 10.0},
-    "clock": {"threshold_min": 10.0, "n_clear": 7, "clear_day_max_vi": 1.3},
+               "drift_threshold_pct_per_yr": 1.0, "daytime_elevation_deg": 10.0,
+               "validity": {"day_elevation_deg": 15.0, "night_elevation_deg": -12.0,
+                            "night_max_wm2": 5.0, "stuck_tol_wm2": 0.5,
+                            "low_vs_power_factor": 0.25, "full_sun_wm2": 600.0,
+                            "colder_than_ambient_margin_c": 2.0, "model_margin_c": 20.0,
+                            "ambient_night_max_c": 4.0, "ambient_day_max_c": 3.0}},
+    "clock": {"threshold_min": 10.0, "n_clear": 7, "clear_day_max_vi": 1.3,
+              "agreement": "shift on >= 2 devices (levels within 15 min), or the only device",
+              "geometry": "clear-sky POA on each array's own plane"},
     "counter_mismatch": {"period": "local month", "rel_tol": energy_check.REL_TOL,
                          "resolution_units": energy_check.RESOLUTION_UNITS},
     "temperature": "cell from back-of-module (King et al. 2004 Eq. 12), from ambient "
@@ -86,9 +109,11 @@ PARAMS = {
 # ---------------------------------------------------------------- solar geometry
 
 
-def site_sun(index: pd.DatetimeIndex, site: dict, tau_h: float) -> pd.DataFrame:
+def site_sun(index: pd.DatetimeIndex, site: dict, tau_h: float,
+             plane: tuple[float, float] | None = None) -> pd.DataFrame:
     """Solar elevation [°], AOI [°] and clear-sky POA [W/m²] at interval midpoints
-    (pvlib NREL SPA numpy, Ineichen clear sky, isotropic transposition)."""
+    (pvlib NREL SPA numpy, Ineichen clear sky, isotropic transposition), on the site's
+    plane or on ``plane`` = (tilt_deg, azimuth_deg) of one array."""
     if len(index) == 0:
         return pd.DataFrame({"elev": [], "aoi": [], "poa_cs": []}, index=index)
     mid = index + pd.Timedelta(hours=tau_h / 2)
@@ -98,12 +123,12 @@ def site_sun(index: pd.DatetimeIndex, site: dict, tau_h: float) -> pd.DataFrame:
                                                site["longitude_deg"], site["altitude_m"],
                                                method="nrel_numpy")
     cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
+    tilt, azim = plane if plane is not None else (site["tilt_deg"], site["azimuth_deg"])
     poa = pvlib.irradiance.get_total_irradiance(
-        site["tilt_deg"], site["azimuth_deg"], sp["apparent_zenith"], sp["azimuth"],
+        tilt, azim, sp["apparent_zenith"], sp["azimuth"],
         cs["dni"], cs["ghi"], cs["dhi"], albedo=site.get("albedo", 0.2),
         model="isotropic")["poa_global"]
-    aoi = pvlib.irradiance.aoi(site["tilt_deg"], site["azimuth_deg"], sp["apparent_zenith"],
-                               sp["azimuth"])
+    aoi = pvlib.irradiance.aoi(tilt, azim, sp["apparent_zenith"], sp["azimuth"])
     return pd.DataFrame({"elev": sp["elevation"].to_numpy(float), "aoi": aoi.to_numpy(float),
                          "poa_cs": np.nan_to_num(poa.to_numpy(float)).clip(min=0)},
                         index=index)
@@ -160,13 +185,49 @@ def _tau_s(index: pd.DatetimeIndex, interval_s=None) -> int:
     return int(np.median(np.diff(ts))) if ts.size > 1 else 900
 
 
+def inverter_plane(inv: dict, site: dict) -> tuple[float, float] | None:
+    """The array plane (tilt_deg, azimuth_deg) of an inverter when the configuration gives
+    one that differs from the site's; None means the site plane."""
+    t, a = inv.get("tilt_deg"), inv.get("azimuth_deg")
+    try:
+        t, a = float(t), float(a)
+    except (TypeError, ValueError):
+        return None
+    if not (np.isfinite(t) and np.isfinite(a)):
+        return None
+    if abs(t - float(site["tilt_deg"])) < 0.5 and abs(a - float(site["azimuth_deg"])) < 0.5:
+        return None
+    return (t, a)
+
+
+def mask_invalid_sensor_days(frame: pd.DataFrame, inv: dict, invalid_days: dict,
+                             std_offset_s: int) -> pd.DataFrame:
+    """The frame with the POA / module-temperature readings of days on which that sensor
+    was judged faulty set to NaN (they give no evidence for any diagnosis)."""
+    out = frame
+    for col, key in (("poa_wm2", "poa_sensor_id"), ("t_module_c", "t_module_sensor_id"),
+                     ("t_amb_c", "t_amb_sensor_id")):
+        days = invalid_days.get(inv.get(key))
+        if days is None or col not in frame or days.empty or days["valid"].all():
+            continue
+        bad = sensor_qa.invalid_interval_mask(frame.index, days, std_offset_s=std_offset_s)
+        if bad.any():
+            if out is frame:
+                out = frame.copy()
+            out.loc[bad, col] = np.nan
+    return out
+
+
 def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_offset_s: int,
                    site_zone: str, source: tuple[str, str] | None = None,
-                   cache: dict | None = None) -> list[pd.DataFrame]:
-    """Outage, clipping, clock shift and power-channel QA flags of one inverter.
+                   cache: dict | None = None, withheld: dict | None = None,
+                   soiling_pi: dict | None = None) -> list[pd.DataFrame]:
+    """Outage, power limit, clipping, clock shift and power-channel QA flags of one inverter.
 
+    ``sun`` is on the inverter's own plane (clock against the array's own geometry).
     ``cache`` (a dict kept by the caller) shares the clear-sky centroids between inverters
-    logged on the same timestamps."""
+    logged on the same timestamps and plane; ``withheld`` (a dict) receives the daily
+    energy withheld by a power limit, by device."""
     dev = inv["device_id"]
     if frame.empty:
         return []
@@ -174,16 +235,37 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
     s = sun.reindex(frame.index)
     tau_s = _tau_s(frame.index, frame["interval_h"].to_numpy(float) * 3600.0)
     exp = _expected_power(frame, inv)
+    o = PARAMS["outage"]
     out = [outages.outage_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
-                                std_offset_s=std_offset_s, sun_up=(s["elev"] > 0).to_numpy()),
+                                std_offset_s=std_offset_s,
+                                solar_elevation_deg=s["elev"].to_numpy(),
+                                min_poa_wm2=o["min_poa_wm2"], max_frac=o["max_frac"],
+                                min_duration_h=o["min_duration_h"],
+                                min_elevation_deg=o["min_elevation_deg"],
+                                startup_frac=o["startup_frac"],
+                                min_expected_multiple=o["min_expected_multiple"],
+                                edge_minutes=o["edge_minutes"]),
            outages.clipping_flags(frame, p_max, device_id=dev, std_offset_s=std_offset_s)]
+    lim, per_day = outages.power_limit_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
+                                             std_offset_s=std_offset_s)
+    out.append(lim)
     p = frame["p_ac_kw"]
+    pv = p.to_numpy(float)
+    limited = np.zeros(len(p), dtype=bool)
+    if len(lim):
+        limited = outages.power_limit_mask(pv, float(lim["details"].iloc[0]["level_kw"]), p_max)
+        if withheld is not None and per_day is not None:
+            withheld[dev] = per_day
+    if soiling_pi is not None:
+        soiling_pi[dev] = unclipped_daily_pi(frame, exp, p_max, limited, std_offset_s)
     if p.notna().any():
         out.append(sensor_qa.range_flags(p, device_id=dev, quantity="p_ac_kw", lo=-0.02 * p_max,
                                          hi=1.05 * p_max, tau_s=tau_s))
         day = (s["elev"] > 10).to_numpy()
-        exclude = (outages.clipping_mask(p.to_numpy(float), p_max)
-                   | (p.to_numpy(float) <= 0.01 * p_max))
+        # at its limit, at zero or in dim light (a few W of a waking inverter) power may be
+        # flat without a stuck reading (issue #14: 137 "flatlines" at 12-24 W)
+        exclude = (outages.clipping_mask(pv, p_max) | limited
+                   | (pv <= PARAMS["sensor"]["p_ac_flat_min_frac"] * p_max))
         out.append(sensor_qa.flatline_flags(p, day, device_id=dev, quantity="p_ac_kw",
                                             tau_s=tau_s, exclude=exclude,
                                             sun_ref=s["poa_cs"].to_numpy()))
@@ -191,7 +273,8 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
         cs_c = None
         if cache is not None:  # inverters on the same timestamps share clear-sky centroids
             ts = epoch_s(frame.index)
-            key = (int(ts[0]), int(ts[-1]), len(ts), float(np.nansum(tau_h)))
+            key = (int(ts[0]), int(ts[-1]), len(ts), float(np.nansum(tau_h)),
+                   float(s["poa_cs"].iloc[len(s) // 2]) if len(s) else 0.0)
             if key not in cache:
                 cache[key] = clock.daily_centroid_min(s["poa_cs"], tau_h,
                                                       std_offset_s=std_offset_s)
@@ -205,26 +288,71 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
     return out
 
 
+def unclipped_daily_pi(frame: pd.DataFrame, exp: pd.Series, p_max: float, limited,
+                       std_offset_s: int, *, min_poa_wm2: float = 200.0,
+                       max_exp_frac: float = 0.95) -> pd.Series:
+    """Daily performance index Σ P τ / Σ P_exp τ over the intervals where neither the
+    inverter nor the model is near the AC limit, for the soiling estimate.
+
+    An inverter at its limit hides soiling (the DC surplus absorbs it) and a model clipped at
+    the rating compresses the ratio, so soiling read from those intervals comes out low
+    (issue #14: summer soiling rates 30 % low on an arid site with DC/AC ≈ 1.3). Intervals:
+    plausible POA ≥ ``min_poa_wm2`` (Deceglie et al. 2018 filter their inputs likewise,
+    from memory), expected power below ``max_exp_frac`` of the rating, measured power above
+    1 % (no outage) and below the clipping and power-limit levels.
+    """
+    p = frame["p_ac_kw"].to_numpy(float)
+    e = exp.to_numpy(float)
+    g = frame["poa_wm2"].to_numpy(float)
+    tau = frame["interval_h"].to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        ok = ((g >= min_poa_wm2) & (e < max_exp_frac * p_max) & (p > 0.01 * p_max)
+              & (p < 0.98 * p_max) & ~np.asarray(limited, dtype=bool) & np.isfinite(e))
+    day = (epoch_s(frame.index) + int(std_offset_s)) // 86400
+    num = np.bincount(day[ok] - day.min(), weights=(p * tau)[ok]) if ok.any() else np.zeros(0)
+    den = np.bincount(day[ok] - day.min(), weights=(e * tau)[ok]) if ok.any() else np.zeros(0)
+    idx = pd.to_datetime((np.arange(num.size) + day.min()) * 86400, unit="s")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = np.where(den > 0, num / np.where(den > 0, den, 1.0), np.nan)
+    return pd.Series(r, index=idx)
+
+
 def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) -> pd.DataFrame:
-    """Missing inverter power while the sun is up (information unavailable)."""
+    """Missing inverter power while the sun is well up (information unavailable); night
+    and a sleeping inverter at low sun are not dropouts."""
     tau_s = _tau_s(grid_sun.index, frame["interval_h"].to_numpy(float) * 3600.0
                    if "interval_h" in frame else None)
     p = frame["p_ac_kw"] if len(frame) else pd.Series(dtype=float)
-    return sensor_qa.dropout_flags(p, grid_sun["elev"] > 0, device_id=inv["device_id"],
-                                   quantity="p_ac_kw", tau_s=tau_s)
+    day = grid_sun["elev"] >= PARAMS["outage"]["min_elevation_deg"]
+    fl = sensor_qa.dropout_flags(p, day, device_id=inv["device_id"], quantity="p_ac_kw",
+                                 tau_s=tau_s)
+    # missing power is information unavailable (IEC TS 63019), not a faulty sensor
+    fl["kind"] = "data_dropout"
+    return fl
 
 
 def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataFrame, *,
                  std_offset_s: int, site_zone: str,
                  source: tuple[str, str] | None = None,
+                 x_valid: pd.Series | None = None,
                  interval_s: np.ndarray | None = None) -> tuple[list[pd.DataFrame], pd.Series | None]:
     """QA flags of one sensor; also returns its daily clear-sky ratio (POA) for sibling checks.
 
+    Range, flatline, dropout and night checks run on the raw readings ``x``; the clock and
+    drift diagnoses only on ``x_valid`` (the readings of days judged plausible).
     ``interval_s``: each reading's interval as recorded at ingest (None: from the spacing)."""
     tau_s = _tau_s(x.index, interval_s)
     s = grid_sun.reindex(x.index)
-    out = [sensor_qa.dropout_flags(x, grid_sun["elev"] > 0, device_id=sensor_id,
-                                   quantity=quantity, tau_s=tau_s)]
+    xv = x if x_valid is None else x_valid
+    day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
+    drop = sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id, quantity=quantity,
+                                   tau_s=tau_s)
+    # a gap of hours or a day or two is data unavailable (communication); a sensor silent
+    # for 36 or more daylight hours (about three days) is a sensor problem (common practice;
+    # issue #14: 29-h column gaps of healthy sensors on generated fleets)
+    short = [d["missing_daytime_hours"] < 36.0 for d in drop["details"]]
+    drop.loc[np.asarray(short, dtype=bool), "kind"] = "data_dropout"
+    out = [drop]
     if x.empty:
         return out, None
     if quantity in sensor_qa.RANGES:
@@ -237,47 +365,82 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     if quantity in ("poa_wm2", "ghi_wm2"):
         out.append(sensor_qa.night_irradiance_flags(x, s["elev"].to_numpy(), device_id=sensor_id,
                                                     quantity=quantity, tau_s=tau_s))
-    if quantity == "poa_wm2":
+    if quantity == "poa_wm2" and xv.notna().any():
         tau_h = (np.asarray(interval_s, dtype=float) / 3600.0 if interval_s is not None
                  else np.full(len(x), tau_s / 3600.0))
-        clear = clock.clear_day_mask(x, s["poa_cs"], std_offset_s=std_offset_s,
+        clear = clock.clear_day_mask(xv, s["poa_cs"], std_offset_s=std_offset_s,
                                      ratio_range=(0.7, 1.3))
-        off = clock.clock_offsets(x, s["poa_cs"], tau_h, std_offset_s=std_offset_s, clear=clear)
+        off = clock.clock_offsets(xv, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
+                                  clear=clear)
         out.append(clock.clock_shift_flags(
             off, device_id=sensor_id, std_offset_s=std_offset_s, site_zone=site_zone,
             source_name=source[0] if source else None,
             export_zone=source[1] if source else "local"))
-        ratio = sensor_qa.clear_period_ratio(x, s["poa_cs"], s["aoi"].to_numpy(), clear,
+        ratio = sensor_qa.clear_period_ratio(xv, s["poa_cs"], s["aoi"].to_numpy(), clear,
                                              std_offset_s=std_offset_s)
+        out.append(sensor_qa.clear_sky_level_flags(ratio, device_id=sensor_id,
+                                                   std_offset_s=std_offset_s))
         out.append(sensor_qa.drift_flags(ratio, device_id=sensor_id, method="clearsky",
                                          std_offset_s=std_offset_s,
                                          extra={"reference": "pvlib Ineichen clear-sky POA"}))
     return out, ratio
 
 
+def _adjust_pi_for_limits(d: pd.DataFrame, withheld: dict) -> pd.DataFrame:
+    """Add back the energy a power limit withheld: pi' = (E_valid + W_d) / E_exp,valid, so
+    the underperformance check does not read an export limit as a weak array (the limit has
+    its own 'power_limit' flag)."""
+    if not withheld or "e_exp_valid_kwh" not in d:
+        return d
+    d = d.copy()
+    for dev, w in withheld.items():
+        m = (d["device_id"] == dev).to_numpy()
+        if not m.any():
+            continue
+        wd = w.reindex(pd.DatetimeIndex(d.loc[m, "day"])).fillna(0.0).to_numpy(float)
+        e = d.loc[m, "e_exp_valid_kwh"].to_numpy(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            d.loc[m, "pi"] = np.where(e > 0, d.loc[m, "pi"].to_numpy(float) + wd / e,
+                                      d.loc[m, "pi"].to_numpy(float))
+    return d
+
+
 def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: int,
                 economics: dict, rain_daily: pd.Series | None = None,
-                n_runs: int = 1000) -> list[pd.DataFrame]:
-    """Underperformance, soiling/cleaning and fleet-power drift flags from the daily table."""
+                n_runs: int = 1000, withheld: dict | None = None,
+                soiling_pi: dict | None = None) -> list[pd.DataFrame]:
+    """Underperformance, soiling/cleaning and fleet-power drift flags from the daily table.
+
+    Soiling reads the site median of each inverter's unclipped daily performance index
+    (:func:`unclipped_daily_pi`) where the flags job computed it, else the daily ``pi``."""
     if daily.empty:
         return []
     d = daily.copy()
     d["day"] = pd.to_datetime(d["day"])
     groups = dict(zip(inverters["device_id"], inverters["peer_group"], strict=True))
-    out = [outliers.underperformance_flags(d, peer_group=groups, std_offset_s=std_offset_s,
-                                           **{k: v for k, v in PARAMS["underperformance"].items()
-                                              if k != "min_peers"},
-                                           min_peers=min(5, max(3, len(groups))))]
+    up = PARAMS["underperformance"]
+    out = [outliers.underperformance_flags(_adjust_pi_for_limits(d, withheld or {}),
+                                           peer_group=groups, std_offset_s=std_offset_s,
+                                           **up)]
     valid = d[d["day_valid"].astype(bool)]
     if len(valid):
         pi = valid.groupby("day")["pi"].median()
+        if soiling_pi:
+            wide = pd.DataFrame(soiling_pi)
+            ok = valid.pivot_table(index="day", columns="device_id", values="pi",
+                                   aggfunc="first").notna()
+            wide = wide.reindex(index=ok.index, columns=ok.columns).where(ok)
+            pi = wide.median(axis=1).dropna()
         h = valid.groupby("day")["h_poa_kwhm2"].median()
         e_exp = d.groupby("day")["e_exp_kwh"].sum(min_count=1)
-        out.append(soiling.soiling_flags(
+        soil = soiling.soiling_flags(
             pi, h, e_exp, rain_mm=rain_daily, tariff_per_kwh=economics.get("tariff_per_kwh", 0.05),
             cleaning_cost=economics.get("cleaning_cost", 0.0),
             currency=economics.get("currency", "EUR"), std_offset_s=std_offset_s,
-            n_runs=n_runs))
+            n_runs=n_runs)
+        out[0], soil = attach_uneven_soiling(out[0], soil, valid, std_offset_s=std_offset_s,
+                                             min_deficit=up["min_deficit"])
+        out.append(soil)
         # fleet power: pi of the inverters on each POA sensor; a rising trend is the sensor
         for sid, invs in inverters.groupby("poa_sensor_id")["device_id"]:
             med = valid[valid["device_id"].isin(list(invs))].groupby("day")["pi"].median()
@@ -288,6 +451,292 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
                        "reading": "median daily pi of the inverters on this sensor rises: "
                                   "modules do not improve, the sensor reads low"}))
     return out
+
+
+def attach_uneven_soiling(up: pd.DataFrame, soil: pd.DataFrame, valid: pd.DataFrame, *,
+                          std_offset_s: int, min_deficit: float, after_days: int = 14,
+                          slack_days: int = 3) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Underperformance explained by uneven soiling is attached to the soiling flag.
+
+    An inverter that soils faster than its peers drifts below them during a dry interval
+    and comes back at the cleaning; a failed string does not come back (issue #14: false
+    underperformance flags on an arid soiling site). An underperformance event lying inside
+    one soiled interval (to ``slack_days``) whose inverter is back within ``min_deficit`` of
+    its peers (median daily pi ratio) in the ``after_days`` after that interval's cleaning
+    becomes a consequence of the soiling flag (``details.consequences``, with its lost
+    energy), not an alarm of its own.
+    """
+    if up.empty or soil.empty:
+        return up, soil
+    so = soil[soil["kind"] == "soiling"]
+    if so.empty:
+        return up, soil
+    wide = valid.pivot_table(index="day", columns="device_id", values="pi", aggfunc="first")
+    ratio = wide.div(wide.median(axis=1), axis=0)
+    day_s = _ts_days(ratio.index, std_offset_s)
+    drop = []
+    soil = soil.copy()
+    for u in up.itertuples():
+        hit = so[(so["start_s"] <= u.start_s + slack_days * 86400)
+                 & (so["end_s"] >= u.end_s - slack_days * 86400)]
+        if hit.empty or u.device_id not in ratio:
+            continue
+        k = hit.index[0]
+        e0 = int(hit.at[k, "end_s"])
+        m = (day_s >= e0) & (day_s < e0 + after_days * 86400)
+        after = ratio[u.device_id].to_numpy(float)[m]
+        after = after[np.isfinite(after)]
+        if after.size < 3 or np.median(after) < 1.0 - min_deficit:
+            continue
+        det = dict(soil.at[k, "details"])
+        det["consequences"] = det.get("consequences", []) + [dict(
+            kind="underperformance", device_id=u.device_id, start_s=int(u.start_s),
+            end_s=int(u.end_s), lost_kwh=None if not np.isfinite(u.lost_kwh) else float(u.lost_kwh),
+            reading="uneven soiling: below its peers while soiling, back after the cleaning")]
+        soil.at[k, "details"] = det
+        drop.append(u.Index)
+    return up.drop(index=drop).reset_index(drop=True), soil
+
+
+def _ts_days(days, std_offset_s: int) -> np.ndarray:
+    """UTC epoch seconds of the start of each local standard day."""
+    return pd.DatetimeIndex(days).as_unit("s").asi8 - int(std_offset_s)
+
+
+def _yield_by_sensor(daily: pd.DataFrame, inverters: pd.DataFrame) -> dict[str, pd.Series]:
+    """Median daily final yield Y_f = E_ac / P_dc [h] of the inverters on each POA sensor."""
+    if daily.empty or "e_ac_kwh" not in daily:
+        return {}
+    kwp = dict(zip(inverters["device_id"], inverters["p_dc_kwp"].astype(float), strict=True))
+    d = daily[["device_id", "day", "e_ac_kwh"]].copy()
+    d["yf"] = d["e_ac_kwh"].astype(float) / d["device_id"].map(kwp)
+    d["day"] = pd.to_datetime(d["day"])
+    out = {}
+    for sid, invs in inverters.groupby("poa_sensor_id")["device_id"]:
+        out[sid] = d[d["device_id"].isin(list(invs))].groupby("day")["yf"].median()
+    return out
+
+
+def _low_vs_yield(x: pd.Series, yf: pd.Series | None, tau_s: int, std_offset_s: int, *,
+                  min_yf_h: float = 1.0, factor: float = 0.25) -> pd.Series:
+    """Days on which the sensor's insolation H is below ``factor`` × the arrays' final yield
+    (Y_f ≤ Y_r for any PR ≤ 1, IEC 61724-1): the sensor reads far less than the power
+    delivered under it."""
+    if yf is None or yf.empty or x.empty:
+        return pd.Series(dtype=bool)
+    day = (epoch_s(x.index) + int(std_offset_s)) // 86400
+    h = pd.Series(np.clip(x.to_numpy(float), 0, None) * tau_s / 3.6e6).groupby(day).sum()
+    h.index = pd.to_datetime(h.index.to_numpy() * 86400, unit="s")
+    y = yf.reindex(h.index)
+    return (y >= min_yf_h) & (h < factor * y)
+
+
+def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.DataFrame, *,
+                  std_offset_s: int) -> tuple[dict, list[pd.DataFrame]]:
+    """Plausibility of every sensor before any diagnosis.
+
+    Returns
+    -------
+    (invalid_days, flags): ``invalid_days`` maps sensor id -> day table of
+    :func:`analytics.sensor_qa.irradiance_validity` / ``module_temperature_validity``;
+    ``flags`` the 'sensor_implausible' flags (faulty periods with their reason and the
+    calculations they are excluded from, and an ambient-sensor offset).
+    """
+    by_id = {e[0]: (e[1], e[2].sort_index()) for e in sensors}
+    yields = _yield_by_sensor(daily, inverters)
+    invalid: dict = {}
+    flags: list[pd.DataFrame] = []
+    for sid, (q, x) in by_id.items():
+        if q not in ("poa_wm2", "ghi_wm2") or x.empty:
+            continue
+        gs = grid_sun_for(x.index)
+        s = gs.reindex(x.index)
+        days = sensor_qa.irradiance_validity(x, s["elev"].to_numpy(), s["poa_cs"].to_numpy(),
+                                             std_offset_s=std_offset_s)
+        low = _low_vs_yield(x, yields.get(sid), _tau_s(x.index), std_offset_s)
+        if len(low):
+            lo = low.reindex(days.index).fillna(False).to_numpy(bool)
+            days.loc[lo & days["valid"].to_numpy(bool), "reason"] = "low_vs_power"
+            days["valid"] = days["reason"] == ""
+        invalid[sid] = days
+        flags.append(sensor_qa.validity_flags(days, device_id=sid, quantity=q,
+                                              std_offset_s=std_offset_s))
+
+    def paired(tm_id: str, key: str, quantity: str) -> str | None:
+        if key in inverters and "t_module_sensor_id" in inverters:
+            ids = inverters.loc[inverters["t_module_sensor_id"] == tm_id, key].dropna()
+            ids = [i for i in ids if i in by_id]
+            if ids:
+                return pd.Series(ids).mode().iloc[0]
+        return next((i for i, (qq, _x) in by_id.items() if qq == quantity), None)
+
+    mount = inverters["mounting"].mode().iloc[0] if len(inverters) else "open_rack_glass_polymer"
+    par = SAPM_PARAMETERS.get(mount, SAPM_PARAMETERS["open_rack_glass_polymer"])
+    for sid, (q, x) in by_id.items():
+        if q != "t_module_c" or x.empty:
+            continue
+        gs = grid_sun_for(x.index).reindex(x.index)
+        g_id, a_id, w_id = (paired(sid, "poa_sensor_id", "poa_wm2"),
+                            paired(sid, "t_amb_sensor_id", "t_amb_c"),
+                            paired(sid, "wind_sensor_id", "wind_ms"))
+        g = by_id[g_id][1].reindex(x.index) if g_id else None
+        if g is not None and g_id in invalid:
+            g = g.mask(sensor_qa.invalid_interval_mask(x.index, invalid[g_id],
+                                                       std_offset_s=std_offset_s))
+        ta = by_id[a_id][1].reindex(x.index) if a_id else None
+        wind = by_id[w_id][1].reindex(x.index).fillna(1.0) if w_id else 1.0
+        model = None
+        if g is not None and ta is not None and ta.notna().any():
+            model = np.asarray(module_temperature_sandia(g.fillna(0.0).clip(lower=0), ta, wind,
+                                                         a=par["a"], b=par["b"]), dtype=float)
+        days = sensor_qa.module_temperature_validity(
+            x, poa_wm2=None if g is None else g.to_numpy(float),
+            t_amb_c=None if ta is None else ta.to_numpy(float), t_mod_model_c=model,
+            std_offset_s=std_offset_s, day_mask=(gs["elev"] >= 15.0).to_numpy())
+        invalid[sid] = days
+        flags.append(sensor_qa.validity_flags(days, device_id=sid, quantity=q,
+                                              std_offset_s=std_offset_s))
+        if a_id and model is not None:
+            tm_ok = x.mask(sensor_qa.invalid_interval_mask(x.index, days,
+                                                           std_offset_s=std_offset_s))
+            flags.append(sensor_qa.ambient_offset_flags(
+                by_id[a_id][1].reindex(x.index), tm_ok, model, gs["elev"].to_numpy(),
+                g.to_numpy(float), device_id=a_id, module_sensor=sid))
+    return invalid, flags
+
+
+def consolidate_clock_flags(flags: pd.DataFrame, *, n_clock_devices: int,
+                            max_level_diff_min: float = 15.0) -> pd.DataFrame:
+    """Keep a clock shift only where the healthy devices agree.
+
+    A logger clock error shifts every channel it records; a profile that looks shifted on
+    one device only is its orientation, shading or sensor (issue #14: arrays tilted
+    differently from the site default "shifted" their noon by 30 min, 127 flags). Clock
+    flags that overlap in time with levels within ``max_level_diff_min`` form a group; a
+    group of at least two devices (or the only device able to show a shift) becomes one
+    site-wide ``clock_shift`` flag with the median level, the correction and the dates
+    (median of the members). Single-device shifts on a site with other devices are
+    dropped (they are listed in the details of no flag; the rule is in the README).
+    """
+    if flags.empty:
+        return flags
+    is_clk = (flags["kind"] == "clock_shift").to_numpy()
+    if not is_clk.any():
+        return flags
+    clk = flags[is_clk].sort_values("start_s", kind="stable")
+    rows = list(clk.itertuples())
+    used: set[int] = set()
+    merged = []
+    for i, r in enumerate(rows):
+        if r.Index in used:
+            continue
+        lv = r.details["shift_minutes_measured"]
+        grp = [r]
+        for q in rows[i + 1:]:
+            if q.Index in used or q.start_s >= r.end_s:
+                continue
+            if q.end_s > r.start_s and abs(q.details["shift_minutes_measured"] - lv) <= \
+                    max_level_diff_min:
+                grp.append(q)
+        used.update(g.Index for g in grp)
+        devices = sorted({str(g.device_id) for g in grp if g.device_id is not None})
+        need = 2 if n_clock_devices >= 2 else 1
+        if len(devices) < need:
+            continue
+        pick = grp[int(np.argsort([g.start_s for g in grp])[len(grp) // 2])]
+        det = dict(pick.details)
+        s0 = int(np.median([g.start_s for g in grp]) // 86400 * 86400
+                 + pick.start_s % 86400)
+        e0 = int(np.median([g.end_s for g in grp]) // 86400 * 86400 + pick.end_s % 86400)
+        if e0 <= s0:
+            s0, e0 = int(pick.start_s), int(pick.end_s)
+        first = pd.Timestamp(det["first_day"]) + pd.Timedelta(seconds=s0 - int(pick.start_s))
+        last = pd.Timestamp(det["last_day"]) + pd.Timedelta(seconds=e0 - int(pick.end_s))
+        det.update(devices=devices, n_devices_agreeing=len(devices),
+                   n_devices_checked=int(n_clock_devices),
+                   shift_minutes_measured_by_device={str(g.device_id):
+                                                     g.details["shift_minutes_measured"]
+                                                     for g in grp},
+                   shift_minutes_measured=float(np.median(
+                       [g.details["shift_minutes_measured"] for g in grp])),
+                   first_day=str(first.date()), last_day=str(last.date()),
+                   agreement=f"{len(devices)} of {n_clock_devices} devices show the shift",
+                   last_day_partly_shifted=bool(np.median(
+                       [bool(g.details.get("last_day_partly_shifted")) for g in grp]) >= 0.5))
+        det["correction_toml"] = _retarget_toml(det["correction_toml"], first, last,
+                                                len(devices))
+        merged.append(dict(device_id=None if len(devices) > 1 else devices[0],
+                           kind="clock_shift", start_s=s0, end_s=e0,
+                           severity=max((g.severity for g in grp),
+                                        key=["info", "warning", "alarm"].index),
+                           lost_kwh=np.nan, details=det))
+    rest = flags[~is_clk]
+    return pd.concat([rest, flag_frame(merged)], ignore_index=True) if merged else rest
+
+
+def _retarget_toml(toml: str, first: pd.Timestamp, last: pd.Timestamp, n_dev: int) -> str:
+    lines = []
+    for ln in toml.splitlines():
+        if ln.startswith("start = "):
+            ln = f"start = {first.date().isoformat()}"
+        elif ln.startswith("end = "):
+            ln = f"end = {last.date().isoformat()}"
+        elif ln.startswith("note = ") and n_dev > 1:
+            ln = ln.replace("clock_shift on ", f"clock_shift on {n_dev} devices incl. ")
+        lines.append(ln)
+    return "\n".join(lines) + "\n"
+
+
+def _attach(flags: pd.DataFrame, parent_idx, kids: pd.DataFrame, drop: list,
+            extend: set[str] = frozenset()) -> None:
+    det = dict(flags.at[parent_idx, "details"])
+    det["consequences"] = det.get("consequences", []) + [
+        dict(kind=k.kind, device_id=k.device_id, start_s=int(k.start_s), end_s=int(k.end_s))
+        for k in kids.itertuples()]
+    flags.at[parent_idx, "details"] = det
+    ext = kids[kids["kind"].isin(extend)]
+    if len(ext):  # the same fault seen at a finer time resolution: take its exact span
+        flags.at[parent_idx, "start_s"] = int(min(flags.at[parent_idx, "start_s"],
+                                                  ext["start_s"].min()))
+        flags.at[parent_idx, "end_s"] = int(max(flags.at[parent_idx, "end_s"],
+                                                ext["end_s"].max()))
+    drop += list(kids.index)
+
+
+def attach_consequences(flags: pd.DataFrame) -> pd.DataFrame:
+    """Root causes first: a flag explained by another is attached to it, not raised alone.
+
+    * a sensor's range / flatline / night / dropout / clock / drift flag lying inside one of
+      its 'sensor_implausible' periods (its span is widened to a flatline's exact span), or
+      after it stopped reporting; an inverter's outage or dropout after it stopped
+      reporting;
+    * night-time irradiance on any sensor inside a clock shift (dusk light shown at night
+      is the clock, not the sensor).
+
+    The parent's details get ``consequences``: [{kind, device_id, start_s, end_s}].
+    """
+    if flags.empty:
+        return flags
+    flags = flags.reset_index(drop=True)
+    drop: list = []
+    parents = flags[flags["kind"].isin(["sensor_implausible", "stopped_reporting"])
+                    & flags["device_id"].notna()]
+    # an offset explains no gap or flat line
+    parents = parents[[d.get("reason") != "ambient_offset" for d in parents["details"]]]
+    child_kinds = {"sensor_range", "sensor_flatline", "sensor_night", "sensor_dropout",
+                   "data_dropout", "clock_shift", "sensor_drift", "outage"}
+    for pr in parents.itertuples():
+        m = ((flags["device_id"] == pr.device_id) & flags["kind"].isin(child_kinds)
+             & (flags["start_s"] >= pr.start_s - 86400) & (flags["end_s"] <= pr.end_s + 86400)
+             & ~flags.index.isin(drop))
+        if m.any():
+            _attach(flags, pr.Index, flags[m], drop, extend={"sensor_flatline"})
+    for pr in flags[flags["kind"] == "clock_shift"].itertuples():
+        m = ((flags["kind"] == "sensor_night") & (flags["start_s"] >= pr.start_s - 86400)
+             & (flags["end_s"] <= pr.end_s + 86400) & ~flags.index.isin(drop))
+        if m.any():
+            _attach(flags, pr.Index, flags[m], drop)
+    return flags.drop(index=sorted(set(drop))).reset_index(drop=True)
 
 
 def sibling_flags(ratios: dict[str, pd.Series], *, std_offset_s: int) -> list[pd.DataFrame]:
@@ -318,12 +767,15 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
     """
     if flags.empty:
         return flags
-    keep = ~flags["kind"].isin(["sensor_dropout", "clock_shift"])
+    keep = ~flags["kind"].isin(["sensor_dropout", "data_dropout", "clock_shift"])
     out = [flags[keep]]
     rest = flags[~keep].copy()
     rest["shift"] = [d.get("shift_minutes_correction") for d in rest["details"]]
-    for (_kind, _a, _b, _sh), grp in rest.groupby(["kind", "start_s", "end_s", "shift"],
+    # a sensor's and an inverter's missing data over the same span are one logger gap
+    rest["group"] = rest["kind"].replace({"sensor_dropout": "data_dropout"})
+    for (_kind, _a, _b, _sh), grp in rest.groupby(["group", "start_s", "end_s", "shift"],
                                                   dropna=False, sort=False):
+        grp = grp.drop(columns="group")
         if len(grp) < min_devices:
             out.append(grp.drop(columns="shift"))
             continue
@@ -331,7 +783,7 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
         devices = sorted(str(d) for d in grp["device_id"])
         det = dict(first["details"])
         det["devices"] = devices
-        if first["kind"] == "sensor_dropout":
+        if first["kind"] in ("sensor_dropout", "data_dropout"):
             det["quantity"] = sorted({d["quantity"] for d in grp["details"]})
             det["probable_cause"] = ("logger or communication outage: every listed channel "
                                      "is missing over the same span")
@@ -346,6 +798,8 @@ def merge_shared_flags(flags: pd.DataFrame, *, min_devices: int = 3) -> pd.DataF
                 f"on {first['device_id']}:", f"on {len(devices)} devices:")
             det["probable_cause"] += "; the same shift on every listed device: one logger clock"
         row = first.drop(labels="shift").to_dict()
+        if row["kind"] == "sensor_dropout":
+            row["kind"] = "data_dropout"
         row.update(device_id=None, details=det,
                    severity=max(grp["severity"], key=["info", "warning", "alarm"].index))
         out.append(pd.DataFrame([row]))
@@ -375,6 +829,11 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
                   counters: dict | None = None) -> pd.DataFrame:
     """Every flag of a site from data in memory.
 
+    Order (issue #14): judge every sensor first (faulty days are masked for everything that
+    follows), then the per-device diagnoses, then root causes: simultaneous outages become
+    one site event, clock shifts need agreement across devices, and flags explained by a
+    faulty sensor or a device that stopped reporting are attached to that cause.
+
     Parameters
     ----------
     site : dict
@@ -382,7 +841,9 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         ``azimuth_deg``, ``albedo``.
     inverters : DataFrame
         Inverter rows (``device_id``, ``p_dc_kwp``, ``p_ac_max_kw``, ``gamma_pmp_per_c``,
-        ``eta_inv_nom``, ``mounting``, ``poa_sensor_id``, ``peer_group``).
+        ``eta_inv_nom``, ``mounting``, ``poa_sensor_id``, ``peer_group``; optional
+        ``t_module_sensor_id``, ``t_amb_sensor_id``, ``wind_sensor_id`` and the array plane
+        ``tilt_deg``/``azimuth_deg``).
     frames : iterable of (inverter row dict, interval frame)
         As :func:`db.timeseries.inverter_frames` yields them.
     sensors : list of (sensor_id, quantity, Series) or (sensor_id, quantity, Series, interval_s)
@@ -407,25 +868,28 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     n_total = len(inverters) + len(sensors)
     done = 0
     parts: list[pd.DataFrame] = []
-    sun_cache: dict[int, pd.DataFrame] = {}  # interval [s] -> sun at those interval starts
+    sun_cache: dict[tuple, pd.DataFrame] = {}  # (interval [s], plane) -> sun at those starts
     cs_cache: dict[tuple, pd.Series] = {}
 
-    def sun_at(index: pd.DatetimeIndex, interval_s: np.ndarray) -> pd.DataFrame:
-        """Sun at each row's own interval midpoint; computed once per (timestamp, interval)."""
+    def sun_at(index: pd.DatetimeIndex, interval_s, plane=None) -> pd.DataFrame:
+        """Sun at each row's own interval midpoint, on the site's plane or ``plane``;
+        computed once per (timestamp, interval, plane)."""
         cols = ["elev", "aoi", "poa_cs"]
         out = pd.DataFrame(np.full((len(index), 3), np.nan), index=index, columns=cols)
         if len(index) == 0:
             return out
+        if interval_s is None:
+            interval_s = np.full(len(index), float(_tau_s(index)))
         iv = np.round(np.asarray(interval_s, dtype=float)).astype(np.int64)
         for u in np.unique(iv):
             m = iv == u
             idx = index[m] if not m.all() else index
-            have = sun_cache.get(int(u))
+            have = sun_cache.get((int(u), plane))
             missing = idx if have is None else idx.difference(have.index)
             if len(missing):
-                new = site_sun(missing, site, u / 3600.0)
+                new = site_sun(missing, site, u / 3600.0, plane)
                 have = new if have is None else pd.concat([have, new]).sort_index()
-                sun_cache[int(u)] = have
+                sun_cache[(int(u), plane)] = have
             vals = have.reindex(idx)[cols].to_numpy() if not (
                 len(have) == len(idx) and have.index.equals(idx)) else have[cols].to_numpy()
             out.iloc[np.flatnonzero(m)] = vals
@@ -447,20 +911,34 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
                                                    + sensor_intervals(e)[-1]))
              for e in sensors if len(e[2]) > 1]
     span = (min(a for a, _b in spans), max(b for _a, b in spans)) if spans else (None, None)
+    # 1. plausibility of every sensor, before any diagnosis
+    invalid_days, judged = judge_sensors(sensors, lambda idx: sun_at(idx, None), inverters,
+                                         daily, std_offset_s=off_s)
+    parts += judged
+    last_seen: dict[str, int] = {}
+    kinds: dict[str, str] = {}
     ratios: dict[str, pd.Series] = {}
     rain_parts: list[pd.Series] = []
+    n_clock = 0
     for entry in sensors:
         sid, q, x = entry[:3]
         iv = sensor_intervals(entry)
         if not x.index.is_monotonic_increasing:
             order = np.argsort(epoch_s(x.index), kind="stable")
             x = x.iloc[order]
+        xn = x.dropna()
+        if len(xn):
+            last_seen[sid], kinds[sid] = int(epoch_s(xn.index[-1:])[0]), q
         if len(x):
             g_idx, g_iv = expected_grid(x, iv)
             gs = sun_at(g_idx, g_iv)
+            days = invalid_days.get(sid)
+            xv = x if days is None else x.mask(sensor_qa.invalid_interval_mask(
+                x.index, days, std_offset_s=off_s))
             fl, ratio = sensor_flags(sid, q, x, gs, std_offset_s=off_s, site_zone=zone,
-                                     source=sources.get(sid), interval_s=iv)
+                                     source=sources.get(sid), x_valid=xv, interval_s=iv)
             parts += fl
+            n_clock += q == "poa_wm2"
             if ratio is not None and len(ratio):
                 ratios[sid] = ratio
             if q == "rain_mm":
@@ -472,14 +950,27 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         if progress:
             progress(done, n_total)
     parts += sibling_flags(ratios, std_offset_s=off_s)
+    parts.append(sensor_qa.sibling_jump_flags(ratios, std_offset_s=off_s))
     # several rain gauges: the daily mean of those that reported
     rain_daily = pd.concat(rain_parts, axis=1).mean(axis=1) if rain_parts else None
+    withheld: dict[str, pd.Series] = {}
+    soiling_pi: dict[str, pd.Series] = {}
     for inv, frame in frames:
         if len(frame):
-            gs = sun_at(frame.index, frame["interval_h"].to_numpy(float) * 3600.0)
-            parts += inverter_flags(inv, frame, gs, std_offset_s=off_s, site_zone=zone,
-                                    source=sources.get(inv["device_id"]), cache=cs_cache)
+            pn = frame["p_ac_kw"].dropna()
+            if len(pn):
+                last_seen[inv["device_id"]] = int(epoch_s(pn.index[-1:])[0])
+                kinds[inv["device_id"]] = "inverter"
+            iv_s = frame["interval_h"].to_numpy(float) * 3600.0
+            gs = sun_at(frame.index, iv_s)
+            plane = inverter_plane(inv, site)
+            gp = gs if plane is None else sun_at(frame.index, iv_s, plane)
+            fr = mask_invalid_sensor_days(frame, inv, invalid_days, off_s)
+            parts += inverter_flags(inv, fr, gp, std_offset_s=off_s, site_zone=zone,
+                                    source=sources.get(inv["device_id"]), cache=cs_cache,
+                                    withheld=withheld, soiling_pi=soiling_pi)
             parts.append(power_dropout_flags(inv, frame, gs))
+            n_clock += 1
             if counters and inv["device_id"] in counters:
                 parts.append(counter_flags(inv, frame, counters[inv["device_id"]],
                                            std_offset_s=off_s))
@@ -487,16 +978,27 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         if progress:
             progress(done, n_total)
     parts += daily_flags(daily, inverters, std_offset_s=off_s, economics=economics,
-                         rain_daily=rain_daily, n_runs=n_runs)
+                         rain_daily=rain_daily, n_runs=n_runs, withheld=withheld,
+                         soiling_pi=soiling_pi)
+    if last_seen:
+        parts.append(flag_frame(stopped_reporting_flags(
+            last_seen, max(last_seen.values()), min_days=PARAMS["stopped"]["min_days"],
+            kinds=kinds)))
     parts = [p for p in parts if len(p)]
     if not parts:
         return flag_frame([])
-    out = merge_shared_flags(pd.concat(parts, ignore_index=True)[list(FLAG_COLUMNS)])
+    out = pd.concat(parts, ignore_index=True)[list(FLAG_COLUMNS)]
+    out = outages.site_outage_events(out, len(inverters), **PARAMS["site_outage"])
+    out = outages.merge_clipping_by_month(out)
+    out = consolidate_clock_flags(out, n_clock_devices=n_clock)
+    out = merge_shared_flags(out)
+    out = attach_consequences(out)
     return out.sort_values(["start_s", "kind", "device_id"], na_position="first",
                            kind="stable").reset_index(drop=True)
 
 
 # ---------------------------------------------------------------- the job
+
 
 
 def _sensor_rows(conn: sa.Connection, site_id: str) -> list[tuple[str, str]]:
@@ -512,6 +1014,59 @@ def _inverter_rows(conn: sa.Connection, site_id: str) -> pd.DataFrame:
          .where(d.c.site_id == site_id).order_by(d.c.device_id))
     rows = [dict(r) for r in conn.execute(q).mappings()]
     return pd.DataFrame(rows, columns=["device_id", *(c.name for c in i.columns)])
+
+
+def _arrays_by_inverter(cfg: dict) -> dict[str, list[dict]]:
+    """inverter id -> its ``arrays`` entries (id, p_dc_kwp, tilt_deg, azimuth_deg) from the
+    stored configuration, where given."""
+    out: dict[str, list[dict]] = {}
+    for inv in cfg.get("inverters", []) or []:
+        if isinstance(inv, dict) and inv.get("id") and isinstance(inv.get("arrays"), list):
+            out[str(inv["id"])] = [a for a in inv["arrays"] if isinstance(a, dict)]
+    return out
+
+
+def _with_planes(inverters: pd.DataFrame, arrays: dict[str, list[dict]]) -> pd.DataFrame:
+    """Inverter rows with ``tilt_deg``/``azimuth_deg`` where all of an inverter's arrays lie
+    on one plane (the clock check then uses that plane)."""
+    if not arrays or "tilt_deg" in inverters:
+        return inverters
+    tilt, azim = [], []
+    for dev in inverters["device_id"]:
+        planes = {(a.get("tilt_deg"), a.get("azimuth_deg")) for a in arrays.get(str(dev), [])}
+        t, a = planes.pop() if len(planes) == 1 else (None, None)
+        tilt.append(t)
+        azim.append(a)
+    return inverters.assign(tilt_deg=tilt, azimuth_deg=azim)
+
+
+def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, list[dict]],
+                            std_offset_s: int) -> tuple[list[pd.DataFrame], str]:
+    """Input-mismatch flags of every inverter whose inputs are loaded and whose arrays give
+    each input's kWp; returns the flags and a note on what ran."""
+    from db import timeseries as tsdb
+
+    read = getattr(tsdb, "input_dc_power", None)
+    if read is None:
+        return [], "not run: the store has no per-input DC query"
+    out, n_run = [], 0
+    for dev, arr in arrays.items():
+        kwp = {str(a["id"]): float(a["p_dc_kwp"]) for a in arr
+               if a.get("id") is not None and a.get("p_dc_kwp")}
+        if len(kwp) < 2:
+            continue
+        df = read(engine, site_id, dev)
+        cols = [c for c in df.columns if c in kwp]
+        if len(cols) < 2:
+            continue
+        plane = {str(a["id"]): (a.get("tilt_deg"), a.get("azimuth_deg")) for a in arr}
+        out.append(outliers.input_mismatch_flags(
+            df[cols], kwp, device_id=dev, input_plane={c: plane.get(c) for c in cols},
+            interval_h=df["interval_h"].to_numpy(float) if "interval_h" in df else None,
+            std_offset_s=std_offset_s))
+        n_run += 1
+    return out, (f"run on {n_run} inverters" if n_run else
+                 "not run: no inverter with two or more loaded inputs and their kWp")
 
 
 def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None) -> int:
@@ -560,9 +1115,16 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
                 ts, v, iv = read_channel(conn, ch, with_interval=True)
                 if ts.size:
                     counters[dev] = (ts, v, fill_unknown_intervals(ts, iv))
-    flags = compute_flags(site, inverters, inverter_frames(engine, site_id), sensors, daily,
+    arrays = _arrays_by_inverter(cfg)
+    flags = compute_flags(site, _with_planes(inverters, arrays),
+                          inverter_frames(engine, site_id), sensors, daily,
                           economics=economics, sources=_sources_by_device(cfg),
                           progress=progress, counters=counters)
+    off_s = int(round(standard_utc_offset_h(site["timezone"]) * 3600))
+    mism, _note = input_mismatch_for_site(engine, site_id, arrays, off_s)
+    mism = [m for m in mism if len(m)]
+    if mism:
+        flags = pd.concat([flags, *mism], ignore_index=True)
     n = write_flags(engine, site_id, flags, comp_id)
     with engine.begin() as conn:
         finish_computation(conn, comp_id)

@@ -19,6 +19,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from ingest.site_model import HORIZONTAL, PLANE_KINDS, Array, Plane, choose_source
+
 FORMAT_VERSION = 1
 
 #: Quantities a channel may carry, with the units accepted for each (first = stored unit).
@@ -88,22 +90,36 @@ class Sensor:
     quantity: str
     instrument: str | None = None  # POA/GHI only: thermopile_pyranometer | reference_cell
     notes: str = ""
+    plane: Plane | None = None  # POA/GHI only: the plane the sensor lies in (GHI: horizontal)
 
 
 @dataclass(frozen=True)
 class Inverter:
+    """One inverter. ``arrays`` always holds at least one :class:`ingest.site_model.Array`
+    (an inverter without ``[[inverters.arrays]]`` has one array: its whole ``p_dc_kwp`` in its
+    plane). ``p_ac_max_kw`` is the DC nameplate when the AC rating is unknown
+    (``p_ac_max_assumed``); ``commissioned`` is None when unknown."""
+
     id: str
     p_dc_kwp: float
     p_ac_max_kw: float
     gamma_pmp_per_c: float
     mounting: str
-    poa_sensor: str
-    t_module_sensor: str
-    commissioned: dt.date
+    poa_sensor: str | None
+    t_module_sensor: str | None
+    commissioned: dt.date | None
     eta_inv_nom: float = 0.96
     t_amb_sensor: str | None = None
     wind_sensor: str | None = None
     peer_group: str = "site"
+    ghi_sensor: str | None = None
+    arrays: tuple[Array, ...] = ()
+    p_ac_max_assumed: bool = False
+
+    @property
+    def irradiance_sensor(self) -> str:
+        """The sensor of the first array's irradiance source (stored as ``poa_sensor_id``)."""
+        return self.arrays[0].irradiance_sensor if self.arrays else (self.poa_sensor or "")
 
 
 @dataclass(frozen=True)
@@ -176,6 +192,7 @@ class Source:
     columns: tuple[ColumnMap, ...] = ()  # wide layout: one entry per mapped column
     long: LongSpec | None = None  # long layout: which columns hold device/quantity/value
     quantity_names: dict[str, tuple[str, str]] = field(default_factory=dict)  # long: name -> (quantity, unit)
+    quantity_sampling: dict[str, str] = field(default_factory=dict)  # long: name -> "instant" (#11)
     counter_rollover_kwh: float | None = None  # wrap-around value of e_ac_total_kwh counters
     clock_corrections: tuple[ClockCorrection, ...] = ()
     ignore_columns: tuple[str, ...] = ()  # header names deliberately not loaded (status codes, ...)
@@ -214,6 +231,7 @@ class SiteConfig:
     economics: Economics
     warranty: Warranty | None
     filters: dict[str, float]
+    planes: tuple[Plane, ...] = ()
     owner: str = ""
     path: str = ""
     toml_text: str = ""
@@ -227,6 +245,11 @@ class SiteConfig:
 
     def inverter(self, inverter_id: str) -> Inverter:
         return next(i for i in self.inverters if i.id == inverter_id)
+
+    @property
+    def site_plane(self) -> Plane:
+        """The site-level plane, default of every inverter and POA sensor without their own."""
+        return Plane(kind="fixed", tilt_deg=self.tilt_deg, azimuth_deg=self.azimuth_deg, id="site")
 
     def device_ids(self) -> set[str]:
         return {s.id for s in self.sensors} | {i.id for i in self.inverters}
@@ -286,11 +309,29 @@ def table_path(key: str) -> str:
     return re.sub(r"\[\d+\]", "[]", key)
 
 
+#: Keys naming a table's plane (#11): plane = "<[[planes]] id>" | "site" | "horizontal",
+#: or an inline fixed plane.
+_PLANE_REF_KEYS = dict(plane=Key("id"), tilt_deg=Key("float", lo=0, hi=90),
+                       azimuth_deg=Key("float", lo=0, hi=360))
+register(
+    "planes[]",
+    id=Key("id", required=True), kind=Key("str", default="fixed", choices=PLANE_KINDS),
+    tilt_deg=Key("float", lo=0, hi=90), azimuth_deg=Key("float", lo=0, hi=360),
+    axis_tilt_deg=Key("float", lo=0, hi=60), axis_azimuth_deg=Key("float", lo=0, hi=360),
+    max_angle_deg=Key("float", lo=1, hi=90), backtrack=Key("bool"),
+    gcr=Key("float", lo=0.01, hi=1.0, doc="ground coverage ratio of the tracker rows"),
+)
+register(
+    "inverters[].arrays[]",
+    id=Key("id"), p_dc_kwp=Key("float", required=True, lo=0.01, hi=1e6),
+    poa_sensor=Key("id"), ghi_sensor=Key("id"), **_PLANE_REF_KEYS,
+)
 register(
     "",
     format_version=Key("int", default=FORMAT_VERSION, doc="format of this file"),
     site=Key("table", required=True), economics=Key("table"), warranty=Key("table"),
     filters=Key("table"), sensors=Key("tables"), inverters=Key("tables"), sources=Key("tables"),
+    planes=Key("tables", doc="named fixed planes and single-axis trackers (#11)"),
 )
 register(
     "site",
@@ -307,17 +348,21 @@ register(
     "sensors[]",
     id=Key("id", required=True), quantity=Key("str", required=True, choices=SENSOR_QUANTITIES),
     instrument=Key("str", choices=INSTRUMENTS), notes=Key("str", default="", max_len=2000),
+    **_PLANE_REF_KEYS,
 )
 register(
     "inverters[]",
     id=Key("id", required=True),
-    p_dc_kwp=Key("float", required=True, lo=0.1, hi=1e6),
-    p_ac_max_kw=Key("float", required=True, lo=0.1, hi=1e6),
+    # p_dc_kwp: required unless [[inverters.arrays]] give it; p_ac_max_kw, commissioned,
+    # t_module_sensor optional (#11, README "Optional ratings"); poa_sensor or ghi_sensor
+    p_dc_kwp=Key("float", lo=0.1, hi=1e6),
+    p_ac_max_kw=Key("float", lo=0.1, hi=1e6),
     gamma_pmp_per_c=Key("float", required=True),
     mounting=Key("str", required=True, choices=MOUNTINGS),
-    poa_sensor=Key("id", required=True), t_module_sensor=Key("id", required=True),
+    poa_sensor=Key("id"), ghi_sensor=Key("id"), t_module_sensor=Key("id"),
     t_amb_sensor=Key("id"), wind_sensor=Key("id"),
-    commissioned=Key("date", required=True),
+    commissioned=Key("date"), arrays=Key("tables", doc="MPPT inputs / string groups (#11)"),
+    **_PLANE_REF_KEYS,
     eta_inv_nom=Key("float", default=0.96, lo=0.5, hi=1.0),
     peer_group=Key("id", default="site"),
 )
@@ -365,6 +410,8 @@ register("sources[].long.quantities", **{"*": Key("table")})
 register(
     "sources[].long.quantities.*",
     quantity=Key("str", required=True, choices=tuple(QUANTITY_UNITS)), unit=Key("str", max_len=16),
+    sampling=Key("str", default="mean", choices=SAMPLINGS,
+                 doc="mean over the interval, or instant: a point sample at the timestamp (#11)"),
 )
 register(
     "sources[].clock_corrections[]",
@@ -389,6 +436,8 @@ register(
 #: logger data before 1990 is not expected (common practice); the latest date defaults to
 #: one day after the ingest runs (a logger clock may run a little ahead).
 EARLIEST_DEFAULT = dt.date(1990, 1, 1)
+#: Dates a configuration may name at all (inside what the nanosecond time axis can hold).
+DATE_MIN, DATE_MAX = dt.date(1900, 1, 1), dt.date(2200, 12, 31)
 
 
 def _filter_keys() -> dict[str, Key]:
@@ -615,6 +664,10 @@ class _Validator:
             self.bad("format_version", f"this heliaudit reads format {FORMAT_VERSION}, got {fv}")
         site = self.table(raw, "site", required=True)
         sid = self.val(site, "site", "id")
+        if sid is not None and not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", sid):
+            self.bad("site.id", "use letters, digits, '-', '_' or '.' (starting with a letter or "
+                                f"digit), at most 64 characters; got {_show(sid)}")
+            sid = None
         tz = self.val(site, "site", "timezone")
         if tz is not None:
             try:
@@ -622,9 +675,13 @@ class _Validator:
             except (zoneinfo.ZoneInfoNotFoundError, ValueError, OSError):
                 self.bad("site.timezone", f"unknown IANA time zone {tz!r} (e.g. 'Europe/Madrid')")
                 tz = None
-        sensors = self.sensors(self.array(raw, "sensors"), "sensors" in raw)
+        site_plane = Plane(kind="fixed", id="site",
+                           tilt_deg=self.val(site, "site", "tilt_deg") or 0.0,
+                           azimuth_deg=self.val(site, "site", "azimuth_deg") or 0.0)
+        planes = self.planes(self.array(raw, "planes"))
+        sensors = self.sensors(self.array(raw, "sensors"), "sensors" in raw, planes, site_plane)
         sensor_ids = {s.id: s for s in sensors}
-        inverters = self.inverters(self.array(raw, "inverters"), sensor_ids)
+        inverters = self.inverters(self.array(raw, "inverters"), sensor_ids, planes, site_plane)
         device_ids = set(sensor_ids) | {i.id for i in inverters}
         dup = set(sensor_ids) & {i.id for i in inverters}
         for d in sorted(dup):
@@ -661,15 +718,84 @@ class _Validator:
             latitude_deg=self.val(site, "site", "latitude_deg") or 0.0,
             longitude_deg=self.val(site, "site", "longitude_deg") or 0.0,
             altitude_m=self.val(site, "site", "altitude_m") or 0.0,
-            tilt_deg=self.val(site, "site", "tilt_deg") or 0.0,
-            azimuth_deg=self.val(site, "site", "azimuth_deg") or 0.0,
+            tilt_deg=site_plane.tilt_deg, azimuth_deg=site_plane.azimuth_deg,
+            planes=tuple(planes.values()),
             albedo=_or(self.val(site, "site", "albedo"), 0.2),
             sensors=tuple(sensors), inverters=tuple(inverters), sources=tuple(sources),
             economics=economics, warranty=warranty, filters=filters,
             path=self.path, toml_text=text,
         )
 
-    def sensors(self, items: list[dict], given: bool = True) -> list[Sensor]:
+    # ---------------------------------------------------------- site model (#11)
+    def planes(self, items: list[dict]) -> dict[str, Plane]:
+        """``[[planes]]``: named fixed planes and single-axis trackers, referred to by id."""
+        out: dict[str, Plane] = {}
+        for n, p in enumerate(items):
+            key = f"planes[{n}]"
+            pid = self.val(p, key, "id")
+            if pid in ("site", "horizontal"):
+                self.bad(f"{key}.id", f"{pid!r} is reserved (the site plane / horizontal)")
+            elif pid in out:
+                self.bad(f"{key}.id", f"duplicate plane id {pid!r}")
+            kind = self.val(p, key, "kind") or "fixed"
+            if kind == "single_axis":
+                for k in ("tilt_deg", "azimuth_deg"):
+                    if k in p:
+                        self.bad(f"{key}.{k}", "a single-axis tracker has no fixed tilt/azimuth; "
+                                 "use axis_tilt_deg, axis_azimuth_deg")
+                plane = Plane(
+                    kind=kind, id=pid or f"?{n}",
+                    axis_tilt_deg=_or(self.val(p, key, "axis_tilt_deg"), 0.0),
+                    axis_azimuth_deg=_or(self.val(p, key, "axis_azimuth_deg"), 180.0),
+                    max_angle_deg=_or(self.val(p, key, "max_angle_deg"), 60.0),
+                    backtrack=_or(self.val(p, key, "backtrack"), True),
+                    gcr=_or(self.val(p, key, "gcr"), 0.35))
+            else:
+                for k in ("axis_tilt_deg", "axis_azimuth_deg", "max_angle_deg", "backtrack", "gcr"):
+                    if k in p:
+                        self.bad(f"{key}.{k}", "only a kind = \"single_axis\" plane has this key")
+                for k in ("tilt_deg", "azimuth_deg"):
+                    if k not in p:
+                        self.bad(f"{key}.{k}", "is required for a fixed plane")
+                plane = Plane(kind="fixed", id=pid or f"?{n}",
+                              tilt_deg=_or(self.val(p, key, "tilt_deg"), 0.0),
+                              azimuth_deg=_or(self.val(p, key, "azimuth_deg"), 180.0))
+            if pid:
+                out[pid] = plane
+        return out
+
+    def plane_of(self, t: dict, key: str, planes: dict[str, Plane], default: Plane) -> Plane:
+        """A table's plane: ``plane = "<id>" | "site" | "horizontal"``, or inline
+        ``tilt_deg`` / ``azimuth_deg``, else ``default``."""
+        inline = "tilt_deg" in t or "azimuth_deg" in t
+        tpath = table_path(key)
+        if "plane" in t:
+            if inline:
+                self.bad(f"{key}.plane", "give either plane or tilt_deg/azimuth_deg, not both")
+            ref = self.val(t, key, "plane", tpath)
+            if ref == "site":
+                return Plane(kind="fixed", id="site", tilt_deg=default.tilt_deg,
+                             azimuth_deg=default.azimuth_deg) if default.id != "site" else default
+            if ref == "horizontal":
+                return HORIZONTAL
+            if ref is not None and ref not in planes:
+                known = ["site", "horizontal", *sorted(planes)]
+                hint = closest(ref, known)
+                self.bad(f"{key}.plane", f"no plane {ref!r}"
+                         + (f" (did you mean `{hint}`?)" if hint else "")
+                         + f"; known: {', '.join(known)}")
+            return planes.get(ref, default)
+        if inline:
+            tilt = self.val(t, key, "tilt_deg", tpath)
+            azim = self.val(t, key, "azimuth_deg", tpath)
+            return Plane(kind="fixed", tilt_deg=_or(tilt, default.tilt_deg),
+                         azimuth_deg=_or(azim, default.azimuth_deg))
+        return default
+
+    def sensors(self, items: list[dict], given: bool = True, planes: dict | None = None,
+                site_plane: Plane | None = None) -> list[Sensor]:
+        planes = planes or {}
+        site_plane = site_plane or Plane(id="site")
         out, seen = [], set()
         for n, s in enumerate(items):
             key = f"sensors[{n}]"
@@ -680,18 +806,84 @@ class _Validator:
                 self.bad(f"{key}.id", f"{sid!r} is reserved for site-level results")
             seen.add(sid)
             q = self.val(s, key, "quantity")
-            inst = None
+            inst, plane = None, None
             if q in ("poa_wm2", "ghi_wm2"):
                 inst = self.check(s, key, "instrument", Key("str", required=True, choices=INSTRUMENTS))
             elif "instrument" in s:
                 self.bad(f"{key}.instrument", f"applies to irradiance sensors only, not {q}")
+            if q == "poa_wm2":
+                plane = self.plane_of(s, key, planes, site_plane)
+            elif q == "ghi_wm2":
+                plane = self.plane_of(s, key, planes, HORIZONTAL)
+                if not plane.same_as(HORIZONTAL):
+                    self.bad(f"{key}.plane", "a ghi_wm2 sensor is horizontal; a tilted sensor "
+                             "is quantity = \"poa_wm2\" with its plane")
+                plane = HORIZONTAL
+            elif any(k in s for k in ("plane", "tilt_deg", "azimuth_deg")):
+                self.bad(f"{key}.plane", "only irradiance sensors (poa_wm2, ghi_wm2) have a plane")
             out.append(Sensor(id=sid or f"?{n}", quantity=q or "", instrument=inst,
-                              notes=self.val(s, key, "notes") or ""))
-        if not any(s.quantity == "poa_wm2" for s in out):
-            self.bad("sensors", "at least one POA irradiance sensor (quantity = \"poa_wm2\") is required")
+                              notes=self.val(s, key, "notes") or "", plane=plane))
+        if not any(s.quantity in ("poa_wm2", "ghi_wm2") for s in out):
+            self.bad("sensors", "at least one irradiance sensor (quantity = \"poa_wm2\" or "
+                     "\"ghi_wm2\") is required")
         return out
 
-    def inverters(self, items: list[dict], sensors: dict[str, Sensor]) -> list[Inverter]:
+    def _sensor_ref(self, t: dict, ref: str, key: str, qty: str, sensors: dict[str, Sensor]
+                    ) -> str | None:
+        sid = self.val(t, key, ref)
+        if sid is None:
+            return None
+        if sid not in sensors:
+            hint = closest(sid, sensors)
+            self.bad(f"{key}.{ref}", f"no sensor with id {sid!r}"
+                     + (f" (did you mean `{hint}`?)" if hint else "")
+                     + f"; known: {', '.join(sorted(sensors)) or '(none)'}")
+            return None
+        if sensors[sid].quantity != qty:
+            self.bad(f"{key}.{ref}", f"sensor {sid!r} measures {sensors[sid].quantity}, "
+                     f"expected {qty}")
+            return None
+        return sid
+
+    def _arrays(self, t: dict, key: str, inv_plane: Plane, p_dc: float | None,
+                inv_poa: str | None, inv_ghi: str | None, sensors: dict[str, Sensor],
+                planes: dict[str, Plane]) -> list[Array]:
+        """``[[inverters.arrays]]`` (or one array: the whole inverter), each with its source."""
+        specs = []
+        if "arrays" not in t:
+            specs.append(("1", p_dc or 1.0, inv_plane, None, None, key))
+        else:
+            ids = set()
+            items = self.array(t, "arrays", key)
+            if not items:
+                self.bad(f"{key}.arrays", "give at least one array, or leave arrays out")
+            for m, a in enumerate(items):
+                akey = f"{key}.arrays[{m}]"
+                aid = self.val(a, akey, "id") or str(m + 1)
+                if aid in ids:
+                    self.bad(f"{akey}.id", f"duplicate array id {aid!r}")
+                ids.add(aid)
+                specs.append((aid, self.val(a, akey, "p_dc_kwp") or 1.0,
+                              self.plane_of(a, akey, planes, inv_plane),
+                              self._sensor_ref(a, "poa_sensor", akey, "poa_wm2", sensors),
+                              self._sensor_ref(a, "ghi_sensor", akey, "ghi_wm2", sensors), akey))
+        out = []
+        for aid, kwp, plane, a_poa, a_ghi, akey in specs:
+            poa = [(s, sensors[s].plane or inv_plane) for s in (a_poa, inv_poa) if s]
+            ghi = [s for s in (a_ghi, inv_ghi) if s]
+            got = choose_source(plane, poa, ghi)
+            if got is None:
+                self.bad(akey, "no irradiance sensor: set poa_sensor (a plane-of-array sensor) "
+                         "or ghi_sensor (a horizontal one)")
+                got = ("poa_same_plane", "")
+            out.append(Array(id=aid, p_dc_kwp=kwp, plane=plane, poa_sensor=a_poa, ghi_sensor=a_ghi,
+                             irradiance_basis=got[0], irradiance_sensor=got[1]))
+        return out
+
+    def inverters(self, items: list[dict], sensors: dict[str, Sensor],
+                  planes: dict | None = None, site_plane: Plane | None = None) -> list[Inverter]:
+        planes = planes or {}
+        site_plane = site_plane or Plane(id="site")
         out, seen = [], set()
         if not items:
             self.bad("inverters", "at least one [[inverters]] entry is required")
@@ -708,31 +900,43 @@ class _Validator:
                 self.bad(f"{key}.gamma_pmp_per_c",
                          "expected a negative number per °C (e.g. -0.0035 for -0.35 %/°C), "
                          f"got {gamma}")
-            refs = {}
-            for ref, qty in (("poa_sensor", "poa_wm2"), ("t_module_sensor", "t_module_c"),
-                             ("t_amb_sensor", "t_amb_c"), ("wind_sensor", "wind_ms")):
-                sid = self.val(t, key, ref)
-                if sid is not None:
-                    if sid not in sensors:
-                        hint = closest(sid, sensors)
-                        self.bad(f"{key}.{ref}", f"no sensor with id {sid!r}"
-                                 + (f" (did you mean `{hint}`?)" if hint else "")
-                                 + f"; known: {', '.join(sorted(sensors)) or '(none)'}")
-                    elif sensors[sid].quantity != qty:
-                        self.bad(f"{key}.{ref}", f"sensor {sid!r} measures "
-                                 f"{sensors[sid].quantity}, expected {qty}")
-                refs[ref] = sid
+            refs = {ref: self._sensor_ref(t, ref, key, qty, sensors)
+                    for ref, qty in (("poa_sensor", "poa_wm2"), ("ghi_sensor", "ghi_wm2"),
+                                     ("t_module_sensor", "t_module_c"), ("t_amb_sensor", "t_amb_c"),
+                                     ("wind_sensor", "wind_ms"))}
+            if "t_module_sensor" not in t and "t_amb_sensor" not in t:
+                self.bad(key, "no t_module_sensor and no t_amb_sensor: cell temperature can be "
+                         "neither measured (back-of-module sensor) nor modelled (Sandia / "
+                         "Faiman from ambient temperature); assign at least one")
+            has_arrays = "arrays" in t
             p_dc = self.val(t, key, "p_dc_kwp")
+            if p_dc is None and not has_arrays and "p_dc_kwp" not in t:
+                self.bad(f"{key}.p_dc_kwp", "is required (or give [[inverters.arrays]] with "
+                         "their p_dc_kwp)")
+            inv_plane = self.plane_of(t, key, planes, site_plane)
+            arrays = self._arrays(t, key, inv_plane, p_dc, refs["poa_sensor"], refs["ghi_sensor"],
+                                  sensors, planes)
+            if has_arrays and arrays:
+                total = sum(a.p_dc_kwp for a in arrays)
+                if p_dc is not None and abs(total - p_dc) > 0.01 * p_dc:
+                    self.bad(f"{key}.p_dc_kwp", f"{p_dc:g} kWp but its arrays add up to "
+                             f"{total:g} kWp")
+                p_dc = p_dc if p_dc is not None else total
+            p_dc = p_dc or 1.0
             p_ac = self.val(t, key, "p_ac_max_kw")
             out.append(Inverter(
-                id=iid or f"?{n}", p_dc_kwp=p_dc or 1.0, p_ac_max_kw=p_ac or 1.0,
+                id=iid or f"?{n}", p_dc_kwp=p_dc,
+                # unknown AC rating: the DC nameplate is assumed (README, "Optional ratings")
+                p_ac_max_kw=p_ac if p_ac is not None else p_dc, p_ac_max_assumed=p_ac is None,
                 gamma_pmp_per_c=gamma if gamma is not None else -0.004,
                 mounting=self.val(t, key, "mounting"),
                 eta_inv_nom=_or(self.val(t, key, "eta_inv_nom"), 0.96),
                 commissioned=self.val(t, key, "commissioned"),
                 peer_group=self.val(t, key, "peer_group") or "site",
-                poa_sensor=refs["poa_sensor"], t_module_sensor=refs["t_module_sensor"],
+                poa_sensor=refs["poa_sensor"], ghi_sensor=refs["ghi_sensor"],
+                t_module_sensor=refs["t_module_sensor"],
                 t_amb_sensor=refs["t_amb_sensor"], wind_sensor=refs["wind_sensor"],
+                arrays=tuple(arrays),
             ))
         return out
 
@@ -786,6 +990,10 @@ class _Validator:
                     fmt = None
             earliest = self.val(ts, tkey, "earliest")
             latest = self.val(ts, tkey, "latest")
+            for nm, d in (("earliest", earliest), ("latest", latest)):
+                if d is not None and not (DATE_MIN <= d <= DATE_MAX):
+                    self.bad(f"{tkey}.{nm}", f"must be between {DATE_MIN} and {DATE_MAX}, got {d}")
+                    earliest, latest = (None, latest) if nm == "earliest" else (earliest, None)
             if earliest and latest and latest < earliest:
                 self.bad(f"{tkey}.latest", f"is before earliest ({earliest})")
             tspec = TimestampSpec(
@@ -798,7 +1006,7 @@ class _Validator:
             columns: list[ColumnMap] = []
             for m, c in enumerate(self.array(s, "columns", key)):
                 columns.extend(self._columns(c, f"{key}.columns[{m}]", sensors, inverters, device_ids))
-            long_spec, qnames = None, {}
+            long_spec, qnames, qsampling = None, {}, {}
             if layout == "long":
                 lkey = f"{key}.long"
                 lt = self.table(s, "long", key)
@@ -822,6 +1030,13 @@ class _Validator:
                                  f"unit {u!r} is not one of {', '.join(QUANTITY_UNITS[q])} for {q}")
                     if q is not None:
                         qnames[name] = (q, u or QUANTITY_UNITS[q][0])
+                        smp = self.val(spec, qkey, "sampling", "sources[].long.quantities.*")
+                        if smp == "instant":
+                            if q not in SAMPLED_QUANTITIES:
+                                self.bad(f"{qkey}.sampling", f"{q} cannot be an instantaneous "
+                                         "sample: an energy or counter is a sum")
+                            else:
+                                qsampling[name] = "instant"
                 if not qnames:
                     self.bad(f"{lkey}.quantities", "long layout needs a table mapping quantity names")
             elif not columns:
@@ -855,6 +1070,10 @@ class _Validator:
                               else dt.datetime.combine(x, dt.time()) for x in (start, end))
                 if isinstance(end, dt.datetime) and not isinstance(c.get("end"), dt.datetime):
                     end = end + dt.timedelta(days=1, seconds=-1)  # a date means the whole day
+                for nm, d in (("start", start), ("end", end)):
+                    if d is not None and not (DATE_MIN <= d.date() <= DATE_MAX):
+                        self.bad(f"{ckey}.{nm}", f"must be between {DATE_MIN} and {DATE_MAX}, got {d}")
+                        start = end = None
                 if start and end and end < start:
                     self.bad(ckey, "end is before start")
                 devs = list(self.val(c, ckey, "devices") or ())
@@ -892,6 +1111,7 @@ class _Validator:
                 unit_row=bool(self.val(s, key, "unit_row")),
                 missing_values=tuple(miss) if miss is not None else Source.missing_values,
                 timestamp=tspec, columns=tuple(columns), long=long_spec, quantity_names=qnames,
+                quantity_sampling=qsampling,
                 counter_rollover_kwh=self.val(s, key, "counter_rollover_kwh"),
                 clock_corrections=tuple(corrections),
                 ignore_columns=tuple(self.val(s, key, "ignore_columns") or ()),

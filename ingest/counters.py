@@ -39,7 +39,7 @@ from ingest.units import POWER_MAX_FACTOR
 #: interval at full load is quantised to ±10 %, at a quarter load to ±40 %).
 COARSE_FRACTION = 0.1
 #: Positive steps needed before a resolution is stated (fewer: not measured in this chunk).
-MIN_STEPS = 20
+MIN_STEPS = 8
 
 
 def counter_resolution(steps_kwh: np.ndarray, *, min_steps: int = MIN_STEPS,

@@ -31,6 +31,7 @@ from __future__ import annotations
 import fnmatch
 import hashlib
 import os
+import time
 from collections import Counter
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
@@ -40,13 +41,14 @@ import numpy as np
 import sqlalchemy as sa
 
 from db import ingest_log, readings
+from db.engine import is_busy
 from db.registry import register_site
 from ingest.config import SiteConfig, Source, normalise_unit
 from ingest.counters import CounterEvents, counter_resolution, interval_energy, is_coarse
 from ingest.errors import IngestError, Rejected
 from ingest.readers.csv_export import Chunk, _split, read_export
 from ingest.timestamps import NAT, TimestampConverter, describe_intervals, infer_intervals
-from ingest.units import implausible, to_stored
+from ingest.units import POWER_MAX_FACTOR, implausible, to_stored
 
 CONTEXT = 3  # labels of the neighbouring chunks used to infer intervals at chunk edges
 
@@ -195,17 +197,39 @@ def ingest_file(engine: sa.Engine, cfg: SiteConfig, source: Source, path: str | 
                                                f"cannot be read: {exc.strerror}").render())
     fields = dict(site_id=cfg.id, source_name=source.name, file_name=os.path.basename(path),
                   file_path=os.path.abspath(path), sha256=sha, size_bytes=size)
-    with engine.connect() as conn:
-        prev = ingest_log.loaded_batch_with_sha(conn, cfg.id, sha)
-    if prev is not None:
-        msg = f"same content (SHA-256) as batch {prev}; nothing to do"
-        bid = ingest_log.record_batch(engine, status="unchanged", message=msg, **fields)
-        if progress:
-            progress(size)
-        return BatchResult(path=path, site_id=cfg.id, source_name=source.name,
-                           status="unchanged", batch_id=bid, message=msg)
+    for attempt in range(BUSY_RETRIES + 1):
+        try:
+            return _load_once(engine, cfg, source, path, channels, fields, progress, chunk_rows)
+        except sa.exc.OperationalError as exc:
+            if not is_busy(exc) or attempt == BUSY_RETRIES:
+                raise
+            time.sleep(min(30.0, 0.5 * 2 ** attempt))  # another writer holds the store
+    raise AssertionError("unreachable")
+
+
+#: How often a file is tried again when another process holds SQLite's write lock longer
+#: than the busy timeout (30 s each): about ten minutes in all.
+BUSY_RETRIES = 12
+
+
+def _load_once(engine, cfg, source, path, channels, fields, progress, chunk_rows) -> BatchResult:
+    sha = fields["sha256"]
     try:
         with engine.begin() as conn:
+            # The duplicate check runs inside the file's transaction, under a lock on the
+            # file's content: two processes loading the same file at once load it once.
+            ingest_log.lock_file(conn, cfg.id, sha)
+            prev = ingest_log.loaded_batch_with_sha(conn, cfg.id, sha)
+            if prev is not None:
+                msg = f"same content (SHA-256) as batch {prev}; nothing to do"
+                bid = ingest_log.start_batch(conn, status="unchanged", message=msg, **fields)
+                ingest_log.finish_batch(conn, bid, status="unchanged", counts={},
+                                        ts_first_s=None, ts_last_s=None, interval_s=None,
+                                        notes={}, message=msg)
+                if progress:
+                    progress(fields["size_bytes"])
+                return BatchResult(path=path, site_id=cfg.id, source_name=source.name,
+                                   status="unchanged", batch_id=bid, message=msg)
             bid = ingest_log.start_batch(conn, **fields)
             fl = _FileLoader(conn, cfg, source, path, channels, bid, progress)
             fl.run(chunk_rows)
@@ -220,10 +244,14 @@ def ingest_file(engine: sa.Engine, cfg: SiteConfig, source: Source, path: str | 
         bid = ingest_log.record_batch(engine, status="failed", message=msg, **fields)
         return BatchResult(path=path, site_id=cfg.id, source_name=source.name, status="failed",
                            batch_id=bid, message=msg)
-    except Exception as exc:  # a bug or a database failure: record it, then let it surface
-        ingest_log.record_batch(engine, status="failed", message=(
-            f"{os.path.basename(path)}: internal error {type(exc).__name__}: {exc}"), **fields)
-        raise
+    except sa.exc.SQLAlchemyError:
+        raise  # the store failed (or is busy): the caller reports it; nothing was written
+    except Exception as exc:  # a bug: record it and report it as this file's failure
+        msg = (f"{os.path.basename(path)}: internal error {type(exc).__name__}: {exc} "
+               "(a bug in heliaudit: please report it with this file)")
+        bid = ingest_log.record_batch(engine, status="failed", message=msg, **fields)
+        return BatchResult(path=path, site_id=cfg.id, source_name=source.name, status="failed",
+                           batch_id=bid, message=msg)
 
 
 @dataclass
@@ -251,9 +279,14 @@ class _FileLoader:
         # per-device corrections: one converter per set of corrections a column gets
         self.group_keys: dict[tuple[int, ...], int] = {(): 0}
         self.group_convs: list[TimestampConverter | None] = [None]
+        # offsets or not: decided once per source (its earlier files), else at this file's first row
+        self.source_offsets = (ingest_log.source_timestamp_offsets(conn, cfg.id, source.name)
+                               if source.timestamp.format == "iso8601" else None)
+        self._source_offsets(self.conv)
         self.counts = Counter()
         self.rejected: list[Rejected] = []
         self.intervals: list[np.ndarray] = []
+        self.steps: Counter = Counter()  # steps between distinct labels: the file's nominal interval
         self.first = self.last = None
         self.written: tuple[int, int] | None = None
         self.stored: dict[int, tuple[int, int] | None] = {}  # channel -> stored (lo, hi), lazily
@@ -290,10 +323,17 @@ class _FileLoader:
         if own not in self.group_keys:
             corr = self.source.clock_corrections
             self.group_keys[own] = len(self.group_convs)
-            self.group_convs.append(TimestampConverter(
+            self.group_convs.append(self._source_offsets(TimestampConverter(
                 self.source.timestamp, self.cfg.timezone,
-                tuple(c for n, c in enumerate(corr) if getattr(c, "everywhere", True) or n in own)))
+                tuple(c for n, c in enumerate(corr) if getattr(c, "everywhere", True) or n in own))))
         return self.group_keys[own]
+
+    def _source_offsets(self, conv: TimestampConverter) -> TimestampConverter:
+        """Give a converter the source's offset / no-offset decision (iso8601; None: undecided)."""
+        if getattr(self, "source_offsets", None) is not None:
+            conv.offsets = self.source_offsets
+            conv.offsets_from = "earlier files of this source"
+        return conv
 
     def run(self, chunk_rows: int | None) -> None:
         kw = {"chunk_rows": chunk_rows} if chunk_rows else {}
@@ -318,6 +358,10 @@ class _FileLoader:
         read = self.counts["rows_read"]
         accounted = self.counts["rows_loaded"] + self.counts["rows_duplicate"] + self.counts["rows_rejected"]
         assert read == accounted, f"row accounting broken: {read} read, {accounted} accounted"
+        lines = meta.data_line + read + meta.blank_lines
+        assert lines == meta.lines_read, (f"line accounting broken: {meta.lines_read} lines, "
+                                          f"{lines} accounted")
+        self._counter_boundaries()
 
     # ------------------------------------------------------------ one chunk
     def _chunk(self, ch: Chunk, labels: np.ndarray, reasons: np.ndarray, tail, head) -> None:
@@ -331,7 +375,11 @@ class _FileLoader:
             ok[r] = False
         # interval of each row, from the distinct labels with the neighbouring chunks' edges
         u = np.unique(np.concatenate([tail, labels[ok], head]))
-        iv_u = infer_intervals(u, self.source.timestamp.label)
+        step = np.diff(u)
+        self.steps.update(step[step > 0].tolist())
+        nominal = float(max(self.steps.items(), key=lambda kv: (kv[1], -kv[0]))[0]) \
+            if self.steps else None
+        iv_u = infer_intervals(u, self.source.timestamp.label, nominal)
         own = np.unique(labels[ok])
         labels_unique = len(own) == int(ok.sum())  # no label repeats among the usable rows
         if len(own):
@@ -462,13 +510,14 @@ class _FileLoader:
             present = ~np.isnan(v) & ok[sel]
             inf = present & np.isinf(v)
             imp, why = implausible(np.where(inf, np.nan, v), vc.quantity, p_ac_max_kw=vc.p_ac_max_kw,
-                                   p_dc_kwp=vc.p_dc_kwp, interval_h=iv[sel] / 3600.0)
+                                   p_dc_kwp=vc.p_dc_kwp, interval_h=iv[sel] / 3600.0,
+                                   rollover_kwh=self.source.counter_rollover_kwh)
             imp &= present & ~inf
             for k in np.flatnonzero(inf | imp):
                 r = int(sel[k])
                 text = self._cell_text(ch, r, vc)
                 reason = (f"value {text!r} is not a finite number" if inf[k] else
-                          f"value {text!r} ({vc.unit}) {why}")
+                          f"value {text!r} ({vc.unit}) {why[k]}")
                 bad.append((r, j, text, reason))
             good = present & ~inf & ~imp
             rows_l.append(sel[good])
@@ -553,7 +602,8 @@ class _FileLoader:
                     else:
                         try:
                             to_stored(np.empty(0), quantity, uu)
-                            cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu)
+                            cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu,
+                                                  src.quantity_sampling.get(q, "mean"))
                         except ValueError as exc:
                             cache[k] = str(exc)
             v = cache[k]
@@ -614,21 +664,31 @@ class _FileLoader:
             ev = self.counter_events.setdefault(dev, CounterEvents())
             inv = self.cfg.inverter(dev)
             prev_v = self.counter_prev[dev][1] if self.counter_prev[dev] else np.nan
-            res = counter_resolution(np.diff(np.concatenate([[prev_v], v])))
+            steps = np.diff(np.concatenate([[prev_v], v]))
+            res = counter_resolution(steps)
             if res is not None:
                 self.counter_res[dev] = res
             res = self.counter_res.get(dev)
             tau = float(np.nanmedian(iv[r]))
-            coarse = is_coarse(res, inv.p_ac_max_kw, tau)
-            from_power = coarse and dev in power_devs
             info = self.counter_info.setdefault(dev, {})
             if res is not None:
+                coarse = is_coarse(res, inv.p_ac_max_kw, tau)
+                step = res
+            else:
+                # too few steps yet to measure the resolution (a night, a short chunk): a step
+                # beyond one interval's possible energy marks the counter coarse here
+                pos = steps[np.isfinite(steps) & (steps > 1e-9)]
+                coarse = bool(pos.size and pos.max() > POWER_MAX_FACTOR * inv.p_ac_max_kw
+                              * tau / 3600.0)
+                step = float(pos.min()) if coarse else 0.0
+            from_power = coarse and dev in power_devs
+            if res is not None or coarse:
                 info.update(resolution_kwh=res, coarse=coarse,
                             interval_energy_from="p_ac_kw" if from_power else "counter")
             energy, self.counter_prev[dev] = interval_energy(
                 t_r, iv[r], v, self.counter_prev[dev], p_ac_max_kw=inv.p_ac_max_kw,
                 rollover_kwh=self.source.counter_rollover_kwh, events=ev,
-                step_kwh=res if coarse else 0.0)
+                step_kwh=step if coarse else 0.0)
             if from_power:
                 continue  # readings stored as read; interval energy comes from AC power
             good = ~np.isnan(energy)
@@ -637,6 +697,40 @@ class _FileLoader:
             vals.append(energy[good])
             rows.append(r[good])
         return np.concatenate(keys), np.concatenate(vals), np.concatenate(rows)
+
+    def _counter_boundaries(self) -> None:
+        """Interval energy of the stored counter reading right after this file's last one.
+
+        Loaded in time order, a file's first derived interval energy comes from the stored
+        reading before it. Loaded out of order (January after February), February's first
+        interval energy could not be derived when February was loaded; it is derived now,
+        so the store does not depend on load order. Only where no e_ac_kwh is stored yet.
+        """
+        nominal = (max(self.steps.items(), key=lambda kv: (kv[1], -kv[0]))[0]
+                   if self.steps else None)
+        for dev, prev in self.counter_prev.items():
+            if prev is None or nominal is None:
+                continue
+            vc = next(v for v in self.vcols if v.device == dev and v.quantity == "e_ac_total_kwh")
+            nxt = readings.next_reading(self.conn, vc.channel, prev[0] - 1)
+            if nxt is None or nxt[0] != prev[0]:
+                continue  # nothing stored right after this file (or a gap)
+            ch_e = self.channels.get((dev, "e_ac_kwh"))
+            if ch_e is None or readings.has_reading(self.conn, ch_e, nxt[0]):
+                continue
+            inv = self.cfg.inverter(dev)
+            energy, _ = interval_energy(
+                np.array([nxt[0]], dtype=np.int64), np.array([float(nominal)]),
+                np.array([nxt[1]]), prev, p_ac_max_kw=inv.p_ac_max_kw,
+                rollover_kwh=self.source.counter_rollover_kwh,
+                events=self.counter_events.setdefault(dev, CounterEvents()))
+            if np.isfinite(energy[0]):
+                readings.write_readings(self.conn, np.array([ch_e]), np.array([nxt[0]]),
+                                        energy, self.batch_id, upsert=True)
+                self.derived["e_ac_kwh_derived_after_file"] += 1
+                lo, hi = nxt[0], nxt[0]
+                self.written = (lo, hi) if self.written is None else (
+                    min(lo, self.written[0]), max(hi, self.written[1]))
 
     def _overlaps(self, chans: list[int], lo: int, hi: int) -> bool:
         if self.written and lo <= self.written[1] and hi >= self.written[0]:
@@ -691,6 +785,8 @@ class _FileLoader:
             notes["counters"] = counters
         notes.update({k: v for k, v in self.derived.items() if v})
         notes["compressed"] = self.meta.compressed
+        notes["lines"] = {"total": self.meta.lines_read, "before_data": self.meta.data_line,
+                          "blank": self.meta.blank_lines}
         intervals = np.concatenate(self.intervals) if self.intervals else np.empty(0)
         return BatchResult(
             path=self.path, site_id=self.cfg.id, source_name=self.source.name, status="loaded",

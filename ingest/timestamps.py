@@ -17,7 +17,9 @@ Steps, in order, for each row (see README "Ingest rules"):
 4. Interval: from the distinct UTC labels in order. For interval-end labels a row's interval
    is the step since the previous label, for interval-start labels the step to the next one,
    unless that step is a gap (larger than the step on the other side and different from the
-   step before it), in which case the other side's step is used. This follows a change of
+   step before it), in which case the other side's step is used; a step that no neighbouring
+   step confirms is capped at the file's most common step (a row after a gap never takes the
+   whole gap as its interval). This follows a change of
    interval mid-file (15 -> 5 min) from its first row. The key is the label for interval-start
    loggers and label − interval for interval-end loggers.
 """
@@ -37,32 +39,65 @@ NAT = np.iinfo(np.int64).min
 _OFFSET = re.compile(r"(?:Z|[+-]\d\d:?\d\d)\s*$")
 
 
-def _ns(day: dt.date) -> np.int64:
-    return np.datetime64(day, "ns").astype(np.int64)
+def _epoch_s(day: dt.date) -> int:
+    return int((day - dt.date(1970, 1, 1)).total_seconds())
 
 
-def parse_wall(raw: np.ndarray, fmt: str) -> tuple[np.ndarray, bool]:
-    """Parse text timestamps; return (int64 ns, NAT where unparseable) and whether they carry offsets.
+_PER_S = {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}
+#: Seconds range representable as int64 nanoseconds (pandas' 1677-09-21 .. 2262-04-11).
+_NS_LO_S, _NS_HI_S = -9_223_372_036, 9_223_372_036
 
-    With offsets (``%z`` or ISO 8601 with ``Z``/``+hh:mm``) the ns are UTC, else wall-clock time.
+
+def _seconds(idx: pd.DatetimeIndex) -> np.ndarray:
+    """int64 epoch seconds of a (naive or UTC) index, NAT where NaT; any resolution."""
+    if idx.tz is not None:
+        idx = idx.tz_convert("UTC").tz_localize(None)
+    vals = idx.asi8
+    per = _PER_S.get(str(idx.unit), 10**9)
+    return np.where(vals == NAT, NAT, vals // per)
+
+
+def has_offset(raw: np.ndarray) -> np.ndarray:
+    """Whether each text timestamp ends with a UTC offset (``Z``, ``+hh:mm``, ``+hhmm``)."""
+    s = pd.Series(raw, dtype=object)
+    if not len(s):
+        return np.zeros(0, dtype=bool)
+    return s.str.contains(_OFFSET, na=False).to_numpy(dtype=bool)
+
+
+def parse_wall(raw: np.ndarray, fmt: str, offsets: bool = False) -> np.ndarray:
+    """Parse text timestamps to int64 epoch **seconds** (NAT where unparseable).
+
+    With ``offsets`` (``%z``, ISO 8601 with ``Z``/``+hh:mm``, or ``epoch_s``) the seconds are
+    UTC, else wall-clock time. Any year pandas can read is returned (the caller applies the
+    plausible-date window); nothing overflows.
     """
     s = pd.Series(raw, dtype=object)
     if fmt == "epoch_s":
         num = pd.to_numeric(s, errors="coerce").to_numpy(dtype=float)
         out = np.full(len(num), NAT, dtype=np.int64)
         ok = np.isfinite(num) & (np.abs(num) < 1e11)
-        out[ok] = np.round(num[ok] * 1e9).astype(np.int64)
-        return out, True
-    aware = "%z" in fmt or (fmt == "iso8601" and bool(
-        s.dropna().astype(str).str.contains(_OFFSET).any()))
+        out[ok] = np.round(num[ok]).astype(np.int64)
+        return out
+    if not len(s):
+        return np.empty(0, dtype=np.int64)
     kw = {"format": "ISO8601" if fmt == "iso8601" else fmt, "errors": "coerce"}
-    if aware:
+    if offsets:
         kw["utc"] = True
-    parsed = pd.to_datetime(s.str.strip() if len(s) else s, **kw)
-    idx = pd.DatetimeIndex(parsed)
-    if idx.tz is not None:
-        idx = idx.tz_convert("UTC").tz_localize(None)
-    return idx.as_unit("ns").asi8.copy(), aware
+    text = s.map(lambda x: x.strip() if isinstance(x, str) else x)
+    try:
+        parsed = pd.to_datetime(text, **kw)
+    except (ValueError, OverflowError, TypeError):  # e.g. mixed offsets without utc: row by row
+        parsed = pd.Series([_one(x, kw) for x in text], dtype=object)
+        parsed = pd.to_datetime(parsed, utc=offsets, errors="coerce")
+    return _seconds(pd.DatetimeIndex(parsed))
+
+
+def _one(x, kw):
+    try:
+        return pd.to_datetime(x, **kw)
+    except (ValueError, OverflowError, TypeError):
+        return pd.NaT
 
 
 class TimestampConverter:
@@ -86,8 +121,10 @@ class TimestampConverter:
         self._infer_state: dict[str, tuple[int, bool]] = {}  # date -> (last wall ns, stepped back)
         self.earliest = spec.earliest or EARLIEST_DEFAULT
         self.latest = spec.latest or (dt.datetime.now(dt.UTC).date() + dt.timedelta(days=1))
-        self._earliest = _ns(self.earliest)
-        self._latest = _ns(self.latest + dt.timedelta(days=1))  # inclusive of the latest day
+        self._earliest_s = _epoch_s(self.earliest)
+        self._latest_s = _epoch_s(self.latest + dt.timedelta(days=1))  # the latest day included
+        self.offsets: bool | None = None  # timestamps carry UTC offsets: decided at the first one
+        self.offsets_from = "the file's first timestamp"  # where the decision came from
         self.offset_s = None
         if spec.zone not in ("local", "UTC"):
             sign = -1 if spec.zone[0] == "-" else 1
@@ -95,30 +132,53 @@ class TimestampConverter:
             self.offset_s = sign * (int(hh) * 3600 + int(mm) * 60)
 
     def convert(self, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Return (UTC label seconds as int64, NAT where rejected) and the reason per row (or None)."""
-        wall, aware = parse_wall(raw, self.spec.format)
-        reasons = np.full(len(wall), None, dtype=object)
-        bad = wall == NAT
-        if bad.any():
-            fmt = self.spec.format
-            for i in np.flatnonzero(bad):
-                reasons[i] = (f"timestamp {str(raw[i])!r} does not match format {fmt!r}"
-                              if fmt != "epoch_s" else
-                              f"timestamp {str(raw[i])!r} is not epoch seconds")
-        out_w = ~bad & ((wall < self._earliest) | (wall >= self._latest))
-        if out_w.any():
-            for i in np.flatnonzero(out_w):
-                reasons[i] = (f"timestamp {str(raw[i]).strip()!r} is outside the plausible dates "
-                              f"{self.earliest} .. {self.latest} (timestamp.earliest / latest)")
-            wall[out_w] = NAT
-            bad = bad | out_w
-        for n, (lo, hi, shift, _c) in enumerate(self._corr):
+        """Return (UTC label seconds as int64, NAT where rejected) and the reason per row (or None).
+
+        Whether timestamps carry a UTC offset is decided once per source: by its earlier
+        loaded files (set ``offsets`` before the first call), else at this file's first
+        timestamp (``%z`` formats and ``epoch_s``: always); a row of the other kind is
+        rejected, never silently read in another zone.
+        """
+        fmt = self.spec.format
+        n = len(raw)
+        reasons = np.full(n, None, dtype=object)
+        if fmt == "epoch_s" or "%z" in fmt:
+            aware = np.ones(n, dtype=bool)
+        elif fmt == "iso8601":
+            aware = has_offset(raw)
+        else:
+            aware = np.zeros(n, dtype=bool)
+        present = (pd.Series(raw, dtype=object).str.strip().str.len().fillna(0).to_numpy() > 0
+                   if n else np.zeros(0, dtype=bool))
+        if self.offsets is None and present.any():
+            self.offsets = bool(aware[np.flatnonzero(present)[0]])
+        mixed = present & (aware != bool(self.offsets))
+        for i in np.flatnonzero(mixed):
+            reasons[i] = (f"timestamp {str(raw[i]).strip()!r} "
+                          + ("has no UTC offset" if self.offsets else "has a UTC offset")
+                          + f", unlike {self.offsets_from}"
+                          + "; mixed offset / no-offset rows are not read (which zone would apply?)")
+        wall_s = parse_wall(raw, fmt, bool(self.offsets))
+        wall_s[mixed] = NAT
+        bad = (wall_s == NAT) & ~mixed
+        for i in np.flatnonzero(bad):
+            reasons[i] = (f"timestamp {str(raw[i])!r} does not match format {fmt!r}"
+                          if fmt != "epoch_s" else
+                          f"timestamp {str(raw[i])!r} is not epoch seconds")
+        bad |= mixed
+        out_w = ~bad & ((wall_s < self._earliest_s) | (wall_s >= self._latest_s))
+        for i in np.flatnonzero(out_w):
+            reasons[i] = (f"timestamp {str(raw[i]).strip()!r} is outside the plausible dates "
+                          f"{self.earliest} .. {self.latest} (timestamp.earliest / latest)")
+        bad |= out_w
+        wall = np.where(bad, NAT, wall_s * np.int64(10**9))  # within the window: no overflow
+        for k, (lo, hi, shift, _c) in enumerate(self._corr):
             m = (wall >= lo) & (wall <= hi) & ~bad
-            k = int(m.sum())
-            if k:
+            cnt = int(m.sum())
+            if cnt:
                 wall[m] += shift
-                self.corrected[n] += k
-        if aware or self.spec.zone == "UTC":
+                self.corrected[k] += cnt
+        if self.offsets or self.spec.zone == "UTC":
             utc = wall
         elif self.offset_s is not None:
             utc = np.where(bad, NAT, wall - np.int64(self.offset_s) * 10**9)
@@ -178,6 +238,8 @@ class TimestampConverter:
 
     def notes(self) -> dict:
         out: dict = {}
+        if self.offsets is not None:
+            out["timestamp_offsets"] = self.offsets
         if self.corrected:
             out["clock_corrections"] = [
                 {"start": c.start.isoformat(), "end": c.end.isoformat(),
@@ -191,10 +253,14 @@ class TimestampConverter:
         return out
 
 
-def infer_intervals(labels: np.ndarray, label: str) -> np.ndarray:
+def infer_intervals(labels: np.ndarray, label: str, nominal: float | None = None) -> np.ndarray:
     """Interval length [s] for each of the sorted distinct ``labels`` (NaN where unknown).
 
-    ``label`` is "end" or "start"; see the module docstring for the rule.
+    ``label`` is "end" or "start"; see the module docstring for the rule. A step that no
+    neighbouring step confirms (a row next to a gap, with no equal step before or across it)
+    is a gap, not an interval: it is capped at ``nominal``, the file's most common step
+    (default: the most common step of ``labels``), so a row after a gap never takes the whole
+    gap as its interval.
     """
     u = labels.astype(float)
     n = len(u)
@@ -210,7 +276,28 @@ def infer_intervals(labels: np.ndarray, label: str) -> np.ndarray:
         before = np.concatenate([d_next[1:], nan]) if n else d_next
     with np.errstate(invalid="ignore"):
         take = ~np.isnan(primary) & ((primary <= alt) | np.isnan(alt) | (primary == before))
-    return np.where(take, primary, alt)
+    iv = np.where(take, primary, alt)
+    if nominal is None:
+        nominal = most_common_step(u)
+    if nominal is not None and n:
+        # the four steps around each label; the chosen one (d_prev or d_next) is confirmed
+        # when another of them equals it
+        around = [np.concatenate([nan, d_prev[:-1]]), d_prev, d_next,
+                  np.concatenate([d_next[1:], nan])]
+        with np.errstate(invalid="ignore"):
+            same = sum((iv == x).astype(int) for x in around)
+            iv = np.where((same < 2) & (iv > nominal), nominal, iv)
+    return iv
+
+
+def most_common_step(labels: np.ndarray) -> float | None:
+    """The most common positive step between sorted distinct labels, or None (ties: the smaller)."""
+    d = np.diff(np.asarray(labels, dtype=float))
+    d = d[d > 0]
+    if len(d) == 0:
+        return None
+    vals, counts = np.unique(d, return_counts=True)
+    return float(vals[np.argmax(counts)])
 
 
 def describe_intervals(intervals_s: np.ndarray, min_run: int = 3) -> str | None:

@@ -89,3 +89,35 @@ def dashboard_store(tmp_path_factory):
     run_compute(eng, cfg.id, full=True, echo=lambda *a, **k: None)
     eng.dispose()
     return {"url": f"sqlite:///{path}", "site_id": cfg.id, "path": path}
+
+
+@pytest.fixture(scope="session")
+def demo_store(tmp_path_factory):
+    """The bundled demo site ``sample_scada/quillpond`` (14 inverters, 3.5 years) through
+    ingest and compute, for tests that need its injected effects (INV-05's string failure,
+    the drifting pyranometer of INV-08..14). Slow: uses ``$HELIAUDIT_DEMO_DB`` when it names
+    a store built from the demo, builds one when ``HELIAUDIT_SLOW=1``, else skips."""
+    from pathlib import Path
+
+    from db.engine import make_engine
+
+    demo = Path(__file__).resolve().parents[1] / "sample_scada" / "quillpond"
+    url = os.environ.get("HELIAUDIT_DEMO_DB")
+    if url:
+        url = resolve_url(url)
+    elif os.environ.get("HELIAUDIT_SLOW") == "1":
+        from heliaudit.cmd_compute import run_compute
+        from ingest.config import load_site_config
+        from ingest.load import ingest_paths
+
+        path = tmp_path_factory.mktemp("demo_store") / "demo.sqlite"
+        url = f"sqlite:///{path}"
+        cfg = load_site_config(demo / "quillpond.toml")
+        eng = make_engine(url)
+        ingest_paths(eng, cfg)
+        run_compute(eng, cfg.id, full=True, echo=lambda *a, **k: None)
+        eng.dispose()
+    else:
+        pytest.skip("slow (a minute or more): set HELIAUDIT_DEMO_DB to a store built from "
+                    "the demo, or HELIAUDIT_SLOW=1 to build one")
+    return {"url": url, "site_id": "quillpond"}

@@ -85,7 +85,7 @@ def interval_site(*, years: float = 3, rates_pct_per_yr=(-0.3, -0.5, -0.5, -0.7,
 
 def sensor_daily_pi(site: dict, name: str, *, min_poa_wm2: float = 200.0) -> pd.Series:
     """Daily sensor-based PI of one inverter: Σ P / Σ P_exp(G_sensor) over G ≥ 200 W/m²
-    (METHODS §4–5, the ratio of sums)."""
+    (IEC 61724-1, the ratio of sums)."""
     g = site["poa_sensor"]
     p_exp = site["p_dc_kwp"] * g / 1000 * (1 + site["gamma"] * (site["t_cell"] - 25)) * site["eta"]
     ok = g >= min_poa_wm2

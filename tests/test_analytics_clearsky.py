@@ -63,7 +63,7 @@ def test_clearsky_daily_pi_clipping_and_clear_fraction():
     clear.iloc[:5] = False  # 3 of 8 equal intervals clear -> fraction 0.375 < 0.5 -> NaN
     out = clearsky_daily_pi(p, g, clear, p_dc_kwp=100, gamma_pmp_per_c=-0.004, p_ac_max_kw=100)
     assert np.isnan(out["pi_clearsky"].iloc[0])
-    # temperature correction: T_cell = 50 °C, γ = -0.004 -> expected ×0.9 (PVWatts, METHODS §4)
+    # temperature correction: T_cell = 50 °C, γ = -0.004 -> expected ×0.9 (PVWatts, Dobos 2014)
     out = clearsky_daily_pi(pd.Series(76.8 * 0.9, t), g, pd.Series(True, t), p_dc_kwp=100,
                             gamma_pmp_per_c=-0.004,
                             t_cell_c=pd.Series(50.0, t))
@@ -130,3 +130,26 @@ def test_stable_sensor_methods_agree():
     assert drift.ci_low < 0 < drift.ci_high  # a stable sensor: no drift shown
     verdict = compare_methods({"sensor_year_pairs": sb, "modelled_sky_year_pairs": cs, "sensor_drift_check": drift})
     assert verdict["agree"] is True and verdict["warnings"] == []
+
+
+def test_clear_periods_from_sensors_symmetric_and_excludes_a_faulty_sensor():
+    # Two POA sensors on clear days (pvlib Ineichen clear sky, transposed: our clearsky_poa,
+    # checked against pvlib above). Reno & Hansen 2016 calls clear-sky data clear. A third
+    # sensor stuck at 300 W/m² for one day disagrees with the others by far more than 5 % that
+    # day: it is judged faulty that day and does not veto the others' clear periods. The
+    # result does not depend on the order of the sensors.
+    from analytics.clearsky import clear_periods_from_sensors, clearsky_poa
+    idx = pd.date_range("2021-06-01", periods=96 * 40, freq="15min", tz="UTC")
+    cs = clearsky_poa(idx, tilt_deg=30, azimuth_deg=180, **GEOM)["poa_clearsky_wm2"]
+    stuck = cs.copy()
+    day = idx.floor("D") == pd.Timestamp("2021-06-20", tz="UTC")
+    stuck[day & (cs > 0)] = 300.0
+    readings = {"POA1": cs * 1.01, "POA2": cs * 0.99, "POA3": stuck}
+    refs = {k: cs for k in readings}
+    clear, info = clear_periods_from_sensors(readings, refs)
+    only_two, _ = clear_periods_from_sensors({k: readings[k] for k in ("POA1", "POA2")}, refs)
+    assert info["POA3"]["days_faulty"] >= 1 and info["POA1"]["days_faulty"] == 0
+    on_day = clear[day & (cs >= 200)]
+    assert on_day.mean() > 0.5 and on_day.equals(only_two[day & (cs >= 200)])
+    rev, _ = clear_periods_from_sensors(dict(reversed(list(readings.items()))), refs)
+    assert rev.equals(clear)

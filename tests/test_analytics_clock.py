@@ -122,3 +122,16 @@ def test_clean_control_no_clock_flags(year):
     assert clock_shift_flags(off, device_id="inv01").empty
     # measured noon error on clear days stays small (|median Δ| < 3 min)
     assert abs(off.loc[off["clear"], "delta_min"].median()) < 3
+
+
+def test_fix_during_a_day_ends_the_correction_on_that_day(year):
+    # issue #14: a clock fault's end date was one day short. +60 min from 2024-05-20 until
+    # the clock is fixed at 10:00 local standard time on 2024-06-30: the readings of that
+    # morning are still shifted, so the correction must end on 2024-06-30 (exact).
+    local = (year.index + pd.Timedelta(seconds=STD_OFFSET_S)).tz_localize(None)
+    m = (local >= "2024-05-20") & (local < "2024-06-30 10:00")
+    fl = _flags(_shift(year["poa_wm2"], 60, m), year)
+    assert len(fl) == 1
+    d = fl.iloc[0]["details"]
+    assert d["last_day"] == "2024-06-30"
+    assert abs((pd.Timestamp(d["first_day"]) - pd.Timestamp("2024-05-20")).days) <= 1

@@ -1,4 +1,4 @@
-"""Degradation estimators (issue #7) against METHODS §6/§7 test vectors, statsmodels and
+"""Degradation estimators (issue #7) against hand-checkable test vectors, statsmodels and
 known-answer synthetic series (tests/degradation_synth.py, our own generator)."""
 
 from __future__ import annotations
@@ -8,6 +8,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+import scipy.stats
 import statsmodels.api as sm
 from numpy.testing import assert_allclose
 
@@ -40,7 +41,7 @@ def _days(n, start="2020-01-01"):
 
 
 def test_yoy_every_pair_is_minus_half_percent():
-    # METHODS §6 test vector: PI_t = (1-0.005)^(t/365) (1 + 0.02 sin(2πt/365)), 3 years ->
+    # hand-checkable test vector: PI_t = (1-0.005)^(t/365) (1 + 0.02 sin(2πt/365)), 3 years ->
     # every pairwise r_d = -0.500 %/yr exactly (seasonal factor identical one year apart).
     t = np.arange(3 * 365)
     pi = pd.Series(0.995 ** (t / 365) * (1 + 0.02 * np.sin(2 * np.pi * t / 365)), _days(len(t)))
@@ -53,14 +54,14 @@ def test_yoy_every_pair_is_minus_half_percent():
 
 
 def test_yoy_seasonal_only_gives_zero():
-    # METHODS §6 test vector: PI_t = 1 + 0.02 sin(2πt/365) -> Rd = 0.
+    # hand-checkable test vector: PI_t = 1 + 0.02 sin(2πt/365) -> Rd = 0.
     t = np.arange(3 * 365)
     res = degradation_yoy(pd.Series(1 + 0.02 * np.sin(2 * np.pi * t / 365), _days(len(t))))
     assert_allclose(res.rate_pct_per_yr, 0.0, atol=1e-12)
 
 
 def test_yoy_year0_reference_differs_second_order_only():
-    # METHODS §6 step 3: pairwise vs year-0 reference differ at second order:
+    # Jordan et al. 2018: pairwise vs year-0 reference differ at second order:
     # -0.5 %/yr vs -0.5 * 0.995^k: hand value for the 2nd year's pairs -0.4975.
     t = np.arange(3 * 365)
     pi = pd.Series(0.995 ** (t / 365), _days(len(t)))
@@ -157,7 +158,7 @@ def test_usable_daily_pi_counts_and_stabilisation():
     pi = daily_pi(years=3, seed=4)
     valid = pd.Series(True, pi.index)
     valid.iloc[:10] = False
-    pi.iloc[20] = 2.0  # implausible (METHODS §5: 0.3 <= PI <= 1.3)
+    pi.iloc[20] = 2.0  # implausible (IEC 61724-1 filtering practice: 0.3 <= PI <= 1.3)
     s, rep = usable_daily_pi(pi, valid, commissioned=pi.index[0].date(), stabilisation_days=180)
     assert rep["n_days_input"] == len(pi)
     assert rep["n_days_valid"] == len(pi) - 10
@@ -170,14 +171,14 @@ def test_usable_daily_pi_counts_and_stabilisation():
 
 
 def test_rlm_noise_free_monthly():
-    # METHODS §7 test vector: y = 1 - 0.005 t + 0.02 sin(2πt), 60 months -> Rd = -0.5000 %/yr
+    # hand-checkable test vector: y = 1 - 0.005 t + 0.02 sin(2πt), 60 months -> Rd = -0.5000 %/yr
     t = np.arange(60) / 12
     res = rlm_rate(t, 1 - 0.005 * t + 0.02 * np.sin(2 * np.pi * t))
     assert_allclose(res.rate_pct_per_yr, -0.5, atol=5e-5)
 
 
 def test_rlm_beats_ols_with_outliers():
-    # METHODS §7: add N(0, 0.003) noise (default_rng(0)) and lower three points by 0.15 (here
+    # Lindig et al. 2018: add N(0, 0.003) noise (default_rng(0)) and lower three points by 0.15 (here
     # the first three months): assert |Rd_RLM + 0.5| < 0.1 and RLM closer to -0.5 than OLS.
     t = np.arange(60) / 12
     y = 1 - 0.005 * t + 0.02 * np.sin(2 * np.pi * t) + np.random.default_rng(0).normal(0, 0.003, 60)
@@ -190,15 +191,27 @@ def test_rlm_beats_ols_with_outliers():
     assert abs(rlm + 0.5) < abs(ols_rd + 0.5)
 
 
-def test_rlm_stackloss_matches_statsmodels_docs():
-    # statsmodels RLM documentation example (stackloss, HuberT): params
-    # [-41.0265, 0.8294, 0.9261, -0.1278]; verified by running statsmodels 0.15.
-    # Our fit uses the same call, so it reproduces the documented values.
-    d = sm.datasets.stackloss.load_pandas()
-    X = sm.add_constant(d.exog).to_numpy()
-    fit = sm.RLM(d.endog.to_numpy(), X, M=sm.robust.norms.HuberT()).fit(
-        maxiter=50, tol=1e-8, scale_est="mad", cov="H1", conv="dev")
-    assert_allclose(fit.params, [-41.0265, 0.8294, 0.9261, -0.1278], atol=2e-4)
+def test_rlm_rate_matches_statsmodels_rlm():
+    # Reference: statsmodels RLM with Huber's T (t = 1.345) and the MAD scale, fitted to the
+    # same design [1, t] (statsmodels docs, "Robust Linear Models"). heliaudit's rlm_rate must
+    # give the same coefficients, the rate 100·b1/b0 and, with hac=False, the interval
+    # rate ± t(0.975, n-2)·se from the delta method on statsmodels' own H1 covariance.
+    rng = np.random.default_rng(3)
+    t = np.arange(48) / 12
+    y = 0.95 - 0.006 * t + rng.normal(0, 0.004, 48)
+    y[[5, 30]] -= 0.08  # two outliers that the Huber norm down-weights
+    ours = rlm_rate(t, y, harmonics=0, hac=False)
+    X = np.column_stack([np.ones_like(t), t])
+    ref = sm.RLM(y, X, M=sm.robust.norms.HuberT(t=1.345)).fit(scale_est="mad", cov="H1")
+    b0, b1 = ref.params
+    assert_allclose(ours.details["params"], ref.params, rtol=1e-6)
+    assert_allclose(ours.rate_pct_per_yr, 100 * b1 / b0, rtol=1e-6)
+    cov = ref.cov_params()
+    g = np.array([-100 * b1 / b0 ** 2, 100 / b0])
+    se = float(np.sqrt(g @ cov @ g))
+    q = scipy.stats.t.ppf(0.975, 46)
+    assert_allclose([ours.ci_low, ours.ci_high], [100 * b1 / b0 - q * se, 100 * b1 / b0 + q * se],
+                    rtol=1e-5)
 
 
 def test_rlm_hac_wider_than_independent_for_correlated_residuals():
@@ -220,7 +233,7 @@ def test_rlm_hac_wider_than_independent_for_correlated_residuals():
 
 
 def test_monthly_pi_is_ratio_of_sums():
-    # Σ w PI / Σ w = Σ E_meas / Σ E_exp (METHODS §5): E_exp = [1, 3], PI = [1.0, 0.8]
+    # Σ w PI / Σ w = Σ E_meas / Σ E_exp (IEC 61724-1 filtering practice): E_exp = [1, 3], PI = [1.0, 0.8]
     # -> (1 + 2.4)/4 = 0.85, not the mean 0.9.
     d = _days(12)
     pi = pd.Series([1.0, 0.8] * 6, d)
@@ -299,7 +312,7 @@ def test_compare_methods_verdicts():
 
 
 def test_sanity_band_warning():
-    # METHODS §6: flag Rd < -2 %/yr for review (common practice; Jordan & Kurtz 2013)
+    # Jordan et al. 2018: flag Rd < -2 %/yr for review (common practice; Jordan & Kurtz 2013)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         res = degradation_yoy(daily_pi(years=3, rd_pct_per_yr=-3.0, seed=5))
@@ -331,7 +344,7 @@ def test_stable_segments_drop_seasonally_unbalanced_segment():
     # those pairs) carries an extra 4 % loss, as a dirtier summer would: the median of those
     # pairs is about -0.9 - 4 = -4.9 %/yr. Segments whose pairs cover fewer than 9 calendar
     # months are left out, so the within-segment rate is the -0.9 %/yr put in (pairwise
-    # r_d = 100 (PI_{d+365}/PI_d - 1) = -0.9 exactly for the noise-free part, METHODS §6).
+    # r_d = 100 (PI_{d+365}/PI_d - 1) = -0.9 exactly for the noise-free part, Jordan et al. 2018).
     pi = daily_pi(years=4, rd_pct_per_yr=-0.9, season=0.02, noise=0.003, step_day=455,
                   step=-0.06, seed=5)
     pi.iloc[365:455] *= 0.96
@@ -342,3 +355,106 @@ def test_stable_segments_drop_seasonally_unbalanced_segment():
     assert seg[0]["n_months_covered"] <= 4 and seg[0]["median_pct_per_yr"] < -4.0
     assert abs(res.rate_pct_per_yr + 0.9) < 0.1
     assert res.ci_low < res.rate_pct_per_yr < res.ci_high
+
+
+# ---------------------------------------------------------------- recommended rate (#13)
+
+
+def _r(method, rate, lo, hi, **det):
+    from analytics.degradation import RateResult
+    return RateResult(method, rate, lo, hi, 0.95, 500, details=det)
+
+
+def test_interval_68_normal_reading_matches_scipy():
+    # A 95 % interval of half-width h read as normal: σ = h / z(0.975); the 68.27 % interval
+    # is ±z(0.84135)·σ = ±1.0·σ (scipy.stats.norm.ppf).
+    from analytics.degradation import interval_68
+    h = 0.3
+    sigma = h / scipy.stats.norm.ppf(0.975)
+    lo, hi = interval_68(_r("sensor_monthly_robust_line", -0.5, -0.5 - h, -0.5 + h))
+    assert_allclose([lo, hi], [-0.5 - sigma * scipy.stats.norm.ppf(0.841345),
+                               -0.5 + sigma * scipy.stats.norm.ppf(0.841345)], rtol=1e-4)
+    # a bootstrap's own 68 % interval is used as is
+    assert interval_68(_r("sensor_year_pairs", -0.5, -0.8, -0.2, ci_68=[-0.6, -0.4])) == (-0.6, -0.4)
+
+
+def test_judge_sensor_drift_needs_size_and_agreement():
+    # rule (issue #13): |median drift| >= 0.35 %/yr and at least half of the checks exclude 0
+    from analytics.degradation import judge_sensor_drift
+    big = [_r("sensor_drift_check", 1.0, 0.6, 1.4), _r("sensor_drift_check", 0.9, 0.4, 1.3),
+           _r("sensor_drift_check", 0.3, -0.2, 0.8)]
+    j = judge_sensor_drift(big)
+    assert j["judged"] and j["drift_pct_per_yr"] == 0.9 and j["n_excluding_zero"] == 2
+    # small drifts with tight intervals (a drift-free sensor against a clear-sky model with a
+    # slight trend) are not judged: the size rule keeps the false alarms down
+    small = [_r("sensor_drift_check", 0.25, 0.1, 0.4)] * 4
+    assert not judge_sensor_drift(small)["judged"]
+    # a large median whose intervals all include 0 is not judged either
+    wide = [_r("sensor_drift_check", 0.8, -0.5, 2.0)] * 3
+    assert not judge_sensor_drift(wide)["judged"]
+    assert judge_sensor_drift([None])["n_checks"] == 0
+
+
+def test_recommended_rules_in_order():
+    from analytics.degradation import recommend_rate
+    res = {"sensor_year_pairs": _r("sensor_year_pairs", -0.45, -0.55, -0.35, ci_68=[-0.5, -0.4]),
+           "sensor_monthly_robust_line": _r("sensor_monthly_robust_line", -0.47, -0.6, -0.34),
+           "modelled_sky_year_pairs": _r("modelled_sky_year_pairs", -1.1, -1.4, -0.8),
+           "sensor_year_pairs_between_shifts": _r("sensor_year_pairs_between_shifts", -0.6, -0.8, -0.4),
+           "sensor_year_pairs_unsoiled": _r("sensor_year_pairs_unsoiled", -0.5, -0.6, -0.4)}
+    plain = recommend_rate(res)
+    assert plain.details["chosen_method"] == "sensor_year_pairs"
+    assert (plain.rate_pct_per_yr, plain.ci_low, plain.ci_high) == (-0.45, -0.55, -0.35)
+    assert (plain.details["ci68_low"], plain.details["ci68_high"]) == (-0.5, -0.4)
+    # the clear-sky rate disagrees (intervals apart): said, naming the method
+    kinds = {(c["kind"], c["method"]) for c in plain.details["caveats"]}
+    assert ("methods_disagree", "modelled_sky_year_pairs") in kinds
+    # drift judged -> the sensor-independent rate, and no "disagree" caveat about it
+    d = recommend_rate(res, drift={"judged": True, "drift_pct_per_yr": 0.7}, sensor_id="POA1")
+    assert d.details["chosen_method"] == "modelled_sky_year_pairs" and d.rate_pct_per_yr == -1.1
+    assert d.details["caveats"][0]["kind"] == "sensor_drift" and "POA1" in d.details["caveats"][0]["text"]
+    # drift and a step -> the clear-sky rate between the shifts
+    both = recommend_rate(dict(res, modelled_sky_between_shifts=_r(
+        "modelled_sky_between_shifts", -0.8, -1.1, -0.5)),
+        drift={"judged": True, "drift_pct_per_yr": 1.2},
+        shifts=[{"day": "2023-05-02", "kind": "drop", "size_pct": -8.0}])
+    assert both.details["chosen_method"] == "modelled_sky_between_shifts"
+    assert {c["kind"] for c in both.details["caveats"]} >= {"sensor_drift", "level_shift"}
+    # a persistent step -> the rate between shifts, the shift beside it with date, size, energy
+    shift = [{"day": "2023-05-02", "kind": "drop", "size_pct": -4.1, "energy_kwh": -12345.0}]
+    s = recommend_rate(res, shifts=shift)
+    assert s.details["chosen_method"] == "sensor_year_pairs_between_shifts"
+    cav = next(c for c in s.details["caveats"] if c["kind"] == "level_shift")
+    assert "2023-05-02" in cav["text"] and "-4.1 %" in cav["text"] and "-12,345 kWh" in cav["text"]
+    # recoveries (cleanings) are not shifts
+    assert recommend_rate(res, shifts=[dict(shift[0], kind="recovery")]).details[
+        "chosen_method"] == "sensor_year_pairs"
+    # material soiling whose correction changes the rate beyond the 68 % intervals -> the
+    # soiling-corrected rate; a correction within them, or soiling below 2 %, does not switch
+    moved = dict(res, sensor_year_pairs_unsoiled=_r(
+        "sensor_year_pairs_unsoiled", -0.2, -0.3, -0.1))
+    assert recommend_rate(moved, soiling={"loss_pct": 3.2}).details["chosen_method"] == \
+        "sensor_year_pairs_unsoiled"
+    same = recommend_rate(res, soiling={"loss_pct": 3.2})  # -0.50 vs -0.45: within
+    assert same.details["chosen_method"] == "sensor_year_pairs"
+    assert any(c["kind"] == "soiling" for c in same.details["caveats"])
+    assert recommend_rate(moved, soiling={"loss_pct": 1.5}).details["chosen_method"] == \
+        "sensor_year_pairs"
+    # a rule whose method was refused falls through
+    from analytics.degradation import RateResult
+    no_sky = dict(res, modelled_sky_year_pairs=RateResult.refused("modelled_sky_year_pairs", "x"))
+    f = recommend_rate(no_sky, drift={"judged": True, "drift_pct_per_yr": 0.7})
+    assert f.details["chosen_method"] == "sensor_year_pairs"
+    assert any(c["kind"] == "sensor_drift" for c in f.details["caveats"])
+    # every caveat names a method (issue #13)
+    for r in (plain, d, s, f):
+        assert all(c["method"] for c in r.details["caveats"])
+
+
+def test_recommended_out_of_range_and_refused():
+    # Jordan & Kurtz 2013: field rates outside -2..+0.5 %/yr are for review
+    from analytics.degradation import RateResult, recommend_rate
+    r = recommend_rate({"sensor_year_pairs": _r("sensor_year_pairs", 0.9, 0.5, 1.3)})
+    assert any(c["kind"] == "out_of_range" for c in r.details["caveats"])
+    none = recommend_rate({"sensor_year_pairs": RateResult.refused("sensor_year_pairs", "short")})
+    assert none.rate_pct_per_yr is None and "short" in none.reason

@@ -123,3 +123,21 @@ def test_availability_hand_cases():
     assert av.availability_energy(15.0, lost) == pytest.approx(15.0 / 55.0)
     assert np.isnan(av.availability_time([False], [False], 0.25))
     assert np.isnan(av.availability_energy(0.0, 0.0))
+
+
+def test_clipping_zone_from_unlimited_expected_power():
+    # issue #13: the clipping zone is judged from the expected power without the AC limit as
+    # well, so that the selection does not change as the array degrades. Hand check with
+    # P_ac,max = 100 kW and the recommended 0.90: expected 89.9 kW is valid, 90.0 kW is clipped,
+    # whatever the measured power (a degraded array measuring 80 kW there stays excluded).
+    g = [600.0, 600.0, 600.0]
+    p = [80.0, 80.0, 99.0]
+    codes = f.classify_intervals(g, 40.0, p, 100.0, p_ac_exp_kw=[89.9, 90.0, 50.0],
+                                 filters={"clip_expected_fraction": 0.90})
+    assert codes.tolist() == [f.VALID, f.CLIPPED, f.CLIPPED]
+    codes = f.classify_intervals(g, 40.0, p, 100.0, p_ac_exp_kw=[89.9, 90.0, 50.0],
+                                 filters={"clip_expected_fraction": 0.95})
+    assert codes.tolist() == [f.VALID, f.VALID, f.CLIPPED]
+    # off by default (10 x the rating is never expected): only the measured power clips
+    codes = f.classify_intervals(g, 40.0, p, 100.0, p_ac_exp_kw=[89.9, 90.0, 50.0])
+    assert codes.tolist() == [f.VALID, f.VALID, f.CLIPPED]

@@ -79,6 +79,17 @@ def test_temperature_flatline_uses_005c():
                   index=idx)
     fl = flatline_flags(t, np.ones(12, bool), device_id="tm1", quantity="t_module_c")
     assert len(fl) == 1 and fl.iloc[0]["details"]["n_samples"] == 8  # 33.0 .. 33.0 (8)
+    # 2 h flat: information (a calm spell), not yet a sensor to fix (issue #14)
+    assert fl.iloc[0]["severity"] == "info"
+
+
+@pytest.mark.parametrize("n,severity", [(3, "info"), (4, "warning"), (5, "warning")])
+def test_range_isolated_values_are_information(month, n, severity):
+    # documented: fewer than 4 out-of-range samples are a data glitch (info)
+    g = month["poa_wm2"].copy()
+    g.iloc[1000:1000 + n] = 9999.0
+    fl = range_flags(g, device_id="poa1", quantity="poa_wm2")
+    assert len(fl) == 1 and fl.iloc[0]["severity"] == severity
 
 
 def test_dropout_merges_nights(month):

@@ -164,3 +164,82 @@ def test_clean_control_raises_no_soiling():
                            n_runs=0)
         n += int((fl["kind"] == "soiling").sum())
     assert n == 0
+
+
+def test_seasonal_model_artefact_is_not_soiling():
+    # issue #14: soiling flags on fleets without soiling. A ±1.5 % seasonal swing of pi (a
+    # temperature/spectral model artefact) with 0.5 % noise over two years, 10 seeds, and a
+    # rain gauge cutting it into 2–6-week pieces: no soiling flag.
+    days = pd.date_range("2023-01-01", periods=730, freq="D")
+    n = 0
+    for seed in range(10):
+        rng = np.random.default_rng(200 + seed)
+        t = np.arange(730) / 365.25
+        pi = pd.Series(0.97 * (1 + 0.015 * np.sin(2 * np.pi * t))
+                       * (1 + 0.005 * rng.standard_normal(730)), index=days)
+        rain = pd.Series(np.where(rng.random(730) < 0.04, 8.0, 0.0), index=days)
+        fl = soiling_flags(pi, pd.Series(6.0, index=days), pd.Series(1000.0, index=days),
+                           rain_mm=rain, n_runs=0)
+        n += int((fl["kind"] == "soiling").sum())
+    assert n == 0
+
+
+@pytest.mark.parametrize("rate,soiled", [(-0.000399, False), (-0.0004 * (1 + 1e-9), True),
+                                         (-0.000401, True)])
+def test_min_soiling_rate_boundary(rate, soiled):
+    # documented: a dry interval is soiled from a rate of 0.04 %/day (noise-free line, so
+    # the Theil–Sen slope is the line's and its interval excludes zero; "at" is the
+    # threshold to 1e-9 relative, beyond float rounding of the slope / level division)
+    days = pd.date_range("2024-01-01", periods=60, freq="D")
+    pi = pd.Series(0.97 * (1 + rate * np.arange(60)), index=days)
+    iv = soiling_intervals(pi, [])
+    assert bool(iv["soiled"].iloc[0]) == soiled
+
+
+def test_insignificant_slope_is_unsoiled():
+    # a slope whose 95 % Theil–Sen interval includes zero is not soiling (scipy theilslopes)
+    days = pd.date_range("2024-01-01", periods=30, freq="D")
+    rng = np.random.default_rng(5)
+    pi = pd.Series(0.97 - 0.00005 * np.arange(30) + 0.01 * rng.standard_normal(30), index=days)
+    res = stats.theilslopes(pi.to_numpy(), np.arange(30.0), alpha=0.95, method="separate")
+    assert res.low_slope < 0 < res.high_slope  # the premise, from scipy
+    assert not soiling_intervals(pi, [])["soiled"].any()
+
+
+@pytest.mark.parametrize("loss,flagged", [(0.0099, False), (0.01 * (1 + 1e-9), True),
+                                          (0.0101, True)])
+def test_min_loss_boundary(loss, flagged):
+    # documented: a soiled dry interval is flagged when its loss at the end reaches 1 %
+    # (noise-free 21-day line ended by a rain day: loss = −rate x 20 days, hand rule)
+    days = pd.date_range("2024-01-01", periods=40, freq="D")
+    d = np.arange(40)
+    pi = pd.Series(0.97 * np.where(d < 21, 1 - loss / 20 * d, 1.0), index=days)
+    rain = pd.Series(np.where(d == 21, 10.0, 0.0), index=days)
+    fl = soiling_flags(pi, pd.Series(6.0, index=days), pd.Series(1000.0, index=days),
+                       rain_mm=rain, n_runs=0)
+    assert ((fl["kind"] == "soiling").sum() == 1) == flagged
+
+
+def test_site_summary_point_inside_interval_and_equal_to_full_recovery():
+    # the reported soiling ratio is the full-recovery SR_iw (METHODS §8 test vector style:
+    # weights H), its interval contains it; loss = 100 (1 − SR)
+    pi = _pi(4)
+    h = pd.Series(6.0, index=DAYS)
+    fl = soiling_flags(pi, h, pd.Series(4500.0, index=DAYS), n_runs=200)
+    so = fl[fl["kind"] == "soiling"]
+    assert len(so) >= 3
+    for d in so["details"]:
+        assert d["soiling_ratio_weighted_low"] <= d["soiling_ratio_weighted"] \
+            <= d["soiling_ratio_weighted_high"]
+        assert d["soiling_loss_pct"] == pytest.approx(100 * (1 - d["soiling_ratio_weighted"]))
+    truth = soiling_ratio_insolation_weighted(_true_sr(), h)
+    # within 0.5 percentage point of the injected loss (0.5 % daily noise)
+    assert so.iloc[0]["details"]["soiling_ratio_weighted"] == pytest.approx(truth, abs=0.005)
+
+
+@pytest.mark.parametrize("n_days,soiled", [(13, False), (14, True), (15, True)])
+def test_min_valid_days_boundary(n_days, soiled):
+    # documented: a dry interval needs at least 14 valid days to count as soiled
+    days = pd.date_range("2024-01-01", periods=n_days, freq="D")
+    pi = pd.Series(0.97 * (1 - 0.002 * np.arange(n_days)), index=days)
+    assert bool(soiling_intervals(pi, [])["soiled"].iloc[0]) == soiled

@@ -1,4 +1,4 @@
-"""Warranty screening (METHODS §11 test vectors; hand calculations in comments)."""
+"""Warranty screening (hand-checkable test vector; hand calculations in comments)."""
 
 from __future__ import annotations
 
@@ -19,7 +19,7 @@ from analytics.warranty import (
 
 
 @pytest.mark.parametrize("w1_loss,dw,year,expected", [
-    (3.0, 0.7, 25, 0.802),   # METHODS §11: 97 %, 0.7 %/yr -> 80.2 % at year 25
+    (3.0, 0.7, 25, 0.802),   # Hand calculation: 97 %, 0.7 %/yr -> 80.2 % at year 25
     (2.0, 0.55, 25, 0.848),  # 98 %, 0.55 %/yr -> 84.8 % at 25
     (1.0, 0.4, 30, 0.874),   # 99 %, 0.4 %/yr -> 87.4 % at 30
 ])
@@ -40,7 +40,7 @@ def test_warranted_fraction_shape_and_types():
 
 
 def test_methods_11_vectors_with_the_interval_as_given():
-    # METHODS §11: Rd = -0.62, 95 % CI [-0.80, -0.45], d_w = 0.55 -> not shown;
+    # Hand calculation: Rd = -0.62, 95 % CI [-0.80, -0.45], d_w = 0.55 -> not shown;
     # CI [-0.95, -0.70] -> breach indicated (-0.70 < -0.55). The upper bound of the two-sided
     # 95 % interval is the one-sided 97.5 % bound.
     a = warranty_rate_test(-0.62, -0.45, 0.95, annual_loss_pct=0.55, confidence=0.975)
@@ -57,7 +57,7 @@ def test_one_sided_95_and_extra_uncertainty():
     # adding σ_drift = 0.2 in quadrature: σ = √(0.086737² + 0.2²) = 0.217999 -> -0.261424
     assert_allclose(one_sided_upper(-0.62, -0.45, 0.95, confidence=0.95,
                                     sigma_extra_pct_per_yr=0.2), -0.261424, atol=1e-5)
-    # a clear breach can disappear once sensor-drift uncertainty is added (METHODS §11)
+    # a clear breach can disappear once sensor-drift uncertainty is added (linear power warranty, common practice)
     assert warranty_rate_test(-0.825, -0.70, 0.95, annual_loss_pct=0.55)["exceeds"]
     assert not warranty_rate_test(-0.825, -0.70, 0.95, annual_loss_pct=0.55,
                                   sigma_extra_pct_per_yr=0.3)["exceeds"]

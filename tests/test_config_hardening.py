@@ -176,3 +176,9 @@ def test_every_problem_of_a_bad_file_is_a_config_error_not_a_traceback():
                  "[site]\nid='x'\ntimezone=5", "[site]\nid='x'\ntimezone='Not/AZone'"]:
         with pytest.raises(ConfigError):
             parse_site_config(text)
+
+
+@pytest.mark.parametrize("sid", ["(site)", "+25:99", "a b", "-x", "é"])
+def test_site_id_is_a_command_line_word(sid):
+    t = BASE.replace('id = "testsite"', f'id = "{sid}"')
+    assert has(problems(t), "site.id", "letters, digits")

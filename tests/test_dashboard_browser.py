@@ -1,10 +1,13 @@
-"""The dashboard in a real browser (issue #6): Debian's headless Chromium driven by Playwright.
+"""The dashboard in a real browser (issues #6, #15): Debian's headless Chromium driven by
+Playwright.
 
 Starts ``streamlit run dashboard/app.py`` (the command line of ``heliaudit dashboard``) on a
-free localhost port against the demo store, opens every page, waits for its charts, checks
-that no error box is shown, follows a flag link from the weekly check to the drill-down, and
-saves screenshots under test-output/screenshots/. No browser is downloaded: Playwright
-drives /usr/bin/chromium (``apt-get install chromium``; .ci/run installs it).
+free localhost port against the demo store, opens every page at a one-year and at the full
+range, waits for its charts, checks that no error box is shown and that no request leaves
+the machine (a plant network blocks outside servers: fonts, icons, CDNs), follows a flag
+link from the weekly check to the drill-down, and saves screenshots under
+test-output/screenshots/. No browser is downloaded: Playwright drives /usr/bin/chromium
+(``apt-get install chromium``; .ci/run installs it).
 """
 
 from __future__ import annotations
@@ -15,11 +18,13 @@ import shutil
 import socket
 import subprocess
 import time
+import urllib.parse
 import urllib.request
 from pathlib import Path
 
 import pytest
 
+from db import queries
 from db.engine import ENV_VAR, make_engine
 from db.flags import read_flags
 from heliaudit.cmd_dashboard import streamlit_command
@@ -32,6 +37,8 @@ ARGS = ["--no-sandbox", "--disable-gpu", "--no-first-run", "--disable-background
         "--disable-component-update", "--disable-sync"]
 PAGES = [("trends", "Inverter trends"), ("degradation", "Degradation & warranty"),
          ("drilldown", "Alarm drill-down"), ("quality", "Data quality")]
+ALL_PAGES = [("weekly", "Weekly check"), *PAGES]
+LOCAL_HOSTS = ("127.0.0.1", "localhost", "[::1]", "::1")
 WAIT_MS = 60_000
 
 
@@ -101,10 +108,58 @@ def _no_error_box(page) -> None:
         page.locator('[data-testid="stException"]').first.inner_text()
 
 
+def _watch_requests(page, outside: list) -> None:
+    def on_request(req):
+        u = urllib.parse.urlparse(req.url)
+        if u.scheme in ("data", "blob", "about", "chrome", "chrome-extension"):
+            return
+        if u.hostname not in LOCAL_HOSTS:
+            outside.append(req.url)
+
+    page.on("request", on_request)
+
+
+def test_every_page_at_one_year_and_full_range(server, tmp_path):
+    """Screenshots of every page over the last year and over the whole record; no page
+    raises, shows an error box or asks a server outside the machine for anything."""
+    from playwright.sync_api import sync_playwright
+
+    SHOTS.mkdir(parents=True, exist_ok=True)
+    eng = make_engine(server["url"], create=False)
+    first, last = queries.daily_span(eng, server["site_id"])
+    eng.dispose()
+    ranges = {"one_year": (last - dt.timedelta(days=364), last), "full": (first, last)}
+    outside: list[str] = []
+    with sync_playwright() as p:
+        ctx = p.chromium.launch_persistent_context(
+            str(tmp_path / "profile"), executable_path=CHROMIUM, headless=True, args=ARGS,
+            viewport={"width": 1440, "height": 2400})  # Streamlit scrolls an inner element
+        try:
+            page = ctx.pages[0] if ctx.pages else ctx.new_page()
+            _watch_requests(page, outside)
+            for label, (a, b) in ranges.items():
+                for k, (path, title) in enumerate(ALL_PAGES, start=1):
+                    # the weekly check is the default page: its address is the root
+                    where = "" if path == "weekly" else path
+                    page.goto(f"{server['base']}/{where}?site={server['site_id']}"
+                              f"&start={a}&end={b}")
+                    page.get_by_role("heading", name=title).wait_for(timeout=WAIT_MS)
+                    _charts_ready(page)
+                    _no_error_box(page)
+                    page.screenshot(path=str(SHOTS / f"{label}_{k}_{path}.png"), full_page=True)
+        finally:
+            ctx.close()
+    assert not outside, f"requests left the machine: {sorted(set(outside))[:5]}"
+    for label in ranges:
+        for k, (path, _) in enumerate(ALL_PAGES, start=1):
+            assert (SHOTS / f"{label}_{k}_{path}.png").stat().st_size > 10_000
+
+
 def test_every_page_in_chromium_and_flag_to_drilldown(server, tmp_path):
     from playwright.sync_api import sync_playwright
 
     SHOTS.mkdir(parents=True, exist_ok=True)
+    outside: list[str] = []
     eng = make_engine(server["url"], create=False)
     fl = read_flags(eng, server["site_id"])
     eng.dispose()
@@ -121,6 +176,7 @@ def test_every_page_in_chromium_and_flag_to_drilldown(server, tmp_path):
             viewport={"width": 1440, "height": 1800})
         try:
             page = ctx.pages[0] if ctx.pages else ctx.new_page()
+            _watch_requests(page, outside)
             page.goto(f"{server['base']}/?site={server['site_id']}&start={start}&end={end}")
             page.get_by_role("heading", name="Weekly check").wait_for(timeout=WAIT_MS)
             _charts_ready(page, 2)
@@ -148,6 +204,7 @@ def test_every_page_in_chromium_and_flag_to_drilldown(server, tmp_path):
             page.screenshot(path=str(SHOTS / "6_drilldown_from_flag.png"), full_page=True)
         finally:
             ctx.close()
+    assert not outside, f"requests left the machine: {sorted(set(outside))[:5]}"
     for name in ("1_weekly_check", "2_trends", "3_degradation", "4_drilldown", "5_quality",
                  "6_drilldown_from_flag"):
         assert (SHOTS / f"{name}.png").stat().st_size > 10_000

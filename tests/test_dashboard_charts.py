@@ -16,8 +16,10 @@ from dashboard import charts, theme
 
 UNIT = re.compile(r"\[[^\]]+\]")
 #: axes that are categorical or clock time: labelled, no unit
-NO_UNIT_OK = ("Inverter", "Device · quantity", "File", "Day (local standard time)",
-              "Local standard time")
+NO_UNIT_OK = ("Inverter", "Device", "File", "Day (local standard time)",
+              "Local standard time", "Week starting (local standard time)",
+              "Month (local standard time)", "Season of the later day", "Year of the later day",
+              "Start of the dry period", "Dry period", "Local wall-clock time")
 
 
 def _axis_titles(fig) -> dict[str, str]:
@@ -73,6 +75,25 @@ def test_fleet_quadrant_axes_are_the_two_comparisons():
     assert sc.marker.color[0] == theme.OKABE_ITO["vermillion"]  # has flags
 
 
+def test_fleet_quadrant_colours_by_the_worst_warning_or_alarm_not_by_info():
+    fleet = pd.DataFrame({"device_id": ["A", "B", "C"], "d_trailing_pct": [-4.0, 0.5, 1.0],
+                          "d_peers_pct": [-6.0, 0.2, 0.1], "e_ac_kwh": [100.0, 200.0, 150.0],
+                          "n_flags": [1, 3, 1], "worst_severity": ["alarm", "none", "warning"]})
+    sc = charts.fleet_quadrant(fleet).data[0]
+    # B has three info flags (clipping) only: not coloured as trouble
+    assert list(sc.marker.color) == [theme.SEVERITY["alarm"], theme.MEASURED,
+                                     theme.SEVERITY["warning"]]
+
+
+@pytest.mark.parametrize("period,word", [("week", "Week starting"), ("month", "Month")])
+def test_pr_heatmap_over_long_ranges_says_its_period(period, word):
+    heat = pd.DataFrame([[1.0, -2.0]], index=["INV-1"], columns=_days(2))
+    fig = charts.pr_heatmap(heat, period=period)
+    titles = _check_units(fig)
+    assert titles["xaxis"].startswith(word)
+    assert fig.layout.title.text.startswith({"week": "Weekly", "month": "Monthly"}[period])
+
+
 # ---------------------------------------------------------------- trends
 
 
@@ -110,25 +131,81 @@ def test_pr_trend_empty_says_so():
 
 
 def test_degradation_forest_whiskers_are_the_intervals():
-    res = pd.DataFrame({"device_id": ["A", "A", "B"], "method": ["sensor_year_pairs", "sensor_monthly_robust_line", "sensor_year_pairs"],
+    res = pd.DataFrame({"device_id": ["A", "A", "B"],
+                        "method": ["sensor_year_pairs", "sensor_monthly_robust_line",
+                                   "sensor_year_pairs"],
                         "rate_pct_per_yr": [-0.62, -0.55, -0.40],
                         "ci_low": [-0.80, -0.70, -0.60], "ci_high": [-0.45, -0.40, -0.20]})
     fig = charts.degradation_forest(res)
     titles = _check_units(fig)
-    assert titles["xaxis"] == "Degradation rate Rd [%/yr]"
-    yoy = next(t for t in fig.data if t.name == "sensor_year_pairs")
+    assert titles["xaxis"] == "Degradation rate of the plant [%/yr]"
+    yoy = next(t for t in fig.data if t.name == "Year-on-year, POA sensor")  # words, no code
     # METHODS §11 test vector: Rd = -0.62, 95 % CI [-0.80, -0.45]
     assert_allclose(yoy.error_x.array, [0.17, 0.20], atol=1e-12)  # ci_high - Rd
     assert_allclose(yoy.error_x.arrayminus, [0.18, 0.20], atol=1e-12)  # Rd - ci_low
 
 
-def test_yoy_histogram_bars_at_bin_centres():
-    fig = charts.yoy_histogram([-1.0, 0.0, 1.0], [2, 3], rd=-0.2, ci=(-0.4, 0.1))
+def test_relative_rates_and_drift_have_their_own_axis():
+    res = pd.DataFrame({"device_id": ["A", "A", "A"],
+                        "method": ["sensor_year_pairs", "peer_ratio_year_pairs",
+                                   "sensor_drift_check"],
+                        "rate_pct_per_yr": [-0.6, 0.3, 0.7], "ci_low": [-0.8, 0.1, 0.5],
+                        "ci_high": [-0.4, 0.5, 0.9]})
+    fig = charts.degradation_forest(res, {"A": "sensor_year_pairs"})
+    titles = _check_units(fig)
+    assert "Relative to peers" in titles["xaxis2"]
+    axis = {t.name: t.xaxis for t in fig.data}
+    assert axis["Year-on-year, POA sensor"] == "x"
+    assert axis["Year-on-year relative to the peers"] == "x2"
+    assert axis["POA sensor drift against clear sky"] == "x2"
+    ring = next(t for t in fig.data if t.name == "recommended rate")
+    assert list(ring.x) == [-0.6]
+
+
+def test_pair_grid_is_centred_on_the_warranted_rate():
+    from analytics.reporting import pair_rate_grid
+
+    # pairs ending Jan..Nov 2023 at -0.5 %/yr, and Jun-Aug 2024 at -3 %/yr (a bad summer)
+    a = pd.Series(-0.5, pd.date_range("2022-01-01", "2022-11-30", freq="D"))
+    b = pd.Series(-3.0, pd.date_range("2023-06-01", "2023-08-31", freq="D"))
+    grid = pair_rate_grid(pd.concat([a, b]))
+    fig = charts.pair_grid_chart(grid, warranted_pct_per_yr=-0.55)
     _check_units(fig)
-    bar = fig.data[0]
-    assert_allclose(bar.x, [-0.5, 0.5]) and list(bar.y) == [2, 3]  # hand: (−1+0)/2, (0+1)/2
-    assert fig.layout.xaxis.title.text == "Year-on-year rate r_d [%/yr]"
-    assert any("median -0.20" in (a.text or "") for a in fig.layout.annotations)
+    hm = fig.data[0]
+    assert hm.zmid == -0.55  # red = lost more than the warranty allows
+    z = pd.DataFrame(np.asarray(hm.z, dtype=float), index=list(hm.y), columns=list(hm.x))
+    assert z.loc["2024", "Jun–Aug"] == -3.0 and z.loc["2023", "Mar–May"] == -0.5
+    assert np.isnan(z.loc["2024", "Dec–Feb"])  # no pairs: empty, not zero
+    # 92 earlier days 2023-06-01..08-31; + 365 d lands on 2024-05-31..08-30 (2024 is a leap
+    # year), so 91 later days fall in Jun-Aug 2024 and one in May (hand count)
+    assert "(91)" in hm.text[list(hm.y).index("2024")][2]
+
+
+def test_year_rates_chart_has_the_warranty_line_and_the_rate_band():
+    from analytics.reporting import pair_rate_grid
+
+    grid = pair_rate_grid(pd.Series(-0.5, pd.date_range("2022-01-01", "2023-11-30", freq="D")))
+    fig = charts.year_rates_chart(grid, rate=-0.5, ci=(-0.7, -0.3), warranted_pct_per_yr=-0.55)
+    _check_units(fig)
+    names = [t.name for t in fig.data]
+    assert "warranted -0.55 %/yr" in names and "whole period -0.50 %/yr" in names
+    assert any(s.type == "rect" and s.y0 == -0.7 and s.y1 == -0.3 for s in fig.layout.shapes)
+
+
+def test_soiling_has_its_own_form_loss_in_percent():
+    periods = pd.DataFrame({"first_day": ["2024-06-01", "2024-08-01"],
+                            "last_day": ["2024-07-10", "2024-09-01"],
+                            "lost_kwh": [1200.0, 800.0], "loss_at_end_pct": [3.0, 2.0],
+                            "severity": ["info", "warning"]})
+    summary = {"loss_pct": 1.8, "loss_low_pct": 2.0, "loss_high_pct": 2.4,
+               "current_loss_pct": 1.1, "periods": periods}
+    bar = charts.soiling_loss_bar(summary)
+    _check_units(bar)
+    assert bar.layout.xaxis.title.text == "Energy lost to soiling [%]"
+    assert list(bar.data[0].x) == [1.8] and list(bar.data[1].x) == [2.0, 2.4]
+    per = charts.soiling_loss_chart(summary)
+    _check_units(per)
+    assert list(per.data[0].y) == [1200.0, 800.0]
 
 
 def test_warranty_chart_draws_the_warranted_line():
@@ -169,12 +246,18 @@ def test_drilldown_panels_units_flags_and_local_time():
     assert first == pd.Timestamp("2024-06-01T01:00")  # 00:00 UTC shown as 01:00 UTC+1
     assert len(fig.layout.shapes) == 1  # the flag, shaded across all four panels
     assert fig.layout.shapes[0].yref == "paper" and fig.layout.shapes[0].fillcolor.endswith("0.28)")
-    assert "#7 outage" in fig.layout.annotations[0].text
+    assert "#7 Outage" in fig.layout.annotations[0].text  # words, not the code
     assert {t.xaxis for t in fig.data} == {"x"}  # one zoomable time axis for every panel
     # an info flag or a site-wide flag is listed, not shaded
     info = flags.assign(flag_id=8, severity="info", device_id="INV-1")
     assert not charts.drilldown(f, peers, info, "INV-1", 3600).layout.shapes
     assert any(t.name == "peers" for t in fig.data)
+    # the wall-clock option: Europe/Madrid in June is UTC+2 (CEST, tz database)
+    wall = charts.drilldown(f, peers, flags.assign(start_s=int(t0.timestamp()) - 3600,
+                                                   end_s=int(t0.timestamp()) + 3600),
+                            "INV-1", std_offset_s=3600, tz="Europe/Madrid")
+    assert pd.Timestamp(wall.data[0].x[0]) == pd.Timestamp("2024-06-01T02:00")
+    assert wall.layout.xaxis.title.text == "Local wall-clock time (Europe/Madrid)"
 
 
 def test_drilldown_empty_frame():
@@ -233,7 +316,8 @@ def test_diverging_scale_is_tol_burd_reversed_with_light_centre():
     assert lum[:5] == sorted(lum[:5]) and lum[4:] == sorted(lum[4:], reverse=True)
 
 
-@pytest.mark.parametrize("fn", [charts.pr_heatmap, charts.completeness_heatmap])
+@pytest.mark.parametrize("fn", [charts.pr_heatmap, charts.completeness_heatmap,
+                                charts.pair_grid_chart, charts.year_rates_chart])
 def test_empty_heatmaps(fn):
     fig = fn(pd.DataFrame())
     assert fig.layout.annotations and _axis_titles(fig)

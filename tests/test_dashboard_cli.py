@@ -28,11 +28,14 @@ def test_streamlit_command_line():
 def _run(monkeypatch, args, returncode=0):
     seen = {}
 
-    def fake_run(cmd, env, check):
+    def fake_serve(cmd, env):
         seen["cmd"], seen["env"] = cmd, env
-        return subprocess.CompletedProcess(cmd, returncode)
+        return returncode
 
-    monkeypatch.setattr(cmd_dashboard.subprocess, "run", fake_run)
+    monkeypatch.setattr(cmd_dashboard, "_serve", fake_serve)
+    for a in args:  # the store must exist (a missing SQLite path is refused)
+        if a.endswith(".sqlite"):
+            make_engine(a).dispose()
     res = CliRunner().invoke(main, args)
     return res, seen
 
@@ -69,3 +72,53 @@ def test_dashboard_reports_a_failed_server(monkeypatch, tmp_path):
     res, _ = _run(monkeypatch, ["--db", str(tmp_path / "s.sqlite"), "dashboard"], returncode=3)
     assert res.exit_code == 1
     assert "Error: streamlit exited with code 3" in res.output
+
+
+def test_a_missing_database_is_refused(tmp_path):
+    res = CliRunner().invoke(main, ["--db", str(tmp_path / "nothing.sqlite"), "dashboard",
+                                    "--no-browser"])
+    assert res.exit_code == 1
+    assert "Error: no database at" in res.output
+    assert not (tmp_path / "nothing.sqlite").exists()  # and no empty file is left behind
+
+
+def _port_answers(port: int) -> bool:
+    import socket
+
+    try:
+        with socket.create_connection(("127.0.0.1", port), timeout=0.5):
+            return True
+    except OSError:
+        return False
+
+
+def test_the_server_ends_with_its_parent(tmp_path):
+    """Killing `heliaudit dashboard` (SIGKILL: no handler runs) stops Streamlit too."""
+    import os
+    import signal
+    import socket
+
+    db = tmp_path / "store.sqlite"
+    make_engine(db).dispose()
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    parent = subprocess.Popen([sys.executable, "-c", "from heliaudit.cli import main; main()",
+                               "--db", str(db),
+                               "dashboard", "--no-browser", "--port", str(port)],
+                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        t0 = time.monotonic()
+        while not _port_answers(port):
+            assert parent.poll() is None, "heliaudit dashboard exited early"
+            assert time.monotonic() - t0 < 90, "the server did not start"
+            time.sleep(0.3)
+        os.kill(parent.pid, signal.SIGKILL)
+        parent.wait()
+        t0 = time.monotonic()
+        while _port_answers(port) and time.monotonic() - t0 < 20:
+            time.sleep(0.3)
+        assert not _port_answers(port), "Streamlit kept serving after its parent died"
+    finally:
+        if parent.poll() is None:
+            parent.kill()

@@ -256,6 +256,25 @@ def test_coarse_counter_daily_energy_equals_integrated_power(engine, tmp_path):
     assert len(v) == len(truth) and set(np.diff(v)) <= {0.0, 1.0}
 
 
+def test_coarse_counter_in_small_chunks(engine, tmp_path):
+    """Chunks of 100 rows (8 h 20 min): the first holds too few steps to measure the
+    resolution; a step beyond one interval's possible energy already marks the counter
+    coarse, so no chunk writes counter energy and the day is still integrated power."""
+    from ingest.load import ingest_file
+
+    cfg = _site(tmp_path, COUNTER_SOURCE, inverters=(("INV1", 3.0, 2.8),))
+    f, truth = _write_counter_days(tmp_path)
+    res = ingest_file(engine, cfg, cfg.sources[0], f, chunk_rows=100)
+    assert res.status == "loaded" and res.notes["counters"]["INV1"]["resolution_kwh"] == 1.0
+    with engine.connect() as conn:
+        _ts, e = read_channel(conn, site_channels(conn, "real")[("INV1", "e_ac_kwh")])
+    assert e.size == 0  # no interval energy from the coarse counter in any chunk
+    jobs_daily.recompute_all(engine, "real")
+    d = daily_table(engine, "real").sort_values("day")
+    np.testing.assert_allclose(d["e_ac_kwh"].to_numpy(),
+                               truth.groupby("day")["p"].sum().to_numpy() * 5 / 60, rtol=1e-9)
+
+
 def test_fine_counter_still_gives_interval_energy(engine, tmp_path):
     cfg = _site(tmp_path, COUNTER_SOURCE, inverters=(("INV1", 3.0, 2.8),))
     f, truth = _write_counter_days(tmp_path, n_days=1, step=0.001)
@@ -444,7 +463,8 @@ def test_v3_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
         conn.execute(sa.text("UPDATE schema_version SET version = 3"))
     eng.dispose()
     eng = sa.create_engine(f"sqlite:///{path}")
-    assert upgrade(eng) == 4
+    from db import schema
+    assert upgrade(eng) == schema.SCHEMA_VERSION  # v4, and the later steps (v5: site model)
     fr = inverter_frame(eng, "real", "INV1")
     assert fr["interval_h"].iloc[0] == 0.25 and fr["interval_h"].iloc[-1] == pytest.approx(5 / 60)
     with eng.connect() as conn:
@@ -491,3 +511,65 @@ def test_counter_mismatch_flag_from_stored_data(engine, tmp_path, scale, flagged
 
         det = json.loads(fl["details_json"].iloc[0])
         assert det["counter_resolution_kwh"] == 1.0 and det["diff_pct"] == pytest.approx(-20, abs=3)
+
+
+LONG_SOURCE = """
+[[sources]]
+name = "portal"
+layout = "long"
+pattern = "portal_*.csv"
+timestamp = { column = "time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "end" }
+[sources.long]
+device_column = "device"
+quantity_column = "signal"
+value_column = "value"
+quantities = { PAC = { quantity = "p_ac_kw", unit = "kW", sampling = "instant" }, GPOA = { quantity = "poa_wm2", unit = "W/m2" } }
+[[sources.clock_corrections]]
+start = 2023-06-01T00:00:00
+end = 2023-06-01T23:59:00
+shift_minutes = 10
+devices = ["INV2"]
+"""
+
+
+def test_long_layout_instant_samples_and_device_correction(engine, tmp_path):
+    """A long (one value per line) export: PAC declared instantaneous is keyed by its own
+    instant and integrated by the trapezoidal rule; INV2's clock correction moves only INV2."""
+    cfg = _site(tmp_path, LONG_SOURCE, inverters=(("INV1", 120.0, 100.0), ("INV2", 120.0, 100.0)))
+    lines = ["time,device,signal,value"]
+    p = [0.0, 30.0, 60.0, 60.0, 30.0]
+    for k, pk in enumerate(p):
+        t = pd.Timestamp("2023-06-01 10:00") + pd.Timedelta(minutes=10 * k)
+        lines += [f"{t:%Y-%m-%d %H:%M},INV1,PAC,{pk}", f"{t:%Y-%m-%d %H:%M},INV2,PAC,{pk}",
+                  f"{t:%Y-%m-%d %H:%M},POA1,GPOA,{500 + k}"]
+    f = tmp_path / "portal_2023-06-01.csv"
+    f.write_text("\n".join(lines) + "\n")
+    (res,) = ingest_paths(engine, cfg, [f])
+    assert res.status == "loaded", res.message
+    t10 = int(pd.Timestamp("2023-06-01 10:00", tz="UTC").timestamp())
+    with engine.connect() as conn:
+        ch = site_channels(conn, "real")
+        ts1, _ = read_channel(conn, ch[("INV1", "p_ac_kw")])
+        ts2, _ = read_channel(conn, ch[("INV2", "p_ac_kw")])
+        tsg, _ = read_channel(conn, ch[("POA1", "poa_wm2")])
+    assert ts1.tolist() == [t10 + 600 * k for k in range(5)]  # samples at their instants
+    assert ts2.tolist() == [t10 + 600 * (k + 1) for k in range(5)]  # INV2 10 min later
+    assert tsg[1] == t10  # the interval-mean POA: its second row's interval starts at 10:00
+    fr = inverter_frame(engine, "real", "INV1")
+    hours = np.arange(5) / 6.0
+    assert (fr["p_ac_kw"] * fr["interval_h"]).sum() == pytest.approx(_trapezoid(p, hours))
+
+
+def test_ingest_command_reports_coarse_counters(tmp_path):
+    from click.testing import CliRunner
+
+    from heliaudit.cli import main
+
+    _site(tmp_path, COUNTER_SOURCE, inverters=(("INV1", 3.0, 2.8),))
+    _write_counter_days(tmp_path, n_days=1)
+    r = CliRunner().invoke(main, ["--db", str(tmp_path / "s.sqlite"), "ingest", "--no-compute",
+                                  str(tmp_path / "site.toml")])
+    assert r.exit_code == 0, r.output
+    assert ("note: coarse energy counters (steps of 1 kWh) on 1 inverters (INV1): interval "
+            "energy from AC power") in r.output
+    assert "energy counters of" not in r.output  # no resets, jumps or gaps to report

@@ -50,13 +50,13 @@ def test_irradiance_tolerance_minus_10():
     # night-time thermopile offset of a few W/m² negative is normal (common practice); -10 is the limit
     bad, why = implausible(np.array([-9.9, -10.0, -10.1, 1400.0]), "poa_wm2")
     assert bad.tolist() == [False, False, True, False]
-    assert "irradiance below -10" in why
+    assert "irradiance below -10" in why[2] and why[3] is None
 
 
 def test_power_above_one_and_a_half_times_rating():
     bad, why = implausible(np.array([149.9, 150.0, 150.1]), "p_ac_kw", p_ac_max_kw=100.0)
     assert bad.tolist() == [False, False, True]  # 1.5 x 100 kW = 150 kW
-    assert "150 kW" in why
+    assert "above 150 kW" in why[2]
 
 
 def test_interval_energy_limit_uses_interval():
@@ -69,3 +69,44 @@ def test_interval_energy_limit_uses_interval():
 def test_temperature_and_wind_limits():
     assert implausible(np.array([-61.0, 25.0, 101.0]), "t_module_c")[0].tolist() == [True, False, True]
     assert implausible(np.array([-1.0, 10.0, 80.0]), "wind_ms")[0].tolist() == [True, False, True]
+
+
+def test_irradiance_upper_limit_keeps_cloud_enhancement():
+    # Cloud enhancement to 1500-1800 W/m² POA is real (Gueymard 2017); the BSRN physically
+    # possible limit at the sun overhead is 1.5 x 1361 + 100 = 2141.5 W/m² (Long & Shi 2008)
+    bad, why = implausible(np.array([1500.0, 1800.0, 2141.5, 2142.0, 9999.0, 1e300]), "poa_wm2")
+    assert bad.tolist() == [False, False, False, True, True, True]
+    assert "irradiance above 2141.5 W/m²" in why[3]
+
+
+def test_negative_power_beyond_night_consumption():
+    # night consumption is well under 1 % of the rating (common practice): -5 % is the limit
+    bad, why = implausible(np.array([-0.5, -5.0, -5.1, -50.0]), "p_ac_kw", p_ac_max_kw=100.0)
+    assert bad.tolist() == [False, False, True, True]
+    assert "below -5 kW" in why[2]
+    assert implausible(np.array([-6.1, -5.9]), "p_dc_kw", p_dc_kwp=120.0)[0].tolist() == [True, False]
+
+
+def test_counter_limits():
+    # 100 years x 8784 h x 100 kW = 87.84 GWh; 1e308 is no counter reading
+    bad, _ = implausible(np.array([1e6, 8.784e7, 8.8e7, 1e308, -1.0]), "e_ac_total_kwh",
+                         p_ac_max_kw=100.0)
+    assert bad.tolist() == [False, False, True, True, True]
+    bad, why = implausible(np.array([999_999.0, 1_000_001.0]), "e_ac_total_kwh", p_ac_max_kw=100.0,
+                           rollover_kwh=1e6)
+    assert bad.tolist() == [False, True] and "counter_rollover_kwh" in why[1]
+
+
+def test_air_temperature_and_rain_records():
+    # WMO archive: -89.2 °C (Vostok) .. 56.7 °C (Death Valley); 1825 mm in 24 h (Foc-Foc)
+    assert implausible(np.array([-91.0, -89.2, 56.7, 61.0]), "t_amb_c")[0].tolist() == [
+        True, False, False, True]
+    assert implausible(np.array([-0.1, 0.0, 1825.0, 1900.0]), "rain_mm")[0].tolist() == [
+        True, False, False, True]
+
+
+def test_dc_current_limits_from_the_nameplate():
+    # 120 kWp: 1.5 x 120 kW / 150 V = 1200 A (common practice bound); -5 % of it below zero
+    bad, why = implausible(np.array([-61.0, -59.0, 1199.0, 1201.0]), "i_dc_a", p_dc_kwp=120.0)
+    assert bad.tolist() == [True, False, False, True]
+    assert "DC current" in why[3]

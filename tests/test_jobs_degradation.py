@@ -99,7 +99,9 @@ def test_job_stores_every_method(store):
     assert summary["inverters"] == 5 and summary["refused"] == 1
     res = degradation_results(engine, "s1")
     methods = {"sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
-               "sensor_year_pairs_between_shifts", "overview"}
+               "sensor_year_pairs_between_shifts", "sensor_year_pairs_unsoiled",
+               "modelled_sky_between_shifts",
+               "recommended", "overview"}
     for dev in ("INV01", "INV02", "INV03", "INV04", "INV05", SITE_DEVICE):
         assert set(res.loc[res["device_id"] == dev, "method"]) == methods
     one = res[(res["device_id"] == "INV01") & (res["method"] == "sensor_year_pairs")].iloc[0]
@@ -126,8 +128,14 @@ def test_drift_detected_and_clearsky_recovers_truth(store):
         drift = res.loc[(dev, "sensor_drift_check")]
         assert abs(drift["rate_pct_per_yr"] + 0.99) < 0.15 and drift["ci_high"] < 0
         summ = res.loc[(dev, "overview"), "details"]
-        assert any("check POA sensor calibration" in w for w in summ["warnings"])
+        assert any("check its calibration" in w for w in summ["warnings"])
         assert summ["comparison"]["agree"] is False
+        # the sensor is judged to drift: the recommended rate is the one that does not use it
+        rec = res.loc[(dev, "recommended")]
+        assert rec["details"]["chosen_method"] == "modelled_sky_year_pairs"
+        assert rec["rate_pct_per_yr"] == res.loc[(dev, "modelled_sky_year_pairs"), "rate_pct_per_yr"]
+        assert [c["kind"] for c in rec["details"]["caveats"]][0] == "sensor_drift"
+        assert summ["recommended_method"] == "modelled_sky_year_pairs"
 
 
 def test_results_json_document(store):
@@ -154,6 +162,19 @@ def test_results_json_document(store):
     assert w4["exceeds"] is True and w4["warranted_rate_pct_per_yr"] == -0.55
     assert "Screening evidence" in w4["disclaimer"] and w4["shortfall_kwh"] >= 0
     assert doc["site_result"]["degradation"]["sensor_year_pairs"]["rate_pct_per_yr"] is not None
+    # the recommended block (contract, issue #13): its rate is the chosen method's, the
+    # warranty names it, the overview's key says which it is
+    for b in (d1, doc["site_result"]):
+        rec = b["recommended"]
+        assert set(rec) >= {"method", "rate_pct_per_yr", "ci_low", "ci_high", "confidence",
+                            "ci68_low", "ci68_high", "reasons", "caveats"}
+        assert rec["rate_pct_per_yr"] == b["degradation"][rec["method"]]["rate_pct_per_yr"]
+        assert rec["ci_low"] <= rec["ci68_low"] <= rec["rate_pct_per_yr"] <= rec["ci68_high"] <= rec["ci_high"]
+        assert b["recommended_method"] == rec["method"] and rec["reasons"]
+        assert all(c["method"] for c in rec["caveats"])
+        assert "recommended" not in b["degradation"]
+    assert w4["measured_method"] == inv["INV04"]["recommended"]["method"]
+    assert w4["measured_rate_pct_per_yr"] == inv["INV04"]["recommended"]["rate_pct_per_yr"]
     assert isinstance(doc["flags"], list)
     json.dumps(doc, allow_nan=False)  # strict JSON
 
@@ -271,3 +292,11 @@ def test_old_codes_pattern_is_live():
                  "sr_iw_low", "headline_method"):
         assert OLD_CODES.search(f'{{"method": "{code}"}}'), code
     assert not OLD_CODES.search("sensor_year_pairs modelled_sky_year_pairs overview style")
+
+
+def test_method_codes_fit_the_store_column():
+    # db/schema.py: degradation_result.method is VARCHAR(32) (PostgreSQL enforces it)
+    from db import schema
+    from heliaudit.jobs_degradation import METHODS
+    width = schema.degradation_result.c.method.type.length
+    assert all(len(m) <= width for m in (*METHODS, "recommended", "overview")), width

@@ -173,8 +173,14 @@ def test_demo_clock_shift_matches_truth(demo):
 def test_demo_flatline_outage_and_string_failure(demo):
     eng, truth, fl = demo
     ft = truth["t_module_flatline"]
-    f = fl[(fl["kind"] == "sensor_flatline") & (fl["device_id"] == ft["sensor"])]
+    # issue #14: the stuck sensor is judged first (one 'sensor_implausible' flag, reason
+    # 'stuck', its days excluded downstream); the flatline is attached as its consequence
+    f = fl[(fl["kind"] == "sensor_implausible") & (fl["device_id"] == ft["sensor"])]
     assert len(f) == 1
+    det = json.loads(f.iloc[0]["details_json"])
+    assert det["reason"] == "stuck" and "clock" in det["excluded_from"]
+    assert [c["kind"] for c in det["consequences"]] == ["sensor_flatline"]
+    assert fl[fl["kind"] == "sensor_flatline"].empty
     # Tolerance: start within 1 h, end within 1 day (the stuck run ends in the night).
     assert abs(f.iloc[0]["start_s"] - _local_s(ft["start_local"])) <= 3600
     assert abs(f.iloc[0]["end_s"] - _local_s(ft["end_local"])) <= 86400
@@ -192,12 +198,12 @@ def test_demo_false_alarms(demo):
     """Outside the injected faults the five months raise nothing but information."""
     eng, truth, fl = demo
     alarms = fl[fl["severity"].isin(["warning", "alarm"])]
-    expected = {"clock_shift", "sensor_flatline", "outage", "underperformance",
-                "sensor_night"}  # night irradiance is the clock shift seen at dusk
+    expected = {"clock_shift", "sensor_implausible", "outage", "underperformance"}
     assert set(alarms["kind"]) <= expected
-    night = fl[fl["kind"] == "sensor_night"]
-    assert (night["start_s"] >= _local_s("2024-02-01 00:00")).all()
-    assert (night["end_s"] <= _local_s("2024-03-01 00:00")).all()
+    # night irradiance is the clock shift seen at dusk: attached to the clock flag
+    assert fl[fl["kind"] == "sensor_night"].empty
+    clk = json.loads(fl[fl["kind"] == "clock_shift"].iloc[0]["details_json"])
+    assert {c["kind"] for c in clk["consequences"]} == {"sensor_night"}
     assert fl[fl["kind"] == "sensor_drift"].empty  # PY2 drifts 0.8 %/yr < 1 %/yr threshold
 
 
@@ -235,5 +241,6 @@ def test_merge_shared_flags_logger_gap():
     assert len(out) == 2
     site = out[out["device_id"].isna()].iloc[0]
     assert site["details"]["devices"] == ["inv1", "inv2", "poa1"]
+    assert site["kind"] == "data_dropout"  # a logger gap: information unavailable
     assert "logger" in site["details"]["probable_cause"]
     assert list(out.loc[out["device_id"].notna(), "device_id"]) == ["inv3"]

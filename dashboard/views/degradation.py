@@ -1,7 +1,10 @@
-"""Degradation and warranty: rates per inverter and method, YoY distribution, warranty."""
+"""Degradation & warranty: the recommended rate with its reasons and caveats first, then
+how stable it is over years and seasons, how it compares with the warranty, every method,
+and the soiling result in its own form."""
 
 import streamlit as st
 
+from analytics.labels import CAVEAT_LABELS, RELATIVE_METHODS, method_label
 from dashboard import charts, data, ui
 
 sel = ui.selection()
@@ -16,95 +19,219 @@ if res.empty:
             "least two years of data are loaded (year-on-year needs pairs one year apart).")
     st.stop()
 
-agree = data.method_agreement(res_all)
-n_dev = res.dropna(subset=["rate_pct_per_yr"])["device_id"].nunique()
-n_agree = int(sum(a is not None and a == a and bool(a) for a in agree["agree"]))
-n_dis = int(sum(a is not None and a == a and not bool(a) for a in agree["agree"]))
-m = st.columns(3)
-m[0].metric("Devices with rates", f"{n_dev}")
-m[1].metric("Methods agree", f"{n_agree}", help="Intervals of every pair of absolute-rate "
-            "methods overlap (analytics.degradation.compare_methods).")
-m[2].metric("Methods disagree", f"{n_dis}")
+devices = list(dict.fromkeys(sorted(res["device_id"], key=lambda d: (d != "(site)", d))))
+device = st.selectbox("Device", devices, key="deg_device",
+                      format_func=lambda d: "Whole site" if d == "(site)" else d)
+name = "the whole site" if device == "(site)" else device
+title_name = "Whole site" if device == "(site)" else device
+rec = data.recommended(res_all, device)
+terms = data.warranty_terms(url, site_id)
+warranted = -terms["annual_loss_pct"] if terms else None
 
-st.plotly_chart(charts.degradation_forest(res), theme=None, key="forest")
 
-st.subheader("Rates and agreement")
-verdicts = agree.assign(agree=[("–" if a is None or a != a else "yes" if bool(a) else "no")
-                               for a in agree["agree"]])
-table = res[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high", "confidence",
-             "n_points", "reason"]].merge(verdicts[["device_id", "agree", "disagreements",
-                                                    "warnings"]], on="device_id", how="left")
-st.dataframe(table, hide_index=True, key="rates_table", column_config={
-    "device_id": "Device", "method": "Method",
-    "rate_pct_per_yr": st.column_config.NumberColumn("Rd [%/yr]", format="%+.2f"),
-    "ci_low": st.column_config.NumberColumn("CI low [%/yr]", format="%+.2f"),
-    "ci_high": st.column_config.NumberColumn("CI high [%/yr]", format="%+.2f"),
-    "confidence": st.column_config.NumberColumn("Confidence", format="%.2f"),
-    "n_points": st.column_config.NumberColumn("Points", format="%d"),
-    "reason": "Not computed because", "agree": "Methods agree (device)",
-    "disagreements": "Disagreeing methods", "warnings": "Verdict notes"})
+def _ci(lo, hi) -> str:
+    return f"{lo:+.2f} to {hi:+.2f}" if lo is not None and hi is not None else "–"
 
-st.subheader("One device")
-devices = list(dict.fromkeys(res["device_id"]))
-c1, c2 = st.columns(2)
-device = c1.selectbox("Device", devices, key="deg_device")
-methods = sorted(res.loc[(res["device_id"] == device) & res["rate_pct_per_yr"].notna(),
-                         "method"].unique()) or ["sensor_year_pairs"]
-method = c2.selectbox("Method for the warranty check", methods, key="deg_method",
-                      index=methods.index("sensor_year_pairs") if "sensor_year_pairs" in methods else 0)
-v = agree[agree["device_id"] == device]
-if not v.empty:
-    verdict = v.iloc[0]
-    ok = verdict["agree"]
-    if ok is None or ok != ok:  # None / NaN: fewer than two intervals
-        st.info("Fewer than two methods with an interval: no agreement verdict.")
-    elif bool(ok):
-        st.success(f"Methods agree ({verdict['compared']}): their intervals overlap.")
+
+# ---- 1. the recommended rate, its reasons and every caveat beside it
+st.subheader(f"Recommended degradation rate of {name}")
+chosen = rec["method"] if rec else None
+with st.container(border=True):
+    if rec is None or rec["rate_pct_per_yr"] is None:
+        st.info("No rate for this device" + (f": {rec['reason']}." if rec and rec.get("reason")
+                                             else "."))
     else:
-        st.warning(f"Methods disagree: {verdict['disagreements']}. {verdict['warnings']}")
+        c = st.columns([2, 3, 3])
+        conf = rec["confidence"] or 0.95
+        c[0].metric("Recommended rate", f"{rec['rate_pct_per_yr']:+.2f} %/yr",
+                    help="Negative = loss of power per year, relative to the first year.")
+        c[1].metric(f"{100 * conf:.0f} % interval", f"{_ci(rec['ci_low'], rec['ci_high'])} %/yr",
+                    help=(f"68 % interval {_ci(rec['ci68_low'], rec['ci68_high'])} %/yr"
+                          if rec.get("ci68_low") is not None else None))
+        c[2].markdown(f"**Method**  \n{method_label(chosen)}")
+        for reason in rec["reasons"]:
+            st.markdown(f"- {reason}")
+        if rec["caveats"]:
+            for cav in rec["caveats"]:
+                st.warning(f"**{CAVEAT_LABELS.get(cav.get('kind'), 'Caveat')}.** "
+                           f"{cav.get('text', '')}", icon=":material/warning:")
+        else:
+            st.caption("No caveat applies to this rate (no sensor drift, level shift, soiling, "
+                       "out-of-range rate or short record was found).")
 
+# ---- 2. is the rate stable over the years and seasons? which periods drive it?
+grid = data.pair_grid(url, site_id, device)
 left, right = st.columns(2)
-h = data.yoy_histogram_data(res, device)
-if h is not None:
-    left.plotly_chart(charts.yoy_histogram(h["edges"], h["counts"], h["rate"], h["ci"],
-                                           title=f"{device}: year-on-year pair rates "
-                                                 f"({h['n_points']:.0f} pairs)"),
-                      theme=None, key="pair_rates_chart")
-    left.caption(f"Bars: rate of every pair of days one year apart (r_d); line: their median "
-                 f"{h['rate']:+.2f} %/yr; shaded: its interval {h['ci'][0]:+.2f} … "
-                 f"{h['ci'][1]:+.2f} %/yr (moving-block bootstrap). The outermost bins also hold "
-                 "the rates beyond the range." if h["rate"] is not None and None not in h["ci"] else
-                 "Bars: rate of every pair of days one year apart (r_d).")
-else:
-    left.info("No year-on-year distribution stored for this device.")
+left.plotly_chart(charts.pair_grid_chart(grid, warranted,
+                                         title=f"{title_name}: median pair rate (number of pairs)"),
+                  theme=None, key="pair_grid")
+fallback_rate = res[(res["device_id"] == device) & (res["method"] == "sensor_year_pairs")]
+yoy_rate = (float(fallback_rate["rate_pct_per_yr"].iloc[0])
+            if len(fallback_rate) and fallback_rate["rate_pct_per_yr"].notna().iloc[0]
+            else None)
+yoy_ci = ((float(fallback_rate["ci_low"].iloc[0]), float(fallback_rate["ci_high"].iloc[0]))
+          if yoy_rate is not None and fallback_rate["ci_low"].notna().iloc[0] else None)
+right.plotly_chart(charts.year_rates_chart(grid, yoy_rate, yoy_ci, warranted,
+                                           title=f"{title_name}: pair rates by year and season"),
+                   theme=None, key="year_rates")
+st.caption("Both charts use the pairs of days one year apart of the year-on-year method on "
+           "the POA sensor (Jordan et al. 2018), grouped by the year and meteorological season "
+           "of the later day (Dec–Feb counts to the year of its January). Grid colour: red where "
+           "a season's pairs lost more than the warranted rate"
+           + (f" ({warranted:+.2f} %/yr)" if warranted is not None else " (0 without warranty "
+              "terms)") + ", blue where less; cells with fewer than 10 pairs stay empty. "
+           "Right: each dot is a season's median pair rate with the middle half of its pairs "
+           "(a spread, not a confidence interval); the line and band are the whole-period "
+           "year-on-year rate and its interval. A row or a season far from the rest points to "
+           "a step, a drifting sensor or soiling rather than steady degradation.")
 
-w = data.warranty_view(url, site_id, device, method)
+# ---- 3. the warranty check, from the recommended rate
+st.subheader("Against the warranty")
+w = data.warranty_view(url, site_id, device, chosen) if chosen else None
 why = (data.summary_details(res_all, device).get("warranty") or {}).get("reason")
 if w is None:
-    right.info("No warranty check" + (f": {why}." if why else ": the site configuration has "
-               f"no [warranty] table, or the {method} rate is missing for this device."))
+    st.info("No warranty check" + (f": {why}." if why else ": the site configuration has no "
+            "[warranty] table, or the recommended rate is missing for this device."))
 else:
-    right.plotly_chart(charts.warranty_chart(w["envelope"], w["measured"], w["monthly"]),
-                       theme=None, key="warranty")
+    wl, wr = st.columns([3, 2])
+    wl.plotly_chart(charts.warranty_chart(w["envelope"], w["measured"], w["monthly"]),
+                    theme=None, key="warranty")
     t = w["terms"]
+    with wr:
+        k = st.columns(2)
+        k[0].metric("Measured (recommended)", f"{w['rate']:+.2f} %/yr",
+                    help=f"{method_label(chosen)}, interval {_ci(*w['ci'])} %/yr")
+        k[1].metric("Warranted rate", f"{-t['annual_loss_pct']:+.2f} %/yr",
+                    help=f"A loss of at most {t['annual_loss_pct']:.2f} % of nameplate per year "
+                         f"after {t['first_year_loss_pct']:.1f} % in the first year, for "
+                         f"{t['years']} years from {t['start_date']}.")
+        k = st.columns(2)
+        k[0].metric("Shortfall from the rate", f"{w['shortfall_kwh']:,.0f} kWh"
+                    if w["shortfall_kwh"] is not None else "–",
+                    help="Σ over months of E_m · max(0, W_m / (1 + R t_m / 100) − 1): the "
+                         "energy the array would have added at the warranted level if it had "
+                         "lost only what the recommended rate R attributes to degradation.")
+        k[1].metric("Months below", f"{w['months_below']}",
+                    help="Months whose measured (de-seasonalised) index lies under the "
+                         "warranted envelope, for any reason.")
+        caveats = rec["caveats"] if rec else []
+        step_inside = (any(c.get("kind") == "level_shift" for c in caveats)
+                       and chosen not in ("sensor_year_pairs_between_shifts",
+                                          "modelled_sky_between_shifts"))
+        if w["test"] is not None:
+            verdict = (w["test"]["verdict"][:1].upper() + w["test"]["verdict"][1:]
+                       + f" (one-sided upper bound {w['test']['one_sided_upper_pct_per_yr']:+.2f}"
+                         f" %/yr against the warranted {w['test']['warranted_rate_pct_per_yr']:+.2f}"
+                         " %/yr).")
+            if caveats:  # a verdict never stands unqualified beside a caveat
+                st.warning(verdict + " It holds only as far as the caveats above allow: "
+                           + "; ".join(CAVEAT_LABELS.get(c.get("kind"), "caveat").lower()
+                                       for c in caveats) + ".")
+            elif w["test"]["exceeds"]:
+                st.error(verdict)
+            else:
+                st.success(verdict)
+        if step_inside:
+            between = res[(res["device_id"] == device)
+                          & (res["method"] == "sensor_year_pairs_between_shifts")]
+            alt = (f" The rate between level shifts is "
+                   f"{float(between['rate_pct_per_yr'].iloc[0]):+.2f} %/yr."
+                   if len(between) and between["rate_pct_per_yr"].notna().iloc[0] else "")
+            st.warning("This rate includes a level shift, a failure to repair rather than "
+                       "degradation, and so does the shortfall computed from it." + alt)
+        st.caption("The shortfall counts only what the recommended rate attributes to "
+                   "degradation. It excludes month-to-month dips (soiling, outages, weather), "
+                   + ("" if step_inside else "level steps from failures (a string or module "
+                      "fault is a repair, not degradation), ")
+                   + "and initial light-induced loss (the index has no absolute "
+                   "baseline: 100 % is set at the warranty start). "
+                   + (f"Every month of the index under the envelope, for any reason, adds up "
+                      f"to {w['shortfall_monthly_kwh']:,.0f} kWh"
+                      + (" (`shortfall_kwh` of `heliaudit results`)" if w.get("stored") else "")
+                      + ": that is not evidence of degradation."
+                      if w.get("shortfall_monthly_kwh") is not None else ""))
+
+# ---- 4. every method, rates and relative figures on their own axes
+st.subheader("Every method")
+recs = {}
+for d in devices:
+    r_ = data.recommended(res_all, d)
+    if r_ and r_["method"]:
+        recs[d] = r_["method"]
+st.plotly_chart(charts.degradation_forest(res, recs), theme=None, key="forest")
+st.caption("Left: degradation rates of the plant from each method; the ring marks the "
+           "recommended one. Right, on its own axis: figures that are not the plant's "
+           "degradation rate — the rate relative to the peers (a weak inverter against the "
+           "others) and the POA sensor's drift against clear sky.")
+agree = data.method_agreement(res_all)
+table = res[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high", "confidence",
+             "n_points", "reason"]].copy()
+table["device_id"] = table["device_id"].replace({"(site)": "whole site"})
+table["kind"] = ["relative / drift" if m in RELATIVE_METHODS else "rate of the plant"
+                 for m in table["method"]]
+table["method"] = [method_label(m) for m in table["method"]]
+table["recommended"] = [recs.get(d if d != "whole site" else "(site)") == m
+                        for d, m in zip(table["device_id"], res["method"], strict=True)]
+table["reason"] = table["reason"].fillna("")
+table = table[["device_id", "method", "recommended", "kind", "rate_pct_per_yr", "ci_low",
+               "ci_high", "n_points", "reason"]]
+st.dataframe(ui.clean_frame(table, {"rate_pct_per_yr": "+.2f", "ci_low": "+.2f",
+                                     "ci_high": "+.2f", "n_points": ",.0f"}),
+             hide_index=True, key="rates_table", column_config={
+    "device_id": st.column_config.TextColumn("Device", width="small"),
+    "method": st.column_config.TextColumn("Method", width="medium"),
+    "recommended": st.column_config.CheckboxColumn("Chosen", width="small",
+                                                   help="The recommended rate of the device."),
+    "kind": st.column_config.TextColumn("Figure", width="small"),
+    "rate_pct_per_yr": st.column_config.NumberColumn("Rate [%/yr]", format="%+.2f"),
+    "ci_low": st.column_config.NumberColumn("Low [%/yr]", format="%+.2f"),
+    "ci_high": st.column_config.NumberColumn("High [%/yr]", format="%+.2f"),
+    "n_points": st.column_config.NumberColumn("Points", format="localized"),
+    "reason": st.column_config.TextColumn("Not computed because", width="large")})
+v = agree[agree["device_id"] == device]
+if not v.empty and v.iloc[0]["agree"] is False:
+    st.caption(f"For {name} the intervals of some methods do not overlap; see the caveats "
+               "beside the recommended rate.")
+
+# ---- 5. soiling, in its own form
+st.subheader("Soiling")
+soil = data.soiling_summary(url, site_id)
+if soil is None:
+    st.info("No soiling found for this site (no dry period with at least 1 % loss).")
+else:
+    sl, sr = st.columns([2, 3])
+    sl.plotly_chart(charts.soiling_loss_bar(soil), theme=None, key="soiling_bar")
+    sr.plotly_chart(charts.soiling_loss_chart(soil), theme=None, key="soiling_periods")
     k = st.columns(4)
-    k[0].metric("Measured rate", f"{w['rate']:+.2f} %/yr",
-                help=f"{method}, interval {w['ci'][0]:+.2f} … {w['ci'][1]:+.2f} %/yr")
-    k[1].metric("Warranted loss", f"{-t['annual_loss_pct']:+.2f} %/yr",
-                help=f"First year {t['first_year_loss_pct']} %, then {t['annual_loss_pct']} %/yr "
-                     f"for {t['years']} years from {t['start_date']}")
-    k[2].metric("Energy shortfall", f"{w['shortfall_kwh']:,.0f} kWh",
-                help="Σ over months below the envelope of E_m (W_m / measured_m − 1).")
-    k[3].metric("Months below envelope", f"{w['months_below']}")
-    if w["test"] is not None:
-        (st.error if w["test"]["exceeds"] else st.success)(
-            w["test"]["verdict"].capitalize() + f" (one-sided upper bound "
-            f"{w['test']['one_sided_upper_pct_per_yr']:+.2f} %/yr vs warranted "
-            f"{w['test']['warranted_rate_pct_per_yr']:+.2f} %/yr).")
-    st.caption("The measured index has no absolute baseline: it is taken as 100 % at the "
-               "warranty start (the first year's median extrapolated back with the fitted "
-               "rate), which leaves out initial light-induced loss and so understates a "
-               "shortfall.")
+    cur = soil.get("current_loss_pct")
+    k[0].metric("Loss now", f"{cur:.1f} %" if cur is not None else "–",
+                help="Soiling loss at the end of the data, relative to the clean level.")
+    rate_d = soil.get("rate_pct_per_day")
+    k[1].metric("Soiling rate now", f"{rate_d:+.3f} %/day" if rate_d is not None else "–",
+                help="Theil–Sen slope of the site's daily index in the present dry period "
+                     "(Deceglie et al. 2018).")
+    cost, cur_ = soil.get("cleaning_cost"), soil.get("currency") or ""
+    k[2].metric("A cleaning costs", f"{cost:,.0f} {cur_}" if cost else "not configured")
+    sav = soil.get("saving")
+    k[3].metric(f"Loss over the next {soil.get('horizon_days') or 30} days",
+                f"{sav:,.0f} {cur_}" if sav is not None else "–",
+                help="What the present loss costs if nothing is cleaned (tariff × expected "
+                     "energy × loss × days).")
+    if soil.get("recommendation"):
+        (st.warning if soil.get("recommend_cleaning") else st.info)(
+            soil["recommendation"][:1].upper() + soil["recommendation"][1:] + ".")
+    lo, hi = soil.get("loss_low_pct"), soil.get("loss_high_pct")
+    period = soil.get("period") or ["", ""]
+    if soil.get("loss_pct") is not None:
+        st.caption(f"Bar: energy lost to soiling over {period[0]} … {period[1]}, weighted by "
+                   f"insolation (Deceglie et al. 2018), {soil['loss_pct']:.2f} % if every "
+                   "cleaning and washing rain restored the clean level"
+                   + (f"; {lo:.2f} … {hi:.2f} % if recoveries were only partial (Monte-Carlo "
+                      "over the soiling rates' intervals and recoveries between half and full)"
+                      if lo is not None and hi is not None else "") + ". "
+                   + (soil.get("caution") or ""))
+    elif soil.get("caution"):
+        st.caption(soil["caution"])
 
 # ---- evidence pack (issue #17): the same pack as `heliaudit evidence`, as a zip ----
 st.subheader("Evidence pack")

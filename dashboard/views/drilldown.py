@@ -5,6 +5,7 @@ import math
 
 import streamlit as st
 
+from analytics.labels import SEVERITY_LABELS, kind_label
 from dashboard import charts, data, ui
 
 sel = ui.selection()
@@ -87,7 +88,7 @@ a = data.day_to_s(start, off)
 b = data.day_to_s(start + dt.timedelta(days=days), off)
 nearby = data.flags_for(url, site_id, [inverter], a - 30 * 86400, b + 30 * 86400)
 options = [None, *nearby["flag_id"].astype(int).tolist()]
-labels = {int(r.flag_id): f"#{r.flag_id} {r.kind} · {r.start_local:%Y-%m-%d %H:%M}"
+labels = {int(r.flag_id): f"#{r.flag_id} {kind_label(r.kind)} · {r.start_local:%Y-%m-%d %H:%M}"
           for r in nearby.itertuples()}
 if st.session_state.get("dd_pick") not in options:
     st.session_state["dd_pick"] = None
@@ -104,24 +105,41 @@ highlight = st.session_state.get("dd_flag")
 if highlight:
     fl = data.flag(url, int(highlight))
     if fl:
-        st.subheader(f"Flag #{fl['flag_id']}: {fl['kind']} on {fl['device_id'] or 'the site'}")
-        t0 = dt.datetime.fromtimestamp(fl["start_s"] + off, dt.UTC)
-        t1 = dt.datetime.fromtimestamp(fl["end_s"] + off, dt.UTC)
-        st.caption(f"From {t0:%Y-%m-%d %H:%M} to {t1:%Y-%m-%d %H:%M} (local standard time).")
+        who = fl["device_id"] or "the whole site"
+        st.subheader(f"Flag #{fl['flag_id']}: {kind_label(fl['kind'])} on {who}")
+        ongoing = data.is_ongoing(fl, data.readings_end(url, site_id))
+        t0, t1 = ui.display_time([fl["start_s"], fl["end_s"]], sel)
+        if ongoing:
+            st.caption(f"Since {t0:%Y-%m-%d %H:%M} ({ui.time_basis()}); still open at the end "
+                       "of the data, so it has no end yet.")
+        else:
+            st.caption(f"From {t0:%Y-%m-%d %H:%M} to {t1:%Y-%m-%d %H:%M} ({ui.time_basis()}).")
+        end_s = data.readings_end(url, site_id) if ongoing else fl["end_s"]
         k = st.columns(3)
-        k[0].metric("Severity", fl["severity"])
-        k[1].metric("Duration", f"{(fl['end_s'] - fl['start_s']) / 3600:,.1f} h")
+        k[0].metric("Severity", SEVERITY_LABELS.get(fl["severity"], fl["severity"]))
+        k[1].metric("Duration", data.duration_text((end_s - fl["start_s"]) / 3600, ongoing))
         k[2].metric("Lost energy", f"{fl['lost_kwh']:,.1f} kWh"
                     if fl["lost_kwh"] is not None else "–")
-        with st.expander("Flag details", expanded=False):
-            st.json(fl["details"])
+        det = fl["details"] or {}
+        fix = det.get("correction_toml") if isinstance(det, dict) else None
+        if fix:
+            st.markdown("**Correction for the site configuration** — paste under the "
+                        "`[[sources]]` entry it names, then re-load the affected files:")
+            st.code(fix, language="toml")
+        for key in ("recommendation", "probable_cause", "note"):
+            if isinstance(det, dict) and isinstance(det.get(key), str):
+                st.caption(f"{key.replace('_', ' ').capitalize()}: {det[key]}")
+        with st.expander("All evidence of this flag", expanded=False):
+            st.json(det)
         ui.field_caution()
 
 if frame.empty:
     st.info(f"No interval readings for {inverter} from {start} for {days} days. Interval data "
             "cover the period that was ingested; pick another window.")
     st.stop()
-st.plotly_chart(charts.drilldown(frame, peers, flags, inverter, off, highlight), theme=None,
+st.plotly_chart(charts.drilldown(frame, peers, flags, inverter, off, highlight,
+                                 tz=sel["info"]["timezone"] if ui.wall_clock() else None),
+                theme=None,
                 key="drill_chart", config={"scrollZoom": True, "displaylogo": False})
 n_peers = peers["device_id"].nunique() if not peers.empty else 0
 st.caption(f"Expected power: PVWatts DC model (Dobos 2014) from POA irradiance and Sandia cell "
@@ -130,10 +148,19 @@ st.caption(f"Expected power: PVWatts DC model (Dobos 2014) from POA irradiance a
            "Shaded: this inverter's warnings and alarms (the chosen flag darker); info and site-wide "
            "events are listed below. Drag to zoom, double-click to reset.")
 if not flags.empty:
-    st.dataframe(flags[["flag_id", "device_id", "kind", "severity", "start_local", "end_local",
-                        "lost_kwh"]], hide_index=True, key="dd_flags", column_config={
-        "flag_id": st.column_config.NumberColumn("Flag", format="%d"), "device_id": "Device",
-        "kind": "Kind", "severity": "Severity",
-        "start_local": st.column_config.DatetimeColumn("Start", format="YYYY-MM-DD HH:mm"),
-        "end_local": st.column_config.DatetimeColumn("End", format="YYYY-MM-DD HH:mm"),
-        "lost_kwh": st.column_config.NumberColumn("Lost energy [kWh]", format="%.1f")})
+    t = ui.with_display_times(flags, sel)
+    t = t[["flag_id", "device_label", "kind_label", "severity_label", "start_text", "end_text",
+           "duration_text", "lost_kwh"]]
+    st.dataframe(ui.clean_frame(t), hide_index=True, key="dd_flags", column_config={
+        "flag_id": st.column_config.NumberColumn("Flag", format="%d", width="small"),
+        "device_label": st.column_config.TextColumn("Device", width="small"),
+        "kind_label": st.column_config.TextColumn("What", width="medium"),
+        "severity_label": st.column_config.TextColumn("Severity", width="small"),
+        "start_text": st.column_config.TextColumn(f"Start ({ui.time_basis(short=True)})",
+                                                  width="medium"),
+        "end_text": st.column_config.TextColumn("End", width="medium"),
+        "duration_text": st.column_config.TextColumn("Duration", width="medium"),
+        "lost_kwh": st.column_config.NumberColumn("Lost energy [kWh]", format="localized",
+                                                  width="small")})
+    if not highlight and (flags["severity"] != "info").any():
+        ui.field_caution()

@@ -9,7 +9,11 @@ url, site_id = sel["url"], sel["site_id"]
 st.title("Data quality")
 
 comp = data.completeness(url, site_id, sel["start"], sel["end"])
-st.plotly_chart(charts.completeness_heatmap(comp), theme=None, key="completeness")
+period = data.heat_period(sel["start"], sel["end"])
+if period != "day":  # one column per week or month over long ranges (mean of the days)
+    comp = data.aggregate_columns(comp, period)
+st.plotly_chart(charts.completeness_heatmap(comp, period=period), theme=None,
+                key="completeness")
 st.caption(f"Share of the day's {data.interval_s(url, site_id) // 60}-minute intervals with a "
            "reading, per device (inverters: intervals with a power or energy reading; sensors: "
            "per quantity). Loggers that stop at night show about half; a dark cell in an "
@@ -24,13 +28,20 @@ else:
         st.page_link(ui.PAGES["drilldown"], icon=":material/zoom_in:",
                      label=data.flag_label(f),
                      query_params={"flag": str(f.flag_id)})
-    st.dataframe(sf[["flag_id", "device_id", "kind", "severity", "start_local", "end_local",
-                     "details_json"]], hide_index=True, key="sensor_flags", column_config={
-        "flag_id": st.column_config.NumberColumn("Flag", format="%d"), "device_id": "Device",
-        "kind": "Kind", "severity": "Severity",
-        "start_local": st.column_config.DatetimeColumn("Start", format="YYYY-MM-DD HH:mm"),
-        "end_local": st.column_config.DatetimeColumn("End", format="YYYY-MM-DD HH:mm"),
-        "details_json": "Details"})
+    t = ui.with_display_times(sf, sel)
+    st.dataframe(ui.clean_frame(t[["flag_id", "device_label", "kind_label", "severity_label",
+                                   "start_text", "end_text", "duration_text"]]),
+                 hide_index=True, key="sensor_flags", column_config={
+        "flag_id": st.column_config.NumberColumn("Flag", format="%d", width="small"),
+        "device_label": st.column_config.TextColumn("Device", width="small"),
+        "kind_label": st.column_config.TextColumn("What", width="medium"),
+        "severity_label": st.column_config.TextColumn("Severity", width="small"),
+        "start_text": st.column_config.TextColumn(f"Start ({ui.time_basis(short=True)})",
+                                                  width="medium"),
+        "end_text": st.column_config.TextColumn("End", width="medium"),
+        "duration_text": st.column_config.TextColumn("Duration", width="small")})
+    st.caption("Open a flag for its evidence (and, for a shifted logger clock, the correction "
+               "to paste into the site configuration).")
     ui.field_caution()
 
 st.subheader("Ingest log")
@@ -48,14 +59,14 @@ else:
                      "line was loaded.")
     m[4].metric("Failed files", f"{int((log['status'] == 'failed').sum())}")
     st.plotly_chart(charts.ingest_bars(log), theme=None, key="ingest_bars")
-    st.dataframe(log[["batch_id", "status", "source_name", "file_name", "sha256", "size_bytes",
+    st.dataframe(ui.clean_frame(log[["batch_id", "status", "source_name", "file_name", "sha256", "size_bytes",
                       "rows_read", "rows_loaded", "rows_duplicate", "rows_rejected",
                       "values_rejected", "values_conflict", "interval_s", "started_utc",
-                      "message"]],
+                      "message"]]),
                  hide_index=True, key="ingest_table", column_config={
         "batch_id": st.column_config.NumberColumn("Batch", format="%d"), "status": "Status",
         "source_name": "Source", "file_name": "File", "sha256": "SHA-256",
-        "size_bytes": st.column_config.NumberColumn("Size [bytes]", format="%d"),
+        "size_bytes": st.column_config.NumberColumn("Size [bytes]", format="localized"),
         "rows_read": "Rows read", "rows_loaded": "Loaded", "rows_duplicate": "Duplicate",
         "rows_rejected": "Rows rejected", "values_rejected": "Values rejected",
         "values_conflict": "Conflicting values",

@@ -1,7 +1,9 @@
 """Inverter trends: daily temperature-corrected PR of chosen inverters over their peers."""
 
+import pandas as pd
 import streamlit as st
 
+from analytics.labels import CAVEAT_LABELS, RELATIVE_METHODS, kind_label, method_label
 from dashboard import charts, data, ui
 
 sel = ui.selection()
@@ -24,8 +26,12 @@ period = c2.radio("Period", ["Full history", "Selected date range"], horizontal=
 results = data.degradation_table(url, site_id)
 rates = data.rates_only(results).dropna(subset=["rate_pct_per_yr"])
 methods = sorted(rates["method"].unique(), key=lambda m: (m != "sensor_year_pairs", m))
-method = c3.selectbox("Degradation fit", ["(none)", *methods], key="trend_method",
-                      index=1 if methods else 0)
+methods = [m for m in methods if m not in RELATIVE_METHODS]  # not rates of the plant
+REC = "recommended"
+method = c3.selectbox("Degradation fit", [REC, "(none)", *methods], key="trend_method",
+                      index=0,
+                      format_func=lambda m: "none" if m == "(none)" else
+                      "recommended rate of each inverter" if m == REC else method_label(m))
 
 start, end = ((None, None) if period == "Full history" else (sel["start"], sel["end"]))
 chosen, peers = data.pr_trend(url, site_id, tuple(chosen_ids), start, end)
@@ -36,15 +42,23 @@ mine = flags[flags["device_id"].isin(chosen_ids)] if flags is not None else None
 # mark days of warnings and alarms (info flags such as clipping would cover everything)
 serious = mine[mine["severity"] != "info"] if mine is not None else None
 flagged = data.flagged_days(chosen, serious, sel["offset_s"]) if serious is not None else None
+if flagged is not None and not flagged.empty:
+    flagged = flagged.assign(kind=[kind_label(k) for k in flagged["kind"]])
 soiling = (flags[flags["kind"].str.contains(data.SOILING_KIND, case=False, na=False)
                  & (flags["device_id"].isin(chosen_ids) | flags["device_id"].isna())]
            if flags is not None else None)
-fits = {}
+fits, used, caveats = {}, {}, {}
 if method != "(none)":
     for dev in chosen_ids:
-        f = data.degradation_fit_line(chosen, results, dev, method)
+        m = method
+        if method == REC:
+            rec = data.recommended(results, dev)
+            m = rec["method"] if rec else None
+            caveats[dev] = rec["caveats"] if rec else []
+        f = data.degradation_fit_line(chosen, results, dev, m) if m else None
         if f is not None:
-            fits[f"{dev} {method} fit"] = f
+            used[dev] = m
+            fits[f"{dev} fit: {method_label(m)}"] = f
 st.plotly_chart(charts.pr_trend(chosen, peers, flagged, soiling, fits), theme=None,
                 key="trend_chart")
 st.caption(f"Dots: daily PR_STC on valid days; lines: centred {data.ROLLING_DAYS}-day rolling "
@@ -54,15 +68,23 @@ st.caption(f"Dots: daily PR_STC on valid days; lines: centred {data.ROLLING_DAYS
            "with the rate's confidence interval as the band.")
 
 if fits:
-    r = results[results["device_id"].isin(chosen_ids) & (results["method"] == method)]
-    st.dataframe(r[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
-                    "confidence", "n_points"]], hide_index=True, column_config={
+    r = pd.concat([results[(results["device_id"] == d) & (results["method"] == m)]
+                   for d, m in used.items()]).copy()
+    r["method"] = r["method"].map(method_label)
+    st.dataframe(ui.clean_frame(r[["device_id", "method", "rate_pct_per_yr", "ci_low", "ci_high",
+                                   "confidence", "n_points"]],
+                                {"rate_pct_per_yr": "+.2f", "ci_low": "+.2f", "ci_high": "+.2f"}),
+                 hide_index=True, column_config={
         "device_id": "Inverter", "method": "Method",
         "rate_pct_per_yr": st.column_config.NumberColumn("Rd [%/yr]", format="%+.2f"),
         "ci_low": st.column_config.NumberColumn("CI low [%/yr]", format="%+.2f"),
         "ci_high": st.column_config.NumberColumn("CI high [%/yr]", format="%+.2f"),
         "confidence": st.column_config.NumberColumn("Confidence", format="%.2f"),
         "n_points": st.column_config.NumberColumn("Points", format="%d")})
+for dev, cavs in caveats.items():
+    for c in cavs:
+        st.warning(f"**{dev} — {CAVEAT_LABELS.get(c.get('kind'), 'Caveat')}.** "
+                   f"{c.get('text', '')}", icon=":material/warning:")
 if mine is not None and not mine.empty:
     st.subheader("Flags of these inverters")
     for f in mine.head(12).itertuples():

@@ -6,9 +6,13 @@ config's ``[[sources]]`` entry: ``encoding`` (UTF-8 with or without BOM, UTF-16,
 ``delimiter``, ``decimal``, ``skip_lines`` before the header line, an optional ``unit_row``
 after it, and ``missing_values`` tokens. Gzip is recognised by its magic bytes, not the name.
 
-Line numbers are physical lines of the file (1-based), so an error points at the line a
-user sees in an editor. One record per line: quoted fields may hold the delimiter but not a
-line break. Blank lines are skipped and are not rows.
+Line numbers are physical lines of the file (1-based, ending at LF), so an error points at
+the line a user sees in an editor. One record per line: quoted fields may hold the delimiter
+but not a line break; a quote that does not close within its line, a carriage return inside a
+line or a field longer than the csv module's limit rejects that line alone. Blank lines
+(white space only, including form feed and no-break space) are not rows; they are counted.
+Every physical line is accounted for: ``data_line`` lines before the data, then rows
+(loaded, duplicate or rejected) and blank lines.
 
 Timestamps are returned as text; :mod:`ingest.timestamps` interprets them (whether the logger
 stamps the interval start or end is the source's ``timestamp.label``).
@@ -58,6 +62,9 @@ class ExportMeta:
     compressed: bool = False
     encoding: str = "utf-8"
     long_index: dict[str, int] = field(default_factory=dict)  # long layout: role -> position
+    data_line: int = 0  # physical lines before the first data line (skipped, header, unit row)
+    lines_read: int = 0  # physical lines read so far
+    blank_lines: int = 0  # blank (white-space only) data lines: not rows
 
 
 @dataclass
@@ -94,7 +101,7 @@ def read_export(path: str | os.PathLike, source: Source, chunk_rows: int | None 
     if _ascii_compatible(encoding):
         text = _BinaryLines(binary, encoding)  # decodes line by line: exact error lines
     else:  # UTF-16/32: line breaks are not single bytes
-        text = io.TextIOWrapper(binary, encoding=encoding, newline=None)
+        text = io.TextIOWrapper(binary, encoding=encoding, newline="\n")  # lines end at LF only
     meta, chunks = _parse(text, source, path, chunk_rows=chunk_rows,
                           position=fb.tell, on_close=fb.close, sniff=_sniff(path, compressed))
     meta.compressed = compressed
@@ -148,11 +155,25 @@ class _BinaryLines:
 
 
 def _sniff(path: str, compressed: bool) -> bytes:
-    with (gzip.open if compressed else open)(path, "rb") as f:
-        try:
+    try:
+        with (gzip.open if compressed else open)(path, "rb") as f:
             return f.read(4)
-        except OSError:
-            return b""
+    except (OSError, EOFError, zlib.error):  # damaged gzip: reading the file reports it
+        return b""
+
+
+def _decode_error(path: str, line: int, source: Source, exc: UnicodeError, sniff: bytes,
+                  exact: bool = True) -> IngestError:
+    if isinstance(exc, UnicodeDecodeError):
+        what = (f"cannot be decoded as {source.encoding} ({exc.reason}, byte "
+                f"{exc.object[exc.start:exc.start + 1]!r})" + ("" if exact else " at or after this line"))
+    else:  # e.g. "UTF-16 stream does not start with BOM"
+        what = f"cannot be decoded as {source.encoding}: {exc}"
+    hint = _decode_hint(source, sniff)
+    if "BOM" in str(exc):
+        hint = ('the file has no byte-order mark: set encoding = "utf-16-le" (or "utf-16-be") '
+                "in its [[sources]] entry")
+    return IngestError(path, line, None, what, hint)
 
 
 def _decode_hint(source: Source, head: bytes) -> str:
@@ -164,8 +185,38 @@ def _decode_hint(source: Source, head: bytes) -> str:
     return "set encoding in its [[sources]] entry to the encoding the logger writes"
 
 
+def _why(exc: BaseException) -> str:
+    text = str(exc) or type(exc).__name__
+    if isinstance(exc, EOFError):
+        return f"the file ends early ({text})"
+    return text
+
+
+def split_line(line: str, delimiter: str) -> tuple[list[str] | None, str | None]:
+    """The fields of one physical line, or (None, why it cannot be split).
+
+    A quoted field must close within the line: a record never continues on the next line,
+    so a stray quote costs one rejected line, never the lines after it.
+    """
+    if '"' not in line and "\r" not in line:
+        return line.split(delimiter), None
+    try:
+        return next(csv.reader([line], delimiter=delimiter, strict=True), []), None
+    except csv.Error as exc:
+        msg = str(exc)
+        if "field larger than field limit" in msg:
+            return None, f"a field is longer than {csv.field_size_limit()} characters"
+        if "new-line character" in msg:
+            return None, "a carriage return (CR) inside the line"
+        if "unexpected end of data" in msg or "EOF" in msg:
+            return None, "a quote (\") opens a field that does not close within the line"
+        return None, f"the line cannot be split into fields ({msg})"
+
+
 def _split(line: str, delimiter: str) -> list[str]:
-    return next(csv.reader([line], delimiter=delimiter), [])
+    """Fields of a line; a line csv cannot split is split at every delimiter."""
+    fields, _why_not = split_line(line, delimiter)
+    return fields if fields is not None else line.split(delimiter)
 
 
 def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: int | None = None,
@@ -178,13 +229,10 @@ def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: i
         try:
             s = buf.readline()
         except (EOFError, OSError, zlib.error) as exc:
-            raise IngestError(path, lineno + 1, None, f"cannot be read: {exc}",
+            raise IngestError(path, lineno + 1, None, f"cannot be read: {_why(exc)}",
                               "the file may be truncated or damaged; export it again") from None
-        except UnicodeDecodeError as exc:
-            raise IngestError(path, getattr(buf, "n", lineno) + 1, None,
-                              f"cannot be decoded as {source.encoding} ({exc.reason}, byte "
-                              f"{exc.object[exc.start:exc.start + 1]!r})",
-                              _decode_hint(source, sniff)) from None
+        except UnicodeError as exc:
+            raise _decode_error(path, getattr(buf, "n", lineno) + 1, source, exc, sniff) from None
         if s:
             lineno += 1
         return s
@@ -201,7 +249,10 @@ def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: i
         if not head:
             raise IngestError(path, lineno or 1, None, "file is empty: expected a header line")
         header_line = lineno
-        header = [h.strip().lstrip("\ufeff") for h in _split(head.rstrip("\r\n"), source.delimiter)]
+        fields, why = split_line(head.rstrip("\r\n"), source.delimiter)
+        if fields is None:
+            raise IngestError(path, header_line, None, f"header line: {why}")
+        header = [h.strip().lstrip("\ufeff") for h in fields]
         units_row: list[str] = []
         if source.unit_row:
             u = readline()
@@ -212,6 +263,7 @@ def _parse(buf: TextIO, source: Source, path: str = "<buffer>", *, chunk_rows: i
             on_close()
         raise
     meta.encoding = source.encoding
+    meta.data_line = meta.lines_read = lineno
     if chunk_rows is None:
         chunk_rows = min(50_000, max(500, CHUNK_VALUES // max(1, len(meta.columns) or 1)))
     return meta, _chunks(buf, source, path, meta, lineno, chunk_rows, position, on_close, sniff)
@@ -281,7 +333,9 @@ def _list(names: list[str], limit: int = 12) -> str:
     return shown + (f" and {len(names) - limit} more" if len(names) > limit else "")
 
 
-_BLANK = re.compile(r"^[ \t\r]*$", re.M)
+#: A blank line: nothing but white space (str.isspace: spaces, tabs, CR, form feed, vertical
+#: tab, no-break space, ...). Blank lines are not rows; they are counted (``meta.blank_lines``).
+_BLANK = re.compile(r"^[^\S\n]*$", re.M)
 
 
 class _Lines:
@@ -314,21 +368,19 @@ def _chunks(buf: TextIO, source: Source, path: str, meta: ExportMeta, lineno: in
             try:
                 block, nlines = _read_block(buf, chunk_rows)
             except (EOFError, OSError, zlib.error) as exc:
-                raise IngestError(path, lineno + 1, None, f"cannot be read: {exc}",
+                raise IngestError(path, lineno + 1, None, f"cannot be read: {_why(exc)}",
                                   "the file may be truncated or damaged; export it again") from None
-            except UnicodeDecodeError as exc:
+            except UnicodeError as exc:
                 exact = getattr(buf, "n", None)
-                raise IngestError(path, (exact if exact is not None else lineno) + 1, None,
-                                  f"cannot be decoded as {source.encoding} ({exc.reason}, byte "
-                                  f"{exc.object[exc.start:exc.start + 1]!r})"
-                                  + ("" if exact is not None else " at or after this line"),
-                                  _decode_hint(source, sniff)) from None
+                raise _decode_error(path, (exact if exact is not None else lineno) + 1, source,
+                                    exc, sniff, exact is not None) from None
             if not nlines:
                 return
             first = lineno + 1
             lineno += nlines
             if not block.endswith("\n"):
                 block += "\n"
+            meta.lines_read = lineno
             if _BLANK.search(block[:-1]) is None:
                 line_no = first + np.arange(nlines, dtype=np.int64)
                 chunk = _fast(block, nlines, source, meta, ncols)
@@ -338,6 +390,7 @@ def _chunks(buf: TextIO, source: Source, path: str, meta: ExportMeta, lineno: in
             else:  # blank lines are not rows: drop them, keep the physical line numbers
                 raw = block[:-1].split("\n")
                 keep = [i for i, x in enumerate(raw) if x.strip()]
+                meta.blank_lines += len(raw) - len(keep)
                 if not keep:
                     continue
                 text = [raw[i].rstrip("\r") for i in keep]
@@ -359,6 +412,18 @@ def _value_positions(meta: ExportMeta) -> list[int]:
     return [meta.long_index["value"]] if meta.long_index else meta.col_index
 
 
+_NAN = re.compile(r"(?i)(?<![^\s,;|\"])[+-]?nan(?![^\s,;|\"])")
+_EMPTY_FIELD = {d: re.compile(rf"(?:^|{re.escape(d)})[ ]*(?:{re.escape(d)}|\r?$)", re.M)
+                for d in (",", ";", "\t", "|")}
+
+
+def _nan_spellings(block: str, delimiter: str) -> set[str]:
+    """Whole fields spelling NaN in any case (``nan``, ``NAN``, ``-nan``), as written."""
+    if "n" not in block and "N" not in block:
+        return set()
+    return {m.group(0) for m in _NAN.finditer(block)}
+
+
 def _fast(block: str, nlines: int, source: Source, meta: ExportMeta, ncols: int) -> Chunk | None:
     """pandas C parser straight to float64. Field counts: the total delimiter count must be
     (columns − 1) × lines, and pandas raises on a line with too many fields, so together no
@@ -366,6 +431,10 @@ def _fast(block: str, nlines: int, source: Source, meta: ExportMeta, ncols: int)
     d = source.delimiter
     if block.count(d) != (ncols - 1) * nlines:
         return None
+    if _nan_spellings(block, d) - set(source.missing_values):
+        return None  # a NaN spelling that is not a configured missing value: reject it cell by cell
+    if "" not in source.missing_values and _EMPTY_FIELD[d].search(block):
+        return None  # an empty field is not "missing" unless configured so
     vpos = _value_positions(meta)
     str_pos = [meta.ts_index] + [p for r, p in meta.long_index.items() if r != "value"]
     dtype = {p: "float64" for p in vpos} | {p: object for p in str_pos}
@@ -389,15 +458,17 @@ def _fast(block: str, nlines: int, source: Source, meta: ExportMeta, ncols: int)
 
 def _slow(text: list[str], source: Source, meta: ExportMeta, ncols: int) -> Chunk:
     vpos = _value_positions(meta)
-    rows = list(csv.reader(text, delimiter=source.delimiter))
-    n = len(rows)
+    n = len(text)
     bad_rows: dict[int, str] = {}
     cells = np.full((n, ncols), "", dtype=object)
-    for r, row in enumerate(rows):
-        if len(row) != ncols:
+    for r, line in enumerate(text):  # one physical line at a time: nothing spans lines
+        row, why = split_line(line, source.delimiter)
+        if row is None:
+            bad_rows[r] = why
+        elif len(row) != ncols:
             bad_rows[r] = f"line has {len(row)} fields, the header has {ncols}"
-            continue
-        cells[r] = row
+        else:
+            cells[r] = row
     values = np.full((n, len(vpos)), np.nan)
     bad_cells: list[tuple[int, int, str, str]] = []
     missing = set(source.missing_values)
@@ -413,7 +484,7 @@ def _slow(text: list[str], source: Source, meta: ExportMeta, ncols: int) -> Chun
             norm[has_dot] = "x"  # a '.' where ',' is the decimal separator is an error
         num = pd.to_numeric(pd.Series(norm, dtype=object).where(~is_missing, None),
                             errors="coerce").to_numpy(dtype=np.float64, copy=True)
-        bad = ~is_missing & np.isnan(num) & ~np.array([s.lower() == "nan" for s in stripped])
+        bad = ~is_missing & np.isnan(num)  # NaN spellings count as missing only if configured
         for r in bad_rows:
             bad[r] = False
         num[bad] = np.nan

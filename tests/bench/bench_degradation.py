@@ -10,12 +10,17 @@ the interval-level clear-period detection is timed separately for one site), plu
 Baseline from the same run: one ordinary least-squares line per inverter (numpy.polyfit).
 The methods run in the job's process pool (``HELIAUDIT_WORKERS``, default 2 on this machine)
 and once more in one process; CPU time includes the workers.
-Run by hand: ``python tests/bench/bench_degradation.py [n_inverters] [years] [n_resamples]``.
+Run by hand: ``python tests/bench/bench_degradation.py [n_inverters] [years] [n_resamples]
+[--before SRC]``. ``--before SRC`` first runs the same benchmark of another checkout (e.g. a
+clone of the previous main) in a child process and prints the ratio of the two all-methods
+wall times, so a change is judged against "today's" code measured in the same run.
 """
 
 from __future__ import annotations
 
+import re
 import resource
+import subprocess
 import sys
 import time
 import warnings
@@ -55,7 +60,9 @@ def run_all(pis, weights, clear, p, workers: int | None = None) -> int:
                       rng_key=len(pis)))
     out = methods_many(tasks, workers=workers)
     return sum(all(r.rate_pct_per_yr is not None for m, r in res.items()
-                   if m != "sensor_year_pairs_between_shifts") for res, _ in out[:-1])
+                   if m not in ("sensor_year_pairs_between_shifts",  # no shift: refused
+                                "sensor_year_pairs_unsoiled"))  # no soiling: refused
+               for res, _ in out[:-1])
 
 
 def _cpu() -> float:
@@ -101,6 +108,11 @@ def main(n: int = 100, years: float = 5.0, n_resamples: int | None = None) -> No
     print(f"ratio all-methods / baseline: {t_all / t_base:.0f}x wall, {c_one / c_base:.0f}x CPU "
           f"(one process); target <= 10 s wall: {'met' if t_all <= 10 else 'NOT met'}")
     # interval-level clear-period detection, one 10-inverter site, 1 year of 30-min data
+    _clearsky_timing()
+    return t_all, c_one
+
+
+def _clearsky_timing() -> None:
     t0 = time.perf_counter()
     site = interval_site(years=1, rates_pct_per_yr=(-0.5,) * 10, seed=2)
     t_gen = time.perf_counter() - t0
@@ -116,7 +128,30 @@ def main(n: int = 100, years: float = 5.0, n_resamples: int | None = None) -> No
           f"{t_cs:.2f} s (clear-sky POA modelling for the generator: {t_gen:.2f} s)")
 
 
+def before(src: str, argv: list[str]) -> tuple[float, float] | None:
+    """Run ``src``'s own copy of this benchmark in a child process (its code on PYTHONPATH);
+    return its (all-methods wall, one-process CPU) seconds."""
+    script = Path(src) / "tests" / "bench" / "bench_degradation.py"
+    out = subprocess.run([sys.executable, str(script), *argv], capture_output=True, text=True,
+                         env={**__import__("os").environ, "PYTHONPATH": str(src)}, check=False,
+                         cwd=src)
+    print("before (" + src + "):\n  " + "\n  ".join(out.stdout.strip().splitlines()))
+    m = re.search(r"process\(es\): ([\d.]+) s", out.stdout)
+    c = re.search(r"one process: [\d.]+ s wall, ([\d.]+) s CPU", out.stdout)
+    return (float(m.group(1)), float(c.group(1))) if m and c else None
+
+
 if __name__ == "__main__":
-    args = [float(a) for a in sys.argv[1:]]
-    main(int(args[0]) if args else 100, args[1] if len(args) > 1 else 5.0,
-         int(args[2]) if len(args) > 2 else None)
+    argv = sys.argv[1:]
+    src = None
+    if "--before" in argv:
+        k = argv.index("--before")
+        src = argv[k + 1]
+        argv = argv[:k] + argv[k + 2:]
+    args = [float(a) for a in argv]
+    prev = before(src, argv) if src else None
+    now = main(int(args[0]) if args else 100, args[1] if len(args) > 1 else 5.0,
+               int(args[2]) if len(args) > 2 else None)
+    if prev:
+        print(f"after / before: {now[0] / prev[0]:.2f}x wall (pool), {now[1] / prev[1]:.2f}x CPU "
+              f"(one process); target <= 1.5x")
