@@ -61,6 +61,7 @@ def run_all(pis, weights, clear, p, workers: int | None = None) -> int:
     out = methods_many(tasks, workers=workers)
     return sum(all(r.rate_pct_per_yr is not None for m, r in res.items()
                    if m not in ("sensor_year_pairs_between_shifts",  # no shift: refused
+                                "modelled_sky_between_shifts",
                                 "sensor_year_pairs_unsoiled"))  # no soiling: refused
                for res, _ in out[:-1])
 
