@@ -145,8 +145,8 @@ def build_fleet_db(path: Path, n_inverters: int = 100, years: int = 5, reading_d
     def add(dev_pk, qty, values):
         nonlocal ch
         ch += 1
-        con.execute("INSERT INTO channel VALUES (?,?,?)", (ch, dev_pk, qty))
-        con.executemany("INSERT INTO reading VALUES (?,?,?,1)",
+        con.execute("INSERT INTO channel (channel_id, device_pk, quantity) VALUES (?,?,?)", (ch, dev_pk, qty))
+        con.executemany("INSERT INTO reading (channel_id, ts_s, value, batch_id) VALUES (?,?,?,1)",
                         zip([ch] * len(ts), ts.tolist(), np.round(values, 4).tolist(),
                             strict=True))
 
