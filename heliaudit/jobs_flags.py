@@ -1026,6 +1026,24 @@ def _arrays_by_inverter(cfg: dict) -> dict[str, list[dict]]:
     return out
 
 
+def _resolved_arrays(config_toml: str | None, raw: dict[str, list[dict]]) -> dict[str, list[dict]]:
+    """Every inverter's arrays as the site model resolves them (named ``[[planes]]``, an
+    inverter's own ``plane``, inline tilt/azimuth, the site plane as default): id, kWp and the
+    fixed plane's tilt/azimuth (None for a tracker, whose plane moves). Falls back to the raw
+    ``arrays`` tables when the stored configuration no longer parses."""
+    from ingest.config import ConfigError, parse_site_config
+
+    try:
+        cfg = parse_site_config(config_toml or "", "<stored configuration>")
+    except (ConfigError, ValueError):
+        return raw
+    return {str(inv.id): [{"id": a.id, "p_dc_kwp": a.p_dc_kwp,
+                           "tilt_deg": None if a.plane.is_tracker else a.plane.tilt_deg,
+                           "azimuth_deg": None if a.plane.is_tracker else a.plane.azimuth_deg}
+                          for a in inv.arrays]
+            for inv in cfg.inverters}
+
+
 def _with_planes(inverters: pd.DataFrame, arrays: dict[str, list[dict]]) -> pd.DataFrame:
     """Inverter rows with ``tilt_deg``/``azimuth_deg`` where all of an inverter's arrays lie
     on one plane (the clock check then uses that plane)."""
@@ -1115,7 +1133,7 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
                 ts, v, iv = read_channel(conn, ch, with_interval=True)
                 if ts.size:
                     counters[dev] = (ts, v, fill_unknown_intervals(ts, iv))
-    arrays = _arrays_by_inverter(cfg)
+    arrays = _resolved_arrays(site.get("config_toml"), _arrays_by_inverter(cfg))
     flags = compute_flags(site, _with_planes(inverters, arrays),
                           inverter_frames(engine, site_id), sensors, daily,
                           economics=economics, sources=_sources_by_device(cfg),

@@ -244,3 +244,24 @@ def test_merge_shared_flags_logger_gap():
     assert site["kind"] == "data_dropout"  # a logger gap: information unavailable
     assert "logger" in site["details"]["probable_cause"]
     assert list(out.loc[out["device_id"].notna(), "device_id"]) == ["inv3"]
+
+
+def test_clock_check_gets_each_inverters_plane_from_the_site_model():
+    """Named planes and an inverter's own plane reach the flags (issue #11/#14): on the
+    invented Fernhollow site B1 lies on the 10° south-east plane, C1 on a tracker and D1 on two
+    planes; reading only raw [[inverters.arrays]] tables used to give them the site plane."""
+    import tomllib
+    from pathlib import Path
+
+    from heliaudit.jobs_flags import _arrays_by_inverter, _resolved_arrays, _with_planes
+
+    text = (Path(__file__).resolve().parents[1] / "sample_scada" / "fernhollow"
+            / "fernhollow.toml").read_text(encoding="utf-8")
+    raw = _arrays_by_inverter(tomllib.loads(text))
+    assert "B1" not in raw  # the old reading: B1 fell back to the site's 30° south plane
+    arrays = _resolved_arrays(text, raw)
+    planes = _with_planes(pd.DataFrame({"device_id": ["A1", "B1", "C1", "D1"]}), arrays)
+    got = {r.device_id: (r.tilt_deg, r.azimuth_deg) for r in planes.itertuples()}
+    assert got["A1"] == (30.0, 180.0) and got["B1"] == (10.0, 135.0)  # fernhollow.toml planes
+    assert all(pd.isna(x) for x in got["C1"] + got["D1"])  # a tracker; two planes: no plane
+    assert _resolved_arrays("not = [valid", raw) is raw  # unparsable: the raw tables
