@@ -51,6 +51,7 @@ from analytics import clearsky as acs
 from analytics import degradation as adeg
 from analytics import warranty as awar
 from analytics.daily import standard_utc_offset_h
+from analytics.reporting import shortfall_from_rate
 from db import queries
 from db.computations import begin_computation
 from db.daily import daily_table
@@ -368,6 +369,15 @@ def methods_many(tasks: list[dict], *, workers: int | None = None,
     return out
 
 
+#: What the two shortfall figures of a warranty block count (results JSON, issue #15).
+SHORTFALL_NOTE = ("shortfall_from_rate_kwh counts only what the measured (recommended) rate "
+                  "attributes to degradation: energy below the warranted envelope of the straight "
+                  "line of that rate from 100 % at the warranty start. shortfall_kwh counts every "
+                  "month whose de-seasonalised index is below the envelope, including soiling dips, "
+                  "outages, weather and level steps from failures: it is not evidence of "
+                  "degradation.")
+
+
 def _warranty_block(rate: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Series,
                     terms: dict | None, commissioned, p: dict) -> dict:
     if terms is None:
@@ -393,8 +403,18 @@ def _warranty_block(rate: adeg.RateResult, s: pd.Series, weights, e_ac: pd.Serie
                                  first_year_loss_pct=terms["first_year_loss_pct"],
                                  annual_loss_pct=terms["annual_loss_pct"], term_years=terms["years"],
                                  rate_pct_per_yr=rate.rate_pct_per_yr)
-    return {**test, "measured_method": chosen, "method": chosen, "terms": terms, "envelope": env["months"],
-            "shortfall_kwh": env["shortfall_kwh"], "months_below": env["months_below"],
+    # the part of the shortfall the chosen rate attributes to degradation (issue #15): the
+    # monthly figure also counts soiling dips, outages and weather, which are not evidence
+    months = env["months"]
+    from_rate = None
+    if months:
+        e_at = m_e.reindex(pd.DatetimeIndex([f"{m['month']}-01" for m in months])).to_numpy()
+        from_rate = round(shortfall_from_rate([m["years"] for m in months], e_at,
+                                              [m["warranted"] for m in months],
+                                              rate.rate_pct_per_yr), 3)
+    return {**test, "measured_method": chosen, "method": chosen, "terms": terms, "envelope": months,
+            "shortfall_kwh": env["shortfall_kwh"], "shortfall_from_rate_kwh": from_rate,
+            "shortfall_note": SHORTFALL_NOTE, "months_below": env["months_below"],
             "baseline": env.get("baseline"), "disclaimer": awar.DISCLAIMER}
 
 

@@ -161,6 +161,20 @@ def test_results_json_document(store):
     w4 = inv["INV04"]["warranty"]
     assert w4["exceeds"] is True and w4["warranted_rate_pct_per_yr"] == -0.55
     assert "Screening evidence" in w4["disclaimer"] and w4["shortfall_kwh"] >= 0
+    # shortfall from the rate (issue #15): the straight line of the rate, F = 1 + R t / 100,
+    # falls below the warranted envelope (98 % after year 0, then -0.55 %/yr) once
+    # R t < -2 + ... : at about -2.2 %/yr that is within the first year, so INV04 has one;
+    # an inverter degrading slower than warranted (R > -0.55 %/yr with F(0) = 1 > 0.98) has
+    # none, whatever its monthly dips below the envelope add up to
+    assert w4["shortfall_from_rate_kwh"] > 0 and "not evidence" in w4["shortfall_note"]
+    checked = 0
+    for b in inv.values():
+        w = b["warranty"]
+        rate = w.get("measured_rate_pct_per_yr")
+        if rate is not None and rate > -0.55 and w.get("envelope"):
+            assert w["shortfall_from_rate_kwh"] == 0.0, b["device_id"]
+            checked += 1
+    assert checked, "no inverter degrading slower than warranted to check"
     assert doc["site_result"]["degradation"]["sensor_year_pairs"]["rate_pct_per_yr"] is not None
     # the recommended block (contract, issue #13): its rate is the chosen method's, the
     # warranty names it, the overview's key says which it is
