@@ -975,9 +975,12 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
     sensor = f"POA sensor {sensor_id}" if sensor_id else "the POA sensor"
     if drift and drift.get("judged"):
         d = drift.get("drift_pct_per_yr")
-        text = (f"{sensor} drifts by about {d:+.2f} %/yr against the modelled clear sky "
-                f"({_lbl(DRIFT_CHECK)}); the sensor-based rates ({_lbl(YEAR_PAIRS)} and the others) are "
-                "shifted by about that much: check the sensor's calibration")
+        # d is the rate of (sensor-based index / clear-sky index) ~ G_clearsky / G_sensor:
+        # positive when the sensor reads lower year by year (sensor_clearsky_drift)
+        text = (f"{sensor} reads about {abs(d):.2f} % {'lower' if d > 0 else 'higher'} each "
+                f"year against the modelled clear sky ({_lbl(DRIFT_CHECK)}), so the sensor-based "
+                f"rates ({_lbl(YEAR_PAIRS)} and the others) are shifted by about {d:+.2f} %/yr: "
+                "check the sensor's calibration")
         caveats.append({"kind": "sensor_drift", "method": YEAR_PAIRS, "text": text})
         if shifts and have(SKY_BETWEEN_SHIFTS):
             chosen = SKY_BETWEEN_SHIFTS
