@@ -83,6 +83,21 @@ def with_display_times(t: pd.DataFrame, sel: dict) -> pd.DataFrame:
     return t
 
 
+def flag_columns(duration_width: str = "medium") -> dict:
+    """Column settings shared by every page's flag table (flag id, device, what, severity,
+    start in the chosen time basis, end, duration); a page adds its own columns."""
+    col = st.column_config
+    return {
+        "flag_id": col.NumberColumn("Flag", format="%d", width="small"),
+        "device_label": col.TextColumn("Device", width="small"),
+        "kind_label": col.TextColumn("What", width="medium"),
+        "severity_label": col.TextColumn("Severity", width="small"),
+        "start_text": col.TextColumn(f"Start ({time_basis(short=True)})", width="medium"),
+        "end_text": col.TextColumn("End", width="medium"),
+        "duration_text": col.TextColumn("Duration", width=duration_width),
+    }
+
+
 def clean_frame(df: pd.DataFrame, formats: dict | None = None) -> pd.DataFrame:
     """A frame ready for ``st.dataframe``: no "None" cells (missing text becomes "–",
     missing numbers in a column become text "–" with the others formatted by ``formats``

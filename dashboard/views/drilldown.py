@@ -152,14 +152,7 @@ if not flags.empty:
     t = t[["flag_id", "device_label", "kind_label", "severity_label", "start_text", "end_text",
            "duration_text", "lost_kwh"]]
     st.dataframe(ui.clean_frame(t), hide_index=True, key="dd_flags", column_config={
-        "flag_id": st.column_config.NumberColumn("Flag", format="%d", width="small"),
-        "device_label": st.column_config.TextColumn("Device", width="small"),
-        "kind_label": st.column_config.TextColumn("What", width="medium"),
-        "severity_label": st.column_config.TextColumn("Severity", width="small"),
-        "start_text": st.column_config.TextColumn(f"Start ({ui.time_basis(short=True)})",
-                                                  width="medium"),
-        "end_text": st.column_config.TextColumn("End", width="medium"),
-        "duration_text": st.column_config.TextColumn("Duration", width="medium"),
+        **ui.flag_columns(),
         "lost_kwh": st.column_config.NumberColumn("Lost energy [kWh]", format="localized",
                                                   width="small")})
     if not highlight and (flags["severity"] != "info").any():

@@ -31,15 +31,8 @@ else:
     t = ui.with_display_times(sf, sel)
     st.dataframe(ui.clean_frame(t[["flag_id", "device_label", "kind_label", "severity_label",
                                    "start_text", "end_text", "duration_text"]]),
-                 hide_index=True, key="sensor_flags", column_config={
-        "flag_id": st.column_config.NumberColumn("Flag", format="%d", width="small"),
-        "device_label": st.column_config.TextColumn("Device", width="small"),
-        "kind_label": st.column_config.TextColumn("What", width="medium"),
-        "severity_label": st.column_config.TextColumn("Severity", width="small"),
-        "start_text": st.column_config.TextColumn(f"Start ({ui.time_basis(short=True)})",
-                                                  width="medium"),
-        "end_text": st.column_config.TextColumn("End", width="medium"),
-        "duration_text": st.column_config.TextColumn("Duration", width="small")})
+                 hide_index=True, key="sensor_flags",
+                 column_config=ui.flag_columns(duration_width="small"))
     st.caption("Open a flag for its evidence (and, for a shifted logger clock, the correction "
                "to paste into the site configuration).")
     ui.field_caution()
