@@ -1,6 +1,6 @@
-"""Inverter availability, time-based and energy-based (METHODS §5; IEC TS 63019 categories).
+"""Inverter availability, time-based and energy-based (IEC 61724-1:2021; IEC TS 63019:2019 categories).
 
-Definitions (common practice, as METHODS §5):
+Definitions (common practice; the 50 W/m² base and 1 % threshold have no single published source):
 
 * **daylight base**: intervals with POA G >= 50 W/m² *and* a power reading. Intervals
   with no power reading are "information unavailable" in IEC TS 63019:2019 and are left out
@@ -30,7 +30,7 @@ def _bool_like(mask, *inputs):
 
 
 def daylight_mask(poa_wm2, poa_min_wm2: float = 50.0):
-    """True where G >= ``poa_min_wm2`` (availability base, METHODS §5). NaN -> False.
+    """True where G >= ``poa_min_wm2`` (availability base, common practice). NaN -> False.
 
     Examples
     --------
@@ -56,7 +56,7 @@ def unavailable_mask(p_ac_kw, poa_wm2, p_ac_max_kw: float, outage_fraction: floa
 
 
 def availability_time(unavailable, daylight, interval_h=1.0) -> float:
-    """Time-based availability A_t = 1 - Σ τ (unavailable) / Σ τ (daylight) (METHODS §5). [fraction]
+    """Time-based availability A_t = 1 - Σ τ (unavailable) / Σ τ (daylight) (IEC TS 63019:2019 time-based availability). [fraction]
 
     ``daylight`` is the base (G >= 50 W/m² with a power reading); unavailable intervals
     outside it are ignored. NaN when the base is empty.
@@ -72,7 +72,7 @@ def availability_time(unavailable, daylight, interval_h=1.0) -> float:
 
 
 def lost_energy_kwh(p_ac_exp_kw, interval_h, unavailable) -> float:
-    """E_lost = Σ P_ac,exp τ over unavailable intervals (METHODS §5). [kWh]
+    """E_lost = Σ P_ac,exp τ over unavailable intervals (IEC TS 63019:2019 energy-based availability). [kWh]
 
     Examples
     --------
@@ -85,7 +85,7 @@ def lost_energy_kwh(p_ac_exp_kw, interval_h, unavailable) -> float:
 
 
 def availability_energy(e_ac_kwh, e_lost_kwh):
-    """Energy-based availability A_E = E / (E + E_lost), elementwise (METHODS §5). [fraction]
+    """Energy-based availability A_E = E / (E + E_lost), elementwise (IEC TS 63019:2019). [fraction]
 
     NaN when E + E_lost <= 0 (no production expected).
 

@@ -4,7 +4,7 @@ On a clear day the irradiance (and the power) profile is centred on solar noon. 
 irradiance-weighted centroid time of the measured profile is compared with the centroid of
 the modelled clear-sky POA irradiance sampled at the same intervals (pvlib Ineichen
 clear sky transposed to the array plane; for a south-facing fixed array that centroid is
-the solar transit, METHODS §10, and the comparison works for any azimuth). The difference
+the solar transit (pvlib ``sun_rise_set_transit_spa``, Reda & Andreas 2004 SPA, pvlib docs), and the comparison works for any azimuth). The difference
 Δ = t_measured − t_model is about
 
 * constant n·60 min: wrong time zone or a logger an hour off;
@@ -12,7 +12,7 @@ the solar transit, METHODS §10, and the comparison works for any azimuth). The 
 * one interval length: interval-start versus interval-end labels confused;
 * a slow ramp: a drifting logger clock.
 
-A flag is raised where the median Δ of 7 clear days exceeds 10 min (METHODS §10, common
+A flag is raised where the median Δ of 7 clear days exceeds 10 min (common
 practice). Its details carry a correction the user can paste into the site configuration:
 ``[[sources.clock_corrections]]`` with ``shift_minutes = −Δ``, in the export's own local
 dates (ingest applies it before converting to UTC).
@@ -200,8 +200,8 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
     offsets : DataFrame
         ``delta_min`` and ``clear`` per local standard day.
     threshold_min : float
-        Flag where the rolling median of ``n_clear`` clear days exceeds this (METHODS §10:
-        7 clear days, 10 min; common practice). [min]
+        Flag where the rolling median of ``n_clear`` clear days exceeds this (7 clear
+        days, 10 min; common practice). [min]
     min_clear_days : int
         Segments supported by fewer clear days are not flagged.
     site_zone : str, optional
@@ -296,5 +296,5 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
                      "(end = YYYY-MM-DDTHH:MM:SS) so its later readings stay as they are.",
                 method="irradiance-weighted centroid of the day's profile minus the centroid "
                        "of modelled clear-sky POA (pvlib Ineichen); 7-clear-day median "
-                       "> 10 min (METHODS §10)")))
+                       "> 10 min (common practice)")))
     return flag_frame(records)

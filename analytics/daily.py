@@ -1,7 +1,7 @@
 """One inverter's interval frame -> one row per day of the ``daily_inverter`` table.
 
 Days are calendar days in the site's **local standard time** (UTC offset without DST), so
-every day has 24 hours (METHODS §10). Per interval k (τ_k = ``interval_h``):
+every day has 24 hours (common practice: DST days of 23 and 25 hours break daily sums). Per interval k (τ_k = ``interval_h``):
 
 * energy E_k = ``e_ac_kwh`` where the logger gives interval energy, else P_ac,k τ_k;
   power P_ac,k = ``p_ac_kw``, else E_k / τ_k;
@@ -14,7 +14,7 @@ every day has 24 hours (METHODS §10). Per interval k (τ_k = ``interval_h``):
   below the horizon are ``night`` without further checks (and the model is not evaluated
   for them); flat-line runs do not continue across a night.
 
-Daily sums (ratios of sums, never means of ratios, METHODS §5):
+Daily sums (ratios of sums, never means of ratios, IEC 61724-1:2021):
 
 * ``e_ac_kwh``: all measured AC energy of the day (net of night consumption);
 * PR set: intervals with a plausible POA reading and an energy value; over it

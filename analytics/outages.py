@@ -1,13 +1,13 @@
 """Outages (no power while the sun shines) and clipping (power held at the AC limit).
 
 An interval is an *outage* when the inverter delivers at most 1 % of its AC rating while
-the plane-of-array irradiance is at least 50 W/m² (METHODS §5, the availability base of
-IEC 61724-1 / IEC TS 63019 practice). Consecutive outage intervals form one event; night
+the plane-of-array irradiance is at least 50 W/m² (common practice; the availability base
+used with IEC 61724-1 / IEC TS 63019:2019). Consecutive outage intervals form one event; night
 and low-light intervals in between do not end it, so an inverter that stays off for three
 days is one event, not three. The energy lost is the expected AC energy of the outage
-intervals (expected-power model, METHODS §4).
+intervals (expected-power model: PVWatts, Dobos 2014, NREL/TP-6A20-62641).
 
-An interval is *clipped* when P_ac ≥ 0.98 · P_ac,max (METHODS §5): the inverter is at its
+An interval is *clipped* when P_ac ≥ 0.98 · P_ac,max (common practice): the inverter is at its
 limit, which is normal design behaviour, not a fault. Clipping is reported (kind
 'clipping', severity 'info') so that the flat top of a sunny day is not mistaken for a
 fault and so that those intervals are known to be excluded from degradation.
@@ -34,9 +34,9 @@ def outage_mask(p_ac_kw, poa_wm2, p_ac_max_kw: float, *, min_poa_wm2: float = 50
     p_ac_max_kw : float
         AC rating. [kW]
     min_poa_wm2 : float
-        Irradiance above which the inverter should run (METHODS §5: 50 W/m²).
+        Irradiance above which the inverter should run (common practice: 50 W/m²).
     max_frac : float
-        Power at or below this share of the rating counts as "out" (METHODS §5: 1 %).
+        Power at or below this share of the rating counts as "out" (common practice: 1 %).
 
     Returns
     -------
@@ -58,7 +58,7 @@ def outage_mask(p_ac_kw, poa_wm2, p_ac_max_kw: float, *, min_poa_wm2: float = 50
 
 
 def clipping_mask(p_ac_kw, p_ac_max_kw: float, *, frac: float = 0.98):
-    """True where the interval's power is at the AC limit (P ≥ 0.98 P_ac,max, METHODS §5).
+    """True where the interval's power is at the AC limit (P ≥ 0.98 P_ac,max, common practice).
 
     Examples
     --------
@@ -125,7 +125,7 @@ def outage_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str,
     An interval is evidence of an outage only where the array should clearly produce
     (issue #14: 3,087 dawn/dusk "outages" on a real plant were start-up and shut-down):
 
-    * P_ac ≤ ``max_frac`` · P_ac,max (METHODS §5: 1 %) while G ≥ ``min_poa_wm2``;
+    * P_ac ≤ ``max_frac`` · P_ac,max (common practice: 1 %) while G ≥ ``min_poa_wm2``;
     * the expected power is at least ``min_expected_multiple`` × the start-up power
       (``startup_frac`` · P_ac,max; inverters start at about 0.5–1 % of rating, common
       practice), i.e. 5 % of rating by default;
@@ -150,7 +150,7 @@ def outage_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str,
     device_id : str
         The inverter.
     p_ac_exp_kw : Series, optional
-        Expected AC power (METHODS §4) on the same index; gives ``lost_kwh`` and the
+        Expected AC power (PVWatts, Dobos 2014) on the same index; gives ``lost_kwh`` and the
         start-up gate (without it only the irradiance gate applies).
     min_duration_h : float
         Events with less outage time are ignored (common practice). [h]
@@ -272,7 +272,7 @@ def clipping_flags(frame: pd.DataFrame, p_ac_max_kw: float, *, device_id: str,
             lost_kwh=np.nan,
             details=dict(month=str(month[sl[0]]), clipped_hours=hours,
                          n_days=int(np.unique(day[sl]).size),
-                         rule=f"P_ac >= {frac:g} x {p_ac_max_kw:g} kW (METHODS §5)",
+                         rule=f"P_ac >= {frac:g} x {p_ac_max_kw:g} kW (common practice)",
                          note="power held at the inverter's AC limit: normal design "
                               "behaviour, not a fault; these intervals are excluded from "
                               "the performance index and degradation")))
@@ -350,7 +350,7 @@ def power_limit_level(p_ac_kw, p_ac_max_kw: float, poa_wm2, *, min_poa_wm2: floa
     bins of ``tol_frac`` of the rating) is the candidate ceiling L; it is a limit when at
     least ``min_share`` of the high-irradiance intervals (and ``min_intervals``) lie within
     ± ``tol_frac`` · P_ac,max of L, and ``min_level_frac`` ≤ L / P_ac,max <
-    ``max_level_frac`` (at ≥ 0.98 of the rating it is ordinary clipping, METHODS §5).
+    ``max_level_frac`` (at ≥ 0.98 of the rating it is ordinary clipping, common practice).
     Common practice; thresholds are keyword arguments.
 
     Returns

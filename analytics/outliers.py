@@ -35,7 +35,7 @@ FIELD_CAUTION = (
     "de-energise its DC side. Inspection and repair are for qualified people working under "
     "local electrical codes and lockout/tagout procedures.")
 
-#: sqrt(pi/2): mean absolute deviation -> standard deviation for normal data (METHODS §9).
+#: sqrt(pi/2): mean absolute deviation -> standard deviation for normal data (E|X − μ| = σ·√(2/π) for a normal distribution).
 MEAN_AD_TO_SIGMA = 1.253314
 
 
@@ -91,7 +91,7 @@ def robust_z(x, axis=None, *, mad_zero_fallback: bool = True):
         with ``axis=1`` gives one z per cell relative to its row).
     mad_zero_fallback : bool
         When the MAD is 0 (more than half the values identical, e.g. clipping or zeros)
-        use 1.253314 * mean absolute deviation instead (METHODS §9); if that is 0 too the
+        use 1.253314 * mean absolute deviation instead (E|X − μ| = σ·√(2/π) for normal data); if that is 0 too the
         z-score is 0 where x equals the median and ±inf elsewhere.
 
     Returns
@@ -142,7 +142,7 @@ def peer_ratio(pi_wide: pd.DataFrame, *, min_peers: int = 5) -> pd.DataFrame:
         Index ``day``, one column per inverter of one peer group; NaN where the day is not
         valid for that inverter. [-]
     min_peers : int
-        Days with fewer valid inverters give NaN (METHODS §9: at least 5 valid peers,
+        Days with fewer valid inverters give NaN (at least 5 valid peers,
         common practice).
 
     Returns
@@ -151,7 +151,7 @@ def peer_ratio(pi_wide: pd.DataFrame, *, min_peers: int = 5) -> pd.DataFrame:
 
     Notes
     -----
-    R_i,d = PI_i,d / median_j PI_j,d (METHODS §9). The median includes the inverter itself
+    R_i,d = PI_i,d / median_j PI_j,d (peer ratio, common practice). The median includes the inverter itself
     (a robust group level: one low inverter among five moves it little).
     """
     med = pi_wide.median(axis=1, skipna=True)
@@ -184,8 +184,8 @@ def persistent_low_events(low: pd.Series, valid: pd.Series, *, window: int = 5,
 
     An event opens when at least ``k_required`` of the last ``window`` valid days are low;
     it starts on the first low day of that window. It closes after ``clear_days``
-    consecutive normal valid days and ends on its last low day (common practice,
-    METHODS §9: z < −3 on ≥3 of the last 5 valid days; clear after 3 normal days).
+    consecutive normal valid days and ends on its last low day (common practice:
+    z < −3 on ≥3 of the last 5 valid days; clear after 3 normal days).
 
     Parameters
     ----------
@@ -246,8 +246,8 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
     """Underperformance flags from the daily inverter table.
 
     Groups of at least ``min_peers`` inverters use the **peer** basis (peer ratio and
-    robust z, below). Smaller groups cannot form a robust peer median (METHODS §9: ≥ 5
-    peers), so each inverter is compared with **its own expected power and its own
+    robust z, below). Smaller groups cannot form a robust peer median (common practice:
+    ≥ 5 peers), so each inverter is compared with **its own expected power and its own
     history** instead, and the flag says so (``details['basis']``): a day is low when its
     ``pi`` is below ``own_min_pi`` (a 20 % shortfall against the expected-power model,
     larger than the model's usual bias; common practice) or below (1 −
@@ -263,7 +263,7 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
     peer_group : dict, optional
         device_id -> peer group name; default: all inverters in one group.
     z_threshold : float
-        A day is low when its robust z across peers is below this (METHODS §9: −3) ...
+        A day is low when its robust z across peers is below this (common practice: −3) ...
     min_deficit : float
         ... and its peer ratio is at least this far below 1 (a statistically clear but
         tiny deficit, e.g. a 1 % nameplate mismatch, the 2.2 % winter deficit of a healthy
@@ -271,7 +271,7 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
         reaches after four years, measured on generated fleets in issue #14, is not a field
         event; one lost string of 12 is 8.3 %, of 24 4.2 %; common practice). [-]
     escalate_days : int
-        Severity 'warning' becomes 'alarm' once an event spans this many days (METHODS §9).
+        Severity 'warning' becomes 'alarm' once an event spans this many days (common practice: 14).
     merge_gap_days : int
         An event that re-opens within this many days of the previous one's last low day is
         the same fault (a failed string does not heal for a few soiled or cloudy days), so
@@ -348,7 +348,7 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
                                 f"after {clear_days} normal days; alarm from {escalate_days} "
                                 f"days; re-opened within {merge_gap_days} days = same event"),
                         method=("own expected power (pi) and own history, too few peers for "
-                                "a peer median (METHODS §9 asks for >= 5)" if own else
+                                "a peer median (common practice asks for >= 5)" if own else
                                 "peer ratio to the peer-group median of daily pi; robust z "
                                 "with 1.4826 MAD (Iglewicz & Hoaglin 1993)"),
                         caution=FIELD_CAUTION)))
@@ -370,7 +370,7 @@ def input_mismatch_flags(p_dc_inputs: pd.DataFrame, input_kwp: dict, *, device_i
     R_k,d = Y_k,d / median_{j≠k} Y_j,d over its siblings on the same plane. A day is low
     when R < 1 − ``min_deficit``; the persistence rule of :func:`persistent_low_events`
     (≥ ``k_required`` of ``window`` days, cleared after ``clear_days`` normal days) makes
-    events (common practice: the peer-ratio idea of METHODS §9 applied inside one inverter,
+    events (common practice: the peer-ratio idea applied inside one inverter,
     where sky and sensor errors cancel exactly). Days with less than
     ``min_day_kwh_per_kwp`` of sibling yield are skipped.
 

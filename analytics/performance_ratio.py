@@ -4,7 +4,7 @@ Two families of functions:
 
 * interval functions take the readings of a period (G_k, T_k, E_k, τ_k as arrays or Series)
   and return the period's figure as a float; NaN intervals are excluded from numerator
-  **and** denominator together (METHODS §2), and an empty or all-NaN period gives NaN;
+  **and** denominator together (IEC 61724-1:2021; common practice), and an empty or all-NaN period gives NaN;
 * ``*_from_sums`` functions take the stored daily sums (``e_ac_kwh``, ``e_ref_kwh``,
   ``e_ref_stc_kwh``, ``e_ref_tcell_kwhc``) of any period — scalars for one period, or
   arrays/Series for many — and return the ratio elementwise. A PR over a week, a month or a
@@ -167,7 +167,7 @@ def performance_ratio_temperature_corrected(e_ac_kwh, poa_wm2, t_c, interval_h, 
 
     Examples
     --------
-    >>> # METHODS §2: C = [0.88, 0.96]; 122 / (100*1*0.88 + 100*0.5*0.96) = 122 / 136
+    >>> # IEC 61724-1 C_k = 1 + γ (T_k − 25): C = [0.88, 0.96]; 122 / (100*1*0.88 + 100*0.5*0.96) = 122 / 136
     >>> round(performance_ratio_temperature_corrected(
     ...     [80.0, 42.0], [1000.0, 500.0], [55.0, 35.0], 1.0, 100.0, -0.004), 5)
     0.89706
@@ -242,7 +242,7 @@ def pr_from_sums(e_ac_kwh, e_ref_kwh):
 
     Examples
     --------
-    >>> round(pr_from_sums(500.0, 600.0), 4)  # METHODS §2: Y_f 5.0 h / Y_r 6.0 h
+    >>> round(pr_from_sums(500.0, 600.0), 4)  # IEC 61724-1 PR = Y_f / Y_r: 5.0 h / 6.0 h
     0.8333
     """
     return _ratio_like(e_ac_kwh, e_ref_kwh, e_ac_kwh, e_ref_kwh)
@@ -284,7 +284,7 @@ def pr_wc_from_sums(e_ac_kwh, e_ref_kwh, e_ref_tcell_kwhc, gamma_pmp_per_c: floa
 
     Examples
     --------
-    >>> # METHODS §2 vector: e_ac 122, e_ref 150, e_ref_tcell 100*55 + 50*35 = 7250
+    >>> # hand-worked Dierauf et al. 2013 example: e_ac 122, e_ref 150, e_ref_tcell 100*55 + 50*35 = 7250
     >>> round(pr_wc_from_sums(122.0, 150.0, 7250.0, -0.004, 45.0), 5)
     0.82432
     """

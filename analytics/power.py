@@ -7,7 +7,7 @@ spectral correction is applied. A **thermopile pyranometer** is spectrally flat 
 glass reflection loss, so it reads more than the modules can use at large angles of incidence;
 multiply its POA by an incidence-angle modifier (e.g. ``pvlib.iam.ashrae``, b0 = 0.05) before
 calling :func:`dc_power_pvwatts` if the expected power must match the module. PRs computed
-from the two sensor types differ by a few per cent (Dunn, Gostein, Emery 2012; METHODS §1), so
+from the two sensor types differ by a few per cent (Dunn, Gostein, Emery 2012, NREL/CP-5200-55487), so
 the sensor type is kept with the results.
 
 References

@@ -4,18 +4,19 @@ Every performance number divides by an irradiance reading, so a sensor fault loo
 plant fault: a soiled or drifting POA sensor makes every inverter's PI rise or fall
 together. The checks here run on interval data (index ``ts_utc``, interval start):
 
-* **range** — values outside physical limits (METHODS §5: G −10…1500 W/m², T_mod −40…90 °C,
+* **range** — values outside physical limits (common practice: G −10…1500 W/m², T_mod −40…90 °C,
   T_amb −40…55 °C, wind 0…50 m/s; P_ac −0.02…1.05 P_ac,max);
 * **flatline** — a value stuck while the sun moves: a daytime run of ≥4 samples (15-min
   data) with |Δx| < 0.1 % of the span for irradiance and power, ≥8 samples with
-  |ΔT| < 0.05 °C for temperatures (METHODS §5); power held at the AC limit or at zero is
+  |ΔT| < 0.05 °C for temperatures (common practice); power held at the AC limit or at zero is
   clipping or an outage, not a stuck sensor;
 * **dropout** — runs of missing intervals that contain daylight;
 * **night** — irradiance ≥ 5 W/m² while the sun is well below the horizon (a shifted
   clock, a stray light, an offset fault); small negative thermopile offsets at night are
-  normal (METHODS §10);
+  normal (from memory);
 * **drift** — a Theil–Sen trend of the daily clear-period ratio of measured to modelled
-  clear-sky POA (flag |drift| > 1 %/yr, METHODS §10), of the ratio of two sibling POA
+  clear-sky POA (flag |drift| > 1 %/yr, common practice; ISO 9060:2018 class A allows ≤ 0.8 %/yr
+  non-stability, from memory), of the ratio of two sibling POA
   sensors, and of the fleet's final yield per unit of measured insolation (modules do not
   get better: a rising ratio points to the sensor).
 """
@@ -28,7 +29,7 @@ from scipy import stats
 
 from analytics.outliers import epoch_s, flag_frame
 
-#: Physical limits per quantity (METHODS §5, common practice).
+#: Physical limits per quantity (common practice).
 RANGES = {
     "poa_wm2": (-10.0, 1500.0),
     "ghi_wm2": (-10.0, 1500.0),
@@ -109,7 +110,7 @@ def range_flags(x: pd.Series, *, device_id: str, quantity: str, lo: float | None
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, range=[lo, hi],
             min_value=float(np.nanmin(v[a:b + 1])), max_value=float(np.nanmax(v[a:b + 1])),
-            rule="outside physical limits (METHODS §5)"))
+            rule="outside physical limits (common practice)"))
     return flag_frame(recs)
 
 
@@ -126,7 +127,7 @@ def flatline_mask(x, daytime, *, min_run: int = 4, abs_tol: float | None = None,
         The sun is up and moving (e.g. elevation > 10°).
     abs_tol : float, optional
         |Δx| at or below this counts as "no change" (temperature: 0.05 °C). Default:
-        ``rel_tol`` × min(span, |x|), span = 99th − 1st percentile of x (METHODS §5:
+        ``rel_tol`` × min(span, |x|), span = 99th − 1st percentile of x (common practice:
         0.1 % of span); the |x| cap keeps a dim overcast sky, which drifts by a fraction
         of a W/m² per interval, from looking stuck.
     exclude : array-like of bool, optional
@@ -172,10 +173,10 @@ def flatline_mask(x, daytime, *, min_run: int = 4, abs_tol: float | None = None,
 def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
                    tau_s: int = 900, exclude=None, min_run: int | None = None,
                    abs_tol: float | None = None, sun_ref=None) -> pd.DataFrame:
-    """Flatline events; 'alarm' when the stuck run lasts more than a day (METHODS §5)."""
+    """Flatline events; 'alarm' when the stuck run lasts more than a day (common practice)."""
     temp = quantity in ("t_module_c", "t_amb_c")
     if min_run is None:
-        # METHODS §5: 4 samples for G and P, 8 for temperatures; wind is logged to 0.1 m/s
+        # common practice: 4 samples for G and P, 8 for temperatures; wind is logged to 0.1 m/s
         # and repeats in calm spells, so 12 exact repeats (3 h of 15-min data; common practice)
         min_run = 8 if temp else 12 if quantity == "wind_ms" else 4
     if abs_tol is None and temp:
@@ -195,7 +196,7 @@ def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
                                     else "warning"),
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, stuck_value=float(np.nanmedian(v[a:b + 1][m[a:b + 1]])),
-            rule=f"daytime run of >= {min_run} samples without change (METHODS §5)"))
+            rule=f"daytime run of >= {min_run} samples without change (common practice)"))
     return flag_frame(recs)
 
 
@@ -240,7 +241,7 @@ def night_irradiance_flags(g: pd.Series, solar_elevation_deg, *, device_id: str,
                            min_samples: int = 2) -> pd.DataFrame:
     """Irradiance above ``max_night_wm2`` while the sun is below ``night_elev_deg``.
 
-    METHODS §5 takes G < 5 W/m² as night; −3° keeps twilight out. Events within a night
+    Common practice takes G < 5 W/m² as night; −3° keeps twilight out. Events within a night
     merge, consecutive nights merge too (36 h gap); nights with fewer than ``min_samples``
     such samples are ignored (a passing headlight).
     """
@@ -288,7 +289,7 @@ def clear_period_ratio(g: pd.Series, g_cs: pd.Series, aoi_deg, clear_days: pd.Se
                        std_offset_s: int = 0, max_aoi_deg: float = 50.0,
                        min_cs_wm2: float = 300.0) -> pd.Series:
     """Daily median of G_meas / G_clearsky,POA over clear-day intervals with AOI < 50°
-    (METHODS §10).
+    (common practice; clear sky: Ineichen & Perez 2002 via pvlib).
 
     ``clear_days`` is a bool Series by local standard day (e.g.
     :func:`analytics.clock.clear_day_mask`).
@@ -320,7 +321,7 @@ def drift_flags(daily_ratio: pd.Series, *, device_id: str, method: str,
     method : str
         'clearsky', 'sibling' or 'fleet_power', stored in the details.
     min_span_days : int
-        At least a year of data (METHODS §10), so a season is not read as drift.
+        At least a year of data (common practice), so a season is not read as drift.
     sign_rule : str
         'both' flags either sign; 'rising' only a rising ratio (fleet yield per measured
         insolation cannot rise through the modules).
@@ -341,9 +342,9 @@ def drift_flags(daily_ratio: pd.Series, *, device_id: str, method: str,
                    sensor_drift_pct_per_yr=implied,
                    n_days=r["n_days"], span_days=r["span_days"],
                    rule=f"|Theil-Sen drift| > {threshold_pct_per_yr:g} %/yr over >= "
-                        f"{min_span_days} days (METHODS §10)",
+                        f"{min_span_days} days (common practice)",
                    note="irradiance drift maps one-to-one into performance and degradation "
-                        "rates (METHODS §6): recalibrate or replace the sensor and split the "
+                        "rates (Jordan et al. 2018): recalibrate or replace the sensor and split the "
                         "series at the swap")
     if extra:
         details.update(extra)
@@ -404,10 +405,10 @@ def irradiance_validity(g: pd.Series, solar_elevation_deg, poa_clearsky_wm2, *,
     * ``stuck``: its daytime readings (sun ≥ ``day_elev_deg``, at least
       ``min_day_samples`` of them) span at most ``stuck_tol_wm2`` while the modelled
       clear-sky POA changed by more than half its peak (a dead cell at 3.0 W/m², a frozen
-      logger value; METHODS §5 flatline idea applied to a whole day);
+      logger value; the common-practice flatline idea applied to a whole day);
     * ``night_reading``: at least ``min_night_samples`` readings ≥ ``night_max_wm2`` with
       the sun below ``night_elev_deg`` (−12°, nautical dusk: a thermopile's night offset is
-      a few W/m² *negative*, METHODS §10; the deep-night gate keeps a clock error of an hour
+      a few W/m² *negative*, from memory; the deep-night gate keeps a clock error of an hour
       out of this rule, so the clock check still sees it);
     * ``low_vs_power``: on at least ``low_share`` of the daytime intervals where the array
       produces at least ``min_p_norm`` of its DC rating, the sensor reads less than
@@ -490,7 +491,7 @@ def module_temperature_validity(t_mod: pd.Series, *, poa_wm2=None, t_amb_c=None,
       temperature expected from ambient, irradiance and wind (``t_mod_model_c``);
 
     or when all its daytime readings (``day_mask``) vary by at most ``stuck_tol_c``
-    (``stuck``, METHODS §5: |ΔT| < 0.05 °C), or more than half are outside ``range_c``.
+    (``stuck``, common practice: |ΔT| < 0.05 °C), or more than half are outside ``range_c``.
 
     Returns
     -------
@@ -789,7 +790,7 @@ def clear_sky_level_flags(daily_ratio: pd.Series, *, device_id: str, lo: float =
     """A 'sensor_implausible' flag (reason ``off_clear_sky``) where a POA sensor's clear-day
     readings sit outside [``lo``, ``hi``] × the modelled clear-sky POA.
 
-    Clear-sky models carry 5–10 % bias (METHODS §10), so only a gross disagreement counts:
+    Clear-sky models carry 5–10 % bias (from memory), so only a gross disagreement counts:
     the rolling median of ``window`` clear days outside ±20 % for at least ``min_days``
     clear days (a wrong scale factor, a sensor on the wrong plane, a covered or dead cell
     that still reads something; common practice). Report only: the level of a sensor is

@@ -17,8 +17,8 @@ recovery idea (Deceglie, Micheli and Muller 2018):
    intervals and a partial-to-full recovery at each cleaning.
 
 Degradation (≈0.5 %/yr, i.e. ≈0.04 % per month) is negligible inside dry intervals of
-weeks and is not removed here; seasonal model artefacts can mimic soiling (METHODS §8,
-pitfalls) and are the main limitation.
+weeks and is not removed here; seasonal model artefacts can mimic soiling (Deceglie,
+Micheli, Muller 2018) and are the main limitation.
 
 References
 ----------
@@ -39,7 +39,7 @@ from analytics.outliers import day_start_s, flag_frame
 
 
 def soiling_ratio_insolation_weighted(sr, h_kwhm2) -> float:
-    """Insolation-weighted soiling ratio SR_iw = Σ SR_d H_d / Σ H_d (METHODS §8).
+    """Insolation-weighted soiling ratio SR_iw = Σ SR_d H_d / Σ H_d (Deceglie, Micheli, Muller 2018).
 
     NaN days are left out of both sums.
 
@@ -58,7 +58,7 @@ def soiling_ratio_insolation_weighted(sr, h_kwhm2) -> float:
 
 def cleaning_interval_days(cleaning_cost: float, tariff_per_kwh: float, e_day_kwh: float,
                            soiling_rate_per_day: float) -> float:
-    """Cleaning interval that minimises cost per day, T* = √(2C / (p E_d r)) (METHODS §8).
+    """Cleaning interval that minimises cost per day, T* = √(2C / (p E_d r)) (derived: minimum of (C + p E_d r T²/2) / T; common practice).
 
     With a linear soiling rate r the revenue lost T days after a cleaning is
     L(T) = p E_d r T² / 2; (C + L(T)) / T is smallest where L(T*) = C.
@@ -109,13 +109,13 @@ def detect_cleanings(pi: pd.Series, *, rain_mm: pd.Series | None = None,
     rain_mm : Series, optional
         Daily rainfall on the same index. [mm]
     window : int
-        Days in the backward and forward rolling medians (METHODS §8: 1–3 weeks). [d]
+        Days in the backward and forward rolling medians (Deceglie et al. 2018 use a rolling median; 1–3 weeks is common practice). [d]
     min_step : float
         Smallest step of ``pi`` counted as a cleaning, besides the fence. [-]
     rain_threshold_mm : float
-        Daily rain that cleans (METHODS §8: 5 mm, site-tunable). [mm]
+        Daily rain that cleans (common practice: 5 mm, site-tunable). [mm]
     fence_k : float
-        Tukey fence Q3 + k·IQR on the steps (METHODS §8: 1.5).
+        Tukey fence Q3 + k·IQR on the steps (Tukey fence, Tukey 1977, from memory: 1.5).
 
     Returns
     -------
@@ -166,8 +166,8 @@ def soiling_intervals(pi: pd.Series, cleanings, *, min_days: int = 14,
     cleanings : sequence of days
         First clean days; each starts a new interval (so does the first day of ``pi``).
     min_days : int
-        Intervals with fewer valid days are treated as unsoiled (METHODS §8 suggests about
-        10; 14 here, issue #14: a two-week weather regime in a clean fleet gave a 12-day
+        Intervals with fewer valid days are treated as unsoiled (about 10 is common practice
+        for Deceglie et al. 2018; 14 here, issue #14: a two-week weather regime in a clean fleet gave a 12-day
         "soiling" interval of −0.24 %/day between two pi steps; common practice). [d]
     alpha : float
         Confidence of the slope interval (``theilslopes(..., alpha)``). An interval counts
@@ -219,7 +219,7 @@ def soiling_ratio_series(index, intervals: pd.DataFrame) -> pd.Series:
 
     Examples
     --------
-    A 30-day interval at −0.001/day: SR = 1, 0.999, ..., 0.971, mean 0.9855 (METHODS §8).
+    A 30-day interval at −0.001/day: SR = 1, 0.999, ..., 0.971, mean 0.9855 (hand calculation).
     """
     days = pd.DatetimeIndex(index)
     sr = pd.Series(1.0, index=days, name="sr")
@@ -408,7 +408,7 @@ def soiling_flags(pi: pd.Series, h_kwhm2: pd.Series, e_exp_kwh: pd.Series, *,
                     f"{saving:.0f} {currency} over the next {horizon_days} days, less than a "
                     f"cleaning ({cleaning_cost:.0f} {currency}); optimal interval "
                     f"T* = {t_star:.0f} days"),
-                economics="T* = sqrt(2C/(p E_d r)) (METHODS §8)",
+                economics="T* = sqrt(2C/(p E_d r)) (derived, common practice)",
                 caution="Cleaning is work at height near energised equipment; follow the "
                         "site's safety rules and the module maker's cleaning instructions.")
             sev = "warning" if recommend else "info"

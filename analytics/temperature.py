@@ -2,7 +2,7 @@
 
 Functions take scalars, ndarrays or Series and return the same type (a Series keeps its
 index); NaN in gives NaN out. Negative irradiance (thermopile night offsets) is treated as
-0 W/m² (METHODS §3 pitfall), so a model never cools a module below its input temperature.
+0 W/m² (common practice), so a model never cools a module below its input temperature.
 
 References
 ----------

@@ -4,7 +4,7 @@ weeks and against its peers.
 Period KPIs are ratios of sums over the days of the period, never means of daily ratios
 (IEC 61724-1 defines PR over a reporting period as Σ E_out / Σ E_ref). The
 temperature-corrected PR uses only valid days, numerator and denominator over the same
-days (METHODS §2, "Which intervals enter"). Availability follows METHODS §5:
+days (IEC 61724-1:2021; common practice). Availability follows IEC TS 63019:2019:
 energy-based A_E = E / (E + E_lost), time-based A_t = 1 − t_unavailable / t_daylight.
 
 An inverter is "below peers" when its PR_STC is lower than the median of its peer group
@@ -56,7 +56,7 @@ def period_kpis(sums: pd.DataFrame) -> pd.DataFrame:
     >>> s = pd.DataFrame({"e_ac_kwh": [500.0], "e_ac_pr_kwh": [500.0], "e_ref_kwh": [600.0],
     ...                   "e_ref_stc_kwh": [550.0], "e_lost_kwh": [0.0], "t_daylight_h": [10.0],
     ...                   "t_unavailable_h": [0.0], "n_days_valid": [1]})
-    >>> round(float(period_kpis(s)["pr"].iloc[0]), 4)  # METHODS §2: 5.0 h / 6.0 h
+    >>> round(float(period_kpis(s)["pr"].iloc[0]), 4)  # IEC 61724-1 PR = Y_f / Y_r: 5.0 h / 6.0 h
     0.8333
     """
     out = sums[["device_id"]].copy() if "device_id" in sums else pd.DataFrame(index=sums.index)

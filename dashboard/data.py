@@ -11,7 +11,7 @@ The URL comes from ``$HELIAUDIT_DB`` (set by ``heliaudit dashboard --db``), else
 Period KPIs are ratios of sums over the days of the period (IEC 61724-1: a period PR is
 Σ E_out / Σ E_ref, not a mean of daily PRs); the temperature-corrected PR uses only valid
 days (``day_valid``), with numerator and denominator taken over the same days
-(METHODS §2 "Which intervals enter").
+(IEC 61724-1:2021; common practice).
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """The readings write path: bulk upsert of (channel_id, ts_s, value, interval_s) in the caller's transaction.
 
-This is the one measured fast path with a per-dialect branch (see PERFORMANCE.md and
+This is the one measured fast path with a per-dialect branch (measured by
 tests/bench/bench_ingest.py); everything else in ``db/`` is SQLAlchemy Core.
 
 * SQLite: one prepared multi-row statement (250 rows per ``VALUES``) through the raw DBAPI

@@ -3,7 +3,7 @@
 Keys are compact on purpose: readings are keyed by ``(channel_id, ts_s)`` where ``ts_s`` is
 integer UTC epoch seconds of the **interval start** (ingest converts every logger's
 convention to this), and ``channel_id`` is one quantity of one device. On SQLite the readings
-table is ``WITHOUT ROWID`` so the primary key is the table (see PERFORMANCE.md).
+table is ``WITHOUT ROWID`` so the primary key is the table (SQLite documentation, "The WITHOUT ROWID Optimization").
 
 Each topic owns its block below; add columns there and bump ``SCHEMA_VERSION`` with a
 forward step in :mod:`db.migrate`.

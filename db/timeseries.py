@@ -1,6 +1,6 @@
 """Interval frames read from the store: one inverter with its sensors, or a whole site.
 
-Reading is the bottleneck of every recompute (about 1 M rows/s, PERFORMANCE.md), so each
+Reading is the bottleneck of every recompute (about 1 M rows/s, measured on this machine), so each
 channel is read with one query on the ``(channel_id, ts_s)`` primary key through the raw
 DBAPI cursor, turned into numpy arrays without per-row Python objects, and aligned in numpy.
 

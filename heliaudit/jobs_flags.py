@@ -60,7 +60,7 @@ from ingest.counters import counter_resolution
 
 Progress = Callable[[int, int], None]  # progress(done, total), in devices
 
-#: Detector settings recorded with each computation (defaults cite METHODS §5, §8–§10).
+#: Detector settings recorded with each computation (defaults are common practice unless a docstring in analytics/ names a source).
 PARAMS = {
     "underperformance": {"z_threshold": -3.0, "min_deficit": 0.04, "min_peers": 5,
                          "window": 5, "k_required": 3, "escalate_days": 14,

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-LAT, LON, ALT = 39.74, -105.0, 1800.0  # Golden, Colorado (METHODS §10 transit checks)
+LAT, LON, ALT = 39.74, -105.0, 1800.0  # Golden, Colorado (transit check values from a pvlib 0.16 run)
 TILT, AZ = 30.0, 180.0
 STD_OFFSET_S = -7 * 3600  # UTC-7 standard time
 ZONE = "America/Denver"

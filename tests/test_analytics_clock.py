@@ -17,7 +17,7 @@ def year():
 
 
 def test_pvlib_transit_check_values():
-    # METHODS §10 (pvlib 0.16): lat 39.74, lon −105.0, fixed UTC−7: transits
+    # pvlib 0.16 sun_rise_set_transit_spa (Reda & Andreas 2004 SPA): lat 39.74, lon −105.0, fixed UTC−7: transits
     # 2021-02-11 12:14:12, 2021-06-21 12:01:55, 2021-11-03 11:43:33.
     days = pd.DatetimeIndex(["2021-02-11", "2021-06-21", "2021-11-03"]).tz_localize("Etc/GMT+7")
     tr = pvlib.solarposition.sun_rise_set_transit_spa(days, 39.74, -105.0)["transit"]

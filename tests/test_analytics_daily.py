@@ -81,7 +81,7 @@ def test_missing_poa_leaves_pr_numerator_and_denominator_together():
     r2 = daily_performance(fr, INV, solar_elevation_deg=np.full(4, 50.0),
                            poa_clearsky_wm2=np.full(4, 1000.0)).iloc[0]
     assert r2["coverage"] == pytest.approx(0.75)  # 3000 / 4000
-    assert not bool(r2["day_valid"])  # < 0.8 (METHODS §5)
+    assert not bool(r2["day_valid"])  # < 0.8 (common practice)
 
 
 def test_energy_column_preferred_and_local_standard_day():

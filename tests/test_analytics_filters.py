@@ -1,6 +1,6 @@
 """Interval filters (analytics.filters) and availability (analytics.availability).
 
-Rules and defaults are METHODS §5 (common practice); solar elevation is checked against
+Rules and defaults are common practice (no single published source); solar elevation is checked against
 pvlib's SPA and the NOAA/astronomical fact that the sun is up at local noon and down at
 midnight at mid latitudes (common practice). Small hand-made cases in each test.
 """
@@ -15,7 +15,7 @@ from analytics import filters as f
 
 
 def test_defaults_documented_values():
-    # METHODS §5 defaults
+    # common-practice defaults
     d = f.DEFAULT_FILTERS
     assert (d["poa_min_wm2"], d["poa_max_wm2"], d["night_poa_wm2"]) == (200.0, 1200.0, 5.0)
     assert (d["clip_fraction"], d["outage_fraction"], d["min_coverage"]) == (0.98, 0.01, 0.8)
@@ -60,7 +60,7 @@ def test_night_missing_range():
 
 
 def test_clipping_and_stuck():
-    # METHODS §5: P_ac >= 0.98 P_ac,max is clipped
+    # common practice: P_ac >= 0.98 P_ac,max is clipped
     assert f.clipping_mask([97.9, 98.0, 100.0, np.nan], 100.0).tolist() == [False, True, True, False]
     # 4 samples within tolerance -> stuck; 3 are not; NaN breaks a run
     assert f.stuck_mask([1, 2, 2, 2, 3], 4, 0.5).tolist() == [False] * 5
@@ -89,7 +89,7 @@ def test_classify_order_first_reason_wins():
 
 
 def test_classify_stuck_sensor_and_overrides():
-    # a POA reading frozen at 640 W/m² for 5 samples while power varies -> stuck (METHODS §5)
+    # a POA reading frozen at 640 W/m² for 5 samples while power varies -> stuck (common practice)
     g = np.array([500.0, 640.0, 640.0, 640.0, 640.0, 640.0, 700.0])
     p = np.array([40.0, 50.0, 48.0, 52.0, 47.0, 51.0, 55.0])
     codes = f.classify_intervals(g, 40.0 + np.arange(7.0), p, 100.0)
@@ -109,7 +109,7 @@ def test_reason_counts_coverage_day_valid():
 
 
 def test_availability_hand_cases():
-    # METHODS §5: outage = P_ac <= 1 % of rating while G >= 50 W/m²
+    # common practice: outage = P_ac <= 1 % of rating while G >= 50 W/m²
     p = np.array([0.0, 0.5, 0.0, 60.0, np.nan])
     g = np.array([30.0, 600.0, 600.0, 600.0, 600.0])
     u = av.unavailable_mask(p, g, 100.0)

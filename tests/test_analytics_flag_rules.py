@@ -96,7 +96,7 @@ def test_elevation_gate_boundary(clear, elev, found):
 
 @pytest.mark.parametrize("p_kw,found", [(0.99, True), (1.0, True), (1.01, False)])
 def test_outage_power_boundary(clear, p_kw, found):
-    # METHODS §5: out at <= 1 % of the rating
+    # common practice: out at <= 1 % of the rating
     w = clear.copy()
     exp = w["p_ac_kw"].copy()
     m = (w.index >= "2024-04-06 17:00") & (w.index < "2024-04-06 20:00")

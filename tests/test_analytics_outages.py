@@ -13,7 +13,7 @@ P_AC_MAX = 100.0
 
 
 def test_outage_mask_rule():
-    # METHODS §5: P_ac <= 1 % of rating while G >= 50 W/m² (1 kW of 100 kW is still "out").
+    # common practice: P_ac <= 1 % of rating while G >= 50 W/m² (1 kW of 100 kW is still "out").
     p = pd.Series([0.0, 1.0, 1.01, 0.0, np.nan, 50.0])
     g = pd.Series([600, 600, 600, 49, 600, 600])
     m = outage_mask(p, g, P_AC_MAX)
@@ -22,7 +22,7 @@ def test_outage_mask_rule():
 
 
 def test_clipping_mask_rule():
-    # METHODS §5: P_ac >= 0.98 P_ac,max.
+    # common practice: P_ac >= 0.98 P_ac,max.
     assert_array_equal(clipping_mask(np.array([97.9, 98.0, 101.0, np.nan]), P_AC_MAX),
                        [False, True, True, False])
 

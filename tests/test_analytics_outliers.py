@@ -16,7 +16,7 @@ from analytics.outliers import (
 
 
 def test_robust_z_methods_vector():
-    # METHODS §9: [1, 2, 3, 4, 100] -> median 3, scaled MAD 1.4826,
+    # Iglewicz & Hoaglin 1993 / NIST e-Handbook robust z: [1, 2, 3, 4, 100] -> median 3, scaled MAD 1.4826,
     # |z| = [1.349, 0.674, 0, 0.674, 65.43]; only 100 beyond 3.5 (Iglewicz & Hoaglin 1993).
     z = robust_z([1, 2, 3, 4, 100])
     assert_allclose(np.abs(z), [1.349, 0.674, 0.0, 0.674, 65.43], atol=5e-3)  # 3-4 digits
@@ -31,7 +31,7 @@ def test_robust_z_matches_scipy_scaled_mad():
 
 
 def test_robust_z_mad_zero_fallback_and_types():
-    # More than half identical -> MAD = 0; fallback 1.253314 * mean|x - median| (METHODS §9):
+    # More than half identical -> MAD = 0; fallback 1.253314 * mean|x - median| (E|X − μ| = σ·√(2/π) for normal data):
     # x = [1,1,1,1,2]: median 1, mean|dev| = 0.2, scale 0.2506628 -> z(2) = 3.98942.
     z = robust_z(np.array([1.0, 1, 1, 1, 2]))
     assert_allclose(z, [0, 0, 0, 0, 1 / (1.253314 * 0.2)], rtol=1e-6)
@@ -57,7 +57,7 @@ def test_peer_ratio_needs_min_peers():
 
 
 def test_persistence_rule_known_answer():
-    # Rule (METHODS §9, common practice): >= 3 low of the last 5 valid days opens an event,
+    # Rule (common practice): >= 3 low of the last 5 valid days opens an event,
     # starting at the first low day of that window; 3 normal days close it.
     days = pd.date_range("2024-01-01", periods=16, freq="D")
     low = pd.Series([0, 1, 0, 0, 0, 1, 0, 1, 1, 1, 0, 1, 0, 0, 0, 0], index=days).astype(bool)
@@ -104,7 +104,7 @@ def test_string_failure_found_with_dates_and_lost_energy():
     assert abs((first - pd.Timestamp("2024-04-10")).days) <= 2
     assert abs((last - pd.Timestamp("2024-05-09")).days) <= 2
     assert f["start_s"] == pd.Timestamp(first).value // 10**9
-    assert f["severity"] == "alarm"  # 30 days >= 14: escalated (METHODS §9)
+    assert f["severity"] == "alarm"  # 30 days >= 14: escalated (common practice)
     # Lost energy ≈ 30 days x 400 kWh x (1 − 0.9) = 1200 kWh (hand calculation), ±20 %.
     assert 0.8 * 1200 <= f["lost_kwh"] <= 1.2 * 1200
     assert FIELD_CAUTION in f["details"]["caution"]
@@ -130,7 +130,7 @@ def test_fault_interrupted_by_a_few_normal_days_is_one_event():
     f = fl.iloc[0]["details"]
     assert abs((pd.Timestamp(f["first_day"]) - pd.Timestamp("2024-04-01")).days) <= 2
     assert abs((pd.Timestamp(f["last_day"]) - pd.Timestamp("2024-05-20")).days) <= 2
-    # without merging it is two events (the METHODS §9 rule alone)
+    # without merging it is two events (the persistence rule alone)
     assert len(underperformance_flags(d, merge_gap_days=0)) == 2
 
 

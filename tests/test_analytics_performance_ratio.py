@@ -2,7 +2,8 @@
 
 References: IEC 61724-1 definitions (Y_r, Y_f, PR, STC-corrected PR) as restated on the
 Sandia PVPMC "Performance ratio" page; Dierauf et al. 2013 (NREL/TP-5200-57991), Eq. 4-5;
-METHODS §2 test vectors; hand calculations in the comments.
+Hand-worked examples of IEC 61724-1:2021 and Dierauf et al. 2013 (NREL/TP-5200-57991);
+hand calculations in the comments.
 """
 
 import numpy as np
@@ -11,7 +12,7 @@ import pytest
 
 from analytics import performance_ratio as prm
 
-# METHODS §2 vector: two 1-h intervals, G = [1000, 500], T = [55, 35], E = [80, 42] kWh,
+# hand-worked example: two 1-h intervals, G = [1000, 500], T = [55, 35], E = [80, 42] kWh,
 # P0 = 100 kWp, δ = -0.4 %/°C (γ = -0.004).
 E = np.array([80.0, 42.0])
 G = np.array([1000.0, 500.0])
@@ -22,7 +23,7 @@ GAMMA = -0.004
 
 
 def test_yields_methods_vector():
-    # METHODS §2: P0 = 100 kWp, E = 500 kWh/d, H = 6 kWh/m²/d -> Y_f = 5.0 h, Y_r = 6.0 h, PR = 0.8333
+    # IEC 61724-1 PR = Y_f / Y_r: P0 = 100 kWp, E = 500 kWh/d, H = 6 kWh/m²/d -> Y_f = 5.0 h, Y_r = 6.0 h, PR = 0.8333
     g = np.full(12, 500.0)  # 12 h at 500 W/m² = 6 kWh/m²
     e = np.full(12, 500.0 / 12)
     assert prm.reference_yield_h(g, 1.0) == pytest.approx(6.0)
@@ -42,7 +43,7 @@ def test_pr_hand_worked_quarter_hours():
 
 
 def test_methods_vector_pr_stc_and_weather_corrected():
-    # METHODS §2: PR = 122/150 = 0.81333; PR_STC = 122/136 = 0.89706;
+    # IEC 61724-1 / Dierauf et al. 2013: PR = 122/150 = 0.81333; PR_STC = 122/136 = 0.89706;
     # Dierauf PR_corr with T_typ = 45: 122/148 = 0.82432; T_typ(same data) = 48.333 -> = PR
     assert prm.performance_ratio(E, G, TAU, P0) == pytest.approx(0.81333, abs=5e-6)
     assert prm.performance_ratio_temperature_corrected(E, G, T, TAU, P0, GAMMA) == pytest.approx(
@@ -108,7 +109,7 @@ def test_summer_and_winter_compare_after_weather_correction():
 
 
 def test_nan_empty_and_types():
-    # NaN intervals leave numerator and denominator together (METHODS §2)
+    # NaN intervals leave numerator and denominator together (IEC 61724-1:2021; common practice)
     e = np.array([80.0, np.nan, 42.0])
     g = np.array([1000.0, 700.0, 500.0])
     assert prm.performance_ratio(e, g, 1.0, 100.0) == pytest.approx(122.0 / 150.0)

@@ -69,7 +69,7 @@ def test_dead_cell_reading_at_night(july):
 
 
 def test_thermopile_night_offset_is_normal(july):
-    # METHODS §10: small negative thermopile offsets at night are normal
+    # from memory: small negative thermopile offsets at night are normal
     g = july["poa_wm2"].copy()
     g[july["elev"].to_numpy() < 0] = -3.0
     assert _judge(july, g)["valid"].all()
@@ -224,7 +224,7 @@ def test_sibling_drift_is_not_a_jump():
                                          (0.81, False)])
 def test_off_clear_sky_boundary(level, found):
     # documented: the 15-clear-day median of measured / clear-sky POA outside [0.8, 1.2]
-    # for >= 10 clear days (clear-sky models carry 5–10 % bias, METHODS §10)
+    # for >= 10 clear days (clear-sky models carry 5–10 % bias, from memory)
     from analytics.sensor_qa import clear_sky_level_flags
 
     days = pd.date_range("2024-05-01", periods=40, freq="D")

@@ -1,6 +1,6 @@
 """Expected power (analytics.power): PVWatts V5 (Dobos 2014).
 
-Oracles: pvlib.pvsystem.pvwatts_dc and pvlib.inverter.pvwatts on a grid; METHODS §4 check
+Oracles: pvlib.pvsystem.pvwatts_dc and pvlib.inverter.pvwatts on a grid; PVWatts (Dobos 2014, NREL/TP-6A20-62641) hand-worked check
 value; trade facts as property checks.
 """
 
@@ -34,7 +34,7 @@ def test_inverter_against_pvlib(eta):
 
 
 def test_methods_check_value():
-    # METHODS §4: G = 800, T_cell = 50, P_dc0 = 100 kW, γ = -0.0035 -> 100*0.8*(1-0.0875) = 73.0
+    # PVWatts (Dobos 2014): G = 800, T_cell = 50, P_dc0 = 100 kW, γ = -0.0035 -> 100*0.8*(1-0.0875) = 73.0
     assert power.dc_power_pvwatts(800.0, 50.0, 100.0, -0.0035) == pytest.approx(73.0, abs=1e-12)
 
 

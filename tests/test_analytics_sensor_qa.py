@@ -31,7 +31,7 @@ def month():
 
 
 def test_range_limits_methods_table():
-    # METHODS §5: G −10…1500 W/m²; inclusive limits are in range.
+    # common practice: G −10…1500 W/m²; inclusive limits are in range.
     assert_array_equal(range_mask(np.array([-10.0, -10.5, 1500, 1500.1, np.nan]), -10, 1500),
                        [False, True, False, True, False])
 
@@ -48,7 +48,7 @@ def test_range_event(month):
 
 
 def test_flatline_mask_rule():
-    # METHODS §5: >= 4 samples with |Δx| < tol; night samples break a run.
+    # common practice: >= 4 samples with |Δx| < tol; night samples break a run.
     x = np.array([1.0, 5, 5, 5, 5, 5, 2, 3, 3, 3, 4])
     day = np.ones(11, bool)
     assert_array_equal(flatline_mask(x, day, abs_tol=0.01),

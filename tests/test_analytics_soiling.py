@@ -39,7 +39,7 @@ def _pi(seed=0, noise=0.005, level=0.97):
 
 
 def test_theilslopes_linear_interval_methods_vector():
-    # METHODS §8: 30-day interval SR = 1 − 0.001 d -> Theil–Sen slope −0.001 exactly,
+    # hand calculation: 30-day interval SR = 1 − 0.001 d -> Theil–Sen slope −0.001 exactly,
     # mean SR = 0.9855 (1.45 % loss). Oracle: scipy.stats.theilslopes(y, x).
     days = pd.date_range("2024-01-01", periods=30, freq="D")
     sr = pd.Series(1 - 0.001 * np.arange(30), index=days)
@@ -50,7 +50,7 @@ def test_theilslopes_linear_interval_methods_vector():
 
 
 def test_sr_iw_methods_vector():
-    # METHODS §8: SR = [1, 0.99, 0.98], H = [2, 4, 6] -> (2 + 3.96 + 5.88)/12 = 0.98667
+    # insolation-weighted SR (Deceglie, Micheli, Muller 2018): SR = [1, 0.99, 0.98], H = [2, 4, 6] -> (2 + 3.96 + 5.88)/12 = 0.98667
     # (unweighted mean 0.99).
     assert soiling_ratio_insolation_weighted([1, 0.99, 0.98], [2, 4, 6]) == pytest.approx(0.986667, abs=1e-6)
     assert soiling_ratio_insolation_weighted([1, np.nan, 0.98], [2, 4, 6]) == pytest.approx((2 + 5.88) / 8)
@@ -58,7 +58,7 @@ def test_sr_iw_methods_vector():
 
 
 def test_cleaning_economics_methods_vector():
-    # METHODS §8: C = 1500, E_d = 4500 kWh, r = 0.001/day, p = 0.08 -> T* = 91.3 d,
+    # cleaning economics (derived, common practice): C = 1500, E_d = 4500 kWh, r = 0.001/day, p = 0.08 -> T* = 91.3 d,
     # L(T*) = p E_d r T*²/2 = C = 1500, cost per day (C + L)/T* = 32.86.
     t = cleaning_interval_days(1500, 0.08, 4500, -0.001)
     assert t == pytest.approx(91.29, abs=0.01)
@@ -83,7 +83,7 @@ def test_cleanings_found_within_two_days():
 def test_rain_sensor_adds_events():
     rain = pd.Series(0.0, index=DAYS)
     rain["2024-03-01"] = 12.0  # matches the step
-    rain["2024-09-15"] = 8.0  # rain without a visible step still counts (METHODS §8)
+    rain["2024-09-15"] = 8.0  # rain without a visible step still counts (common practice)
     rain["2024-09-20"] = 2.0  # light rain does not clean (< 5 mm)
     cl = detect_cleanings(_pi(1), rain_mm=rain)
     near = cl.loc[cl.index[np.abs((cl.index - CLEANINGS[0]).days) <= 1][0]]
@@ -221,7 +221,7 @@ def test_min_loss_boundary(loss, flagged):
 
 
 def test_site_summary_point_inside_interval_and_equal_to_full_recovery():
-    # the reported soiling ratio is the full-recovery SR_iw (METHODS §8 test vector style:
+    # the reported soiling ratio is the full-recovery SR_iw (Deceglie, Micheli, Muller 2018:
     # weights H), its interval contains it; loss = 100 (1 − SR)
     pi = _pi(4)
     h = pd.Series(6.0, index=DAYS)

@@ -196,7 +196,7 @@ def test_weekly_figures_are_ratios_of_sums_of_the_daily_table(store):
         assert_allclose(float(table.loc[inv, "e_ac_kwh"]),
                         round(week.loc[week["device_id"] == inv, "e_ac_kwh"].sum()), atol=0.5)
         assert table.loc[inv, "instrument"] == labels.get(inst[inv], "unknown instrument")
-    # against peers: METHODS §9 peer ratio PR_i / median_j PR_j within one instrument type
+    # against peers: peer ratio (common practice) PR_i / median_j PR_j within one instrument type
     prs = pd.Series(pr_w)
     med = prs.groupby(inst.reindex(prs.index)).transform("median")
     assert_allclose(table["d_peers_pct"].astype(float), 100 * (prs / med - 1)[table.index],

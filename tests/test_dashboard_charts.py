@@ -140,7 +140,7 @@ def test_degradation_forest_whiskers_are_the_intervals():
     titles = _check_units(fig)
     assert titles["xaxis"] == "Degradation rate of the plant [%/yr]"
     yoy = next(t for t in fig.data if t.name == "Year-on-year, POA sensor")  # words, no code
-    # METHODS §11 test vector: Rd = -0.62, 95 % CI [-0.80, -0.45]
+    # hand-worked one-sided test of a warranty rate (common practice): Rd = -0.62, 95 % CI [-0.80, -0.45]
     assert_allclose(yoy.error_x.array, [0.17, 0.20], atol=1e-12)  # ci_high - Rd
     assert_allclose(yoy.error_x.arrayminus, [0.18, 0.20], atol=1e-12)  # Rd - ci_low
 
@@ -214,7 +214,7 @@ def test_warranty_chart_draws_the_warranted_line():
     env = pd.DataFrame({"years": years, "warranted_pct": 100 * w})
     fig = charts.warranty_chart(env)
     _check_units(fig)
-    # METHODS §11: W1 = 97 %, d_w = 0.7 %/yr -> 80.2 % at year 25
+    # typical linear module warranty (from memory): W1 = 97 %, d_w = 0.7 %/yr -> 80.2 % at year 25
     assert_allclose(fig.data[0].y, [97.0, 97.0, 80.2], atol=1e-9)
     empty = charts.warranty_chart(None)
     assert "No warranty terms" in empty.layout.annotations[0].text

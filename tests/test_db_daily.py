@@ -1,5 +1,5 @@
 """Store round trips: db.timeseries frames and the db.daily table (real SQLite file in tmp_path,
-STYLE §4). Expected values are the rows inserted, compared back exactly."""
+the project's convention). Expected values are the rows inserted, compared back exactly."""
 
 import datetime as dt
 

@@ -96,7 +96,7 @@ def test_clearsky_poa_at_solar_noon_matches_pvlib():
 
 
 def test_ashrae_iam_check_values():
-    # METHODS §1 check values of pvlib.iam.ashrae(b=0.05): [1, 0.99226, 0.95, 0.76206]
+    # ASHRAE IAM check values, pvlib.iam.ashrae(b=0.05), pvlib 0.16 run: [1, 0.99226, 0.95, 0.76206]
     np.testing.assert_allclose(pvlib.iam.ashrae(np.array([0.0, 30.0, 60.0, 80.0]), b=0.05),
                                [1.0, 0.99226, 0.95, 0.76206], atol=1e-5)
 
@@ -266,7 +266,7 @@ def test_flatline_is_constant_only_inside_its_window():
 
 def _noon_offset_min(df: pd.DataFrame) -> float:
     """Median over days of (irradiance-weighted centroid of POA-RC1) minus solar transit [min],
-    reading the labels as correct local interval ends (METHODS §10 time-shift check)."""
+    reading the labels as correct local interval ends (clock check by solar transit, common practice)."""
     mid = df["ts_end_local"] - pd.Timedelta(minutes=7.5)
     g = df["POA-RC1 Irradiance"].clip(lower=0)
     day = mid.dt.date
@@ -282,7 +282,7 @@ def test_clock_shift_month_is_late_against_solar_noon():
     cs = TRUTH["clock_shift"]
     assert cs["shift_minutes"] == 60
     jan, feb, mar = (_noon_offset_min(_read(m)) for m in ("2024-01", "2024-02", "2024-03"))
-    # Jan and March are correct: centroid within 10 min of transit (METHODS §10 flag limit);
+    # Jan and March are correct: centroid within 10 min of transit (common-practice flag limit);
     # February carries the injected +60 min
     assert abs(jan) < 10 and abs(mar) < 10
     assert feb == pytest.approx(60, abs=10)

@@ -153,7 +153,7 @@ def test_demo_site_end_to_end(tmp_path):
     x degradation (1 + rd/100 x years since commissioning). Inverters on the reference cell
     (POA-RC1) see the same angle-of-incidence loss as their modules, so PI = implied (within
     noise and model error); those on the pyranometer (POA-PY2) lose the IAM in PI, a few per
-    cent (METHODS §1, Dunn/Gostein/Emery 2012)."""
+    cent (Dunn, Gostein, Emery 2012, NREL/CP-5200-55487)."""
     truth_path = DEMO / "truth.json"
     files = [DEMO / "exports" / f"quillpond_2022-0{m}.csv.gz" for m in (5, 6)]
     if not truth_path.exists() or not all(f.exists() for f in files):
