@@ -101,7 +101,7 @@ def results(ctx: click.Context, site_id: str, fmt: str, table: str, out_path: st
     """Write a site's results: degradation per method, change points, warranty, PR, flags.
 
     The JSON document (schema "heliaudit-results/2", described by docs/results.schema.json
-    and README "Results export") holds the site, software version and parameters, per
+    and docs/results.md "Results export") holds the site, software version and parameters, per
     inverter and for the site the period, PR, temperature-corrected PR, the recommended rate
     with its reasons and caveats, every degradation method with its interval, and the
     flags. CSV writes one flat table per call; the degradation table carries each method's

@@ -328,7 +328,7 @@ def config_toml() -> str:
         if s.config_ac_known:
             lines += [f"p_ac_max_kw = {s.p_ac_max_kw}", "commissioned = 2022-12-20"]
         else:
-            lines.insert(1, "# AC rating and commissioning date not on record (see README)")
+            lines.insert(1, "# AC rating and commissioning date not on record (see docs/config.md)")
         if s.id.startswith("A"):
             lines += ['plane = "roof30"', f"p_dc_kwp = {s.arrays[0][1]}", 'poa_sensor = "POA-30"',
                       'peer_group = "roof30"']

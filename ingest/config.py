@@ -1,6 +1,6 @@
 """Site configuration: one TOML file per site, validated on load.
 
-The format is documented with a full example in README.md ("Site configuration").
+The format is documented with a full example in docs/config.md ("Site configuration").
 Every problem found is reported with the TOML key that holds it, for example
 ``quillpond.toml: inverters[3].gamma_pmp_per_c: expected a negative number per °C
 (e.g. -0.0035 for -0.35 %/°C), got 0.35``. All problems are collected and raised
@@ -42,7 +42,7 @@ INVERTER_QUANTITIES = ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh", "i_dc
 #: Quantities an inverter input (MPPT / string group, ``input = "<id>"``) may carry.
 INPUT_QUANTITIES = ("p_dc_kw", "i_dc_a", "v_dc_v")
 #: How a column's value relates to its timestamp: "mean" over the interval (the default) or
-#: "instant", a sample taken at the timestamp (see README "Ingest rules").
+#: "instant", a sample taken at the timestamp (see docs/config.md "Ingest rules").
 SAMPLINGS = ("mean", "instant")
 #: Quantities that may be declared instantaneous samples (not energies: an energy is a sum).
 SAMPLED_QUANTITIES = ("p_ac_kw", "p_dc_kw", "i_dc_a", "v_dc_v", "poa_wm2", "ghi_wm2",
@@ -354,7 +354,7 @@ register(
     "inverters[]",
     id=Key("id", required=True),
     # p_dc_kwp: required unless [[inverters.arrays]] give it; p_ac_max_kw, commissioned,
-    # t_module_sensor optional (#11, README "Optional ratings"); poa_sensor or ghi_sensor
+    # t_module_sensor optional (#11, docs/config.md "Optional ratings"); poa_sensor or ghi_sensor
     p_dc_kwp=Key("float", lo=0.1, hi=1e6),
     p_ac_max_kw=Key("float", lo=0.1, hi=1e6),
     gamma_pmp_per_c=Key("float", required=True),
@@ -432,7 +432,7 @@ register(
     annual_loss_pct=Key("float", required=True, lo=0, hi=5),
     years=Key("int", default=25, lo=1, hi=50), confidence=Key("float", default=0.95, lo=0.5, hi=0.999),
 )
-#: Default plausible-date window of timestamps (README "Ingest rules"): grid-connected PV
+#: Default plausible-date window of timestamps (docs/config.md "Ingest rules"): grid-connected PV
 #: logger data before 1990 is not expected (common practice); the latest date defaults to
 #: one day after the ingest runs (a logger clock may run a little ahead).
 EARLIEST_DEFAULT = dt.date(1990, 1, 1)
@@ -926,7 +926,7 @@ class _Validator:
             p_ac = self.val(t, key, "p_ac_max_kw")
             out.append(Inverter(
                 id=iid or f"?{n}", p_dc_kwp=p_dc,
-                # unknown AC rating: the DC nameplate is assumed (README, "Optional ratings")
+                # unknown AC rating: the DC nameplate is assumed (docs/config.md, "Optional ratings")
                 p_ac_max_kw=p_ac if p_ac is not None else p_dc, p_ac_max_assumed=p_ac is None,
                 gamma_pmp_per_c=gamma if gamma is not None else -0.004,
                 mounting=self.val(t, key, "mounting"),

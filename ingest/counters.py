@@ -1,6 +1,6 @@
 """Cumulative energy counters (``e_ac_total_kwh``) to interval energy (``e_ac_kwh``).
 
-Rule (README "Ingest rules"): a counter reading belongs to the end of its row's interval, so
+Rule (docs/config.md "Ingest rules"): a counter reading belongs to the end of its row's interval, so
 the energy of a row's interval is its reading minus the reading of the row before, when that
 row is the immediately preceding interval (``ts_s`` of this row == ``ts_s + interval`` of the
 previous one). Across a gap in the data no energy is assigned (it cannot be split between

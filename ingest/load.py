@@ -1,7 +1,7 @@
 """Load logger exports into the store: one transaction per file, every row accounted for.
 
 :func:`ingest_paths` takes a site config and files or folders; :func:`ingest_file` loads one
-file. The rules (README "Ingest rules"):
+file. The rules (docs/config.md "Ingest rules"):
 
 * **Atomic per file.** A file is read and written inside one transaction; any error rolls it
   back and the store is as before the file. The ``failed`` batch row with the message is

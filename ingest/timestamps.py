@@ -1,6 +1,6 @@
 """Logger timestamps to the store key: integer UTC epoch seconds of the interval start (``ts_s``).
 
-Steps, in order, for each row (see README "Ingest rules"):
+Steps, in order, for each row (see docs/config.md "Ingest rules"):
 
 1. Parse the text with the source's ``format`` (a strptime pattern, ``iso8601`` or ``epoch_s``).
    Text that does not parse rejects the row ("bad timestamp").

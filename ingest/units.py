@@ -76,7 +76,7 @@ def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None 
                 rollover_kwh: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Mask of impossible values (already in stored units) and the reason for each (else None).
 
-    Every quantity is bounded in both directions (README "Ingest rules"): irradiance
+    Every quantity is bounded in both directions (docs/config.md "Ingest rules"): irradiance
     -10..2141.5 W/m²; AC power -0.05..1.5 × ``p_ac_max_kw``, DC power -0.05..1.5 × ``p_dc_kwp``;
     interval energy 0..1.5 × ``p_ac_max_kw`` × ``interval_h``; counters 0..100 years at the AC
     rating (and below ``rollover_kwh`` when set); module temperature -60..100 °C, air

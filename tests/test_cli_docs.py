@@ -1,4 +1,5 @@
-"""Every subcommand has help text with an example and is documented in README.md.
+"""Every subcommand has help text with an example and is documented in the command reference
+(docs/cli.md, linked from README.md); the README's links into docs/ resolve.
 
 Same idea as sqlite-utils' test_docs.py: documentation that cannot drift from the code.
 """
@@ -11,7 +12,9 @@ import pytest
 
 from heliaudit.cli import COMMAND_MODULES, main
 
-README = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+ROOT = Path(__file__).resolve().parents[1]
+README = (ROOT / "README.md").read_text(encoding="utf-8")
+CLI_DOC = (ROOT / "docs" / "cli.md").read_text(encoding="utf-8")
 COMMANDS = sorted(COMMAND_MODULES)
 
 
@@ -42,8 +45,50 @@ def test_command_has_help_and_example(name):
 
 
 @pytest.mark.parametrize("name", COMMANDS)
-def test_command_in_readme(name):
-    assert f"heliaudit {name}" in README, f"README.md does not document 'heliaudit {name}'"
+def test_command_in_reference(name):
+    # one row of the command table in docs/cli.md ("## CLI reference") per command
+    table = CLI_DOC.split("## CLI reference", 1)[1].split("\n## ", 1)[0]
+    rows = [ln for ln in table.splitlines() if ln.startswith(f"| `heliaudit {name}")]
+    rows = [ln for ln in rows if ln.split("`")[1].split()[:2] == ["heliaudit", name]]
+    assert len(rows) == 1, f"docs/cli.md does not document 'heliaudit {name}' once"
+
+
+def _slug(heading: str) -> str:
+    """GitHub's anchor for a Markdown heading: lower case, punctuation dropped, spaces -> '-'."""
+    import re
+    return re.sub(r"[^\w\- ]", "", heading.strip().lower()).replace(" ", "-")
+
+
+def _anchors(text: str) -> set[str]:
+    heads, code = [], False
+    for ln in text.splitlines():
+        if ln.startswith("```"):
+            code = not code
+        elif not code and ln.startswith("#"):
+            heads.append(ln.lstrip("#"))
+    return {_slug(h) for h in heads}
+
+
+def test_doc_links_resolve():
+    """README points to the reference pages, and every relative link (and its #anchor)
+    in README.md and docs/*.md names a file and heading that exist."""
+    import re
+    for page in ("docs/config.md", "docs/cli.md", "docs/results.md", "docs/demo.md"):
+        assert f"]({page})" in README, f"README.md does not link {page}"
+    checked = 0
+    for src in [ROOT / "README.md", *sorted((ROOT / "docs").glob("*.md"))]:
+        text = src.read_text(encoding="utf-8")
+        for target in re.findall(r"\]\(([^)\s]+)\)", text):
+            if re.match(r"[a-z]+:", target):
+                continue  # http(s), mailto
+            path, _, anchor = target.partition("#")
+            dest = (src.parent / path).resolve() if path else src
+            assert dest.is_file(), f"{src.name}: link to missing {target}"
+            if anchor and dest.suffix == ".md":
+                assert anchor in _anchors(dest.read_text(encoding="utf-8")), \
+                    f"{src.name}: no heading for #{anchor} in {dest.name}"
+            checked += 1
+    assert checked >= 8
 
 
 # Documents beside the repository (../shared/) are not part of it: code, tests and docs cite

@@ -1,8 +1,8 @@
 """Site model in the configuration (#11): planes, trackers, arrays, sensor planes, the
 irradiance source chosen per array, optional ratings and the temperature-sensor rule.
 
-Expected values are the configuration rules documented in README ("Site configuration",
-"Methods: irradiance and cell temperature of each array"); sums are hand arithmetic.
+Expected values are the configuration rules documented in docs/config.md ("Site configuration") and README ("Methods:
+irradiance and cell temperature of each array"); sums are hand arithmetic.
 """
 
 from pathlib import Path

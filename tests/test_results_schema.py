@@ -1,7 +1,7 @@
 """The results document against its JSON Schema (issue #15): docs/results.schema.json is a
 valid draft 2020-12 schema (checked by the jsonschema reference implementation's meta-schema),
 real output of the pipeline validates against it, it rejects what it must reject, and the
-README's "Results export" section names exactly the schema's fields."""
+"Results export" section of docs/results.md names exactly the schema's fields."""
 
 from __future__ import annotations
 
@@ -84,7 +84,8 @@ def _schema_names(node, out: set) -> set:
 
 
 def _readme_json_part() -> str:
-    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    """The JSON part of "Results export" in docs/results.md (moved there from README.md)."""
+    text = (ROOT / "docs" / "results.md").read_text(encoding="utf-8")
     part = text.split("## Results export", 1)[1].split("\n## ", 1)[0]
     return part.split("**JSON", 1)[1].split("**CSV", 1)[0]
 
@@ -95,14 +96,14 @@ FIELD = re.compile(r"`([a-z][a-z0-9_]*)(?:\[\])?`")
 def test_readme_field_names_are_the_schemas():
     names = _schema_names(SCHEMA, set())
     documented = set(FIELD.findall(_readme_json_part()))
-    assert documented, "README documents no field"
-    assert documented - names == set(), "README names fields the schema does not have"
+    assert documented, "docs/results.md documents no field"
+    assert documented - names == set(), "docs/results.md names fields the schema does not have"
     # and every field of the main blocks is documented
     d = SCHEMA["$defs"]
     for block in (SCHEMA, d["device"], d["method_result"], d["recommended"], d["caveat"],
                   d["flag"], d["period"], d["change_point"], d["segment"], d["warranty"]):
         missing = set(block["properties"]) - documented
-        assert missing == set(), f"not in README: {sorted(missing)}"
+        assert missing == set(), f"not in docs/results.md: {sorted(missing)}"
     assert "rate_pct_per_year" not in _readme_json_part()  # the JSON writes _per_yr
 
 
