@@ -13,10 +13,11 @@ data, and a copy of one site's inputs over a window into a scratch store.
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
-from db import schema
+from db import daypack, readings, schema
 
 B = schema.ingest_batch
 BATCH_COLUMNS = ("batch_id", "source_name", "file_name", "file_path", "sha256", "size_bytes",
@@ -43,17 +44,11 @@ def contributing_batches(engine: sa.Engine, site_id: str, device_ids=None,
     Columns :data:`BATCH_COLUMNS` plus ``n_readings`` (readings of that batch in the
     selection). ``device_ids`` should include the sensors the inverters read.
     """
-    r = schema.reading
     with engine.connect() as conn:
         chans = _site_channel_ids(conn, site_id, device_ids)
         if not chans:
             return pd.DataFrame(columns=[*BATCH_COLUMNS, "n_readings"])
-        q = sa.select(r.c.batch_id, sa.func.count().label("n")).where(r.c.channel_id.in_(chans))
-        if start_s is not None:
-            q = q.where(r.c.ts_s >= int(start_s))
-        if end_s is not None:
-            q = q.where(r.c.ts_s < int(end_s))
-        counts = dict(conn.execute(q.group_by(r.c.batch_id)).all())
+        counts = readings.batch_counts(conn, chans, start_s, end_s)
         if not counts:
             return pd.DataFrame(columns=[*BATCH_COLUMNS, "n_readings"])
         rows = conn.execute(sa.select(*(B.c[c] for c in BATCH_COLUMNS))
@@ -91,13 +86,10 @@ def copy_site_window(src: sa.Engine, dst: sa.Engine, site_id: str, start_s: int 
         for t in schema.metadata.sorted_tables:
             if _is_result_table(t) or t.name == "rejected_row":
                 continue
-            if t.name == "reading":
-                q = sa.select(t).where(t.c.channel_id.in_(chans))
-                if start_s is not None:
-                    q = q.where(t.c.ts_s >= int(start_s))
-                if end_s is not None:
-                    q = q.where(t.c.ts_s < int(end_s))
-            elif "site_id" in t.c:
+            if t.name == readings.TABLE:  # the readings of the window, re-packed
+                counts[t.name] = _copy_readings(s_conn, d_conn, chans, start_s, end_s)
+                continue
+            if "site_id" in t.c:
                 q = sa.select(t).where(t.c.site_id == site_id)
             elif "device_pk" in t.c:
                 q = sa.select(t).where(t.c.device_pk.in_(dev_pks))
@@ -114,3 +106,18 @@ def copy_site_window(src: sa.Engine, dst: sa.Engine, site_id: str, start_s: int 
                 n += len(part)
             counts[t.name] = n
     return counts
+
+
+def _copy_readings(s_conn: sa.Connection, d_conn: sa.Connection, chans: list[int],
+                   start_s: int | None, end_s: int | None) -> int:
+    """Copy the readings of ``chans`` in ``[start_s, end_s)`` with their batch and interval."""
+    n = 0
+    for ch in chans:
+        got = readings.read_rows(s_conn, ch, start_s, end_s, batches=True)
+        if not got["ts_s"].size:
+            continue
+        readings.write_day_rows(d_conn, daypack.pack(
+            np.full(got["ts_s"].size, ch), got["ts_s"], got["value"],
+            np.nan_to_num(got["interval_s"]).astype(np.int64), got["batch_id"]))
+        n += int(got["ts_s"].size)
+    return n

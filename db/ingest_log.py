@@ -16,7 +16,7 @@ from collections.abc import Iterable
 import pandas as pd
 import sqlalchemy as sa
 
-from db import schema
+from db import readings, schema
 from db.computations import now_utc
 from db.engine import write_lock
 from ingest.errors import Rejected
@@ -31,6 +31,15 @@ def lock_file(conn: sa.Connection, site_id: str, sha256: str) -> None:
     :func:`db.engine.write_lock`): the first statement of the file's transaction, so two
     processes loading the same file at once load it once."""
     write_lock(conn, f"heliaudit:file:{site_id}:{sha256}")
+
+
+def lock_site_readings(conn: sa.Connection, site_id: str) -> None:
+    """Serialise the writers of one site's readings for the rest of the transaction.
+
+    Readings are stored one row per channel and day (schema v6), so two files of the same
+    site loaded at once may merge into the same day row: on PostgreSQL they take turns on
+    this lock (``pg_advisory_xact_lock``); SQLite has one writer at a time anyway."""
+    write_lock(conn, f"heliaudit:readings:{site_id}")
 
 
 def loaded_batch_with_sha(conn: sa.Connection, site_id: str, sha256: str) -> int | None:
@@ -138,7 +147,7 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
     every channel holding data is expected from the site's first interval to the end of its
     last one. A channel that changed from 15 to 5 minutes is therefore complete at 1.0.
     """
-    s, d, c, r = schema.site, schema.device, schema.channel, schema.reading
+    s, d, c = schema.site, schema.device, schema.channel
     with engine.connect() as conn:
         sites = conn.execute(sa.select(s.c.site_id, s.c.name).order_by(s.c.site_id)
                              .where(s.c.site_id == site_id if site_id else sa.true())).all()
@@ -148,11 +157,7 @@ def site_summary(engine: sa.Engine, site_id: str | None = None) -> pd.DataFrame:
                 d.c.site_id == sid).group_by(d.c.kind)).all())
             chans = [x[0] for x in conn.execute(sa.select(c.c.channel_id).join(
                 d, d.c.device_pk == c.c.device_pk).where(d.c.site_id == sid))]
-            per = conn.execute(sa.select(r.c.channel_id, sa.func.count(), sa.func.min(r.c.ts_s),
-                                         sa.func.max(r.c.ts_s), sa.func.sum(r.c.interval_s),
-                                         sa.func.count(r.c.interval_s))
-                               .where(r.c.channel_id.in_(chans)).group_by(r.c.channel_id)).all() \
-                if chans else []
+            per = readings.channel_stats(conn, chans)
             b = conn.execute(sa.select(B.c.status, sa.func.count(), sa.func.sum(B.c.rows_rejected),
                                        sa.func.sum(B.c.values_rejected), sa.func.max(B.c.finished_utc))
                              .where(B.c.site_id == sid).group_by(B.c.status)).all()

@@ -9,11 +9,13 @@ is refused rather than written to.
 
 from __future__ import annotations
 
+import hashlib
 from collections.abc import Callable
 
+import numpy as np
 import sqlalchemy as sa
 
-from db import schema
+from db import daypack, readings, schema
 from db.computations import now_utc
 from db.engine import write_lock
 
@@ -23,7 +25,7 @@ class SchemaTooNewError(RuntimeError):
 
 
 # version -> function(connection) bringing the store from version-1 to version.
-STEPS: dict[int, Callable[[sa.Connection], None]] = {}
+STEPS: dict[int, Callable[[sa.Connection], str | None]] = {}
 
 
 def _v2_daily_e_ac_pr(conn: sa.Connection) -> None:
@@ -61,7 +63,8 @@ STEPS[3] = _v3_method_names
 def _v4_reading_interval(conn: sa.Connection) -> None:
     """reading.interval_s (interval recorded at ingest), channel.sampling and channel.input_id (#11)."""
     insp = sa.inspect(conn)
-    if "interval_s" not in {c["name"] for c in insp.get_columns("reading")}:
+    if insp.has_table("reading") and "interval_s" not in {
+            c["name"] for c in insp.get_columns("reading")}:
         # readings loaded before v4 keep NULL: the reader infers their interval from spacing
         conn.execute(sa.text("ALTER TABLE reading ADD COLUMN interval_s INTEGER"))
     cols = {c["name"] for c in insp.get_columns("channel")}
@@ -119,6 +122,73 @@ def _v5_site_model(conn: sa.Connection) -> None:
 STEPS[5] = _v5_site_model
 
 
+class MigrationError(RuntimeError):
+    pass
+
+
+#: The pre-v6 readings table, one row per reading (what the v6 step moves).
+_OLD_READING_DTYPE = np.dtype([("ts_s", "i8"), ("value", "f8"), ("interval_s", "i8"),
+                               ("batch_id", "i8")])
+
+
+def _v6_packed_readings(conn: sa.Connection) -> str:
+    """Readings packed one row per channel and UTC day, table reading_day (#16)."""
+    schema.reading_day.create(conn, checkfirst=True)
+    insp = sa.inspect(conn)
+    if not insp.has_table("reading"):
+        return "no reading table to move"
+    cols = {c["name"] for c in insp.get_columns("reading")}
+    iv_col = "COALESCE(interval_s, 0)" if "interval_s" in cols else "0"
+    ph = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+    sql = (f"SELECT ts_s, value, {iv_col}, batch_id FROM reading WHERE channel_id = {ph} "
+           "ORDER BY ts_s")
+    n_before = int(conn.execute(sa.text("SELECT count(*) FROM reading")).scalar())
+    before, after = hashlib.sha256(), hashlib.sha256()
+    n_moved, n_chans, ch = 0, 0, None
+    while True:  # channel by channel: one channel's readings in memory at a time
+        ch = conn.execute(sa.text("SELECT min(channel_id) FROM reading" + (
+            "" if ch is None else " WHERE channel_id > :c")), {"c": ch}).scalar()
+        if ch is None:
+            break
+        cur = conn.connection.cursor()
+        try:
+            cur.execute(sql, [int(ch)])
+            old = np.fromiter((tuple(r) for r in cur), dtype=_OLD_READING_DTYPE)
+        finally:
+            cur.close()
+        readings.write_day_rows(conn, daypack.pack(
+            np.full(old.size, ch, dtype=np.int64), old["ts_s"], old["value"],
+            old["interval_s"], old["batch_id"]))
+        got = readings.read_rows(conn, int(ch), batches=True)
+        new_iv = np.nan_to_num(got["interval_s"]).astype(np.int64)
+        _digest(before, ch, old["ts_s"], old["value"], old["interval_s"], old["batch_id"])
+        _digest(after, ch, got["ts_s"], got["value"], new_iv, got["batch_id"])
+        if before.digest() != after.digest():
+            raise MigrationError(f"channel {ch}: the packed readings differ from the stored ones; "
+                                 "nothing was changed (the migration is rolled back)")
+        n_moved += int(old.size)
+        n_chans += 1
+    n_after = readings.count_readings(conn)
+    if not n_before == n_moved == n_after:
+        raise MigrationError(f"readings before {n_before}, moved {n_moved}, after {n_after}; "
+                             "nothing was changed (the migration is rolled back)")
+    conn.execute(sa.text("DROP TABLE reading"))
+    return (f"{n_after} readings of {n_chans} channels moved, every one read back equal; "
+            f"sha256 of (channel, ts_s, value, interval_s, batch_id) before = after = "
+            f"{after.hexdigest()}")
+
+
+def _digest(h, channel_id: int, ts_s, value, interval_s, batch_id) -> None:
+    h.update(np.int64(channel_id).tobytes())
+    h.update(np.ascontiguousarray(ts_s, dtype="<i8").tobytes())
+    h.update((np.ascontiguousarray(value, dtype="<f8") + 0.0).tobytes())  # -0.0 is 0.0
+    h.update(np.ascontiguousarray(interval_s, dtype="<i8").tobytes())
+    h.update(np.ascontiguousarray(batch_id, dtype="<i8").tobytes())
+
+
+STEPS[6] = _v6_packed_readings
+
+
 def current_version(conn: sa.Connection) -> int | None:
     if not sa.inspect(conn).has_table("schema_version"):
         return None
@@ -158,9 +228,10 @@ def upgrade(engine: sa.Engine, target: int = schema.SCHEMA_VERSION) -> int:
             write_lock(conn, "heliaudit:schema")
             if (current_version(conn) or 0) >= step:
                 continue  # another process did this step meanwhile
-            STEPS[step](conn)
+            done = STEPS[step](conn)
+            note = STEPS[step].__doc__ or ""
             conn.execute(schema.schema_version.insert().values(
-                version=step, applied_utc=now_utc(), note=STEPS[step].__doc__ or ""))
+                version=step, applied_utc=now_utc(), note=f"{note} {done}" if done else note))
     # tables added in later versions without data changes
     with engine.begin() as conn:
         write_lock(conn, "heliaudit:schema")

@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
+from db import readings
 from db import schema as s
 from db.flags import READ_COLUMNS, read_flags
 
@@ -208,20 +209,12 @@ _ROWS = np.dtype([("channel_id", "i8"), ("ts_s", "i8"), ("value", "f8")])
 
 def _read_channels(conn: sa.Connection, channel_ids: list[int], start_s: int,
                    end_s: int) -> np.ndarray:
-    """Readings of several channels in one statement through the DBAPI cursor, straight into
-    a structured array (``channel_id, ts_s, value``), in key order."""
-    if not channel_ids:
-        return np.zeros(0, dtype=_ROWS)
-    ph = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    sql = (f"SELECT channel_id, ts_s, value FROM reading WHERE channel_id IN "
-           f"({', '.join([ph] * len(channel_ids))}) AND ts_s >= {ph} AND ts_s < {ph} "
-           "ORDER BY channel_id, ts_s")
-    cur = conn.connection.cursor()
-    try:
-        cur.execute(sql, [int(c) for c in channel_ids] + [int(start_s), int(end_s)])
-        return np.fromiter((tuple(r) for r in cur), dtype=_ROWS)
-    finally:
-        cur.close()
+    """Readings of several channels as a structured array (``channel_id, ts_s, value``), in
+    key order (:func:`db.readings.read_many`)."""
+    got = readings.read_many(conn, channel_ids, start_s, end_s)
+    arr = np.zeros(got["ts_s"].size, dtype=_ROWS)
+    arr["channel_id"], arr["ts_s"], arr["value"] = got["channel_id"], got["ts_s"], got["value"]
+    return arr
 
 
 def daily_reading_counts(engine: sa.Engine, site_id: str, start_s: int, end_s: int,
@@ -231,19 +224,26 @@ def daily_reading_counts(engine: sa.Engine, site_id: str, start_s: int, end_s: i
     ``offset_s`` is the site's standard-time UTC offset (seconds east); the day number is
     ``floor((ts_s + offset_s) / 86400)``. Columns: ``device_id, quantity, day, n``.
     """
-    rd, ch, dv = s.reading.c, s.channel.c, s.device.c
-    day_no = sa.cast(sa.func.floor((rd.ts_s + int(offset_s)) / 86400.0), sa.Integer)
-    q = (sa.select(dv.device_id, ch.quantity, day_no.label("day_no"),
-                   sa.func.count().label("n"))
-         .select_from(s.reading.join(s.channel, ch.channel_id == rd.channel_id)
-                      .join(s.device, dv.device_pk == ch.device_pk))
-         .where(dv.site_id == site_id, dv.kind.in_(list(kinds)), rd.ts_s >= int(start_s),
-                rd.ts_s < int(end_s))
-         .group_by(dv.device_id, ch.quantity, day_no))
-    out = _frame(engine, q)
+    ch, dv = s.channel.c, s.device.c
+    q = (sa.select(ch.channel_id, dv.device_id, ch.quantity)
+         .select_from(s.channel.join(s.device, dv.device_pk == ch.device_pk))
+         .where(dv.site_id == site_id, dv.kind.in_(list(kinds))))
     epoch = dt.date(1970, 1, 1)
-    out["day"] = [epoch + dt.timedelta(days=int(n)) for n in out.pop("day_no")]
-    return out[["device_id", "quantity", "day", "n"]]
+    out = []
+    with engine.connect() as conn:
+        chans = conn.execute(q).all()
+        counts = readings.daily_counts(conn, [c.channel_id for c in chans], int(start_s),
+                                       int(end_s), int(offset_s))
+    for c in chans:
+        for day_no, n in zip(*(x.tolist() for x in counts.get(c.channel_id, ([], []))),
+                             strict=True):
+            out.append((c.device_id, c.quantity, epoch + dt.timedelta(days=int(day_no)), int(n)))
+    # one row per device, quantity and day (several channels of one device and quantity,
+    # e.g. inverter inputs, are summed as the SQL GROUP BY did)
+    frame = pd.DataFrame(out, columns=["device_id", "quantity", "day", "n"])
+    if frame.empty:
+        return frame
+    return frame.groupby(["device_id", "quantity", "day"], as_index=False, sort=False)["n"].sum()
 
 
 # ---------------------------------------------------------------- helpers

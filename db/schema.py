@@ -1,9 +1,10 @@
 """The store's tables, as SQLAlchemy 2 Core metadata (dialect-neutral: SQLite and PostgreSQL).
 
-Keys are compact on purpose: readings are keyed by ``(channel_id, ts_s)`` where ``ts_s`` is
+Keys are compact on purpose: a reading is keyed by ``(channel_id, ts_s)`` where ``ts_s`` is
 integer UTC epoch seconds of the **interval start** (ingest converts every logger's
-convention to this), and ``channel_id`` is one quantity of one device. On SQLite the readings
-table is ``WITHOUT ROWID`` so the primary key is the table (SQLite documentation, "The WITHOUT ROWID Optimization").
+convention to this), and ``channel_id`` is one quantity of one device. Since v6 the readings
+are stored packed, one row per channel and UTC day (``reading_day``, see :mod:`db.daypack`);
+only :mod:`db.readings` reads or writes that table.
 
 Each topic owns its block below; add columns there and bump ``SCHEMA_VERSION`` with a
 forward step in :mod:`db.migrate`.
@@ -13,9 +14,10 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 5  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+SCHEMA_VERSION = 6  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
 #                    4: reading.interval_s, channel.sampling/input_id (#11);
-#                    5: site model: daily bases, optional commissioning/module sensor (#11)
+#                    5: site model: daily bases, optional commissioning/module sensor (#11);
+#                    6: readings packed per channel and UTC day, table reading_day (#16)
 
 metadata = sa.MetaData()
 
@@ -91,16 +93,25 @@ channel = sa.Table(
 )
 
 # ---------------------------------------------------------------- readings
-reading = sa.Table(
-    "reading", metadata,
+#: v6 (#16): one row per channel and UTC day ``[day_s, day_s + 86400)`` holding that day's
+#: readings packed (db.daypack: timestamps as a run or grid mask, values as exact scaled
+#: integers or doubles, each reading's interval and ingest batch). A reading is still keyed
+#: by ``(channel_id, ts_s)`` everywhere outside db/: ``ts_s`` is integer UTC epoch seconds of
+#: the **interval start** (ingest converts every logger's convention to this). On SQLite this is
+#: a rowid table (rows of ~0.2-6 kB stay on their leaf page, which a WITHOUT ROWID b-tree
+#: would spill to overflow pages above ~1 kB).
+reading_day = sa.Table(
+    "reading_day", metadata,
     sa.Column("channel_id", sa.Integer, primary_key=True),
-    sa.Column("ts_s", sa.BigInteger().with_variant(sa.Integer, "sqlite"), primary_key=True),
-    sa.Column("value", sa.Float, nullable=False),
-    sa.Column("batch_id", sa.Integer, nullable=False),  # the ingest batch that last wrote it
-    # v4: the reading's interval length [s] as recorded at ingest (NULL: loaded before v4,
-    # the reader then infers it from the spacing of neighbouring readings)
+    sa.Column("day_s", sa.BigInteger().with_variant(sa.Integer, "sqlite"), primary_key=True),
+    sa.Column("n", sa.Integer, nullable=False),  # readings in the row
+    sa.Column("ts_blob", sa.LargeBinary, nullable=False),
+    sa.Column("value_blob", sa.LargeBinary, nullable=False),
+    # the interval [s] recorded at ingest of every reading of the row (NULL: unknown, loaded
+    # before v4, or differing within the day: then runs_blob holds it per reading)
     sa.Column("interval_s", sa.Integer),
-    sqlite_with_rowid=False,
+    sa.Column("batch_id", sa.Integer, nullable=False),  # the batch that last wrote (latest)
+    sa.Column("runs_blob", sa.LargeBinary),  # NULL unless interval or batch differ in the day
 )
 
 # ---------------------------------------------------------------- ingest log

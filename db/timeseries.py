@@ -1,8 +1,9 @@
 """Interval frames read from the store: one inverter with its sensors, or a whole site.
 
-Reading is the bottleneck of every recompute (about 1 M rows/s, measured on this machine), so each
-channel is read with one query on the ``(channel_id, ts_s)`` primary key through the raw
-DBAPI cursor, turned into numpy arrays without per-row Python objects, and aligned in numpy.
+Reading was the bottleneck of every recompute (about 1 M rows/s one row per reading, measured
+on this machine); since schema v6 each channel's window is one range scan over its packed day
+rows (:mod:`db.readings`, :mod:`db.daypack`), decoded with numpy without per-reading Python
+objects, and aligned in numpy.
 
 Conventions:
 
@@ -33,21 +34,13 @@ import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
-from db import schema
+from db import readings, schema
 
 INVERTER_FRAME_COLUMNS = ("p_ac_kw", "e_ac_kwh", "poa_wm2", "t_module_c", "t_amb_c", "wind_ms",
                           "interval_h")
 #: inverter column -> the inverter-table column naming the sensor that delivers it
 SENSOR_REFS = {"poa_wm2": "poa_sensor_id", "t_module_c": "t_module_sensor_id",
                "t_amb_c": "t_amb_sensor_id", "wind_ms": "wind_sensor_id"}
-
-
-_ROW_DTYPE = np.dtype([("ts_s", np.int64), ("value", np.float64)])
-#: ts_s and interval_s travel packed in one integer, ``ts_s * 2**20 + interval_s`` (computed in
-#: SQL): one Python int per row instead of two keeps reading the interval cheap (~10 % more
-#: CPU than without it, against ~25 % for a third column; measured). db.readings stores no
-#: interval of 2**20 s or more.
-_IV_BITS = 20
 
 
 def interval_h_from_ts(ts_s: np.ndarray) -> np.ndarray:
@@ -82,41 +75,17 @@ def interval_h_from_ts(ts_s: np.ndarray) -> np.ndarray:
     return out / 3600.0
 
 
-def _paramstyle(conn: sa.Connection) -> str:
-    return "?" if conn.dialect.paramstyle == "qmark" else "%s"
-
-
 def read_channel(conn: sa.Connection, channel_id: int, start_s: int | None = None,
                  end_s: int | None = None, *, with_interval: bool = False) -> tuple[np.ndarray, ...]:
     """``(ts_s int64, value float)`` arrays of one channel in ``[start_s, end_s)``, by key order.
 
     With ``with_interval`` a third array: each reading's interval [s] as recorded at ingest,
-    NaN for readings stored before schema v4 (:func:`fill_unknown_intervals`)."""
-    ph = _paramstyle(conn)
-    cols = (f"ts_s * {1 << _IV_BITS} + COALESCE(interval_s, 0), value" if with_interval
-            else "ts_s, value")
-    sql = f"SELECT {cols} FROM reading WHERE channel_id = {ph}"
-    args: list = [int(channel_id)]
-    if start_s is not None:
-        sql += f" AND ts_s >= {ph}"
-        args.append(int(start_s))
-    if end_s is not None:
-        sql += f" AND ts_s < {ph}"
-        args.append(int(end_s))
-    sql += " ORDER BY ts_s"
-    cur = conn.connection.cursor()
-    try:
-        cur.execute(sql, args)
-        # rows go straight from the cursor into a structured array: no list of tuples kept
-        arr = np.fromiter(cur, dtype=_ROW_DTYPE)
-    finally:
-        cur.close()
+    NaN for readings stored before schema v4 (:func:`fill_unknown_intervals`). The day rows
+    of the window are read with one range scan and decoded with numpy (:mod:`db.readings`)."""
+    got = readings.read_rows(conn, channel_id, start_s, end_s)
     if not with_interval:
-        return arr["ts_s"].copy(), arr["value"].copy()
-    packed = arr["ts_s"]
-    iv = (packed & ((1 << _IV_BITS) - 1)).astype(float)
-    iv[iv <= 0] = np.nan
-    return packed >> _IV_BITS, arr["value"].copy(), iv
+        return got["ts_s"], got["value"]
+    return got["ts_s"], got["value"], got["interval_s"]
 
 
 def fill_unknown_intervals(ts_s: np.ndarray, interval_s: np.ndarray) -> np.ndarray:

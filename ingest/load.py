@@ -230,6 +230,7 @@ def _load_once(engine, cfg, source, path, channels, fields, progress, chunk_rows
                     progress(fields["size_bytes"])
                 return BatchResult(path=path, site_id=cfg.id, source_name=source.name,
                                    status="unchanged", batch_id=bid, message=msg)
+            ingest_log.lock_site_readings(conn, cfg.id)
             bid = ingest_log.start_batch(conn, **fields)
             fl = _FileLoader(conn, cfg, source, path, channels, bid, progress)
             fl.run(chunk_rows)

@@ -22,7 +22,7 @@ import datetime as dt
 import numpy as np
 import sqlalchemy as sa
 
-from db import schema
+from db import readings, schema
 from db.engine import make_engine
 
 
@@ -85,8 +85,59 @@ def add_readings(conn: sa.Connection, channel_id: int, ts_s, values, batch_id: i
     ts = np.asarray(ts_s, dtype=np.int64)
     v = np.asarray(values, dtype=float)
     ok = np.isfinite(v)
-    rows = [{"channel_id": int(channel_id), "ts_s": int(t), "value": float(x),
-             "batch_id": batch_id} for t, x in zip(ts[ok], v[ok], strict=True)]
+    # no interval recorded (as readings stored before schema v4): the reader infers it
+    return readings.write_readings(conn, np.full(int(ok.sum()), int(channel_id)), ts[ok], v[ok],
+                                   batch_id)
+
+
+def stored_readings(engine_or_conn, site_id: str | None = None, device_id: str | None = None,
+                    quantity: str | None = None):
+    """Every stored reading (of a site / device / quantity) as a DataFrame ``channel_id,
+    device_id, quantity, ts_s, value, batch_id, interval_s`` in (quantity, device, ts) order,
+    read through the store's own read path (db.readings)."""
+    import pandas as pd
+
+    if isinstance(engine_or_conn, sa.Engine):
+        with engine_or_conn.connect() as conn:
+            return stored_readings(conn, site_id, device_id, quantity)
+    conn = engine_or_conn
+    d, c = schema.device, schema.channel
+    q = sa.select(c.c.channel_id, d.c.device_id, c.c.quantity).join(d, d.c.device_pk == c.c.device_pk)
+    if site_id is not None:
+        q = q.where(d.c.site_id == site_id)
+    if device_id is not None:
+        q = q.where(d.c.device_id == device_id)
+    if quantity is not None:
+        q = q.where(c.c.quantity == quantity)
+    names = {r.channel_id: (r.device_id, r.quantity) for r in conn.execute(q)}
+    got = readings.read_many(conn, list(names), batches=True)
+    out = pd.DataFrame({"channel_id": got["channel_id"],
+                        "device_id": [names[x][0] for x in got["channel_id"].tolist()],
+                        "quantity": [names[x][1] for x in got["channel_id"].tolist()],
+                        "ts_s": got["ts_s"], "value": got["value"], "batch_id": got["batch_id"],
+                        "interval_s": got["interval_s"]})
+    return out.sort_values(["quantity", "device_id", "ts_s"], kind="stable").reset_index(drop=True)
+
+
+def readings_to_old_layout(conn: sa.Connection, *, interval: bool = True) -> int:
+    """Turn the store's readings back into the one-row-per-reading table ``reading`` of schema
+    versions 1-5 (``interval_s`` from v4 on: ``interval=False`` for an older store) and drop
+    ``reading_day``: a fixture for the forward migrations. Returns the readings moved."""
+    chans = conn.execute(sa.select(schema.reading_day.c.channel_id).distinct()).scalars().all()
+    got = readings.read_many(conn, chans, batches=True)
+    iv_col = ", interval_s INTEGER" if interval else ""
+    conn.execute(sa.text(
+        "CREATE TABLE reading (channel_id INTEGER NOT NULL, ts_s BIGINT NOT NULL, "
+        f"value FLOAT NOT NULL, batch_id INTEGER NOT NULL{iv_col}, "
+        "PRIMARY KEY (channel_id, ts_s))" + (" WITHOUT ROWID" if conn.dialect.name == "sqlite"
+                                             else "")))
+    rows = [{"c": c, "t": t, "v": v, "b": b, "i": None if i != i else int(i)} for c, t, v, b, i in zip(
+        got["channel_id"].tolist(), got["ts_s"].tolist(), got["value"].tolist(),
+        got["batch_id"].tolist(), got["interval_s"].tolist(), strict=True)]
     if rows:
-        conn.execute(schema.reading.insert(), rows)
+        conn.execute(sa.text(
+            "INSERT INTO reading (channel_id, ts_s, value, batch_id"
+            + (", interval_s) VALUES (:c, :t, :v, :b, :i)" if interval else ") VALUES (:c, :t, :v, :b)")),
+            rows)
+    conn.execute(sa.text("DROP TABLE reading_day"))
     return len(rows)

@@ -2,10 +2,14 @@
 
 from __future__ import annotations
 
+import numpy as np
+import pytest
 import sqlalchemy as sa
 
-from db import schema
-from db.migrate import METHOD_RENAMES_V3, current_version, upgrade
+from db import readings, schema
+from db.engine import make_engine
+from db.migrate import METHOD_RENAMES_V3, MigrationError, current_version, upgrade
+from tests.helpers_store import readings_to_old_layout
 
 
 def test_v2_store_gets_the_schema_2_method_names(tmp_path):
@@ -75,3 +79,102 @@ def test_v5_step_on_postgres_drops_not_null(pg_engine):
         daily = {c["name"] for c in sa.inspect(conn).get_columns("daily_inverter")}
     assert cols["commissioned"]["nullable"] and cols["t_module_sensor_id"]["nullable"]
     assert {"irradiance_basis", "t_cell_basis"} <= daily
+
+
+# ---------------------------------------------------------------- v6: packed readings (#16)
+
+def _old_readings(rng):
+    """Readings as pre-v6 stores held them: several channels, irregular times, decimals, full
+    doubles, a lifetime counter, two batches, NULL and recorded intervals."""
+    out = []
+    for ch in (1, 2, 3):
+        ts = np.unique(rng.integers(1_577_836_800, 1_577_836_800 + 40 * 86_400, 3000)) // 300 * 300
+        ts = np.unique(ts)
+        v = {1: np.round(rng.normal(50, 30, ts.size), 2), 2: rng.normal(0, 1, ts.size),
+             3: np.round(1.2e6 + np.cumsum(rng.uniform(0, 5, ts.size)), 3)}[ch]
+        b = np.where(ts < 1_577_836_800 + 20 * 86_400, 1, 2)
+        iv = np.where(rng.random(ts.size) < 0.5, 300, -1)
+        out += list(zip([ch] * ts.size, ts.tolist(), v.tolist(), b.tolist(), iv.tolist(), strict=True))
+    return out
+
+
+def _check_moved(eng, old, with_interval):
+    with eng.connect() as conn:
+        assert current_version(conn) == schema.SCHEMA_VERSION
+        assert not sa.inspect(conn).has_table("reading")
+        note = conn.execute(sa.select(schema.schema_version.c.note)
+                            .where(schema.schema_version.c.version == 6)).scalar()
+        assert f"{len(old)} readings of 3 channels moved" in note and "sha256" in note
+        for ch in (1, 2, 3):
+            mine = [r for r in old if r[0] == ch]
+            got = readings.read_rows(conn, ch, batches=True)
+            # the input is the truth: every reading back bit for bit, with batch and interval
+            assert got["ts_s"].tolist() == [r[1] for r in mine]
+            assert got["value"].tolist() == [r[2] for r in mine]
+            assert got["batch_id"].tolist() == [r[3] for r in mine]
+            want_iv = [float(r[4]) if with_interval and r[4] > 0 else None for r in mine]
+            assert [None if x != x else x for x in got["interval_s"].tolist()] == want_iv
+
+
+def test_v2_store_readings_move_to_day_rows_without_losing_a_value(tmp_path):
+    """A version-2 store (readings one per row, no interval_s yet) goes through v3..v6; the v6
+    step moves every reading into reading_day, checks counts and a checksum, and drops
+    the old table."""
+    eng = sa.create_engine(f"sqlite:///{tmp_path}/v2.sqlite")
+    old = _old_readings(np.random.default_rng(3))
+    with eng.begin() as conn:
+        schema.metadata.create_all(conn, tables=[t for t in schema.metadata.sorted_tables
+                                                 if t.name != "reading_day"])
+        conn.execute(sa.text("CREATE TABLE reading (channel_id INTEGER NOT NULL, ts_s INTEGER "
+                             "NOT NULL, value FLOAT NOT NULL, batch_id INTEGER NOT NULL, "
+                             "PRIMARY KEY (channel_id, ts_s)) WITHOUT ROWID"))
+        conn.execute(sa.text("INSERT INTO reading VALUES (:c, :t, :v, :b)"),
+                     [{"c": c, "t": t, "v": v, "b": b} for c, t, v, b, _i in old])
+        conn.execute(schema.schema_version.insert().values(version=2, applied_utc="x", note="v2"))
+    assert upgrade(eng) == schema.SCHEMA_VERSION
+    _check_moved(eng, old, with_interval=False)
+
+
+def _v5_store(eng, old):
+    with eng.begin() as conn:
+        conn.execute(schema.reading_day.delete())
+        readings_to_old_layout(conn)  # the v5 reading table, empty
+        conn.execute(sa.text("INSERT INTO reading (channel_id, ts_s, value, batch_id, interval_s) "
+                             "VALUES (:c, :t, :v, :b, :i)"),
+                     [{"c": c, "t": t, "v": v, "b": b, "i": i if i > 0 else None}
+                      for c, t, v, b, i in old])
+        conn.execute(schema.schema_version.delete())
+        conn.execute(schema.schema_version.insert().values(version=5, applied_utc="x", note="v5"))
+
+
+def test_v5_store_readings_move_to_day_rows(tmp_path):
+    eng = make_engine(tmp_path / "v5.sqlite")
+    old = _old_readings(np.random.default_rng(5))
+    _v5_store(eng, old)
+    eng.dispose()
+    eng = sa.create_engine(f"sqlite:///{tmp_path}/v5.sqlite")
+    assert upgrade(eng) == schema.SCHEMA_VERSION
+    _check_moved(eng, old, with_interval=True)
+
+
+def test_v5_store_readings_move_on_postgres(pg_engine):
+    old = _old_readings(np.random.default_rng(6))
+    _v5_store(pg_engine, old)
+    assert upgrade(pg_engine) == schema.SCHEMA_VERSION
+    _check_moved(pg_engine, old, with_interval=True)
+
+
+def test_v6_step_refuses_a_lossy_move(tmp_path, monkeypatch):
+    """If a packed channel did not read back equal, the step fails and the store stays at v5
+    with its readings where they were (the step's transaction is rolled back)."""
+    from db import daypack
+    eng = make_engine(tmp_path / "v5.sqlite")
+    old = _old_readings(np.random.default_rng(7))
+    _v5_store(eng, old)
+    real = daypack.pack
+    monkeypatch.setattr(daypack, "pack", lambda ch, ts, v, iv, b: real(ch, ts, v + 1e-3, iv, b))
+    with pytest.raises(MigrationError, match="differ from the stored ones"):
+        upgrade(eng)
+    with eng.connect() as conn:
+        assert current_version(conn) == 5
+        assert conn.execute(sa.text("SELECT count(*) FROM reading")).scalar() == len(old)

@@ -8,12 +8,12 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 import pytest
-import sqlalchemy as sa
 
-from db import schema
+from db import readings
 from db.ingest_log import ingest_log, rejected_rows, site_summary
 from ingest.config import load_site_config
 from ingest.load import ingest_paths
+from tests.helpers_store import stored_readings
 
 pytestmark = pytest.mark.postgres
 DATA = Path(__file__).resolve().parent / "data"
@@ -24,12 +24,8 @@ def utc(y, mo, d, h, mi):
 
 
 def series(engine, device, quantity):
-    r, c, d = schema.reading, schema.channel, schema.device
-    q = (sa.select(r.c.ts_s, r.c.value).join(c, c.c.channel_id == r.c.channel_id)
-         .join(d, d.c.device_pk == c.c.device_pk)
-         .where(d.c.device_id == device, c.c.quantity == quantity).order_by(r.c.ts_s))
-    with engine.connect() as conn:
-        return dict(conn.execute(q).all())
+    df = stored_readings(engine, None, device, quantity)
+    return dict(zip(df.ts_s.tolist(), df.value.tolist(), strict=True))
 
 
 def test_round_trip_on_postgres(pg_engine, tmp_path):
@@ -60,13 +56,13 @@ def test_round_trip_on_postgres(pg_engine, tmp_path):
 
     # a failing file leaves the store as it was
     with pg_engine.connect() as conn:
-        before = conn.execute(sa.select(sa.func.count()).select_from(schema.reading)).scalar()
+        before = readings.count_readings(conn)
     bad = tmp_path / "d_dst_bad.csv"
     bad.write_text("Time,INV1_PAC,Extra\n2023-07-01 10:00,1,2\n")
     (failed,) = ingest_paths(pg_engine, cfg, [bad])
     assert failed.status == "failed" and "unmapped columns: 'Extra'" in failed.message
     with pg_engine.connect() as conn:
-        assert conn.execute(sa.select(sa.func.count()).select_from(schema.reading)).scalar() == before
+        assert readings.count_readings(conn) == before
     assert ingest_log(pg_engine, "dialects").status.tolist()[0] == "failed"
     s = site_summary(pg_engine).iloc[0]
     assert s.batches_loaded == 5 and s.batches_failed == 1 and s.batches_unchanged == 1

@@ -1,6 +1,6 @@
-"""The bulk write path: insert, upsert (last wins), stored ranges and lookups, WITHOUT ROWID."""
+"""The readings store (schema v6): value-level upsert into day rows (last wins), stored ranges and
+lookups, the packed layout (db.daypack) returning every value exactly."""
 
-import sqlite3
 from pathlib import Path
 
 import numpy as np
@@ -21,8 +21,17 @@ def _chan(engine):
 
 
 def rows(engine):
+    """Every stored reading as (ts_s, value, batch_id) in key order."""
     with engine.connect() as conn:
-        return conn.execute(sa.select(schema.reading).order_by("channel_id", "ts_s")).all()
+        ch = conn.execute(sa.select(schema.reading_day.c.channel_id).distinct()).scalars().all()
+        got = readings.read_many(conn, ch, batches=True)
+    return list(zip(got["ts_s"].tolist(), got["value"].tolist(), got["batch_id"].tolist(),
+                    strict=True))
+
+
+def day_rows(engine):
+    with engine.connect() as conn:
+        return conn.execute(sa.select(schema.reading_day).order_by("channel_id", "day_s")).all()
 
 
 def write(engine, ch, ts, v, batch, upsert):
@@ -43,16 +52,23 @@ def test_insert_then_upsert_last_wins(engine):
     b1, b2 = _batches(engine, 2)
     write(engine, ch, [0, 900, 1800], [1, 2, 3], b1, upsert=False)
     write(engine, ch, [900, 2700], [20, 4], b2, upsert=True)
-    assert [(r.ts_s, r.value, r.batch_id) for r in rows(engine)] == [
-        (0, 1.0, b1), (900, 20.0, b2), (1800, 3.0, b1), (2700, 4.0, b2)]
+    assert rows(engine) == [(0, 1.0, b1), (900, 20.0, b2), (1800, 3.0, b1), (2700, 4.0, b2)]
+    # one row for the one UTC day, its readings from two batches kept per reading
+    (day,) = day_rows(engine)
+    assert (day.day_s, day.n, day.batch_id, day.interval_s) == (0, 4, b2, None)
+    assert day.runs_blob is not None
 
 
-def test_plain_insert_refuses_existing_key(engine):
+def test_a_later_file_merges_into_the_stored_day(engine):
+    """Non-overlapping files sharing a UTC day (morning, then afternoon) end in one day row,
+    whatever ``upsert`` says; a file spanning midnight makes two rows."""
     ch = _chan(engine)
-    (b,) = _batches(engine, 1)
-    write(engine, ch, [0], [1], b, upsert=False)
-    with pytest.raises((sa.exc.IntegrityError, sqlite3.IntegrityError)):
-        write(engine, ch, [0], [2], b, upsert=False)
+    b1, b2 = _batches(engine, 2)
+    write(engine, ch, [36_000, 36_900], [1.5, 2.5], b1, upsert=False)
+    write(engine, ch, [50_400, 86_100, 86_400], [3.5, 4.5, 5.5], b2, upsert=False)
+    assert [(r.day_s, r.n) for r in day_rows(engine)] == [(0, 4), (86_400, 1)]
+    assert rows(engine) == [(36_000, 1.5, b1), (36_900, 2.5, b1), (50_400, 3.5, b2),
+                            (86_100, 4.5, b2), (86_400, 5.5, b2)]
 
 
 def test_stored_range_values_previous(engine):
@@ -76,14 +92,84 @@ def test_key_roundtrip():
     assert np.all(np.diff(readings.key(np.array([1, 1, 2]), np.array([5, 9, 0]))) > 0)  # key order
 
 
-def test_reading_table_is_without_rowid(engine):
+def test_previous_next_and_has_reading_across_days(engine):
+    ch = _chan(engine)
+    (b,) = _batches(engine, 1)
+    write(engine, ch, [3600, 86_000, 3 * 86_400 + 600], [1, 2, 3], b, upsert=False)
     with engine.connect() as conn:
-        sql = conn.exec_driver_sql("SELECT sql FROM sqlite_master WHERE name = 'reading'").scalar()
-    assert "WITHOUT ROWID" in sql.upper()
+        assert readings.previous_reading(conn, ch, 3 * 86_400 + 600) == (86_000, 2.0)
+        assert readings.previous_reading(conn, ch, 86_000) == (3600, 1.0)
+        assert readings.next_reading(conn, ch, 86_000) == (3 * 86_400 + 600, 3.0)
+        assert readings.next_reading(conn, ch, 3600) == (86_000, 2.0)
+        assert readings.next_reading(conn, ch, 3 * 86_400 + 600) is None
+        assert readings.has_reading(conn, ch, 86_000)
+        assert not readings.has_reading(conn, ch, 86_100)
+        assert readings.count_readings(conn, [ch]) == 3
 
 
-def test_multi_row_statements_with_remainder_roundtrip(engine):
-    # 1234 rows = 4 statements of 250 rows + 234 single-row inserts; then an upsert of half
+def test_each_reading_keeps_its_interval(engine):
+    """A channel that changes from 15 to 5 minutes mid-day keeps 900 s on its old readings and
+    300 s on its new ones; unknown (NaN) stays unknown (schema v4 semantics)."""
+    ch = _chan(engine)
+    (b,) = _batches(engine, 1)
+    ts = np.array([0, 900, 1800, 2100, 2400, 2700])
+    iv = np.array([900, 900, 900, 300, 300, np.nan])
+    with engine.begin() as conn:
+        readings.write_readings(conn, np.full(6, ch), ts, np.arange(6.0), b, upsert=False,
+                                interval_s=iv)
+    with engine.connect() as conn:
+        got = readings.read_rows(conn, ch)
+    assert_array_equal(got["interval_s"], iv)
+
+
+@pytest.mark.parametrize("values", [
+    np.round(np.linspace(-50, 400, 288), 2),  # 2 decimals: int16 / int32 scaled integers
+    np.round(np.linspace(0, 1.2e6, 288), 3),  # a lifetime energy counter [kWh], 1 Wh resolution
+    np.linspace(0, 1, 288) ** 0.5,  # full doubles: kept as doubles
+    np.array([0.1, 0.2, 0.3, 1e-9, 123456.789, 2.0 ** 40, -0.0] * 41 + [5e-324]),
+])
+def test_every_value_comes_back_exactly(engine, values):
+    """Nothing is rounded: a reading reads back bit for bit (only -0.0 becomes 0.0)."""
+    ch = _chan(engine)
+    (b,) = _batches(engine, 1)
+    ts = np.arange(values.size) * 300
+    write(engine, ch, ts, values, b, upsert=False)
+    with engine.connect() as conn:
+        got = readings.read_rows(conn, ch)
+    assert_array_equal(got["ts_s"], ts)
+    assert (got["value"] == values).all()
+
+
+def test_packed_sizes_by_hand():
+    """Bytes of one day row's packed parts, computed by hand from the layout (db.daypack)."""
+    from db import daypack
+    ts = np.arange(288) * 300  # a complete 5-min day: the timestamps are a 9-byte run header
+    p = daypack.pack(np.ones(288), ts, np.round(np.linspace(0, 300, 288), 2), np.full(288, 300),
+                     np.ones(288))
+    assert len(p.ts_blob[0]) == 9
+    assert len(p.value_blob[0]) == 2 + 288 * 2  # 300.00 -> 30000 < 2**15: int16
+    p = daypack.pack(np.ones(288), ts, np.round(np.linspace(0, 400, 288), 2), np.full(288, 300),
+                     np.ones(288))
+    assert len(p.value_blob[0]) == 2 + 288 * 4  # 400.00 -> 40000 >= 2**15: int32
+    gaps = ts[(ts < 20_000) | (ts > 70_000)]  # a logger silent mid-day: grid mask of 286 bits
+    p = daypack.pack(np.ones(gaps.size), gaps, np.zeros(gaps.size), np.zeros(gaps.size),
+                     np.ones(gaps.size))
+    assert len(p.ts_blob[0]) == 9 + 36  # ceil(286 / 8) = 36 bytes
+    assert len(p.value_blob[0]) == 2 + gaps.size * 2 and p.interval_s == [None]
+
+
+def test_reading_day_is_one_row_per_channel_and_utc_day(engine):
+    ch = _chan(engine)
+    (b,) = _batches(engine, 1)
+    ts = np.arange(3 * 288) * 300 + 86_400
+    write(engine, ch, ts, np.ones(ts.size), b, upsert=False)
+    got = day_rows(engine)
+    assert [(r.day_s, r.n, r.interval_s) for r in got] == [
+        (86_400, 288, None), (2 * 86_400, 288, None), (3 * 86_400, 288, None)]
+
+
+def test_multi_day_upsert_roundtrip(engine):
+    # 1234 rows over 5 days, then an upsert of every other one from another batch
     ch = _chan(engine)
     b1, b2 = _batches(engine, 2)
     ts = np.arange(1234) * 300
@@ -91,5 +177,5 @@ def test_multi_row_statements_with_remainder_roundtrip(engine):
     write(engine, ch, ts[::2], -1.0 * np.ones(617), b2, upsert=True)
     got = rows(engine)
     assert len(got) == 1234
-    assert [r.value for r in got[:4]] == [-1.0, 1.0, -1.0, 3.0]
-    assert sum(r.batch_id == b2 for r in got) == 617
+    assert [r[1] for r in got[:4]] == [-1.0, 1.0, -1.0, 3.0]
+    assert sum(r[2] == b2 for r in got) == 617

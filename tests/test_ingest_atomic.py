@@ -20,6 +20,7 @@ from db import schema
 from db.engine import make_engine
 from ingest.config import load_site_config
 from ingest.load import ingest_paths
+from tests.helpers_store import stored_readings
 
 DATA = Path(__file__).resolve().parent / "data"
 REPO = Path(__file__).resolve().parents[1]
@@ -43,9 +44,10 @@ CHILD = textwrap.dedent("""
 
 def counts(engine):
     with engine.connect() as conn:
-        return (conn.execute(sa.select(sa.func.count()).select_from(schema.reading)).scalar(),
+        df = stored_readings(conn)
+        return (len(df),
                 conn.execute(sa.select(sa.func.count()).select_from(schema.ingest_batch)).scalar(),
-                conn.execute(sa.select(sa.func.sum(schema.reading.c.value))).scalar())
+                float(df.value.sum()) if len(df) else None)
 
 
 @pytest.mark.slow

@@ -30,6 +30,7 @@ from db.engine import display_url, make_engine, mask_secrets, resolve_url
 from heliaudit.cli import main
 from ingest.config import load_site_config
 from ingest.load import ingest_paths
+from tests.helpers_store import stored_readings
 
 DATA = Path(__file__).resolve().parent / "data"
 REPO = Path(__file__).resolve().parents[1]
@@ -74,13 +75,9 @@ def two_months(tmp_path):
 
 
 def store_rows(engine):
-    with engine.connect() as conn:
-        q = (sa.select(schema.channel.c.quantity, schema.device.c.device_id, schema.reading.c.ts_s,
-                       schema.reading.c.value)
-             .join(schema.channel, schema.channel.c.channel_id == schema.reading.c.channel_id)
-             .join(schema.device, schema.device.c.device_pk == schema.channel.c.device_pk)
-             .order_by(schema.channel.c.quantity, schema.device.c.device_id, schema.reading.c.ts_s))
-        return [(q_, d, int(t), round(float(v), 9)) for q_, d, t, v in conn.execute(q)]
+    df = stored_readings(engine)
+    return [(q_, d, int(t), round(float(v), 9)) for q_, d, t, v in zip(
+        df.quantity, df.device_id, df.ts_s, df.value, strict=True)]
 
 
 def test_load_order_does_not_change_the_store(two_months, tmp_path):

@@ -14,6 +14,7 @@ from click.testing import CliRunner
 from heliaudit.cli import main
 from ingest.config import TimestampSpec
 from ingest.timestamps import NAT, TimestampConverter
+from tests.helpers_store import stored_readings
 
 
 def test_rows_outside_the_plausible_date_window_are_rejected_with_the_reason():
@@ -69,10 +70,10 @@ def counts_of(output):
     return [int(x or 0) for x in m.groups()]
 
 
-def stored(site, sql="SELECT count(*) FROM reading"):
+def stored(site, quantity=None):
+    """The stored readings (db.readings read path) as a DataFrame."""
     eng = sa.create_engine(f"sqlite:///{site / 's.sqlite'}")
-    with eng.connect() as c:
-        out = c.execute(sa.text(sql)).all()
+    out = stored_readings(eng, quantity=quantity)
     eng.dispose()
     return out
 
@@ -117,7 +118,7 @@ def test_damaged_gzip_is_one_error_line(site, damage):
     r = ingest(site, "basic_z.csv.gz", data)
     assert r.exit_code == 1
     assert re.search(r"basic_z\.csv\.gz:\d+: cannot be read", r.output), r.output
-    assert stored(site)[0][0] == 0  # nothing of the damaged file is kept
+    assert len(stored(site)) == 0  # nothing of the damaged file is kept
 
 
 def test_utf16_without_bom_is_one_error_line_with_a_hint(site):
@@ -152,8 +153,7 @@ def test_nan_spellings_are_missing_only_when_configured(site):
     r = ingest(site, "basic_n.csv", HEAD + "\n".join(body) + "\n")
     assert r.output.count("is not a number") == 3  # nAn, NAN, -nan; NaN is configured as missing
     assert "'-nan' is not a number" in r.output
-    (n,) = stored(site, "SELECT count(*) FROM reading r JOIN channel c USING (channel_id) "
-                        "WHERE c.quantity = 'p_ac_kw'")[0]
+    n = len(stored(site, "p_ac_kw"))
     assert n == 12 - 4  # 6 rows x 2 inverters, 4 INV1 values not loaded
 
 
@@ -165,8 +165,7 @@ def test_irradiance_and_counter_limits_both_ways(site):
         body[k] = ",".join(c)
     r = ingest(site, "basic_g.csv", HEAD + "\n".join(body) + "\n")
     assert "irradiance above 2141.5" in r.output and "irradiance below -10" in r.output
-    vals = [x[0] for x in stored(site, "SELECT value FROM reading r JOIN channel c USING "
-                                       "(channel_id) WHERE c.quantity = 'poa_wm2' ORDER BY ts_s")]
+    vals = stored(site, "poa_wm2").value.tolist()
     assert 1700.0 in vals and max(vals) <= 2141.5 and min(vals) >= -10  # cloud enhancement kept
 
 
@@ -187,7 +186,7 @@ def test_mixed_offset_rows_are_rejected_not_shifted(site):
     read, loaded, dup, rej, blank = counts_of(r.output)
     assert (loaded, rej) == (3, 1)
     assert "has no UTC offset, unlike the file's first timestamp" in r.output
-    ts = [x[0] for x in stored(site, "SELECT DISTINCT ts_s FROM reading ORDER BY ts_s")]
+    ts = sorted(set(stored(site).ts_s.tolist()))
     assert ts[0] == 1685606400  # 2023-06-01 08:00 UTC = 10:00 +02:00
 
 
@@ -197,7 +196,7 @@ def test_row_after_a_gap_never_takes_the_gap_as_its_interval(site):
     body = rows(20) + ["2023-06-02 12:00,10,11,300,25.5"]  # a lone row 1 day 7 hours later
     r = ingest(site, "basic_gap.csv", HEAD + "\n".join(body) + "\n", config="send.toml")
     assert counts_of(r.output)[1] == 21
-    last = stored(site, "SELECT max(ts_s) FROM reading")[0][0]
+    last = int(stored(site).ts_s.max())
     # interval-end label 12:00 with the file's 15-min interval: the interval starts at 11:45
     assert last == 1685706300  # 2023-06-02 11:45 UTC (not 2023-06-01 04:45, the gap's start)
     assert "interval 900 s" in r.output

@@ -22,6 +22,7 @@ import sqlalchemy as sa
 from db import schema
 from db.daily import daily_table
 from db.timeseries import input_dc_power, inverter_frame, read_channel, site_channels
+from tests.helpers_store import readings_to_old_layout
 from heliaudit import jobs_daily, jobs_flags
 from ingest.config import load_site_config
 from ingest.counters import COARSE_FRACTION, counter_resolution, is_coarse
@@ -451,8 +452,8 @@ def test_v3_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
     cfg = _site(tmp_path, MIXED_SOURCE)
     f, _hand = _write_mixed(tmp_path)
     ingest_paths(eng, cfg, [f])
-    with eng.begin() as conn:  # turn it into a v3 store
-        conn.execute(sa.text("ALTER TABLE reading DROP COLUMN interval_s"))
+    with eng.begin() as conn:  # turn it into a v3 store: readings one per row, no interval
+        readings_to_old_layout(conn, interval=False)
         conn.execute(sa.text("CREATE TABLE channel_old (channel_id INTEGER NOT NULL PRIMARY KEY, "
                              "device_pk INTEGER NOT NULL, quantity VARCHAR(32) NOT NULL, "
                              "CONSTRAINT uq_channel_device_quantity UNIQUE (device_pk, quantity))"))
@@ -464,7 +465,8 @@ def test_v3_store_migrates_and_old_readings_keep_inferred_intervals(tmp_path):
     eng.dispose()
     eng = sa.create_engine(f"sqlite:///{path}")
     from db import schema
-    assert upgrade(eng) == schema.SCHEMA_VERSION  # v4, and the later steps (v5: site model)
+    assert upgrade(eng) == schema.SCHEMA_VERSION  # v4, and the later steps (v5: site model,
+    #                                                v6: readings packed per day)
     fr = inverter_frame(eng, "real", "INV1")
     assert fr["interval_h"].iloc[0] == 0.25 and fr["interval_h"].iloc[-1] == pytest.approx(5 / 60)
     with eng.connect() as conn:

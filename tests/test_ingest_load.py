@@ -15,10 +15,11 @@ import pytest
 import sqlalchemy as sa
 from numpy.testing import assert_allclose
 
-from db import schema
+from db import readings
 from db.ingest_log import ingest_log, rejected_rows, site_summary
 from ingest.config import load_site_config
 from ingest.load import ingest_file, ingest_paths, match_source, touched_ranges
+from tests.helpers_store import stored_readings
 
 DATA = Path(__file__).resolve().parent / "data"
 MADRID = ZoneInfo("Europe/Madrid")
@@ -33,18 +34,13 @@ def madrid(y, mo, d, h, mi, fold=0):
 
 
 def series(engine, site, device, quantity):
-    r, c, d = schema.reading, schema.channel, schema.device
-    q = (sa.select(r.c.ts_s, r.c.value).join(c, c.c.channel_id == r.c.channel_id)
-         .join(d, d.c.device_pk == c.c.device_pk)
-         .where(d.c.site_id == site, d.c.device_id == device, c.c.quantity == quantity)
-         .order_by(r.c.ts_s))
-    with engine.connect() as conn:
-        return dict(conn.execute(q).all())
+    df = stored_readings(engine, site, device, quantity)
+    return dict(zip(df.ts_s.tolist(), df.value.tolist(), strict=True))
 
 
 def n_readings(engine):
     with engine.connect() as conn:
-        return conn.execute(sa.select(sa.func.count()).select_from(schema.reading)).scalar()
+        return readings.count_readings(conn)
 
 
 @pytest.fixture
