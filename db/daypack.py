@@ -72,22 +72,6 @@ def day_of(ts_s: np.ndarray | int):
     return (np.asarray(ts_s, dtype=np.int64) // DAY_S) * DAY_S
 
 
-def _min_exponent(v: np.ndarray) -> np.ndarray:
-    """Smallest ``e`` (0..9) with ``rint(v * 10**e) / 10**e == v`` exactly; 99 if none."""
-    out = np.full(v.size, 99, dtype=np.int64)
-    todo = np.flatnonzero(np.isfinite(v))
-    x = v[todo]
-    for e in range(MAX_EXPONENT + 1):
-        if not todo.size:
-            break
-        p = 10.0 ** e
-        q = np.rint(x * p)
-        ok = (np.abs(q) < 2 ** 31) & (q / p == x)
-        out[todo[ok]] = e
-        todo, x = todo[~ok], x[~ok]
-    return out
-
-
 def pack(channel_id: np.ndarray, ts_s: np.ndarray, value: np.ndarray, interval_s: np.ndarray,
          batch_id: np.ndarray) -> DayRows:
     """Pack readings sorted by ``(channel_id, ts_s)`` without repeated keys into day rows.
@@ -116,13 +100,27 @@ def pack(channel_id: np.ndarray, ts_s: np.ndarray, value: np.ndarray, interval_s
     step[step <= 0] = 1
     first, last = off[starts], off[ends - 1]
     grid = (last - first) // step + 1
-    # -- values: scaled integers when every value of the row comes back exactly
-    e_row = np.maximum.reduceat(_min_exponent(v), starts)
-    dec = e_row <= MAX_EXPONENT
-    scale = np.repeat(10.0 ** np.where(dec, e_row, 0), counts)
-    q = np.rint(np.where(np.isfinite(v), v, 0.0) * scale)
-    exact = (q / scale == v) & (np.abs(q) < 2 ** 31)
-    dec &= np.logical_and.reduceat(exact, starts)
+    # -- values: scaled integers when every value of the row comes back exactly; the
+    # smallest exponent that does it, tried over whole arrays (no per-value Python)
+    rows = starts.size
+    e_row = np.zeros(rows, dtype=np.int64)
+    dec = np.zeros(rows, dtype=bool)
+    q = np.zeros(n)
+    todo = np.ones(rows, dtype=bool)
+    with np.errstate(invalid="ignore", over="ignore"):
+        for e in range(MAX_EXPONENT + 1):
+            p = 10.0 ** e
+            q_e = np.rint(v * p)
+            ok = (q_e / p == v) & (np.abs(q_e) < 2 ** 31)
+            row_ok = np.logical_and.reduceat(ok, starts) & todo
+            if row_ok.any():
+                e_row[row_ok] = e
+                dec |= row_ok
+                sel = np.repeat(row_ok, counts)
+                q[sel] = q_e[sel]
+                todo &= ~row_ok
+            if not todo.any():
+                break
     amax = np.maximum.reduceat(np.abs(q), starts)
     vkind = np.where(~dec, V_F64, np.where(amax < 2 ** 15, V_I16, V_I32))
     parts = {V_F64: v.astype("<f8").tobytes()}
@@ -235,7 +233,9 @@ def unpack(day_s, n, ts_blob, value_blob, interval_s, batch_id, runs_blob, *,
             for h in kinds:
                 sel = [i for i, x in enumerate(heads) if x == h]
                 got = _decode_values(h, b"".join(memoryview(value_blob[i])[2:] for i in sel))
-                val[np.isin(row_of, sel)] = got
+                in_sel = np.zeros(rows, dtype=bool)
+                in_sel[sel] = True
+                val[in_sel[row_of]] = got
             out["value"] = val
     # -- interval and batch
     has_runs = [i for i, x in enumerate(runs_blob) if x is not None]

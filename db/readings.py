@@ -263,7 +263,8 @@ def write_readings(conn: sa.Connection, channel_id: np.ndarray, ts_s: np.ndarray
         o_ch = np.concatenate([p[0] for p in old_parts])
         o = {f: np.concatenate([p[1][f] for p in old_parts]) for f in old_parts[0][1]}
         o_k = key(o_ch, o["ts_s"])
-        keep = ~np.isin(o_k, k)  # stored readings the batch does not replace
+        pos = np.minimum(np.searchsorted(k, o_k), k.size - 1)  # k is sorted and unique
+        keep = k[pos] != o_k  # stored readings the batch does not replace
         o_iv = np.nan_to_num(o["interval_s"][keep]).astype(np.int64)
         k = np.concatenate([k, o_k[keep]])
         ch = np.concatenate([ch, o_ch[keep]])

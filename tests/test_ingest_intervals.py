@@ -22,11 +22,11 @@ import sqlalchemy as sa
 from db import schema
 from db.daily import daily_table
 from db.timeseries import input_dc_power, inverter_frame, read_channel, site_channels
-from tests.helpers_store import readings_to_old_layout
 from heliaudit import jobs_daily, jobs_flags
 from ingest.config import load_site_config
 from ingest.counters import COARSE_FRACTION, counter_resolution, is_coarse
 from ingest.load import ingest_paths
+from tests.helpers_store import readings_to_old_layout
 
 _trapezoid = getattr(np, "trapezoid", None) or np.trapz  # numpy >= 2.0 renamed trapz
 

@@ -10,9 +10,11 @@ Run by hand (never in CI):
     python tests/bench/bench_compute.py --rebuild  # rebuild the benchmark store
     python tests/bench/bench_compute.py --inverters 10 --years 1   # a quick run
 
-The store is written directly with sqlite3 ``executemany`` (setup, not timed): one site, one
-POA reference cell and one module-temperature sensor shared by all inverters, ``p_ac_kw`` per
-inverter. The data are invented for the benchmark only (clear-sky POA from pvlib scaled by a
+The store is written through ``db.readings.write_readings`` (setup, not timed), values at a
+logger's resolution (POA 0.1 W/m², temperature 0.01 °C, power 1 W): one site, one POA
+reference cell and one module-temperature sensor shared by all inverters, ``p_ac_kw`` per
+inverter. The baseline reads the same readings from a one-row-per-reading copy
+(``<db>.plain.sqlite``, the layout before schema v6). The data are invented for the benchmark only (clear-sky POA from pvlib scaled by a
 random daily cloud factor; power a random fraction of the PVWatts expectation).
 """
 
@@ -40,6 +42,7 @@ from analytics import filters as flt  # noqa: E402
 from analytics.power import expected_ac_power  # noqa: E402
 from analytics.temperature import cell_temperature_from_module  # noqa: E402
 from db.engine import make_engine  # noqa: E402
+from db.readings import write_readings  # noqa: E402
 from heliaudit import jobs_daily  # noqa: E402
 from tests.helpers_store import add_inverter, add_sensor, add_site  # noqa: E402
 
@@ -59,10 +62,25 @@ def _weather(ts: pd.DatetimeIndex, rng) -> tuple[np.ndarray, np.ndarray]:
     return poa, t_mod
 
 
-def _insert(raw: sqlite3.Connection, ch: int, ts_s: np.ndarray, v: np.ndarray) -> None:
-    # each reading with its 15-min interval, as ingest records it (schema v3, #11)
-    raw.executemany("INSERT OR REPLACE INTO reading (channel_id, ts_s, value, batch_id, interval_s) "
-                    "VALUES (?, ?, ?, 0, 900)", zip(repeat(ch), ts_s.tolist(), v.tolist(), strict=False))
+def _insert(conn, plain: sqlite3.Connection, ch: int, ts_s: np.ndarray, v: np.ndarray,
+            decimals: int) -> None:
+    # values at a logger's resolution (as CSV exports carry them), each reading with its
+    # 15-min interval as ingest records it, through the store's write path (db.readings);
+    # the same rows one per reading into the plain file for the baseline
+    v = np.round(v, decimals)
+    write_readings(conn, np.full(ts_s.size, ch), ts_s, v, 0, interval_s=np.full(ts_s.size, 900.0))
+    plain.executemany("INSERT OR REPLACE INTO reading (channel_id, ts_s, value) VALUES (?, ?, ?)",
+                      zip(repeat(ch), ts_s.tolist(), v.tolist(), strict=False))
+
+
+def _plain(path: Path) -> sqlite3.Connection:
+    """The baseline's store: the same readings one row each (the layout before schema v6)."""
+    raw = sqlite3.connect(path.with_suffix(".plain.sqlite"))
+    raw.execute("PRAGMA journal_mode=WAL")
+    raw.execute("PRAGMA synchronous=NORMAL")
+    raw.execute("CREATE TABLE IF NOT EXISTS reading (channel_id INTEGER, ts_s INTEGER, "
+                "value FLOAT, PRIMARY KEY (channel_id, ts_s)) WITHOUT ROWID")
+    return raw
 
 
 def build(path: Path, n_inv: int, years: float, seed: int = 7) -> dict:
@@ -77,7 +95,6 @@ def build(path: Path, n_inv: int, years: float, seed: int = 7) -> dict:
         inv_ch = [add_inverter(c, "bench", f"INV-{k:03d}", poa_sensor_id="POA",
                                t_module_sensor_id="TMOD", p_dc_kwp=330.0, p_ac_max_kw=300.0,
                                eta_inv_nom=0.97)["p_ac_kw"] for k in range(n_inv)]
-    eng.dispose()
     n = int(round(years * 365.25 * 96))
     ts = pd.date_range(START, periods=n, freq="15min")
     rng = np.random.default_rng(seed)
@@ -85,19 +102,19 @@ def build(path: Path, n_inv: int, years: float, seed: int = 7) -> dict:
     ts_s = ts.as_unit("s").asi8
     p_exp = expected_ac_power(poa, cell_temperature_from_module(t_mod, poa, 3.0), 330.0,
                               -0.0037, 300.0, 0.97)
-    raw = sqlite3.connect(path)
-    raw.execute("PRAGMA journal_mode=WAL")
-    raw.execute("PRAGMA synchronous=NORMAL")
+    path.with_suffix(".plain.sqlite").unlink(missing_ok=True)
+    raw = _plain(path)
     t0 = time.perf_counter()
-    with raw:
-        _insert(raw, poa_ch, ts_s, poa)
-        _insert(raw, tmod_ch, ts_s, t_mod)
+    with raw, eng.begin() as c:
+        _insert(c, raw, poa_ch, ts_s, poa, 1)
+        _insert(c, raw, tmod_ch, ts_s, t_mod, 2)
         for k, ch in enumerate(inv_ch):
             frac = 0.85 + 0.1 * rng.random()
-            _insert(raw, ch, ts_s, frac * p_exp * (1 + 0.01 * rng.standard_normal(n)))
+            _insert(c, raw, ch, ts_s, frac * p_exp * (1 + 0.01 * rng.standard_normal(n)), 3)
             if k % 10 == 9:
                 print(f"  setup: {k + 1}/{n_inv} inverters written", flush=True)
     raw.close()
+    eng.dispose()
     return {"rows": (n_inv + 2) * n, "seconds": time.perf_counter() - t0,
             "last_ts_s": int(ts_s[-1]), "channels": [poa_ch, tmod_ch, *inv_ch], "n": n}
 
@@ -107,7 +124,6 @@ def append_week(path: Path, after_ts_s: int, seed: int = 8) -> tuple[int, int]:
     eng = make_engine(path)
     with eng.connect() as c:
         chans = dts.site_channels(c, "bench")
-    eng.dispose()
     ts = pd.date_range(pd.Timestamp(after_ts_s + 900, unit="s", tz="UTC"), periods=7 * 96,
                        freq="15min")
     rng = np.random.default_rng(seed)
@@ -115,12 +131,13 @@ def append_week(path: Path, after_ts_s: int, seed: int = 8) -> tuple[int, int]:
     p_exp = expected_ac_power(poa, cell_temperature_from_module(t_mod, poa, 3.0), 330.0,
                               -0.0037, 300.0, 0.97)
     ts_s = ts.as_unit("s").asi8
-    raw = sqlite3.connect(path)
-    with raw:
+    raw = _plain(path)
+    with raw, eng.begin() as c:
         for (_dev, q), ch in chans.items():
             v = poa if q == "poa_wm2" else t_mod if q == "t_module_c" else 0.9 * p_exp
-            _insert(raw, ch, ts_s, v)
+            _insert(c, raw, ch, ts_s, v, 1 if q == "poa_wm2" else 2 if q == "t_module_c" else 3)
     raw.close()
+    eng.dispose()
     return int(ts_s[0]), int(ts_s[-1])
 
 
@@ -164,7 +181,7 @@ def timers():
 
 def baseline(path: Path, channels: list[int]) -> tuple[float, float, int]:
     """pandas read_sql of the same rows + a naive groupby daily energy sum per channel."""
-    eng = make_engine(path)
+    eng = make_engine(path.with_suffix(".plain.sqlite"), create=False)
     t0 = time.perf_counter()
     df = pd.read_sql(f"SELECT channel_id, ts_s, value FROM reading WHERE channel_id IN "
                      f"({', '.join(map(str, channels))})", eng)
@@ -188,7 +205,8 @@ def main() -> None:
           "(the machine is shared: compare with the baseline of the same run)")
     path = Path(a.db)
     meta_path = path.with_suffix(".meta.npy")
-    if a.rebuild or not path.exists() or not meta_path.exists():
+    if (a.rebuild or not path.exists() or not meta_path.exists()
+            or not path.with_suffix(".plain.sqlite").exists()):
         print(f"setup: writing {a.inverters} inverters x {a.years} years of 15-min data to {path}")
         meta = build(path, a.inverters, a.years)
         np.save(meta_path, np.array([meta["last_ts_s"], meta["rows"]]))
@@ -232,10 +250,11 @@ def main() -> None:
     print(f"\nincremental recompute after one new week ({s['first_day']}..{s['last_day']}): "
           f"{inc:.2f} s (target <= 5 s); read {acc['read']:.2f} s, write {acc['write']:.2f} s, "
           f"compute {acc['daily'] + acc['sun']:.2f} s, {acc['rows_read']:,} readings")
+    plain = make_engine(path.with_suffix(".plain.sqlite"), create=False)
     t0 = time.perf_counter()
     df = pd.read_sql(f"SELECT channel_id, ts_s, value FROM reading WHERE channel_id IN "
                      f"({', '.join(map(str, chans))}) AND ts_s >= {lo - 86400} AND ts_s <= {hi}",
-                     eng)
+                     plain)
     df.groupby(["channel_id", df["ts_s"] // 86400])["value"].sum()
     print(f"  baseline: read_sql + groupby of the same week {time.perf_counter() - t0:.2f} s")
 

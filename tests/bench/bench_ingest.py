@@ -11,8 +11,10 @@ fresh child process (peak RSS per step is the child's own VmHWM):
 * ``plain``: ``pandas.read_csv`` of the whole file, ``melt`` to readings, ``DataFrame.to_sql``
   (``chunksize=200_000``) into a fresh SQLite file with the same schema;
 
-and prints readings/s, peak RSS and the ratio. ``--pg URL`` adds ours on PostgreSQL (COPY
-path) and a psycopg ``executemany`` baseline of the same statement for comparison.
+and prints readings/s, peak RSS and the ratio. ``--pg URL`` adds ours on PostgreSQL (day rows
+by ``COPY ... (FORMAT BINARY)``), the bytes per reading it stored, a raw ``COPY`` of the same
+readings one row each into a ``(channel_id, ts_s)``-keyed table (the baseline of issue #16:
+only the COPY and its commit are timed) and a psycopg ``executemany`` upsert for comparison.
 
 Run by hand, never in CI:  python tests/bench/bench_ingest.py [--inverters 100] [--days 365]
 """
@@ -158,6 +160,60 @@ def step_pg_executemany(url: str, n: int) -> None:
     print(f"RESULT {dt_s:.3f} {n} {peak_rss_mib()}")
 
 
+def step_pg_copy_raw(url: str, cfg_path: str, csv: str) -> None:
+    """Baseline on PostgreSQL: a raw COPY of the same readings, one row each.
+
+    The file's values (``read_csv`` + ``melt``, not timed) are formatted as COPY text (not
+    timed) and only the ``COPY`` into a table keyed ``(channel_id, ts_s)`` is timed, with its
+    commit: the least a row-per-reading loader has to pay on the server."""
+    import pandas as pd
+    import psycopg
+
+    from db.engine import resolve_url
+
+    df = pd.read_csv(csv)
+    ts = pd.to_datetime(df.pop("Time"), format="%Y-%m-%d %H:%M").astype("datetime64[s]").astype("int64") - 300
+    vals = df.to_numpy(dtype=float)
+    n_rows, n_cols = vals.shape
+    ch = np.tile(np.arange(1, n_cols + 1), n_rows)
+    t = np.repeat(ts.to_numpy(), n_cols)
+    v = vals.ravel()
+    ok = np.isfinite(v)
+    data = "".join(f"{c}\t{x}\t{y!r}\n" for c, x, y in zip(ch[ok].tolist(), t[ok].tolist(),
+                                                           v[ok].tolist(), strict=True))
+    raw = resolve_url(url).replace("postgresql+psycopg://", "postgresql://")
+    schema_name = os.environ.get("BENCH_PG_SCHEMA")
+    opts = {"options": f"-csearch_path={schema_name}"} if schema_name else {}
+    with psycopg.connect(raw, **opts) as conn, conn.cursor() as cur:
+        cur.execute("CREATE TABLE raw_copy (channel_id integer, ts_s bigint, value double precision, "
+                    "PRIMARY KEY (channel_id, ts_s))")
+        conn.commit()
+        t0 = time.perf_counter()
+        with cur.copy("COPY raw_copy (channel_id, ts_s, value) FROM STDIN") as cp:
+            cp.write(data)
+        conn.commit()
+        dt_s = time.perf_counter() - t0
+        cur.execute("SELECT pg_total_relation_size('raw_copy')")
+        size = cur.fetchone()[0]
+    print(f"RESULT {dt_s:.3f} {int(ok.sum())} {peak_rss_mib()} bytes/reading={size / ok.sum():.1f}")
+
+
+def pg_store_bytes(url: str, schema_name: str) -> float | None:
+    """Bytes on disk of the schema's reading table(s) (indexes and TOAST included)."""
+    import sqlalchemy as sa
+
+    from db.engine import resolve_url
+
+    eng = sa.create_engine(resolve_url(url))
+    with eng.connect() as c:
+        size = c.execute(sa.text(
+            "SELECT coalesce(sum(pg_total_relation_size(quote_ident(table_schema) || '.' || "
+            "quote_ident(table_name))), 0) FROM information_schema.tables WHERE table_schema = :s "
+            "AND table_name IN ('reading', 'reading_day')"), {"s": schema_name}).scalar()
+    eng.dispose()
+    return float(size)
+
+
 def peak_rss_mib() -> int:
     """Peak resident memory of this process since exec (VmHWM), MiB.
 
@@ -192,6 +248,8 @@ def main() -> None:
         name, *rest = a.step
         if name == "pg_executemany":
             step_pg_executemany(rest[0], int(rest[1]))
+        elif name == "pg_copy_raw":
+            step_pg_copy_raw(*rest)
         else:
             {"ours": step_ours, "plain": step_plain}[name](*rest)
         return
@@ -221,7 +279,9 @@ def main() -> None:
                 conn.execute(sa.text(f'CREATE SCHEMA "{schema_name}"'))
             os.environ["BENCH_PG_SCHEMA"] = schema_name
             try:
+                res["pg-raw-copy"] = run_child("pg_copy_raw", a.pg, str(cfg), str(csv))
                 res["ours-postgres"] = run_child("ours", a.pg, str(cfg), str(csv))
+                size = pg_store_bytes(a.pg, schema_name)
                 res["ours-postgres-overlap"] = run_child("ours", a.pg, str(cfg), str(csv2))
                 res["pg-executemany"] = run_child("pg_executemany", a.pg, "500000")
             finally:
@@ -233,6 +293,13 @@ def main() -> None:
         if "plain" in res:
             ratio = (res["ours"][1] / res["ours"][0]) / (res["plain"][1] / res["plain"][0])
             print(f"ratio ours / plain (readings/s): {ratio:.2f}")
+        if "pg-raw-copy" in res:
+            ratio = (res["ours-postgres"][1] / res["ours-postgres"][0]) / (
+                res["pg-raw-copy"][1] / res["pg-raw-copy"][0])
+            print(f"ratio ours-postgres (whole ingest: parse, checks, write, commit) / raw COPY "
+                  f"of the same readings (readings/s): {ratio:.2f}  (target >= 0.8)")
+            print(f"PostgreSQL store after ours-postgres: {size / res['ours-postgres'][1]:.1f} "
+                  "bytes/reading (reading tables, indexes and TOAST)")
 
 
 if __name__ == "__main__":

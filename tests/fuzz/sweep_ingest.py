@@ -279,13 +279,16 @@ def run_one(cfg: Path, f: Path, db: Path, info: dict) -> Counter:
         info["lost"] = lost
     if loaded + dup == 0 and res.exit_code == 0:
         out["exit_status"] += 1
+    import numpy as np
     import sqlalchemy as sa
+
+    from db import readings
 
     eng = sa.create_engine(f"sqlite:///{db}")
     with eng.connect() as c:
-        bad = c.execute(sa.text(
-            "SELECT count(*) FROM reading WHERE value != value OR abs(value) > 1e6 "
-            "OR value IS NULL")).scalar()
+        chans = c.execute(sa.text("SELECT channel_id FROM channel")).scalars().all()
+        v = readings.read_many(c, chans)["value"]
+        bad = int((~np.isfinite(v) | (np.abs(v) > 1e6)).sum())
     eng.dispose()
     if bad:
         out["bad_value_loaded"] += 1
