@@ -17,7 +17,7 @@ import pytest
 import sqlalchemy as sa
 from click.testing import CliRunner
 
-from db import schema
+from db import readings, schema
 from db.daily import daily_table
 from heliaudit import jobs_daily
 from heliaudit.cli import main
@@ -99,9 +99,9 @@ def test_recompute_range_touches_only_its_days(engine):
     with engine.begin() as c:
         ch = c.execute(sa.text("SELECT channel_id FROM channel JOIN device USING (device_pk) "
                                "WHERE device_id = 'inv1' AND quantity = 'p_ac_kw'")).scalar()
-        c.execute(sa.text("UPDATE reading SET value = value * 0.5 WHERE channel_id = :c "
-                          "AND ts_s >= :a AND ts_s <= :b"), {"c": ch, "a": int(ts_s[0]),
-                                                             "b": int(ts_s[-1])})
+        got = readings.read_rows(c, ch, int(ts_s[0]), int(ts_s[-1]) + 1)  # halve that day
+        readings.write_readings(c, np.full(got["ts_s"].size, ch), got["ts_s"], got["value"] * 0.5,
+                                0, interval_s=got["interval_s"])
     s = jobs_daily.recompute_range(engine, "s1", int(ts_s[0]), int(ts_s[-1]))
     # 2024-06-11 00:00 UTC is 01:00 local standard time -> local days 06-11 and 06-12
     assert (s["first_day"], s["last_day"]) == (dt.date(2024, 6, 11), dt.date(2024, 6, 12))
