@@ -241,6 +241,7 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
             all_delta, prev_day, first, before, level)
         end = offsets.index[-1]
         partial_end = False
+        change = None
         if next_day is not None:
             change = _refine_boundary(all_delta, last, next_day, level, after)
             end = change - pd.Timedelta(days=1)
@@ -253,7 +254,7 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
                 all_delta.get(start - pd.Timedelta(days=1)), level, before):
             start = start - pd.Timedelta(days=1)
         shift = -_snap(level)
-        dst = False
+        dst = end_dst = False
         if abs(abs(level) - 60) <= threshold_min:
             lo_d = prev_day if prev_day is not None else first
             hi_d = next_day if next_day is not None else last
@@ -261,7 +262,7 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
                 if prev_day is not None and prev_day < dd <= first:
                     start, dst = dd, True
                 if next_day is not None and last < dd <= next_day:
-                    end, dst = dd - pd.Timedelta(days=1), True
+                    end, dst, end_dst = dd - pd.Timedelta(days=1), True, True
         cause = ("daylight saving time applied or omitted by the logger" if dst else
                  "wrong time zone or logger an hour off" if abs(abs(level) - 60) <= threshold_min
                  else "interval-start/interval-end label confusion or clock offset")
@@ -285,7 +286,10 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
                 end_between=[str(last.date()), str((next_day - pd.Timedelta(days=1)).date())
                              if next_day is not None else str(last.date())],
                 n_clear_days=int(len(grp)), probable_cause=cause, dst_change=dst,
-                last_day_partly_shifted=bool(partial_end and not dst),
+                last_day_partly_shifted=bool(partial_end and not end_dst),
+                change_day=(str(change.date()) if change is not None and not end_dst
+                            else None),
+                delta_after_min=after,
                 export_zone=export_zone, correction_toml=toml,
                 note="start/end are dates in the export's own (shifted) local time; ingest "
                      "adds shift_minutes to each timestamp in that range before converting to "
@@ -298,3 +302,143 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
                        "of modelled clear-sky POA (pvlib Ineichen); 7-clear-day median "
                        "> 10 min (common practice)")))
     return flag_frame(records)
+
+
+def change_time_s(ts_s, x, x_cs, tau_s, *, day_start_s: int, shifted_min: float,
+                  other_min: float, fixed: bool = True, min_gain: float = 0.2) -> dict | None:
+    """The moment, within one day, at which a clock was fixed (``fixed``) or went wrong.
+
+    Two kinds of evidence, best first:
+
+    * ``label_gap``: a clock set forward by |Δ| (labels early, then right) leaves a hole of
+      about |Δ| in the labels at the fix (a clock set back duplicates |Δ| of labels instead,
+      which ingest drops); a hole of |shifted − other| ± one interval in the day's
+      timestamps gives the moment exactly;
+    * ``profile_fit``: otherwise the split k that best explains the day's readings as the
+      clear-sky profile shifted by ``shifted_min`` before k and by ``other_min`` after it
+      (least squares with one scale factor per side; the readings of a partly shifted day
+      jump at the fix). Kept only when it lowers the squared error of the best unsplit fit
+      by at least ``min_gain`` (a share).
+
+    Parameters
+    ----------
+    ts_s : array of int
+        Interval starts of the day's readings, UTC epoch seconds, sorted.
+    x, x_cs : array
+        Readings and the modelled clear-sky profile (same unit up to a factor) on ``ts_s``.
+    tau_s : array or float
+        Interval lengths. [s]
+    day_start_s : int
+        UTC epoch seconds of the local standard midnight that starts the day.
+    shifted_min, other_min : float
+        Δ of the shifted side and of the other side (minutes; the profile appears that much
+        late).
+    fixed : bool
+        True: the readings before the moment are shifted (a fix); False: those after it.
+
+    Returns
+    -------
+    dict(``first_after_s``: start of the first interval on the far side of the change,
+    ``last_before_s``: start of the last interval before it, ``evidence``), or None.
+    """
+    ts = np.asarray(ts_s, dtype=np.int64)
+    v = np.asarray(x, dtype=float)
+    cs = np.clip(np.nan_to_num(np.asarray(x_cs, dtype=float)), 0.0, None)
+    tau = np.broadcast_to(np.asarray(tau_s, dtype=float), ts.shape).astype(float)
+    m = (ts >= day_start_s) & (ts < day_start_s + 86400)
+    ts, v, cs, tau = ts[m], v[m], cs[m], tau[m]
+    if ts.size < 8:
+        return None
+    gap = np.diff(ts) - tau[:-1]
+    want = abs(shifted_min - other_min) * 60.0
+    hole = np.flatnonzero(np.abs(gap - want) <= np.maximum(tau[:-1], 600.0))
+    if hole.size == 1 and want >= 1800.0:
+        k = int(hole[0]) + 1
+        return dict(first_after_s=int(ts[k]), last_before_s=int(ts[k - 1]),
+                    evidence="label_gap")
+    ok = np.isfinite(v)
+    if ok.sum() < 8 or not (cs > 0).any():
+        return None
+    mid = ts + tau / 2.0
+
+    def model(shift_min):
+        return np.interp(mid - shift_min * 60.0, mid, cs, left=0.0, right=0.0)
+
+    before = model(shifted_min if fixed else other_min)
+    after = model(other_min if fixed else shifted_min)
+
+    def sse(y, mdl):
+        den = float(np.dot(mdl, mdl))
+        if den <= 0:
+            return float(np.dot(y, y))
+        a = float(np.dot(y, mdl)) / den
+        r = y - a * mdl
+        return float(np.dot(r, r))
+
+    y = np.where(ok, v, 0.0)
+    b_m, a_m = np.where(ok, before, 0.0), np.where(ok, after, 0.0)
+    lit = np.flatnonzero((cs > 0) & ok)
+    if lit.size < 8:
+        return None
+    best_k, best = None, np.inf
+    for k in lit[2:-2]:
+        e = sse(y[:k], b_m[:k]) + sse(y[k:], a_m[k:])
+        if e < best:
+            best_k, best = int(k), e
+    base = min(sse(y, b_m), sse(y, a_m))
+    if best_k is None or base <= 0 or (base - best) / base < min_gain:
+        return None
+    return dict(first_after_s=int(ts[best_k]), last_before_s=int(ts[best_k - 1]),
+                evidence="profile_fit")
+
+
+def local_wall_clock(ts_s: int, zone: str) -> str:
+    """``YYYY-MM-DDTHH:MM:SS`` of UTC epoch seconds in ``zone`` (an IANA zone, 'UTC' or a
+    fixed '+hh:mm'), as an export in that zone would label it."""
+    t = pd.Timestamp(int(ts_s), unit="s", tz="UTC")
+    try:
+        loc = t.tz_convert(zone)
+    except Exception:  # noqa: BLE001 - a fixed '+hh:mm' offset
+        sign = -1 if str(zone).startswith("-") else 1
+        hh, mm = str(zone).lstrip("+-").split(":")
+        loc = t + sign * pd.Timedelta(hours=int(hh), minutes=int(mm))
+    return loc.tz_localize(None).strftime("%Y-%m-%dT%H:%M:%S")
+
+
+def refine_fix_moment(flags: pd.DataFrame, x: pd.Series, x_cs: pd.Series, tau_h, *,
+                      std_offset_s: int = 0, zone: str = "UTC") -> pd.DataFrame:
+    """Clock flags of one device with the moment of a fix during the day, where the data
+    show it (:func:`change_time_s` on the day after the shifted run, ``change_day``).
+
+    The flag then ends at the first reading with the right time (``end_s``), its
+    ``last_day`` is that day, and the correction's ``end`` is the local date-time one second
+    before it in the export's zone ``zone`` (ingest treats ``end`` as inclusive), so the
+    readings after the fix stay as they are (issue #14: a mid-day fix gave a date-only end).
+    ``details['fix_moment']`` says which evidence gave it.
+    """
+    if flags.empty or x.empty:
+        return flags
+    flags = flags.copy()
+    ts = epoch_s(x.index)
+    tau_s = np.broadcast_to(np.asarray(tau_h, dtype=float) * 3600.0, ts.shape)
+    cs = x_cs.reindex(x.index).to_numpy(float)
+    for i in flags.index:
+        det = dict(flags.at[i, "details"])
+        if flags.at[i, "kind"] != "clock_shift" or not det.get("change_day"):
+            continue
+        d0 = int(day_start_s([pd.Timestamp(det["change_day"])], std_offset_s)[0])
+        r = change_time_s(ts, x.to_numpy(float), cs, tau_s, day_start_s=d0,
+                          shifted_min=float(det["shift_minutes_measured"]),
+                          other_min=float(det.get("delta_after_min") or 0.0))
+        if r is None:
+            continue
+        end_local = local_wall_clock(r["first_after_s"] - 1, zone)
+        det.update(last_day=det["change_day"], last_day_partly_shifted=True,
+                   fix_moment=dict(first_right_reading_utc_s=int(r["first_after_s"]),
+                                   correction_end_local=end_local, evidence=r["evidence"]))
+        det["correction_toml"] = "\n".join(
+            f"end = {end_local}" if ln.startswith("end = ") else ln
+            for ln in det["correction_toml"].splitlines()) + "\n"
+        flags.at[i, "end_s"] = int(r["first_after_s"])
+        flags.at[i, "details"] = det
+    return flags

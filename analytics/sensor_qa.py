@@ -187,16 +187,19 @@ def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
                       exclude=exclude, sun_ref=sun_ref)
     v = x.to_numpy(float)
     # a calm overcast spell can hold the air within 0.05 °C for a few hours: a temperature
-    # flat line shorter than 6 h is information, not a sensor to fix (issue #14: two 2-h
-    # "flatlines" of a healthy ambient sensor; common practice)
+    # flat line shorter than 6 h is weather, not a sensor to fix
+    # (issue #14: two 2-h "flatlines" of a healthy ambient sensor on a generated fleet; common
+    # practice) and is not flagged at all: the samples stay marked by flatline_mask
     short = 6 * 3600 if temp else 0
     recs = _events(
         m, x.index, tau_s, device_id=device_id, kind="sensor_flatline", merge_gap_s=18 * 3600,
-        severity_fn=lambda n, dur: ("alarm" if dur > 86400 else "info" if dur < short
-                                    else "warning"),
+        severity_fn=lambda n, dur: "alarm" if dur > 86400 else "warning",
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, stuck_value=float(np.nanmedian(v[a:b + 1][m[a:b + 1]])),
-            rule=f"daytime run of >= {min_run} samples without change (common practice)"))
+            rule=f"daytime run of >= {min_run} samples without change (common practice)"
+                 + (f"; temperatures flagged from {short / 3600:g} h of stuck samples"
+                    if short else "")))
+    recs = [r for r in recs if r["details"]["n_samples"] * tau_s >= short]
     return flag_frame(recs)
 
 
@@ -367,6 +370,8 @@ VALIDITY_REASONS = {
     "stuck": "constant while the sun moved (dead or stuck sensor)",
     "night_reading": "reads light at night, beyond a thermopile's offset",
     "low_vs_power": "reads far less than the array's own power implies",
+    "high_vs_power": "reads far more than the power of the arrays under it implies",
+    "jump_vs_sibling": "stepped against its sibling sensors and stayed there",
     "out_of_range": "outside physical limits",
     "colder_than_ambient": "module colder than ambient air in full sun",
     "implausible_vs_model": "module temperature far from the value expected from ambient and "
@@ -748,8 +753,10 @@ def sibling_jump_flags(ratios: dict[str, pd.Series], *, std_offset_s: int = 0,
     irradiance sensors' clear-day readings steps by ``min_step`` or more and stays there.
 
     The suspect is the sensor whose own clear-sky ratio shows the larger step at that day
-    (the sky does not jump). The readings are not excluded (a re-levelled sensor may be
-    right afterwards); the flag says from when the two disagree.
+    (the sky does not jump). Its readings from the step on are excluded from every
+    calculation named in ``excluded_from`` (:func:`jump_validity` turns the flag into
+    invalid days; a sensor re-levelled by mistake is wrong afterwards, and one put right
+    after a fault would show as a step at its previous fault instead).
     """
     recs = []
     ids = sorted(ratios)
@@ -779,9 +786,87 @@ def sibling_jump_flags(ratios: dict[str, pd.Series], *, std_offset_s: int = 0,
                              own_clear_sky_step_pct={k: 100 * v for k, v in own.items()},
                              rule=f"median split of the daily clear-day ratio of two sensors, "
                                   f"|step| >= {100 * min_step:g} % with >= 20 days each side",
+                             first_day=str(st["day"].date()),
+                             last_day=str(q.index[-1].date()),
+                             excluded_from=["pr", "filters", "degradation", "clock", "drift",
+                                            "soiling", "outage"],
                              note="check the sensors' mounting, levelling and calibration; "
                                   "split degradation series at this day")))
     return flag_frame(recs)
+
+
+def clear_day_ratio(g: pd.Series, g_cs: pd.Series, aoi_deg, *, std_offset_s: int = 0
+                    ) -> pd.Series:
+    """Daily median G_meas / G_clearsky,POA on the sensor's own clear days
+    (:func:`analytics.clock.clear_day_mask` with the measured / clear-sky insolation within
+    0.7–1.3, then :func:`clear_period_ratio`)."""
+    from analytics.clock import clear_day_mask
+
+    if g.notna().sum() == 0:
+        return pd.Series(dtype=float)
+    clear = clear_day_mask(g, g_cs, std_offset_s=std_offset_s, ratio_range=(0.7, 1.3))
+    return clear_period_ratio(g, g_cs, aoi_deg, clear, std_offset_s=std_offset_s)
+
+
+def jump_validity(flags: pd.DataFrame, days_by_sensor: dict[str, pd.DatetimeIndex], *,
+                  std_offset_s: int = 0) -> dict[str, pd.DataFrame]:
+    """Day tables (as :func:`irradiance_validity`) marking each sensor's days inside its
+    ``jump_vs_sibling`` flags (:func:`sibling_jump_flags`) invalid with that reason, on the
+    local standard days ``days_by_sensor[sensor]`` (those the sensor has readings on).
+
+    A sensor that stepped against its siblings reads wrong from the step on: its readings
+    give no evidence for PR, filters, degradation, clock, soiling or outages (issue #14)."""
+    out: dict[str, pd.DataFrame] = {}
+    if flags.empty:
+        return out
+    for f in flags.itertuples():
+        days = days_by_sensor.get(f.device_id)
+        if days is None or len(days) == 0:
+            continue
+        d_s = _ts_s(pd.DatetimeIndex(days))
+        lo, hi = f.start_s + int(std_offset_s), f.end_s + int(std_offset_s)
+        bad = (d_s >= lo) & (d_s < hi)
+        tab = out.get(f.device_id)
+        if tab is None:
+            tab = pd.DataFrame({"valid": np.ones(len(days), bool),
+                                "reason": np.full(len(days), "", dtype=object)},
+                               index=pd.DatetimeIndex(days))
+        tab.loc[bad & tab["valid"].to_numpy(bool), "reason"] = "jump_vs_sibling"
+        tab["valid"] = tab["reason"] == ""
+        out[f.device_id] = tab
+    return out
+
+
+def high_vs_power_days(h_kwhm2: pd.Series, yf_h: pd.DataFrame, *, min_pr: float = 0.4,
+                       min_yf_h: float = 0.5, min_inverters: int = 2,
+                       share: float = 2.0 / 3.0) -> pd.Series:
+    """Days on which an irradiance sensor reads far more than the arrays under it deliver.
+
+    ``h_kwhm2``: the sensor's daily insolation H (numerically the reference yield Y_r in h);
+    ``yf_h``: the daily final yield Y_f = E_ac / P_dc,STC of each inverter on the sensor
+    (columns), NaN where the inverter was not fully available (an outage or missing data is
+    not evidence). A day is ``high_vs_power`` when at least ``min_inverters`` available
+    inverters produced (Y_f ≥ ``min_yf_h``) and at least ``share`` of them have
+    PR = Y_f / Y_r below ``min_pr`` (IEC 61724-1 PR; a working fixed array stays well above
+    0.6 on any day, clipping included, common practice). One inverter on its own cannot
+    tell a sensor reading high from its own loss, so a sensor with fewer inverters is left
+    to the clear-sky check (:func:`clear_sky_level_flags`).
+
+    Returns
+    -------
+    Series of bool by day (the index of ``h_kwhm2``).
+    """
+    if h_kwhm2.empty or yf_h.empty:
+        return pd.Series(False, index=h_kwhm2.index, dtype=bool)
+    y = yf_h.reindex(h_kwhm2.index)
+    h = h_kwhm2.to_numpy(float)[:, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        prod = y.to_numpy(float) >= min_yf_h
+        low = prod & (y.to_numpy(float) < min_pr * h)
+    n = prod.sum(axis=1)
+    k = low.sum(axis=1)
+    return pd.Series((n >= min_inverters) & (k >= share * np.maximum(n, 1)),
+                     index=h_kwhm2.index)
 
 
 def clear_sky_level_flags(daily_ratio: pd.Series, *, device_id: str, lo: float = 0.8,

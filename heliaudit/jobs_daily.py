@@ -60,6 +60,10 @@ def _params(site_row: dict, filters: dict, offset_h: float) -> dict:
         "power_model": "PVWatts V5 DC + inverter curve (Dobos 2014)",
         "night": "solar elevation (pvlib ephemeris) < night_elevation_deg or G < night_poa_wm2",
         "coverage_weight": "measured POA, clear-sky POA (Ineichen, isotropic) where missing",
+        "sensor_exclusions": "POA / module temperature of days the sensor is judged faulty "
+                             "(analytics.sensor_qa.frame_sensor_validity), and POA from the "
+                             "day a sensor jumped against its siblings (jump_vs_sibling) on, "
+                             "are missing (their flags in the flags job give the reason)",
         "irradiance_sources": "per array, best first: POA sensor in the array plane; GHI "
                               "sensor with DIRINT (Perez et al. 1992) decomposition and Perez (1990) "
                               "transposition; POA sensor of another plane via GTI-DIRINT "
@@ -96,6 +100,31 @@ def _mask_faulty_sensor_days(frame: pd.DataFrame, inv: dict, sun: pd.DataFrame,
     return frame
 
 
+def _sibling_jump_days(engine: sa.Engine, site_id: str, site: dict, off_s: int) -> dict:
+    """Sensor id -> day table of the days a POA sensor is excluded because it jumped against
+    its siblings (:func:`heliaudit.jobs_flags.sibling_jumps`, on the sensors' whole history:
+    a step needs weeks on either side, whatever range this run recomputes)."""
+    from heliaudit.jobs_flags import read_sensors, sibling_jumps
+
+    sensors = read_sensors(engine, site_id, quantities=("poa_wm2",))
+    if len(sensors) < 2:
+        return {}
+    return sibling_jumps(sensors, site, std_offset_s=off_s)[1]
+
+
+def _mask_days(frame: pd.DataFrame, col: str, days: pd.DataFrame | None,
+               off_s: int) -> pd.DataFrame:
+    """``col`` set to NaN on the invalid days of ``days`` (a sensor_qa day table)."""
+    if days is None or col not in frame or days.empty or days["valid"].all():
+        return frame
+    bad = sensor_qa.invalid_interval_mask(frame.index, days, std_offset_s=off_s)
+    if not bad.any():
+        return frame
+    frame = frame.copy()
+    frame.loc[bad, col] = np.nan
+    return frame
+
+
 def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: int | None,
              scope: str, progress: Progress | None) -> dict:
     with engine.connect() as conn:
@@ -118,6 +147,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         comp_id = begin_computation(conn, site_id, "daily", params, scope=scope,
                                     software_version=heliaudit.__version__)
 
+    jump_days = _sibling_jump_days(engine, site_id, site, off_s)
     sun = pd.DataFrame({"solar_elevation_deg": [], "poa_clearsky_wm2": []},
                        index=pd.DatetimeIndex([], tz="UTC"))
     parts, ids, done = [], [], 0
@@ -150,8 +180,11 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
             if site_irr.needs_model(inv["device_id"]):
                 fr, cs = site_irr.apply(inv["device_id"], fr)
                 sun_k = sun_k.assign(poa_clearsky_wm2=cs)
-            # a sensor judged faulty gives no PR evidence (#14)
-            frames.append(_mask_faulty_sensor_days(fr, inv, sun_k, off_s))
+            # a sensor judged faulty gives no PR evidence (#14), nor one that jumped
+            # against its siblings, from the jump on
+            fr = _mask_faulty_sensor_days(fr, inv, sun_k, off_s)
+            frames.append(_mask_days(fr, "poa_wm2", jump_days.get(inv.get("poa_sensor_id")),
+                                     off_s))
             clearsky.append(cs)
         rows = adaily.daily_performance_many(
             frames, [_Inv(inv, site_irr.basis(inv["device_id"])) for inv, _fr in batch],

@@ -86,12 +86,13 @@ PARAMS = {
                 "n_runs": 1000},
     "sensor": {"ranges": sensor_qa.RANGES, "p_ac_range": [-0.02, 1.05],
                "flatline_samples": {"irradiance_power": 4, "temperature": 8},
-               "p_ac_flat_min_frac": 0.05,
+               "p_ac_flat_min_frac": 0.05, "p_ac_flat_limit_band_frac": 0.01,
                "dropout_min_h": 1.0, "night_wm2": 5.0, "night_elevation_deg": -3.0,
                "drift_threshold_pct_per_yr": 1.0, "daytime_elevation_deg": 10.0,
                "validity": {"day_elevation_deg": 15.0, "night_elevation_deg": -12.0,
                             "night_max_wm2": 5.0, "stuck_tol_wm2": 0.5,
-                            "low_vs_power_factor": 0.25, "full_sun_wm2": 600.0,
+                            "low_vs_power_factor": 0.25, "high_vs_power_min_pr": 0.4,
+                            "full_sun_wm2": 600.0,
                             "colder_than_ambient_margin_c": 2.0, "model_margin_c": 20.0,
                             "ambient_night_max_c": 4.0, "ambient_day_max_c": 3.0}},
     "clock": {"threshold_min": 10.0, "n_clear": 7, "clear_day_max_vi": 1.3,
@@ -160,6 +161,12 @@ def _sources_by_device(cfg_raw: dict) -> dict[str, tuple[str, str]]:
                 if d:
                     out.setdefault(d, (name, zone))
     return out
+
+
+def _export_zone(source: tuple[str, str] | None, site_zone: str) -> str:
+    """The zone an export's timestamps are written in ('local' is the site's zone)."""
+    z = source[1] if source else "local"
+    return site_zone if z in (None, "", "local") else z
 
 
 def _expected_power(frame: pd.DataFrame, inv: dict) -> pd.Series:
@@ -264,7 +271,12 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
         day = (s["elev"] > 10).to_numpy()
         # at its limit, at zero or in dim light (a few W of a waking inverter) power may be
         # flat without a stuck reading (issue #14: 137 "flatlines" at 12-24 W)
-        exclude = (outages.clipping_mask(pv, p_max) | limited
+        near_limit = limited
+        if len(lim):  # the limit's own noise band: a few samples near it are not stuck
+            near_limit = outages.power_limit_mask(
+                pv, float(lim["details"].iloc[0]["level_kw"]), p_max,
+                tol_frac=PARAMS["sensor"]["p_ac_flat_limit_band_frac"])
+        exclude = (outages.clipping_mask(pv, p_max) | limited | near_limit
                    | (pv <= PARAMS["sensor"]["p_ac_flat_min_frac"] * p_max))
         out.append(sensor_qa.flatline_flags(p, day, device_id=dev, quantity="p_ac_kw",
                                             tau_s=tau_s, exclude=exclude,
@@ -281,10 +293,11 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
             cs_c = cache[key]
         off = clock.clock_offsets(p, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
                                   cs_centroid=cs_c)
-        out.append(clock.clock_shift_flags(
+        out.append(clock.refine_fix_moment(clock.clock_shift_flags(
             off, device_id=dev, std_offset_s=std_offset_s, site_zone=site_zone,
             source_name=source[0] if source else None,
-            export_zone=source[1] if source else "local"))
+            export_zone=source[1] if source else "local"), p, s["poa_cs"], tau_h,
+            std_offset_s=std_offset_s, zone=_export_zone(source, site_zone)))
     return out
 
 
@@ -372,10 +385,11 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
                                      ratio_range=(0.7, 1.3))
         off = clock.clock_offsets(xv, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
                                   clear=clear)
-        out.append(clock.clock_shift_flags(
+        out.append(clock.refine_fix_moment(clock.clock_shift_flags(
             off, device_id=sensor_id, std_offset_s=std_offset_s, site_zone=site_zone,
             source_name=source[0] if source else None,
-            export_zone=source[1] if source else "local"))
+            export_zone=source[1] if source else "local"), xv, s["poa_cs"], tau_h,
+            std_offset_s=std_offset_s, zone=_export_zone(source, site_zone)))
         ratio = sensor_qa.clear_period_ratio(xv, s["poa_cs"], s["aoi"].to_numpy(), clear,
                                              std_offset_s=std_offset_s)
         out.append(sensor_qa.clear_sky_level_flags(ratio, device_id=sensor_id,
@@ -531,8 +545,40 @@ def _low_vs_yield(x: pd.Series, yf: pd.Series | None, tau_s: int, std_offset_s: 
     return (y >= min_yf_h) & (h < factor * y)
 
 
+def _high_vs_yield(x: pd.Series, sid: str, daily: pd.DataFrame, inverters: pd.DataFrame,
+                   tau_s: int, std_offset_s: int, *, min_avail: float = 0.95,
+                   min_coverage: float = 0.9) -> pd.Series:
+    """Days on which the sensor reads far more than the arrays under it deliver
+    (:func:`analytics.sensor_qa.high_vs_power_days`): its daily insolation from the raw
+    readings against each of its inverters' final yield on days that inverter was available
+    (time availability ≥ ``min_avail``) and its data covered (``min_coverage``)."""
+    if daily.empty or x.empty or "poa_sensor_id" not in inverters:
+        return pd.Series(dtype=bool)
+    invs = inverters.loc[inverters["poa_sensor_id"] == sid, ["device_id", "p_dc_kwp"]]
+    if len(invs) < 2:
+        return pd.Series(dtype=bool)
+    kwp = dict(zip(invs["device_id"], invs["p_dc_kwp"].astype(float), strict=True))
+    d = daily[daily["device_id"].isin(list(kwp))].copy()
+    if d.empty:
+        return pd.Series(dtype=bool)
+    d["day"] = pd.to_datetime(d["day"])
+    yf = d["e_ac_kwh"].astype(float) / d["device_id"].map(kwp)
+    ok = np.ones(len(d), bool)
+    for col, lo in (("avail_time", min_avail), ("coverage", min_coverage)):
+        if col in d:
+            ok &= (d[col].astype(float) >= lo).to_numpy()
+    d["yf"] = yf.where(ok)
+    wide = d.pivot_table(index="day", columns="device_id", values="yf", aggfunc="first")
+    day = (epoch_s(x.index) + int(std_offset_s)) // 86400
+    h = pd.Series(np.clip(x.to_numpy(float), 0, None) * tau_s / 3.6e6).groupby(day).sum()
+    h.index = pd.to_datetime(h.index.to_numpy() * 86400, unit="s")
+    p = PARAMS["sensor"]["validity"]
+    return sensor_qa.high_vs_power_days(h, wide, min_pr=p["high_vs_power_min_pr"])
+
+
 def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.DataFrame, *,
-                  std_offset_s: int) -> tuple[dict, list[pd.DataFrame]]:
+                  std_offset_s: int, site: dict | None = None
+                  ) -> tuple[dict, list[pd.DataFrame]]:
     """Plausibility of every sensor before any diagnosis.
 
     Returns
@@ -554,13 +600,31 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
         days = sensor_qa.irradiance_validity(x, s["elev"].to_numpy(), s["poa_cs"].to_numpy(),
                                              std_offset_s=std_offset_s)
         low = _low_vs_yield(x, yields.get(sid), _tau_s(x.index), std_offset_s)
-        if len(low):
-            lo = low.reindex(days.index).fillna(False).to_numpy(bool)
-            days.loc[lo & days["valid"].to_numpy(bool), "reason"] = "low_vs_power"
-            days["valid"] = days["reason"] == ""
+        high = _high_vs_yield(x, sid, daily, inverters, _tau_s(x.index), std_offset_s)
+        for reason, m in (("low_vs_power", low), ("high_vs_power", high)):
+            if len(m):
+                lo = m.reindex(days.index).fillna(False).to_numpy(bool)
+                days.loc[lo & days["valid"].to_numpy(bool), "reason"] = reason
+        days["valid"] = days["reason"] == ""
         invalid[sid] = days
         flags.append(sensor_qa.validity_flags(days, device_id=sid, quantity=q,
                                               std_offset_s=std_offset_s))
+    # a sensor that jumped against its siblings reads wrong from the jump on: excluded
+    if site is not None:
+        jumps, jump_days = sibling_jumps(sensors, site, std_offset_s=std_offset_s,
+                                         sun_for=grid_sun_for)
+        if len(jumps):
+            flags.append(jumps)
+        for sid, tab in jump_days.items():
+            cur = invalid[sid].reindex(tab.index.union(invalid[sid].index))
+            cur["valid"] = cur["valid"].fillna(True).astype(bool)
+            cur["reason"] = cur["reason"].fillna("")
+            tab = tab.reindex(cur.index)
+            tab["valid"] = tab["valid"].fillna(True).astype(bool)
+            m = (~tab["valid"].to_numpy(bool)) & cur["valid"].to_numpy(bool)
+            cur.loc[m, "reason"] = "jump_vs_sibling"
+            cur["valid"] = cur["reason"] == ""
+            invalid[sid] = cur
 
     def paired(tm_id: str, key: str, quantity: str) -> str | None:
         if key in inverters and "t_module_sensor_id" in inverters:
@@ -650,8 +714,17 @@ def consolidate_clock_flags(flags: pd.DataFrame, *, n_clock_devices: int,
         e0 = int(np.median([g.end_s for g in grp]) // 86400 * 86400 + pick.end_s % 86400)
         if e0 <= s0:
             s0, e0 = int(pick.start_s), int(pick.end_s)
+        fixes = [g.details["fix_moment"] for g in grp if g.details.get("fix_moment")]
+        fix = None
+        if fixes and 2 * len(fixes) >= len(grp):  # most members show the moment of the fix
+            order = np.argsort([f["first_right_reading_utc_s"] for f in fixes])
+            fix = fixes[int(order[(len(fixes) - 1) // 2])]
+            e0 = int(fix["first_right_reading_utc_s"])
+            pick = next(g for g in grp if g.details.get("fix_moment") is fix)
+            det = dict(pick.details)
         first = pd.Timestamp(det["first_day"]) + pd.Timedelta(seconds=s0 - int(pick.start_s))
-        last = pd.Timestamp(det["last_day"]) + pd.Timedelta(seconds=e0 - int(pick.end_s))
+        last = (pd.Timestamp(det["last_day"]) if fix is not None else
+                pd.Timestamp(det["last_day"]) + pd.Timedelta(seconds=e0 - int(pick.end_s)))
         det.update(devices=devices, n_devices_agreeing=len(devices),
                    n_devices_checked=int(n_clock_devices),
                    shift_minutes_measured_by_device={str(g.device_id):
@@ -663,8 +736,11 @@ def consolidate_clock_flags(flags: pd.DataFrame, *, n_clock_devices: int,
                    agreement=f"{len(devices)} of {n_clock_devices} devices show the shift",
                    last_day_partly_shifted=bool(np.median(
                        [bool(g.details.get("last_day_partly_shifted")) for g in grp]) >= 0.5))
-        det["correction_toml"] = _retarget_toml(det["correction_toml"], first, last,
-                                                len(devices))
+        det["correction_toml"] = _retarget_toml(
+            det["correction_toml"], first, last, len(devices),
+            end_text=None if fix is None else fix["correction_end_local"])
+        if fix is not None:
+            det.update(fix_moment=fix, last_day_partly_shifted=True)
         merged.append(dict(device_id=None if len(devices) > 1 else devices[0],
                            kind="clock_shift", start_s=s0, end_s=e0,
                            severity=max((g.severity for g in grp),
@@ -674,13 +750,14 @@ def consolidate_clock_flags(flags: pd.DataFrame, *, n_clock_devices: int,
     return pd.concat([rest, flag_frame(merged)], ignore_index=True) if merged else rest
 
 
-def _retarget_toml(toml: str, first: pd.Timestamp, last: pd.Timestamp, n_dev: int) -> str:
+def _retarget_toml(toml: str, first: pd.Timestamp, last: pd.Timestamp, n_dev: int, *,
+                   end_text: str | None = None) -> str:
     lines = []
     for ln in toml.splitlines():
         if ln.startswith("start = "):
             ln = f"start = {first.date().isoformat()}"
         elif ln.startswith("end = "):
-            ln = f"end = {last.date().isoformat()}"
+            ln = f"end = {end_text or last.date().isoformat()}"
         elif ln.startswith("note = ") and n_dev > 1:
             ln = ln.replace("clock_shift on ", f"clock_shift on {n_dev} devices incl. ")
         lines.append(ln)
@@ -913,7 +990,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     span = (min(a for a, _b in spans), max(b for _a, b in spans)) if spans else (None, None)
     # 1. plausibility of every sensor, before any diagnosis
     invalid_days, judged = judge_sensors(sensors, lambda idx: sun_at(idx, None), inverters,
-                                         daily, std_offset_s=off_s)
+                                         daily, std_offset_s=off_s, site=site)
     parts += judged
     last_seen: dict[str, int] = {}
     kinds: dict[str, str] = {}
@@ -950,7 +1027,6 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         if progress:
             progress(done, n_total)
     parts += sibling_flags(ratios, std_offset_s=off_s)
-    parts.append(sensor_qa.sibling_jump_flags(ratios, std_offset_s=off_s))
     # several rain gauges: the daily mean of those that reported
     rain_daily = pd.concat(rain_parts, axis=1).mean(axis=1) if rain_parts else None
     withheld: dict[str, pd.Series] = {}
@@ -1087,6 +1163,65 @@ def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, l
                  "not run: no inverter with two or more loaded inputs and their kWp")
 
 
+def read_sensors(engine: sa.Engine, site_id: str, *, quantities: tuple[str, ...] | None = None,
+                 sensor_rows=None, channels=None) -> list[tuple]:
+    """Every sensor channel of a site (optionally only of ``quantities``) as
+    ``(sensor id, quantity, Series on ts_utc, interval [s] per reading)``."""
+    with engine.connect() as conn:
+        if sensor_rows is None:
+            sensor_rows = _sensor_rows(conn, site_id)
+        if channels is None:
+            channels = site_channels(conn, site_id)
+        inst = instant_channels(conn, site_id)
+        out = []
+        for sid, q in sensor_rows:
+            ch = channels.get((sid, q))
+            if ch is None or (quantities is not None and q not in quantities):
+                continue
+            ts, v, iv = read_channel(conn, ch, with_interval=True)
+            iv = fill_unknown_intervals(ts, iv)
+            if ch in inst:  # samples: QA runs on the samples, durations by their spacing
+                iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
+            idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
+            out.append((sid, q, pd.Series(v, index=idx, name=q), iv))
+    return out
+
+
+def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None
+                  ) -> tuple[pd.DataFrame, dict]:
+    """Jumps of POA sensors against their siblings, and the invalid days they imply.
+
+    Each POA sensor's clear-day ratio to the modelled clear-sky POA (on the site plane, on
+    the days :func:`analytics.sensor_qa.irradiance_validity` finds plausible) goes into
+    :func:`analytics.sensor_qa.sibling_jump_flags`; :func:`analytics.sensor_qa.jump_validity`
+    turns each jump into invalid days of its suspect from the jump on. The daily job and the
+    flags job both call this, so PR, filters and degradation leave out the same days that
+    the flags report (issue #14).
+
+    Returns
+    -------
+    (flags, {sensor id: day table with reason 'jump_vs_sibling'})
+    """
+    poa = [(e[0], e[2].sort_index()) for e in sensors if e[1] == "poa_wm2" and len(e[2])]
+    if len(poa) < 2:
+        return flag_frame([]), {}
+    ratios, days_of = {}, {}
+    for sid, x in poa:
+        sun = (site_sun(x.index, site, _tau_s(x.index) / 3600.0) if sun_for is None
+               else sun_for(x.index).reindex(x.index))
+        days = sensor_qa.irradiance_validity(x, sun["elev"].to_numpy(),
+                                             sun["poa_cs"].to_numpy(),
+                                             std_offset_s=std_offset_s)
+        days_of[sid] = days.index
+        xv = x.mask(sensor_qa.invalid_interval_mask(x.index, days, std_offset_s=std_offset_s))
+        r = sensor_qa.clear_day_ratio(xv, sun["poa_cs"], sun["aoi"].to_numpy(),
+                                      std_offset_s=std_offset_s)
+        if len(r):
+            ratios[sid] = r
+    jumps = sensor_qa.sibling_jump_flags(ratios, std_offset_s=std_offset_s)
+    return jumps, sensor_qa.jump_validity(jumps, days_of, std_offset_s=std_offset_s)
+
+
 def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None) -> int:
     """Recompute every flag of ``site_id`` and replace the stored ones; return how many.
 
@@ -1112,19 +1247,7 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None)
         comp_id = begin_computation(conn, site_id, "flags", params,
                                     software_version=heliaudit.__version__)
     daily = daily_table(engine, site_id)
-    sensors = []
-    with engine.connect() as conn:
-        inst = instant_channels(conn, site_id)
-        for sid, q in sensor_rows:
-            ch = channels.get((sid, q))
-            if ch is None:
-                continue
-            ts, v, iv = read_channel(conn, ch, with_interval=True)
-            iv = fill_unknown_intervals(ts, iv)
-            if ch in inst:  # samples: QA runs on the samples, durations by their spacing
-                iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
-            idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
-            sensors.append((sid, q, pd.Series(v, index=idx, name=q), iv))
+    sensors = read_sensors(engine, site_id, sensor_rows=sensor_rows, channels=channels)
     counters = {}
     with engine.connect() as conn:
         for dev in inverters["device_id"]:

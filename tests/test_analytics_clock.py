@@ -135,3 +135,52 @@ def test_fix_during_a_day_ends_the_correction_on_that_day(year):
     d = fl.iloc[0]["details"]
     assert d["last_day"] == "2024-06-30"
     assert abs((pd.Timestamp(d["first_day"]) - pd.Timestamp("2024-05-20")).days) <= 1
+
+
+def test_fix_during_a_day_gives_the_fix_moment_as_correction_end(year):
+    # issue #14: a mid-day fix got a date-only end, so the correction would also move the
+    # right readings of the afternoon. Fix at 10:00 local standard time (UTC−7 -> 17:00 UTC)
+    # on 2024-06-30, two ways the data can show it:
+    from analytics.clock import refine_fix_moment
+
+    local = (year.index + pd.Timedelta(seconds=STD_OFFSET_S)).tz_localize(None)
+    m = (local >= "2024-05-20") & (local < "2024-06-30 10:00")
+    fix_utc = pd.Timestamp("2024-06-30 17:00", tz="UTC")
+    x, cs = year["poa_wm2"], year["poa_cs"]
+    # (a) readings 60 min late up to the fix, no hole in the labels: the profile jumps
+    late = _shift(x, 60, m)
+    # (b) labels 60 min early up to the fix (a clock set forward): a 60-min hole at the fix
+    idx = pd.DatetimeIndex(np.where(m, year.index - pd.Timedelta(minutes=60), year.index))
+    early = pd.Series(x.to_numpy(), index=idx)
+    early = early[~early.index.duplicated(keep="last")].sort_index()
+    for series, evidence in ((late, "profile_fit"), (early, "label_gap")):
+        c = cs.reindex(series.index)
+        off = clock_offsets(series, c, 0.25, std_offset_s=STD_OFFSET_S, ratio_range=(0.7, 1.3))
+        fl = clock_shift_flags(off, device_id="poa1", std_offset_s=STD_OFFSET_S, site_zone=ZONE)
+        fl = refine_fix_moment(fl, series, c, 0.25, std_offset_s=STD_OFFSET_S, zone="Etc/GMT+7")
+        assert len(fl) == 1
+        d = fl.iloc[0]["details"]
+        # exact to the interval: the first right reading starts at the fix
+        assert pd.Timestamp(fl.iloc[0]["end_s"], unit="s", tz="UTC") == fix_utc
+        assert d["fix_moment"]["evidence"] == evidence and d["last_day"] == "2024-06-30"
+        snippet = tomllib.loads(d["correction_toml"])["sources"]["clock_corrections"][0]
+        # ingest's end is inclusive, in the export's own local time: one second before 10:00
+        assert str(snippet["end"]) == "2024-06-30 09:59:59"
+
+
+def test_fix_at_a_day_boundary_keeps_a_date_end(year):
+    # Control: a shift that ends at midnight has no moment inside a day to report.
+    from analytics.clock import refine_fix_moment
+
+    local = (year.index + pd.Timedelta(seconds=STD_OFFSET_S)).tz_localize(None)
+    m = (local >= "2024-05-20") & (local < "2024-07-01")
+    late = _shift(year["poa_wm2"], 60, m)
+    off = clock_offsets(late, year["poa_cs"], 0.25, std_offset_s=STD_OFFSET_S,
+                        ratio_range=(0.7, 1.3))
+    fl = clock_shift_flags(off, device_id="poa1", std_offset_s=STD_OFFSET_S, site_zone=ZONE)
+    fl = refine_fix_moment(fl, late, year["poa_cs"], 0.25, std_offset_s=STD_OFFSET_S,
+                           zone="Etc/GMT+7")
+    d = fl.iloc[0]["details"]
+    assert "fix_moment" not in d and d["last_day"] == "2024-06-30"
+    snippet = tomllib.loads(d["correction_toml"])["sources"]["clock_corrections"][0]
+    assert str(snippet["end"]) == "2024-06-30"

@@ -264,3 +264,55 @@ def test_module_model_margin_boundary(july, off, bad):
     days = module_temperature_validity(t, poa_wm2=g, t_mod_model_c=model,
                                        std_offset_s=STD_OFFSET_S)
     assert (days["reason"] == "implausible_vs_model").any() == bad
+
+
+@pytest.mark.parametrize("pr,high", [(0.39, True), (0.40, False), (0.41, False)])
+def test_high_vs_power_boundary(pr, high):
+    # documented: a sensor reads far more than the arrays under it deliver when, with at
+    # least 2 available inverters producing, 2/3 of them have PR = Y_f / Y_r < 0.4 (IEC
+    # 61724-1 PR). H = 6 kWh/m² (Y_r = 6 h); just below (0.39), at (0.40), above (0.41).
+    from analytics.sensor_qa import high_vs_power_days
+
+    days = pd.date_range("2024-07-01", periods=3, freq="D")
+    h = pd.Series(6.0, index=days)
+    yf = pd.DataFrame({"i1": [6 * 0.8, 6 * pr, 6 * 0.8], "i2": [6 * 0.8, 6 * pr, 6 * 0.8],
+                       "i3": [6 * 0.8, 6 * pr, 6 * 0.8]}, index=days)
+    got = high_vs_power_days(h, yf)
+    assert list(got) == [False, high, False]
+
+
+def test_high_vs_power_needs_two_agreeing_inverters():
+    # one inverter at PR 0.3 among healthy ones is that inverter's loss, not the sensor;
+    # an inverter on its own cannot tell the two apart; an unavailable inverter (NaN) is
+    # no evidence
+    from analytics.sensor_qa import high_vs_power_days
+
+    days = pd.date_range("2024-07-01", periods=1, freq="D")
+    h = pd.Series(6.0, index=days)
+    assert not high_vs_power_days(h, pd.DataFrame({"a": [1.8], "b": [4.8], "c": [4.8]},
+                                                  index=days)).iloc[0]
+    assert not high_vs_power_days(h, pd.DataFrame({"a": [1.8]}, index=days)).iloc[0]
+    assert not high_vs_power_days(h, pd.DataFrame({"a": [1.8], "b": [np.nan]},
+                                                  index=days)).iloc[0]
+    assert high_vs_power_days(h, pd.DataFrame({"a": [1.8], "b": [1.9]}, index=days)).iloc[0]
+
+
+def test_jump_marks_the_suspect_invalid_from_the_step_on():
+    # issue #14: a jump against the sibling was reported but not masked. Sensor A steps
+    # +6 % on day 70 (2024-03-11) and stays; its days from the step on are invalid with
+    # reason jump_vs_sibling (to ±2 days, the step-day tolerance above), B keeps all days
+    from analytics.sensor_qa import jump_validity, sibling_jump_flags
+
+    days = pd.date_range("2024-01-01", periods=120, freq="D")
+    rng = np.random.default_rng(9)
+    rb = pd.Series(0.97 + 0.002 * rng.standard_normal(120), index=days)
+    ra = pd.Series(np.where(np.arange(120) >= 70, 0.97 * 1.06, 0.97)
+                   + 0.002 * rng.standard_normal(120), index=days)
+    fl = sibling_jump_flags({"A": ra, "B": rb}, std_offset_s=STD_OFFSET_S)
+    tabs = jump_validity(fl, {"A": days, "B": days}, std_offset_s=STD_OFFSET_S)
+    assert set(tabs) == {"A"}
+    bad = tabs["A"].index[~tabs["A"]["valid"]]
+    assert abs((bad[0] - pd.Timestamp("2024-03-11")).days) <= 2 and bad[-1] == days[-1]
+    assert set(tabs["A"].loc[bad, "reason"]) == {"jump_vs_sibling"}
+    assert tabs["A"]["valid"].iloc[:68].all()
+    assert "degradation" in fl.iloc[0]["details"]["excluded_from"]

@@ -77,10 +77,23 @@ def test_temperature_flatline_uses_005c():
     idx = pd.date_range("2024-06-01 15:00", periods=12, freq="15min", tz="UTC")
     t = pd.Series([30, 31, 32, 33.0, 33.01, 33.02, 33.0, 33.03, 33.01, 33.02, 33.0, 35],
                   index=idx)
-    fl = flatline_flags(t, np.ones(12, bool), device_id="tm1", quantity="t_module_c")
-    assert len(fl) == 1 and fl.iloc[0]["details"]["n_samples"] == 8  # 33.0 .. 33.0 (8)
-    # 2 h flat: information (a calm spell), not yet a sensor to fix (issue #14)
-    assert fl.iloc[0]["severity"] == "info"
+    # METHODS §5: >= 8 samples within 0.05 °C are stuck samples (33.0 .. 33.0, 8 of them)
+    assert flatline_mask(t.to_numpy(), np.ones(12, bool), min_run=8, abs_tol=0.05).sum() == 8
+    # ... but 2 h flat is a calm spell, not a sensor to fix: no flag (issue #14)
+    assert flatline_flags(t, np.ones(12, bool), device_id="tm1", quantity="t_module_c").empty
+
+
+@pytest.mark.parametrize("n,found", [(23, False), (24, True), (25, True)])
+def test_temperature_flatline_flag_from_6_hours(n, found):
+    # documented threshold: a temperature flag needs 6 h of stuck samples (24 of 15 min);
+    # just below (23 = 5 h 45 min), at (24) and just above (25)
+    idx = pd.date_range("2024-06-01 06:00", periods=n + 2, freq="15min", tz="UTC")
+    t = pd.Series([20.0] + [25.0] * n + [30.0], index=idx)
+    fl = flatline_flags(t, np.ones(n + 2, bool), device_id="tm1", quantity="t_module_c",
+                        tau_s=900)
+    assert (len(fl) == 1) == found
+    if found:
+        assert fl.iloc[0]["severity"] == "warning" and fl.iloc[0]["details"]["n_samples"] == n
 
 
 @pytest.mark.parametrize("n,severity", [(3, "info"), (4, "warning"), (5, "warning")])

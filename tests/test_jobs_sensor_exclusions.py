@@ -1,0 +1,98 @@
+"""A POA sensor that jumps against its sibling is excluded downstream (issue #14).
+
+Known answer on a small store: two POA sensors reading pvlib's Ineichen clear-sky POA (plus
+0.5 % seeded noise) for 100 days; from day 60 (2024-04-10) one of them reads 8 % high (a
+knocked or re-levelled cell). Each inverter's power is 0.9 × the PVWatts expected power
+(pvlib pvwatts_dc, sapm_cell_from_module, inverter.pvwatts) of the TRUE irradiance, so a
+trusted jumped sensor would drop its inverter's performance index to 0.9 / 1.08 = 0.833.
+"""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pvlib
+import pytest
+
+from db.daily import daily_table
+from db.flags import read_flags
+from heliaudit import jobs_daily
+from heliaudit.jobs_flags import run_flags
+from tests.helpers_store import add_inverter, add_readings, add_sensor, add_site, make_store
+
+LAT, LON, ALT, TILT, AZ = 37.2, -3.6, 700.0, 30.0, 180.0
+START = pd.Timestamp("2024-02-10", tz="UTC")
+N_DAYS, JUMP_DAY = 100, 60
+
+
+@pytest.fixture(scope="module")
+def store(tmp_path_factory):
+    eng = make_store(tmp_path_factory.mktemp("jump"))
+    ts = pd.date_range(START, periods=N_DAYS * 96, freq="15min")
+    mid = ts + pd.Timedelta(minutes=7.5)
+    loc = pvlib.location.Location(LAT, LON, "UTC", ALT)
+    sp = loc.get_solarposition(mid)
+    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
+    poa = pvlib.irradiance.get_total_irradiance(TILT, AZ, sp["apparent_zenith"], sp["azimuth"],
+                                                cs["dni"], cs["ghi"], cs["dhi"],
+                                                model="isotropic")["poa_global"].to_numpy()
+    poa = np.nan_to_num(poa).clip(min=0)
+    rng = np.random.default_rng(3)
+    g1 = poa * (1 + 0.005 * rng.standard_normal(poa.size))
+    jump = np.arange(poa.size) >= JUMP_DAY * 96
+    g2 = poa * (1 + 0.005 * rng.standard_normal(poa.size)) * np.where(jump, 1.08, 1.0)
+    t_mod = 15.0 + 0.03 * poa
+    t_cell = pvlib.temperature.sapm_cell_from_module(t_mod, poa, 3.0)
+    p_exp = pvlib.inverter.pvwatts(pvlib.pvsystem.pvwatts_dc(poa, t_cell, 100.0, -0.004),
+                                   95.0 / 0.96, eta_inv_nom=0.96)
+    ts_s = ts.as_unit("s").asi8
+    with eng.begin() as c:
+        add_site(c, "s1", timezone="UTC", latitude_deg=LAT, longitude_deg=LON, altitude_m=ALT,
+                 tilt_deg=TILT, azimuth_deg=AZ)
+        add_readings(c, add_sensor(c, "s1", "poa1", "poa_wm2"), ts_s, g1)
+        add_readings(c, add_sensor(c, "s1", "poa2", "poa_wm2"), ts_s, g2)
+        add_readings(c, add_sensor(c, "s1", "tmod1", "t_module_c"), ts_s, t_mod)
+        for inv, sensor in (("inv1", "poa1"), ("inv2", "poa2")):
+            ch = add_inverter(c, "s1", inv, poa_sensor_id=sensor, t_module_sensor_id="tmod1",
+                              p_dc_kwp=100.0, p_ac_max_kw=95.0, eta_inv_nom=0.96)
+            add_readings(c, ch["p_ac_kw"], ts_s, 0.9 * np.nan_to_num(p_exp))
+    jobs_daily.recompute_all(eng, "s1")
+    run_flags(eng, "s1")
+    return eng
+
+
+def test_jump_flag_names_the_sensor_day_and_exclusions(store):
+    fl = read_flags(store, "s1", kind="sensor_implausible")
+    det = [json.loads(d) for d in fl["details_json"]]
+    jumps = [(dev, d) for dev, d in zip(fl["device_id"], det, strict=True)
+             if d["reason"] == "jump_vs_sibling"]
+    assert len(jumps) == 1
+    dev, d = jumps[0]
+    assert dev == "poa2"
+    # the pair ratio poa1 / poa2 steps by 1 / 1.08 - 1 = -7.4 %; poa2's own clear-sky
+    # ratio by +8 % (tolerance 0.5 %-points: 0.5 % noise, medians of clear days)
+    assert d["pair"] == ["poa1", "poa2"]
+    assert d["step_pct"] == pytest.approx(100 * (1 / 1.08 - 1), abs=0.5)
+    assert d["own_clear_sky_step_pct"]["poa2"] == pytest.approx(8.0, abs=0.5)
+    # the step day to ±2 days (median split of clear-day ratios)
+    assert abs((pd.Timestamp(d["first_day"]) - pd.Timestamp("2024-04-10")).days) <= 2
+    assert {"pr", "degradation", "clock", "soiling", "outage"} <= set(d["excluded_from"])
+
+
+def test_jumped_sensor_days_left_out_of_the_daily_table(store):
+    t = daily_table(store, "s1")
+    t["day"] = pd.to_datetime(t["day"])
+    before = t[(t["day"] < "2024-04-07") & (t["day"] > "2024-02-10")]
+    after = t[t["day"] > "2024-04-13"]
+    for inv in ("inv1", "inv2"):  # before the jump both have pi 0.9 (the power fraction)
+        b = before[(before.device_id == inv) & before.day_valid.astype(bool)]
+        assert len(b) > 40
+        np.testing.assert_allclose(b["pi"].median(), 0.9, atol=0.01)
+    a1 = after[(after.device_id == "inv1") & after.day_valid.astype(bool)]
+    np.testing.assert_allclose(a1["pi"].median(), 0.9, atol=0.01)
+    # the jumped sensor gives inv2 no PR evidence after the step (no 0.833 "loss")
+    a2 = after[after.device_id == "inv2"]
+    assert not a2["day_valid"].astype(bool).any()
+    # and nothing downstream reads the step as a loss, a drift or a clock error
+    fl = read_flags(store, "s1")
+    assert not {"underperformance", "sensor_drift", "clock_shift", "soiling"} & set(fl["kind"])
