@@ -100,16 +100,44 @@ def _mask_faulty_sensor_days(frame: pd.DataFrame, inv: dict, sun: pd.DataFrame,
     return frame
 
 
-def _sibling_jump_days(engine: sa.Engine, site_id: str, site: dict, off_s: int) -> dict:
-    """Sensor id -> day table of the days a POA sensor is excluded because it jumped against
-    its siblings (:func:`heliaudit.jobs_flags.sibling_jumps`, on the sensors' whole history:
-    a step needs weeks on either side, whatever range this run recomputes)."""
-    from heliaudit.jobs_flags import read_sensors, sibling_jumps
+def _fleet_sensor_checks(engine: sa.Engine, site_id: str, site: dict, off_s: int
+                         ) -> tuple[dict, dict]:
+    """The sensor judgements that need more than one inverter's frame.
+
+    Returns ``(jump_days, insolation)``: sensor id -> day table of the days a POA sensor is
+    excluded because it jumped against its siblings (:func:`heliaudit.jobs_flags.
+    sibling_jumps`, on the sensors' whole history: a step needs weeks on either side,
+    whatever range this run recomputes), and sensor id -> its daily insolation from the raw
+    readings (for :func:`heliaudit.jobs_flags.high_vs_power_by_sensor`)."""
+    from heliaudit.jobs_flags import daily_insolation, read_sensors, sibling_jumps
 
     sensors = read_sensors(engine, site_id, quantities=("poa_wm2",))
+    h = {e[0]: daily_insolation(e[2], off_s, e[3]) for e in sensors}
     if len(sensors) < 2:
+        return {}, h
+    return sibling_jumps(sensors, site, std_offset_s=off_s)[1], h
+
+
+def _high_sensor_days(rows: pd.DataFrame, invs: list[dict], insolation: dict) -> dict:
+    """Inverter id -> day table of the days its POA sensor reads far more than the arrays
+    under it deliver (:func:`heliaudit.jobs_flags.high_vs_power_by_sensor`), from the daily
+    rows' energies and availability."""
+    from heliaudit.jobs_flags import high_vs_power_by_sensor
+
+    if rows.empty or not invs:
         return {}
-    return sibling_jumps(sensors, site, std_offset_s=off_s)[1]
+    inverters = pd.DataFrame([{"device_id": i["device_id"], "p_dc_kwp": i["p_dc_kwp"],
+                               "poa_sensor_id": i.get("poa_sensor_id")} for i in invs])
+    out = {}
+    for sid, days in high_vs_power_by_sensor(insolation, rows, inverters).items():
+        if not days.any():
+            continue
+        tab = pd.DataFrame({"valid": ~days.to_numpy(bool),
+                            "reason": np.where(days.to_numpy(bool), "high_vs_power", "")},
+                           index=days.index)
+        for dev in inverters.loc[inverters["poa_sensor_id"] == sid, "device_id"]:
+            out[dev] = tab
+    return out
 
 
 def _mask_days(frame: pd.DataFrame, col: str, days: pd.DataFrame | None,
@@ -147,7 +175,9 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         comp_id = begin_computation(conn, site_id, "daily", params, scope=scope,
                                     software_version=heliaudit.__version__)
 
-    jump_days = _sibling_jump_days(engine, site_id, site, off_s)
+    jump_days, insolation = _fleet_sensor_checks(engine, site_id, site, off_s)
+    high_days: dict[str, pd.DataFrame] = {}  # inverter id -> days its POA sensor reads high
+    invs: list[dict] = []
     sun = pd.DataFrame({"solar_elevation_deg": [], "poa_clearsky_wm2": []},
                        index=pd.DatetimeIndex([], tz="UTC"))
     parts, ids, done = [], [], 0
@@ -183,6 +213,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
             # a sensor judged faulty gives no PR evidence (#14), nor one that jumped
             # against its siblings, from the jump on
             fr = _mask_faulty_sensor_days(fr, inv, sun_k, off_s)
+            fr = _mask_days(fr, "poa_wm2", high_days.get(inv["device_id"]), off_s)
             frames.append(_mask_days(fr, "poa_wm2", jump_days.get(inv.get("poa_sensor_id")),
                                      off_s))
             clearsky.append(cs)
@@ -198,7 +229,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
             days_seen.extend([(rows["day"].min() - _EPOCH).days, (rows["day"].max() - _EPOCH).days])
         done += len(batch)
         batch.clear()
-        if progress:
+        if progress and done <= n_inv:
             progress(done, n_inv)
 
     if progress:
@@ -206,6 +237,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
     n_batch = 0
     for inv, frame in inverter_frames(engine, site_id, start_s, end_s, prefetch=True):
         ids.append(inv["device_id"])
+        invs.append(inv)
         batch.append((inv, frame))
         n_batch += len(frame)
         if n_batch >= BATCH_ROWS:  # a few inverters at a time: vectorised, bounded memory
@@ -214,6 +246,17 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
     flush()
     out = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
         columns=["device_id", *adaily.DAILY_COLUMNS])
+    # a POA sensor reading far more than the arrays under it deliver (judged on the first
+    # pass's energies and availability): its inverters' days are recomputed without it
+    high_days.update(_high_sensor_days(out, invs, insolation))
+    if high_days:
+        parts.clear()
+        redo = sorted(high_days)
+        for inv, frame in inverter_frames(engine, site_id, start_s, end_s, inverter_ids=redo):
+            batch.append((inv, frame))
+        flush()
+        keep = out[~out["device_id"].isin(redo)]
+        out = pd.concat([keep, *parts], ignore_index=True)
     lo = first_day if first_day is not None else (min(days_seen) if days_seen else 0)
     hi = last_day if last_day is not None else (max(days_seen) if days_seen else 0)
     with engine.begin() as conn:

@@ -531,49 +531,67 @@ def _yield_by_sensor(daily: pd.DataFrame, inverters: pd.DataFrame) -> dict[str, 
     return out
 
 
-def _low_vs_yield(x: pd.Series, yf: pd.Series | None, tau_s: int, std_offset_s: int, *,
-                  min_yf_h: float = 1.0, factor: float = 0.25) -> pd.Series:
-    """Days on which the sensor's insolation H is below ``factor`` × the arrays' final yield
-    (Y_f ≤ Y_r for any PR ≤ 1, IEC 61724-1): the sensor reads far less than the power
+def _low_vs_yield(h: pd.Series, yf: pd.Series | None, *, min_yf_h: float = 1.0,
+                  factor: float = 0.25) -> pd.Series:
+    """Days on which the sensor's insolation ``h`` is below ``factor`` × the arrays' final
+    yield (Y_f ≤ Y_r for any PR ≤ 1, IEC 61724-1): the sensor reads far less than the power
     delivered under it."""
-    if yf is None or yf.empty or x.empty:
+    if yf is None or yf.empty or h.empty:
         return pd.Series(dtype=bool)
-    day = (epoch_s(x.index) + int(std_offset_s)) // 86400
-    h = pd.Series(np.clip(x.to_numpy(float), 0, None) * tau_s / 3.6e6).groupby(day).sum()
-    h.index = pd.to_datetime(h.index.to_numpy() * 86400, unit="s")
     y = yf.reindex(h.index)
     return (y >= min_yf_h) & (h < factor * y)
 
 
-def _high_vs_yield(x: pd.Series, sid: str, daily: pd.DataFrame, inverters: pd.DataFrame,
-                   tau_s: int, std_offset_s: int, *, min_avail: float = 0.95,
-                   min_coverage: float = 0.9) -> pd.Series:
-    """Days on which the sensor reads far more than the arrays under it deliver
-    (:func:`analytics.sensor_qa.high_vs_power_days`): its daily insolation from the raw
-    readings against each of its inverters' final yield on days that inverter was available
-    (time availability ≥ ``min_avail``) and its data covered (``min_coverage``)."""
-    if daily.empty or x.empty or "poa_sensor_id" not in inverters:
-        return pd.Series(dtype=bool)
-    invs = inverters.loc[inverters["poa_sensor_id"] == sid, ["device_id", "p_dc_kwp"]]
-    if len(invs) < 2:
-        return pd.Series(dtype=bool)
-    kwp = dict(zip(invs["device_id"], invs["p_dc_kwp"].astype(float), strict=True))
-    d = daily[daily["device_id"].isin(list(kwp))].copy()
-    if d.empty:
-        return pd.Series(dtype=bool)
-    d["day"] = pd.to_datetime(d["day"])
-    yf = d["e_ac_kwh"].astype(float) / d["device_id"].map(kwp)
-    ok = np.ones(len(d), bool)
-    for col, lo in (("avail_time", min_avail), ("coverage", min_coverage)):
-        if col in d:
-            ok &= (d[col].astype(float) >= lo).to_numpy()
-    d["yf"] = yf.where(ok)
-    wide = d.pivot_table(index="day", columns="device_id", values="yf", aggfunc="first")
-    day = (epoch_s(x.index) + int(std_offset_s)) // 86400
-    h = pd.Series(np.clip(x.to_numpy(float), 0, None) * tau_s / 3.6e6).groupby(day).sum()
+def daily_insolation(x: pd.Series, std_offset_s: int, interval_s=None) -> pd.Series:
+    """Daily insolation H [kWh/m²] of an irradiance series by local standard day (negative
+    readings count as 0). ``interval_s``: each reading's interval [s] (a logging interval
+    can change part-way); default the spacing of the timestamps."""
+    if x.empty:
+        return pd.Series(dtype=float)
+    ts = epoch_s(x.index)
+    if interval_s is None:
+        interval_s = np.full(ts.size, np.nan)
+    tau = fill_unknown_intervals(ts, np.asarray(interval_s, dtype=float))
+    day = (ts + int(std_offset_s)) // 86400
+    h = pd.Series(np.clip(x.to_numpy(float), 0, None) * tau / 3.6e6).groupby(day).sum()
     h.index = pd.to_datetime(h.index.to_numpy() * 86400, unit="s")
-    p = PARAMS["sensor"]["validity"]
-    return sensor_qa.high_vs_power_days(h, wide, min_pr=p["high_vs_power_min_pr"])
+    return h
+
+
+def high_vs_power_by_sensor(insolation: dict[str, pd.Series], daily: pd.DataFrame,
+                            inverters: pd.DataFrame, *, min_avail: float = 0.95,
+                            min_coverage: float = 0.9) -> dict[str, pd.Series]:
+    """Sensor id -> days on which that POA sensor reads far more than the arrays under it
+    deliver (:func:`analytics.sensor_qa.high_vs_power_days`): its daily insolation from the
+    raw readings against each of its inverters' final yield Y_f = E_ac / P_dc on days that
+    inverter was available (time availability ≥ ``min_avail``, or unknown because the
+    sensor's days are already masked) and has at least ``min_coverage`` × the most
+    readings any of them has that day. The daily job and the flags job both call this."""
+    out: dict[str, pd.Series] = {}
+    if daily.empty or "poa_sensor_id" not in inverters:
+        return out
+    for sid, h in insolation.items():
+        invs = inverters.loc[inverters["poa_sensor_id"] == sid, ["device_id", "p_dc_kwp"]]
+        if len(invs) < 2 or h.empty:
+            continue
+        kwp = dict(zip(invs["device_id"], invs["p_dc_kwp"].astype(float), strict=True))
+        d = daily[daily["device_id"].isin(list(kwp))].copy()
+        if d.empty:
+            continue
+        d["day"] = pd.to_datetime(d["day"])
+        yf = d["e_ac_kwh"].astype(float) / d["device_id"].map(kwp)
+        ok = np.ones(len(d), bool)
+        if "avail_time" in d:  # unknown (NaN) once the sensor's days are masked: no veto
+            av = pd.to_numeric(d["avail_time"], errors="coerce").astype(float)
+            ok &= (av.isna() | (av >= min_avail)).to_numpy()
+        if "n_intervals" in d:  # the inverter's readings cover the day like its siblings'
+            n = pd.to_numeric(d["n_intervals"], errors="coerce").astype(float)
+            ok &= (n >= min_coverage * n.groupby(d["day"]).transform("max")).to_numpy()
+        d["yf"] = yf.where(ok)
+        wide = d.pivot_table(index="day", columns="device_id", values="yf", aggfunc="first")
+        out[sid] = sensor_qa.high_vs_power_days(
+            h, wide, min_pr=PARAMS["sensor"]["validity"]["high_vs_power_min_pr"])
+    return out
 
 
 def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.DataFrame, *,
@@ -588,7 +606,12 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
     ``flags`` the 'sensor_implausible' flags (faulty periods with their reason and the
     calculations they are excluded from, and an ambient-sensor offset).
     """
-    by_id = {e[0]: (e[1], e[2].sort_index()) for e in sensors}
+    by_id, iv_of = {}, {}
+    for e in sensors:
+        order = np.argsort(epoch_s(e[2].index), kind="stable")
+        by_id[e[0]] = (e[1], e[2].iloc[order])
+        given = e[3] if len(e) > 3 and e[3] is not None else np.full(len(e[2]), np.nan)
+        iv_of[e[0]] = np.asarray(given, dtype=float)[order]
     yields = _yield_by_sensor(daily, inverters)
     invalid: dict = {}
     flags: list[pd.DataFrame] = []
@@ -599,8 +622,10 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
         s = gs.reindex(x.index)
         days = sensor_qa.irradiance_validity(x, s["elev"].to_numpy(), s["poa_cs"].to_numpy(),
                                              std_offset_s=std_offset_s)
-        low = _low_vs_yield(x, yields.get(sid), _tau_s(x.index), std_offset_s)
-        high = _high_vs_yield(x, sid, daily, inverters, _tau_s(x.index), std_offset_s)
+        h = daily_insolation(x, std_offset_s, iv_of[sid])
+        low = _low_vs_yield(h, yields.get(sid))
+        high = high_vs_power_by_sensor({sid: h}, daily, inverters).get(sid, pd.Series(
+            dtype=bool))
         for reason, m in (("low_vs_power", low), ("high_vs_power", high)):
             if len(m):
                 lo = m.reindex(days.index).fillna(False).to_numpy(bool)

@@ -96,3 +96,84 @@ def test_jumped_sensor_days_left_out_of_the_daily_table(store):
     # and nothing downstream reads the step as a loss, a drift or a clock error
     fl = read_flags(store, "s1")
     assert not {"underperformance", "sensor_drift", "clock_shift", "soiling"} & set(fl["kind"])
+
+
+@pytest.fixture(scope="module")
+def high_store(tmp_path_factory):
+    """40 days of a steady thin overcast (half the clear-sky POA, so a 2.6 x reading stays
+    inside the 1500 W/m² range), three inverters on sensor poaH, which reads 2.6 x the
+    irradiance on days 20-29 (2024-03-01..10; a wrong gain after a logger swap); a fourth
+    inverter on its own sensor poaA loses 65 % of its power on the same days (its own fault,
+    sensor right)."""
+    eng = make_store(tmp_path_factory.mktemp("high"))
+    start = pd.Timestamp("2024-02-10", tz="UTC")
+    ts = pd.date_range(start, periods=40 * 96, freq="15min")
+    mid = ts + pd.Timedelta(minutes=7.5)
+    loc = pvlib.location.Location(LAT, LON, "UTC", ALT)
+    sp = loc.get_solarposition(mid)
+    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
+    poa = pvlib.irradiance.get_total_irradiance(TILT, AZ, sp["apparent_zenith"], sp["azimuth"],
+                                                cs["dni"], cs["ghi"], cs["dhi"],
+                                                model="isotropic")["poa_global"].to_numpy()
+    poa = 0.5 * np.nan_to_num(poa).clip(min=0)
+    day = np.arange(poa.size) // 96
+    bad = (day >= 20) & (day < 30)
+    t_mod = 15.0 + 0.03 * poa
+    t_cell = pvlib.temperature.sapm_cell_from_module(t_mod, poa, 3.0)
+    p_exp = np.nan_to_num(pvlib.inverter.pvwatts(
+        pvlib.pvsystem.pvwatts_dc(poa, t_cell, 100.0, -0.004), 95.0 / 0.96, eta_inv_nom=0.96))
+    ts_s = ts.as_unit("s").asi8
+    with eng.begin() as c:
+        add_site(c, "s1", timezone="UTC", latitude_deg=LAT, longitude_deg=LON, altitude_m=ALT,
+                 tilt_deg=TILT, azimuth_deg=AZ)
+        add_readings(c, add_sensor(c, "s1", "poaH", "poa_wm2"), ts_s,
+                     poa * np.where(bad, 2.6, 1.0))
+        add_readings(c, add_sensor(c, "s1", "poaA", "poa_wm2"), ts_s, poa)
+        add_readings(c, add_sensor(c, "s1", "tmod1", "t_module_c"), ts_s, t_mod)
+        for inv, sensor, frac in (("inv1", "poaH", 0.9), ("inv2", "poaH", 0.9),
+                                  ("inv3", "poaH", 0.9), ("inv4", "poaA", None)):
+            ch = add_inverter(c, "s1", inv, poa_sensor_id=sensor, t_module_sensor_id="tmod1",
+                              p_dc_kwp=100.0, p_ac_max_kw=95.0, eta_inv_nom=0.96)
+            f = np.where(bad, 0.9 * 0.35, 0.9) if frac is None else frac
+            add_readings(c, ch["p_ac_kw"], ts_s, f * p_exp)
+    jobs_daily.recompute_all(eng, "s1")
+    run_flags(eng, "s1")
+    return eng
+
+
+def test_sensor_reading_high_is_found_and_excluded(high_store):
+    # issue #14: the array-power check caught only LOW sensor readings. The three arrays on
+    # poaH deliver a PR of 0.9 x 0.9 / 2.6 ~ 0.3 < 0.4 against it on days 20-29
+    fl = read_flags(high_store, "s1", kind="sensor_implausible")
+    det = [(dev, json.loads(d)) for dev, d in zip(fl["device_id"], fl["details_json"],
+                                                  strict=True)]
+    high = [(dev, d) for dev, d in det if d["reason"] == "high_vs_power"]
+    assert len(high) == 1 and high[0][0] == "poaH"
+    # exact days: the check is per local day, the fault is whole UTC days (site in UTC)
+    assert (high[0][1]["first_day"], high[0][1]["last_day"]) == ("2024-03-01", "2024-03-10")
+    assert "pr" in high[0][1]["excluded_from"]
+    t = daily_table(high_store, "s1")
+    t["day"] = pd.to_datetime(t["day"])
+    on = t[t["device_id"].isin(["inv1", "inv2", "inv3"])]
+    inside = on[(on["day"] >= "2024-03-01") & (on["day"] <= "2024-03-10")]
+    # PR, filters and degradation get no evidence from those days (no PR 0.3 "loss") ...
+    assert len(inside) == 30 and not inside["day_valid"].astype(bool).any()
+    outside = on[(on["day"] < "2024-02-28") | (on["day"] > "2024-03-13")]
+    np.testing.assert_allclose(outside.loc[outside.day_valid.astype(bool), "pi"], 0.9,
+                               rtol=1e-6)
+    # ... and no underperformance or outage is read from the high sensor
+    allf = read_flags(high_store, "s1")
+    assert not allf[allf["device_id"].isin(["inv1", "inv2", "inv3"])
+                    & allf["kind"].isin(["underperformance", "outage"])].any().any()
+
+
+def test_one_inverters_own_loss_is_not_a_high_sensor(high_store):
+    # inv4 alone on poaA at PR ~ 0.3 on the same days: one inverter cannot tell its own
+    # loss from a sensor reading high, so poaA is not judged and inv4 keeps its low days
+    fl = read_flags(high_store, "s1", kind="sensor_implausible")
+    assert "poaA" not in set(fl["device_id"])
+    t = daily_table(high_store, "s1")
+    t["day"] = pd.to_datetime(t["day"])
+    r = t[(t["device_id"] == "inv4") & (t["day"] >= "2024-03-02") & (t["day"] <= "2024-03-09")]
+    assert r["day_valid"].astype(bool).all()
+    np.testing.assert_allclose(r["pi"], 0.9 * 0.35, rtol=1e-6)
