@@ -77,7 +77,7 @@ def test_temperature_flatline_uses_005c():
     idx = pd.date_range("2024-06-01 15:00", periods=12, freq="15min", tz="UTC")
     t = pd.Series([30, 31, 32, 33.0, 33.01, 33.02, 33.0, 33.03, 33.01, 33.02, 33.0, 35],
                   index=idx)
-    # METHODS §5: >= 8 samples within 0.05 °C are stuck samples (33.0 .. 33.0, 8 of them)
+    # documented (common practice): >= 8 samples within 0.05 °C are stuck (33.0 .. 33.0, 8)
     assert flatline_mask(t.to_numpy(), np.ones(12, bool), min_run=8, abs_tol=0.05).sum() == 8
     # ... but 2 h flat is a calm spell, not a sensor to fix: no flag (issue #14)
     assert flatline_flags(t, np.ones(12, bool), device_id="tm1", quantity="t_module_c").empty
