@@ -62,6 +62,19 @@ SUITES = {
         ("soiling_arid", "soiling_arid", 216, [], False),
         ("messy_format", "messy_format", 217, FEW, True),
     ],
+    # fresh seeds and other settings than "full" (issue #14 asks for several seeds and
+    # varied settings): a 5-min clean fleet, a smaller desert fleet without soiling, a faults
+    # fleet whose ambient sensor reads 5.5 °C high from a quarter of the period on (instead
+    # of the TMOD2 dropout), and a 4-year arid soiling fleet of 8 inverters
+    "extra": [
+        ("clean 5-min", "clean", 221, FEW + ["dialect.interval_min=5"], True),
+        ("desert no soiling b", "soiling_arid", 222, ["soiling=null", "years=3",
+                                                      "n_inverters=8"], True),
+        ("faults ambient offset", "faults", 223,
+         ["years=3", 'faults.sensor_faults.2={"sensor": "TAMB", "kind": "offset", '
+                     '"value": 5.5, "frac": [0.2, 0.3], "until_end": true}'], False),
+        ("soiling_arid b", "soiling_arid", 224, ["years=4", "n_inverters=8"], False),
+    ],
 }
 KINDS = ("outage", "underperformance", "sensor_fault", "clock", "soiling", "data_gap")
 UNSCORED = {"clipping", "power_limit", "cleaning", "stopped_reporting"}
