@@ -237,7 +237,8 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
     n_batch = 0
     for inv, frame in inverter_frames(engine, site_id, start_s, end_s, prefetch=True):
         ids.append(inv["device_id"])
-        invs.append(inv)
+        if not site_irr.needs_model(inv["device_id"]):  # arrays in its POA sensor's plane
+            invs.append(inv)
         batch.append((inv, frame))
         n_batch += len(frame)
         if n_batch >= BATCH_ROWS:  # a few inverters at a time: vectorised, bounded memory

@@ -606,6 +606,7 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
     ``flags`` the 'sensor_implausible' flags (faulty periods with their reason and the
     calculations they are excluded from, and an ambient-sensor offset).
     """
+    planes = sensor_planes(site) if site is not None else {}
     by_id, iv_of = {}, {}
     for e in sensors:
         order = np.argsort(epoch_s(e[2].index), kind="stable")
@@ -624,8 +625,8 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
                                              std_offset_s=std_offset_s)
         h = daily_insolation(x, std_offset_s, iv_of[sid])
         low = _low_vs_yield(h, yields.get(sid))
-        high = high_vs_power_by_sensor({sid: h}, daily, inverters).get(sid, pd.Series(
-            dtype=bool))
+        high = high_vs_power_by_sensor({sid: h}, daily, _in_plane_of(
+            inverters, planes.get(sid, "site"), site)).get(sid, pd.Series(dtype=bool))
         for reason, m in (("low_vs_power", low), ("high_vs_power", high)):
             if len(m):
                 lo = m.reindex(days.index).fillna(False).to_numpy(bool)
@@ -1227,13 +1228,17 @@ def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None
     -------
     (flags, {sensor id: day table with reason 'jump_vs_sibling'})
     """
-    poa = [(e[0], e[2].sort_index()) for e in sensors if e[1] == "poa_wm2" and len(e[2])]
+    planes = sensor_planes(site)
+    poa = [(e[0], e[2].sort_index()) for e in sensors if e[1] == "poa_wm2" and len(e[2])
+           and planes.get(e[0], "site") != "tracker"]
     if len(poa) < 2:
         return flag_frame([]), {}
     ratios, days_of = {}, {}
     for sid, x in poa:
-        sun = (site_sun(x.index, site, _tau_s(x.index) / 3600.0) if sun_for is None
-               else sun_for(x.index).reindex(x.index))
+        plane = planes.get(sid, "site")
+        sun = (sun_for(x.index).reindex(x.index) if sun_for is not None and plane == "site"
+               else site_sun(x.index, site, _tau_s(x.index) / 3600.0,
+                             None if plane == "site" else plane))
         days = sensor_qa.irradiance_validity(x, sun["elev"].to_numpy(),
                                              sun["poa_cs"].to_numpy(),
                                              std_offset_s=std_offset_s)
@@ -1243,8 +1248,69 @@ def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None
                                       std_offset_s=std_offset_s)
         if len(r):
             ratios[sid] = r
-    jumps = sensor_qa.sibling_jump_flags(ratios, std_offset_s=std_offset_s)
+    # only sensors in one plane are siblings: each plane's clear-day ratios are compared
+    parts = []
+    for _key, grp in itertools.groupby(sorted(ratios, key=lambda k: str(planes.get(k, "site"))),
+                                       key=lambda k: str(planes.get(k, "site"))):
+        grp = list(grp)
+        if len(grp) >= 2:
+            parts.append(sensor_qa.sibling_jump_flags({k: ratios[k] for k in grp},
+                                                      std_offset_s=std_offset_s))
+    jumps = pd.concat(parts, ignore_index=True) if parts else flag_frame([])
     return jumps, sensor_qa.jump_validity(jumps, days_of, std_offset_s=std_offset_s)
+
+
+def _in_plane_of(inverters: pd.DataFrame, plane, site: dict | None) -> pd.DataFrame:
+    """The inverters whose arrays lie in ``plane`` (a :func:`sensor_planes` value): only
+    their power is evidence about a sensor in that plane (none for a tracker sensor)."""
+    if plane == "tracker":
+        return inverters.iloc[0:0]
+    if site is None or "tilt_deg" not in inverters or "azimuth_deg" not in inverters:
+        return inverters
+    keys = []
+    for t, a in zip(inverters["tilt_deg"], inverters["azimuth_deg"], strict=True):
+        try:
+            t, a = float(t), float(a)
+        except (TypeError, ValueError):
+            keys.append("site")
+            continue
+        if not (np.isfinite(t) and np.isfinite(a)) or (
+                abs(t - float(site["tilt_deg"])) < 0.5
+                and abs(a - float(site["azimuth_deg"])) < 0.5):
+            keys.append("site")
+        else:
+            keys.append((t, a))
+
+    def same(k):
+        if k == "site" or plane == "site":
+            return k == plane
+        return abs(k[0] - plane[0]) < 0.5 and abs(k[1] - plane[1]) < 0.5
+
+    return inverters[[same(k) for k in keys]]
+
+
+def sensor_planes(site: dict) -> dict:
+    """POA sensor id -> its plane from the stored configuration: ``"site"`` (the site's
+    plane, also when none is given), ``"tracker"``, or (tilt_deg, azimuth_deg)."""
+    from ingest.config import ConfigError, parse_site_config
+
+    try:
+        cfg = parse_site_config(site.get("config_toml") or "", "<stored configuration>")
+    except (ConfigError, ValueError):
+        return {}
+    out = {}
+    for sn in cfg.sensors:
+        pl = getattr(sn, "plane", None)
+        if pl is None:
+            out[sn.id] = "site"
+        elif pl.is_tracker:
+            out[sn.id] = "tracker"
+        elif (abs(pl.tilt_deg - float(site["tilt_deg"])) < 0.5
+              and abs(pl.azimuth_deg - float(site["azimuth_deg"])) < 0.5):
+            out[sn.id] = "site"
+        else:
+            out[sn.id] = (float(pl.tilt_deg), float(pl.azimuth_deg))
+    return out
 
 
 def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None) -> int:
