@@ -75,7 +75,7 @@ DEFAULTS: dict = {
     "min_years": 2.0,
     "warn_years": 3.0,
     "lag_days": 365,
-    "reference": "pairwise",
+    "reference": "start",  # pair rates in % of the initial level: linear warranties (#13)
     "min_peers": 3,
     "rlm_aggregate": "monthly",
     "rlm_harmonics": 1,
@@ -557,9 +557,11 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         judged = [d for d in drift_by_sensor.values() if d["judged"]]
         site_drift = None
         if judged:  # a drifting sensor biases the site index through its inverters
+            onsets = sorted(d["onset_day"] for d in judged if d.get("onset_day"))
             site_drift = {"judged": True, "sensor_id": ", ".join(d["sensor_id"] for d in judged),
                           "drift_pct_per_yr": float(np.median([d["drift_pct_per_yr"]
-                                                               for d in judged]))}
+                                                               for d in judged])),
+                          "onset_day": onsets[0] if onsets else None}
         e_exp_site = pd.concat([by_dev[i]["e_exp_kwh"] for i in by_dev], axis=1).sum(axis=1)
         _shift_energy(cps, pd.DataFrame({"e_exp_kwh": e_exp_site}))
         res["recommended"] = adeg.recommend_rate(

@@ -75,6 +75,37 @@ SUITES["full"] = SUITES["quick"] + [
     ("messy_format", "messy_format", 208, FEW + ["years=3"], True),
 ]
 
+DRIFT_LATE = ('faults={"sensor_faults": [{"sensor": "POA1", "kind": "drift", "rate_pct_per_yr": '
+              '-1.0, "frac": [0.45, 0.5], "until_end": true}]}')
+D11, D125, D14 = ("array.dc_ac_ratio=[1.08,1.12]", "array.dc_ac_ratio=[1.22,1.28]",
+                  "array.dc_ac_ratio=[1.36,1.42]")
+#: several seeds per variation (issue #13): DC/AC 1.1 / 1.25 / 1.4, three climates, a steady
+#: and a late-starting sensor drift, soiling, a step
+SUITES["seeds"] = [
+    ("clean dcac1.1", "clean", 302, FEW + ["years=3", D11], True),
+    ("clean dcac1.1", "clean", 305, FEW + ["years=4", D11], True),
+    ("clean dcac1.1", "clean", 101, FEW + ["years=3", D11], True),
+    ("clean dcac1.25", "clean", 303, FEW + ["years=4", D125], True),
+    ("clean dcac1.25", "clean", 202, FEW + ["years=3", D125], True),
+    ("clean dcac1.15-1.30", "clean", 201, FEW + ["years=4"], True),
+    ("clean dcac1.4", "clean", 301, FEW + ["years=4", D14], True),
+    ("clean dcac1.4", "clean", 304, FEW + ["years=3", D14], True),
+    ("clean dcac1.4", "clean", 307, FEW + ["years=3", D14], True),
+    ("clean dcac1.4", "clean", 102, FEW + ["years=3", D14], True),
+    ("clean dcac1.4", "clean", 203, FEW + ["years=4", D14], True),
+    ("desert no soiling", "soiling_arid", 306, FEW + ["years=3", "soiling=null"], True),
+    ("desert no soiling", "soiling_arid", 103, FEW + ["years=3", "soiling=null"], True),
+    ("po valley no faults", "faults", 308, FEW + ["years=3", "faults=null"], True),
+    ("po valley no faults", "faults", 204, FEW + ["years=3", "faults=null"], True),
+    ("POA1 drift -1 %/yr", "clean", 311, FEW + ["years=3", DRIFT_1], False),
+    ("POA1 drift -1 %/yr", "clean", 312, FEW + ["years=4", DRIFT_1], False),
+    ("POA1 drift -1 %/yr from mid-record", "clean", 313, FEW + ["years=4", DRIFT_LATE], False),
+    ("POA1 drift -1 %/yr from mid-record", "clean", 314, FEW + ["years=4", DRIFT_LATE], False),
+    ("soiling_arid", "soiling_arid", 315, FEW + ["years=4"], False),
+    ("soiling_arid", "soiling_arid", 316, FEW + ["years=4"], False),
+    ("4 % step", "clean", 317, FEW + ["years=3", STEP_4], False),
+]
+
 DRIFT_WORDS = ("calibration",)  # warnings start with a method code: "sensor_drift_check: ..."
 
 
@@ -145,6 +176,9 @@ def main(argv=None) -> int:
     ap.add_argument("--keep", type=Path, default=None, help="keep the case folders here")
     ap.add_argument("--reuse", action="store_true",
                     help="with --keep: read back cases already scored there instead of re-running")
+    ap.add_argument("--redo", action="store_true",
+                    help="with --keep: recompute only the degradation rates of cases kept there "
+                         "(same ingest/daily/flags), run the others in full")
     a = ap.parse_args(argv)
     ok, why = shared_available()
     if not ok:
@@ -157,7 +191,8 @@ def main(argv=None) -> int:
     for label, scen, seed, sets, clean in cases:
         wd = a.keep / f"{scen}-{seed}" if a.keep else None
         print(f"-- {label}: {scen} seed {seed} {' '.join(sets)}", flush=True)
-        res = run_case(scen, seed, sets, workdir=wd, keep=a.keep is not None, reuse=a.reuse)
+        res = run_case(scen, seed, sets, workdir=wd, keep=a.keep is not None, reuse=a.reuse,
+                       redo=a.redo)
         if not res["ok"]:
             print("   FAILED:", res["error"])
             continue
