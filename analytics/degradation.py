@@ -248,14 +248,23 @@ def yoy_rates(pi: pd.Series, *, lag_days: int = 365, reference: str = "pairwise"
         ref = full
     r = 100.0 * (later - full) / ref * (365.0 / lag_days)
     r = r[np.isfinite(r)].rename("rd_pct_per_yr")  # a zero reference gives no pair
-    if reference == "start" and len(r):
-        # pair rates relative to the level at the first day instead of each pair's own first
-        # day: for a linear loss P(t) = P0 (1 + R t), r_pair = R / (1 + R t), so
-        # r_pair (1 + R t) = R; R from the pairs' median (one fixed-point step, the
-        # remainder is of order R^3 t^2)
-        t_yr = ((r.index - s.index[0]).days / DAYS_PER_YEAR).to_numpy()
-        r = r * (1 + float(np.median(r)) / 100.0 * t_yr)
+    if reference == "start":
+        r = _pairs_to_start(r, s.index[0])
     return r
+
+
+def _pairs_to_start(r: pd.Series, first_day) -> pd.Series:
+    """Pairwise rates re-expressed relative to the level on ``first_day``.
+
+    For a linear loss ``P(t) = P0 (1 + R t)`` the pair starting at ``t`` has
+    ``r = R / (1 + R t)``, so ``r (1 + R t) = R``; ``R`` is the pairs' median (one fixed-point
+    step, the remainder is of order R³t²). A level shift (``P`` times a constant after it)
+    cancels in both factors.
+    """
+    if r.empty:
+        return r
+    t_yr = ((r.index - pd.Timestamp(first_day)).days / DAYS_PER_YEAR).to_numpy()
+    return r * (1 + float(np.median(r)) / 100.0 * t_yr)
 
 
 def acf_block_length(x, *, threshold: float = 0.2, max_block: int | None = None) -> int:
@@ -409,7 +418,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         raise ValueError("confidence must be between 0 and 1")
     s = _as_daily(pi)
     span, msg = check_span(s.index, min_years=min_years, warn_years=warn_years)
-    r = yoy_rates(s, lag_days=lag_days, reference=reference)
+    r = yoy_rates(s, lag_days=lag_days, reference="pairwise" if reference == "start" else reference)
     n_spanning = 0
     segment_info = []
     if breaks:
@@ -444,6 +453,8 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         raise InsufficientDataError(
             f"{len(r)} year-on-year pairs (days with a valid day {lag_days} days later); "
             f"at least {min_pairs} are needed")
+    if reference == "start":  # after the pairs spanning a shift are gone (their rate is the step)
+        r = _pairs_to_start(r, s.index[0])
     vals = r.to_numpy()
     gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
     boot, b = block_bootstrap(vals, np.median, n_resamples=n_resamples,
@@ -836,7 +847,8 @@ def drift_onset(ratio: pd.Series, *, step_days: int = 14, min_before_days: int =
     divided by :func:`acf_block_length` of the residuals):
     ``n_eff · ln(RSS_all / RSS_onset) > penalty · ln(n_eff)`` (``penalty`` 2: the onset is
     searched, a change-point's position costs about two parameters; common practice). The
-    rate ``k`` [%/yr] gets a Newey & West (1987) HAC interval with the onset fixed. The
+    rate ``k`` [%/yr] gets a Newey & West (1987) HAC interval with the onset fixed (it does
+    not include the onset's own uncertainty, so it is too narrow when the onset is unsure). The
     year-on-year median of the whole record reads such a drift at about the share of the
     record after the onset (the demo's 0.8 %/yr drift from mid-2023 read +0.41).
 
@@ -871,9 +883,9 @@ def drift_onset(ratio: pd.Series, *, step_days: int = 14, min_before_days: int =
         X = np.column_stack([base, np.clip(t - t0_yr, 0, None)])
         beta, *_ = np.linalg.lstsq(X, y, rcond=None)
         resid = y - X @ beta
-        return float(resid @ resid), beta, X, resid
+        return float(resid @ resid), X, resid
 
-    rss_all, beta_all, X_all, res_all = fit(0.0)
+    rss_all, X_all, res_all = fit(0.0)
     best = (rss_all, 0.0)
     lo_yr, hi_yr = min_before_days / DAYS_PER_YEAR, t[-1] - min_after_days / DAYS_PER_YEAR
     for t0 in np.arange(lo_yr, hi_yr, step_days / DAYS_PER_YEAR):
@@ -881,11 +893,11 @@ def drift_onset(ratio: pd.Series, *, step_days: int = 14, min_before_days: int =
         if rss < best[0]:
             best = (rss, t0)
     rss_on, t0 = best
-    rss_on, beta, X, resid = fit(t0)
+    rss_on, X, resid = fit(t0)
     n_eff = len(y) / acf_block_length(resid)
     accepted = t0 > 0 and n_eff * np.log(rss_all / rss_on) > penalty * np.log(max(n_eff, 2.0))
     if not accepted:
-        t0, beta, X, resid = 0.0, beta_all, X_all, res_all
+        t0, X, resid = 0.0, X_all, res_all
     lags = max(1, acf_block_length(resid))
     fitres = sm.OLS(y, X).fit(cov_type="HAC", cov_kwds={"maxlags": lags})
     k = 100 * float(fitres.params[-1])
