@@ -886,14 +886,26 @@ def drift_onset(ratio: pd.Series, *, step_days: int = 14, min_before_days: int =
         return float(resid @ resid), X, resid
 
     rss_all, X_all, res_all = fit(0.0)
-    best = (rss_all, 0.0)
-    lo_yr, hi_yr = min_before_days / DAYS_PER_YEAR, t[-1] - min_after_days / DAYS_PER_YEAR
-    for t0 in np.arange(lo_yr, hi_yr, step_days / DAYS_PER_YEAR):
-        rss = fit(t0)[0]
-        if rss < best[0]:
-            best = (rss, t0)
-    rss_on, t0 = best
-    rss_on, X, resid = fit(t0)
+    # every candidate at once (Frisch-Waugh-Lovell): with y and each hinge column h residualised
+    # on the seasonal base, RSS(t0) = |y_r|^2 - (y_r . h_r)^2 / |h_r|^2
+    grid = np.arange(min_before_days / DAYS_PER_YEAR, t[-1] - min_after_days / DAYS_PER_YEAR,
+                     step_days / DAYS_PER_YEAR)
+    t0 = 0.0
+    rss_on = rss_all
+    if grid.size:
+        M = np.column_stack([y, np.clip(t[:, None] - grid[None, :], 0, None)])
+        Q, _ = np.linalg.qr(base)             # orthonormal basis of the seasonal columns
+        R = M - Q @ (Q.T @ M)
+        yr, hr = R[:, 0], R[:, 1:]
+        hh = np.einsum("ij,ij->j", hr, hr)
+        rss = float(yr @ yr) - np.where(hh > 0, (yr @ hr) ** 2 / np.where(hh > 0, hh, 1), 0.0)
+        j = int(np.argmin(rss))
+        if rss[j] < rss_all:
+            t0 = float(grid[j])
+    if t0 > 0:
+        rss_on, X, resid = fit(t0)
+    else:
+        X, resid = X_all, res_all
     n_eff = len(y) / acf_block_length(resid)
     accepted = t0 > 0 and n_eff * np.log(rss_all / rss_on) > penalty * np.log(max(n_eff, 2.0))
     if not accepted:
