@@ -26,49 +26,24 @@ from heliaudit import jobs_daily, jobs_flags
 from ingest.config import load_site_config
 from ingest.counters import COARSE_FRACTION, counter_resolution, is_coarse
 from ingest.load import ingest_paths
+from tests.helpers_config import SENSOR_COLUMNS, site_toml, source_toml
 from tests.helpers_store import readings_to_old_layout
 
 _trapezoid = getattr(np, "trapezoid", None) or np.trapz  # numpy >= 2.0 renamed trapz
 
-SITE = """format_version = 1
-[site]
-id = "real"
-name = "Invented real-plant-like site"
-timezone = "UTC"
-latitude_deg = 40.0
-longitude_deg = 0.0
-altitude_m = 100
-tilt_deg = 30
-azimuth_deg = 180
-
-[[sensors]]
-id = "POA1"
-quantity = "poa_wm2"
-instrument = "thermopile_pyranometer"
-
-[[sensors]]
-id = "TMOD1"
-quantity = "t_module_c"
-"""
-
-INVERTER = """
-[[inverters]]
-id = "{id}"
-p_dc_kwp = {p_dc}
-p_ac_max_kw = {p_ac}
-gamma_pmp_per_c = -0.0037
-mounting = "open_rack_glass_polymer"
-poa_sensor = "POA1"
-t_module_sensor = "TMOD1"
-commissioned = 2020-01-01
-"""
-
-
 def _site(tmp_path, sources: str, inverters=(("INV1", 120.0, 100.0),)):
-    text = SITE + "".join(INVERTER.format(id=i, p_dc=d, p_ac=a) for i, d, a in inverters) + sources
+    text = site_toml("real", "Invented real-plant-like site", altitude_m=100,
+                     inverters=inverters) + sources
     p = tmp_path / "site.toml"
     p.write_text(text)
     return load_site_config(p)
+
+
+def _read(engine, *keys):
+    """(ts, values) of each (device, quantity) channel of site "real", as stored."""
+    with engine.connect() as conn:
+        ch = site_channels(conn, "real")
+        return [read_channel(conn, ch[k]) for k in keys]
 
 
 def _poa(hours: np.ndarray) -> np.ndarray:
@@ -89,17 +64,8 @@ def _mixed_day_rows(day: str, switch_h: float = 12.0):
     return ends, tau_h, mid_h
 
 
-MIXED_SOURCE = """
-[[sources]]
-name = "logger"
-pattern = "mixed_*.csv"
-timestamp = { column = "Time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "end" }
-columns = [
-  { header = "PAC", device = "INV1", quantity = "p_ac_kw", unit = "kW" },
-  { header = "POA", device = "POA1", quantity = "poa_wm2", unit = "W/m2" },
-  { header = "TMOD", device = "TMOD1", quantity = "t_module_c", unit = "C" },
-]
-"""
+MIXED_SOURCE = source_toml("logger", "mixed_*.csv", [("PAC", "INV1", "p_ac_kw", "kW"),
+                                                   *SENSOR_COLUMNS])
 
 
 def _write_mixed(tmp_path, days=("2023-06-01",), flat=None):
@@ -186,18 +152,8 @@ def test_flags_give_every_sample_a_sun_position_across_an_interval_change(engine
 
 # ---------------------------------------------------------------- coarse counters
 
-COUNTER_SOURCE = """
-[[sources]]
-name = "logger"
-pattern = "counter_*.csv"
-timestamp = { column = "Time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "end" }
-columns = [
-  { header = "PAC", device = "INV1", quantity = "p_ac_kw", unit = "kW" },
-  { header = "EAC", device = "INV1", quantity = "e_ac_total_kwh", unit = "kWh" },
-  { header = "POA", device = "POA1", quantity = "poa_wm2", unit = "W/m2" },
-  { header = "TMOD", device = "TMOD1", quantity = "t_module_c", unit = "C" },
-]
-"""
+COUNTER_SOURCE = source_toml("logger", "counter_*.csv", [
+    ("PAC", "INV1", "p_ac_kw", "kW"), ("EAC", "INV1", "e_ac_total_kwh", "kWh"), *SENSOR_COLUMNS])
 
 
 def _write_counter_days(tmp_path, n_days=3, p_max=2.8, step=1.0):
@@ -289,24 +245,15 @@ def test_fine_counter_still_gives_interval_energy(engine, tmp_path):
 
 # ---------------------------------------------------------------- clock corrections per device
 
-TWO_LOGGERS = """
-[[sources]]
-name = "two-loggers"
-pattern = "two_*.csv"
-timestamp = { column = "Time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "start" }
-columns = [
-  { header = "A_PAC", device = "INV1", quantity = "p_ac_kw", unit = "kW" },
-  { header = "B_PAC", device = "INV2", quantity = "p_ac_kw", unit = "kW" },
-  { header = "POA", device = "POA1", quantity = "poa_wm2", unit = "W/m2" },
-  { header = "TMOD", device = "TMOD1", quantity = "t_module_c", unit = "C" },
-]
-[[sources.clock_corrections]]
+TWO_LOGGERS = source_toml("two-loggers", "two_*.csv", [
+    ("A_PAC", "INV1", "p_ac_kw", "kW"), ("B_PAC", "INV2", "p_ac_kw", "kW"), *SENSOR_COLUMNS],
+    label="start", extra="""[[sources.clock_corrections]]
 start = 2023-06-01T00:00:00
 end = 2023-06-01T23:59:00
 shift_minutes = -60
 devices = ["INV2"]
 note = "logger B clock one hour ahead"
-"""
+""")
 
 
 def test_clock_correction_for_one_logger_of_an_export(engine, tmp_path):
@@ -321,11 +268,8 @@ def test_clock_correction_for_one_logger_of_an_export(engine, tmp_path):
     (note,) = res.notes["clock_corrections"]
     assert note["devices"] == ["INV2"] and note["rows"] == 24 and note["shift_minutes"] == -60
     t0 = int(pd.Timestamp("2023-06-01", tz="UTC").timestamp())
-    with engine.connect() as conn:
-        ch = site_channels(conn, "real")
-        ts1, v1 = read_channel(conn, ch[("INV1", "p_ac_kw")])
-        ts2, v2 = read_channel(conn, ch[("INV2", "p_ac_kw")])
-        ts_p, _ = read_channel(conn, ch[("POA1", "poa_wm2")])
+    (ts1, v1), (ts2, v2), (ts_p, _) = _read(engine, ("INV1", "p_ac_kw"), ("INV2", "p_ac_kw"),
+                                            ("POA1", "poa_wm2"))
     assert ts1[0] == t0 and v1[5] == 5.0  # logger A as written
     assert ts_p[0] == t0
     assert ts2[0] == t0 - 3600 and v2[0] == 100.0  # logger B one hour earlier
@@ -345,17 +289,8 @@ def test_clock_correction_names_unknown_device_or_column(tmp_path):
 
 # ---------------------------------------------------------------- instantaneous samples
 
-SAMPLED = """
-[[sources]]
-name = "points"
-pattern = "points_*.csv"
-timestamp = { column = "Time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "end" }
-columns = [
-  { header = "PAC", device = "INV1", quantity = "p_ac_kw", unit = "kW", sampling = "instant" },
-  { header = "POA", device = "POA1", quantity = "poa_wm2", unit = "W/m2" },
-  { header = "TMOD", device = "TMOD1", quantity = "t_module_c", unit = "C" },
-]
-"""
+SAMPLED = source_toml("points", "points_*.csv", [
+    ("PAC", "INV1", "p_ac_kw", "kW", 'sampling = "instant"'), *SENSOR_COLUMNS])
 
 
 def test_instant_power_samples_give_trapezoidal_energy(engine, tmp_path):
@@ -398,20 +333,10 @@ def test_energy_cannot_be_an_instant_sample(tmp_path):
 
 # ---------------------------------------------------------------- inverter inputs
 
-INPUTS = """
-[[sources]]
-name = "mppt"
-pattern = "mppt_*.csv"
-timestamp = { column = "Time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "start" }
-columns = [
-  { header = "PAC", device = "INV1", quantity = "p_ac_kw", unit = "kW" },
-  { header = "PDC_A", device = "INV1", quantity = "p_dc_kw", unit = "W", input = "A" },
-  { header = "IDC_B", device = "INV1", quantity = "i_dc_a", unit = "A", input = "B" },
-  { header = "UDC_B", device = "INV1", quantity = "v_dc_v", unit = "V", input = "B" },
-  { header = "POA", device = "POA1", quantity = "poa_wm2", unit = "W/m2" },
-  { header = "TMOD", device = "TMOD1", quantity = "t_module_c", unit = "C" },
-]
-"""
+INPUTS = source_toml("mppt", "mppt_*.csv", [
+    ("PAC", "INV1", "p_ac_kw", "kW"), ("PDC_A", "INV1", "p_dc_kw", "W", 'input = "A"'),
+    ("IDC_B", "INV1", "i_dc_a", "A", 'input = "B"'), ("UDC_B", "INV1", "v_dc_v", "V", 'input = "B"'),
+    *SENSOR_COLUMNS], label="start")
 
 
 def test_input_dc_power_per_mppt(engine, tmp_path):
@@ -549,11 +474,8 @@ def test_long_layout_instant_samples_and_device_correction(engine, tmp_path):
     (res,) = ingest_paths(engine, cfg, [f])
     assert res.status == "loaded", res.message
     t10 = int(pd.Timestamp("2023-06-01 10:00", tz="UTC").timestamp())
-    with engine.connect() as conn:
-        ch = site_channels(conn, "real")
-        ts1, _ = read_channel(conn, ch[("INV1", "p_ac_kw")])
-        ts2, _ = read_channel(conn, ch[("INV2", "p_ac_kw")])
-        tsg, _ = read_channel(conn, ch[("POA1", "poa_wm2")])
+    (ts1, _), (ts2, _), (tsg, _) = _read(engine, ("INV1", "p_ac_kw"), ("INV2", "p_ac_kw"),
+                                         ("POA1", "poa_wm2"))
     assert ts1.tolist() == [t10 + 600 * k for k in range(5)]  # samples at their instants
     assert ts2.tolist() == [t10 + 600 * (k + 1) for k in range(5)]  # INV2 10 min later
     assert tsg[1] == t10  # the interval-mean POA: its second row's interval starts at 10:00
@@ -575,3 +497,25 @@ def test_ingest_command_reports_coarse_counters(tmp_path):
     assert ("note: coarse energy counters (steps of 1 kWh) on 1 inverters (INV1): interval "
             "energy from AC power") in r.output
     assert "energy counters of" not in r.output  # no resets, jumps or gaps to report
+
+
+def test_coarse_counter_note_before_its_resolution_is_measured():
+    # found by tests/fuzz/sweep_ingest.py: a short file whose counter is judged coarse by one
+    # step beyond an interval's possible energy has no measured resolution (None); the
+    # summary line said so by a TypeError traceback instead of a note
+    from types import SimpleNamespace
+
+    from heliaudit.cmd_ingest import _note_lines
+
+    notes = {"counters": {"INV1": {"coarse": True, "resolution_kwh": None,
+                                   "interval_energy_from": "p_ac_kw"},
+                          "INV2": {"coarse": True, "resolution_kwh": 1.0,
+                                   "interval_energy_from": "p_ac_kw"}}}
+    (line,) = _note_lines(SimpleNamespace(notes=notes))
+    assert line.startswith("  note: coarse energy counters (steps of 1 kWh) on 2 inverters (INV1, "
+                           "INV2)")
+    notes["counters"].pop("INV2")
+    (line,) = _note_lines(SimpleNamespace(notes=notes))
+    assert line.startswith("  note: coarse energy counters (steps larger than one interval's "
+                           "possible "
+                           "energy) on 1 inverters (INV1)")
