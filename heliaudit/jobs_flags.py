@@ -1152,7 +1152,8 @@ def _resolved_arrays(config_toml: str | None, raw: dict[str, list[dict]]) -> dic
         return raw
     return {str(inv.id): [{"id": a.id, "p_dc_kwp": a.p_dc_kwp,
                            "tilt_deg": None if a.plane.is_tracker else a.plane.tilt_deg,
-                           "azimuth_deg": None if a.plane.is_tracker else a.plane.azimuth_deg}
+                           "azimuth_deg": None if a.plane.is_tracker else a.plane.azimuth_deg,
+                           "plane": a.plane.label()}
                           for a in inv.arrays]
             for inv in cfg.inverters}
 
@@ -1190,7 +1191,9 @@ def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, l
         cols = [c for c in df.columns if c in kwp]
         if len(cols) < 2:
             continue
-        plane = {str(a["id"]): (a.get("tilt_deg"), a.get("azimuth_deg")) for a in arr}
+        # inputs are compared within one plane; a tracker's plane is its whole geometry
+        plane = {str(a["id"]): a.get("plane") or (a.get("tilt_deg"), a.get("azimuth_deg"))
+                 for a in arr}
         out.append(outliers.input_mismatch_flags(
             df[cols], kwp, device_id=dev, input_plane={c: plane.get(c) for c in cols},
             interval_h=df["interval_h"].to_numpy(float) if "interval_h" in df else None,

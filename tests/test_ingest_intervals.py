@@ -21,6 +21,7 @@ import sqlalchemy as sa
 
 from db import schema
 from db.daily import daily_table
+from db.ingest_log import rejected_rows
 from db.timeseries import input_dc_power, inverter_frame, read_channel, site_channels
 from heliaudit import jobs_daily, jobs_flags
 from ingest.config import load_site_config
@@ -519,3 +520,149 @@ def test_coarse_counter_note_before_its_resolution_is_measured():
     assert line.startswith("  note: coarse energy counters (steps larger than one interval's "
                            "possible "
                            "energy) on 1 inverters (INV1)")
+
+
+# ---------------------------------------------------------------- inverter inputs, long layout
+
+ARRAYS_INVERTER = """
+[[inverters]]
+id = "INV1"
+p_ac_max_kw = 9.0
+gamma_pmp_per_c = -0.0037
+mounting = "open_rack_glass_polymer"
+poa_sensor = "POA1"
+t_module_sensor = "TMOD1"
+
+[[inverters.arrays]]
+id = "A"
+p_dc_kwp = 6.0
+
+[[inverters.arrays]]
+id = "B"
+p_dc_kwp = 4.0
+
+[[inverters]]
+id = "INV2"
+p_dc_kwp = 10.0
+p_ac_max_kw = 9.0
+gamma_pmp_per_c = -0.0037
+mounting = "open_rack_glass_polymer"
+poa_sensor = "POA1"
+t_module_sensor = "TMOD1"
+"""
+
+LONG_INPUTS = """
+[[sources]]
+name = "portal"
+layout = "long"
+pattern = "portal_*.csv"
+timestamp = { column = "time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "start" }
+[sources.long]
+device_column = "device"
+quantity_column = "signal"
+value_column = "value"
+[sources.long.quantities]
+PAC = { quantity = "p_ac_kw", unit = "kW" }
+PDC1 = { quantity = "p_dc_kw", unit = "W", input = "A" }
+IDC2 = { quantity = "i_dc_a", unit = "A", input = "B" }
+UDC2 = { quantity = "v_dc_v", unit = "V", input = "B" }
+GPOA = { quantity = "poa_wm2", unit = "W/m2" }
+"""
+
+
+def _long_inputs_site(tmp_path, sources=LONG_INPUTS):
+    p = tmp_path / "site.toml"
+    p.write_text(SITE + ARRAYS_INVERTER + sources)
+    return load_site_config(p)
+
+
+def test_long_layout_carries_inverter_input_channels(engine, tmp_path):
+    """One value per line (long layout): quantity names PDC1 / IDC2 / UDC2 carry inputs A and B
+    of INV1, as the wide layout's ``input`` does; P_DC,B = I V (hand: 9 A × 400 V = 3.6 kW).
+    INV2 declares no inputs: its PDC1 line is rejected with the reason, and accounted."""
+    cfg = _long_inputs_site(tmp_path)
+    f = tmp_path / "portal_2023-06-01.csv"
+    f.write_text("time,device,signal,value\n"
+                 "2023-06-01 10:00,INV1,PAC,7.5\n"
+                 "2023-06-01 10:00,INV1,PDC1,4000\n"
+                 "2023-06-01 10:00,INV1,IDC2,9.0\n"
+                 "2023-06-01 10:00,INV1,UDC2,400\n"
+                 "2023-06-01 10:00,POA1,GPOA,800\n"
+                 "2023-06-01 10:15,INV1,PAC,7.9\n"
+                 "2023-06-01 10:15,INV1,PDC1,4200\n"
+                 "2023-06-01 10:15,INV1,IDC2,9.5\n"
+                 "2023-06-01 10:15,INV1,UDC2,402\n"
+                 "2023-06-01 10:15,POA1,GPOA,850\n"
+                 "2023-06-01 10:15,INV2,PDC1,4100\n")
+    (res,) = ingest_paths(engine, cfg, [f])
+    assert res.status == "loaded", res.message
+    assert res.counts["rows_read"] == 11 and res.counts["rows_rejected"] == 1
+    rej = rejected_rows(engine, "real")
+    assert rej["line_no"].tolist() == [12] and "has no input 'A'" in rej["reason"].iloc[0]
+    dc = input_dc_power(engine, "real", "INV1")
+    assert list(dc.columns) == ["A", "B", "interval_h"]
+    np.testing.assert_allclose(dc["A"], [4.0, 4.2])  # W -> kW
+    np.testing.assert_allclose(dc["B"], [9.0 * 400 / 1000, 9.5 * 402 / 1000])  # P = I V
+    with engine.connect() as conn:
+        ch = site_channels(conn, "real")
+    assert ("INV1", "p_dc_kw") not in ch and ("INV2", "p_dc_kw") not in ch  # inputs only
+
+
+@pytest.mark.parametrize("quantities, fragment", [
+    ('PDC1 = { quantity = "p_ac_kw", unit = "kW", input = "A" }', "an inverter input carries"),
+    ('PDC1 = { quantity = "p_dc_kw", unit = "W", input = "a" }', "did you mean `A`?"),
+    ('IDC2 = { quantity = "i_dc_a", unit = "A" }', "i_dc_a is loaded per inverter input"),
+])
+def test_long_layout_input_errors_name_the_key(tmp_path, quantities, fragment):
+    from ingest.config import ConfigError
+
+    src = LONG_INPUTS.split("[sources.long.quantities]")[0] + (
+        "[sources.long.quantities]\nPAC = { quantity = \"p_ac_kw\", unit = \"kW\" }\n" + quantities + "\n")
+    with pytest.raises(ConfigError) as exc:
+        _long_inputs_site(tmp_path, src)
+    assert "sources[0].long.quantities." in str(exc.value) and fragment in str(exc.value)
+
+
+@pytest.mark.parametrize("layout", ["wide", "long"])
+def test_input_dc_limits_use_the_inputs_own_capacity(engine, tmp_path, layout):
+    """DC power of input A (6 kWp of INV1's 10 kWp) is impossible above 1.5 × 6 = 9 kW (README
+    "Ingest rules": DC power −0.05..1.5 × the nameplate); at 9 kW it is kept. With the inverter's
+    10 kWp the limit would be 15 kW and the 9.001 kW reading would pass. Current of input B
+    (4 kWp): 1.5 × 4000 W / 150 V = 40 A."""
+    if layout == "wide":
+        src = """
+[[sources]]
+name = "portal"
+pattern = "portal_*.csv"
+timestamp = { column = "time", format = "%Y-%m-%d %H:%M", zone = "UTC", label = "start" }
+columns = [
+  { header = "PDC1", device = "INV1", quantity = "p_dc_kw", unit = "kW", input = "A" },
+  { header = "IDC2", device = "INV1", quantity = "i_dc_a", unit = "A", input = "B" },
+]
+"""
+        body = "time,PDC1,IDC2\n" + "".join(
+            f"2023-06-01 10:{m:02d},{p},{i}\n" for m, p, i in
+            ((0, 8.999, 39.9), (15, 9.0, 40.0), (30, 9.001, 40.1)))
+    else:
+        src = LONG_INPUTS.replace('unit = "W", input = "A"', 'unit = "kW", input = "A"')
+        body = "time,device,signal,value\n" + "".join(
+            f"2023-06-01 10:{m:02d},INV1,PDC1,{p}\n2023-06-01 10:{m:02d},INV1,IDC2,{i}\n"
+            for m, p, i in ((0, 8.999, 39.9), (15, 9.0, 40.0), (30, 9.001, 40.1)))
+    cfg = _long_inputs_site(tmp_path, src)
+    f = tmp_path / "portal_2023-06-01.csv"
+    f.write_text(body)
+    (res,) = ingest_paths(engine, cfg, [f])
+    assert res.status == "loaded", res.message
+    reasons = rejected_rows(engine, "real")["reason"].tolist()
+    assert len(reasons) == 2  # the two values above their limits, line 4 (wide) / 6, 7 (long)
+    assert any("DC power (input 'A' nameplate 6 kWp) above 9 kW" in r for r in reasons), reasons
+    assert any("DC current" in r and "input 'B' nameplate 4 kWp" in r and "above 40 A" in r
+               for r in reasons), reasons
+    from db.registry import channel_map
+
+    ch = channel_map(engine, "real")
+    with engine.connect() as conn:
+        _ts, p = read_channel(conn, ch[("INV1", "p_dc_kw", "A")])
+        _ts, i = read_channel(conn, ch[("INV1", "i_dc_a", "B")])
+    np.testing.assert_allclose(p, [8.999, 9.0])  # just below and at the limit: kept
+    np.testing.assert_allclose(i, [39.9, 40.0])
