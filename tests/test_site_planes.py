@@ -228,3 +228,18 @@ def test_fernhollow_clearsky_index_on_own_planes_tracks_the_true_pr(fern_winter)
     # another, γ = −0.37 %/°C) and from clear days only; the old site-plane error was 20-35 %
     for dev, r in rel.items():
         assert r == pytest.approx(med, rel=0.03), (dev, rel)
+
+
+def test_weekly_check_states_modelled_sources(fern_winter):
+    """The weekly check names where each PR's irradiance and cell temperature came from when
+    it is not a same-plane sensor / a module sensor (fernhollow.toml: B1, B2, C2 only have the
+    horizontal GHI-1; D1 has one array on POA-30's plane and one on the 10° plane; only A1
+    has a back-of-module sensor)."""
+    from heliaudit.cmd_check import print_check
+
+    out: list[str] = []
+    print_check(fern_winter, "fernhollow", echo=out.append)
+    text = "\n".join(out)
+    assert "  B1, B2, C2: irradiance GHI decomposed with DIRINT (Perez et al. 1992)" in text
+    assert "  D1: irradiance measured POA in the array plane + GHI decomposed" in text
+    assert "  A2, B1, B2, C1, C2, D1: cell temperature modelled" in text and "King et al. 2004" in text
