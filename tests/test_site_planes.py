@@ -243,3 +243,23 @@ def test_weekly_check_states_modelled_sources(fern_winter):
     assert "  B1, B2, C2: irradiance GHI decomposed with DIRINT (Perez et al. 1992)" in text
     assert "  D1: irradiance measured POA in the array plane + GHI decomposed" in text
     assert "  A2, B1, B2, C1, C2, D1: cell temperature modelled" in text and "King et al. 2004" in text
+
+
+def test_demo_runs_both_bundled_sites(tmp_path, monkeypatch):
+    """`heliaudit demo` loads, computes and checks Quillpond and then Fernhollow (issue #11:
+    the demo gets a second site); the steps themselves are the ordinary commands."""
+    from click.testing import CliRunner
+
+    from heliaudit import cmd_run_demo
+    from heliaudit.cli import main
+
+    seen = []
+    monkeypatch.setattr(cmd_run_demo, "_run_site",
+                        lambda engine, path, cfg, *a: seen.append((path.name, cfg.id)) or 0)
+    res = CliRunner().invoke(main, ["--db", str(tmp_path / "d.sqlite"), "demo", "--no-dashboard"])
+    assert res.exit_code == 0, res.output
+    assert seen == [("quillpond.toml", "quillpond"), ("fernhollow.toml", "fernhollow")]
+    seen.clear()
+    res = CliRunner().invoke(main, ["--db", str(tmp_path / "d.sqlite"), "demo", "--no-dashboard",
+                                    "--config", str(FERN / "fernhollow.toml")])
+    assert res.exit_code == 0 and seen == [("fernhollow.toml", "fernhollow")]
