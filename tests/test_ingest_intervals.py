@@ -572,7 +572,8 @@ GPOA = { quantity = "poa_wm2", unit = "W/m2" }
 
 def _long_inputs_site(tmp_path, sources=LONG_INPUTS):
     p = tmp_path / "site.toml"
-    p.write_text(SITE + ARRAYS_INVERTER + sources)
+    p.write_text(site_toml("real", "Invented real-plant-like site", altitude_m=100, inverters=())
+                 + ARRAYS_INVERTER + sources)
     return load_site_config(p)
 
 
