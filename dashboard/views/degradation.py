@@ -51,6 +51,12 @@ with st.container(border=True):
         c[2].markdown(f"**Method**  \n{method_label(chosen)}")
         for reason in rec["reasons"]:
             st.markdown(f"- {reason}")
+        src = data.sources(url, site_id, None, None)
+        if device != "(site)":
+            src = src[src["device_id"] == device]
+        if (note := data.sources_caption(src)):
+            st.caption(note + " Sensor-based rates of these inverters rest on that "
+                              "irradiance; a rate on modelled clear sky does not.")
         if rec["caveats"]:
             for cav in rec["caveats"]:
                 st.warning(f"**{CAVEAT_LABELS.get(cav.get('kind'), 'Caveat')}.** "
