@@ -99,8 +99,10 @@ def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = Fals
                     continue
             step = getattr(importlib.import_module(module), func)
             bar = _Bar(f"{sid}: {func.removeprefix('run_')}", tty)
+            # flags: only the window new data can change, unless everything was recomputed
+            kw = {"full": full or ranges is None} if func == "run_flags" else {}
             try:
-                step(engine, sid, progress=bar)
+                step(engine, sid, progress=bar, **kw)
             finally:
                 bar.close()
     return summaries
@@ -175,8 +177,9 @@ def compute(ctx: click.Context, site_id: str | None, full: bool, worker: bool,
 
     Days are site-local standard time. Filter thresholds come from the site
     configuration's [filters] table. Progress goes to stderr. After new files,
-    degradation rates are recomputed when the stored ones are 28 days old
-    (--full recomputes them now).
+    only the new days of the daily table and the flags they can change (each
+    detector with its look-back) are recomputed, and degradation rates when the
+    stored ones are 28 days old (--full recomputes everything now).
 
     With --worker, several processes (on one machine or many) share a PostgreSQL
     portfolio: each takes the due sites no other worker holds, so no site is computed
