@@ -98,23 +98,34 @@ def find_cut(first_new_s: int, through_s: int | None, parts: pd.DataFrame,
 def day_products(withheld: dict, soiling_pi: dict, clock_days: dict) -> pd.DataFrame:
     """One row per inverter and local day with the daily inputs of the whole-history
     detectors (the ``flag_day`` columns); ``clock_clear`` is None on days without an offset."""
-    cols = {}
+    pieces = []
     for name, src in (("withheld_kwh", withheld), ("soiling_pi", soiling_pi)):
-        for dev, s in src.items():
-            if s is None or not len(s):
-                continue
-            for day, v in zip(_day_numbers(s.index), s.to_numpy(float), strict=True):
-                cols.setdefault((dev, day), {})[name] = v
+        for dev, x in src.items():
+            if x is not None and len(x):
+                pieces.append(pd.DataFrame({"device_id": dev, "day_no": _day_numbers(x.index),
+                                            "col": name, "v": x.to_numpy(float)}))
+    frames = [pd.concat(pieces, ignore_index=True).pivot_table(
+        index=["device_id", "day_no"], columns="col", values="v", aggfunc="first",
+        dropna=False)] if pieces else []
+    clocks = []
     for dev, off in clock_days.items():
-        for day, v, c in zip(_day_numbers(off.index), off["delta_min"].to_numpy(float),
-                             off["clear"].to_numpy(bool), strict=True):
-            cols.setdefault((dev, day), {}).update(clock_delta_min=v, clock_clear=bool(c))
-    rows = [dict(device_id=dev, day_no=day, **{k: v.get(k) for k in
-                                              ("soiling_pi", "withheld_kwh", "clock_delta_min",
-                                               "clock_clear")})
-            for (dev, day), v in sorted(cols.items())]
-    return pd.DataFrame(rows, columns=["device_id", "day_no", "soiling_pi", "withheld_kwh",
-                                       "clock_delta_min", "clock_clear"])
+        if len(off):
+            clocks.append(pd.DataFrame({"clock_delta_min": off["delta_min"].to_numpy(float),
+                                        "clock_clear": off["clear"].to_numpy(bool)},
+                                       index=pd.MultiIndex.from_arrays(
+                                           [np.full(len(off), dev, dtype=object),
+                                            _day_numbers(off.index)],
+                                           names=["device_id", "day_no"])))
+    if clocks:
+        frames.append(pd.concat(clocks))
+    cols = ["device_id", "day_no", "soiling_pi", "withheld_kwh", "clock_delta_min", "clock_clear"]
+    if not frames:
+        return pd.DataFrame(columns=cols)
+    out = frames[0] if len(frames) == 1 else frames[0].join(frames[1], how="outer")
+    out = out.reset_index().reindex(columns=cols)
+    out["clock_clear"] = pd.Series([None if v is None or v != v else bool(v)
+                                    for v in out["clock_clear"]], dtype=object)
+    return out.sort_values(["device_id", "day_no"], kind="stable").reset_index(drop=True)
 
 
 def _day_numbers(index) -> np.ndarray:

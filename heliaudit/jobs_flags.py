@@ -1123,7 +1123,7 @@ def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, l
                if a.get("id") is not None and a.get("p_dc_kwp")}
         if len(kwp) < 2:
             continue
-        df = read(engine, site_id, dev, start_s)
+        df = read(engine, site_id, dev) if start_s is None else read(engine, site_id, dev, start_s)
         cols = [c for c in df.columns if c in kwp]
         if len(cols) < 2:
             continue
