@@ -62,6 +62,11 @@ def read(conn, channel_id: int, start_s, end_s, with_interval: bool,
     key = (_store_key(conn), int(channel_id))
     with _LOCK:
         got = run["channels"].get(key)
+    if got is not None and not _covers(got[0], got[1], start_s, end_s) and \
+            _holds_all(conn, channel_id, got):
+        got = (None, None, got[2])  # the kept range holds every stored reading of the channel
+        with _LOCK:
+            run["channels"][key] = got
     if got is not None and _covers(got[0], got[1], start_s, end_s):
         run["stats"]["hits"] += 1
         ts, v, iv = got[2]
@@ -89,6 +94,18 @@ def read(conn, channel_id: int, start_s, end_s, with_interval: bool,
     b = ts.size if end_s is None else int(np.searchsorted(ts, end_s, side="left"))
     out = (ts[a:b].copy(), v[a:b].copy())
     return (*out, iv[a:b].copy()) if with_interval else out
+
+
+def _holds_all(conn, channel_id: int, got: tuple) -> bool:
+    """Whether the kept range ``[lo, hi)`` contains the channel's first and last stored
+    reading (two index seeks), e.g. a full daily recompute's day-aligned range."""
+    from db.readings import stored_range
+
+    span = stored_range(conn, [int(channel_id)]).get(int(channel_id))
+    if span is None:
+        return True
+    lo, hi = got[0], got[1]
+    return (lo is None or lo <= span[0]) and (hi is None or hi > span[1])
 
 
 def memo(conn, name: str, key, fn: Callable):
