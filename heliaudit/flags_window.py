@@ -95,9 +95,19 @@ def find_cut(first_new_s: int, through_s: int | None, parts: pd.DataFrame,
         cut = month_start_s(int(start[open_].min()), std_offset_s)
 
 
-def day_products(withheld: dict, soiling_pi: dict, clock_days: dict) -> pd.DataFrame:
+def day_products(withheld: dict, soiling_pi: dict, clock_days: dict, *,
+                 from_day: int | None = None, keep=()) -> pd.DataFrame:
     """One row per inverter and local day with the daily inputs of the whole-history
-    detectors (the ``flag_day`` columns); ``clock_clear`` is None on days without an offset."""
+    detectors (the ``flag_day`` columns); ``clock_clear`` is None on days without an offset.
+    With ``from_day`` only days from it on (all days of the inverters in ``keep``)."""
+    if from_day is not None:
+        cut = _day_ts(from_day)
+
+        def tail(src):
+            return {d: (x if d in keep or x is None else x[x.index >= cut])
+                    for d, x in src.items()}
+
+        withheld, soiling_pi, clock_days = tail(withheld), tail(soiling_pi), tail(clock_days)
     pieces = []
     for name, src in (("withheld_kwh", withheld), ("soiling_pi", soiling_pi)):
         for dev, x in src.items():

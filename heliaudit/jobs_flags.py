@@ -1035,7 +1035,9 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     if collect is not None:
         from heliaudit.flags_window import day_products
         collect.update(parts=[p for p in inv_parts if len(p)], seen=sorted(seen),
-                       days=day_products(withheld, soiling_pi, clock_days),
+                       days=day_products(withheld, soiling_pi, clock_days,
+                                         from_day=None if prior is None else prior.cut_day,
+                                         keep=set() if prior is None else prior.full_devices),
                        last_seen={d: last_seen[d] for d in seen if d in last_seen})
     n_clock += len(seen)
     parts += inv_parts
@@ -1234,7 +1236,7 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
     with engine.begin() as conn:
         comp_id = begin_computation(conn, site_id, "flags", setup["params"], scope=scope,
                                     software_version=heliaudit.__version__)
-    daily = daily_table(engine, site_id)
+    daily = daily_table(engine, site_id, with_text=False)
     all_inv = list(inverters["device_id"])
     if prior is None:
         frames = inverter_frames(engine, site_id)
