@@ -1199,6 +1199,10 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
     if {k: v for k, v in last["params"].items() if k != "window"} != json.loads(
             to_json(setup["params"])):
         return None, "detector settings changed since the last flags run"
+    if last.get("software_version") != heliaudit.__version__:
+        return None, "another heliaudit version made the stored flags"
+    if state.get("config_sha256") != setup["site"].get("config_sha256"):
+        return None, "the site configuration changed since the last flags run"
     new = batches_after(engine, site_id, state.get("through_batch_id") or 0)
     first_new = min([lo for lo, _hi in new] + ([int(since_s)] if since_s is not None else []),
                     default=state.get("through_s"))
@@ -1282,6 +1286,7 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
                *(int(epoch_s(x.index[-1:])[0]) for _s, _q, x, *_r in sensors if len(x))]
     limited = sorted({str(d) for d in parts.loc[parts["kind"] == "power_limit", "device_id"]})
     state = {"through_batch_id": through_batch, "through_s": max(seen_ts, default=None),
+             "config_sha256": site.get("config_sha256"),
              "last_seen": collect["last_seen"], "seen": collect["seen"],
              "full_devices": limited if prior is None else sorted(
                  set(limited) | prior.full_devices), "scope": scope}

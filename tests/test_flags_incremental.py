@@ -98,11 +98,11 @@ def runs(tmp_path_factory):
             schema.computation.c.kind == "flags").order_by(
             schema.computation.c.computation_id)).scalars().all()
     run_flags(eng, "s1", full=True)
-    return before, incremental, _table(eng), scopes
+    return before, incremental, _table(eng), scopes, eng
 
 
 def test_incremental_run_used_a_window(runs):
-    _before, _inc, _full, scopes = runs
+    _before, _inc, _full, scopes, _eng = runs
     assert scopes[0] == "full"
     # the cut is the start of the local month two days before the new week: 2024-07-01
     # 00:00 local standard time (UTC-7) = 07:00 UTC
@@ -110,7 +110,7 @@ def test_incremental_run_used_a_window(runs):
 
 
 def test_incremental_flags_equal_full_recompute(runs):
-    _before, inc, full, _scopes = runs
+    _before, inc, full, _scopes, _eng = runs
     cols = ["kind", "device_id", "start_s", "end_s", "severity"]
     assert inc[cols].to_dict("records") == full[cols].to_dict("records")
     np.testing.assert_allclose(inc["lost_kwh"].to_numpy(float), full["lost_kwh"].to_numpy(float),
@@ -119,7 +119,7 @@ def test_incremental_flags_equal_full_recompute(runs):
 
 
 def test_boundary_events_are_merged_not_split(runs):
-    before, _inc, full, _scopes = runs
+    before, _inc, full, _scopes, _eng = runs
     b = _s(BOUNDARY)
     out = full[(full["kind"] == "outage") & (full["device_id"] == "inv2")]
     # one outage from two days before the boundary to a day after (±1 h for the sunny-gate
@@ -135,3 +135,16 @@ def test_boundary_events_are_merged_not_split(runs):
     up = full[(full["kind"] == "underperformance") & (full["device_id"] == "inv3")]
     assert len(up) == 1 and up.iloc[0]["start_s"] < b < up.iloc[0]["end_s"]
     assert (full["kind"] == "stopped_reporting").any()
+
+
+def test_configuration_change_makes_the_next_run_full(runs):
+    """Stored flags were made with the old inverter ratings and sensors: recompute all."""
+    eng = runs[-1]
+    with eng.begin() as conn:
+        conn.execute(schema.site.update().values(config_sha256="1" * 64))
+    run_flags(eng, "s1", full=False)
+    with eng.connect() as conn:
+        scope = conn.execute(sa.select(schema.computation.c.scope).where(
+            schema.computation.c.kind == "flags").order_by(
+            schema.computation.c.computation_id.desc()).limit(1)).scalar()
+    assert scope == "full"
