@@ -51,7 +51,15 @@ def deseasonalise(pi: pd.Series, *, harmonics: int = 1) -> pd.Series:
 
 def noise_sigma(x) -> float:
     """Robust noise level: 1.4826·MAD of first differences / √2 (a level-shift-insensitive
-    estimate; the differences of independent noise have variance 2σ²; common practice)."""
+    estimate; the differences of independent noise have variance 2σ²; common practice).
+
+    Examples
+    --------
+    >>> round(noise_sigma([0.0, 1.0, 3.0, 6.0, 10.0]), 4)   # d = 1 2 3 4: MAD 1, 1.4826/√2
+    1.0484
+    >>> noise_sigma([1.0, 1.0, 5.0, 5.0, 5.0])                   # one step: MAD ignores it
+    0.0
+    """
     d = np.diff(np.asarray(x, dtype=float)[np.isfinite(x)])
     if d.size < 2:
         return float("nan")

@@ -100,8 +100,13 @@ def clearsky_poa(times: pd.DatetimeIndex, *, latitude_deg: float, longitude_deg:
     return out
 
 
+#: Interval lengths the Reno & Hansen test is applied to, with the thresholds of Jordan &
+#: Hansen (2023) for 1-30-minute data. [s]
+DETECT_INTERVAL_S = (60.0, 1800.0)
+
+
 def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
-                         min_clearsky_wm2: float = 50.0) -> pd.Series:
+                         min_clearsky_wm2: float = 50.0, interval_s=None) -> pd.Series:
     """Clear intervals by the Reno & Hansen (2016) test, month by month.
 
     Parameters
@@ -112,6 +117,12 @@ def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
         1–30-minute intervals (thresholds of Jordan & Hansen 2023, ``infer_limits=True``).
     clearsky : Series
         Clear-sky reference on the same plane and index. [W/m²]
+    interval_s : array, optional
+        Each row's own interval [s] as recorded at ingest (issue #11). The test runs on each
+        calendar month's rows of one interval length, on that length's regular grid, so a
+        channel that changes from 15 to 5 minutes is tested at 15 minutes before and 5 after;
+        rows whose interval lies outside :data:`DETECT_INTERVAL_S` are never clear. Without
+        it, the spacing of each month's rows is taken (median), as for regular data.
     The test and its scale factor run per calendar month (UTC).
 
     Returns
@@ -123,10 +134,22 @@ def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
     m = measured.astype(float)
     c = clearsky.reindex(m.index).astype(float)
     out = pd.Series(False, index=m.index)
-    step = _step(m.index)
-    for _, mm in m.groupby([m.index.year, m.index.month]):
+    if interval_s is None:
+        iv = np.zeros(len(m))  # one group per month, its spacing from the rows
+    else:
+        iv = np.round(np.asarray(interval_s, dtype=float))
+        if iv.shape != (len(m),):
+            raise ValueError(f"interval_s has {iv.size} values for {len(m)} rows")
+    keys = [m.index.year, m.index.month, iv]
+    for (_y, _mo, step_s), mm in m.groupby(keys):
         if mm.notna().sum() < 10:
             continue
+        if interval_s is None:
+            step = _step(mm.index)
+        elif not DETECT_INTERVAL_S[0] <= step_s <= DETECT_INTERVAL_S[1]:
+            continue
+        else:
+            step = pd.Timedelta(seconds=float(step_s))
         grid = pd.date_range(mm.index[0], mm.index[-1], freq=step)
         mg = mm.reindex(grid)
         cg = c.reindex(grid).fillna(0.0)
@@ -149,8 +172,8 @@ def detect_clear_periods(measured: pd.Series, clearsky: pd.Series, *,
 
 
 def clear_periods_from_sensors(readings: dict[str, pd.Series], clearsky: dict[str, pd.Series], *,
-                               max_disagreement: float = 0.05, window_days: int = 31
-                               ) -> tuple[pd.Series, dict]:
+                               max_disagreement: float = 0.05, window_days: int = 31,
+                               min_day_clearness: float = 0.8, interval_s=None) -> tuple[pd.Series, dict]:
     """Clear intervals from every irradiance sensor, each checked against the others.
 
     Parameters
@@ -166,6 +189,14 @@ def clear_periods_from_sensors(readings: dict[str, pd.Series], clearsky: dict[st
         that ratio; a departure above this fraction marks the sensor faulty that day (stuck,
         offset, shaded, dropped out). A slow drift moves the rolling median with it and is
         not excluded here (it does not change which periods are clear). [fraction]
+    min_day_clearness : float, default 0.8
+        Sensors are judged only on days whose median (over the sensors) daily clear-sky index
+        reaches this: mostly clear days, where sensors in different planes agree with their
+        own planes' clear sky (our choice; on cloudier days no sensor is judged faulty, and
+        such days are not clear anyway). [fraction]
+    interval_s : array, optional
+        Each row's interval [s] on the common index (all readings share one index then):
+        passed to :func:`detect_clear_periods`.
 
     Returns
     -------
@@ -192,6 +223,8 @@ def clear_periods_from_sensors(readings: dict[str, pd.Series], clearsky: dict[st
     idx = readings[ids[0]].index
     for sid in ids[1:]:
         idx = idx.union(readings[sid].index)
+    if interval_s is not None and not all(readings[sid].index.equals(idx) for sid in ids):
+        raise ValueError("interval_s needs every reading on one common index")
     day = idx.floor("D")
     kc, flags = {}, {}
     for sid in ids:
@@ -199,7 +232,8 @@ def clear_periods_from_sensors(readings: dict[str, pd.Series], clearsky: dict[st
         c = clearsky[sid].reindex(idx).astype(float)
         kc[sid] = (m / c).where(c >= 200.0)
         try:
-            flags[sid] = detect_clear_periods(m, c) if len(idx) >= 10 else pd.Series(False, idx)
+            flags[sid] = (detect_clear_periods(m, c, interval_s=interval_s) if len(idx) >= 10
+                          else pd.Series(False, idx))
         except ValueError:
             flags[sid] = pd.Series(False, idx)
     k = pd.DataFrame(kc)
@@ -208,10 +242,15 @@ def clear_periods_from_sensors(readings: dict[str, pd.Series], clearsky: dict[st
     info = {}
     if len(ids) >= 2:
         daily = k.groupby(day).median()
+        # judged on mostly clear days only: under cloud, sensors in different planes see
+        # different shares of diffuse light and their clear-sky indices part by more than
+        # max_disagreement without any fault (issue #11: a tracker's reference cell and a
+        # horizontal pyranometer were "faulty" on ~40 % of days)
+        daily = daily[daily.median(axis=1) >= min_day_clearness]
         rel = daily.div(daily.median(axis=1), axis=0)
         typ = rel.rolling(window_days, center=True, min_periods=5).median()
         bad_day = ((rel / typ - 1).abs() > max_disagreement).fillna(False)
-        faulty = bad_day.reindex(day).set_axis(idx).astype(bool)
+        faulty = bad_day.reindex(day).fillna(False).set_axis(idx).astype(bool)
         info = {sid: {"days_faulty": int(bad_day[sid].sum())} for sid in ids}
     ok = have & ~faulty
     f = pd.DataFrame({sid: flags[sid].reindex(idx).fillna(False).astype(bool) for sid in ids})
@@ -225,7 +264,7 @@ def clear_periods_from_sensors(readings: dict[str, pd.Series], clearsky: dict[st
 def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd.Series, *,
                       p_dc_kwp: float, gamma_pmp_per_c: float, eta_inv_nom: float = 0.96,
                       p_ac_max_kw: float | None = None, t_cell_c: pd.Series | None = None,
-                      interval_h: float | None = None, utc_offset_h: float = 0.0,
+                      interval_h=None, utc_offset_h: float = 0.0,
                       min_poa_wm2: float = 200.0, min_clear_fraction: float = 0.5,
                       clip_expected_fraction: float = 0.90) -> pd.DataFrame:
     """Daily clear-sky performance index of one inverter (Notes step 3 of this module).
@@ -250,6 +289,10 @@ def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd
         (:data:`analytics.filters.DEFAULT_FILTERS`).
     utc_offset_h : float
         Site standard-time offset: days are local standard time (pvlib documentation).
+    interval_h : float, array or Series, optional
+        Each interval's length [h], as recorded at ingest (issue #11: a channel that changes
+        from 15 to 5 minutes weighs each reading by its own τ). Default: the median spacing
+        of the index (regular data only).
 
     Returns
     -------
@@ -270,6 +313,10 @@ def clearsky_daily_pi(p_ac_kw: pd.Series, poa_clearsky_wm2: pd.Series, clear: pd
     idx = p_ac_kw.index
     if interval_h is None:
         interval_h = _step(idx) / pd.Timedelta(hours=1) if len(idx) > 1 else 1.0
+    elif isinstance(interval_h, pd.Series):
+        interval_h = interval_h.reindex(idx).astype(float)
+    elif np.ndim(interval_h):
+        interval_h = pd.Series(np.asarray(interval_h, dtype=float), index=idx)
     g = poa_clearsky_wm2.reindex(idx).astype(float)
     temp = 1.0 if t_cell_c is None else 1 + gamma_pmp_per_c * (t_cell_c.reindex(idx) - 25.0)
     p_exp = p_dc_kwp * g / 1000.0 * temp * eta_inv_nom

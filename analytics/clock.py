@@ -70,6 +70,15 @@ def daily_centroid_min(x: pd.Series, tau_h, *, std_offset_s: int = 0) -> pd.Seri
     Returns
     -------
     Series indexed by local standard day (Timestamp), minutes; NaN for days without signal.
+
+    Examples
+    --------
+    A symmetric profile of hourly intervals 11:00-13:00 UTC at UTC+1 has its centroid at the
+    middle interval's midpoint, 12:30 UTC = 13:30 local standard time = 810 min:
+
+    >>> t = pd.date_range("2023-06-01 11:00", periods=3, freq="1h", tz="UTC")
+    >>> daily_centroid_min(pd.Series([100.0, 200.0, 100.0], t), 1.0, std_offset_s=3600).tolist()
+    [810.0]
     """
     code, days = _day_codes(x.index, std_offset_s)
     if code.size == 0:

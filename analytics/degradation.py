@@ -218,7 +218,12 @@ def yoy_rates(pi: pd.Series, *, lag_days: int = 365, reference: str = "pairwise"
     -----
     Jordan et al. 2018 (Jordan et al. 2018):
     ``r_d = 100 (PI_{d+365} - PI_d) / PI_ref``, ``PI_ref = PI_d`` (``reference='pairwise'``)
-    or the median of the first 365 days (``'year0'``). The lag is fixed at 365 days, so a
+    or the median of the first 365 days (``'year0'``). ``'start'`` expresses each pairwise
+    rate relative to the level on the series' first day, ``r_d (1 + R t_d / 100)`` with ``R``
+    the median pairwise rate and ``t_d`` years since the first day: the rate of a *linear*
+    loss in % of the initial level per year, as linear power warranties state it. Pairwise
+    rates read such a loss too steep by ``R² t / 100`` (−0.02 %/yr for −1.2 %/yr after
+    1.5 years; measured on the validation fleets, tests/validation). The lag is fixed at 365 days, so a
     pair spanning 29 February is one day short of a calendar year; the rate is still
     expressed per 365 days (0.07 % relative, negligible).
 
@@ -230,19 +235,36 @@ def yoy_rates(pi: pd.Series, *, lag_days: int = 365, reference: str = "pairwise"
     >>> round(float(r.median()), 6)
     -0.5
     """
-    if reference not in ("pairwise", "year0"):
-        raise ValueError("reference must be 'pairwise' or 'year0'")
+    if reference not in ("pairwise", "year0", "start"):
+        raise ValueError("reference must be 'pairwise', 'year0' or 'start'")
     s = _as_daily(pi)
     if s.empty:
         return pd.Series(dtype=float, name="rd_pct_per_yr")
     full = s.reindex(pd.date_range(s.index[0], s.index[-1], freq="D"))
     later = full.shift(-lag_days)
-    if reference == "pairwise":
-        ref = full
-    else:
+    if reference == "year0":
         ref = float(full.iloc[:365].median())
+    else:
+        ref = full
     r = 100.0 * (later - full) / ref * (365.0 / lag_days)
-    return r[np.isfinite(r)].rename("rd_pct_per_yr")  # a zero reference gives no pair
+    r = r[np.isfinite(r)].rename("rd_pct_per_yr")  # a zero reference gives no pair
+    if reference == "start":
+        r = _pairs_to_start(r, s.index[0])
+    return r
+
+
+def _pairs_to_start(r: pd.Series, first_day) -> pd.Series:
+    """Pairwise rates re-expressed relative to the level on ``first_day``.
+
+    For a linear loss ``P(t) = P0 (1 + R t)`` the pair starting at ``t`` has
+    ``r = R / (1 + R t)``, so ``r (1 + R t) = R``; ``R`` is the pairs' median (one fixed-point
+    step, the remainder is of order R³t²). A level shift (``P`` times a constant after it)
+    cancels in both factors.
+    """
+    if r.empty:
+        return r
+    t_yr = ((r.index - pd.Timestamp(first_day)).days / DAYS_PER_YEAR).to_numpy()
+    return r * (1 + float(np.median(r)) / 100.0 * t_yr)
 
 
 def acf_block_length(x, *, threshold: float = 0.2, max_block: int | None = None) -> int:
@@ -329,7 +351,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
                     reference: str = "pairwise", block_length: int | None = None,
                     min_years: float = 2.0, warn_years: float = 3.0, min_pairs: int = 90,
                     hist_bin_pct: float = 0.25, breaks=None, min_segment_months: int = 9,
-                    method: str = "sensor_year_pairs") -> RateResult:
+                    year_effects: bool = False, method: str = "sensor_year_pairs") -> RateResult:
     """Year-on-year degradation rate with a moving-block bootstrap interval.
 
     Parameters
@@ -352,6 +374,12 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
     breaks : list of dates, optional
         Change points (:mod:`analytics.changepoint`): pairs whose year spans one are dropped,
         giving the rate within stable segments.
+    year_effects : bool, default False
+        Add the between-year component (:func:`year_component`, always reported in
+        ``details["year_component"]``) to the bootstrap distribution before its quantiles are
+        read. Off by default: on 11 drift-free validation fleets (88 inverters) the bootstrap
+        alone covered the truth for 98 % (95 % interval) and 73 % (68 %) of inverters, with
+        the component 99 % and 80 %, above the 68 % target (tests/validation).
     min_segment_months : int, default 9
         With ``breaks``: a segment's pairs enter only if their first days cover at least this
         many calendar months (three quarters of the year, so that season-specific
@@ -371,7 +399,11 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
     spectral, angle-of-incidence and soiling patterns cancel to first order; the median
     tolerates up to half the pairs being bad. A consecutive pair rate is correlated with its
     neighbours (weather regimes, soiling), so the bootstrap resamples blocks whose length is
-    the lag at which the pair rates' autocorrelation drops below 0.2 (Künsch 1989).
+    the lag at which the pair rates' autocorrelation drops below 0.2 (Künsch 1989). Errors
+    that every pair of one year shares (that year's weather against the expected-power model,
+    common to a whole fleet) are invisible to a resampling of days; :func:`year_component`
+    estimates them from the spread of the per-year medians (reported; added to the bootstrap
+    distribution as a normal draw per resample only with ``year_effects``).
 
     Examples
     --------
@@ -386,7 +418,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         raise ValueError("confidence must be between 0 and 1")
     s = _as_daily(pi)
     span, msg = check_span(s.index, min_years=min_years, warn_years=warn_years)
-    r = yoy_rates(s, lag_days=lag_days, reference=reference)
+    r = yoy_rates(s, lag_days=lag_days, reference="pairwise" if reference == "start" else reference)
     n_spanning = 0
     segment_info = []
     if breaks:
@@ -421,9 +453,16 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         raise InsufficientDataError(
             f"{len(r)} year-on-year pairs (days with a valid day {lag_days} days later); "
             f"at least {min_pairs} are needed")
+    if reference == "start":  # after the pairs spanning a shift are gone (their rate is the step)
+        r = _pairs_to_start(r, s.index[0])
     vals = r.to_numpy()
+    gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
     boot, b = block_bootstrap(vals, np.median, n_resamples=n_resamples,
-                              block_length=block_length, rng=rng)
+                              block_length=block_length, rng=gen)
+    yc = year_component(r, float(np.var(boot)), lag_days=lag_days)
+    yc["added_to_interval"] = bool(year_effects and yc["sd_pct_per_yr"] > 0)
+    if yc["added_to_interval"]:
+        boot = boot + gen.normal(0.0, yc["sd_pct_per_yr"], len(boot))
     alpha = 1 - confidence
     lo, hi = np.quantile(boot, [alpha / 2, 1 - alpha / 2])
     lo68, hi68 = np.quantile(boot, [0.159, 0.841])
@@ -439,6 +478,7 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         "n_days": int(len(s)), "span_years": round(span, 3), "lag_days": lag_days,
         "reference": reference, "block_length": b, "n_resamples": n_resamples,
         "n_pairs_spanning_breaks_dropped": n_spanning,
+        "year_component": yc,
         **({"segments": segment_info, "min_segment_months": min_segment_months}
            if breaks else {}),
         "ci_68": [float(lo68), float(hi68)],
@@ -450,6 +490,39 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
                       "counts": [int(c) for c in counts]},
     }
     return res
+
+
+def year_component(r: pd.Series, boot_var: float, *, lag_days: int = 365,
+                   min_pairs: int = 180) -> dict:
+    """Between-year error component of a year-on-year rate [%/yr], from the pairs' per-year medians.
+
+    Pairs are grouped by the year (counted from the first pair) they start in; groups with
+    at least ``min_pairs`` pairs give medians ``m_1 … m_k``. If every year's level carries an
+    error ``a_y`` shared by all its days (weather against the model), the pairs of year ``j``
+    see ``a_{j+1} − a_j`` and the median of all pairs about ``(a_{k+1} − a_1) / k``, whose
+    variance is ``2 σ_a² / k²``; the sample variance of the ``m_j`` is about
+    ``2 σ_a² (1 + 1/k) + k · v`` (``v`` = ``boot_var``, the day-to-day part already in the
+    bootstrap). Hence the component's variance ``max(0, s²_m − k v) / (k (k + 1))``, a
+    method-of-moments estimate of a one-way random-effects variance (Searle, Casella &
+    McCulloch 1992, ch. 3). It needs two year groups (``k ≥ 2``, three years of data);
+    otherwise it is 0 and ``n_years`` says so.
+
+    Examples
+    --------
+    >>> d = pd.date_range("2020-01-01", periods=3 * 365, freq="D")
+    >>> r = pd.Series(np.repeat([-0.4, -0.6, -0.5], 365), d)   # year medians -0.4 -0.6 -0.5
+    >>> round(year_component(r, 0.0)["sd_pct_per_yr"], 4)        # sqrt(0.01 / (3 * 4))
+    0.0289
+    """
+    if r.empty:
+        return {"sd_pct_per_yr": 0.0, "n_years": 0, "year_medians_pct_per_yr": []}
+    j = ((r.index - r.index[0]).days // lag_days).to_numpy()
+    vals = r.to_numpy()
+    meds = [float(np.median(vals[j == q])) for q in np.unique(j) if (j == q).sum() >= min_pairs]
+    k = len(meds)
+    var = max(0.0, float(np.var(meds, ddof=1)) - k * boot_var) / (k * (k + 1)) if k >= 2 else 0.0
+    return {"sd_pct_per_yr": float(np.sqrt(var)), "n_years": k,
+            "year_medians_pct_per_yr": [round(m, 4) for m in meds]}
 
 
 def _hist_edges(vals: np.ndarray, width: float) -> np.ndarray:
@@ -760,8 +833,98 @@ def peer_relative_pi(pi_frame: pd.DataFrame, *, min_peers: int = 3) -> pd.DataFr
     return pd.DataFrame(out, index=pi_frame.index, columns=pi_frame.columns)
 
 
+def drift_onset(ratio: pd.Series, *, step_days: int = 14, min_before_days: int = 180,
+                min_after_days: int = 180, harmonics: int = 2, penalty: float = 2.0,
+                confidence: float = 0.95) -> dict:
+    """Onset and rate of a sensor drift that starts part-way through the record.
+
+    Model of the daily sensor / clear-sky ratio ``q`` (clear days only):
+    ``ln q = a + Σ annual harmonics + k · max(0, t − t0)`` [t in years], fitted by least
+    squares for every candidate onset ``t0`` on a ``step_days`` grid that leaves at least
+    ``min_before_days`` and ``min_after_days`` of record on either side; ``t0`` at the first
+    day is the drift that runs all along. The best onset is kept when it beats the drift all
+    along by a Schwarz (1978) criterion counted in effectively independent days (``n``
+    divided by :func:`acf_block_length` of the residuals):
+    ``n_eff · ln(RSS_all / RSS_onset) > penalty · ln(n_eff)`` (``penalty`` 2: the onset is
+    searched, a change-point's position costs about two parameters; common practice). The
+    rate ``k`` [%/yr] gets a Newey & West (1987) HAC interval with the onset fixed (it does
+    not include the onset's own uncertainty, so it is too narrow when the onset is unsure). The
+    year-on-year median of the whole record reads such a drift at about the share of the
+    record after the onset (the demo's 0.8 %/yr drift from mid-2023 read +0.41).
+
+    Returns ``{"onset_day", "rate_pct_per_yr", "ci": [lo, hi], "accepted", "rss_ratio",
+    "n_eff"}`` (``onset_day`` None and the all-along fit when not accepted).
+
+    Examples
+    --------
+    >>> days = pd.date_range("2021-01-01", "2023-12-31", freq="D")
+    >>> t = (days - days[0]).days.to_numpy() / 365.25
+    >>> noise = 0.003 * np.sin(np.arange(len(days)) * 1.3)
+    >>> q = pd.Series(np.exp(0.01 * np.clip(t - 1.5, 0, None) + noise), days)
+    >>> out = drift_onset(q)
+    >>> out["accepted"], out["onset_day"][:7], round(out["rate_pct_per_yr"], 1)  # grid: 2 weeks
+    (True, '2022-06', 1.0)
+    """
+    q = ratio.dropna()
+    q = q[q > 0]
+    out = {"onset_day": None, "rate_pct_per_yr": None, "ci": [None, None], "accepted": False,
+           "rss_ratio": 1.0, "n_eff": float(len(q))}
+    if len(q) < 120:
+        return out
+    t = ((q.index - q.index[0]).days / DAYS_PER_YEAR).to_numpy()
+    doy = 2 * np.pi * q.index.dayofyear.to_numpy() / DAYS_PER_YEAR
+    cols = [np.ones_like(t)]
+    for h in range(1, harmonics + 1):
+        cols += [np.cos(h * doy), np.sin(h * doy)]
+    base = np.column_stack(cols)
+    y = np.log(q.to_numpy())
+
+    def fit(t0_yr):
+        X = np.column_stack([base, np.clip(t - t0_yr, 0, None)])
+        beta, *_ = np.linalg.lstsq(X, y, rcond=None)
+        resid = y - X @ beta
+        return float(resid @ resid), X, resid
+
+    rss_all, X_all, res_all = fit(0.0)
+    # every candidate at once (Frisch-Waugh-Lovell): with y and each hinge column h residualised
+    # on the seasonal base, RSS(t0) = |y_r|^2 - (y_r . h_r)^2 / |h_r|^2
+    grid = np.arange(min_before_days / DAYS_PER_YEAR, t[-1] - min_after_days / DAYS_PER_YEAR,
+                     step_days / DAYS_PER_YEAR)
+    t0 = 0.0
+    rss_on = rss_all
+    if grid.size:
+        M = np.column_stack([y, np.clip(t[:, None] - grid[None, :], 0, None)])
+        Q, _ = np.linalg.qr(base)             # orthonormal basis of the seasonal columns
+        R = M - Q @ (Q.T @ M)
+        yr, hr = R[:, 0], R[:, 1:]
+        hh = np.einsum("ij,ij->j", hr, hr)
+        rss = float(yr @ yr) - np.where(hh > 0, (yr @ hr) ** 2 / np.where(hh > 0, hh, 1), 0.0)
+        j = int(np.argmin(rss))
+        if rss[j] < rss_all:
+            t0 = float(grid[j])
+    if t0 > 0:
+        rss_on, X, resid = fit(t0)
+    else:
+        X, resid = X_all, res_all
+    n_eff = len(y) / acf_block_length(resid)
+    accepted = t0 > 0 and n_eff * np.log(rss_all / rss_on) > penalty * np.log(max(n_eff, 2.0))
+    if not accepted:
+        t0, X, resid = 0.0, X_all, res_all
+    lags = max(1, acf_block_length(resid))
+    fitres = sm.OLS(y, X).fit(cov_type="HAC", cov_kwds={"maxlags": lags})
+    k = 100 * float(fitres.params[-1])
+    half = 100 * float(fitres.bse[-1]) * scipy.stats.norm.ppf(0.5 + confidence / 2)
+    out.update({"rate_pct_per_yr": k, "ci": [k - half, k + half], "accepted": bool(accepted),
+                "rss_ratio": float(rss_all / rss_on), "n_eff": float(n_eff),
+                "se_pct_per_yr": 100 * float(fitres.bse[-1])})
+    if accepted:
+        out["onset_day"] = (q.index[0] + pd.Timedelta(days=float(t0 * DAYS_PER_YEAR))
+                            ).date().isoformat()
+    return out
+
+
 def sensor_clearsky_drift(pi_sensor: pd.Series, pi_clearsky: pd.Series, *,
-                          window_days: int = 15, **yoy_kwargs) -> RateResult:
+                          window_days: int = 15, onset: bool = True, **yoy_kwargs) -> RateResult:
     """Year-on-year rate of the ratio sensor-based / clear-sky index on clear days [%/yr].
 
     On a clear day both indices see the same energy; their ratio is
@@ -780,7 +943,20 @@ def sensor_clearsky_drift(pi_sensor: pd.Series, pi_clearsky: pd.Series, *,
         raise InsufficientDataError("no day with both a sensor-based and a clear-sky index")
     full = q.reindex(pd.date_range(q.index[0], q.index[-1], freq="D"))
     dense = full.rolling(window_days, center=True, min_periods=2).median().dropna()
-    return degradation_yoy(dense, method="sensor_drift_check", **yoy_kwargs)
+    res = degradation_yoy(dense, method="sensor_drift_check", **yoy_kwargs)
+    res.details["whole_period_pct_per_yr"] = res.rate_pct_per_yr
+    res.details["whole_period_ci"] = [res.ci_low, res.ci_high]
+    res.details["onset_day"] = None
+    if not onset:
+        return res
+    # where the drift began: the best onset of the log ratio (drift_onset without a
+    # penalty); one inverter's day-to-day noise rarely lets it pass the criterion on its own,
+    # so judge_sensor_drift accepts it only when the checks of a sensor agree on it
+    fit = drift_onset(q, penalty=0.0, confidence=yoy_kwargs.get("confidence", 0.95))
+    res.details["onset_fit"] = {k: fit.get(k) for k in (
+        "onset_day", "rate_pct_per_yr", "ci", "rss_ratio", "n_eff")}
+    res.details["first_ratio_day"] = q.index[0].date().isoformat()
+    return res
 
 
 SENSOR_METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line")
@@ -872,7 +1048,8 @@ def interval_68(res: RateResult) -> tuple[float | None, float | None]:
 
 
 def judge_sensor_drift(checks: list[RateResult], *, min_drift_pct_per_yr: float = 0.35,
-                       min_share: float = 0.5) -> dict:
+                       min_share: float = 0.5, min_onset_days: int = 270,
+                       onset_spread_days: int = 60) -> dict:
     """Whether an irradiance sensor drifts, from the drift checks of the inverters it serves.
 
     Each inverter's :func:`sensor_clearsky_drift` measures the same sensor against the modelled
@@ -880,14 +1057,22 @@ def judge_sensor_drift(checks: list[RateResult], *, min_drift_pct_per_yr: float 
     at least ``min_drift_pct_per_yr`` in size **and** at least ``min_share`` of the checks
     have an interval that excludes zero on that side. The size threshold: the checks of
     drift-free sensors on the project's validation fleets scatter by about ±0.2 %/yr around a
-    small model bias (tests/validation scorecard); a drift that starts part-way through the
-    period shows in the median of year-on-year pairs at only about half its rate (the demo's
-    0.8 %/yr drift from mid-2023 reads about +0.4 %/yr), so 0.35 %/yr still catches it while
-    a steady 1 %/yr drift reads about +1 %/yr. ISO 9060 class A pyranometers are specified to
+    small model bias (tests/validation scorecard). ISO 9060 class A pyranometers are specified to
     a non-stability within 0.8 %/yr (from memory).
 
-    Returns ``{"judged": bool, "drift_pct_per_yr": float | None, "n_checks": int,
-    "n_excluding_zero": int}``.
+    A drift that starts part-way through the period shows in the median of all year pairs at
+    about the share of the period after its onset (the demo's 0.8 %/yr drift from mid-2023
+    reads +0.41). Once the sensor is judged to drift, each check's best onset
+    (:func:`drift_onset` on its daily ratio) is compared: when at least ``min_share`` of the
+    checks place it within ``onset_spread_days`` of their median, at least
+    ``min_onset_days`` after the first day, with a rate of the drift's sign, that median is
+    the sensor's ``onset_day`` and ``drift_pct_per_yr`` becomes the median of their rates
+    since the onset (``whole_period_pct_per_yr`` keeps the year-pair median). The inverters
+    of one sensor share it, so their agreement is what separates a real onset from noise
+    (their other errors differ: clipping, temperature, the array).
+
+    Returns ``{"judged": bool, "drift_pct_per_yr": float | None, "whole_period_pct_per_yr",
+    "n_checks": int, "n_excluding_zero": int, "onset_day": str | None, "n_with_onset": int}``.
 
     Examples
     --------
@@ -900,12 +1085,32 @@ def judge_sensor_drift(checks: list[RateResult], *, min_drift_pct_per_yr: float 
     ok = [c for c in checks if c is not None and c.rate_pct_per_yr is not None
           and c.ci_low is not None and c.ci_high is not None]
     if not ok:
-        return {"judged": False, "drift_pct_per_yr": None, "n_checks": 0, "n_excluding_zero": 0}
+        return {"judged": False, "drift_pct_per_yr": None, "n_checks": 0, "n_excluding_zero": 0,
+                "onset_day": None, "n_with_onset": 0}
     med = float(np.median([c.rate_pct_per_yr for c in ok]))
     side = [c for c in ok if (c.ci_low > 0 if med > 0 else c.ci_high < 0)]
     judged = abs(med) >= min_drift_pct_per_yr and len(side) >= min_share * len(ok)
-    return {"judged": bool(judged), "drift_pct_per_yr": med, "n_checks": len(ok),
-            "n_excluding_zero": len(side)}
+    out = {"judged": bool(judged), "drift_pct_per_yr": med, "whole_period_pct_per_yr": med,
+           "n_checks": len(ok), "n_excluding_zero": len(side), "onset_day": None,
+           "n_with_onset": 0}
+    if not judged:
+        return out
+    # the onset: the checks' best onsets (drift_onset) agree within onset_spread_days, lie
+    # at least min_onset_days after the ratio's first day and have a rate of the same sign
+    fits = [(pd.Timestamp(c.details["onset_fit"]["onset_day"]),
+             c.details["onset_fit"]["rate_pct_per_yr"], pd.Timestamp(c.details["first_ratio_day"]))
+            for c in ok if isinstance(c.details, dict) and (c.details.get("onset_fit") or {}).get(
+                "onset_day") and c.details["onset_fit"].get("rate_pct_per_yr") is not None]
+    fits = [f for f in fits if (f[0] - f[2]).days >= min_onset_days and f[1] * med > 0]
+    if len(fits) >= min_share * len(ok):
+        days = np.array([f[0].value for f in fits])
+        mid = float(np.median(days))
+        near = [f for f in fits if abs(f[0].value - mid) <= onset_spread_days * 86400e9]
+        if len(near) >= min_share * len(ok):
+            out.update({"onset_day": pd.Timestamp(int(mid)).date().isoformat(),
+                        "drift_pct_per_yr": float(np.median([f[1] for f in near])),
+                        "n_with_onset": len(near)})
+    return out
 
 
 def _lbl(code: str) -> str:
@@ -977,10 +1182,11 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
         d = drift.get("drift_pct_per_yr")
         # d is the rate of (sensor-based index / clear-sky index) ~ G_clearsky / G_sensor:
         # positive when the sensor reads lower year by year (sensor_clearsky_drift)
+        since = f" since about {drift['onset_day']}" if drift.get("onset_day") else ""
         text = (f"{sensor} reads about {abs(d):.2f} % {'lower' if d > 0 else 'higher'} each "
-                f"year against the modelled clear sky ({_lbl(DRIFT_CHECK)}), so the sensor-based "
-                f"rates ({_lbl(YEAR_PAIRS)} and the others) are shifted by about {d:+.2f} %/yr: "
-                "check the sensor's calibration")
+                f"year{since} against the modelled clear sky ({_lbl(DRIFT_CHECK)}), so the "
+                f"sensor-based rates ({_lbl(YEAR_PAIRS)} and the others) are shifted by up to "
+                f"about {d:+.2f} %/yr: check the sensor's calibration")
         caveats.append({"kind": "sensor_drift", "method": YEAR_PAIRS, "text": text})
         if shifts and have(SKY_BETWEEN_SHIFTS):
             chosen = SKY_BETWEEN_SHIFTS
@@ -1046,6 +1252,14 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                        "ci68_low": None, "ci68_high": None}
         return res
     r = results[chosen]
+    if chosen in (SKY_PAIRS, SKY_BETWEEN_SHIFTS) and loss is not None \
+            and loss >= min_soiling_loss_pct / 2:
+        caveats.append({"kind": "soiling", "method": chosen,
+                        "text": f"soiling costs about {loss:.1f} % of the energy; {_lbl(chosen)} "
+                                "rests on clear days, mostly in the dry season when soiling is "
+                                "highest, so soiling that differs from year to year does not cancel "
+                                "in its pairs (on the demo site it reads the rate about 0.2 %/yr "
+                                "too steep); read it as an upper bound of the loss"})
     if r.rate_pct_per_yr is not None and not low <= r.rate_pct_per_yr <= high:
         caveats.append({"kind": "out_of_range", "method": chosen,
                         "text": f"{_lbl(chosen)}: {r.rate_pct_per_yr:+.2f} %/yr is outside "

@@ -2,8 +2,9 @@
 
 Thin, documented wrappers over pvlib with the published models named in each function:
 
-* solar position: NREL SPA (Reda & Andreas 2004), :func:`pvlib.solarposition.get_solarposition`,
-  evaluated at interval midpoints;
+* solar position: :func:`pvlib.solarposition.get_solarposition` at interval midpoints, its
+  fast ``ephemeris`` method for the daily job and NREL SPA (Reda & Andreas 2004) for the
+  clear-sky cross-checks;
 * single-axis tracker rotation with optional backtracking: Marion & Dobos (2013),
   NREL/TP-6A20-58891, :func:`pvlib.tracking.singleaxis`;
 * GHI -> DNI/DHI: DIRINT, Perez, Ineichen, Maxwell, Seals & Zelenka (1992), "Dynamic
@@ -40,7 +41,7 @@ PEREZ_MODEL = "allsitescomposite1990"
 
 
 def sun_geometry(ts_utc, latitude_deg: float, longitude_deg: float, altitude_m: float = 0.0,
-                 interval_h=None) -> pd.DataFrame:
+                 interval_h=None, solar_position_method: str = "ephemeris") -> pd.DataFrame:
     """Sun position, extraterrestrial DNI and clear-sky irradiance at interval midpoints.
 
     Parameters
@@ -49,6 +50,9 @@ def sun_geometry(ts_utc, latitude_deg: float, longitude_deg: float, altitude_m: 
         Interval starts, tz-aware.
     interval_h : array or float, optional
         Interval lengths [h]; the geometry is taken at ``ts + interval_h/2``.
+    solar_position_method : str, default 'ephemeris'
+        :func:`pvlib.solarposition.get_solarposition` method: ``ephemeris`` (fast; the daily
+        job) or ``nrel_numpy`` (NREL SPA, Reda & Andreas 2004; the clear-sky cross-checks).
 
     Returns
     -------
@@ -66,7 +70,7 @@ def sun_geometry(ts_utc, latitude_deg: float, longitude_deg: float, altitude_m: 
     if len(idx) == 0:
         return pd.DataFrame({c: np.zeros(0) for c in cols}, index=idx)
     sp = pvlib.solarposition.get_solarposition(mid, latitude_deg, longitude_deg,
-                                               altitude=altitude_m, method="ephemeris")
+                                               altitude=altitude_m, method=solar_position_method)
     loc = pvlib.location.Location(latitude_deg, longitude_deg, "UTC", altitude_m)
     cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
     return pd.DataFrame({
@@ -247,18 +251,42 @@ def poa_from_other_plane(poa_wm2, sensor_plane, plane, geometry: pd.DataFrame,
     return np.where(np.isfinite(np.asarray(poa_wm2, dtype=float)), out, np.nan)
 
 
-def poa_clearsky(plane, geometry: pd.DataFrame, albedo: float = 0.2):
-    """Clear-sky POA [W/m²] of ``plane`` (Ineichen clear sky, isotropic transposition).
+def poa_clearsky(plane, geometry: pd.DataFrame, albedo: float = 0.2,
+                 model: str = "isotropic"):
+    """Clear-sky POA [W/m²] of ``plane`` (Ineichen clear sky; fixed plane or single-axis tracker).
 
-    The same model as :func:`analytics.filters.sun_and_clearsky`; used only to weight the
-    coverage of intervals whose reading is missing, and in clear-sky cross-checks.
+    ``model`` is the sky-diffuse transposition of
+    :func:`pvlib.irradiance.get_total_irradiance`: ``isotropic`` (the default, as
+    :func:`analytics.filters.sun_and_clearsky`; coverage weights), ``haydavies`` (Hay & Davies
+    1980) or ``perez`` (Perez et al. 1990, ``allsitescomposite1990``), both on the
+    extraterrestrial DNI of ``geometry`` (the clear-sky cross-checks). A tracker's surface
+    follows :func:`tracker_orientation` (Marion & Dobos 2013). Used only for coverage
+    weights and clear-sky cross-checks, never as a PR source.
+
+    Examples
+    --------
+    A horizontal plane receives the clear-sky GHI (any model):
+
+    >>> import pandas as pd
+    >>> from types import SimpleNamespace
+    >>> geo = sun_geometry(pd.DatetimeIndex(["2024-06-21 11:00"], tz="UTC"), 40.0, 0.0)
+    >>> flat = SimpleNamespace(kind="fixed", tilt_deg=0.0, azimuth_deg=180.0)
+    >>> bool(abs(poa_clearsky(flat, geo, model="haydavies")[0] - geo["ghi_cs_wm2"].iloc[0]) < 1e-6)
+    True
     """
+    if model not in ("isotropic", "haydavies", "perez"):
+        raise ValueError(f"model must be 'isotropic', 'haydavies' or 'perez', got {model!r}")
     tilt, azim = plane_orientation(plane, geometry)
+    zen = geometry["apparent_zenith_deg"].to_numpy()
+    kw: dict = {}
+    if model != "isotropic":
+        kw["dni_extra"] = geometry["dni_extra_wm2"].to_numpy()
+    if model == "perez":
+        kw.update(airmass=pvlib.atmosphere.get_relative_airmass(zen), model_perez=PEREZ_MODEL)
     poa = pvlib.irradiance.get_total_irradiance(
-        tilt, azim, geometry["apparent_zenith_deg"].to_numpy(),
-        geometry["sun_azimuth_deg"].to_numpy(), geometry["dni_cs_wm2"].to_numpy(),
-        geometry["ghi_cs_wm2"].to_numpy(), geometry["dhi_cs_wm2"].to_numpy(), albedo=albedo,
-        model="isotropic")["poa_global"]
+        tilt, azim, zen, geometry["sun_azimuth_deg"].to_numpy(),
+        geometry["dni_cs_wm2"].to_numpy(), geometry["ghi_cs_wm2"].to_numpy(),
+        geometry["dhi_cs_wm2"].to_numpy(), albedo=albedo, model=model, **kw)["poa_global"]
     return np.nan_to_num(np.asarray(poa, dtype=float))
 
 

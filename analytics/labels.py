@@ -83,7 +83,15 @@ def _human(code: str) -> str:
 
 def label(code, table: dict | None = None) -> str:
     """Human words for a stored code: the table's entry, else any known table's, else the
-    code with its underscores turned into spaces (never the raw code)."""
+    code with its underscores turned into spaces (never the raw code).
+
+    Examples
+    --------
+    >>> label("sensor_drift_check")
+    'POA sensor drift against clear sky'
+    >>> label("some_new_code"), label(None)
+    ('Some new code', '–')
+    """
     if code is None or (isinstance(code, float) and code != code):
         return "–"
     code = str(code)

@@ -64,16 +64,23 @@ def _merge_runs(runs, ts, max_gap_s):
     return out
 
 
+def _per_row(tau_s, n: int) -> np.ndarray:
+    """Interval [s] of each row: ``tau_s`` is one length for all rows or an array of each
+    row's own (issue #11: a channel that changes from 15 to 5 minutes)."""
+    return np.broadcast_to(np.round(np.asarray(tau_s, dtype=float)).astype(np.int64), (n,))
+
+
 def _events(mask, index, tau_s, *, device_id, kind, severity_fn, details_fn,
             merge_gap_s=0, min_count=1):
     ts = _ts_s(index)
+    tau = _per_row(tau_s, ts.size)
     runs = _merge_runs(_true_runs(mask), ts, merge_gap_s)
     recs = []
     for a, b in runs:
         n = int(np.sum(mask[a:b + 1]))
         if n < min_count:
             continue
-        start, end = int(ts[a]), int(ts[b] + tau_s)
+        start, end = int(ts[a]), int(ts[b] + tau[b])
         recs.append(dict(device_id=device_id, kind=kind, start_s=start, end_s=end,
                          severity=severity_fn(n, end - start), lost_kwh=np.nan,
                          details=details_fn(a, b, n)))
@@ -205,28 +212,29 @@ def dropout_flags(x: pd.Series, daytime: pd.Series, *, device_id: str, quantity:
     """Runs of missing daytime samples of at least ``min_missing_h`` hours in total.
 
     ``daytime`` is a bool Series on the full expected interval grid (all intervals of the
-    period, sun up); ``x`` may lack rows or hold NaN. Missing runs are merged across nights
+    period, sun up); ``x`` may lack rows or hold NaN. ``tau_s``: one interval [s] or each grid
+    row's own; the missing hours are the sum of the missing intervals' lengths. Missing runs are merged across nights
     so that a sensor that is dead for a week is one event.
     """
     grid = daytime.index
     present = x.reindex(grid).notna().to_numpy()
     day = daytime.to_numpy(bool)
     miss = day & ~present
-    min_n = max(1, int(round(min_missing_h * 3600 / tau_s)))
     ts = _ts_s(grid)
+    tau = _per_row(tau_s, ts.size)
     # bridge nights: merge missing-daytime runs separated only by night or missing samples
     state = np.where(miss, 1.0, np.where(day & present, 0.0, np.nan))
     s = pd.Series(state).ffill().fillna(0).to_numpy() == 1
     recs = []
     for a, b in _true_runs(s):
         idx = np.flatnonzero(miss[a:b + 1]) + a
-        if idx.size < min_n:
+        hours = float(tau[idx].sum()) / 3600  # each missing interval's own length
+        if idx.size == 0 or hours < min_missing_h - 1e-9:
             continue
         a, b = int(idx[0]), int(idx[-1])
         n = idx.size
-        hours = n * tau_s / 3600
         recs.append(dict(device_id=device_id, kind="sensor_dropout", start_s=int(ts[a]),
-                         end_s=int(ts[b] + tau_s),
+                         end_s=int(ts[b] + tau[b]),
                          severity="warning" if hours >= 24 or ts[b] - ts[a] >= 86400 else "info",
                          lost_kwh=np.nan,
                          details=dict(quantity=quantity, missing_daytime_hours=hours,

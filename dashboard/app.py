@@ -20,9 +20,24 @@ from db.engine import display_url
 ICON = str(Path(__file__).resolve().parent / "static" / "page_icon.png")
 st.set_page_config(page_title="heliaudit", page_icon=ICON, layout="wide")
 
+weekly = st.Page(ui.PAGES["weekly"], title="Weekly check", icon=":material/calendar_view_week:",
+                 url_path="weekly")
+
+
+def _home() -> None:
+    """The app's root address opens the weekly check at its own address, ``/weekly``.
+
+    Streamlit serves its default page only at the root and ignores that page's
+    ``url_path``, so a default weekly page would make ``/weekly`` (the address the menu and
+    links name) "page not found"; the hidden default page forwards there instead, keeping
+    the site and date range of the query string.
+    """
+    st.switch_page(weekly, query_params=st.query_params.to_dict())
+
+
 pages = [
-    st.Page(ui.PAGES["weekly"], title="Weekly check", icon=":material/calendar_view_week:",
-            url_path="weekly", default=True),
+    st.Page(_home, title="heliaudit", url_path="home", default=True, visibility="hidden"),
+    weekly,
     st.Page(ui.PAGES["trends"], title="Inverter trends", icon=":material/show_chart:",
             url_path="trends"),
     st.Page(ui.PAGES["degradation"], title="Degradation & warranty",

@@ -623,7 +623,8 @@ def pair_rates(url: str, site_id: str, device_id: str) -> pd.Series:
     the daily performance index as the degradation job selects it
     (:func:`analytics.degradation.usable_daily_pi` with the stored stabilisation period;
     for the site Σ e_ac_valid / Σ e_exp_valid over inverters with a usable day, on days
-    where at least half of them have one). Indexed by the earlier day of each pair. [%/yr]"""
+    where at least half of them have one), with the computation's pair reference. Indexed
+    by the earlier day of each pair. [%/yr]"""
     comp = db_degradation.last_computation(engine(url), site_id) or {}
     params = comp.get("params") or {}
     stab = int(params.get("stabilisation_days", 180))
@@ -653,7 +654,9 @@ def pair_rates(url: str, site_id: str, device_id: str) -> pd.Series:
         series = (num / den)[ok]
     if series.empty:
         return pd.Series(dtype=float, name="rd_pct_per_yr")
-    return yoy_rates(series)
+    # the reference the job used (issue #13: "start", % of the initial level; older stores
+    # computed plain pairwise rates)
+    return yoy_rates(series, reference=str(params.get("reference", "pairwise")))
 
 
 @_cache

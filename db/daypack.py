@@ -8,9 +8,10 @@ A day row holds every reading of one channel whose ``ts_s`` falls in one UTC day
   spacings) and then, by kind: ``0`` nothing (a complete run ``first + k * step``,
   ``k = 0 .. n-1``), ``1`` a bit mask over the grid ``first + k * step`` (little-endian bit
   order), ``2`` every offset as ``uint32`` (whichever of 1 and 2 is smaller);
-* **values** (``value_blob``): a 2-byte header ``<kind u8, exponent u8>`` and then, by kind,
-  ``int16`` (0) or ``int32`` (1) integers ``q`` with ``value = q / 10**exponent``, or the
-  values as ``float64`` (2). A day is stored as scaled integers only when every value comes
+* **values** (``value_blob``): a 2-byte header ``<kind u8, 16 * k + exponent u8>`` and then,
+  by kind, ``int16`` (0) or ``int32`` (1) integers ``q`` with
+  ``value = (q / 10**exponent) * scale_k + offset_k`` (:data:`FACTORS`: identity, or one of
+  ingest's unit conversions applied to a logger's decimal), or the values as ``float64`` (2). A day is stored as scaled integers only when every value comes
   back bit for bit (logger exports carry a few decimals, so they nearly always do); any other
   day keeps its doubles. Nothing is rounded: the store returns exactly what was written
   (``-0.0`` comes back as ``0.0``);
@@ -38,6 +39,11 @@ _TS_HDR_DTYPE = np.dtype([("kind", "u1"), ("first", "<i4"), ("step", "<u4")])
 _V_DTYPES = {V_I16: np.dtype("<i2"), V_I32: np.dtype("<i4"), V_F64: np.dtype("<f8")}
 _RUN_DTYPE = np.dtype([("n", "<i4"), ("interval_s", "<i4"), ("batch_id", "<i4")])
 MAX_EXPONENT = 9  # at most 9 decimals as scaled integers
+#: Linear maps a decimal may have gone through before it was stored (ingest's unit conversions
+#: ``x * scale + offset``: W -> kW, MW -> kW, °F -> °C, K -> °C, km/h -> m/s). Part of the
+#: format (the value header's high nibble indexes it): append only, never reorder.
+FACTORS = ((1.0, 0.0), (1e-3, 0.0), (1e3, 0.0), (5.0 / 9.0, -32.0 * 5.0 / 9.0), (1.0, -273.15),
+           (1.0 / 3.6, 0.0))
 
 #: Column order of a day row as the write path binds it.
 ROW_COLUMNS = ("channel_id", "day_s", "n", "ts_blob", "value_blob", "interval_s", "batch_id",
@@ -72,6 +78,34 @@ def day_of(ts_s: np.ndarray | int):
     return (np.asarray(ts_s, dtype=np.int64) // DAY_S) * DAY_S
 
 
+def _decimals(v: np.ndarray, starts: np.ndarray, scale: float, offset: float
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per row (segments at ``starts``): whether some ``e`` (0..9) gives integers ``q`` with
+    ``(q / 10**e) * scale + offset == v`` bit for bit for every value, the smallest such ``e``,
+    and ``q`` (whole arrays per ``e``, no Python per value)."""
+    rows = starts.size
+    counts = np.diff(np.append(starts, v.size))
+    e_row = np.zeros(rows, dtype=np.int64)
+    done = np.zeros(rows, dtype=bool)
+    q = np.zeros(v.size)
+    x = v if (scale, offset) == (1.0, 0.0) else (v - offset) / scale
+    with np.errstate(invalid="ignore", over="ignore"):
+        for e in range(MAX_EXPONENT + 1):
+            p = 10.0 ** e
+            q_e = np.rint(x * p)
+            back = q_e / p if (scale, offset) == (1.0, 0.0) else (q_e / p) * scale + offset
+            ok = (back == v) & (np.abs(q_e) < 2 ** 31)
+            row_ok = np.logical_and.reduceat(ok, starts) & ~done
+            if row_ok.any():
+                e_row[row_ok] = e
+                done |= row_ok
+                sel = np.repeat(row_ok, counts)
+                q[sel] = q_e[sel]
+            if done.all():
+                break
+    return done, e_row, q
+
+
 def pack(channel_id: np.ndarray, ts_s: np.ndarray, value: np.ndarray, interval_s: np.ndarray,
          batch_id: np.ndarray) -> DayRows:
     """Pack readings sorted by ``(channel_id, ts_s)`` without repeated keys into day rows.
@@ -100,27 +134,33 @@ def pack(channel_id: np.ndarray, ts_s: np.ndarray, value: np.ndarray, interval_s
     step[step <= 0] = 1
     first, last = off[starts], off[ends - 1]
     grid = (last - first) // step + 1
-    # -- values: scaled integers when every value of the row comes back exactly; the
-    # smallest exponent that does it, tried over whole arrays (no per-value Python)
+    # -- values: scaled decimals when every value of the row comes back exactly
     rows = starts.size
     e_row = np.zeros(rows, dtype=np.int64)
+    f_row = np.zeros(rows, dtype=np.int64)
     dec = np.zeros(rows, dtype=bool)
     q = np.zeros(n)
-    todo = np.ones(rows, dtype=bool)
-    with np.errstate(invalid="ignore", over="ignore"):
-        for e in range(MAX_EXPONENT + 1):
-            p = 10.0 ** e
-            q_e = np.rint(v * p)
-            ok = (q_e / p == v) & (np.abs(q_e) < 2 ** 31)
-            row_ok = np.logical_and.reduceat(ok, starts) & todo
-            if row_ok.any():
-                e_row[row_ok] = e
-                dec |= row_ok
-                sel = np.repeat(row_ok, counts)
-                q[sel] = q_e[sel]
-                todo &= ~row_ok
+    for k, (scale, offset) in enumerate(FACTORS):
+        todo = ~dec
+        if not todo.any():
+            break
+        if k:  # another unit's decimals: only rows whose sample values fit it are tried
+            ends_ = starts + counts - 1
+            samp = np.stack([v[starts], v[(starts + ends_) // 2], v[ends_]], axis=1).ravel()
+            fit, _e, _q = _decimals(samp, np.arange(0, samp.size, 3), scale, offset)
+            todo &= fit
             if not todo.any():
-                break
+                continue
+        sel = np.repeat(todo, counts)
+        sub_counts = counts[todo]
+        sub_starts = np.concatenate(([0], np.cumsum(sub_counts)[:-1]))
+        ok, e_sub, q_sub = _decimals(v[sel], sub_starts, scale, offset)
+        rows_ok = np.flatnonzero(todo)[ok]
+        e_row[rows_ok], f_row[rows_ok] = e_sub[ok], k
+        dec[rows_ok] = True
+        now = np.zeros(rows, dtype=bool)
+        now[rows_ok] = True
+        q[np.repeat(now, counts)] = q_sub[np.repeat(ok, sub_counts)]
     amax = np.maximum.reduceat(np.abs(q), starts)
     vkind = np.where(~dec, V_F64, np.where(amax < 2 ** 15, V_I16, V_I32))
     parts = {V_F64: v.astype("<f8").tobytes()}
@@ -137,7 +177,7 @@ def pack(channel_id: np.ndarray, ts_s: np.ndarray, value: np.ndarray, interval_s
     out = DayRows(ch[starts].copy(), day[starts].copy(), counts.astype(np.int64))
     s_l, e_l, c_l = starts.tolist(), ends.tolist(), counts.tolist()
     f_l, st_l, g_l = first.tolist(), step.tolist(), grid.tolist()
-    vk_l, ex_l = vkind.tolist(), np.where(dec, e_row, 0).tolist()
+    vk_l, ex_l = vkind.tolist(), np.where(dec, e_row + 16 * f_row, 0).tolist()
     ivu_l, bmax_l = (iv_u & bt_u).tolist(), bt_max.tolist()
     iv_first = iv[starts].tolist()
     for r in range(len(s_l)):
@@ -257,8 +297,12 @@ def unpack(day_s, n, ts_blob, value_blob, interval_s, batch_id, runs_blob, *,
 
 
 def _decode_values(head: bytes, payload: bytes) -> np.ndarray:
-    kind, e = head[0], head[1]
+    kind, e, k = head[0], head[1] & 15, head[1] >> 4
     arr = np.frombuffer(payload, dtype=_V_DTYPES[kind])
     if kind == V_F64:
         return arr.copy()
-    return arr.astype(np.float64) / (10.0 ** e)
+    out = arr.astype(np.float64) / (10.0 ** e)
+    if k:
+        scale, offset = FACTORS[k]
+        out = out * scale + offset
+    return out

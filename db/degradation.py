@@ -105,8 +105,8 @@ def irradiance_channels(engine: sa.Engine, site_id: str) -> list[tuple[str, str,
         return [(r[0], r[1], int(r[2])) for r in conn.execute(q)]
 
 
-def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
-                    ) -> tuple[pd.DataFrame, pd.DataFrame]:
+def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame, *,
+                    with_interval: bool = False) -> tuple:
     """Interval inputs of the clear-sky method, and nothing else: AC power and module
     temperature of every inverter on one interval grid.
 
@@ -118,7 +118,9 @@ def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
 
     Returns ``(p_ac_kw, t_module_c)``: float32 DataFrames indexed by ``ts_utc`` (interval
     start, UTC), one column per inverter that has power readings; ``t_module_c`` is NaN where
-    the inverter has no module-temperature sensor. [kW], [°C]
+    the inverter has no module-temperature sensor. [kW], [°C] With ``with_interval`` a third
+    element: each grid row's interval [s] (the recorded interval of the readings there; a
+    filled gap steps by its neighbour's), aligned with the index.
     """
     from db.timeseries import (
         fill_gaps,
@@ -165,7 +167,7 @@ def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
                 temps[tc] = read(tc)
     if not power:
         empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="ts_utc"))
-        return empty, empty.copy()
+        return (empty, empty.copy(), np.zeros(0)) if with_interval else (empty, empty.copy())
     arrays = [v[0] for v in power.values()]
     first = arrays[0]
     if all(a.size == first.size and np.array_equal(a, first) for a in arrays[1:]):
@@ -190,4 +192,5 @@ def clearsky_inputs(engine: sa.Engine, site_id: str, inverters: pd.DataFrame
             t[:, j] = binned[tc]
     idx = pd.DatetimeIndex(pd.to_datetime(grid, unit="s", utc=True), name="ts_utc")
     cols = list(power)
-    return pd.DataFrame(p, index=idx, columns=cols), pd.DataFrame(t, index=idx, columns=cols)
+    out = pd.DataFrame(p, index=idx, columns=cols), pd.DataFrame(t, index=idx, columns=cols)
+    return (*out, np.asarray(step_s, dtype=float)) if with_interval else out

@@ -35,11 +35,21 @@ def channel_specs(cfg: SiteConfig) -> dict[str, dict[tuple[str, str], str]]:
             elif sampling != "mean":
                 out[c.device][key] = sampling
         inv_ids = {i.id for i in cfg.inverters}
+        inputs = getattr(src, "quantity_inputs", None) or {}
         for name, sampling in (getattr(src, "quantity_sampling", None) or {}).items():
             q = src.quantity_names[name][0]
             for dev, specs in out.items():
-                if (q, "") in specs and ((dev in inv_ids) == (q in INVERTER_QUANTITIES)):
-                    specs[(q, "")] = sampling
+                if (q, inputs.get(name, "")) in specs and (
+                        (dev in inv_ids) == (q in INVERTER_QUANTITIES)):
+                    specs[(q, inputs.get(name, ""))] = sampling
+        # long layout (#11): a quantity name carrying an inverter input gives that input's
+        # channel to every inverter that declares the input among its arrays
+        for name, inp in inputs.items():
+            q = src.quantity_names[name][0]
+            for inv in cfg.inverters:
+                if len(inv.arrays) > 1 and any(str(a.id) == inp for a in inv.arrays):
+                    out[inv.id].setdefault(
+                        (q, inp), (getattr(src, "quantity_sampling", None) or {}).get(name, "mean"))
     return out
 
 
@@ -53,7 +63,10 @@ def channel_quantities(cfg: SiteConfig) -> dict[str, set[str]]:
         for c in src.columns:
             if not getattr(c, "input", ""):
                 out[c.device].add(c.quantity)
-        for q, _u in src.quantity_names.values():
+        inputs = getattr(src, "quantity_inputs", None) or {}
+        for name, (q, _u) in src.quantity_names.items():
+            if name in inputs:
+                continue  # an inverter input's channel (channel_specs), not the whole device's
             targets = inv_ids if q in ("p_ac_kw", "p_dc_kw", "e_ac_kwh", "e_ac_total_kwh") else [
                 s.id for s in cfg.sensors if s.quantity == q]
             for d in targets:

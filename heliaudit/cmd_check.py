@@ -117,8 +117,40 @@ def print_check(engine: sa.Engine, site_id: str, week_end: dt.date | None = None
              f"{_f(r.e_ac_kwh, ',.0f'):>9} {_f(r.yf_h, '.2f'):>6} "
              f"{_f(r.pr_stc, '.3f'):>7} {_f(r.d_trailing_pct, '+.1f'):>7} "
              f"{_f(r.d_peers_pct, '+.1f'):>8} {_f(100 * r.avail_energy, '.1f'):>8}{mark}")
+    _print_sources(engine, site_id, w0, end, echo)
     _print_degradation(engine, site_id, echo)
     return table
+
+
+def _print_sources(engine, site_id, w0, end, echo) -> None:
+    """Where each PR's irradiance and cell temperature came from this week (#11), where it
+    is not the plain case (a POA sensor in the array's plane, a back-of-module sensor)."""
+    from ingest.site_model import BASIS_METHODS
+
+    words = {**BASIS_METHODS,
+             "modelled_sandia_king2004": "modelled from ambient temperature, irradiance and "
+                                         "wind (Sandia model, King et al. 2004)",
+             "modelled_faiman2008": "modelled from ambient temperature, irradiance and wind "
+                                    "(Faiman 2008)",
+             "module_sensor": "from a back-of-module sensor"}
+    d = queries.daily_rows(engine, site_id, w0, end,
+                           columns=("irradiance_basis", "t_cell_basis"))
+    lines = []
+    for col, plain in (("irradiance_basis", "poa_same_plane"), ("t_cell_basis", "module_sensor")):
+        if col not in d:
+            continue
+        for code, g in d.dropna(subset=[col]).groupby(col, sort=True):
+            if code == plain:
+                continue
+            what = " + ".join(words.get(c, c.replace("_", " ")) for c in code.split("+"))
+            devs = ", ".join(sorted(g["device_id"].unique()))
+            lines.append(f"  {devs}: {'irradiance' if col == 'irradiance_basis' else 'cell temperature'}"
+                         f" {what}")
+    if lines:
+        echo("Sources that are modelled rather than measured in the array's plane (a "
+             "transposed PR carries a seasonal error of a few per cent; compare like with like):")
+        for line in lines:
+            echo(line)
 
 
 def _print_energy(engine, site_id, w0, end, invs, fl, econ, echo) -> None:

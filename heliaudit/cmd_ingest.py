@@ -53,8 +53,12 @@ def _note_lines(r: BatchResult) -> list[str]:
     for source in ("p_ac_kw", "counter"):
         devs = sorted(d for d, ev in coarse.items() if ev.get("interval_energy_from") == source)
         if devs:
-            steps = sorted({coarse[d]["resolution_kwh"] for d in devs})
-            out.append(f"coarse energy counters (steps of {', '.join(f'{x:g}' for x in steps)} kWh) "
+            # a counter can be judged coarse before its resolution is measured (one step
+            # beyond an interval's possible energy in a short file): resolution_kwh is None
+            steps = sorted({coarse[d]["resolution_kwh"] for d in devs} - {None})
+            size = (f"steps of {', '.join(f'{x:g}' for x in steps)} kWh" if steps else
+                    "steps larger than one interval's possible energy")
+            out.append(f"coarse energy counters ({size}) "
                        f"on {len(devs)} inverters ({', '.join(devs[:8])}): " + (
                            "interval energy from AC power; the counters are kept for daily and "
                            "monthly totals (cross-checked against integrated power)"

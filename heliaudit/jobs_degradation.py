@@ -75,7 +75,7 @@ DEFAULTS: dict = {
     "min_years": 2.0,
     "warn_years": 3.0,
     "lag_days": 365,
-    "reference": "pairwise",
+    "reference": "start",  # pair rates in % of the initial level: linear warranties (#13)
     "min_peers": 3,
     "rlm_aggregate": "monthly",
     "rlm_harmonics": 1,
@@ -156,56 +156,86 @@ def _site_daily(usable: dict[str, pd.Series], by_dev: dict[str, pd.DataFrame],
 def _clearsky_daily(engine, site: dict, invs: pd.DataFrame, offset_h: float, p: dict
                     ) -> tuple[dict[str, pd.Series], str, str | None]:
     """Clear-day index per inverter; returns (series by id, how clear periods were found,
-    reason when not computed)."""
-    from db.timeseries import read_channel  # interval reader (issue #4)
+    reason when not computed).
+
+    Every device is modelled on its own plane (#11): an inverter's clear-sky POA is the
+    capacity-weighted one of its arrays (fixed planes and single-axis trackers,
+    :func:`heliaudit.site_irradiance.clearsky_references`), a POA sensor's that of its
+    declared plane and a horizontal sensor's the clear-sky GHI, so a sensor in another plane
+    than the site default is not read as faulty. Each row carries its own recorded interval:
+    the sun is taken at its midpoint, clear periods are tested per interval length and the
+    index weighs each reading by its own τ."""
+    from db.timeseries import (
+        fill_unknown_intervals,
+        instant_channels,
+        instant_to_means,
+        overlap_mean,
+        read_channel,
+    )
+    from heliaudit.site_irradiance import clearsky_references
 
     # only what the method needs: one power channel per inverter and the module temperature
-    power, t_mod = clearsky_inputs(engine, site["site_id"], invs)
+    power, t_mod, iv_s = clearsky_inputs(engine, site["site_id"], invs, with_interval=True)
     if power.empty or not power.notna().to_numpy().any():
         return {}, "", "no interval power readings"
-    p_ac = {dev: power[dev] for dev in power}
+    lo_s, hi_s = acs.DETECT_INTERVAL_S
+    if not ((iv_s >= lo_s) & (iv_s <= hi_s)).any():
+        return {}, "", (f"no reading with an interval of {lo_s / 60:g}-{hi_s / 60:g} min; "
+                        "clear-sky detection (Jordan & Hansen 2023 thresholds) needs such data")
     p0 = {dev: float(r) for dev, r in zip(invs["device_id"], invs["p_dc_kwp"], strict=True)
-          if dev in p_ac}
-    step_min = pd.Series(power.index).diff().median() / pd.Timedelta(minutes=1)
-    if not 1 <= step_min <= 30:
-        return {}, "", (f"interval of {step_min:g} min; clear-sky detection (Jordan & Hansen "
-                        "2023 thresholds) needs 1-30-minute data")
-    cs = acs.clearsky_poa(power.index, latitude_deg=site["latitude_deg"],
-                          longitude_deg=site["longitude_deg"], altitude_m=site["altitude_m"],
-                          tilt_deg=site["tilt_deg"], azimuth_deg=site["azimuth_deg"],
-                          albedo=site["albedo"], transposition=p["clearsky_transposition"])
-    # clear periods from every irradiance sensor, each checked against the others (#13)
+          if dev in power}
+    sensors = irradiance_channels(engine, site["site_id"])
+    _geo, inv_cs, sensor_cs = clearsky_references(
+        site, power.index, iv_s / 3600.0, list(power.columns),
+        [(sid, qty) for sid, qty, _ch in sensors], model=p["clearsky_transposition"])
+    grid_s = power.index.as_unit("s").asi8
+    # clear periods from every irradiance sensor, each checked against the others (#13),
+    # each against the clear sky of its own plane (#11)
     readings, refs = {}, {}
-    for sid, qty, ch in irradiance_channels(engine, site["site_id"]):
+    with engine.connect() as conn:
+        inst = set(instant_channels(conn, site["site_id"]))
+    for sid, _qty, ch in sensors:
         with engine.connect() as conn:
-            ts, val = read_channel(conn, ch)
+            ts, val, iv = read_channel(conn, ch, with_interval=True)
         if not np.isfinite(val).any():
             continue
-        meas = pd.Series(val, pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True)))
-        readings[sid] = meas.groupby(meas.index).mean().reindex(power.index)
-        refs[sid] = cs["ghi_clearsky_wm2" if qty == "ghi_wm2" else "poa_clearsky_wm2"]
+        iv = fill_unknown_intervals(ts, iv)
+        if ch in inst:  # point samples -> interval means (trapezoidal rule)
+            ts, val, iv = instant_to_means(ts, val, iv)
+        # the sensor's readings averaged into the power rows by time overlap, each reading
+        # over its own recorded interval (db.timeseries.overlap_mean)
+        on_grid = overlap_mean(grid_s, iv_s, ts, iv, val)
+        readings[sid] = pd.Series(on_grid, power.index)
+        refs[sid] = pd.Series(sensor_cs[sid], power.index)
     if readings:
-        clear, info = acs.clear_periods_from_sensors(readings, refs)
-        how = ("Reno & Hansen 2016 on every irradiance sensor (" + ", ".join(
-            f"{sid}: {v['days_faulty']} days judged faulty" for sid, v in sorted(info.items()))
-            + "); clear where every healthy sensor agrees")
+        clear, info = acs.clear_periods_from_sensors(readings, refs, interval_s=iv_s)
+        how = ("Reno & Hansen 2016 on every irradiance sensor against the clear sky of its "
+               "own plane (" + ", ".join(
+                   f"{sid}: {v['days_faulty']} days judged faulty" for sid, v in sorted(info.items()))
+               + "); clear where every healthy sensor agrees")
     else:
-        rated_on = power.notna().mul(pd.Series(p0), axis=1).sum(axis=1)
+        on = power.notna()
+        rated_on = on.mul(pd.Series(p0), axis=1).sum(axis=1)
         fleet = 1000 * power.sum(axis=1, min_count=1) / rated_on.where(rated_on > 0)
-        clear = acs.detect_clear_periods(fleet, cs["poa_clearsky_wm2"])
-        how = "Reno & Hansen 2016 on the fleet's AC power shape against clear-sky POA"
+        # the fleet's clear-sky reference: Σ P0_i G_cs,i / Σ P0_i over inverters reporting
+        g_on = pd.DataFrame(inv_cs, index=power.index).where(on).mul(pd.Series(p0), axis=1)
+        ref = g_on.sum(axis=1) / rated_on.where(rated_on > 0)
+        clear = acs.detect_clear_periods(fleet, ref.fillna(0.0), interval_s=iv_s)
+        how = ("Reno & Hansen 2016 on the fleet's AC power shape against the capacity-weighted "
+               "clear-sky POA of the inverters' own planes")
     out = {}
-    g_cs = cs["poa_clearsky_wm2"]
+    tau_h = pd.Series(iv_s / 3600.0, power.index)
     for _, inv in invs.iterrows():
         dev = inv["device_id"]
-        if dev not in p_ac:
+        if dev not in power:
             continue
+        g_cs = pd.Series(inv_cs[dev], power.index)
         d_t = 3.0  # Sandia ΔT at 1000 W/m² (King et al. 2004, open rack)
         t_cell = t_mod[dev].astype(float) + d_t * g_cs / 1000.0
         daily = acs.clearsky_daily_pi(
             power[dev].astype(float), g_cs, clear, p_dc_kwp=float(inv["p_dc_kwp"]),
             gamma_pmp_per_c=float(inv["gamma_pmp_per_c"]), eta_inv_nom=float(inv["eta_inv_nom"]),
-            p_ac_max_kw=float(inv["p_ac_max_kw"]),
+            p_ac_max_kw=float(inv["p_ac_max_kw"]), interval_h=tau_h,
             t_cell_c=t_cell if t_cell.notna().any() else None, utc_offset_h=offset_h)
         out[dev] = daily["pi_clearsky"]
     return out, how, None
@@ -557,9 +587,11 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         judged = [d for d in drift_by_sensor.values() if d["judged"]]
         site_drift = None
         if judged:  # a drifting sensor biases the site index through its inverters
+            onsets = sorted(d["onset_day"] for d in judged if d.get("onset_day"))
             site_drift = {"judged": True, "sensor_id": ", ".join(d["sensor_id"] for d in judged),
                           "drift_pct_per_yr": float(np.median([d["drift_pct_per_yr"]
-                                                               for d in judged]))}
+                                                               for d in judged])),
+                          "onset_day": onsets[0] if onsets else None}
         e_exp_site = pd.concat([by_dev[i]["e_exp_kwh"] for i in by_dev], axis=1).sum(axis=1)
         _shift_energy(cps, pd.DataFrame({"e_exp_kwh": e_exp_site}))
         res["recommended"] = adeg.recommend_rate(

@@ -120,12 +120,23 @@ PARAMS = {
 
 
 def site_sun(index: pd.DatetimeIndex, site: dict, tau_h: float,
-             plane: tuple[float, float] | None = None) -> pd.DataFrame:
+             plane=None) -> pd.DataFrame:
     """Solar elevation [°], AOI [°] and clear-sky POA [W/m²] at interval midpoints
-    (pvlib NREL SPA numpy, Ineichen clear sky, isotropic transposition), on the site's
-    plane or on ``plane`` = (tilt_deg, azimuth_deg) of one array."""
+    (pvlib NREL SPA numpy, Ineichen clear sky, isotropic transposition).
+
+    ``plane``: None for the site's plane; ``(tilt_deg, azimuth_deg)`` of a fixed plane; or a
+    device's planes from the site model as ``((Plane, p_dc_kwp), ...)``
+    (:func:`device_planes`): a single-axis tracker turned as :func:`pvlib.tracking.singleaxis`
+    turns it (Marion & Dobos 2013, :func:`analytics.irradiance.plane_orientation`), several
+    arrays capacity-weighted (the AOI is the largest array's)."""
     if len(index) == 0:
         return pd.DataFrame({"elev": [], "aoi": [], "poa_cs": []}, index=index)
+    return sun_on_plane(sun_base(index, site, tau_h), site, plane)
+
+
+def sun_base(index: pd.DatetimeIndex, site: dict, tau_h: float) -> pd.DataFrame:
+    """Sun position (pvlib NREL SPA numpy) and Ineichen clear sky at interval midpoints: the
+    part of :func:`site_sun` that does not depend on the plane."""
     mid = index + pd.Timedelta(hours=tau_h / 2)
     loc = pvlib.location.Location(site["latitude_deg"], site["longitude_deg"], "UTC",
                                   site["altitude_m"])
@@ -133,15 +144,69 @@ def site_sun(index: pd.DatetimeIndex, site: dict, tau_h: float,
                                                site["longitude_deg"], site["altitude_m"],
                                                method="nrel_numpy")
     cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
-    tilt, azim = plane if plane is not None else (site["tilt_deg"], site["azimuth_deg"])
-    poa = pvlib.irradiance.get_total_irradiance(
-        tilt, azim, sp["apparent_zenith"], sp["azimuth"],
-        cs["dni"], cs["ghi"], cs["dhi"], albedo=site.get("albedo", 0.2),
-        model="isotropic")["poa_global"]
-    aoi = pvlib.irradiance.aoi(tilt, azim, sp["apparent_zenith"], sp["azimuth"])
-    return pd.DataFrame({"elev": sp["elevation"].to_numpy(float), "aoi": aoi.to_numpy(float),
-                         "poa_cs": np.nan_to_num(poa.to_numpy(float)).clip(min=0)},
+    return pd.DataFrame({"apparent_zenith": sp["apparent_zenith"].to_numpy(float),
+                         "azimuth": sp["azimuth"].to_numpy(float),
+                         "elevation": sp["elevation"].to_numpy(float),
+                         "dni": cs["dni"].to_numpy(float), "ghi": cs["ghi"].to_numpy(float),
+                         "dhi": cs["dhi"].to_numpy(float)}, index=index)
+
+
+def sun_on_plane(sp: pd.DataFrame, site: dict, plane=None) -> pd.DataFrame:
+    """:func:`site_sun` from the plane-independent part :func:`sun_base`."""
+    index = sp.index
+    if len(index) == 0:
+        return pd.DataFrame({"elev": [], "aoi": [], "poa_cs": []}, index=index)
+    if plane is None or not isinstance(plane[0], tuple):
+        tilt, azim = plane if plane is not None else (site["tilt_deg"], site["azimuth_deg"])
+        surfaces = [(tilt, azim, 1.0)]
+    else:
+        from analytics.irradiance import plane_orientation
+
+        geo = pd.DataFrame({"apparent_zenith_deg": sp["apparent_zenith"].to_numpy(float),
+                            "sun_azimuth_deg": sp["azimuth"].to_numpy(float)}, index=index)
+        surfaces = [(*plane_orientation(pl, geo), float(kwp)) for pl, kwp in plane]
+    poa = np.zeros(len(index))
+    for tilt, azim, kwp in surfaces:
+        g = pvlib.irradiance.get_total_irradiance(
+            tilt, azim, sp["apparent_zenith"].to_numpy(float), sp["azimuth"].to_numpy(float),
+            sp["dni"].to_numpy(float), sp["ghi"].to_numpy(float), sp["dhi"].to_numpy(float),
+            albedo=site.get("albedo", 0.2), model="isotropic")["poa_global"]
+        poa += kwp * np.nan_to_num(np.asarray(g, dtype=float))
+    poa /= sum(k for _t, _a, k in surfaces)
+    tilt, azim, _k = max(surfaces, key=lambda x: x[2])
+    aoi = pvlib.irradiance.aoi(tilt, azim, sp["apparent_zenith"].to_numpy(float),
+                               sp["azimuth"].to_numpy(float))
+    return pd.DataFrame({"elev": sp["elevation"].to_numpy(float),
+                         "aoi": np.asarray(aoi, dtype=float), "poa_cs": poa.clip(min=0)},
                         index=index)
+
+
+def device_planes(config_toml: str | None, site: dict) -> dict[str, tuple]:
+    """Each device's own planes from the site model (#11), where they differ from the site's:
+    inverter id -> ``((Plane, p_dc_kwp), ...)`` of its arrays (trackers included), irradiance
+    sensor id -> ``((Plane, 1.0),)`` (a horizontal sensor: the horizontal plane). Devices in
+    the site plane, and every device when the stored configuration no longer parses, are
+    left out (None: the site plane) — as :func:`site_sun` takes them."""
+    from ingest.config import ConfigError, parse_site_config
+    from ingest.site_model import HORIZONTAL, Plane
+
+    try:
+        cfg = parse_site_config(config_toml or "", "<stored configuration>")
+    except (ConfigError, ValueError):
+        return {}
+    site_plane = Plane(tilt_deg=float(site["tilt_deg"]), azimuth_deg=float(site["azimuth_deg"]))
+    out: dict[str, tuple] = {}
+    for inv in cfg.inverters:
+        if inv.arrays and not all(a.plane.same_as(site_plane) for a in inv.arrays):
+            planes = {a.plane for a in inv.arrays}
+            # one plane: kWp does not matter (the key is shared with that plane's sensors)
+            out[str(inv.id)] = (((planes.pop(), 1.0),) if len(planes) == 1 else
+                                tuple((a.plane, float(a.p_dc_kwp)) for a in inv.arrays))
+    for sen in cfg.sensors:
+        pl = HORIZONTAL if sen.quantity == "ghi_wm2" else sen.plane
+        if pl is not None and not pl.same_as(site_plane):
+            out[str(sen.id)] = ((pl, 1.0),)
+    return out
 
 
 def regular_grid(t0_s: int, t1_s: int, step_s: int) -> pd.DatetimeIndex:
@@ -193,6 +258,16 @@ def _tau_s(index: pd.DatetimeIndex, interval_s=None) -> int:
         return int(round(float(np.nanmedian(np.asarray(interval_s, dtype=float)))))
     ts = epoch_s(index)
     return int(np.median(np.diff(ts))) if ts.size > 1 else 900
+
+
+def _grid_tau_s(grid_sun: pd.DataFrame, interval_s=None):
+    """Each row's interval [s] of a sun frame from ``sun_at`` (its ``interval_s`` column),
+    else one typical interval (:func:`_tau_s`)."""
+    if "interval_s" in grid_sun and len(grid_sun):
+        return grid_sun["interval_s"].to_numpy(float)
+    if interval_s is not None and len(interval_s) == len(grid_sun):
+        return np.asarray(interval_s, dtype=float)
+    return _tau_s(grid_sun.index, interval_s)
 
 
 def inverter_plane(inv: dict, site: dict) -> tuple[float, float] | None:
@@ -248,7 +323,7 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
         return []
     p_max = float(inv["p_ac_max_kw"])
     s = sun.reindex(frame.index)
-    tau_s = _tau_s(frame.index, frame["interval_h"].to_numpy(float) * 3600.0)
+    tau_s = frame["interval_h"].to_numpy(float) * 3600.0  # each reading's own (#11)
     exp = _expected_power(frame, inv)
     o = PARAMS["outage"]
     out = [outages.outage_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
@@ -353,8 +428,8 @@ def unclipped_daily_pi(frame: pd.DataFrame, exp: pd.Series, p_max: float, limite
 def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) -> pd.DataFrame:
     """Missing inverter power while the sun is well up (information unavailable); night
     and a sleeping inverter at low sun are not dropouts."""
-    tau_s = _tau_s(grid_sun.index, frame["interval_h"].to_numpy(float) * 3600.0
-                   if "interval_h" in frame else None)
+    tau_s = _grid_tau_s(grid_sun, frame["interval_h"].to_numpy(float) * 3600.0
+                        if "interval_h" in frame else None)
     p = frame["p_ac_kw"] if len(frame) else pd.Series(dtype=float)
     day = grid_sun["elev"] >= PARAMS["outage"]["min_elevation_deg"]
     fl = sensor_qa.dropout_flags(p, day, device_id=inv["device_id"], quantity="p_ac_kw",
@@ -374,12 +449,14 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     Range, flatline, dropout and night checks run on the raw readings ``x``; the clock and
     drift diagnoses only on ``x_valid`` (the readings of days judged plausible).
     ``interval_s``: each reading's interval as recorded at ingest (None: from the spacing)."""
-    tau_s = _tau_s(x.index, interval_s)
+    # each reading's own interval (#11); the grid's rows carry theirs (sun_at's interval_s)
+    tau_s = (np.asarray(interval_s, dtype=float) if interval_s is not None
+             else _tau_s(x.index, interval_s))
     s = grid_sun.reindex(x.index)
     xv = x if x_valid is None else x_valid
     day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
     drop = sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id, quantity=quantity,
-                                   tau_s=tau_s)
+                                   tau_s=_grid_tau_s(grid_sun))
     # a gap of hours or a day or two is data unavailable (communication); a sensor silent
     # for 36 or more daylight hours (about three days) is a sensor problem (common practice;
     # issue #14: 29-h column gaps of healthy sensors on generated fleets)
@@ -399,8 +476,7 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
         out.append(sensor_qa.night_irradiance_flags(x, s["elev"].to_numpy(), device_id=sensor_id,
                                                     quantity=quantity, tau_s=tau_s))
     if quantity == "poa_wm2" and xv.notna().any():
-        tau_h = (np.asarray(interval_s, dtype=float) / 3600.0 if interval_s is not None
-                 else np.full(len(x), tau_s / 3600.0))
+        tau_h = np.broadcast_to(np.asarray(tau_s, dtype=float) / 3600.0, (len(x),))
         clear = clock.clear_day_mask(xv, s["poa_cs"], std_offset_s=std_offset_s,
                                      ratio_range=(0.7, 1.3))
         off = clock.clock_offsets(xv, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
@@ -550,7 +626,7 @@ def _yield_by_sensor(daily: pd.DataFrame, inverters: pd.DataFrame) -> dict[str, 
     return out
 
 
-def _low_vs_yield(x: pd.Series, yf: pd.Series | None, tau_s: int, std_offset_s: int, *,
+def _low_vs_yield(x: pd.Series, yf: pd.Series | None, tau_s, std_offset_s: int, *,
                   min_yf_h: float = 1.0, factor: float = 0.25) -> pd.Series:
     """Days on which the sensor's insolation H is below ``factor`` × the arrays' final yield
     (Y_f ≤ Y_r for any PR ≤ 1, IEC 61724-1): the sensor reads far less than the power
@@ -558,15 +634,20 @@ def _low_vs_yield(x: pd.Series, yf: pd.Series | None, tau_s: int, std_offset_s: 
     if yf is None or yf.empty or x.empty:
         return pd.Series(dtype=bool)
     day = (epoch_s(x.index) + int(std_offset_s)) // 86400
-    h = pd.Series(np.clip(x.to_numpy(float), 0, None) * tau_s / 3.6e6).groupby(day).sum()
+    tau = np.broadcast_to(np.asarray(tau_s, dtype=float), (len(x),))  # each reading's own (#11)
+    h = pd.Series(np.clip(x.to_numpy(float), 0, None) * tau / 3.6e6).groupby(day).sum()
     h.index = pd.to_datetime(h.index.to_numpy() * 86400, unit="s")
     y = yf.reindex(h.index)
     return (y >= min_yf_h) & (h < factor * y)
 
 
 def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.DataFrame, *,
-                  std_offset_s: int) -> tuple[dict, list[pd.DataFrame]]:
+                  std_offset_s: int, intervals: dict | None = None
+                  ) -> tuple[dict, list[pd.DataFrame]]:
     """Plausibility of every sensor before any diagnosis.
+
+    ``grid_sun_for(index, sensor_id)`` gives the sun and clear-sky POA on the sensor's own
+    plane; ``intervals`` maps sensor id -> each (time-sorted) reading's interval [s].
 
     Returns
     -------
@@ -582,11 +663,13 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
     for sid, (q, x) in by_id.items():
         if q not in ("poa_wm2", "ghi_wm2") or x.empty:
             continue
-        gs = grid_sun_for(x.index)
+        gs = grid_sun_for(x.index, sid)  # on the sensor's own plane, at its own intervals
         s = gs.reindex(x.index)
         days = sensor_qa.irradiance_validity(x, s["elev"].to_numpy(), s["poa_cs"].to_numpy(),
                                              std_offset_s=std_offset_s)
-        low = _low_vs_yield(x, yields.get(sid), _tau_s(x.index), std_offset_s)
+        tau = (intervals or {}).get(sid)
+        low = _low_vs_yield(x, yields.get(sid), _tau_s(x.index) if tau is None else tau,
+                            std_offset_s)
         if len(low):
             lo = low.reindex(days.index).fillna(False).to_numpy(bool)
             days.loc[lo & days["valid"].to_numpy(bool), "reason"] = "low_vs_power"
@@ -608,7 +691,7 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
     for sid, (q, x) in by_id.items():
         if q != "t_module_c" or x.empty:
             continue
-        gs = grid_sun_for(x.index).reindex(x.index)
+        gs = grid_sun_for(x.index, sid).reindex(x.index)
         g_id, a_id, w_id = (paired(sid, "poa_sensor_id", "poa_wm2"),
                             paired(sid, "t_amb_sensor_id", "t_amb_c"),
                             paired(sid, "wind_sensor_id", "wind_ms"))
@@ -859,7 +942,7 @@ def counter_flags(inv: dict, frame: pd.DataFrame, counter, *, std_offset_s: int)
 def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: pd.DataFrame, *,
                   economics: dict | None = None, sources: dict | None = None,
                   progress: Progress | None = None, n_runs: int = 1000,
-                  counters: dict | None = None, prior=None,
+                  counters: dict | None = None, planes: dict | None = None, prior=None,
                   collect: dict | None = None) -> pd.DataFrame:
     """Every flag of a site from data in memory.
 
@@ -888,6 +971,12 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     counters : dict, optional
         ``{inverter id: (ts_s, counter_kwh, interval_s)}``: energy-counter readings, checked
         month by month against integrated AC power (:func:`counter_flags`).
+    planes : dict, optional
+        Device id -> its own planes (:func:`device_planes`): an inverter's arrays (fixed or
+        single-axis trackers), an irradiance sensor's plane. Clear-sky references (clock,
+        flatline, sensor plausibility and drift) are then on each device's own geometry;
+        devices without an entry use the ``tilt_deg``/``azimuth_deg`` of their inverter row,
+        else the site plane.
     prior : heliaudit.flags_window.Prior, optional
         An incremental run (issue #16): ``frames`` and ``counters`` cover only the new data
         and a look-back; each inverter's own flags before the cut and its daily inputs of the
@@ -913,6 +1002,17 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     sun_cache: dict[tuple, pd.DataFrame] = {}  # (interval [s], plane) -> sun at those starts
     cs_cache: dict[tuple, pd.Series] = {}
 
+    base_cache: dict[int, pd.DataFrame] = {}  # interval [s] -> sun position, clear sky
+
+    def base_at(idx: pd.DatetimeIndex, u: int) -> pd.DataFrame:
+        have = base_cache.get(u)
+        missing = idx if have is None else idx.difference(have.index)
+        if len(missing):
+            new = sun_base(missing, site, u / 3600.0)
+            have = new if have is None else pd.concat([have, new]).sort_index()
+            base_cache[u] = have
+        return have if have.index.equals(idx) else have.reindex(idx)
+
     def sun_at(index: pd.DatetimeIndex, interval_s, plane=None) -> pd.DataFrame:
         """Sun at each row's own interval midpoint, on the site's plane or ``plane``;
         computed once per (timestamp, interval, plane)."""
@@ -923,18 +1023,19 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         if interval_s is None:
             interval_s = np.full(len(index), float(_tau_s(index)))
         iv = np.round(np.asarray(interval_s, dtype=float)).astype(np.int64)
+        out["interval_s"] = iv.astype(float)
         for u in np.unique(iv):
             m = iv == u
             idx = index[m] if not m.all() else index
             have = sun_cache.get((int(u), plane))
             missing = idx if have is None else idx.difference(have.index)
             if len(missing):
-                new = site_sun(missing, site, u / 3600.0, plane)
+                new = sun_on_plane(base_at(missing, int(u)), site, plane)
                 have = new if have is None else pd.concat([have, new]).sort_index()
                 sun_cache[(int(u), plane)] = have
             vals = have.reindex(idx)[cols].to_numpy() if not (
                 len(have) == len(idx) and have.index.equals(idx)) else have[cols].to_numpy()
-            out.iloc[np.flatnonzero(m)] = vals
+            out.iloc[np.flatnonzero(m), :3] = vals
         return out
 
     def expected_grid(x: pd.Series, iv: np.ndarray) -> tuple[pd.DatetimeIndex, np.ndarray]:
@@ -954,13 +1055,22 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
              for e in sensors if len(e[2]) > 1]
     span = (min(a for a, _b in spans), max(b for _a, b in spans)) if spans else (None, None)
     # 1. plausibility of every sensor, before any diagnosis
-    invalid_days, judged = judge_sensors(sensors, lambda idx: sun_at(idx, None), inverters,
-                                         daily, std_offset_s=off_s)
+    planes = planes or {}
+    iv_of = {e[0]: sensor_intervals(e) for e in sensors}
+
+    def sensor_sun(idx: pd.DatetimeIndex, sid: str | None = None) -> pd.DataFrame:
+        iv = iv_of.get(sid)
+        return sun_at(idx, iv if iv is not None and len(iv) == len(idx) else None,
+                      planes.get(sid))
+
+    invalid_days, judged = judge_sensors(sensors, sensor_sun, inverters, daily,
+                                         std_offset_s=off_s, intervals=iv_of)
     parts += judged
     last_seen: dict[str, int] = {}
     kinds: dict[str, str] = {}
     ratios: dict[str, pd.Series] = {}
     rain_parts: list[pd.Series] = []
+    inv_rows = {r["device_id"]: r for r in inverters.to_dict("records")}
     n_clock = 0
     for entry in sensors:
         sid, q, x = entry[:3]
@@ -973,7 +1083,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
             last_seen[sid], kinds[sid] = int(epoch_s(xn.index[-1:])[0]), q
         if len(x):
             g_idx, g_iv = expected_grid(x, iv)
-            gs = sun_at(g_idx, g_iv)
+            gs = sun_at(g_idx, g_iv, planes.get(sid))  # the sensor's own plane (#11)
             days = invalid_days.get(sid)
             xv = x if days is None else x.mask(sensor_qa.invalid_interval_mask(
                 x.index, days, std_offset_s=off_s))
@@ -1008,7 +1118,10 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
                 kinds[inv["device_id"]] = "inverter"
             iv_s = frame["interval_h"].to_numpy(float) * 3600.0
             gs = sun_at(frame.index, iv_s)
-            plane = inverter_plane(inv, site)
+            # the inverter's own planes (#11): its arrays from the site model (trackers
+            # included), else a plane given on its inverter row, else the site's
+            dev = inv["device_id"]
+            plane = planes.get(dev) or inverter_plane(inv_rows.get(dev, inv), site)
             gp = gs if plane is None else sun_at(frame.index, iv_s, plane)
             fr = mask_invalid_sensor_days(frame, inv, invalid_days, off_s)
             inv_parts += inverter_flags(inv, fr, gp, std_offset_s=off_s, site_zone=zone,
@@ -1090,7 +1203,8 @@ def _resolved_arrays(config_toml: str | None, raw: dict[str, list[dict]]) -> dic
         return raw
     return {str(inv.id): [{"id": a.id, "p_dc_kwp": a.p_dc_kwp,
                            "tilt_deg": None if a.plane.is_tracker else a.plane.tilt_deg,
-                           "azimuth_deg": None if a.plane.is_tracker else a.plane.azimuth_deg}
+                           "azimuth_deg": None if a.plane.is_tracker else a.plane.azimuth_deg,
+                           "plane": a.plane.label()}
                           for a in inv.arrays]
             for inv in cfg.inverters}
 
@@ -1129,7 +1243,9 @@ def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, l
         cols = [c for c in df.columns if c in kwp]
         if len(cols) < 2:
             continue
-        plane = {str(a["id"]): (a.get("tilt_deg"), a.get("azimuth_deg")) for a in arr}
+        # inputs are compared within one plane; a tracker's plane is its whole geometry
+        plane = {str(a["id"]): a.get("plane") or (a.get("tilt_deg"), a.get("azimuth_deg"))
+                 for a in arr}
         out.append(outliers.input_mismatch_flags(
             df[cols], kwp, device_id=dev, input_plane={c: plane.get(c) for c in cols},
             interval_h=df["interval_h"].to_numpy(float) if "interval_h" in df else None,
@@ -1265,7 +1381,9 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
     collect: dict = {}
     flags = compute_flags(site, _with_planes(inverters, arrays), frames, sensors, daily,
                           economics=setup["economics"], sources=_sources_by_device(setup["cfg"]),
-                          progress=progress, counters=counters, prior=prior, collect=collect)
+                          progress=progress, counters=counters,
+                          planes=device_planes(site.get("config_toml"), site), prior=prior,
+                          collect=collect)
     mism, _note = input_mismatch_for_site(engine, site_id, arrays, off_s, start_inputs)
     mism = [m for m in mism if len(m)]
     if prior is not None:

@@ -27,7 +27,7 @@ from db.timeseries import (
     site_channels,
 )
 from ingest.config import ConfigError, SiteConfig, parse_site_config
-from ingest.site_model import BASIS_METHODS, inverter_basis, is_simple
+from ingest.site_model import BASIS_METHODS, Plane, inverter_basis, is_simple
 
 
 def stored_config(site_row: dict) -> SiteConfig | None:
@@ -36,6 +36,70 @@ def stored_config(site_row: dict) -> SiteConfig | None:
         return parse_site_config(site_row.get("config_toml") or "", f"site {site_row['site_id']!r}")
     except (ConfigError, KeyError):
         return None
+
+
+def clearsky_references(site_row: dict, ts_utc: pd.DatetimeIndex, interval_h,
+                        inverter_ids, sensors, *, model: str = "haydavies"
+                        ) -> tuple[pd.DataFrame, dict[str, np.ndarray], dict[str, np.ndarray]]:
+    """Modelled clear-sky irradiance of every inverter and irradiance sensor on its OWN plane.
+
+    For the clear-sky cross-checks (degradation), never for PR. Each inverter gets the
+    capacity-weighted clear-sky POA of its arrays (``Σ P0_j G_cs,j / Σ P0_j``), each array on
+    its plane from the site model: fixed, or a single-axis tracker turned as
+    :func:`pvlib.tracking.singleaxis` turns it (Marion & Dobos 2013). A POA sensor gets the
+    clear-sky POA of its declared plane, a horizontal (GHI) sensor the clear-sky GHI. Clear
+    sky: Ineichen & Perez (2002) with the Linke turbidity climatology; sky-diffuse
+    transposition ``model`` (Hay & Davies 1980 by default; :func:`analytics.irradiance.poa_clearsky`);
+    sun position by NREL SPA at each interval's own midpoint (``interval_h`` per row). Without
+    a stored configuration that parses, every device is taken in the site plane.
+
+    Parameters
+    ----------
+    site_row : dict
+        The site row (``latitude_deg``, ``longitude_deg``, ``altitude_m``, ``tilt_deg``,
+        ``azimuth_deg``, ``albedo``, ``config_toml``).
+    ts_utc : DatetimeIndex
+        Interval starts, UTC.
+    interval_h : array
+        Each row's interval length [h].
+    inverter_ids : iterable of str
+    sensors : iterable of (sensor_id, quantity)
+        ``quantity`` ``poa_wm2`` or ``ghi_wm2``.
+
+    Returns
+    -------
+    (geometry, {inverter id: G_cs [W/m²]}, {sensor id: G_cs [W/m²]})
+    """
+    cfg = stored_config(site_row)
+    site_plane = Plane(tilt_deg=float(site_row["tilt_deg"]),
+                       azimuth_deg=float(site_row["azimuth_deg"]), id="site")
+    geo = airr.sun_geometry(ts_utc, site_row["latitude_deg"], site_row["longitude_deg"],
+                            site_row["altitude_m"], interval_h,
+                            solar_position_method="nrel_numpy")
+    albedo = float(site_row["albedo"])
+    cache: dict = {}
+
+    def plane_cs(plane) -> np.ndarray:
+        if plane not in cache:
+            cache[plane] = airr.poa_clearsky(plane, geo, albedo, model=model)
+        return cache[plane]
+
+    invs = {i.id: i for i in cfg.inverters} if cfg else {}
+    sens = {s.id: s for s in cfg.sensors} if cfg else {}
+    inv_cs = {}
+    for dev in inverter_ids:
+        arrays = invs[dev].arrays if dev in invs else ()
+        inv_cs[dev] = (airr.capacity_weighted_poa([plane_cs(a.plane) for a in arrays],
+                                                  [a.p_dc_kwp for a in arrays])
+                       if arrays else plane_cs(site_plane))
+    sensor_cs = {}
+    for sid, qty in sensors:
+        if qty == "ghi_wm2":
+            sensor_cs[sid] = geo["ghi_cs_wm2"].to_numpy(float)
+            continue
+        s = sens.get(sid)
+        sensor_cs[sid] = plane_cs(s.plane if s is not None and s.plane is not None else site_plane)
+    return geo, inv_cs, sensor_cs
 
 
 class SiteIrradiance:

@@ -193,6 +193,7 @@ class Source:
     long: LongSpec | None = None  # long layout: which columns hold device/quantity/value
     quantity_names: dict[str, tuple[str, str]] = field(default_factory=dict)  # long: name -> (quantity, unit)
     quantity_sampling: dict[str, str] = field(default_factory=dict)  # long: name -> "instant" (#11)
+    quantity_inputs: dict[str, str] = field(default_factory=dict)  # long: name -> inverter input id (#11)
     counter_rollover_kwh: float | None = None  # wrap-around value of e_ac_total_kwh counters
     clock_corrections: tuple[ClockCorrection, ...] = ()
     ignore_columns: tuple[str, ...] = ()  # header names deliberately not loaded (status codes, ...)
@@ -412,6 +413,7 @@ register(
     quantity=Key("str", required=True, choices=tuple(QUANTITY_UNITS)), unit=Key("str", max_len=16),
     sampling=Key("str", default="mean", choices=SAMPLINGS,
                  doc="mean over the interval, or instant: a point sample at the timestamp (#11)"),
+    input=Key("id", doc="the inverter input (array id) this quantity name carries (#11)"),
 )
 register(
     "sources[].clock_corrections[]",
@@ -1006,7 +1008,7 @@ class _Validator:
             columns: list[ColumnMap] = []
             for m, c in enumerate(self.array(s, "columns", key)):
                 columns.extend(self._columns(c, f"{key}.columns[{m}]", sensors, inverters, device_ids))
-            long_spec, qnames, qsampling = None, {}, {}
+            long_spec, qnames, qsampling, qinputs = None, {}, {}, {}
             if layout == "long":
                 lkey = f"{key}.long"
                 lt = self.table(s, "long", key)
@@ -1037,6 +1039,9 @@ class _Validator:
                                          "sample: an energy or counter is a sum")
                             else:
                                 qsampling[name] = "instant"
+                        inp = self.val(spec, qkey, "input", "sources[].long.quantities.*") or ""
+                        if self._input_ok(inp, q, f"{qkey}.input", inverters):
+                            qinputs[name] = inp
                 if not qnames:
                     self.bad(f"{lkey}.quantities", "long layout needs a table mapping quantity names")
             elif not columns:
@@ -1111,12 +1116,34 @@ class _Validator:
                 unit_row=bool(self.val(s, key, "unit_row")),
                 missing_values=tuple(miss) if miss is not None else Source.missing_values,
                 timestamp=tspec, columns=tuple(columns), long=long_spec, quantity_names=qnames,
-                quantity_sampling=qsampling,
+                quantity_sampling=qsampling, quantity_inputs=qinputs,
                 counter_rollover_kwh=self.val(s, key, "counter_rollover_kwh"),
                 clock_corrections=tuple(corrections),
                 ignore_columns=tuple(self.val(s, key, "ignore_columns") or ()),
             ))
         return out
+
+    def _input_ok(self, inp: str, q: str, key: str, inverters: list[Inverter]) -> bool:
+        """A long-layout quantity name's ``input`` (#11): an input quantity, a valid id that
+        some inverter declares among its arrays. False (after reporting) when not usable."""
+        if not inp:
+            if q in ("i_dc_a", "v_dc_v"):
+                self.bad(key, f"{q} is loaded per inverter input: name it with input = \"<input id>\"")
+            return False
+        if q not in INPUT_QUANTITIES:
+            self.bad(key, f"an inverter input carries {', '.join(INPUT_QUANTITIES)}; got {q}")
+            return False
+        if not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", inp):
+            self.bad(key, "use letters, digits, '-', '_' or '.', at most 64 characters")
+            return False
+        ids = sorted({str(a.id) for i in inverters for a in (_input_ids(i) and i.arrays or ())})
+        if inp not in ids:
+            hint = closest(inp, ids)
+            self.bad(key, f"no inverter declares an input {inp!r} in its [[inverters.arrays]]"
+                     + (f" (did you mean `{hint}`?)" if hint else
+                        f"; declared inputs: {', '.join(ids) or '(none)'}"))
+            return False
+        return True
 
     def _columns(self, c: dict, key: str, sensors: list[Sensor], inverters: list[Inverter],
                  device_ids: set[str]) -> list[ColumnMap]:

@@ -267,6 +267,7 @@ class _VCol:
     p_ac_max_kw: float | None
     p_dc_kwp: float | None
     instant: bool = False  # an instantaneous sample: keyed by the label time itself
+    input_id: str = ""  # an inverter input (MPPT / string group): DC limits from its own kWp
     group: int = 0  # clock-correction group (0: the corrections that apply to every column)
 
 
@@ -311,9 +312,12 @@ class _FileLoader:
                 raise IngestError(self.path, None, name, f"no channel for device {device!r} "
                                   f"quantity {quantity}; the site config does not deliver it")
             self.vcol_index[k] = len(self.vcols)
+            kwp = inv.p_dc_kwp if inv else None
+            if inv and input_id:  # an input's DC limits from its own declared capacity (#11)
+                kwp = next((a.p_dc_kwp for a in inv.arrays if str(a.id) == input_id), kwp)
             self.vcols.append(_VCol(name, device, quantity, unit, ch,
-                                    inv.p_ac_max_kw if inv else None, inv.p_dc_kwp if inv else None,
-                                    instant=sampling == "instant",
+                                    inv.p_ac_max_kw if inv else None, kwp,
+                                    instant=sampling == "instant", input_id=input_id,
                                     group=self._group(device, name)))
         return self.vcol_index[k]
 
@@ -512,6 +516,8 @@ class _FileLoader:
             inf = present & np.isinf(v)
             imp, why = implausible(np.where(inf, np.nan, v), vc.quantity, p_ac_max_kw=vc.p_ac_max_kw,
                                    p_dc_kwp=vc.p_dc_kwp, interval_h=iv[sel] / 3600.0,
+                                   dc_label=(f"input {vc.input_id!r} nameplate" if vc.input_id
+                                             else "nameplate"),
                                    rollover_kwh=self.source.counter_rollover_kwh)
             imp &= present & ~inf
             for k in np.flatnonzero(inf | imp):
@@ -598,13 +604,16 @@ class _FileLoader:
                 else:
                     quantity, cunit = src.quantity_names[q]
                     uu = normalise_unit(u) if u else cunit
-                    if (d, quantity) not in self.channels:
-                        cache[k] = f"device {d!r} has no {quantity} channel in the site config"
+                    inp = src.quantity_inputs.get(q, "")  # an inverter input's name (#11)
+                    if ((d, quantity, inp) if inp else (d, quantity)) not in self.channels:
+                        cache[k] = (f"device {d!r} has no {quantity} channel in the site config"
+                                    if not inp else f"device {d!r} has no input {inp!r} "
+                                    f"(quantity name {q!r}) in its [[inverters.arrays]]")
                     else:
                         try:
                             to_stored(np.empty(0), quantity, uu)
                             cache[k] = self._vcol(f"{d}/{q}", d, quantity, uu,
-                                                  src.quantity_sampling.get(q, "mean"))
+                                                  src.quantity_sampling.get(q, "mean"), inp)
                         except ValueError as exc:
                             cache[k] = str(exc)
             v = cache[k]

@@ -73,7 +73,8 @@ def to_stored(values: np.ndarray, quantity: str, unit: str) -> np.ndarray:
 
 def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None = None,
                 p_dc_kwp: float | None = None, interval_h: np.ndarray | float | None = None,
-                rollover_kwh: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+                rollover_kwh: float | None = None,
+                dc_label: str = "nameplate") -> tuple[np.ndarray, np.ndarray]:
     """Mask of impossible values (already in stored units) and the reason for each (else None).
 
     Every quantity is bounded in both directions (docs/config.md "Ingest rules"): irradiance
@@ -81,7 +82,8 @@ def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None 
     interval energy 0..1.5 × ``p_ac_max_kw`` × ``interval_h``; counters 0..100 years at the AC
     rating (and below ``rollover_kwh`` when set); module temperature -60..100 °C, air
     temperature -90..60 °C; wind 0..75 m/s; rain 0..1825 mm. Non-finite values (``inf``) are
-    the caller's to reject before this check.
+    the caller's to reject before this check. For an inverter input's DC channels
+    ``p_dc_kwp`` is that input's own declared capacity, named by ``dc_label`` in the reason.
     """
     v = np.asarray(values, dtype=float)
     lo = np.full(v.shape, -np.inf)
@@ -94,7 +96,7 @@ def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None 
         what, unit = f"AC power (rating {p_ac_max_kw:g} kW)", "kW"
     elif quantity == "p_dc_kw" and p_dc_kwp:
         lo[:], hi[:] = POWER_MIN_FRACTION * p_dc_kwp, POWER_MAX_FACTOR * p_dc_kwp
-        what, unit = f"DC power (nameplate {p_dc_kwp:g} kWp)", "kW"
+        what, unit = f"DC power ({dc_label} {p_dc_kwp:g} kWp)", "kW"
     elif quantity == "e_ac_kwh":
         lo[:], what, unit = 0.0, "interval energy", "kWh"
         if p_ac_max_kw and interval_h is not None:
@@ -119,7 +121,8 @@ def implausible(values: np.ndarray, quantity: str, *, p_ac_max_kw: float | None 
     elif quantity == "i_dc_a" and p_dc_kwp:
         i_max = POWER_MAX_FACTOR * p_dc_kwp * 1000.0 / I_DC_MIN_V
         lo[:], hi[:] = POWER_MIN_FRACTION * i_max, i_max
-        what, unit = f"DC current ({POWER_MAX_FACTOR:g} x nameplate at {I_DC_MIN_V:g} V)", "A"
+        what, unit = (f"DC current ({POWER_MAX_FACTOR:g} x {dc_label} {p_dc_kwp:g} kWp at "
+                      f"{I_DC_MIN_V:g} V)", "A")
     elif quantity == "rain_mm":
         lo[:], hi[:], what, unit = 0.0, RAIN_MAX_MM, "rainfall", "mm"
     with np.errstate(invalid="ignore"):

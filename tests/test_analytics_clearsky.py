@@ -153,3 +153,45 @@ def test_clear_periods_from_sensors_symmetric_and_excludes_a_faulty_sensor():
     assert on_day.mean() > 0.5 and on_day.equals(only_two[day & (cs >= 200)])
     rev, _ = clear_periods_from_sensors(dict(reversed(list(readings.items()))), refs)
     assert rev.equals(clear)
+
+
+def test_clearsky_daily_pi_mixed_intervals_hand_sum():
+    # issue #11: a day logged at 15 min until 11:00 and at 5 min after. Clear-sky POA 800 W/m²,
+    # P0 = 100 kWp, γ = 0, η = 0.96: expected power 76.8 kW. Measured 0.9 × 76.8 kW over the
+    # four 15-min rows (1 h), 76.8 kW over the six 5-min rows (0.5 h). Hand sum:
+    # PI = (0.9·76.8·1 + 76.8·0.5) / (76.8·1.5) = 1.4 / 1.5 = 0.93333; with the median 5-min
+    # interval for every row it would be (0.9·4 + 6) / 10 = 0.96.
+    t = pd.DatetimeIndex(list(pd.date_range("2021-06-01 10:00", periods=4, freq="15min", tz="UTC"))
+                         + list(pd.date_range("2021-06-01 11:00", periods=6, freq="5min", tz="UTC")))
+    tau_h = np.r_[np.full(4, 0.25), np.full(6, 5 / 60)]
+    p = pd.Series(np.r_[np.full(4, 0.9 * 76.8), np.full(6, 76.8)], t)
+    out = clearsky_daily_pi(p, pd.Series(800.0, t), pd.Series(True, t), p_dc_kwp=100,
+                            gamma_pmp_per_c=0.0, eta_inv_nom=0.96, interval_h=tau_h)
+    assert_allclose(out["pi_clearsky"].iloc[0], 1.4 / 1.5, rtol=1e-12)
+    median = clearsky_daily_pi(p, pd.Series(800.0, t), pd.Series(True, t), p_dc_kwp=100,
+                               gamma_pmp_per_c=0.0, eta_inv_nom=0.96)
+    assert_allclose(median["pi_clearsky"].iloc[0], 0.96, rtol=1e-12)  # the old reading
+
+
+def test_detect_clear_periods_on_each_rows_own_interval():
+    # issue #11: one month of clear-sky GHI (pvlib Ineichen) logged at 15 min for 15 days and
+    # at 5 min after. Tested on each interval's own grid, both halves are clear (Reno & Hansen
+    # 2016 call clear-sky data clear); with one median grid for the month, the 15-min half
+    # becomes a comb of gaps and nothing there is clear. Rows logged hourly lie outside the
+    # 1-30-min range of the Jordan & Hansen (2023) thresholds and are never called clear.
+    loc = pvlib.location.Location(GEOM["latitude_deg"], GEOM["longitude_deg"], "UTC",
+                                  GEOM["altitude_m"])
+    t15 = pd.date_range("2021-06-01", "2021-06-15 23:45", freq="15min", tz="UTC")
+    t5 = pd.date_range("2021-06-16", "2021-06-30 23:55", freq="5min", tz="UTC")
+    t = t15.append(t5)
+    iv = np.r_[np.full(t15.size, 900.0), np.full(t5.size, 300.0)]
+    ghi = pd.Series(loc.get_clearsky(t, model="ineichen")["ghi"].to_numpy(), t)
+    day = (ghi >= 200).to_numpy()
+    own = detect_clear_periods(ghi, ghi, interval_s=iv).to_numpy()
+    first = day & (iv == 900)
+    second = day & (iv == 300)
+    assert own[first].mean() > 0.8 and own[second].mean() > 0.8
+    old = detect_clear_periods(ghi, ghi).to_numpy()
+    assert old[first].mean() < 0.2  # the median-grid reading loses the 15-min half
+    hourly = detect_clear_periods(ghi, ghi, interval_s=np.full(t.size, 3600.0))
+    assert not hourly.any()

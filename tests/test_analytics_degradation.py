@@ -458,3 +458,112 @@ def test_recommended_out_of_range_and_refused():
     assert any(c["kind"] == "out_of_range" for c in r.details["caveats"])
     none = recommend_rate({"sensor_year_pairs": RateResult.refused("sensor_year_pairs", "short")})
     assert none.rate_pct_per_yr is None and "short" in none.reason
+
+
+# ---------------------------------------------------------------- issue #13: reference, onset, years
+
+
+def test_start_reference_recovers_a_linear_loss_of_the_initial_level():
+    # A linear warranty states the loss in % of the initial power per year: P(t) = P0 (1 + R t)
+    # (common practice; the validation generator and the demo define their truth the same way).
+    # Pairwise rates (Jordan et al. 2018) read it as R / (1 + R t), too steep by about R^2 t;
+    # the 'start' reference gives R back.
+    days = _days(4 * 365)
+    t = np.arange(len(days)) / 365.25
+    pi = pd.Series(1 - 0.012 * t, days)
+    pair = degradation_yoy(pi, reference="pairwise", n_resamples=200).rate_pct_per_yr
+    start = degradation_yoy(pi, reference="start", n_resamples=200).rate_pct_per_yr
+    t_mid = (len(days) - 365) / 2 / 365.25          # the median pair starts mid-way
+    assert pair == pytest.approx(-1.2 / (1 - 0.012 * t_mid), abs=2e-3)
+    assert start == pytest.approx(-1.2, abs=2e-3)
+
+
+def test_start_reference_with_a_level_shift_keeps_the_rate():
+    # the step (6 % of the level) cancels in r (1 + R t): pairs across it are dropped and the
+    # rate within the segments is the injected linear rate
+    days = _days(4 * 365)
+    t = np.arange(len(days)) / 365.25
+    step = np.where(days >= pd.Timestamp("2021-09-01"), 0.94, 1.0)
+    pi = pd.Series((1 - 0.009 * t) * step, days)
+    res = degradation_yoy(pi, reference="start", breaks=["2021-09-01"], n_resamples=200)
+    assert res.rate_pct_per_yr == pytest.approx(-0.9, abs=3e-3)
+
+
+def test_drift_onset_finds_a_late_drift_and_its_rate():
+    # a sensor that starts to read 1 %/yr low on 2022-07-01 (the demo's kind of fault), with
+    # day-to-day noise of 1 % (seeded): the onset within six weeks and the rate since then
+    # within 0.25 %/yr (its interval is conditional on the onset, so it is not tested for
+    # coverage here); the whole-period year-pair median reads it at about half
+    from analytics.degradation import drift_onset
+    days = _days(3 * 365, "2021-01-01")
+    t = (days - days[0]).days.to_numpy() / 365.25
+    onset_yr = (pd.Timestamp("2022-07-01") - days[0]).days / 365.25
+    rng = np.random.default_rng(5)
+    q = pd.Series(np.exp(0.01 * np.clip(t - onset_yr, 0, None)
+                         + 0.01 * rng.standard_normal(len(t))), days)
+    out = drift_onset(q)
+    assert out["accepted"]
+    assert abs((pd.Timestamp(out["onset_day"]) - pd.Timestamp("2022-07-01")).days) <= 42
+    assert out["rate_pct_per_yr"] == pytest.approx(1.0, abs=0.25)
+    assert out["ci"][0] < out["rate_pct_per_yr"] < out["ci"][1]
+    whole = yoy_rates(q).median()
+    assert 0.2 < whole < 0.7
+
+
+def test_drift_onset_steady_drift_has_no_onset():
+    # a drift from the first day is not given an onset (Schwarz criterion, penalty 2)
+    from analytics.degradation import drift_onset
+    days = _days(3 * 365, "2021-01-01")
+    t = (days - days[0]).days.to_numpy() / 365.25
+    rng = np.random.default_rng(6)
+    q = pd.Series(np.exp(0.01 * t + 0.01 * rng.standard_normal(len(t))), days)
+    out = drift_onset(q)
+    assert not out["accepted"] and out["onset_day"] is None
+    assert out["rate_pct_per_yr"] == pytest.approx(1.0, abs=0.15)
+
+
+def test_judge_sensor_drift_reports_onset_only_when_checks_agree():
+    from analytics.degradation import judge_sensor_drift
+
+    def chk(rate, lo, hi, onset, k):
+        r = _r("sensor_drift_check", rate, lo, hi)
+        r.details = {"onset_fit": {"onset_day": onset, "rate_pct_per_yr": k},
+                     "first_ratio_day": "2022-01-01"}
+        return r
+    agree = [chk(0.4, 0.1, 0.8, d, k) for d, k in
+             (("2023-05-01", 0.6), ("2023-05-15", 0.7), ("2023-04-20", 0.65))]
+    j = judge_sensor_drift(agree)
+    assert j["judged"] and j["onset_day"] == "2023-05-01"
+    assert j["drift_pct_per_yr"] == 0.65 and j["whole_period_pct_per_yr"] == 0.4
+    scatter = [chk(0.4, 0.1, 0.8, d, 0.6) for d in ("2022-11-01", "2023-06-01", "2024-03-01")]
+    j = judge_sensor_drift(scatter)
+    assert j["judged"] and j["onset_day"] is None and j["drift_pct_per_yr"] == 0.4
+    # an onset in the first 270 days is a drift all along
+    early = [chk(0.4, 0.1, 0.8, "2022-03-01", 0.5)] * 3
+    assert judge_sensor_drift(early)["onset_day"] is None
+
+
+def test_year_component_matches_monte_carlo_spread():
+    # Monte Carlo (400 seeded fleets): every year's level carries an error a_y ~ N(0, 0.1 %)
+    # shared by all its days, on top of 1 % day-to-day noise. The spread of the year-pair
+    # median around the truth must match the bootstrap variance plus year_component's
+    # variance on average (method of moments, one-way random effects, Searle et al. 1992):
+    # the mean ratio of estimated to empirical variance within 0.6 .. 1.6.
+    from analytics.degradation import year_component
+    rng = np.random.default_rng(11)
+    days = _days(4 * 365)
+    t = np.arange(len(days)) / 365.25
+    year = np.arange(len(days)) // 365
+    errs, est = [], []
+    for _ in range(400):
+        a = 0.001 * rng.standard_normal(5)
+        pi = pd.Series((1 - 0.006 * t) * (1 + a[year]) * (1 + 0.01 * rng.standard_normal(len(t))),
+                       days)
+        r = yoy_rates(pi)
+        m = float(np.median(r))
+        v_day = np.pi / 2 * float(np.var(r)) / len(r)     # variance of a median, iid pairs
+        yc = year_component(r, v_day)
+        errs.append(m - (-0.6 / (1 - 0.006 * 1.5)))
+        est.append(v_day + yc["sd_pct_per_yr"] ** 2)
+    ratio = float(np.mean(est)) / float(np.var(errs))
+    assert 0.6 < ratio < 1.6, ratio

@@ -157,3 +157,25 @@ def test_fleet_power_rule_only_rising():
     rising = pd.Series(np.linspace(1.0, 1.05, 800), index=days)
     fl = drift_flags(rising, device_id="poa1", method="fleet_power", sign_rule="rising")
     assert len(fl) == 1 and fl.iloc[0]["details"]["sensor_drift_pct_per_yr"] < -2
+
+
+def test_dropout_counts_each_missing_intervals_own_length():
+    # issue #11: a grid of 15-min rows then 5-min rows, all daytime. Four missing 15-min rows
+    # are 1 h missing (hand sum 4 × 0.25 h) and reach the 1-h minimum; four missing 5-min rows
+    # are 20 min and do not. One median interval (5 min) would count the first gap as 20 min.
+    t15 = pd.date_range("2024-06-01 08:00", periods=16, freq="15min", tz="UTC")
+    t5 = pd.date_range("2024-06-01 12:00", periods=36, freq="5min", tz="UTC")
+    grid = t15.append(t5)
+    tau = np.r_[np.full(16, 900.0), np.full(36, 300.0)]
+    x = pd.Series(500.0, grid)
+    x.iloc[4:8] = np.nan     # 09:00-10:00, 15-min rows
+    x.iloc[30:34] = np.nan   # 13:10-13:30, 5-min rows
+    fl = dropout_flags(x, pd.Series(True, grid), device_id="poa1", quantity="poa_wm2",
+                       tau_s=tau)
+    assert len(fl) == 1
+    f = fl.iloc[0]
+    assert f["details"]["missing_daytime_hours"] == pytest.approx(1.0)
+    assert (f["start_s"], f["end_s"]) == (_ts("2024-06-01 09:00"), _ts("2024-06-01 10:00"))
+    median = dropout_flags(x, pd.Series(True, grid), device_id="poa1", quantity="poa_wm2",
+                           tau_s=300)
+    assert median.empty  # the old reading: 4 × 5 min < 1 h

@@ -38,17 +38,23 @@ PAGES = ["views/weekly.py", "views/trends.py", "views/degradation.py", "views/dr
 TIMEOUT_S = 120  # the machine is shared; a first run also warms the caches
 
 
-@pytest.fixture(scope="module")
-def store(dashboard_store):
+def _serve(built: dict):
+    """The dashboard reads ``built`` (a store fixture's dict) through $HELIAUDIT_DB, restored
+    afterwards; yields the dict with an open ``engine``."""
     old = os.environ.get(ENV_VAR)
-    os.environ[ENV_VAR] = dashboard_store["url"]
-    eng = make_engine(dashboard_store["url"], create=False)
-    yield {**dashboard_store, "engine": eng}
+    os.environ[ENV_VAR] = built["url"]
+    eng = make_engine(built["url"], create=False)
+    yield {**built, "engine": eng}
     eng.dispose()
     if old is None:
         os.environ.pop(ENV_VAR, None)
     else:
         os.environ[ENV_VAR] = old
+
+
+@pytest.fixture(scope="module")
+def store(dashboard_store):
+    yield from _serve(dashboard_store)
 
 
 def _app(page: str | None = None, **query) -> AppTest:
@@ -596,15 +602,7 @@ def test_wall_clock_option_shifts_event_times_by_daylight_saving(store):
 
 @pytest.fixture(scope="module")
 def demo(demo_store):
-    old = os.environ.get(ENV_VAR)
-    os.environ[ENV_VAR] = demo_store["url"]
-    eng = make_engine(demo_store["url"], create=False)
-    yield {**demo_store, "engine": eng}
-    eng.dispose()
-    if old is None:
-        os.environ.pop(ENV_VAR, None)
-    else:
-        os.environ[ENV_VAR] = old
+    yield from _serve(demo_store)
 
 
 @pytest.mark.slow

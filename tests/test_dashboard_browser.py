@@ -106,6 +106,8 @@ def _charts_ready(page, n: int = 1) -> None:
 def _no_error_box(page) -> None:
     assert page.locator('[data-testid="stException"]').count() == 0, \
         page.locator('[data-testid="stException"]').first.inner_text()
+    # Streamlit's dialog for an address that names no page ("Page not found")
+    assert page.get_by_text("Page not found").count() == 0, page.url
 
 
 def _watch_requests(page, outside: list) -> None:
@@ -139,13 +141,13 @@ def test_every_page_at_one_year_and_full_range(server, tmp_path):
             _watch_requests(page, outside)
             for label, (a, b) in ranges.items():
                 for k, (path, title) in enumerate(ALL_PAGES, start=1):
-                    # the weekly check is the default page: its address is the root
-                    where = "" if path == "weekly" else path
-                    page.goto(f"{server['base']}/{where}?site={server['site_id']}"
+                    # every page at its own address, the one the menu and links name
+                    page.goto(f"{server['base']}/{path}?site={server['site_id']}"
                               f"&start={a}&end={b}")
                     page.get_by_role("heading", name=title).wait_for(timeout=WAIT_MS)
                     _charts_ready(page)
                     _no_error_box(page)
+                    assert urllib.parse.urlparse(page.url).path == f"/{path}", page.url
                     page.screenshot(path=str(SHOTS / f"{label}_{k}_{path}.png"), full_page=True)
         finally:
             ctx.close()
@@ -181,6 +183,12 @@ def test_every_page_in_chromium_and_flag_to_drilldown(server, tmp_path):
             page.get_by_role("heading", name="Weekly check").wait_for(timeout=WAIT_MS)
             _charts_ready(page, 2)
             _no_error_box(page)
+            # the root address forwards to the weekly check's own, keeping site and range
+            u = urllib.parse.urlparse(page.url)
+            q = urllib.parse.parse_qs(u.query)
+            assert u.path == "/weekly", page.url
+            assert (q["site"], q["start"], q["end"]) == ([server["site_id"]], [str(start)],
+                                                          [str(end)]), page.url
             page.screenshot(path=str(SHOTS / "1_weekly_check.png"), full_page=True)
 
             for k, (path, title) in enumerate(PAGES, start=2):
@@ -191,8 +199,7 @@ def test_every_page_in_chromium_and_flag_to_drilldown(server, tmp_path):
                 page.screenshot(path=str(SHOTS / f"{k}_{path}.png"), full_page=True)
 
             # back to the weekly check (the window persists), then follow the flag's link
-            page.locator('[data-testid="stSidebarNav"] a[href$="/weekly"], '
-                         '[data-testid="stSidebarNav"] a').first.click()
+            page.locator('[data-testid="stSidebarNav"] a[href$="/weekly"]').click()
             page.get_by_role("heading", name="Weekly check").wait_for(timeout=WAIT_MS)
             link = page.locator(f'a[href*="flag={int(flag["flag_id"])}"]').first
             link.wait_for(timeout=WAIT_MS)

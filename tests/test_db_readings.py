@@ -127,6 +127,10 @@ def test_each_reading_keeps_its_interval(engine):
     np.round(np.linspace(0, 1.2e6, 288), 3),  # a lifetime energy counter [kWh], 1 Wh resolution
     np.linspace(0, 1, 288) ** 0.5,  # full doubles: kept as doubles
     np.array([0.1, 0.2, 0.3, 1e-9, 123456.789, 2.0 ** 40, -0.0] * 41 + [5e-324]),
+    # ingest's unit conversions of logger decimals (W -> kW, °F -> °C, km/h -> m/s)
+    np.round(np.linspace(0, 90_000, 288), 1) * 1e-3,
+    np.round(np.linspace(20, 100, 288), 1) * (5.0 / 9.0) + (-32.0 * 5.0 / 9.0),
+    np.round(np.linspace(0, 50, 288), 1) * (1.0 / 3.6),
 ])
 def test_every_value_comes_back_exactly(engine, values):
     """Nothing is rounded: a reading reads back bit for bit (only -0.0 becomes 0.0)."""
@@ -151,6 +155,11 @@ def test_packed_sizes_by_hand():
     p = daypack.pack(np.ones(288), ts, np.round(np.linspace(0, 400, 288), 2), np.full(288, 300),
                      np.ones(288))
     assert len(p.value_blob[0]) == 2 + 288 * 4  # 400.00 -> 40000 >= 2**15: int32
+    # power logged in W with one decimal, stored in kW (ingest multiplies by 1e-3): kept as
+    # the logger's decimals, 900000.0 -> 9000000 needs int32
+    kw = np.round(np.linspace(0, 90_000, 288), 1) * 1e-3
+    p = daypack.pack(np.ones(288), ts, kw, np.full(288, 300), np.ones(288))
+    assert len(p.value_blob[0]) == 2 + 288 * 4 and p.value_blob[0][0] == daypack.V_I32
     gaps = ts[(ts < 20_000) | (ts > 70_000)]  # a logger silent mid-day: grid mask of 286 bits
     p = daypack.pack(np.ones(gaps.size), gaps, np.zeros(gaps.size), np.zeros(gaps.size),
                      np.ones(gaps.size))

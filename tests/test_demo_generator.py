@@ -95,9 +95,22 @@ def test_clearsky_poa_at_solar_noon_matches_pvlib():
     assert 900 < got["poa_wm2"].iloc[0] < 1150
 
 
-def test_ashrae_iam_check_values():
-    # ASHRAE IAM check values, pvlib.iam.ashrae(b=0.05), pvlib 0.16 run: [1, 0.99226, 0.95, 0.76206]
-    np.testing.assert_allclose(pvlib.iam.ashrae(np.array([0.0, 30.0, 60.0, 80.0]), b=0.05),
+def test_effective_irradiance_ashrae_iam_check_values():
+    # ASHRAE IAM (b0 = 0.05): IAM = 1 − b0 (1/cos θ − 1), hand values at θ = 0, 30, 60, 80°:
+    # 1, 1 − 0.05·0.15470 = 0.99226, 1 − 0.05·1 = 0.95, 1 − 0.05·4.75877 = 0.76206 (the same
+    # values as pvlib.iam.ashrae(b=0.05), pvlib 0.16 run). Beam only on a horizontal plane (no
+    # diffuse: GHI = DNI cos z; albedo 0), so AOI = zenith and the generator's effective / POA
+    # irradiance is the beam IAM itself.
+    z = np.array([0.0, 30.0, 60.0, 80.0])
+    dni = np.full(4, 800.0)
+    sky = pd.DataFrame({"zenith": z, "apparent_zenith": z, "azimuth": np.full(4, 180.0),
+                        "ghi_cs": dni * np.cos(np.radians(z)), "dni_cs": dni,
+                        "dhi_cs": np.zeros(4), "dni_extra": np.full(4, 1367.0)},
+                       index=pd.date_range("2024-06-21 12:00", periods=4, freq="h", tz="UTC"))
+    got = gen.irradiance_from_kc(sky, np.ones(4), 0.0, 180.0, albedo=0.0)
+    np.testing.assert_allclose(got["aoi_deg"], z, atol=1e-9)
+    np.testing.assert_allclose(got["dhi_wm2"], 0.0, atol=1e-9)
+    np.testing.assert_allclose(got["poa_eff_wm2"] / got["poa_wm2"],
                                [1.0, 0.99226, 0.95, 0.76206], atol=1e-5)
 
 

@@ -8,11 +8,9 @@ import os
 import signal
 import subprocess
 import sys
-import textwrap
 import time
 from pathlib import Path
 
-import numpy as np
 import pytest
 import sqlalchemy as sa
 
@@ -20,27 +18,11 @@ from db import schema
 from db.engine import make_engine
 from ingest.config import load_site_config
 from ingest.load import ingest_paths
+from tests.helpers_ingest import KILLABLE_INGEST, write_basic_export
 from tests.helpers_store import stored_readings
 
 DATA = Path(__file__).resolve().parent / "data"
 REPO = Path(__file__).resolve().parents[1]
-
-CHILD = textwrap.dedent("""
-    import sys
-    from db.engine import make_engine
-    from ingest.config import load_site_config
-    from ingest.load import ingest_file
-    eng = make_engine(sys.argv[1])
-    cfg = load_site_config(sys.argv[2])
-    done = [0]
-    def progress(n):
-        done[0] += 1
-        if done[0] == 3:  # three chunks written inside the open transaction
-            print("MIDFILE", flush=True)
-    ingest_file(eng, cfg, cfg.sources[0], sys.argv[3], progress=progress, chunk_rows=5000)
-    print("FINISHED", flush=True)
-""")
-
 
 def counts(engine):
     with engine.connect() as conn:
@@ -60,20 +42,17 @@ def test_sigkill_mid_file_leaves_store_as_before(tmp_path):
     engine.dispose()
     # a file of 60 000 15-min rows (about 1.7 years) x 4 columns, read in chunks of 5000 rows
     n = 60_000
-    t0 = np.datetime64("2024-01-01T00:00")
-    ts = (t0 + np.arange(n) * np.timedelta64(15, "m")).astype(str)
-    vals = np.round(np.random.default_rng(1).uniform(0, 90, size=(n, 4)), 2)
     big = tmp_path / "basic_big.csv"
-    body = "\n".join(f"{t[:16].replace('T', ' ')},{a},{b},{c},{d}" for t, (a, b, c, d) in zip(ts, vals.tolist(), strict=True))
-    big.write_text("Time,INV1_PAC,INV2_PAC,Irr,TMod\n" + body + "\n")
+    write_basic_export(big, "2024-01-01T00:00", n, 1)
     env = dict(os.environ, PYTHONPATH=str(REPO))
-    proc = subprocess.Popen([sys.executable, "-c", CHILD, str(db), str(DATA / "site_basic.toml"), str(big)],
+    proc = subprocess.Popen([sys.executable, "-c", KILLABLE_INGEST, str(db), str(DATA / "site_basic.toml"),
+                             str(big), "-", "5000"],
                             stdout=subprocess.PIPE, text=True, env=env)
     deadline = time.time() + 60
     line = ""
     while time.time() < deadline:
         line = proc.stdout.readline()
-        if line.strip() in ("MIDFILE", "FINISHED") or not line:
+        if line.startswith(("MIDFILE", "FINISHED")) or not line:
             break
     assert line.strip() == "MIDFILE", f"child did not reach the middle of the file: {line!r}"
     assert proc.poll() is None

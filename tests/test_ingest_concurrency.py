@@ -30,6 +30,7 @@ from db.engine import display_url, make_engine, mask_secrets, resolve_url
 from heliaudit.cli import main
 from ingest.config import load_site_config
 from ingest.load import ingest_paths
+from tests.helpers_ingest import KILLABLE_INGEST, write_basic_export
 from tests.helpers_store import stored_readings
 
 DATA = Path(__file__).resolve().parent / "data"
@@ -185,34 +186,6 @@ def test_two_ingests_at_once_on_a_new_postgres_schema(two_months):
         admin.dispose()
 
 
-KILLABLE = textwrap.dedent("""
-    import sys, time
-    from db.engine import make_engine
-    from ingest.config import load_site_config
-    from ingest.load import ingest_file
-    eng = make_engine(sys.argv[1])
-    cfg = load_site_config(sys.argv[2])
-    done = [0]
-    def progress(n):
-        done[0] += 1
-        if done[0] == 3:
-            print("MIDFILE", flush=True)
-            if sys.argv[4] == "slow":
-                time.sleep(60)  # a slow writer: killed here, inside its open transaction
-    res = ingest_file(eng, cfg, cfg.sources[0], sys.argv[3], progress=progress, chunk_rows=2000)
-    print("FINISHED", res.status, flush=True)
-""")
-
-
-def _big(path: Path, start: str, n: int, seed: int) -> None:
-    t0 = np.datetime64(start)
-    ts = (t0 + np.arange(n) * np.timedelta64(15, "m")).astype(str)
-    vals = np.round(np.random.default_rng(seed).uniform(0, 90, size=(n, 4)), 2)
-    path.write_text("Time,INV1_PAC,INV2_PAC,Irr,TMod\n" + "\n".join(
-        f"{t[:16].replace('T', ' ')},{a},{b},{c},{d}" for t, (a, b, c, d)
-        in zip(ts, vals.tolist(), strict=True)) + "\n")
-
-
 @pytest.mark.slow
 def test_sigkill_of_one_of_two_concurrent_writers(tmp_path):
     db = tmp_path / "store.sqlite"
@@ -222,10 +195,11 @@ def test_sigkill_of_one_of_two_concurrent_writers(tmp_path):
     ingest_paths(engine, cfg, [DATA / "basic_2023-06-01.csv"])
     engine.dispose()
     a, b = tmp_path / "basic_a.csv", tmp_path / "basic_b.csv"
-    _big(a, "2024-01-01T00:00", 30_000, 1)
-    _big(b, "2025-01-01T00:00", 8_000, 2)
+    write_basic_export(a, "2024-01-01T00:00", 30_000, 1)
+    write_basic_export(b, "2025-01-01T00:00", 8_000, 2)
     env = dict(os.environ, PYTHONPATH=str(REPO))
-    pa = subprocess.Popen([sys.executable, "-c", KILLABLE, str(db), str(cfg_path), str(a), "slow"],
+    pa = subprocess.Popen([sys.executable, "-c", KILLABLE_INGEST, str(db), str(cfg_path), str(a), "slow",
+                           "2000"],
                           stdout=subprocess.PIPE, text=True, env=env)
     line = ""
     deadline = time.time() + 120
@@ -235,7 +209,8 @@ def test_sigkill_of_one_of_two_concurrent_writers(tmp_path):
             break
     assert line.strip() == "MIDFILE", line
     # the second writer starts while the first holds the store's write lock mid-file
-    pb = subprocess.Popen([sys.executable, "-c", KILLABLE, str(db), str(cfg_path), str(b), "-"],
+    pb = subprocess.Popen([sys.executable, "-c", KILLABLE_INGEST, str(db), str(cfg_path), str(b), "-",
+                           "2000"],
                           stdout=subprocess.PIPE, text=True, env=env)
     time.sleep(2.0)
     assert pb.poll() is None  # waiting for the write lock

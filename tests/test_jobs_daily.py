@@ -53,6 +53,13 @@ def _expected_ac(poa, t_mod, p_dc=100.0, p_ac=95.0, gamma=-0.004, eta=0.96, delt
 @pytest.fixture
 def engine(tmp_path):
     eng = make_store(tmp_path)
+    _fill_site(eng)
+    return eng
+
+
+def _fill_site(eng) -> None:
+    """Site s1: the sensors of ``_sensor_data`` and each inverter of FRACTION at its share of
+    the expected AC power."""
     ts, poa, t_mod = _sensor_data()
     ts_s = ts.as_unit("s").asi8
     p_exp = _expected_ac(poa, t_mod)
@@ -66,7 +73,6 @@ def engine(tmp_path):
             ch = add_inverter(c, "s1", inv, poa_sensor_id="poa1", t_module_sensor_id="tmod1",
                               p_dc_kwp=100.0, p_ac_max_kw=95.0, eta_inv_nom=0.96)
             add_readings(c, ch["p_ac_kw"], ts_s, frac * p_exp)
-    return eng
 
 
 def test_recompute_all_known_answer(engine):
@@ -210,18 +216,7 @@ def test_demo_site_end_to_end(tmp_path):
 def test_same_daily_table_on_postgres(engine, pg_engine):
     # the same store on PostgreSQL gives the same daily rows as on SQLite (raw-cursor reads,
     # Core writes); the SQLite result is the reference
-    ts, poa, t_mod = _sensor_data()
-    ts_s = ts.as_unit("s").asi8
-    with pg_engine.begin() as c:
-        add_site(c, "s1", timezone="Europe/Madrid", latitude_deg=LAT, longitude_deg=LON,
-                 altitude_m=ALT, tilt_deg=TILT, azimuth_deg=AZ,
-                 config_toml="[filters]\nmin_coverage = 0.7\n")
-        add_readings(c, add_sensor(c, "s1", "poa1", "poa_wm2", "reference_cell"), ts_s, poa)
-        add_readings(c, add_sensor(c, "s1", "tmod1", "t_module_c"), ts_s, t_mod)
-        for inv, frac in FRACTION.items():
-            ch = add_inverter(c, "s1", inv, poa_sensor_id="poa1", t_module_sensor_id="tmod1",
-                              p_dc_kwp=100.0, p_ac_max_kw=95.0, eta_inv_nom=0.96)
-            add_readings(c, ch["p_ac_kw"], ts_s, frac * _expected_ac(poa, t_mod))
+    _fill_site(pg_engine)
     jobs_daily.recompute_all(engine, "s1")
     jobs_daily.recompute_all(pg_engine, "s1")
     lite, pg = daily_table(engine, "s1"), daily_table(pg_engine, "s1")

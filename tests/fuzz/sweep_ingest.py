@@ -32,57 +32,31 @@ import traceback
 from collections import Counter
 from pathlib import Path
 
-CONFIG = """format_version = 1
-[site]
-id = "fuzz"
-name = "Fuzz site (invented)"
-timezone = "Europe/Madrid"
-latitude_deg = 40.4
-longitude_deg = -3.7
-tilt_deg = 30
-azimuth_deg = 180
 
-[[sensors]]
-id = "POA1"
-quantity = "poa_wm2"
-instrument = "thermopile_pyranometer"
+def _helpers_config():
+    """tests/helpers_config.py loaded by path (no project imports), so that a baseline run
+    with PYTHONPATH pointing at another checkout still measures that checkout's code."""
+    import importlib.util
 
-[[sensors]]
-id = "TMOD1"
-quantity = "t_module_c"
+    path = Path(__file__).resolve().parents[1] / "helpers_config.py"
+    spec = importlib.util.spec_from_file_location("helpers_config", path)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
 
-[[inverters]]
-id = "INV1"
-p_dc_kwp = 120.0
-p_ac_max_kw = 100.0
-gamma_pmp_per_c = -0.0037
-mounting = "open_rack_glass_polymer"
-poa_sensor = "POA1"
-t_module_sensor = "TMOD1"
-commissioned = 2020-01-01
 
-[[inverters]]
-id = "INV2"
-p_dc_kwp = 120.0
-p_ac_max_kw = 100.0
-gamma_pmp_per_c = -0.0037
-mounting = "open_rack_glass_polymer"
-poa_sensor = "POA1"
-t_module_sensor = "TMOD1"
-commissioned = 2020-01-01
+def config_text(encoding: str, fmt: str, zone: str, label: str) -> str:
+    """The fuzz site (invented): two inverters on one pyranometer and one module sensor."""
+    hc = _helpers_config()
+    return hc.site_toml("fuzz", "Fuzz site (invented)", timezone="Europe/Madrid",
+                        latitude_deg=40.4, longitude_deg=-3.7,
+                        inverters=(("INV1", 120.0, 100.0), ("INV2", 120.0, 100.0))) + \
+        hc.source_toml("scada", "fuzz_*", [
+            ("{inverter}_PAC", None, "p_ac_kw", "kW"), ("{inverter}_E", None, "e_ac_total_kwh", "kWh"),
+            ("Irr", "POA1", "poa_wm2", "W/m2"), ("TMod", "TMOD1", "t_module_c", "C")],
+            encoding=encoding, fmt=fmt, zone=zone, label=label)
 
-[[sources]]
-name = "scada"
-pattern = "fuzz_*"
-encoding = "{encoding}"
-timestamp = {{ column = "Time", format = "{fmt}", zone = "{zone}", label = "{label}" }}
-columns = [
-  {{ header = "{{inverter}}_PAC", quantity = "p_ac_kw", unit = "kW" }},
-  {{ header = "{{inverter}}_E", quantity = "e_ac_total_kwh", unit = "kWh" }},
-  {{ header = "Irr", device = "POA1", quantity = "poa_wm2", unit = "W/m2" }},
-  {{ header = "TMod", device = "TMOD1", quantity = "t_module_c", unit = "C" }},
-]
-"""
+
 HEADER = "Time,INV1_PAC,INV2_PAC,INV1_E,INV2_E,Irr,TMod"
 
 
@@ -228,7 +202,7 @@ def build(rng: random.Random, folder: Path, n: int) -> tuple[Path, Path, dict]:
     fmt = "iso8601" if iso else "%Y-%m-%d %H:%M"
     zone = rng.choice(["UTC", "local", "+01:00"])
     cfg = folder / "fuzz.toml"
-    cfg.write_text(CONFIG.format(encoding=encoding, fmt=fmt, zone=zone, label=label))
+    cfg.write_text(config_text(encoding, fmt, zone, label))
     f = folder / f"fuzz_{n:05d}.csv"
     f.write_bytes(data)
     data_lines = text.count("\n") - 1  # after the header line

@@ -260,16 +260,59 @@ def map_results(doc: dict) -> dict:
 # ---------------------------------------------------------------- one case
 
 
+def redo_degradation(workdir: Path, *, env: dict | None = None) -> dict:
+    """Recompute only the degradation rates of a kept case (its store from an earlier run of
+    the same ingest/daily/flags code), then ``heliaudit results`` and the scorer again: a
+    change to the degradation methods is measured on the same fleets in a fraction of the
+    time. The rates are computed as ``heliaudit compute`` computes them
+    (:func:`heliaudit.jobs_degradation.run_degradation` with its defaults)."""
+    base = Path(workdir)
+    site_json = json.loads((base / "gen" / "site.json").read_text(encoding="utf-8"))
+    site_id = site_json["site"]["id"]
+    db = base / "store.sqlite"
+    log = base / "pipeline.log"
+    t = {}
+    t0 = time.perf_counter()
+    code = ("import sys; from db.engine import make_engine; "
+            "from heliaudit.jobs_degradation import run_degradation; "
+            "run_degradation(make_engine(sys.argv[1]), sys.argv[2])")
+    r = _run([sys.executable, "-c", code, f"sqlite:///{db}", site_id], log=log, env=env)
+    t["degradation"] = time.perf_counter() - t0
+    if r.returncode:
+        return {"ok": False, "error": f"degradation failed; see {log}", "dir": str(base)}
+    heli = _heliaudit() + ["--db", f"sqlite:///{db}"]
+    r = _run(heli + ["results", "--site", site_id, "--out", str(base / "results.json")],
+             log=log, env=env)
+    if r.returncode:
+        return {"ok": False, "error": f"heliaudit results failed; see {log}", "dir": str(base)}
+    doc = json.loads((base / "results.json").read_text(encoding="utf-8"))
+    mapped = map_results(doc)
+    (base / "mapped.json").write_text(json.dumps(mapped, indent=1), encoding="utf-8")
+    r = _run([sys.executable, str(GENERATOR), "--score", str(base / "mapped.json"), "--truth",
+              str(base / "gen" / "truth.json"), "--score-out", str(base / "score.json")],
+             log=base / "score.log")
+    if r.returncode:
+        return {"ok": False, "error": f"scorer failed; see {base / 'score.log'}", "dir": str(base)}
+    t["total"] = time.perf_counter() - t0
+    return {"ok": True, "dir": str(base), "results": doc, "mapped": mapped, "site": site_json,
+            "score": json.loads((base / "score.json").read_text(encoding="utf-8")), "timing_s": t}
+
+
 def run_case(scenario: str, seed: int, sets: list[str] | tuple = (), *, workdir: Path | None = None,
              keep: bool = False, env: dict | None = None, quiet: bool = True,
-             reuse: bool = False) -> dict:
+             reuse: bool = False, redo: bool = False) -> dict:
     """Generate, configure, run the pipeline, score. Returns a dict with ``results`` (the
     heliaudit document), ``mapped``, ``score`` (the scorer's JSON report), ``timing_s``,
     ``dir`` and ``ok``/``error``. ``reuse``: a ``workdir`` that already holds a scored run
-    is read back instead of run again (to re-print a scorecard)."""
+    is read back instead of run again (to re-print a scorecard); ``redo``: its degradation
+    rates are recomputed first (:func:`redo_degradation`)."""
     ok, why = shared_available()
     if not ok:
         return {"ok": False, "error": why, "skipped": True}
+    if redo and workdir is not None and (Path(workdir) / "store.sqlite").is_file():
+        res = redo_degradation(Path(workdir), env=env)
+        res.update({"scenario": scenario, "seed": seed, "sets": list(sets)})
+        return res
     if reuse and workdir is not None and (Path(workdir) / "score.json").is_file():
         base = Path(workdir)
         return {"ok": True, "scenario": scenario, "seed": seed, "sets": list(sets),

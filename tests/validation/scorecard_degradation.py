@@ -75,6 +75,37 @@ SUITES["full"] = SUITES["quick"] + [
     ("messy_format", "messy_format", 208, FEW + ["years=3"], True),
 ]
 
+DRIFT_LATE = ('faults={"sensor_faults": [{"sensor": "POA1", "kind": "drift", "rate_pct_per_yr": '
+              '-1.0, "frac": [0.45, 0.5], "until_end": true}]}')
+D11, D125, D14 = ("array.dc_ac_ratio=[1.08,1.12]", "array.dc_ac_ratio=[1.22,1.28]",
+                  "array.dc_ac_ratio=[1.36,1.42]")
+#: several seeds per variation (issue #13): DC/AC 1.1 / 1.25 / 1.4, three climates, a steady
+#: and a late-starting sensor drift, soiling, a step
+SUITES["seeds"] = [
+    ("clean dcac1.1", "clean", 302, FEW + ["years=3", D11], True),
+    ("clean dcac1.1", "clean", 305, FEW + ["years=4", D11], True),
+    ("clean dcac1.1", "clean", 101, FEW + ["years=3", D11], True),
+    ("clean dcac1.25", "clean", 303, FEW + ["years=4", D125], True),
+    ("clean dcac1.25", "clean", 202, FEW + ["years=3", D125], True),
+    ("clean dcac1.15-1.30", "clean", 201, FEW + ["years=4"], True),
+    ("clean dcac1.4", "clean", 301, FEW + ["years=4", D14], True),
+    ("clean dcac1.4", "clean", 304, FEW + ["years=3", D14], True),
+    ("clean dcac1.4", "clean", 307, FEW + ["years=3", D14], True),
+    ("clean dcac1.4", "clean", 102, FEW + ["years=3", D14], True),
+    ("clean dcac1.4", "clean", 203, FEW + ["years=4", D14], True),
+    ("desert no soiling", "soiling_arid", 306, FEW + ["years=3", "soiling=null"], True),
+    ("desert no soiling", "soiling_arid", 103, FEW + ["years=3", "soiling=null"], True),
+    ("po valley no faults", "faults", 308, FEW + ["years=3", "faults=null"], True),
+    ("po valley no faults", "faults", 204, FEW + ["years=3", "faults=null"], True),
+    ("POA1 drift -1 %/yr", "clean", 311, FEW + ["years=3", DRIFT_1], False),
+    ("POA1 drift -1 %/yr", "clean", 312, FEW + ["years=4", DRIFT_1], False),
+    ("POA1 drift -1 %/yr from mid-record", "clean", 313, FEW + ["years=4", DRIFT_LATE], False),
+    ("POA1 drift -1 %/yr from mid-record", "clean", 314, FEW + ["years=4", DRIFT_LATE], False),
+    ("soiling_arid", "soiling_arid", 315, FEW + ["years=4"], False),
+    ("soiling_arid", "soiling_arid", 316, FEW + ["years=4"], False),
+    ("4 % step", "clean", 317, FEW + ["years=3", STEP_4], False),
+]
+
 DRIFT_WORDS = ("calibration",)  # warnings start with a method code: "sensor_drift_check: ..."
 
 
@@ -126,6 +157,46 @@ def warning_rates(case: dict) -> dict:
     return {"rows": rows}
 
 
+def soiling_and_drift(case: dict) -> dict:
+    """Soiling loss against its interval and a drifting sensor's onset, against the truth."""
+    truth = _truth(case)
+    out = {}
+    losses = [t.get("soiling_energy_loss_pct") for t in truth["inverters"].values()
+              if t.get("soiling_energy_loss_pct") is not None]
+    if losses and max(losses) > 0:
+        true_loss = float(np.mean(losses))
+        for f in case["results"].get("flags", []) or []:
+            det = f.get("details") or {}
+            if f.get("kind") == "soiling" and isinstance(det.get("soiling_ratio_weighted"),
+                                                         (int, float)):
+                est = 100 * (1 - det["soiling_ratio_weighted"])
+                lo = 100 * (1 - det.get("soiling_ratio_weighted_high", det["soiling_ratio_weighted"]))
+                hi = 100 * (1 - det.get("soiling_ratio_weighted_low", det["soiling_ratio_weighted"]))
+                out["soiling"] = {"true_loss_pct": true_loss, "est_loss_pct": est,
+                                  "interval_pct": [lo, hi], "err_pp": est - true_loss,
+                                  "point_in_interval": lo <= est <= hi,
+                                  "truth_in_interval": lo <= true_loss <= hi}
+                break
+    drifts = [f for f in truth.get("sensor_faults", []) if f["kind"] == "drift"]
+    if drifts:
+        d = drifts[0]
+        judged = [b.get("sensor_drift") or {} for b in case["results"].get("inverters", [])]
+        judged = [j for j in judged if j.get("sensor_id") == d["sensor"]]
+        j = judged[0] if judged else {}
+        start = pd.Timestamp(d["start"]).tz_convert(None).normalize()
+        data0 = pd.Timestamp(truth["period"]["start"]).tz_localize(None) if isinstance(
+            truth.get("period"), dict) and truth["period"].get("start") else None
+        onset = j.get("onset_day")
+        out["drift"] = {"sensor": d["sensor"], "true_rate": -float(d["rate_pct_per_yr"]),
+                        "true_start": start.date().isoformat(),
+                        "late": bool(data0 is not None and (start - data0).days > 270),
+                        "judged": bool(j.get("judged")), "rate": j.get("drift_pct_per_yr"),
+                        "whole_period": j.get("whole_period_pct_per_yr"), "onset": onset,
+                        "onset_err_days": None if not onset else
+                        int((pd.Timestamp(onset) - start).days)}
+    return out
+
+
 def _summ(rows: list[dict]) -> dict:
     if not rows:
         return {}
@@ -145,6 +216,9 @@ def main(argv=None) -> int:
     ap.add_argument("--keep", type=Path, default=None, help="keep the case folders here")
     ap.add_argument("--reuse", action="store_true",
                     help="with --keep: read back cases already scored there instead of re-running")
+    ap.add_argument("--redo", action="store_true",
+                    help="with --keep: recompute only the degradation rates of cases kept there "
+                         "(same ingest/daily/flags), run the others in full")
     a = ap.parse_args(argv)
     ok, why = shared_available()
     if not ok:
@@ -152,12 +226,13 @@ def main(argv=None) -> int:
         return 0
     cases = [c for c in SUITES[a.suite] if not a.only or a.only in c[0]]
     per_method: dict[str, dict[str, list]] = {}
-    warn_rows, timing, done = [], [], []
+    warn_rows, timing, done, extras = [], [], [], []
     t_all = time.perf_counter()
     for label, scen, seed, sets, clean in cases:
         wd = a.keep / f"{scen}-{seed}" if a.keep else None
         print(f"-- {label}: {scen} seed {seed} {' '.join(sets)}", flush=True)
-        res = run_case(scen, seed, sets, workdir=wd, keep=a.keep is not None, reuse=a.reuse)
+        res = run_case(scen, seed, sets, workdir=wd, keep=a.keep is not None, reuse=a.reuse,
+                       redo=a.redo)
         if not res["ok"]:
             print("   FAILED:", res["error"])
             continue
@@ -167,7 +242,7 @@ def main(argv=None) -> int:
                        or "read back from an earlier run"), flush=True)
         for m, blk in res["score"].get("degradation", {}).items():
             for r in blk["per_inverter"]:
-                r = dict(r, case=label, clean_fleet=clean)
+                r = dict(r, case=label, seed=seed, clean_fleet=clean)
                 per_method.setdefault(m, {"clean": [], "all": [], "unconfounded": []})
                 per_method[m]["all"].append(r)
                 if clean:
@@ -176,6 +251,9 @@ def main(argv=None) -> int:
                     per_method[m]["unconfounded"].append(r)
         for r in warning_rates(res)["rows"]:
             warn_rows.append(dict(r, case=label, clean_fleet=clean))
+        extra = soiling_and_drift(res)
+        if extra:
+            extras.append(dict(extra, case=label, seed=seed))
     print(f"\nDegradation scorecard, suite '{a.suite}': {len(done)} cases, "
           f"{time.perf_counter() - t_all:.0f} s. Errors in %/yr (estimate - truth).")
     print("(peer_ratio_year_pairs / peer_relative is a rate relative to the fleet, not an absolute "
@@ -229,9 +307,46 @@ def main(argv=None) -> int:
             print(f"  injected steps found within 7 days: {100 * wfig['steps_found_7d']:.0f}%, "
                   f"sized within 1 pp: {100 * wfig['steps_sized_1pp']:.0f}% of {wfig['steps_n']}")
         print(f"  caveats that do not name their method: {wfig['caveats_without_method']}")
+    rec = per_method.get("recommended", {}).get("all", [])
+    per_case = []
+    if rec:
+        print("\nRecommended rate per case: mean error, median |error| (%/yr), 95 % / 68 % coverage")
+        ci68 = {(r["case"], r["seed"], r["inverter"]): r["in_ci"]
+                for r in per_method.get("recommended_ci68", {}).get("all", [])}
+        groups: dict[tuple, list] = {}
+        for r in rec:
+            groups.setdefault((r["case"], r["seed"]), []).append(r)
+        for (label, seed), rows in groups.items():
+            err = np.array([r["err"] for r in rows])
+            c95 = float(np.mean([bool(r["in_ci"]) for r in rows]))
+            c68 = float(np.mean([bool(ci68.get((label, seed, r["inverter"]))) for r in rows]))
+            per_case.append({"case": label, "seed": seed, "n": len(rows),
+                             "mean_err": float(err.mean()),
+                             "median_abs_err": float(np.median(np.abs(err))),
+                             "cover95": c95, "cover68": c68})
+            print(f"  {label:<38} seed {seed:>4}: {err.mean():+.3f} {np.median(np.abs(err)):.3f} "
+                  f"{100 * c95:4.0f}% {100 * c68:4.0f}%  (n={len(rows)})")
+    if extras:
+        print("\nSoiling loss and sensor-drift onset:")
+        for e in extras:
+            if "soiling" in e:
+                so = e["soiling"]
+                print(f"  {e['case']} (seed {e['seed']}): soiling loss {so['est_loss_pct']:.2f} % "
+                      f"[{so['interval_pct'][0]:.2f}, {so['interval_pct'][1]:.2f}] vs true "
+                      f"{so['true_loss_pct']:.2f} % (error {so['err_pp']:+.2f} pp; point in its "
+                      f"interval: {so['point_in_interval']}, truth in it: {so['truth_in_interval']})")
+            if "drift" in e:
+                d = e["drift"]
+                rate = "-" if d["rate"] is None else f"{d['rate']:+.2f}"
+                whole = "-" if d["whole_period"] is None else f"{d['whole_period']:+.2f}"
+                print(f"  {e['case']} (seed {e['seed']}): {d['sensor']} drift {d['true_rate']:+.2f} "
+                      f"%/yr from {d['true_start']}: judged {d['judged']}, rate {rate} (whole "
+                      f"period {whole}), onset {d['onset']} ({d['onset_err_days']} days off)")
     if a.json:
         a.json.write_text(json.dumps({"suite": a.suite, "cases": done, "degradation": figures,
-                                      "warnings": wfig, "timing_s": timing}, indent=1))
+                                      "warnings": wfig, "timing_s": timing,
+                                      "recommended_per_case": per_case, "soiling_drift": extras},
+                                     indent=1, default=str))
     return 0
 
 
