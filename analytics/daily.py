@@ -58,8 +58,8 @@ from analytics import filters as flt
 from analytics.availability import unavailable_mask
 from analytics.power import expected_ac_power
 from analytics.temperature import (
+    cell_temperature_best_available,
     cell_temperature_faiman,
-    cell_temperature_from_module,
     module_temperature_sandia,
     sapm_parameters,
 )
@@ -283,11 +283,11 @@ def daily_performance_many(frames: list[pd.DataFrame], inverters: list, *,
     # module temperature: measured, else modelled from ambient (Sandia Eq. 11, or Faiman)
     gpos = np.where(g < 0, 0.0, g)
     t_mod_sandia = module_temperature_sandia(gpos, t_amb, wind, a=a_s, b=b_s)
-    t_faiman = cell_temperature_faiman(gpos, t_amb, 1.0)
     t_mod = np.where(np.isfinite(t_mod_meas), t_mod_meas,
-                     np.where(np.isfinite(t_mod_sandia), t_mod_sandia, t_faiman))
-    t_cell = np.where(np.isfinite(t_mod_meas) | np.isfinite(t_mod_sandia),
-                      cell_temperature_from_module(t_mod, gpos, dt_s), t_faiman)
+                     np.where(np.isfinite(t_mod_sandia), t_mod_sandia,
+                              cell_temperature_faiman(gpos, t_amb, 1.0)))
+    t_cell = cell_temperature_best_available(gpos, t_mod_meas, t_amb, wind, a=a_s, b=b_s,
+                                             delta_t_c=dt_s)
     # day index
     day_no = local_standard_day_number(ts_s, utc_offset_h)
     key = inv_no * (1 << 32) + (day_no - day_no.min())

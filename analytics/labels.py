@@ -69,6 +69,36 @@ INSTRUMENT_LABELS = {
 
 CHANGE_POINT_LABELS = {"drop": "drop", "rise": "rise", "recovery": "recovery"}
 
+#: Where an inverter's irradiance and cell temperature come from: the codes of the daily
+#: table's ``irradiance_basis`` and ``t_cell_basis`` (issue #11). An inverter with arrays fed
+#: from different sources joins their codes with "+". Decomposition and transposition models
+#: are those of pvlib: DIRINT (Perez et al. 1992), GTI-DIRINT (Marion 2015), the Perez et al.
+#: (1990) sky model; cell temperature models of King et al. (2004, Sandia) and Faiman (2008).
+SOURCE_LABELS = {
+    "poa_same_plane": "measured POA in the array plane",
+    "ghi_transposed": "GHI decomposed with DIRINT (Perez et al. 1992), transposed with "
+                      "Perez et al. (1990) (pvlib)",
+    "poa_other_plane_transposed": "POA of another plane inverted to GHI/DNI/DHI with "
+                                  "GTI-DIRINT (Marion 2015), transposed with Perez et al. "
+                                  "(1990) (pvlib)",
+    "module_sensor": "from a back-of-module sensor",
+    "modelled_sandia_king2004": "modelled from ambient temperature, irradiance and wind "
+                                "(Sandia model, King et al. 2004)",
+    "modelled_faiman2008": "modelled from ambient temperature, irradiance and wind "
+                           "(Faiman 2008)",
+}
+#: The same in a few words, for table cells.
+SOURCE_SHORT_LABELS = {
+    "poa_same_plane": "POA sensor, same plane",
+    "ghi_transposed": "GHI, transposed",
+    "poa_other_plane_transposed": "POA of another plane, transposed",
+    "module_sensor": "module sensor",
+    "modelled_sandia_king2004": "modelled (Sandia)",
+    "modelled_faiman2008": "modelled (Faiman)",
+}
+#: The measured cases: a POA sensor in the array's own plane, a back-of-module sensor.
+MEASURED_SOURCES = ("poa_same_plane", "module_sensor")
+
 
 def method_code(code: str | None) -> str | None:
     """The current code of a method (an old code is mapped to its new name)."""
@@ -116,3 +146,17 @@ def kind_label(code) -> str:
 
 def instrument_label(code) -> str:
     return label(code if code else "unknown", INSTRUMENT_LABELS)
+
+
+def source_label(code, short: bool = False) -> str:
+    """Words for an irradiance or cell-temperature source code (codes joined by "+" give
+    their words joined by " + "); "–" when unknown (rows computed before sources were
+    recorded).
+
+    >>> source_label("poa_same_plane+ghi_transposed", short=True)
+    'POA sensor, same plane + GHI, transposed'
+    """
+    if code is None or (isinstance(code, float) and code != code) or code == "":
+        return "–"
+    table = SOURCE_SHORT_LABELS if short else SOURCE_LABELS
+    return " + ".join(label(c, table) for c in str(code).split("+"))

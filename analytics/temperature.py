@@ -182,3 +182,30 @@ def cell_temperature_faiman(poa_wm2, t_amb_c, wind_ms=1.0, u0: float = 25.0, u1:
     """
     t = _arr(t_amb_c) + _poa(poa_wm2) / (u0 + u1 * _arr(wind_ms))
     return _restore_type(t, poa_wm2, t_amb_c, wind_ms)
+
+
+def cell_temperature_best_available(poa_wm2, t_module_c, t_amb_c, wind_ms, a: float = -3.56,
+                                    b: float = -0.0750, delta_t_c: float = 3.0) -> np.ndarray:
+    """Cell temperature from the best input each interval has (issue #11).
+
+    1. a back-of-module reading: King et al. 2004, Eq. 12;
+    2. else ambient temperature and wind: module temperature by King et al. 2004, Eq. 11,
+       then Eq. 12;
+    3. else ambient temperature alone: Faiman (2008) at an assumed 1 m/s wind.
+    NaN where none of these exists. Negative irradiance counts as 0. Arrays of one length
+    (the coefficients may be per row). [°C]
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = cell_temperature_best_available([1000.0] * 3, [50.0, np.nan, np.nan],
+    ...                                     [25.0, 25.0, 25.0], [1.0, 1.0, np.nan])
+    >>> [round(float(x), 3) for x in t]  # Eq. 12; Eq. 11 + 12 (51.384 + 3); Faiman at 1 m/s
+    [53.0, 54.384, 56.407]
+    """
+    g = np.maximum(_arr(poa_wm2), 0.0)
+    t_meas = _arr(t_module_c)
+    t_sandia = module_temperature_sandia(g, _arr(t_amb_c), _arr(wind_ms), a=a, b=b)
+    t_mod = np.where(np.isfinite(t_meas), t_meas, t_sandia)
+    return np.where(np.isfinite(t_mod), cell_temperature_from_module(t_mod, g, delta_t_c),
+                    cell_temperature_faiman(g, _arr(t_amb_c), 1.0))

@@ -32,7 +32,14 @@ from analytics.degradation import (
     usable_daily_pi,
     yoy_rates,
 )
-from analytics.labels import SEVERITY_LABELS, SEVERITY_ORDER, kind_label, method_code
+from analytics.labels import (
+    MEASURED_SOURCES,
+    SEVERITY_LABELS,
+    SEVERITY_ORDER,
+    kind_label,
+    method_code,
+    source_label,
+)
 from analytics.performance_ratio import period_sums as monthly_sums
 from analytics.power import expected_ac_power
 from analytics.reporting import (
@@ -41,12 +48,12 @@ from analytics.reporting import (
     recommended_rate,
     shortfall_from_rate,
 )
-from analytics.temperature import cell_temperature_from_module, sapm_parameters
+from analytics.temperature import cell_temperature_best_available, sapm_parameters
 from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
 from analytics.weekly import period_kpis, week_share_of_lost_energy, weekly_comparison
 from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log
-from db import queries
+from db import queries, registry
 from db import timeseries as db_timeseries
 from db.engine import ENV_VAR, display_url, make_engine, resolve_url
 
@@ -276,6 +283,50 @@ def fleet_week(url: str, site_id: str, end: dt.date) -> pd.DataFrame:
     out["worst_severity"] = np.where(out["n_alarms"] > 0, "alarm",
                                      np.where(out["n_warnings"] > 0, "warning", "none"))
     return out
+
+
+@_cache
+def sources(url: str, site_id: str, start: dt.date | None, end: dt.date | None) -> pd.DataFrame:
+    """Per inverter, where its PR's irradiance and cell temperature came from over
+    ``[start, end]`` (issue #11): the most frequent code of the daily table's
+    ``irradiance_basis`` and ``t_cell_basis``, with its words and a flag for a modelled
+    source. Columns ``device_id, irradiance_basis, t_cell_basis, irradiance, t_cell,
+    irradiance_long, t_cell_long, modelled``; an inverter with no row is absent."""
+    d = queries.daily_rows(engine(url), site_id, start, end,
+                           columns=("irradiance_basis", "t_cell_basis"))
+    rows = []
+    for dev, g in d.groupby("device_id", sort=True):
+        mode = {c: (g[c].dropna().mode().iloc[0] if g[c].notna().any() else None)
+                for c in ("irradiance_basis", "t_cell_basis")}
+        rows.append({"device_id": dev, **mode})
+    out = pd.DataFrame(rows, columns=["device_id", "irradiance_basis", "t_cell_basis"])
+    for col, short in (("irradiance_basis", "irradiance"), ("t_cell_basis", "t_cell")):
+        out[short] = [source_label(c, short=True) for c in out[col]]
+        out[f"{short}_long"] = [source_label(c) for c in out[col]]
+    out["modelled"] = [not (_measured(a) and _measured(b))
+                       for a, b in zip(out["irradiance_basis"], out["t_cell_basis"],
+                                       strict=True)]
+    return out
+
+
+def _measured(code) -> bool:
+    """True for a measured source (or an unknown one: no claim is made about it)."""
+    return code is None or all(c in MEASURED_SOURCES for c in str(code).split("+"))
+
+
+def sources_caption(src: pd.DataFrame) -> str | None:
+    """One sentence per source that is not measured in the array's plane, naming the
+    inverters it feeds; None when every source is measured."""
+    parts = []
+    for col, what in (("irradiance_basis", "irradiance"), ("t_cell_basis", "cell temperature")):
+        for code, g in src.dropna(subset=[col]).groupby(col, sort=True):
+            if _measured(code):
+                continue
+            parts.append(f"{', '.join(g['device_id'])}: {what} {source_label(code)}.")
+    if not parts:
+        return None
+    return ("Not measured in the array's plane (a transposed PR carries a seasonal error of "
+            "a few per cent; compare like with like): " + " ".join(parts))
 
 
 @_cache
@@ -703,6 +754,10 @@ def soiling_summary(url: str, site_id: str) -> dict | None:
     return {"loss_pct": None if sr is None else 100 * (1 - sr),
             "loss_low_pct": None if hi is None else 100 * (1 - hi),
             "loss_high_pct": None if lo is None else 100 * (1 - lo),
+            "loss_partial_recovery_pct": (
+                None if not isinstance(last.get("soiling_ratio_weighted_partial_recovery"),
+                                       (int, float))
+                else 100 * (1 - last["soiling_ratio_weighted_partial_recovery"])),
             "mc_assumption": next((v for k, v in last.items() if str(k).endswith("assumption")),
                                   None),
             "period": period, "current_loss_pct": last.get("current_loss_pct"),
@@ -900,23 +955,42 @@ def drilldown_frame(url: str, site_id: str, inverter_id: str, start_s: int,
     """Interval data of one inverter and its sensors in ``[start_s, end_s)``.
 
     :func:`db.timeseries.inverter_frame` (index ``ts_utc``; ``p_ac_kw, e_ac_kwh, poa_wm2,
-    t_module_c, t_amb_c, wind_ms, interval_h``) plus ``t_cell_c`` (King et al. 2004 Eq. 12
-    from back-of-module temperature with the ΔT of the inverter's mounting),
+    t_module_c, t_amb_c, wind_ms, interval_h``) with ``poa_wm2`` the inverter's own array
+    irradiance (:func:`_array_irradiance`), plus ``t_cell_c`` (King et al. 2004 Eq. 12 from
+    back-of-module temperature with the ΔT of the inverter's mounting; without a module sensor
+    from ambient temperature and wind, :func:`analytics.temperature.cell_temperature_best_available`),
     ``p_ac_exp_kw`` (expected AC power, PVWatts, Dobos 2014) and ``p_ac_kw_per_kwp``
     (normalised power). Where a logger gives only energy, ``p_ac_kw`` = e_ac_kwh / interval_h.
     """
     inv = inverter_list(url, site_id).set_index("device_id").loc[inverter_id]
-    frame = db_timeseries.inverter_frame(engine(url), site_id, inverter_id, int(start_s),
-                                         int(end_s))
-    return _with_model(frame, inv)
+    eng = engine(url)
+    frame = db_timeseries.inverter_frame(eng, site_id, inverter_id, int(start_s), int(end_s))
+    return _with_model(_array_irradiance(eng, site_id, inverter_id, frame, start_s, end_s), inv)
+
+
+def _array_irradiance(eng, site_id: str, inverter_id: str, frame: pd.DataFrame, start_s: int,
+                      end_s: int) -> pd.DataFrame:
+    """The frame with ``poa_wm2`` = the inverter's own array irradiance, as the daily job
+    computes it (transposed from another plane or from GHI, capacity-weighted over several
+    arrays, trackers turned; :class:`heliaudit.site_irradiance.SiteIrradiance`), so the
+    drill-down's expected power is the one its PR uses. Unchanged for an inverter with a POA
+    sensor in its own plane."""
+    from heliaudit.site_irradiance import SiteIrradiance  # the daily job's own model
+
+    site = registry.site_row(eng, site_id)
+    irr = SiteIrradiance(eng, site, int(start_s), int(end_s))
+    if frame.empty or not irr.needs_model(inverter_id):
+        return frame
+    return irr.apply(inverter_id, frame)[0]
 
 
 def _with_model(frame: pd.DataFrame, inv: pd.Series) -> pd.DataFrame:
     frame = frame.copy()
     frame["p_ac_kw"] = frame["p_ac_kw"].fillna(frame["e_ac_kwh"] / frame["interval_h"])
-    dt_c = sapm_parameters(inv["mounting"])["delta_t_c"]
-    frame["t_cell_c"] = cell_temperature_from_module(frame["t_module_c"], frame["poa_wm2"],
-                                                     delta_t_c=dt_c)
+    sap = sapm_parameters(inv["mounting"])
+    frame["t_cell_c"] = cell_temperature_best_available(
+        frame["poa_wm2"], frame["t_module_c"], frame["t_amb_c"], frame["wind_ms"],
+        a=sap["a"], b=sap["b"], delta_t_c=sap["delta_t_c"])
     frame["p_ac_exp_kw"] = expected_ac_power(frame["poa_wm2"], frame["t_cell_c"],
                                              float(inv["p_dc_kwp"]),
                                              float(inv["gamma_pmp_per_c"]),

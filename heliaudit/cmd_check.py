@@ -125,24 +125,18 @@ def print_check(engine: sa.Engine, site_id: str, week_end: dt.date | None = None
 def _print_sources(engine, site_id, w0, end, echo) -> None:
     """Where each PR's irradiance and cell temperature came from this week (#11), where it
     is not the plain case (a POA sensor in the array's plane, a back-of-module sensor)."""
-    from ingest.site_model import BASIS_METHODS
+    from analytics.labels import MEASURED_SOURCES, source_label
 
-    words = {**BASIS_METHODS,
-             "modelled_sandia_king2004": "modelled from ambient temperature, irradiance and "
-                                         "wind (Sandia model, King et al. 2004)",
-             "modelled_faiman2008": "modelled from ambient temperature, irradiance and wind "
-                                    "(Faiman 2008)",
-             "module_sensor": "from a back-of-module sensor"}
     d = queries.daily_rows(engine, site_id, w0, end,
                            columns=("irradiance_basis", "t_cell_basis"))
     lines = []
-    for col, plain in (("irradiance_basis", "poa_same_plane"), ("t_cell_basis", "module_sensor")):
+    for col in ("irradiance_basis", "t_cell_basis"):
         if col not in d:
             continue
         for code, g in d.dropna(subset=[col]).groupby(col, sort=True):
-            if code == plain:
+            if code in MEASURED_SOURCES:
                 continue
-            what = " + ".join(words.get(c, c.replace("_", " ")) for c in code.split("+"))
+            what = source_label(code)
             devs = ", ".join(sorted(g["device_id"].unique()))
             lines.append(f"  {devs}: {'irradiance' if col == 'irradiance_basis' else 'cell temperature'}"
                          f" {what}")

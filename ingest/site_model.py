@@ -26,17 +26,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from analytics.labels import SOURCE_LABELS
+
 #: Irradiance source codes, best first (stored per inverter and day as ``irradiance_basis``).
 IRRADIANCE_BASES = ("poa_same_plane", "ghi_transposed", "poa_other_plane_transposed")
 #: The published models behind each code, for results and the computation record.
-BASIS_METHODS = {
-    "poa_same_plane": "measured POA in the array plane",
-    "ghi_transposed": "GHI decomposed with DIRINT (Perez et al. 1992), transposed with "
-                      "Perez et al. (1990) (pvlib)",
-    "poa_other_plane_transposed": "POA of another plane inverted to GHI/DNI/DHI with "
-                                  "GTI-DIRINT (Marion 2015), transposed with Perez et al. "
-                                  "(1990) (pvlib)",
-}
+BASIS_METHODS = {k: SOURCE_LABELS[k]
+                 for k in ("poa_same_plane", "ghi_transposed", "poa_other_plane_transposed")}
 PLANE_KINDS = ("fixed", "single_axis")
 #: Two fixed planes within this tilt / azimuth difference count as the same plane. [°]
 SAME_PLANE_TOL_DEG = 1.0

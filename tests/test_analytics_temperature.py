@@ -96,3 +96,27 @@ def test_negative_irradiance_treated_as_zero():
 def test_unknown_mounting():
     with pytest.raises(ValueError, match="unknown mounting 'roof'"):
         t.sapm_parameters("roof")
+
+
+def test_best_available_cell_temperature_against_pvlib():
+    # each branch against pvlib's implementation of the published model on the same inputs:
+    # module sensor -> King et al. 2004 Eq. 12 (pvlib.temperature.sapm_cell_from_module);
+    # ambient + wind -> Eq. 11 then Eq. 12 (pvlib.temperature.sapm_cell);
+    # ambient only -> Faiman 2008 at 1 m/s (pvlib.temperature.faiman).
+    import pvlib
+
+    from analytics.temperature import cell_temperature_best_available
+
+    g = np.array([850.0, 850.0, 850.0, -5.0])
+    t_mod = np.array([48.0, np.nan, np.nan, np.nan])
+    t_amb = np.array([22.0, 22.0, 22.0, 5.0])
+    wind = np.array([2.0, 2.0, np.nan, np.nan])
+    a, b, dt_c = -3.47, -0.0594, 3.0  # open rack glass/glass (King et al. 2004, Table 1)
+    got = cell_temperature_best_available(g, t_mod, t_amb, wind, a=a, b=b, delta_t_c=dt_c)
+    want = [
+        pvlib.temperature.sapm_cell_from_module(48.0, 850.0, dt_c),
+        pvlib.temperature.sapm_cell(850.0, 22.0, 2.0, a, b, dt_c),
+        pvlib.temperature.faiman(850.0, 22.0, 1.0),
+        pvlib.temperature.faiman(0.0, 5.0, 1.0),  # negative irradiance counts as 0
+    ]
+    np.testing.assert_allclose(got, want, rtol=1e-9)

@@ -142,9 +142,15 @@ st.plotly_chart(charts.drilldown(frame, peers, flags, inverter, off, highlight,
                 theme=None,
                 key="drill_chart", config={"scrollZoom": True, "displaylogo": False})
 n_peers = peers["device_id"].nunique() if not peers.empty else 0
-st.caption(f"Expected power: PVWatts DC model (Dobos 2014) from POA irradiance and Sandia cell "
-           f"temperature (King et al. 2004, from the back-of-module sensor), inverter efficiency "
-           f"and AC limit. Grey: {n_peers} peers of the same peer group, AC power per kWp. "
+src = data.sources(url, site_id, start, start + dt.timedelta(days=days))
+mine = src[src["device_id"] == inverter]
+g_words, t_words = ((mine["irradiance_long"].iloc[0], mine["t_cell_long"].iloc[0])
+                    if len(mine) else ("measured POA in the array plane",
+                                       "from a back-of-module sensor"))
+st.caption(f"Expected power: PVWatts DC model (Dobos 2014) from the array's irradiance "
+           f"({g_words}) and the cell temperature ({t_words}; King et al. 2004 Eq. 12 from a "
+           f"module temperature), inverter efficiency and AC limit: the model the inverter's "
+           f"PR uses. Grey: {n_peers} peers of the same peer group, AC power per kWp. "
            "Shaded: this inverter's warnings and alarms (the chosen flag darker); info and site-wide "
            "events are listed below. Drag to zoom, double-click to reset.")
 if not flags.empty:

@@ -67,6 +67,10 @@ st.caption(f"Dots: daily PR_STC on valid days; lines: centred {data.ROLLING_DAYS
            "the stored degradation rate drawn through the inverter's first-year median PR_STC, "
            "with the rate's confidence interval as the band.")
 
+if (note := data.sources_caption(data.sources(url, site_id, lo, hi).loc[
+        lambda f: f["device_id"].isin(chosen_ids)])):
+    st.caption(note)
+
 if fits:
     r = pd.concat([results[(results["device_id"] == d) & (results["method"] == m)]
                    for d, m in used.items()]).copy()

@@ -124,7 +124,9 @@ table = fleet.sort_values("d_peers_pct", na_position="last").assign(
     instrument=lambda f: [instrument_label(x) for x in f["instrument"]],
     status=lambda f: f["worst_severity"].map({"alarm": "alarm", "warning": "warning",
                                               "none": ""}))
-table = table[["device_id", "status", "instrument", "e_ac_kwh", "yf_h", "pr_stc",
+src = data.sources(url, site_id, w0, w1)
+table = table.merge(src[["device_id", "irradiance", "t_cell"]], on="device_id", how="left")
+table = table[["device_id", "status", "instrument", "irradiance", "t_cell", "e_ac_kwh", "yf_h", "pr_stc",
                "d_trailing_pct", "d_peers_pct", "avail_energy", "lost_week_kwh"]]
 st.dataframe(ui.clean_frame(table, {"d_trailing_pct": "+.1f", "d_peers_pct": "+.1f",
                                     "pr_stc": ".3f", "yf_h": ".2f", "avail_energy": ".1%"}),
@@ -133,6 +135,14 @@ st.dataframe(ui.clean_frame(table, {"d_trailing_pct": "+.1f", "d_peers_pct": "+.
     "status": st.column_config.TextColumn("Flag", width="small",
                                           help="Most severe warning or alarm of the week."),
     "instrument": st.column_config.TextColumn("POA sensor", width="medium"),
+    "irradiance": st.column_config.TextColumn(
+        "Irradiance", width="medium",
+        help="Where the PR's irradiance came from this week: a POA sensor in the array's own "
+             "plane, or a sensor transposed to it (models named below the table)."),
+    "t_cell": st.column_config.TextColumn(
+        "Cell temperature", width="small",
+        help="A back-of-module sensor, or modelled from ambient temperature, irradiance and "
+             "wind where the inverter has none."),
     "e_ac_kwh": st.column_config.NumberColumn("Energy [kWh]", format="localized",
                                               width="small"),
     "yf_h": st.column_config.NumberColumn("Yield [h]", format="%.2f", width="small",
@@ -150,6 +160,9 @@ st.dataframe(ui.clean_frame(table, {"d_trailing_pct": "+.1f", "d_peers_pct": "+.
                                                    width="small",
                                                    help="The week's share of the lost energy "
                                                         "of the inverter's flags.")})
+
+if (note := data.sources_caption(src)):
+    st.caption(note)
 
 left, right = st.columns([2, 3])
 left.plotly_chart(charts.fleet_quadrant(fleet), theme=None, key="quadrant")
