@@ -754,6 +754,10 @@ def soiling_summary(url: str, site_id: str) -> dict | None:
     return {"loss_pct": None if sr is None else 100 * (1 - sr),
             "loss_low_pct": None if hi is None else 100 * (1 - hi),
             "loss_high_pct": None if lo is None else 100 * (1 - lo),
+            "loss_partial_recovery_pct": (
+                None if not isinstance(last.get("soiling_ratio_weighted_partial_recovery"),
+                                       (int, float))
+                else 100 * (1 - last["soiling_ratio_weighted_partial_recovery"])),
             "mc_assumption": next((v for k, v in last.items() if str(k).endswith("assumption")),
                                   None),
             "period": period, "current_loss_pct": last.get("current_loss_pct"),

@@ -26,10 +26,31 @@ def begin_computation(conn: sa.Connection, site_id: str, kind: str, params: dict
         params_json=to_json(params), started_utc=now_utc(), scope=scope)).inserted_primary_key[0]
 
 
-def finish_computation(conn: sa.Connection, computation_id: int) -> None:
-    """Mark a computation finished (in the transaction that stores its results)."""
+def finish_computation(conn: sa.Connection, computation_id: int, *,
+                       params: dict | None = None) -> None:
+    """Mark a computation finished (in the transaction that stores its results); ``params``
+    replaces the recorded parameters (e.g. with what the run found, for the next run)."""
+    values = {"finished_utc": now_utc()}
+    if params is not None:
+        values["params_json"] = to_json(params)
     conn.execute(schema.computation.update().where(
-        schema.computation.c.computation_id == computation_id).values(finished_utc=now_utc()))
+        schema.computation.c.computation_id == computation_id).values(**values))
+
+
+def latest_batch_id(conn: sa.Connection, site_id: str) -> int | None:
+    """The newest ingest batch of the site (what a computation starting now sees)."""
+    b = schema.ingest_batch.c
+    return conn.execute(sa.select(sa.func.max(b.batch_id)).where(b.site_id == site_id)).scalar()
+
+
+def batches_after(engine: sa.Engine, site_id: str, batch_id: int) -> list[tuple[int, int]]:
+    """``(ts_first_s, ts_last_s)`` of the site's loaded batches with an id above ``batch_id``."""
+    b = schema.ingest_batch.c
+    with engine.connect() as conn:
+        rows = conn.execute(sa.select(b.ts_first_s, b.ts_last_s).where(
+            b.site_id == site_id, b.status == "loaded", b.batch_id > int(batch_id),
+            b.ts_first_s.is_not(None))).all()
+    return [(int(r[0]), int(r[1])) for r in rows]
 
 
 def latest_finished(engine: sa.Engine, site_id: str) -> dict[str, int]:

@@ -108,20 +108,24 @@ def write_daily(engine_or_conn: sa.Engine | sa.Connection, site_id: str, rows: p
 
 
 def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None,
-                start: dt.date | None = None, end: dt.date | None = None) -> pd.DataFrame:
+                start: dt.date | None = None, end: dt.date | None = None, *,
+                with_text: bool = True) -> pd.DataFrame:
     """Daily rows of a site's inverters, days ``[start, end]`` inclusive, by device and day.
 
     Columns: ``device_id, day`` (``datetime.date``), every value column of
-    ``daily_inverter`` (``day_valid`` as bool) and ``computation_id``.
+    ``daily_inverter`` (``day_valid`` as bool) and ``computation_id``. With ``with_text``
+    False the text columns (details, bases) are not read and hold None (a third of the time
+    of reading a long history; issue #16).
     """
     if isinstance(engine, sa.Engine):
         with engine.connect() as conn:
-            return daily_table(conn, site_id, device_ids, start, end)
+            return daily_table(conn, site_id, device_ids, start, end, with_text=with_text)
     conn = engine
-    cols = ["device_id", "day", *VALUE_COLUMNS, "computation_id"]
+    value_cols = [c for c in VALUE_COLUMNS if with_text or c not in _TEXT_COLUMNS]
+    cols = ["device_id", "day", *value_cols, "computation_id"]
     # raw DBAPI cursor: a year of a 100-inverter site is ~36 000 rows x 30 columns
     ph = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    sql = (f"SELECT d.device_id, t.day, {', '.join('t.' + c for c in VALUE_COLUMNS)}, "
+    sql = (f"SELECT d.device_id, t.day, {', '.join('t.' + c for c in value_cols)}, "
            f"t.computation_id FROM daily_inverter t JOIN device d ON d.device_pk = t.device_pk "
            f"WHERE d.site_id = {ph}")
     args: list = [site_id]
@@ -147,9 +151,11 @@ def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None
     if len(out) and isinstance(out["day"].iloc[0], str):
         out["day"] = pd.to_datetime(out["day"], format="%Y-%m-%d").dt.date
     for c in VALUE_COLUMNS:
+        if c not in out:
+            out[c] = None
         if c == "day_valid" or c in _TEXT_COLUMNS:
             continue
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(
             "int64" if c in _INT_COLUMNS else "float64")
     out["day_valid"] = out["day_valid"].astype(bool)
-    return out
+    return out[["device_id", "day", *VALUE_COLUMNS, "computation_id"]]

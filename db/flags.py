@@ -119,3 +119,117 @@ def read_flags(engine: sa.Engine, site_id: str, device_id: str | None = None,
     # text columns stay object so a site-wide flag's device_id is None, not NaN
     return pd.DataFrame({c: pd.Series(v, dtype=num.get(c, object))
                          for c, v in zip(READ_COLUMNS, cols, strict=True)})
+
+
+# ---------------------------------------------------------------- incremental runs (#16)
+
+DAY_COLUMNS = ("device_id", "day_no", "soiling_pi", "withheld_kwh", "clock_delta_min",
+               "clock_clear")
+
+
+def _flag_key(r: dict) -> tuple:
+    """What makes two stored flags the same flag (lost energy to a millionth of a kWh)."""
+    lost = r.get("lost_kwh")
+    lost = None if lost is None or not np.isfinite(lost) else round(float(lost), 6)
+    return (r.get("device_id"), r["kind"], int(r["start_s"]), int(r["end_s"]), r["severity"],
+            lost, r.get("details_json"))
+
+
+def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+    """The per-inverter flags kept by the last flags run (``flag_part``), details as dicts."""
+    t = schema.flag_part
+    cols = ("device_id", "kind", "start_s", "end_s", "severity", "lost_kwh", "details_json")
+    with engine.connect() as conn:
+        rows = conn.execute(sa.select(*(t.c[c] for c in cols)).where(t.c.site_id == site_id)
+                            .order_by(t.c.part_id)).all()
+    out = pd.DataFrame([dict(zip(cols, r, strict=True)) for r in rows], columns=list(cols))
+    out["lost_kwh"] = pd.to_numeric(out["lost_kwh"], errors="coerce").astype(float)
+    out["details"] = [json.loads(d) if d else {} for d in out.pop("details_json")]
+    for c in ("start_s", "end_s"):
+        out[c] = out[c].astype("int64")
+    return out
+
+
+def read_flag_days(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+    """The per-inverter daily inputs kept by the last flags run (``flag_day``)."""
+    ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
+    with engine.connect() as conn:
+        # raw DBAPI cursor: a 100-inverter site keeps ~37 000 rows a year
+        cur = conn.connection.cursor()
+        try:
+            cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = {ph} "
+                        "ORDER BY device_id, day_no", [site_id])
+            rows = cur.fetchall()
+        finally:
+            cur.close()
+    out = pd.DataFrame.from_records(rows, columns=list(DAY_COLUMNS), coerce_float=True)
+    for c in ("soiling_pi", "withheld_kwh", "clock_delta_min"):
+        out[c] = pd.to_numeric(out[c], errors="coerce").astype(float)
+    out["day_no"] = out["day_no"].astype("int64")
+    out["clock_clear"] = pd.Series([_flag(v) for v in out["clock_clear"]], dtype=object)
+    return out
+
+
+def store_flags(conn: sa.Connection, site_id: str, flags_df: pd.DataFrame,
+                computation_id: int | None, *, parts: pd.DataFrame, days: pd.DataFrame,
+                cut_s: int | None = None, cut_day: int | None = None,
+                full_devices=()) -> dict:
+    """Store a flags run in ``conn``'s transaction: the site's flags, and what the next
+    incremental run needs.
+
+    Flags: only what changed is replaced (a flag identical to a stored one keeps its row and
+    id), so after an incremental run the table holds exactly the flags of this run.
+    ``flag_part`` rows starting at or after ``cut_s`` and ``flag_day`` rows from ``cut_day``
+    on (everything when None; every row of ``full_devices``) are replaced by ``parts`` and
+    ``days``. Returns ``{"flags", "inserted", "deleted"}``. Raises ``ValueError`` (nothing
+    written) on an unknown kind or severity or an end before the start.
+    """
+    rows = _rows(site_id, flags_df, computation_id)
+    part_rows = [{k: v for k, v in r.items() if k != "computation_id"}
+                 for r in _rows(site_id, parts, None)]
+    t, tp, td = schema.flag, schema.flag_part, schema.flag_day
+    day_rows = [dict(site_id=site_id, device_id=str(r["device_id"]), day_no=int(r["day_no"]),
+                     soiling_pi=_num(r.get("soiling_pi")),
+                     withheld_kwh=_num(r.get("withheld_kwh")),
+                     clock_delta_min=_num(r.get("clock_delta_min")),
+                     clock_clear=_flag(r.get("clock_clear")))
+                for r in days.to_dict("records")] if len(days) else []
+    full_devices = [str(d) for d in full_devices]
+    have = conn.execute(sa.select(t.c.flag_id, t.c.device_id, t.c.kind, t.c.start_s,
+                                  t.c.end_s, t.c.severity, t.c.lost_kwh, t.c.details_json)
+                        .where(t.c.site_id == site_id)).mappings().all()
+    stored: dict[tuple, list[int]] = {}
+    for r in have:
+        stored.setdefault(_flag_key(dict(r)), []).append(int(r["flag_id"]))
+    new = []
+    for r in rows:
+        ids = stored.get(_flag_key(r))
+        if ids:
+            ids.pop()
+        else:
+            new.append(r)
+    gone = [i for ids in stored.values() for i in ids]
+    for k in range(0, len(gone), 500):
+        conn.execute(t.delete().where(t.c.flag_id.in_(gone[k:k + 500])))
+    if new:
+        conn.execute(t.insert(), new)
+    qp, qd = tp.delete().where(tp.c.site_id == site_id), td.delete().where(td.c.site_id == site_id)
+    if cut_s is not None:
+        qp = qp.where(sa.or_(tp.c.start_s >= int(cut_s), tp.c.device_id.in_(full_devices)))
+    if cut_day is not None:
+        qd = qd.where(sa.or_(td.c.day_no >= int(cut_day), td.c.device_id.in_(full_devices)))
+    conn.execute(qp)
+    conn.execute(qd)
+    if part_rows:
+        conn.execute(tp.insert(), part_rows)
+    if day_rows:
+        conn.execute(td.insert(), day_rows)
+    return {"flags": len(rows), "inserted": len(new), "deleted": len(gone)}
+
+
+def _num(v) -> float | None:
+    return None if v is None or not np.isfinite(v) else float(v)
+
+
+def _flag(v) -> bool | None:
+    return None if v is None or (isinstance(v, float) and not np.isfinite(v)) else bool(v)

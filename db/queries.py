@@ -55,6 +55,14 @@ def inverters(engine: sa.Engine, site_id: str) -> pd.DataFrame:
     return _frame(engine, q)
 
 
+def sensor_quantities(conn: sa.Connection, site_id: str) -> list[tuple[str, str]]:
+    """``(sensor device_id, quantity)`` of the site's sensors, by device id."""
+    d, sn = s.device, s.sensor
+    q = (sa.select(d.c.device_id, sn.c.quantity).join(sn, sn.c.device_pk == d.c.device_pk)
+         .where(d.c.site_id == site_id).order_by(d.c.device_id))
+    return [(r.device_id, r.quantity) for r in conn.execute(q)]
+
+
 def devices(engine: sa.Engine, site_id: str) -> pd.DataFrame:
     """Every device of a site: ``device_pk, device_id, kind, quantity, instrument``
     (quantity/instrument are set for sensors only)."""

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-from db import schema
+from db import runcache, schema
 from db.computations import now_utc
 from db.engine import write_lock
 from ingest.config import INVERTER_QUANTITIES, SiteConfig
@@ -167,6 +167,11 @@ def site_row(conn: sa.Connection | sa.Engine, site_id: str) -> dict:
     if isinstance(conn, sa.Engine):
         with conn.connect() as c:
             return site_row(c, site_id)
+    # the site's configuration is read once per compute run (db.runcache, issue #16)
+    return dict(runcache.memo(conn, "site_row", site_id, lambda: _site_row(conn, site_id)))
+
+
+def _site_row(conn: sa.Connection, site_id: str) -> dict:
     row = conn.execute(sa.select(schema.site).where(schema.site.c.site_id == site_id)
                        ).mappings().first()
     if row is None:

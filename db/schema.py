@@ -223,6 +223,36 @@ flag = sa.Table(
     sa.Index("ix_flag_site_kind_start", "site_id", "kind", "start_s"),
 )
 
+# flag_part / flag_day: what an incremental flags run needs from earlier runs (#16), so that
+# it reads only the new data and a look-back. ``flag_part`` keeps each inverter's own flags
+# (outage, clipping, power-channel QA, dropouts, counter and input checks) as its detectors
+# gave them, before the site-wide merging that every run redoes; ``flag_day`` keeps the
+# per-inverter daily inputs of the whole-history detectors (soiling, underperformance, clock).
+# Tables without data changes: created by db.migrate's create_all, no version step.
+flag_part = sa.Table(
+    "flag_part", metadata,
+    sa.Column("part_id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), nullable=False),
+    sa.Column("device_id", sa.String(64)),
+    sa.Column("kind", sa.String(32), nullable=False),
+    sa.Column("start_s", sa.BigInteger, nullable=False),
+    sa.Column("end_s", sa.BigInteger, nullable=False),
+    sa.Column("severity", sa.String(16), nullable=False),
+    sa.Column("lost_kwh", sa.Float),
+    sa.Column("details_json", sa.Text),
+    sa.Index("ix_flag_part_site_start", "site_id", "start_s"),
+)
+flag_day = sa.Table(
+    "flag_day", metadata,
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), primary_key=True),
+    sa.Column("device_id", sa.String(64), primary_key=True),
+    sa.Column("day_no", sa.Integer, primary_key=True),  # local standard days since 1970-01-01
+    sa.Column("soiling_pi", sa.Float),  # unclipped daily performance index (soiling input)
+    sa.Column("withheld_kwh", sa.Float),  # energy withheld by a power limit
+    sa.Column("clock_delta_min", sa.Float),  # power-profile centroid minus clear-sky centroid
+    sa.Column("clock_clear", sa.Boolean),  # the day counts as clear for the clock check
+)
+
 # degradation_result: owned by the degradation issue (#7).
 degradation_result = sa.Table(
     "degradation_result", metadata,

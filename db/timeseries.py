@@ -34,7 +34,7 @@ import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
-from db import readings, schema
+from db import readings, runcache, schema
 
 INVERTER_FRAME_COLUMNS = ("p_ac_kw", "e_ac_kwh", "poa_wm2", "t_module_c", "t_amb_c", "wind_ms",
                           "interval_h")
@@ -81,7 +81,10 @@ def read_channel(conn: sa.Connection, channel_id: int, start_s: int | None = Non
 
     With ``with_interval`` a third array: each reading's interval [s] as recorded at ingest,
     NaN for readings stored before schema v4 (:func:`fill_unknown_intervals`). The day rows
-    of the window are read with one range scan and decoded with numpy (:mod:`db.readings`)."""
+    of the window are read with one range scan and decoded with numpy (:mod:`db.readings`).
+    Inside :func:`db.runcache.read_once` a channel is read from the store once per run."""
+    if runcache.active():
+        return runcache.read(conn, channel_id, start_s, end_s, with_interval, read_channel)
     got = readings.read_rows(conn, channel_id, start_s, end_s)
     if not with_interval:
         return got["ts_s"], got["value"]
@@ -192,6 +195,11 @@ def _to_index(ts_s: np.ndarray) -> pd.DatetimeIndex:
 def site_channels(conn: sa.Connection, site_id: str) -> dict[tuple[str, str], int]:
     """``{(device_id, quantity): channel_id}`` of a site's whole-device channels (inverter
     inputs: :func:`input_channels`)."""
+    return dict(runcache.memo(conn, "site_channels", site_id,
+                              lambda: _site_channels(conn, site_id)))
+
+
+def _site_channels(conn: sa.Connection, site_id: str):
     d, c = schema.device, schema.channel
     q = (sa.select(d.c.device_id, c.c.quantity, c.c.channel_id)
          .join(c, c.c.device_pk == d.c.device_pk)
@@ -201,6 +209,11 @@ def site_channels(conn: sa.Connection, site_id: str) -> dict[tuple[str, str], in
 
 def instant_channels(conn: sa.Connection, site_id: str) -> set[int]:
     """Channel ids of a site whose readings are instantaneous samples."""
+    return set(runcache.memo(conn, "instant_channels", site_id,
+                             lambda: _instant_channels(conn, site_id)))
+
+
+def _instant_channels(conn: sa.Connection, site_id: str):
     d, c = schema.device, schema.channel
     q = (sa.select(c.c.channel_id).join(d, c.c.device_pk == d.c.device_pk)
          .where(d.c.site_id == site_id, c.c.sampling == "instant"))
@@ -273,6 +286,11 @@ def input_dc_power(engine_or_conn: sa.Engine | sa.Connection, site_id: str, inve
 
 def site_inverters(conn: sa.Connection, site_id: str) -> pd.DataFrame:
     """The site's inverter rows with ``device_id`` and ``device_pk``, ordered by device_id."""
+    return runcache.memo(conn, "site_inverters", site_id,
+                         lambda: _site_inverters(conn, site_id)).copy()
+
+
+def _site_inverters(conn: sa.Connection, site_id: str):
     d, i = schema.device, schema.inverter
     q = (sa.select(d.c.device_id, i).join(i, i.c.device_pk == d.c.device_pk)
          .where(d.c.site_id == site_id).order_by(d.c.device_id))

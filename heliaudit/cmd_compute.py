@@ -15,6 +15,7 @@ import sqlalchemy as sa
 from db import queries
 from db.computations import batches_since_last_daily, latest_finished
 from db.degradation import last_computation
+from db.runcache import read_once
 from db.workqueue import claim_site, supports_claims
 from heliaudit.common import engine_from_ctx
 
@@ -69,40 +70,44 @@ def run_compute(engine: sa.Engine, site_id: str | None = None, full: bool = Fals
 
     summaries = []
     for sid in _sites(engine, site_id):
-        bar = _Bar(f"{sid}: daily", tty)
-        try:
-            ranges = None if full else batches_since_last_daily(engine, sid)
-            if ranges is None:
-                summaries += jobs_daily.recompute_all(engine, sid, progress=bar)
-            else:
-                if not ranges:
-                    echo(f"{sid}: daily table up to date (no files loaded since the last "
-                         "computation; use --full after a configuration change)", err=True)
-                for lo, hi in sorted(ranges):
-                    summaries.append(jobs_daily.recompute_range(engine, sid, lo, hi, progress=bar))
-        except ValueError as exc:  # e.g. filters.<key>: unknown setting in the site config
-            raise click.ClickException(f"{sid}: {exc}") from None
-        finally:
-            bar.close()
-        for s in summaries:
-            if s["site_id"] == sid and s["rows"]:
-                echo(f"{sid}: daily rows {s['rows']} ({s['inverters']} inverters, days "
-                     f"{s['first_day']}..{s['last_day']}, {s['days_valid']} valid)", err=True)
-        for module, func in LATER_STEPS:
-            if importlib.util.find_spec(module) is None:
-                continue
-            if func == "run_degradation" and not full and ranges is not None:
-                age = _degradation_age_days(engine, sid)
-                if age is not None and age < DEGRADATION_EVERY_DAYS:
-                    echo(f"{sid}: degradation rates kept from {age:.0f} day(s) ago (recomputed "
-                         f"every {DEGRADATION_EVERY_DAYS} days; --full recomputes now)", err=True)
-                    continue
-            step = getattr(importlib.import_module(module), func)
-            bar = _Bar(f"{sid}: {func.removeprefix('run_')}", tty)
+        # one read of each channel and of the site configuration, shared by the steps (#16)
+        with read_once():
+            bar = _Bar(f"{sid}: daily", tty)
             try:
-                step(engine, sid, progress=bar)
+                ranges = None if full else batches_since_last_daily(engine, sid)
+                if ranges is None:
+                    summaries += jobs_daily.recompute_all(engine, sid, progress=bar)
+                else:
+                    if not ranges:
+                        echo(f"{sid}: daily table up to date (no files loaded since the last "
+                             "computation; use --full after a configuration change)", err=True)
+                    for lo, hi in sorted(ranges):
+                        summaries.append(jobs_daily.recompute_range(engine, sid, lo, hi, progress=bar))
+            except ValueError as exc:  # e.g. filters.<key>: unknown setting in the site config
+                raise click.ClickException(f"{sid}: {exc}") from None
             finally:
                 bar.close()
+            for s in summaries:
+                if s["site_id"] == sid and s["rows"]:
+                    echo(f"{sid}: daily rows {s['rows']} ({s['inverters']} inverters, days "
+                         f"{s['first_day']}..{s['last_day']}, {s['days_valid']} valid)", err=True)
+            for module, func in LATER_STEPS:
+                if importlib.util.find_spec(module) is None:
+                    continue
+                if func == "run_degradation" and not full and ranges is not None:
+                    age = _degradation_age_days(engine, sid)
+                    if age is not None and age < DEGRADATION_EVERY_DAYS:
+                        echo(f"{sid}: degradation rates kept from {age:.0f} day(s) ago (recomputed "
+                             f"every {DEGRADATION_EVERY_DAYS} days; --full recomputes now)", err=True)
+                        continue
+                step = getattr(importlib.import_module(module), func)
+                bar = _Bar(f"{sid}: {func.removeprefix('run_')}", tty)
+                # flags: only the window new data can change, unless everything was recomputed
+                kw = {"full": full or ranges is None} if func == "run_flags" else {}
+                try:
+                    step(engine, sid, progress=bar, **kw)
+                finally:
+                    bar.close()
     return summaries
 
 
@@ -175,8 +180,9 @@ def compute(ctx: click.Context, site_id: str | None, full: bool, worker: bool,
 
     Days are site-local standard time. Filter thresholds come from the site
     configuration's [filters] table. Progress goes to stderr. After new files,
-    degradation rates are recomputed when the stored ones are 28 days old
-    (--full recomputes them now).
+    only the new days of the daily table and the flags they can change (each
+    detector with its look-back) are recomputed, and degradation rates when the
+    stored ones are 28 days old (--full recomputes everything now).
 
     With --worker, several processes (on one machine or many) share a PostgreSQL
     portfolio: each takes the due sites no other worker holds, so no site is computed

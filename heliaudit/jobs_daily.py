@@ -25,12 +25,12 @@ from analytics import daily as adaily
 from analytics import filters as flt
 from analytics import sensor_qa
 from analytics.temperature import SAPM_PARAMETERS
-from db import schema
-from db.computations import begin_computation, finish_computation
+from db import queries
+from db.computations import begin_computation, finish_computation, latest_batch_id
 from db.daily import write_daily
 from db.readings import stored_range
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
-from db.timeseries import inverter_frames, site_channels
+from db.timeseries import inverter_frames, site_channels, site_inverters
 from heliaudit.site_irradiance import SiteIrradiance
 
 Progress = Callable[[int, int], None]  # progress(done, total), in inverters
@@ -157,8 +157,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
              scope: str, progress: Progress | None) -> dict:
     with engine.connect() as conn:
         site = site_row(conn, site_id)
-        n_inv = conn.execute(sa.select(sa.func.count()).select_from(
-            schema.inverter.join(schema.device)).where(schema.device.c.site_id == site_id)).scalar()
+        n_inv = len(site_inverters(conn, site_id))
     filters = site_filters(site)
     offset_h = adaily.standard_utc_offset_h(site["timezone"])
     off_s = int(round(offset_h * 3600))
@@ -167,8 +166,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
     with engine.begin() as conn:
         # The newest batch this computation sees: `heliaudit compute` recomputes only batches
         # loaded after it (ids, not clock times, which tie within a second).
-        through = conn.execute(sa.select(sa.func.max(schema.ingest_batch.c.batch_id)).where(
-            schema.ingest_batch.c.site_id == site_id)).scalar()
+        through = latest_batch_id(conn, site_id)
         site_irr = SiteIrradiance(engine, site, start_s, end_s)
         params = {**_params(site, filters, offset_h), "through_batch_id": through,
                   "inverters": site_irr.describe()}
@@ -309,23 +307,17 @@ def recompute_all(engine: sa.Engine, site_id: str | None = None,
     """Recompute every day of one site (or of every site): all days with readings are
     rewritten and rows of days without readings any more are deleted. Returns one summary
     per site."""
-    with engine.connect() as conn:
-        if site_id is None:
-            sites = conn.execute(sa.select(schema.site.c.site_id).order_by(
-                schema.site.c.site_id)).scalars().all()
-        else:
-            site_row(conn, site_id)
-            sites = [site_id]
+    if site_id is None:
+        sites = sorted(queries.sites(engine)["site_id"])
+    else:
+        site_row(engine, site_id)
+        sites = [site_id]
     out = []
     for sid in sites:
         with engine.connect() as conn:
             lo, hi = _site_span(conn, sid)
             tz = site_row(conn, sid)["timezone"]
-            t = schema.daily_inverter
-            pks = conn.execute(sa.select(schema.device.c.device_pk).where(
-                schema.device.c.site_id == sid)).scalars().all()
-            dmin, dmax = conn.execute(sa.select(sa.func.min(t.c.day), sa.func.max(t.c.day))
-                                      .where(t.c.device_pk.in_(pks))).one()
+        dmin, dmax = queries.daily_span(engine, sid)
         if lo is None:
             d0 = d1 = None
         else:

@@ -22,7 +22,9 @@ step by its own intervals from the site's first to last reading (``db.timeseries
 
 from __future__ import annotations
 
+import datetime as dt
 import itertools
+import json
 import tomllib
 from collections.abc import Callable
 
@@ -43,10 +45,17 @@ from analytics.temperature import (
     cell_temperature_sandia,
     module_temperature_sandia,
 )
-from db import schema
-from db.computations import begin_computation, finish_computation
+from db.computations import (
+    batches_after,
+    begin_computation,
+    finish_computation,
+    latest_batch_id,
+)
 from db.daily import daily_table
-from db.flags import write_flags
+from db.degradation import last_computation
+from db.flags import read_flag_days, read_flag_parts, store_flags
+from db.jsontext import to_json
+from db.queries import sensor_quantities
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 from db.timeseries import (
     fill_gaps,
@@ -55,6 +64,7 @@ from db.timeseries import (
     inverter_frames,
     read_channel,
     site_channels,
+    site_inverters,
 )
 from ingest.counters import counter_resolution
 
@@ -303,13 +313,19 @@ def mask_invalid_sensor_days(frame: pd.DataFrame, inv: dict, invalid_days: dict,
 def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_offset_s: int,
                    site_zone: str, source: tuple[str, str] | None = None,
                    cache: dict | None = None, withheld: dict | None = None,
-                   soiling_pi: dict | None = None) -> list[pd.DataFrame]:
+                   soiling_pi: dict | None = None,
+                   clock_days: dict | None = None, clock_series: dict | None = None,
+                   power_limit: bool = True) -> list[pd.DataFrame]:
     """Outage, power limit, clipping, clock shift and power-channel QA flags of one inverter.
 
     ``sun`` is on the inverter's own plane (clock against the array's own geometry).
     ``cache`` (a dict kept by the caller) shares the clear-sky centroids between inverters
     logged on the same timestamps and plane; ``withheld`` (a dict) receives the daily
-    energy withheld by a power limit, by device."""
+    energy withheld by a power limit, by device. With ``clock_days`` (a dict) the daily
+    clock offsets are put there instead of being turned into flags (the caller does that
+    over the whole history: :func:`inverter_clock_flags`), and with ``clock_series`` (a dict)
+    the interval data that function needs to date a fix. ``power_limit`` False skips the
+    power-limit check (its level needs the whole history; incremental runs, issue #16)."""
     dev = inv["device_id"]
     if frame.empty:
         return []
@@ -328,8 +344,9 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
                                 min_expected_multiple=o["min_expected_multiple"],
                                 edge_minutes=o["edge_minutes"]),
            outages.clipping_flags(frame, p_max, device_id=dev, std_offset_s=std_offset_s)]
-    lim, per_day = outages.power_limit_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
-                                             std_offset_s=std_offset_s)
+    lim, per_day = (outages.power_limit_flags(frame, p_max, device_id=dev, p_ac_exp_kw=exp,
+                                              std_offset_s=std_offset_s) if power_limit
+                    else (flag_frame([]), None))
     out.append(lim)
     p = frame["p_ac_kw"]
     pv = p.to_numpy(float)
@@ -368,11 +385,37 @@ def inverter_flags(inv: dict, frame: pd.DataFrame, sun: pd.DataFrame, *, std_off
             cs_c = cache[key]
         off = clock.clock_offsets(p, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
                                   cs_centroid=cs_c)
-        out.append(clock.refine_fix_moment(clock.clock_shift_flags(
+        if clock_days is not None:
+            clock_days[dev] = off
+            if clock_series is not None:
+                clock_series[dev] = (p, s["poa_cs"], tau_h)
+            return out
+        out += inverter_clock_flags({dev: off}, std_offset_s=std_offset_s, site_zone=site_zone,
+                                    sources={dev: source} if source else {},
+                                    series={dev: (p, s["poa_cs"], tau_h)})
+    return out
+
+
+def inverter_clock_flags(clock_days: dict[str, pd.DataFrame], *, std_offset_s: int,
+                         site_zone: str, sources: dict, series: dict | None = None
+                         ) -> list[pd.DataFrame]:
+    """Clock-shift flags of each inverter from its daily offsets over the whole history
+    (:func:`analytics.clock.clock_shift_flags`). ``series`` (device -> power, clear-sky POA,
+    interval [h]) lets :func:`analytics.clock.refine_fix_moment` find the moment of a fix
+    during the day where the interval data of that day were read in this run (an
+    incremental run reads only its window: an older fix keeps its date-only end)."""
+    out = []
+    for dev, off in clock_days.items():
+        source = sources.get(dev)
+        fl = clock.clock_shift_flags(
             off, device_id=dev, std_offset_s=std_offset_s, site_zone=site_zone,
             source_name=source[0] if source else None,
-            export_zone=source[1] if source else "local"), p, s["poa_cs"], tau_h,
-            std_offset_s=std_offset_s, zone=_export_zone(source, site_zone)))
+            export_zone=source[1] if source else "local")
+        if series is not None and dev in series:
+            p, cs, tau_h = series[dev]
+            fl = clock.refine_fix_moment(fl, p, cs, tau_h, std_offset_s=std_offset_s,
+                                         zone=_export_zone(source, site_zone))
+        out.append(fl)
     return out
 
 
@@ -1013,7 +1056,8 @@ def counter_flags(inv: dict, frame: pd.DataFrame, counter, *, std_offset_s: int)
 def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: pd.DataFrame, *,
                   economics: dict | None = None, sources: dict | None = None,
                   progress: Progress | None = None, n_runs: int = 1000,
-                  counters: dict | None = None, planes: dict | None = None) -> pd.DataFrame:
+                  counters: dict | None = None, planes: dict | None = None, prior=None,
+                  collect: dict | None = None) -> pd.DataFrame:
     """Every flag of a site from data in memory.
 
     Order (issue #14): judge every sensor first (faulty days are masked for everything that
@@ -1047,6 +1091,14 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         flatline, sensor plausibility and drift) are then on each device's own geometry;
         devices without an entry use the ``tilt_deg``/``azimuth_deg`` of their inverter row,
         else the site plane.
+    prior : heliaudit.flags_window.Prior, optional
+        An incremental run (issue #16): ``frames`` and ``counters`` cover only the new data
+        and a look-back; each inverter's own flags before the cut and its daily inputs of the
+        whole-history detectors come from the store.
+    collect : dict, optional
+        Receives what the next incremental run needs: ``parts`` (each inverter's own flags
+        before the site-wide merging), ``days`` (:func:`heliaudit.flags_window.day_products`),
+        ``seen`` and ``last_seen`` (inverters with data, their last reading).
 
     Returns
     -------
@@ -1169,6 +1221,10 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     rain_daily = pd.concat(rain_parts, axis=1).mean(axis=1) if rain_parts else None
     withheld: dict[str, pd.Series] = {}
     soiling_pi: dict[str, pd.Series] = {}
+    clock_days: dict[str, pd.DataFrame] = {}
+    clock_series: dict[str, tuple] = {}  # interval data that date a fix during the day
+    inv_parts: list[pd.DataFrame] = []  # each inverter's own flags (kept by incremental runs)
+    seen: set[str] = set()
     for inv, frame in frames:
         if len(frame):
             pn = frame["p_ac_kw"].dropna()
@@ -1183,17 +1239,38 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
             plane = planes.get(dev) or inverter_plane(inv_rows.get(dev, inv), site)
             gp = gs if plane is None else sun_at(frame.index, iv_s, plane)
             fr = mask_invalid_sensor_days(frame, inv, invalid_days, off_s)
-            parts += inverter_flags(inv, fr, gp, std_offset_s=off_s, site_zone=zone,
-                                    source=sources.get(inv["device_id"]), cache=cs_cache,
-                                    withheld=withheld, soiling_pi=soiling_pi)
-            parts.append(power_dropout_flags(inv, frame, gs))
-            n_clock += 1
+            inv_parts += inverter_flags(inv, fr, gp, std_offset_s=off_s, site_zone=zone,
+                                        source=sources.get(inv["device_id"]), cache=cs_cache,
+                                        withheld=withheld, soiling_pi=soiling_pi,
+                                        clock_days=clock_days, clock_series=clock_series,
+                                        power_limit=prior is None
+                                        or inv["device_id"] in prior.full_devices)
+            inv_parts.append(power_dropout_flags(inv, frame, gs))
+            seen.add(inv["device_id"])
             if counters and inv["device_id"] in counters:
-                parts.append(counter_flags(inv, frame, counters[inv["device_id"]],
-                                           std_offset_s=off_s))
+                inv_parts.append(counter_flags(inv, frame, counters[inv["device_id"]],
+                                               std_offset_s=off_s))
         done += 1
         if progress:
             progress(done, n_total)
+    if prior is not None:  # an incremental run: earlier days and flags from the store
+        inv_parts, withheld, soiling_pi, clock_days = prior.merge(inv_parts, withheld,
+                                                                  soiling_pi, clock_days)
+        for dev, ts in prior.last_seen.items():
+            last_seen[dev] = max(ts, last_seen.get(dev, ts))
+            kinds[dev] = "inverter"
+        seen |= prior.seen
+    if collect is not None:
+        from heliaudit.flags_window import day_products
+        collect.update(parts=[p for p in inv_parts if len(p)], seen=sorted(seen),
+                       days=day_products(withheld, soiling_pi, clock_days,
+                                         from_day=None if prior is None else prior.cut_day,
+                                         keep=set() if prior is None else prior.full_devices),
+                       last_seen={d: last_seen[d] for d in seen if d in last_seen})
+    n_clock += len(seen)
+    parts += inv_parts
+    parts += inverter_clock_flags(clock_days, std_offset_s=off_s, site_zone=zone,
+                                  sources=sources, series=clock_series)
     parts += daily_flags(daily, inverters, std_offset_s=off_s, economics=economics,
                          rain_daily=rain_daily, n_runs=n_runs, withheld=withheld,
                          soiling_pi=soiling_pi)
@@ -1216,21 +1293,6 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
 
 # ---------------------------------------------------------------- the job
 
-
-
-def _sensor_rows(conn: sa.Connection, site_id: str) -> list[tuple[str, str]]:
-    d, s = schema.device, schema.sensor
-    q = (sa.select(d.c.device_id, s.c.quantity).join(s, s.c.device_pk == d.c.device_pk)
-         .where(d.c.site_id == site_id).order_by(d.c.device_id))
-    return [(r.device_id, r.quantity) for r in conn.execute(q)]
-
-
-def _inverter_rows(conn: sa.Connection, site_id: str) -> pd.DataFrame:
-    d, i = schema.device, schema.inverter
-    q = (sa.select(d.c.device_id, i).join(i, i.c.device_pk == d.c.device_pk)
-         .where(d.c.site_id == site_id).order_by(d.c.device_id))
-    rows = [dict(r) for r in conn.execute(q).mappings()]
-    return pd.DataFrame(rows, columns=["device_id", *(c.name for c in i.columns)])
 
 
 def _arrays_by_inverter(cfg: dict) -> dict[str, list[dict]]:
@@ -1277,7 +1339,8 @@ def _with_planes(inverters: pd.DataFrame, arrays: dict[str, list[dict]]) -> pd.D
 
 
 def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, list[dict]],
-                            std_offset_s: int) -> tuple[list[pd.DataFrame], str]:
+                            std_offset_s: int, start_s: int | None = None
+                            ) -> tuple[list[pd.DataFrame], str]:
     """Input-mismatch flags of every inverter whose inputs are loaded and whose arrays give
     each input's kWp; returns the flags and a note on what ran."""
     from db import timeseries as tsdb
@@ -1291,7 +1354,7 @@ def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, l
                if a.get("id") is not None and a.get("p_dc_kwp")}
         if len(kwp) < 2:
             continue
-        df = read(engine, site_id, dev)
+        df = read(engine, site_id, dev) if start_s is None else read(engine, site_id, dev, start_s)
         cols = [c for c in df.columns if c in kwp]
         if len(cols) < 2:
             continue
@@ -1307,28 +1370,15 @@ def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, l
                  "not run: no inverter with two or more loaded inputs and their kWp")
 
 
-def read_sensors(engine: sa.Engine, site_id: str, *, quantities: tuple[str, ...] | None = None,
-                 sensor_rows=None, channels=None) -> list[tuple]:
+def read_sensors(engine: sa.Engine, site_id: str, *, quantities: tuple[str, ...] | None = None
+                 ) -> list[tuple]:
     """Every sensor channel of a site (optionally only of ``quantities``) as
     ``(sensor id, quantity, Series on ts_utc, interval [s] per reading)``."""
     with engine.connect() as conn:
-        if sensor_rows is None:
-            sensor_rows = _sensor_rows(conn, site_id)
-        if channels is None:
-            channels = site_channels(conn, site_id)
-        inst = instant_channels(conn, site_id)
-        out = []
-        for sid, q in sensor_rows:
-            ch = channels.get((sid, q))
-            if ch is None or (quantities is not None and q not in quantities):
-                continue
-            ts, v, iv = read_channel(conn, ch, with_interval=True)
-            iv = fill_unknown_intervals(ts, iv)
-            if ch in inst:  # samples: QA runs on the samples, durations by their spacing
-                iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
-            idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
-            out.append((sid, q, pd.Series(v, index=idx, name=q), iv))
-    return out
+        setup = dict(sensor_rows=sensor_quantities(conn, site_id),
+                     channels=site_channels(conn, site_id),
+                     instant=instant_channels(conn, site_id))
+        return _read_sensors(conn, setup, quantities)
 
 
 def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None
@@ -1431,52 +1481,164 @@ def sensor_planes(site: dict) -> dict:
     return out
 
 
-def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None) -> int:
-    """Recompute every flag of ``site_id`` and replace the stored ones; return how many.
-
-    Records a ``computation`` row (kind ``flags``, ``heliaudit.__version__``, the detector
-    parameters as JSON) and stamps the flags with its id. Reads the daily table, so run it
-    after the daily job. Raises :class:`SiteNotFoundError` for an unknown site.
-    """
+def _site_setup(engine: sa.Engine, site_id: str) -> dict:
+    """Everything a flags run needs to know about the site, read once."""
     with engine.connect() as conn:
         site = site_row(conn, site_id)
-        inverters = _inverter_rows(conn, site_id)
-        sensor_rows = _sensor_rows(conn, site_id)
-        channels = site_channels(conn, site_id)
+        setup = dict(site=site, inverters=site_inverters(conn, site_id),
+                     sensor_rows=sensor_quantities(conn, site_id),
+                     channels=site_channels(conn, site_id),
+                     instant=instant_channels(conn, site_id))
     try:
         cfg = tomllib.loads(site.get("config_toml") or "")
     except tomllib.TOMLDecodeError:
         cfg = {}
     econ = cfg.get("economics", {}) if isinstance(cfg.get("economics", {}), dict) else {}
-    economics = {"tariff_per_kwh": float(econ.get("tariff_per_kwh", 0.05)),
-                 "cleaning_cost": float(econ.get("cleaning_cost", 0.0)),
-                 "currency": str(econ.get("currency", "EUR"))}
-    params = {**PARAMS, "economics": economics, "timezone": site["timezone"]}
-    with engine.begin() as conn:
-        comp_id = begin_computation(conn, site_id, "flags", params,
-                                    software_version=heliaudit.__version__)
-    daily = daily_table(engine, site_id)
-    sensors = read_sensors(engine, site_id, sensor_rows=sensor_rows, channels=channels)
+    setup["cfg"] = cfg
+    setup["economics"] = {"tariff_per_kwh": float(econ.get("tariff_per_kwh", 0.05)),
+                          "cleaning_cost": float(econ.get("cleaning_cost", 0.0)),
+                          "currency": str(econ.get("currency", "EUR"))}
+    setup["params"] = {**PARAMS, "economics": setup["economics"], "timezone": site["timezone"]}
+    setup["off_s"] = int(round(standard_utc_offset_h(site["timezone"]) * 3600))
+    return setup
+
+
+def _read_sensors(conn: sa.Connection, setup: dict,
+                  quantities: tuple[str, ...] | None = None) -> list[tuple]:
+    sensors = []
+    for sid, q in setup["sensor_rows"]:
+        ch = setup["channels"].get((sid, q))
+        if ch is None or (quantities is not None and q not in quantities):
+            continue
+        ts, v, iv = read_channel(conn, ch, with_interval=True)
+        iv = fill_unknown_intervals(ts, iv)
+        if ch in setup["instant"]:  # samples: QA runs on the samples, durations by their spacing
+            iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
+        idx = pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc")
+        sensors.append((sid, q, pd.Series(v, index=idx, name=q), iv))
+    return sensors
+
+
+def _read_counters(conn: sa.Connection, setup: dict, devices, start_s: int | None) -> dict:
     counters = {}
+    for dev in devices:
+        ch = setup["channels"].get((dev, "e_ac_total_kwh"))
+        if ch is not None:
+            ts, v, iv = read_channel(conn, ch, start_s, with_interval=True)
+            if ts.size:
+                counters[dev] = (ts, v, fill_unknown_intervals(ts, iv))
+    return counters
+
+
+def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = None
+           ) -> tuple[object | None, str]:
+    """The stored state for an incremental run, or None (and why) when the run must be full."""
+    from heliaudit import flags_window as fw
+
+    last = last_computation(engine, site_id, "flags")
+    state = (last or {}).get("params", {}).get("window")
+    if not state:
+        return None, "no earlier flags run with a stored window state"
+    if {k: v for k, v in last["params"].items() if k != "window"} != json.loads(
+            to_json(setup["params"])):
+        return None, "detector settings changed since the last flags run"
+    if last.get("software_version") != heliaudit.__version__:
+        return None, "another heliaudit version made the stored flags"
+    if state.get("config_sha256") != setup["site"].get("config_sha256"):
+        return None, "the site configuration changed since the last flags run"
+    new = batches_after(engine, site_id, state.get("through_batch_id") or 0)
+    first_new = min([lo for lo, _hi in new] + ([int(since_s)] if since_s is not None else []),
+                    default=state.get("through_s"))
+    if first_new is None:
+        return None, "no reading seen by the last flags run"
+    parts = read_flag_parts(engine, site_id)
+    cut = fw.find_cut(first_new, state.get("through_s"), parts, setup["off_s"],
+                      state.get("full_devices", []))
+    cut_day = (cut + setup["off_s"]) // 86400
+    return fw.Prior.from_store(cut, cut_day, parts, read_flag_days(engine, site_id),
+                               state), f"from {dt.datetime.fromtimestamp(cut, dt.UTC):%Y-%m-%d %H:%M} UTC"
+
+
+def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None, *,
+              full: bool = True, since_s: int | None = None) -> int:
+    """Recompute the flags of ``site_id`` and store them; return how many the site has.
+
+    With ``full`` every flag is recomputed from the whole history; otherwise (issue #16) only
+    the window new data can change, with each detector's look-back
+    (:mod:`heliaudit.flags_window`), falling back to a full run when the store keeps no state
+    from an earlier run or the detector settings changed. New data are the batches loaded
+    since the last flags run, and readings from ``since_s`` (UTC s) when given. Records a ``computation`` row
+    (kind ``flags``, ``heliaudit.__version__``, the detector parameters and the window state
+    as JSON); only flags that changed are replaced. Reads the daily table, so run it after
+    the daily job. Raises :class:`SiteNotFoundError` for an unknown site.
+    """
+    from heliaudit import flags_window as fw
+
+    setup = _site_setup(engine, site_id)
+    site, inverters, off_s = setup["site"], setup["inverters"], setup["off_s"]
+    prior, how = (None, "full") if full else _prior(engine, site_id, setup, since_s)
+    scope = "full" if prior is None else f"window {how}"
     with engine.connect() as conn:
-        for dev in inverters["device_id"]:
-            ch = channels.get((dev, "e_ac_total_kwh"))
-            if ch is not None:
-                ts, v, iv = read_channel(conn, ch, with_interval=True)
-                if ts.size:
-                    counters[dev] = (ts, v, fill_unknown_intervals(ts, iv))
-    arrays = _resolved_arrays(site.get("config_toml"), _arrays_by_inverter(cfg))
-    flags = compute_flags(site, _with_planes(inverters, arrays),
-                          inverter_frames(engine, site_id), sensors, daily,
-                          economics=economics, sources=_sources_by_device(cfg),
+        through_batch = latest_batch_id(conn, site_id)
+    with engine.begin() as conn:
+        comp_id = begin_computation(conn, site_id, "flags", setup["params"], scope=scope,
+                                    software_version=heliaudit.__version__)
+    daily = daily_table(engine, site_id, with_text=False)
+    all_inv = list(inverters["device_id"])
+    if prior is None:
+        frames = inverter_frames(engine, site_id)
+        start_s = start_inputs = None
+        read_whole = all_inv
+    else:
+        start_s = prior.cut_s - fw.INTERVAL_LOOKBACK_DAYS * 86400
+        start_inputs = prior.cut_s - fw.INPUT_LOOKBACK_DAYS * 86400
+        read_whole = [d for d in all_inv if d in prior.full_devices]
+        window = [d for d in all_inv if d not in prior.full_devices]
+        frames = itertools.chain(
+            inverter_frames(engine, site_id, start_s, None, window) if window else (),
+            inverter_frames(engine, site_id, None, None, read_whole) if read_whole else ())
+    with engine.connect() as conn:
+        sensors = _read_sensors(conn, setup)
+        counters = _read_counters(conn, setup, read_whole, None)
+        if prior is not None:
+            counters.update(_read_counters(conn, setup, [d for d in all_inv
+                                                         if d not in prior.full_devices],
+                                           start_s))
+    arrays = _resolved_arrays(site.get("config_toml"), _arrays_by_inverter(setup["cfg"]))
+    collect: dict = {}
+    flags = compute_flags(site, _with_planes(inverters, arrays), frames, sensors, daily,
+                          economics=setup["economics"], sources=_sources_by_device(setup["cfg"]),
                           progress=progress, counters=counters,
-                          planes=device_planes(site.get("config_toml"), site))
-    off_s = int(round(standard_utc_offset_h(site["timezone"]) * 3600))
-    mism, _note = input_mismatch_for_site(engine, site_id, arrays, off_s)
+                          planes=device_planes(site.get("config_toml"), site), prior=prior,
+                          collect=collect)
+    mism, _note = input_mismatch_for_site(engine, site_id, arrays, off_s, start_inputs)
     mism = [m for m in mism if len(m)]
+    if prior is not None:
+        mism = [m for m in (prior.keep_new(x) for x in mism) if len(m)]
+        if len(prior.late_parts):
+            mism.append(prior.late_parts)
     if mism:
         flags = pd.concat([flags, *mism], ignore_index=True)
-    n = write_flags(engine, site_id, flags, comp_id)
+    parts = pd.concat([*collect["parts"], *mism], ignore_index=True) if (
+        collect["parts"] or mism) else flag_frame([])
+    if prior is not None:  # stored parts before the cut stay where they are
+        parts = prior.keep_new(parts)
+    days = collect["days"]
+    if prior is not None and len(days):
+        days = days[(days["day_no"] >= prior.cut_day)
+                    | days["device_id"].isin(list(prior.full_devices))]
+    seen_ts = [*collect["last_seen"].values(),
+               *(int(epoch_s(x.index[-1:])[0]) for _s, _q, x, *_r in sensors if len(x))]
+    limited = sorted({str(d) for d in parts.loc[parts["kind"] == "power_limit", "device_id"]})
+    state = {"through_batch_id": through_batch, "through_s": max(seen_ts, default=None),
+             "config_sha256": site.get("config_sha256"),
+             "last_seen": collect["last_seen"], "seen": collect["seen"],
+             "full_devices": limited if prior is None else sorted(
+                 set(limited) | prior.full_devices), "scope": scope}
     with engine.begin() as conn:
-        finish_computation(conn, comp_id)
+        n = store_flags(conn, site_id, flags, comp_id, parts=parts, days=days,
+                        cut_s=None if prior is None else prior.cut_s,
+                        cut_day=None if prior is None else prior.cut_day,
+                        full_devices=() if prior is None else prior.full_devices)["flags"]
+        finish_computation(conn, comp_id, params={**setup["params"], "window": state})
     return n

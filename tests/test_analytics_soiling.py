@@ -255,11 +255,11 @@ def test_line_vs_step_hand_examples():
         float("inf")
 
 
-@pytest.mark.parametrize("k,soiled", [(0.95, True), (1.0, True), (1.05, False)])
+@pytest.mark.parametrize("k,soiled", [(1.45, True), (1.5, True), (1.55, False)])
 def test_line_vs_step_boundary(k, soiled):
-    # documented: an interval is soiling only when its Theil–Sen line explains it at least as
-    # well as a single step (line_vs_step <= 1). The series is a flat part and a ramp whose
-    # mix is tuned so the ratio is just below, at and just above 1 (scaled noise-free
+    # documented: an interval is soiling only when a single step does not explain it clearly
+    # better than its Theil–Sen line (line_vs_step <= 1.5). The series is a flat part and a
+    # ramp whose mix is tuned so the ratio is just below, at and just above 1.5 (noise-free
     # residual pattern, bisection on the mix; the ratio itself is recomputed here by the
     # definition: L1 residuals of scipy's Theil–Sen line over the best two-median split).
     x = np.arange(20.0)
@@ -277,11 +277,11 @@ def test_line_vs_step_boundary(k, soiled):
     for _ in range(60):
         mid = (lo + hi) / 2
         lo, hi = (mid, hi) if ratio(mid)[0] < k else (lo, mid)
-    r, y = ratio(lo if k <= 1.0 else hi)
+    r, y = ratio(lo if k <= 1.5 else hi)
     assert line_vs_step(y, x) == pytest.approx(r, rel=1e-12)
     iv = soiling_intervals(pd.Series(0.97 * y, index=pd.date_range("2024-05-01", periods=20)),
                            [])
-    assert bool(iv["soiled"].iloc[0]) == (r <= 1.0) == soiled
+    assert bool(iv["soiled"].iloc[0]) == (r <= 1.5) == soiled
 
 
 def test_flat_interval_with_a_bad_last_week_is_not_soiling():
@@ -318,3 +318,47 @@ def test_exact_lost_energy_noise_free():
         want = 4500.0 * -r * n * (n - 1) / 2
         assert so.loc[k, "lost_kwh"] == pytest.approx(want, rel=1e-9)
     assert so.loc[3, "lost_kwh"] == pytest.approx(33412.5, rel=1e-9)
+
+
+def _ar1(rng, n, rho, sd):
+    e = np.empty(n)
+    e[0] = rng.standard_normal()
+    for i in range(1, n):
+        e[i] = rho * e[i - 1] + math.sqrt(1 - rho ** 2) * rng.standard_normal()
+    return sd * e
+
+
+def test_monte_carlo_interval_centred_on_point_and_holds_under_autocorrelated_noise():
+    # Known case: four linear dry intervals with full cleanings (RATES, CLEANINGS), equal
+    # insolation, so the true SR_iw is the mean of the piecewise-linear SR (hand calculation:
+    # 1 + Σ_j r_j L_j (L_j − 1) / 2 / 300 = 0.9492, rates r_j < 0). Noise: AR(1), ρ = 0.7, 1 % (weather
+    # regimes of several days). The Theil–Sen interval assumes independent residuals; the
+    # rate's standard error is widened by √((1 + ρ)/(1 − ρ)) (Santer et al. 2000).
+    h = pd.Series(6.0, index=DAYS)
+    lengths = np.diff([0, *[(c - DAYS[0]).days for c in CLEANINGS], len(DAYS)])
+    truth = 1 + sum(r * n * (n - 1) / 2 for r, n in zip(RATES, lengths, strict=True)) / len(DAYS)
+    assert truth == pytest.approx(soiling_ratio_insolation_weighted(_true_sr(), h), abs=1e-12)
+    hits = hits_plain = 0
+    for seed in range(40):
+        rng = np.random.default_rng(1000 + seed)
+        pi = 0.97 * _true_sr() * (1 + _ar1(rng, len(DAYS), 0.7, 0.01))
+        iv = soiling_intervals(pi, CLEANINGS)
+        point = soiling_ratio_insolation_weighted(soiling_ratio_series(DAYS, iv), h)
+        mc = soiling_ratio_insolation_weighted_mc(DAYS, iv, h, n_runs=400)
+        lo, mid, hi = (mc[k] for k in ("soiling_ratio_weighted_low", "soiling_ratio_weighted",
+                                        "soiling_ratio_weighted_high"))
+        # the point estimate and the Monte-Carlo draws share the full-recovery assumption:
+        # the point is the centre of the draws, inside the interval with room on both sides
+        assert lo < point < hi
+        assert abs(mid - point) < 0.25 * (hi - lo)
+        hits += lo <= truth <= hi
+        plain = soiling_ratio_insolation_weighted_mc(DAYS, iv.drop(columns="rate_sigma"), h,
+                                                     n_runs=400)
+        hits_plain += plain["soiling_ratio_weighted_low"] <= truth <= plain[
+            "soiling_ratio_weighted_high"]
+    # 95 % interval: measured 32 of 40 with the widening, 25 of 40 without it (the plain
+    # Theil-Sen interval is too narrow under autocorrelation); require >= 30 of 40
+    assert hits >= 30 and hits_plain < hits
+    # partial recovery is a one-sided sensitivity: its whole distribution lies below
+    part = soiling_ratio_insolation_weighted_mc(DAYS, iv, h, n_runs=400, recovery_min=0.5)
+    assert part["soiling_ratio_weighted"] < lo

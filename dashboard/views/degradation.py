@@ -232,9 +232,12 @@ else:
         st.caption(f"Bar: energy lost to soiling over {period[0]} … {period[1]}, weighted by "
                    f"insolation (Deceglie et al. 2018), {soil['loss_pct']:.2f} % if every "
                    "cleaning and washing rain restored the clean level"
-                   + (f"; {lo:.2f} … {hi:.2f} % if recoveries were only partial (Monte-Carlo "
-                      "over the soiling rates' intervals and recoveries between half and full)"
-                      if lo is not None and hi is not None else "") + ". "
+                   + (f" (95 % interval {lo:.2f} … {hi:.2f} %, Monte-Carlo over the soiling "
+                      "rates' standard errors, same assumption)"
+                      if lo is not None and hi is not None else "")
+                   + (f"; {soil['loss_partial_recovery_pct']:.2f} % if cleanings restored only "
+                      "half to all of the lost output"
+                      if soil.get("loss_partial_recovery_pct") is not None else "") + ". "
                    + (soil.get("caution") or ""))
     elif soil.get("caution"):
         st.caption(soil["caution"])

@@ -443,7 +443,9 @@ def _fast(block: str, nlines: int, source: Source, meta: ExportMeta, ncols: int)
                          dtype=dtype, na_values=list(source.missing_values),
                          keep_default_na=False, decimal=source.decimal, engine="c",
                          skip_blank_lines=False, quoting=csv.QUOTE_MINIMAL)
-    except (ValueError, pd.errors.ParserError):
+    except ValueError:  # a cell that is not a number: only its own column is coerced
+        return _fast_by_column(block, nlines, source, meta, str_pos, vpos)
+    except pd.errors.ParserError:
         return None
     if len(df) != nlines:
         return None
@@ -454,6 +456,71 @@ def _fast(block: str, nlines: int, source: Source, meta: ExportMeta, ncols: int)
         long = {r: df[p].to_numpy(dtype=object) for r, p in meta.long_index.items() if r != "value"}
     return Chunk(line=np.empty(0), ts_raw=ts, values=values, bad_cells=[], bad_rows={}, text=[],
                  long=long)
+
+
+def _fast_by_column(block: str, nlines: int, source: Source, meta: ExportMeta,
+                    str_pos: list[int], vpos: list[int]) -> Chunk | None:
+    """The C parser to text, then each value column to float64 on its own: a column whose
+    cells all parse is converted at once, and only a column with a bad cell is coerced cell
+    by cell (:func:`_coerce_column`) with each bad cell reported (issue #16: one bad cell
+    sent its whole chunk to the Python parser)."""
+    try:
+        df = pd.read_csv(io.StringIO(block), sep=source.delimiter, header=None,
+                         usecols=str_pos + vpos, dtype=object, na_filter=False,
+                         engine="c", skip_blank_lines=False, quoting=csv.QUOTE_MINIMAL)
+    except (ValueError, pd.errors.ParserError):
+        return None
+    if len(df) != nlines:
+        return None
+    values = np.full((nlines, len(vpos)), np.nan)
+    bad_cells: list[tuple[int, int, str, str]] = []
+    for j, p in enumerate(vpos):
+        raw = df[p].to_numpy(dtype=object)
+        txt = raw.astype(str)
+        plain = True  # a '.' where ',' is the decimal separator is an error: coerce
+        if source.decimal == ",":
+            plain = not (np.char.find(txt, ".") >= 0).any()
+            txt = np.char.replace(txt, ",", ".") if plain else txt
+        if plain:
+            try:
+                values[:, j] = txt.astype(np.float64)
+                continue
+            except ValueError:
+                pass
+        values[:, j], bad = _coerce_column(raw, source)
+        bad_cells += [(r, j, text, why) for r, text, why in bad]
+    ts = df[meta.ts_index].to_numpy(dtype=object)
+    long = None
+    if meta.long_index:
+        long = {r: df[p].to_numpy(dtype=object) for r, p in meta.long_index.items() if r != "value"}
+    return Chunk(line=np.empty(0), ts_raw=ts, values=values, bad_cells=bad_cells, bad_rows={},
+                 text=[], long=long)
+
+
+def _coerce_column(raw: np.ndarray, source: Source, skip_rows=()) -> tuple[np.ndarray, list]:
+    """One column of cell texts to float64: missing-value tokens -> NaN, anything else that
+    is not a number (in the source's decimal separator) -> NaN and reported as
+    ``(row, text, reason)``; rows in ``skip_rows`` are not reported."""
+    missing = set(source.missing_values)
+    dec = source.decimal
+    stripped = np.array([s.strip() for s in raw], dtype=object)
+    is_missing = np.array([s in missing for s in stripped], dtype=bool)
+    norm = stripped
+    if dec == ",":
+        has_dot = np.array(["." in s for s in stripped], dtype=bool)
+        norm = np.array([s.replace(",", ".") for s in stripped], dtype=object)
+        norm[has_dot] = "x"  # a '.' where ',' is the decimal separator is an error
+    num = pd.to_numeric(pd.Series(norm, dtype=object).where(~is_missing, None),
+                        errors="coerce").to_numpy(dtype=np.float64, copy=True)
+    bad = ~is_missing & np.isnan(num)  # NaN spellings count as missing only if configured
+    for r in skip_rows:
+        bad[r] = False
+    num[bad] = np.nan
+    tokens = ", ".join(repr(m) for m in [x for x in source.missing_values if x][:4])
+    return num, [(int(r), str(raw[r]),
+                  f"value {str(raw[r])!r} is not a number (expected decimal separator "
+                  f"{dec!r}, or a missing-value token such as {tokens})")
+                 for r in np.flatnonzero(bad)]
 
 
 def _slow(text: list[str], source: Source, meta: ExportMeta, ncols: int) -> Chunk:
@@ -471,29 +538,9 @@ def _slow(text: list[str], source: Source, meta: ExportMeta, ncols: int) -> Chun
             cells[r] = row
     values = np.full((n, len(vpos)), np.nan)
     bad_cells: list[tuple[int, int, str, str]] = []
-    missing = set(source.missing_values)
-    dec = source.decimal
     for j, p in enumerate(vpos):
-        raw = cells[:, p]
-        stripped = np.array([s.strip() for s in raw], dtype=object)
-        is_missing = np.array([s in missing for s in stripped], dtype=bool)
-        norm = stripped
-        if dec == ",":
-            has_dot = np.array(["." in s for s in stripped], dtype=bool)
-            norm = np.array([s.replace(",", ".") for s in stripped], dtype=object)
-            norm[has_dot] = "x"  # a '.' where ',' is the decimal separator is an error
-        num = pd.to_numeric(pd.Series(norm, dtype=object).where(~is_missing, None),
-                            errors="coerce").to_numpy(dtype=np.float64, copy=True)
-        bad = ~is_missing & np.isnan(num)  # NaN spellings count as missing only if configured
-        for r in bad_rows:
-            bad[r] = False
-        num[bad] = np.nan
-        values[:, j] = num
-        for r in np.flatnonzero(bad):
-            bad_cells.append((int(r), j, str(raw[r]),
-                              f"value {str(raw[r])!r} is not a number (expected decimal "
-                              f"separator {dec!r}, or a missing-value token such as "
-                              f"{', '.join(repr(m) for m in [x for x in source.missing_values if x][:4])})"))
+        values[:, j], bad = _coerce_column(cells[:, p], source, skip_rows=bad_rows)
+        bad_cells += [(r, j, text, why) for r, text, why in bad]
     long = None
     if meta.long_index:
         long = {r: cells[:, p].copy() for r, p in meta.long_index.items() if r != "value"}

@@ -10,6 +10,9 @@ fresh child process (peak RSS per step is the child's own VmHWM):
   changed), into that store: the compare-with-stored and upsert path;
 * ``plain``: ``pandas.read_csv`` of the whole file, ``melt`` to readings, ``DataFrame.to_sql``
   (``chunksize=200_000``) into a fresh SQLite file with the same schema;
+* ``limit``: the minimal best-case Python + SQLite loader (C-parser ``read_csv`` to float64,
+  ``executemany`` into a ``WITHOUT ROWID`` table keyed (channel, ts), one transaction), the
+  limit issue #16 measures ingest against (target >= 0.85 of its readings/s);
 
 and prints readings/s, peak RSS and the ratio. ``--pg URL`` adds ours on PostgreSQL (day rows
 by ``COPY ... (FORMAT BINARY)``), the bytes per reading it stored, a raw ``COPY`` of the same
@@ -214,6 +217,36 @@ def pg_store_bytes(url: str, schema_name: str) -> float | None:
     return float(size)
 
 
+def step_limit(db: str, cfg_path: str, csv: str) -> None:
+    """The minimal best-case loader (issue #16's "limit"): pandas' C parser to float64, then
+    one ``executemany`` of (channel, ts, value) per column into a ``WITHOUT ROWID`` table keyed
+    (channel_id, ts_s), WAL, synchronous=NORMAL, one transaction; no checks, no bookkeeping."""
+    import sqlite3
+    from itertools import repeat
+
+    import pandas as pd
+
+    t0 = time.perf_counter()
+    df = pd.read_csv(csv, engine="c")
+    ts = (pd.to_datetime(df.pop("Time"), format="%Y-%m-%d %H:%M").astype("datetime64[s]")
+          .astype("int64") - 300).to_numpy()
+    con = sqlite3.connect(db)
+    con.execute("PRAGMA journal_mode=WAL")
+    con.execute("PRAGMA synchronous=NORMAL")
+    con.execute("CREATE TABLE reading (channel_id INTEGER NOT NULL, ts_s INTEGER NOT NULL, "
+                "value REAL, PRIMARY KEY (channel_id, ts_s)) WITHOUT ROWID")
+    n = 0
+    with con:
+        for k, col in enumerate(df.columns):
+            v = df[col].to_numpy(dtype=float)
+            ok = np.isfinite(v)
+            con.executemany("INSERT INTO reading VALUES (?, ?, ?)",
+                            zip(repeat(k), ts[ok].tolist(), v[ok].tolist()))
+            n += int(ok.sum())
+    con.close()
+    print(f"RESULT {time.perf_counter() - t0:.3f} {n} {peak_rss_mib()}")
+
+
 def peak_rss_mib() -> int:
     """Peak resident memory of this process since exec (VmHWM), MiB.
 
@@ -251,7 +284,7 @@ def main() -> None:
         elif name == "pg_copy_raw":
             step_pg_copy_raw(*rest)
         else:
-            {"ours": step_ours, "plain": step_plain}[name](*rest)
+            {"ours": step_ours, "plain": step_plain, "limit": step_limit}[name](*rest)
         return
     with tempfile.TemporaryDirectory(prefix="bench_ingest_") as tmp:
         d = Path(tmp)
@@ -268,6 +301,7 @@ def main() -> None:
             res["ours"] = run_child("ours", str(d / "ours.sqlite"), str(cfg), str(csv))
             res["ours-overlap"] = run_child("ours", str(d / "ours.sqlite"), str(cfg), str(csv2))
             res["plain"] = run_child("plain", str(d / "plain.sqlite"), str(cfg), str(csv))
+            res["limit"] = run_child("limit", str(d / "limit.sqlite"), str(cfg), str(csv))
         if a.pg:
             import sqlalchemy as sa
 
@@ -300,6 +334,9 @@ def main() -> None:
                   f"of the same readings (readings/s): {ratio:.2f}  (target >= 0.8)")
             print(f"PostgreSQL store after ours-postgres: {size / res['ours-postgres'][1]:.1f} "
                   "bytes/reading (reading tables, indexes and TOAST)")
+        if "limit" in res:
+            ratio = (res["ours"][1] / res["ours"][0]) / (res["limit"][1] / res["limit"][0])
+            print(f"ratio ours / minimal loader limit (readings/s): {ratio:.2f} (target >= 0.85)")
 
 
 if __name__ == "__main__":

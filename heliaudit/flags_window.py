@@ -1,0 +1,222 @@
+"""Incremental flags (issue #16): recompute only the window new data can change.
+
+Each detector declares how far back it has to look (:data:`LOOKBACK`). Three groups:
+
+* **each inverter's own flags from its intervals** (outage, clipping by month, power-channel
+  range / flatline / dropout, energy-counter check by month, input mismatch): recomputed from
+  a *cut* on, reading the intervals from the cut minus the look-back. Flags that start before
+  the cut are kept from the store (``flag_part``) as the detectors gave them. The cut is the
+  start of the local month two days before the first new reading (or before the last reading
+  the previous run saw, if earlier: data loaded out of order), moved back to the start of
+  any kept flag still open at it (an outage across nights, a flat line, a month of clipping),
+  so an event is always recomputed whole and never split at the cut;
+* **whole-history detectors on daily inputs** (soiling and cleanings, underperformance with
+  its 90-day own history, fleet-power drift, each inverter's clock shift from its daily
+  offsets): rerun over the whole history every time, from the daily table and the daily
+  inputs kept in ``flag_day`` (unclipped daily index, energy withheld by a power limit, clock
+  offset and clear-day mark per inverter and day) with the new days computed from the window;
+* **sensors** (few channels: plausibility, range, flatline, dropout, night, clock, clear-sky
+  and sibling drift) and the last reading of each device: read and judged whole every run.
+
+Then the site-wide merging (simultaneous outages, clipping by month, clock agreement, shared
+dropouts, root causes) runs over all of it, as in a full run, and only flags that changed are
+replaced in the store. An inverter with a power limit is read whole (the limit's level is
+estimated from every high-irradiance interval); a limit appearing for the first time is found
+by the next full run (``compute --full``, or the schedule in ``heliaudit.cmd_compute``).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from analytics.outliers import FLAG_COLUMNS
+
+#: Look-back of each detector [days] (how far before the cut its input must reach), or
+#: "history" for those rerun over the whole history from daily inputs or whole channels.
+LOOKBACK = {
+    "outage": 1,              # runs bridge nights; daily window edges and whole-day counts
+    "sensor_range": 1,        # runs of the power channel, merged across short gaps
+    "sensor_flatline": 1,     # >= 4-8 equal samples
+    "data_dropout": 1,        # missing power while the sun is up
+    "clipping": 0,            # per local month: the cut is a month start
+    "counter_mismatch": 1,    # per local month; one day for the first counter difference
+    "input_mismatch": 30,     # >= 3 of 5 valid days, cleared after 3 normal days
+    "power_limit": "history",     # one level from every high-irradiance interval
+    "clock_shift": "history",     # rolling median of 7 clear days, from stored daily offsets
+    "underperformance": "history",  # peers, 90-day own history, persistence (daily table)
+    "soiling": "history",     # intervals between cleanings (daily table + stored daily index)
+    "sensors": "history",     # every sensor channel whole: drift needs years
+    "stopped_reporting": "history",  # each device's last reading (kept per inverter)
+}
+#: Days before the first new reading from which flags are recomputed (then back to a month start).
+MARGIN_DAYS = 2
+
+
+def _lookback_days(kinds) -> int:
+    return max(int(LOOKBACK[k]) for k in kinds if LOOKBACK[k] != "history")
+
+
+INTERVAL_LOOKBACK_DAYS = _lookback_days(k for k in LOOKBACK if k != "input_mismatch")
+INPUT_LOOKBACK_DAYS = int(LOOKBACK["input_mismatch"])
+
+
+def _day_ts(day_no: int) -> pd.Timestamp:
+    return pd.Timestamp(int(day_no) * 86400, unit="s")
+
+
+def month_start_s(t_s: int, std_offset_s: int) -> int:
+    """UTC epoch seconds of the start of the local standard month containing ``t_s``."""
+    d = dt.datetime.fromtimestamp(int(t_s) + int(std_offset_s), dt.UTC).date().replace(day=1)
+    return int(dt.datetime(d.year, d.month, 1, tzinfo=dt.UTC).timestamp()) - int(std_offset_s)
+
+
+def find_cut(first_new_s: int, through_s: int | None, parts: pd.DataFrame,
+             std_offset_s: int, full_devices=()) -> int:
+    """The cut (UTC s, a local month start): flags starting from it are recomputed.
+
+    Starts at the month of ``MARGIN_DAYS`` before the earlier of the first new reading and
+    the last reading the previous run saw, and moves back to the month start of any kept
+    flag that is still open at it, until none is.
+    """
+    t = int(first_new_s) if through_s is None else min(int(first_new_s), int(through_s))
+    cut = month_start_s(t - MARGIN_DAYS * 86400, std_offset_s)
+    if parts.empty:
+        return cut
+    p = parts[~parts["device_id"].isin(list(full_devices))]
+    start, end = p["start_s"].to_numpy(np.int64), p["end_s"].to_numpy(np.int64)
+    while True:
+        open_ = (start < cut) & (end >= cut)
+        if not open_.any():
+            return cut
+        cut = month_start_s(int(start[open_].min()), std_offset_s)
+
+
+def day_products(withheld: dict, soiling_pi: dict, clock_days: dict, *,
+                 from_day: int | None = None, keep=()) -> pd.DataFrame:
+    """One row per inverter and local day with the daily inputs of the whole-history
+    detectors (the ``flag_day`` columns); ``clock_clear`` is None on days without an offset.
+    With ``from_day`` only days from it on (all days of the inverters in ``keep``)."""
+    if from_day is not None:
+        cut = _day_ts(from_day)
+
+        def tail(src):
+            return {d: (x if d in keep or x is None else x[x.index >= cut])
+                    for d, x in src.items()}
+
+        withheld, soiling_pi, clock_days = tail(withheld), tail(soiling_pi), tail(clock_days)
+    pieces = []
+    for name, src in (("withheld_kwh", withheld), ("soiling_pi", soiling_pi)):
+        for dev, x in src.items():
+            if x is not None and len(x):
+                pieces.append(pd.DataFrame({"device_id": dev, "day_no": _day_numbers(x.index),
+                                            "col": name, "v": x.to_numpy(float)}))
+    frames = [pd.concat(pieces, ignore_index=True).pivot_table(
+        index=["device_id", "day_no"], columns="col", values="v", aggfunc="first",
+        dropna=False)] if pieces else []
+    clocks = []
+    for dev, off in clock_days.items():
+        if len(off):
+            clocks.append(pd.DataFrame({"clock_delta_min": off["delta_min"].to_numpy(float),
+                                        "clock_clear": off["clear"].to_numpy(bool)},
+                                       index=pd.MultiIndex.from_arrays(
+                                           [np.full(len(off), dev, dtype=object),
+                                            _day_numbers(off.index)],
+                                           names=["device_id", "day_no"])))
+    if clocks:
+        frames.append(pd.concat(clocks))
+    cols = ["device_id", "day_no", "soiling_pi", "withheld_kwh", "clock_delta_min", "clock_clear"]
+    if not frames:
+        return pd.DataFrame(columns=cols)
+    out = frames[0] if len(frames) == 1 else frames[0].join(frames[1], how="outer")
+    out = out.reset_index().reindex(columns=cols)
+    out["clock_clear"] = pd.Series([None if v is None or v != v else bool(v)
+                                    for v in out["clock_clear"]], dtype=object)
+    return out.sort_values(["device_id", "day_no"], kind="stable").reset_index(drop=True)
+
+
+def _day_numbers(index) -> np.ndarray:
+    return pd.DatetimeIndex(index).as_unit("s").asi8 // 86400
+
+
+@dataclass
+class Prior:
+    """What an incremental run takes from the store: each inverter's own flags before
+    ``cut_s``, the daily inputs before ``cut_day``, each inverter's last reading, the
+    inverters that ever had data, and those read whole (``full_devices``)."""
+
+    cut_s: int
+    cut_day: int
+    parts: pd.DataFrame
+    late_parts: pd.DataFrame  # input mismatch: added after the site-wide merging
+    days: pd.DataFrame
+    last_seen: dict = field(default_factory=dict)
+    seen: set = field(default_factory=set)
+    full_devices: set = field(default_factory=set)
+
+    @classmethod
+    def from_store(cls, cut_s: int, cut_day: int, parts: pd.DataFrame, days: pd.DataFrame,
+                   state: dict) -> Prior:
+        full = set(state.get("full_devices", []))
+        keep = (parts["start_s"] < cut_s) & ~parts["device_id"].isin(list(full))
+        kept = parts[keep]
+        late = kept["kind"] == "input_mismatch"
+        d = days[(days["day_no"] < cut_day) & ~days["device_id"].isin(list(full))]
+        return cls(cut_s=int(cut_s), cut_day=int(cut_day),
+                   parts=kept[~late][list(FLAG_COLUMNS)].reset_index(drop=True),
+                   late_parts=kept[late][list(FLAG_COLUMNS)].reset_index(drop=True),
+                   days=d.reset_index(drop=True),
+                   last_seen={k: int(v) for k, v in state.get("last_seen", {}).items()},
+                   seen=set(state.get("seen", [])), full_devices=full)
+
+    def keep_new(self, part: pd.DataFrame) -> pd.DataFrame:
+        """Rows of a window's flags that the window decides: from the cut on, or of an
+        inverter read whole."""
+        if part.empty:
+            return part
+        m = (part["start_s"].to_numpy(np.int64) >= self.cut_s) | \
+            part["device_id"].isin(list(self.full_devices)).to_numpy()
+        return part[m]
+
+    def merge(self, inv_parts, withheld, soiling_pi, clock_days):
+        """Window results joined with the stored ones: flags before the cut and daily
+        inputs before the cut day from the store, the rest from the window."""
+        parts = [self.parts] if len(self.parts) else []
+        parts += [k for k in (self.keep_new(p) for p in inv_parts if len(p)) if len(k)]
+        cut = _day_ts(self.cut_day)
+        by_dev = {dev: g for dev, g in self.days.groupby("device_id")}
+
+        def join(stored, window):
+            if window is not None and len(window):
+                window = window[window.index >= cut]
+            pieces = [x for x in (stored, window) if x is not None and len(x)]
+            return pd.concat(pieces) if len(pieces) > 1 else (pieces[0] if pieces else None)
+
+        out_w, out_s, out_c = {}, {}, {}
+        for dev in set(by_dev) | set(withheld) | set(soiling_pi) | set(clock_days):
+            if dev in self.full_devices:
+                for out, src in ((out_w, withheld), (out_s, soiling_pi), (out_c, clock_days)):
+                    if dev in src:
+                        out[dev] = src[dev]
+                continue
+            g = by_dev.get(dev)
+            sw = ss = sc = None
+            if g is not None:
+                idx = pd.to_datetime(g["day_no"].to_numpy(np.int64) * 86400, unit="s")
+                w = g["withheld_kwh"].notna().to_numpy()
+                sw = pd.Series(g["withheld_kwh"].to_numpy(float)[w], index=idx[w]) if w.any() else None
+                s = g["soiling_pi"].notna().to_numpy()
+                ss = pd.Series(g["soiling_pi"].to_numpy(float)[s], index=idx[s])
+                c = g["clock_clear"].notna().to_numpy()
+                sc = pd.DataFrame({"delta_min": g["clock_delta_min"].to_numpy(float)[c],
+                                   "clear": g["clock_clear"].to_numpy()[c].astype(bool)},
+                                  index=idx[c])
+            for out, stored, src in ((out_w, sw, withheld), (out_s, ss, soiling_pi),
+                                     (out_c, sc, clock_days)):
+                got = join(stored, src.get(dev))
+                if got is not None:
+                    out[dev] = got
+        return parts, out_w, out_s, out_c

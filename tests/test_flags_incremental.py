@@ -1,0 +1,150 @@
+"""Incremental flags equal a full recompute (issue #16).
+
+A site of 6 inverters gets 10 weeks of data, a full daily table and full flags; then one more
+week is appended and only the daily rows of that week and the flags window are recomputed.
+The flags table must then hold exactly what a full recompute of the same store gives: the
+same events with the same dates, severity, details and lost energy. The reference is the
+full recompute (the detectors as they run on the whole history), not a copy of the window
+logic; the faults injected across the boundary make events that the window has to merge.
+"""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import sqlalchemy as sa
+
+from db import schema
+from db.flags import read_flags
+from heliaudit.jobs_daily import recompute_all, recompute_range
+from heliaudit.jobs_flags import run_flags
+from tests.flags_synth import ALT, AZ, LAT, LON, TILT, inverter_power, site_weather
+from tests.helpers_store import add_inverter, add_readings, add_sensor, add_site, make_store
+
+BOUNDARY = pd.Timestamp("2024-07-10 07:00", tz="UTC")  # first reading of the new week
+
+
+def _s(t) -> int:
+    return int(pd.Timestamp(t).value // 10**9)
+
+
+def _site_data():
+    w = site_weather(start="2024-05-01", days=77, seed=5)
+    rng = np.random.default_rng(11)
+    power = {}
+    for i in range(6):
+        dev = f"inv{i + 1}"
+        kwp = 120.0 if dev == "inv6" else 100.0  # inv6 clips (DC/AC 1.2)
+        p = inverter_power(w, p_dc_kwp=kwp, p_ac_max_kw=100.0) * (
+            1 + 0.005 * rng.standard_normal(len(w)))
+        if dev == "inv2":  # an outage across the boundary: two days before to a day after
+            p[BOUNDARY - pd.Timedelta("2D"):BOUNDARY + pd.Timedelta("1D")] = 0.0
+        if dev == "inv3":  # a lost string from 2024-06-20 on: underperformance still open
+            p["2024-06-20 07:00":] *= 5 / 6
+        if dev == "inv4":  # a flat power reading inside the new week
+            p["2024-07-13 17:00":"2024-07-13 20:00"] = 42.0
+        if dev == "inv5":  # stops reporting four days before the end
+            p[w.index[-1] - pd.Timedelta("4D"):] = np.nan
+        power[dev] = p.clip(0, 100.0)
+    return w, power
+
+
+def _load(eng, w, power, lo, hi, first: bool) -> None:
+    m = (w.index >= lo) & (w.index < hi)
+    ts = w.index[m].as_unit("s").asi8
+    with eng.begin() as conn:
+        if first:
+            add_site(conn, "s1", timezone="America/Denver", latitude_deg=LAT,
+                     longitude_deg=LON, altitude_m=ALT, tilt_deg=TILT, azimuth_deg=AZ)
+            add_sensor(conn, "s1", "poa1", "poa_wm2", instrument="reference_cell")
+            add_sensor(conn, "s1", "tmod1", "t_module_c")
+            for dev in power:
+                add_inverter(conn, "s1", dev, poa_sensor_id="poa1", t_module_sensor_id="tmod1",
+                             p_dc_kwp=120.0 if dev == "inv6" else 100.0, p_ac_max_kw=100.0,
+                             gamma_pmp_per_c=-0.0035)
+        chans = {(r.device_id, r.quantity): r.channel_id for r in conn.execute(
+            sa.select(schema.device.c.device_id, schema.channel.c.quantity,
+                      schema.channel.c.channel_id).join(
+                schema.channel, schema.channel.c.device_pk == schema.device.c.device_pk))}
+        add_readings(conn, chans[("poa1", "poa_wm2")], ts, w["poa_wm2"][m])
+        add_readings(conn, chans[("tmod1", "t_module_c")], ts, w["t_module_c"][m])
+        for dev, p in power.items():
+            add_readings(conn, chans[(dev, "p_ac_kw")], ts, p[m])
+
+
+def _table(eng) -> pd.DataFrame:
+    fl = read_flags(eng, "s1")
+    fl["details"] = [json.loads(d) if d else None for d in fl.pop("details_json")]
+    fl = fl.drop(columns=["flag_id"])
+    key = ["kind", "device_id", "start_s", "end_s"]
+    return fl.assign(device_id=fl["device_id"].fillna("")).sort_values(key).reset_index(drop=True)
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory):
+    eng = make_store(tmp_path_factory.mktemp("flags_incremental"))
+    w, power = _site_data()
+    _load(eng, w, power, w.index[0], BOUNDARY, first=True)
+    recompute_all(eng, "s1")
+    run_flags(eng, "s1", full=True)
+    before = _table(eng)
+    _load(eng, w, power, BOUNDARY, w.index[-1] + pd.Timedelta("1h"), first=False)
+    recompute_range(eng, "s1", _s(BOUNDARY), int(w.index[-1].value // 10**9))
+    run_flags(eng, "s1", full=False, since_s=_s(BOUNDARY))
+    incremental = _table(eng)
+    with eng.connect() as conn:
+        scopes = conn.execute(sa.select(schema.computation.c.scope).where(
+            schema.computation.c.kind == "flags").order_by(
+            schema.computation.c.computation_id)).scalars().all()
+    run_flags(eng, "s1", full=True)
+    return before, incremental, _table(eng), scopes, eng
+
+
+def test_incremental_run_used_a_window(runs):
+    _before, _inc, _full, scopes, _eng = runs
+    assert scopes[0] == "full"
+    # the cut is the start of the local month two days before the new week: 2024-07-01
+    # 00:00 local standard time (UTC-7) = 07:00 UTC
+    assert scopes[1] == "window from 2024-07-01 07:00 UTC"
+
+
+def test_incremental_flags_equal_full_recompute(runs):
+    _before, inc, full, _scopes, _eng = runs
+    cols = ["kind", "device_id", "start_s", "end_s", "severity"]
+    assert inc[cols].to_dict("records") == full[cols].to_dict("records")
+    np.testing.assert_allclose(inc["lost_kwh"].to_numpy(float), full["lost_kwh"].to_numpy(float),
+                               rtol=1e-9, equal_nan=True)
+    assert inc["details"].tolist() == full["details"].tolist()
+
+
+def test_boundary_events_are_merged_not_split(runs):
+    before, _inc, full, _scopes, _eng = runs
+    b = _s(BOUNDARY)
+    out = full[(full["kind"] == "outage") & (full["device_id"] == "inv2")]
+    # one outage from two days before the boundary to a day after (±1 h for the sunny-gate
+    # edges), not one piece on each side
+    assert len(out) == 1
+    assert out.iloc[0]["start_s"] < b < out.iloc[0]["end_s"]
+    assert out.iloc[0]["end_s"] - out.iloc[0]["start_s"] >= 2.5 * 86400
+    # before the new week the same outage was open at the end of the data
+    old = before[(before["kind"] == "outage") & (before["device_id"] == "inv2")]
+    assert len(old) == 1 and old.iloc[0]["details"]["ongoing"]
+    assert old.iloc[0]["lost_kwh"] < out.iloc[0]["lost_kwh"]
+    # the lost string's underperformance starts in the old data and runs into the new week
+    up = full[(full["kind"] == "underperformance") & (full["device_id"] == "inv3")]
+    assert len(up) == 1 and up.iloc[0]["start_s"] < b < up.iloc[0]["end_s"]
+    assert (full["kind"] == "stopped_reporting").any()
+
+
+def test_configuration_change_makes_the_next_run_full(runs):
+    """Stored flags were made with the old inverter ratings and sensors: recompute all."""
+    eng = runs[-1]
+    with eng.begin() as conn:
+        conn.execute(schema.site.update().values(config_sha256="1" * 64))
+    run_flags(eng, "s1", full=False)
+    with eng.connect() as conn:
+        scope = conn.execute(sa.select(schema.computation.c.scope).where(
+            schema.computation.c.kind == "flags").order_by(
+            schema.computation.c.computation_id.desc()).limit(1)).scalar()
+    assert scope == "full"
