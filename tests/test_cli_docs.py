@@ -59,14 +59,18 @@ def _slug(heading: str) -> str:
     return re.sub(r"[^\w\- ]", "", heading.strip().lower()).replace(" ", "-")
 
 
-def _anchors(text: str) -> set[str]:
+def _headings(text: str) -> list[str]:
     heads, code = [], False
     for ln in text.splitlines():
         if ln.startswith("```"):
             code = not code
         elif not code and ln.startswith("#"):
             heads.append(ln.lstrip("#"))
-    return {_slug(h) for h in heads}
+    return heads
+
+
+def _anchors(text: str) -> set[str]:
+    return {_slug(h) for h in _headings(text)}
 
 
 def test_doc_links_resolve():
@@ -127,3 +131,21 @@ def test_no_file_cites_documents_outside_the_repository():
                 if needle in line:
                     found.append(f"{path.relative_to(root)}:{n}: {needle}")
     assert not found, "cite the primary source instead:\n" + "\n".join(found)
+
+
+def test_named_readme_sections_exist():
+    """Code and docs that point to a README section by name (README "X", README *X*) name
+    one README has: a section moved to docs/ must be cited there."""
+    import re
+
+    heads = [h.strip().lower() for h in _headings(README)]
+    pattern = re.compile(r"README(?:'s)?,? (?:section )?[\"*]([^\"*]{3,60})[\"*]")
+    found = 0
+    for path in _tracked_text_files(ROOT):
+        if path.suffix not in (".py", ".md", ".toml") or not path.is_file():
+            continue
+        for name in pattern.findall(path.read_text(encoding="utf-8", errors="replace")):
+            found += 1
+            assert any(h.startswith(name.strip().lower()) for h in heads), \
+                f"{path.relative_to(ROOT)}: README has no section {name!r}"
+    assert found >= 3
