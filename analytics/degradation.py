@@ -1121,6 +1121,29 @@ def _lbl(code: str) -> str:
     return f"'{name}'"
 
 
+def _fallback_evidence(drift, shifts, loss, min_soiling_loss_pct: float,
+                       soiling_cancels: bool) -> str:
+    """Why the plain rate is recommended, in words that agree with the reasons before it.
+
+    >>> _fallback_evidence(None, [], 0.5, 2.0, False)
+    'no sensor drift, level shift or material soiling found'
+    >>> _fallback_evidence({"judged": True}, [], 3.0, 2.0, True)
+    'no level shift found; the soiling cancels in the year pairs; the rule for the evidence above gave no rate'
+    """
+    seen = {"sensor drift": bool(drift and drift.get("judged")), "level shift": bool(shifts),
+            "material soiling": loss is not None and loss >= min_soiling_loss_pct}
+    absent = [w for w, s in seen.items() if not s]
+    parts = []
+    if absent:
+        words = absent[0] if len(absent) == 1 else ", ".join(absent[:-1]) + " or " + absent[-1]
+        parts.append(f"no {words} found")
+    if soiling_cancels:
+        parts.append("the soiling cancels in the year pairs")
+    if seen["sensor drift"] or seen["level shift"]:
+        parts.append("the rule for the evidence above gave no rate")
+    return "; ".join(parts)
+
+
 def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                    shifts: list[dict] | None = None, soiling: dict | None = None,
                    sensor_id: str | None = None, low: float = -2.0, high: float = 0.5,
@@ -1215,6 +1238,7 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
             reasons.append(f"{len(shifts)} persistent level shift(s) found: the rate within the "
                            f"segments between them, {_lbl(BETWEEN_SHIFTS)}, is recommended")
     loss = None if not soiling else soiling.get("loss_pct")
+    soiling_cancels = False
     if loss is not None and loss >= min_soiling_loss_pct:
         caveats.append({"kind": "soiling", "method": YEAR_PAIRS,
                         "text": f"soiling costs about {loss:.1f} % of the energy; soiling that differs "
@@ -1233,6 +1257,7 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                                "more than their 68 % intervals allow: soiling differs between "
                                f"years, so {_lbl(SOILING_CORRECTED)} is recommended")
             else:
+                soiling_cancels = True
                 reasons.append(f"soiling is material ({loss:.1f} % energy loss) but "
                                f"{_lbl(SOILING_CORRECTED)} agrees with {_lbl(YEAR_PAIRS)} within their 68 % "
                                "intervals: the soiling repeats with the seasons and cancels in the "
@@ -1241,9 +1266,9 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
         for m in (YEAR_PAIRS, ROBUST_LINE):
             if have(m):
                 chosen = m
-                reasons.append(f"no sensor drift, level shift or material soiling found: "
-                               f"{_lbl(m)}, the best-calibrated method on the validation fleets, is "
-                               "recommended")
+                reasons.append(f"{_fallback_evidence(drift, shifts, loss, min_soiling_loss_pct, soiling_cancels)}: "
+                               f"{_lbl(m)}, the best-calibrated method on the validation "
+                               "fleets, is recommended")
                 break
     if chosen is None:
         why = "; ".join(f"{m}: {r.reason}" for m, r in results.items() if r is not None and r.reason)

@@ -89,14 +89,13 @@ SOURCE_LABELS = {
 }
 #: The same in a few words, for table cells.
 SOURCE_SHORT_LABELS = {
-    "poa_same_plane": "POA sensor, same plane",
-    "ghi_transposed": "GHI, transposed",
-    "poa_other_plane_transposed": "POA of another plane, transposed",
-    "module_sensor": "module sensor",
-    "modelled_sandia_king2004": "modelled (Sandia)",
-    "modelled_faiman2008": "modelled (Faiman)",
-}
-#: The measured cases: a POA sensor in the array's own plane, a back-of-module sensor.
+    "poa_same_plane": "in plane",
+    "ghi_transposed": "GHI transposed",
+    "poa_other_plane_transposed": "other plane, transposed",
+    "module_sensor": "sensor",
+    "modelled_sandia_king2004": "modelled",
+    "modelled_faiman2008": "modelled",
+}#: The measured cases: a POA sensor in the array's own plane, a back-of-module sensor.
 MEASURED_SOURCES = ("poa_same_plane", "module_sensor")
 
 
@@ -154,7 +153,7 @@ def source_label(code, short: bool = False) -> str:
     recorded).
 
     >>> source_label("poa_same_plane+ghi_transposed", short=True)
-    'POA sensor, same plane + GHI, transposed'
+    'in plane + GHI transposed'
     """
     if code is None or (isinstance(code, float) and code != code) or code == "":
         return "–"

@@ -438,6 +438,10 @@ def test_recommended_rules_in_order():
     same = recommend_rate(res, soiling={"loss_pct": 3.2})  # -0.50 vs -0.45: within
     assert same.details["chosen_method"] == "sensor_year_pairs"
     assert any(c["kind"] == "soiling" for c in same.details["caveats"])
+    # the reasons do not contradict each other: material soiling that cancels is not also
+    # "no material soiling found" (seen on the demo's weekly check)
+    assert "soiling cancels" in same.details["reasons"][-1]
+    assert "material soiling found" not in " ".join(same.details["reasons"])
     assert recommend_rate(moved, soiling={"loss_pct": 1.5}).details["chosen_method"] == \
         "sensor_year_pairs"
     # a rule whose method was refused falls through
@@ -446,6 +450,7 @@ def test_recommended_rules_in_order():
     f = recommend_rate(no_sky, drift={"judged": True, "drift_pct_per_yr": 0.7})
     assert f.details["chosen_method"] == "sensor_year_pairs"
     assert any(c["kind"] == "sensor_drift" for c in f.details["caveats"])
+    assert "no sensor drift" not in " ".join(f.details["reasons"])
     # every caveat names a method (issue #13)
     for r in (plain, d, s, f):
         assert all(c["method"] for c in r.details["caveats"])

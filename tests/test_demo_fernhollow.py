@@ -305,11 +305,10 @@ def test_screens_state_each_inverters_sources_and_drilldown_uses_them(tmp_path):
     eng.dispose()
     url = f"sqlite:///{tmp_path / 'fh.sqlite'}"
     src = data.sources(url, "fernhollow", None, None).set_index("device_id")
-    assert src.loc["A1", ["irradiance", "t_cell"]].tolist() == ["POA sensor, same plane",
-                                                                "module sensor"]
-    assert src.loc["B1", ["irradiance", "t_cell"]].tolist() == ["GHI, transposed",
-                                                                "modelled (Sandia)"]
-    assert src.loc["D1", "irradiance"] == "POA sensor, same plane + GHI, transposed"
+    assert src.loc["A1", ["irradiance", "t_cell"]].tolist() == ["in plane", "sensor"]
+    assert src.loc["B1", ["irradiance", "t_cell"]].tolist() == ["GHI transposed", "modelled"]
+    assert src.loc["D1", "irradiance"] == "in plane + GHI transposed"
+    assert "Sandia model" in src.loc["B1", "t_cell_long"]
     assert not src.loc["A1", "modelled"] and src.loc["B1", "modelled"]
     note = data.sources_caption(src.reset_index())
     assert "B1" in note and "DIRINT (Perez et al. 1992)" in note and "King et al. 2004" in note

@@ -126,7 +126,11 @@ table = fleet.sort_values("d_peers_pct", na_position="last").assign(
                                               "none": ""}))
 src = data.sources(url, site_id, w0, w1)
 table = table.merge(src[["device_id", "irradiance", "t_cell"]], on="device_id", how="left")
-table = table[["device_id", "status", "instrument", "irradiance", "t_cell", "e_ac_kwh", "yf_h", "pr_stc",
+# the sensor type, and where the irradiance is not measured in the array's plane, how it
+# was obtained (issue #11)
+table["instrument"] = [i if g in (None, "–", "in plane") or g != g else f"{i}, {g}"
+                       for i, g in zip(table["instrument"], table["irradiance"], strict=True)]
+table = table[["device_id", "status", "instrument", "t_cell", "e_ac_kwh", "yf_h", "pr_stc",
                "d_trailing_pct", "d_peers_pct", "avail_energy", "lost_week_kwh"]]
 st.dataframe(ui.clean_frame(table, {"d_trailing_pct": "+.1f", "d_peers_pct": "+.1f",
                                     "pr_stc": ".3f", "yf_h": ".2f", "avail_energy": ".1%"}),
@@ -134,15 +138,14 @@ st.dataframe(ui.clean_frame(table, {"d_trailing_pct": "+.1f", "d_peers_pct": "+.
     "device_id": st.column_config.TextColumn("Inverter", width="small"),
     "status": st.column_config.TextColumn("Flag", width="small",
                                           help="Most severe warning or alarm of the week."),
-    "instrument": st.column_config.TextColumn("POA sensor", width="medium"),
-    "irradiance": st.column_config.TextColumn(
+    "instrument": st.column_config.TextColumn(
         "Irradiance", width="medium",
-        help="Where the PR's irradiance came from this week: a POA sensor in the array's own "
-             "plane, or a sensor transposed to it (models named below the table)."),
+        help="The POA sensor type, and where the PR's irradiance is not a POA sensor in the "
+             "array's own plane, how it was obtained (models named below the table)."),
     "t_cell": st.column_config.TextColumn(
-        "Cell temperature", width="small",
-        help="A back-of-module sensor, or modelled from ambient temperature, irradiance and "
-             "wind where the inverter has none."),
+        "T_cell", width="small",
+        help="Cell temperature from a back-of-module sensor, or modelled from ambient "
+             "temperature, irradiance and wind where the inverter has none."),
     "e_ac_kwh": st.column_config.NumberColumn("Energy [kWh]", format="localized",
                                               width="small"),
     "yf_h": st.column_config.NumberColumn("Yield [h]", format="%.2f", width="small",
