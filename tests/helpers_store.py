@@ -20,6 +20,7 @@ from __future__ import annotations
 import datetime as dt
 
 import numpy as np
+import pandas as pd
 import sqlalchemy as sa
 
 from db import readings, schema
@@ -141,3 +142,21 @@ def readings_to_old_layout(conn: sa.Connection, *, interval: bool = True) -> int
             rows)
     conn.execute(sa.text("DROP TABLE reading_day"))
     return len(rows)
+
+
+def clearsky_poa_15min(start: pd.Timestamp, n_days: int, lat: float, lon: float, alt: float,
+                       tilt: float, azimuth: float) -> tuple[pd.DatetimeIndex, np.ndarray]:
+    """15-minute interval starts from ``start`` and pvlib's clear-sky POA at their midpoints
+    (Ineichen clear sky, isotropic transposition; NaN at night as pvlib gives it) [W/m²]:
+    the invented sunshine of the store-level tests."""
+    import pvlib
+
+    ts = pd.date_range(start, periods=n_days * 96, freq="15min")
+    mid = ts + pd.Timedelta(minutes=7.5)
+    loc = pvlib.location.Location(lat, lon, "UTC", alt)
+    sp = loc.get_solarposition(mid)
+    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
+    poa = pvlib.irradiance.get_total_irradiance(tilt, azimuth, sp["apparent_zenith"],
+                                                sp["azimuth"], cs["dni"], cs["ghi"], cs["dhi"],
+                                                model="isotropic")["poa_global"].to_numpy()
+    return ts, poa

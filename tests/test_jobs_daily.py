@@ -21,7 +21,14 @@ from db import readings, schema
 from db.daily import daily_table
 from heliaudit import jobs_daily
 from heliaudit.cli import main
-from tests.helpers_store import add_inverter, add_readings, add_sensor, add_site, make_store
+from tests.helpers_store import (
+    add_inverter,
+    add_readings,
+    add_sensor,
+    add_site,
+    clearsky_poa_15min,
+    make_store,
+)
 
 LAT, LON, ALT, TILT, AZ = 38.9, -3.2, 650.0, 25.0, 180.0
 START = pd.Timestamp("2024-06-10", tz="UTC")
@@ -30,14 +37,7 @@ FRACTION = {"inv1": 0.90, "inv2": 0.80}
 
 
 def _sensor_data():
-    ts = pd.date_range(START, periods=N_DAYS * 96, freq="15min")
-    mid = ts + pd.Timedelta(minutes=7.5)
-    loc = pvlib.location.Location(LAT, LON, "UTC", ALT)
-    sp = loc.get_solarposition(mid)
-    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
-    poa = pvlib.irradiance.get_total_irradiance(TILT, AZ, sp["apparent_zenith"], sp["azimuth"],
-                                                cs["dni"], cs["ghi"], cs["dhi"],
-                                                model="isotropic")["poa_global"].to_numpy()
+    ts, poa = clearsky_poa_15min(START, N_DAYS, LAT, LON, ALT, TILT, AZ)
     rng = np.random.default_rng(42)
     poa = np.where(poa > 0, poa * (1 + 0.01 * rng.standard_normal(poa.size)), 0.0)
     t_mod = 22.0 + 0.03 * poa + 0.1 * rng.standard_normal(poa.size)

@@ -18,7 +18,14 @@ from db.daily import daily_table
 from db.flags import read_flags
 from heliaudit import jobs_daily
 from heliaudit.jobs_flags import run_flags
-from tests.helpers_store import add_inverter, add_readings, add_sensor, add_site, make_store
+from tests.helpers_store import (
+    add_inverter,
+    add_readings,
+    add_sensor,
+    add_site,
+    clearsky_poa_15min,
+    make_store,
+)
 
 LAT, LON, ALT, TILT, AZ = 37.2, -3.6, 700.0, 30.0, 180.0
 START = pd.Timestamp("2024-02-10", tz="UTC")
@@ -28,14 +35,7 @@ N_DAYS, JUMP_DAY = 100, 60
 @pytest.fixture(scope="module")
 def store(tmp_path_factory):
     eng = make_store(tmp_path_factory.mktemp("jump"))
-    ts = pd.date_range(START, periods=N_DAYS * 96, freq="15min")
-    mid = ts + pd.Timedelta(minutes=7.5)
-    loc = pvlib.location.Location(LAT, LON, "UTC", ALT)
-    sp = loc.get_solarposition(mid)
-    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
-    poa = pvlib.irradiance.get_total_irradiance(TILT, AZ, sp["apparent_zenith"], sp["azimuth"],
-                                                cs["dni"], cs["ghi"], cs["dhi"],
-                                                model="isotropic")["poa_global"].to_numpy()
+    ts, poa = clearsky_poa_15min(START, N_DAYS, LAT, LON, ALT, TILT, AZ)
     poa = np.nan_to_num(poa).clip(min=0)
     rng = np.random.default_rng(3)
     g1 = poa * (1 + 0.005 * rng.standard_normal(poa.size))
@@ -107,14 +107,7 @@ def high_store(tmp_path_factory):
     sensor right)."""
     eng = make_store(tmp_path_factory.mktemp("high"))
     start = pd.Timestamp("2024-02-10", tz="UTC")
-    ts = pd.date_range(start, periods=40 * 96, freq="15min")
-    mid = ts + pd.Timedelta(minutes=7.5)
-    loc = pvlib.location.Location(LAT, LON, "UTC", ALT)
-    sp = loc.get_solarposition(mid)
-    cs = loc.get_clearsky(mid, model="ineichen", solar_position=sp)
-    poa = pvlib.irradiance.get_total_irradiance(TILT, AZ, sp["apparent_zenith"], sp["azimuth"],
-                                                cs["dni"], cs["ghi"], cs["dhi"],
-                                                model="isotropic")["poa_global"].to_numpy()
+    ts, poa = clearsky_poa_15min(start, 40, LAT, LON, ALT, TILT, AZ)
     poa = 0.5 * np.nan_to_num(poa).clip(min=0)
     day = np.arange(poa.size) // 96
     bad = (day >= 20) & (day < 30)
