@@ -91,7 +91,8 @@ PARAMS = {
     "soiling": {"input": "site median of each inverter's daily pi over unclipped intervals "
                          "(POA >= 200 W/m2, expected < 95 % of rating, 1-98 % of rating "
                          "measured) on the daily table's valid days",
-                "window": 7, "min_days": 14,
+                "window": 7, "min_days": 7, "min_rate_pct_per_day": 0.04,
+                "max_line_vs_step": 1.25,
                 "rain_threshold_mm": 5.0, "min_loss": 0.01, "horizon_days": 30,
                 "n_runs": 1000},
     "sensor": {"ranges": sensor_qa.RANGES, "p_ac_range": [-0.02, 1.05],
@@ -570,7 +571,8 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
             pi, h, e_exp, rain_mm=rain_daily, tariff_per_kwh=economics.get("tariff_per_kwh", 0.05),
             cleaning_cost=economics.get("cleaning_cost", 0.0),
             currency=economics.get("currency", "EUR"), std_offset_s=std_offset_s,
-            n_runs=n_runs)
+            n_runs=n_runs, **{k: PARAMS["soiling"][k] for k in (
+                "window", "min_days", "rain_threshold_mm", "min_loss", "horizon_days")})
         out[0], soil = attach_uneven_soiling(out[0], soil, valid, std_offset_s=std_offset_s,
                                              min_deficit=up["min_deficit"])
         out.append(soil)
