@@ -600,23 +600,13 @@ def validity_flags(days: pd.DataFrame, *, device_id: str, quantity: str,
     return flag_frame(recs)
 
 
-def ambient_offset(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c, solar_elevation_deg,
-                   poa_wm2, *, night_elev_deg: float = -12.0, full_sun_wm2: float = 600.0,
-                   min_samples: int = 200) -> dict:
-    """How far the ambient sensor disagrees with the module sensor(s), night and day.
-
-    At night (sun below ``night_elev_deg``) an unlit module sits at or a few degrees below
-    the air (radiative sky cooling); in full sun the measured module temperature should
-    match the Sandia module model driven by the ambient reading (King et al. 2004, Eq. 11).
-    An ambient sensor reading Δ too high shows as T_amb − T_mod ≈ Δ + (0…3) °C at night
-    *and* as T_mod − T_model ≈ −Δ in full sun; both are medians over the period.
-
-    Returns
-    -------
-    dict with ``night_diff_c`` (median T_amb − T_mod at night), ``day_residual_c`` (median
-    T_mod − T_model in full sun), ``n_night``, ``n_day`` (NaN medians with fewer than
-    ``min_samples`` samples).
-    """
+def ambient_offset_samples(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c,
+                           solar_elevation_deg, poa_wm2, *, night_elev_deg: float = -12.0,
+                           full_sun_wm2: float = 600.0) -> tuple[np.ndarray, np.ndarray,
+                                                                  np.ndarray, np.ndarray]:
+    """The samples :func:`ambient_offset` takes its medians of: (night mask, T_amb − T_mod
+    at night, full-sun mask, T_mod − T_model in full sun), the masks on the rows of
+    ``t_amb_c``. An incremental run keeps them day by day (their medians do not add up)."""
     ta = t_amb_c.to_numpy(float)
     tm = t_mod_c.reindex(t_amb_c.index).to_numpy(float)
     el = np.asarray(solar_elevation_deg, dtype=float)
@@ -625,8 +615,35 @@ def ambient_offset(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c, solar_
     with np.errstate(invalid="ignore"):
         night = (el < night_elev_deg) & np.isfinite(ta) & np.isfinite(tm)
         day = (g >= full_sun_wm2) & np.isfinite(tm) & np.isfinite(model)
-    nd = (ta - tm)[night]
-    dr = (tm - model)[day]
+    return night, (ta - tm)[night], day, (tm - model)[day]
+
+
+def ambient_offset(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c, solar_elevation_deg,
+                   poa_wm2, *, night_elev_deg: float = -12.0, full_sun_wm2: float = 600.0,
+                   min_samples: int = 200, samples: tuple | None = None) -> dict:
+    """How far the ambient sensor disagrees with the module sensor(s), night and day.
+
+    At night (sun below ``night_elev_deg``) an unlit module sits at or a few degrees below
+    the air (radiative sky cooling); in full sun the measured module temperature should
+    match the Sandia module model driven by the ambient reading (King et al. 2004, Eq. 11).
+    An ambient sensor reading Δ too high shows as T_amb − T_mod ≈ Δ + (0…3) °C at night
+    *and* as T_mod − T_model ≈ −Δ in full sun; both are medians over the period.
+    ``samples``: the (night differences, full-sun residuals) already taken
+    (:func:`ambient_offset_samples`), instead of the series.
+
+    Returns
+    -------
+    dict with ``night_diff_c`` (median T_amb − T_mod at night), ``day_residual_c`` (median
+    T_mod − T_model in full sun), ``n_night``, ``n_day`` (NaN medians with fewer than
+    ``min_samples`` samples).
+    """
+    if samples is None:
+        _n, nd, _d, dr = ambient_offset_samples(t_amb_c, t_mod_c, t_mod_model_c,
+                                                solar_elevation_deg, poa_wm2,
+                                                night_elev_deg=night_elev_deg,
+                                                full_sun_wm2=full_sun_wm2)
+    else:
+        nd, dr = (np.asarray(a, dtype=float) for a in samples)
     return dict(night_diff_c=float(np.median(nd)) if nd.size >= min_samples else np.nan,
                 day_residual_c=float(np.median(dr)) if dr.size >= min_samples else np.nan,
                 n_night=int(nd.size), n_day=int(dr.size))
@@ -635,7 +652,9 @@ def ambient_offset(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c, solar_
 def ambient_offset_flags(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c,
                          solar_elevation_deg, poa_wm2, *, device_id: str,
                          module_sensor: str, night_max_c: float = 4.0,
-                         day_max_c: float = 3.0, min_days: int = 30, **kw) -> pd.DataFrame:
+                         day_max_c: float = 3.0, min_days: int = 30,
+                         samples: tuple | None = None, span_s: tuple[int, int] | None = None,
+                         **kw) -> pd.DataFrame:
     """A 'sensor_implausible' flag (reason ``ambient_offset``) on an ambient sensor that
     reads high (or low) against a module sensor both at night and in full sun.
 
@@ -644,13 +663,21 @@ def ambient_offset_flags(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c,
     is below −``night_max_c`` and the day residual above ``day_max_c`` (too low); both
     over at least ``min_days`` days of data (common practice; sky cooling keeps the normal
     night difference within about 0…3 °C). The estimated offset is minus the day residual.
+    ``samples`` and ``span_s`` (first and last row [UTC s]) may give the samples of
+    :func:`ambient_offset_samples` and the period instead of the series (an incremental
+    run joins stored days with new ones).
     """
-    if t_amb_c.notna().sum() == 0 or t_mod_c.notna().sum() == 0:
+    if samples is None:
+        if t_amb_c.notna().sum() == 0 or t_mod_c.notna().sum() == 0:
+            return flag_frame([])
+        ts = _ts_s(t_amb_c.index)
+        if ts.size == 0:
+            return flag_frame([])
+        span_s = (int(ts[0]), int(ts[-1]))
+    if span_s is None or span_s[1] - span_s[0] < min_days * 86400:
         return flag_frame([])
-    ts = _ts_s(t_amb_c.index)
-    if ts.size == 0 or ts[-1] - ts[0] < min_days * 86400:
-        return flag_frame([])
-    r = ambient_offset(t_amb_c, t_mod_c, t_mod_model_c, solar_elevation_deg, poa_wm2, **kw)
+    r = ambient_offset(t_amb_c, t_mod_c, t_mod_model_c, solar_elevation_deg, poa_wm2,
+                       samples=samples, **kw)
     nd, dr = r["night_diff_c"], r["day_residual_c"]
     if not (np.isfinite(nd) and np.isfinite(dr)):
         return flag_frame([])
@@ -659,8 +686,8 @@ def ambient_offset_flags(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c,
     if not (high or low):
         return flag_frame([])
     return flag_frame([dict(
-        device_id=device_id, kind="sensor_implausible", start_s=int(ts[0]),
-        end_s=int(ts[-1]) + 900, severity="warning", lost_kwh=np.nan,
+        device_id=device_id, kind="sensor_implausible", start_s=int(span_s[0]),
+        end_s=int(span_s[1]) + 900, severity="warning", lost_kwh=np.nan,
         details=dict(quantity="t_amb_c", reason="ambient_offset",
                      meaning=f"ambient reads about {-dr:+.1f} °C against module sensor "
                              f"{module_sensor} (night and full-sun evidence agree)",

@@ -124,7 +124,11 @@ def read_flags(engine: sa.Engine, site_id: str, device_id: str | None = None,
 # ---------------------------------------------------------------- incremental runs (#16)
 
 DAY_COLUMNS = ("device_id", "day_no", "soiling_pi", "withheld_kwh", "clock_delta_min",
-               "clock_clear")
+               "clock_clear", "valid_reason", "sky_ratio", "jump_ratio", "rain_mm",
+               "amb_night_c", "amb_day_c")
+_FLOAT_DAY_COLUMNS = ("soiling_pi", "withheld_kwh", "clock_delta_min", "sky_ratio",
+                      "jump_ratio", "rain_mm")
+_ARRAY_DAY_COLUMNS = ("amb_night_c", "amb_day_c")  # float arrays, stored as little-endian f8
 
 
 def _flag_key(r: dict) -> tuple:
@@ -151,7 +155,9 @@ def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
 
 
 def read_flag_days(engine: sa.Engine, site_id: str) -> pd.DataFrame:
-    """The per-inverter daily inputs kept by the last flags run (``flag_day``)."""
+    """The per-device daily inputs kept by the last flags run (``flag_day``): inverters'
+    daily inputs and sensors' day judgements (arrays as numpy float arrays, None where
+    absent)."""
     ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
     with engine.connect() as conn:
         # raw DBAPI cursor: a 100-inverter site keeps ~37 000 rows a year
@@ -163,8 +169,11 @@ def read_flag_days(engine: sa.Engine, site_id: str) -> pd.DataFrame:
         finally:
             cur.close()
     out = pd.DataFrame.from_records(rows, columns=list(DAY_COLUMNS), coerce_float=True)
-    for c in ("soiling_pi", "withheld_kwh", "clock_delta_min"):
+    for c in _FLOAT_DAY_COLUMNS:
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(float)
+    for c in _ARRAY_DAY_COLUMNS:
+        out[c] = pd.Series([None if v is None else np.frombuffer(bytes(v), dtype="<f8")
+                            for v in out[c]], dtype=object)
     out["day_no"] = out["day_no"].astype("int64")
     out["clock_clear"] = pd.Series([_flag(v) for v in out["clock_clear"]], dtype=object)
     return out
@@ -192,7 +201,11 @@ def store_flags(conn: sa.Connection, site_id: str, flags_df: pd.DataFrame,
                      soiling_pi=_num(r.get("soiling_pi")),
                      withheld_kwh=_num(r.get("withheld_kwh")),
                      clock_delta_min=_num(r.get("clock_delta_min")),
-                     clock_clear=_flag(r.get("clock_clear")))
+                     clock_clear=_flag(r.get("clock_clear")),
+                     valid_reason=_text(r.get("valid_reason")),
+                     sky_ratio=_num(r.get("sky_ratio")), jump_ratio=_num(r.get("jump_ratio")),
+                     rain_mm=_num(r.get("rain_mm")),
+                     amb_night_c=_blob(r.get("amb_night_c")), amb_day_c=_blob(r.get("amb_day_c")))
                 for r in days.to_dict("records")] if len(days) else []
     full_devices = [str(d) for d in full_devices]
     have = conn.execute(sa.select(t.c.flag_id, t.c.device_id, t.c.kind, t.c.start_s,
@@ -229,6 +242,16 @@ def store_flags(conn: sa.Connection, site_id: str, flags_df: pd.DataFrame,
 
 def _num(v) -> float | None:
     return None if v is None or not np.isfinite(v) else float(v)
+
+
+def _text(v) -> str | None:
+    return None if v is None or (isinstance(v, float) and v != v) else str(v)
+
+
+def _blob(v) -> bytes | None:
+    if v is None or (isinstance(v, float) and v != v):
+        return None
+    return np.ascontiguousarray(v, dtype="<f8").tobytes()
 
 
 def _flag(v) -> bool | None:

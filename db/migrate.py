@@ -188,6 +188,30 @@ def _digest(h, channel_id: int, ts_s, value, interval_s, batch_id) -> None:
 
 STEPS[6] = _v6_packed_readings
 
+#: flag_day columns of store v7 (issue #16: per-day sensor judgements) and their SQL types.
+V7_FLAG_DAY_COLUMNS = {"valid_reason": "VARCHAR(32)", "sky_ratio": "FLOAT",
+                       "jump_ratio": "FLOAT", "rain_mm": "FLOAT", "amb_night_c": "BLOB",
+                       "amb_day_c": "BLOB"}
+
+
+def _v7_sensor_days(conn: sa.Connection) -> str:
+    """flag_day gains each sensor's per-day judgement (#16); the next flags run is full."""
+    insp = sa.inspect(conn)
+    if not insp.has_table("flag_day"):
+        return "no flag_day table yet (created with the v7 columns)"
+    have = {c["name"] for c in insp.get_columns("flag_day")}
+    blob = "BYTEA" if conn.dialect.name == "postgresql" else "BLOB"
+    added = []
+    for name, typ in V7_FLAG_DAY_COLUMNS.items():
+        if name not in have:
+            conn.execute(sa.text(f"ALTER TABLE flag_day ADD COLUMN {name} "
+                                 f"{blob if typ == 'BLOB' else typ}"))
+            added.append(name)
+    return f"added {', '.join(added) or 'nothing'}"
+
+
+STEPS[7] = _v7_sensor_days
+
 
 def current_version(conn: sa.Connection) -> int | None:
     if not sa.inspect(conn).has_table("schema_version"):

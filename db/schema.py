@@ -14,10 +14,11 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 6  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+SCHEMA_VERSION = 7  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
 #                    4: reading.interval_s, channel.sampling/input_id (#11);
 #                    5: site model: daily bases, optional commissioning/module sensor (#11);
-#                    6: readings packed per channel and UTC day, table reading_day (#16)
+#                    6: readings packed per channel and UTC day, table reading_day (#16);
+#                    7: per-day sensor judgements in flag_day (#16)
 
 metadata = sa.MetaData()
 
@@ -227,8 +228,9 @@ flag = sa.Table(
 # it reads only the new data and a look-back. ``flag_part`` keeps each inverter's own flags
 # (outage, clipping, power-channel QA, dropouts, counter and input checks) as its detectors
 # gave them, before the site-wide merging that every run redoes; ``flag_day`` keeps the
-# per-inverter daily inputs of the whole-history detectors (soiling, underperformance, clock).
-# Tables without data changes: created by db.migrate's create_all, no version step.
+# per-inverter daily inputs of the whole-history detectors (soiling, underperformance, clock)
+# and, since v7, each sensor's judgement of each day (validity, clear-sky ratios, clock offset,
+# rain, the ambient-offset samples), so an incremental run judges only the new days.
 flag_part = sa.Table(
     "flag_part", metadata,
     sa.Column("part_id", sa.Integer, primary_key=True, autoincrement=True),
@@ -251,6 +253,13 @@ flag_day = sa.Table(
     sa.Column("withheld_kwh", sa.Float),  # energy withheld by a power limit
     sa.Column("clock_delta_min", sa.Float),  # power-profile centroid minus clear-sky centroid
     sa.Column("clock_clear", sa.Boolean),  # the day counts as clear for the clock check
+    # sensors (v7): '' valid, else the reason the day is invalid (before sibling jumps)
+    sa.Column("valid_reason", sa.String(32)),
+    sa.Column("sky_ratio", sa.Float),  # clear-period ratio to clear-sky POA (drift, level)
+    sa.Column("jump_ratio", sa.Float),  # clear-day ratio on the site plane (sibling jumps)
+    sa.Column("rain_mm", sa.Float),  # daily rain
+    sa.Column("amb_night_c", sa.LargeBinary),  # ambient check: T_amb - T_mod at night (<f8)
+    sa.Column("amb_day_c", sa.LargeBinary),  # ambient check: T_mod - T_model in full sun (<f8)
 )
 
 # degradation_result: owned by the degradation issue (#7).

@@ -15,8 +15,15 @@ Each detector declares how far back it has to look (:data:`LOOKBACK`). Three gro
   offsets): rerun over the whole history every time, from the daily table and the daily
   inputs kept in ``flag_day`` (unclipped daily index, energy withheld by a power limit, clock
   offset and clear-day mark per inverter and day) with the new days computed from the window;
-* **sensors** (few channels: plausibility, range, flatline, dropout, night, clock, clear-sky
-  and sibling drift) and the last reading of each device: read and judged whole every run.
+* **sensors** (store v7): each sensor's interval checks (range, flatline, dropout, night) are
+  kept in ``flag_part`` and recomputed from the cut like an inverter's; its day judgements
+  (validity and its reason, the clear-period and clear-day ratios to clear-sky POA, the clock
+  offset, daily rain, the night and full-sun samples of the ambient-offset check) are kept
+  per day in ``flag_day``, computed for the days from the cut on and joined with the stored
+  ones; the detectors over whole histories of days (validity runs, drift, clear-sky level,
+  sibling drift and jumps, sensor clock shifts, the ambient offset's medians) then run on the
+  joined days as in a full run. A sibling jump (found now or by the last run) makes the
+  sensors be judged whole: its invalid days change the judgement of days before the cut.
 
 Then the site-wide merging (simultaneous outages, clipping by month, clock agreement, shared
 dropouts, root causes) runs over all of it, as in a full run, and only flags that changed are
@@ -49,7 +56,10 @@ LOOKBACK = {
     "clock_shift": "history",     # rolling median of 7 clear days, from stored daily offsets
     "underperformance": "history",  # peers, 90-day own history, persistence (daily table)
     "soiling": "history",     # intervals between cleanings (daily table + stored daily index)
-    "sensors": "history",     # every sensor channel whole: drift needs years
+    "sensor_night": 2,        # night irradiance runs merge across 36 h
+    # sensors' day judgements (validity, ratios, clock offset, rain, ambient samples): the
+    # day alone, stored; their whole-history detectors run on the stored days
+    "sensor_days": 0,
     "stopped_reporting": "history",  # each device's last reading (kept per inverter)
 }
 #: Days before the first new reading from which flags are recomputed (then back to a month start).
@@ -138,6 +148,42 @@ def day_products(withheld: dict, soiling_pi: dict, clock_days: dict, *,
     return out.sort_values(["device_id", "day_no"], kind="stable").reset_index(drop=True)
 
 
+def sensor_day_rows(products: dict) -> pd.DataFrame:
+    """``flag_day`` rows of the sensors from their day products: sensor id -> DataFrame
+    indexed by local standard day (Timestamp) with any of ``valid_reason``, ``sky_ratio``,
+    ``jump_ratio``, ``clock_delta_min``, ``clock_clear``, ``rain_mm``, ``amb_night_c``,
+    ``amb_day_c``."""
+    cols = ["device_id", "day_no", "valid_reason", "sky_ratio", "jump_ratio",
+            "clock_delta_min", "clock_clear", "rain_mm", "amb_night_c", "amb_day_c"]
+    pieces = []
+    for sid, tab in products.items():
+        if tab is None or not len(tab):
+            continue
+        t = tab.reindex(columns=cols[2:])
+        t.insert(0, "day_no", _day_numbers(tab.index))
+        t.insert(0, "device_id", sid)
+        pieces.append(t.reset_index(drop=True))
+    if not pieces:
+        return pd.DataFrame(columns=cols)
+    out = pd.concat(pieces, ignore_index=True)
+    out["clock_clear"] = pd.Series([None if v is None or v != v else bool(v)
+                                    for v in out["clock_clear"]], dtype=object)
+    return out
+
+
+def stored_sensor_days(rows: pd.DataFrame | None) -> pd.DataFrame | None:
+    """The stored day judgements of one sensor indexed by local standard day (Timestamp)."""
+    if rows is None or not len(rows):
+        return None
+    out = rows.drop(columns=["device_id"]).copy()
+    out.index = _day_ts_index(rows["day_no"].to_numpy(np.int64))
+    return out.drop(columns=["day_no"])
+
+
+def _day_ts_index(day_no: np.ndarray) -> pd.DatetimeIndex:
+    return pd.DatetimeIndex(pd.to_datetime(np.asarray(day_no, np.int64) * 86400, unit="s"))
+
+
 def _day_numbers(index) -> np.ndarray:
     return pd.DatetimeIndex(index).as_unit("s").asi8 // 86400
 
@@ -156,13 +202,38 @@ class Prior:
     last_seen: dict = field(default_factory=dict)
     seen: set = field(default_factory=set)
     full_devices: set = field(default_factory=set)
+    #: sensor id -> its stored day judgements before ``cut_day`` (``flag_day`` rows)
+    sensor_days: dict = field(default_factory=dict)
+    #: sensor id -> (last valid reading [UTC s], quantity); (first row, last row) [UTC s]
+    sensor_last: dict = field(default_factory=dict)
+    sensor_span: dict = field(default_factory=dict)
+    #: sensors read and judged whole (a sibling jump, now or in the last run)
+    sensors_whole: bool = False
+    #: the sensors' interval flags (range, flatline, dropout, night) before the cut
+    sensor_parts: pd.DataFrame | None = None
+    #: sensors whose flags and days this run replaces whole (all of them when sensors_whole)
+    whole_sensors: set = field(default_factory=set)
+
+    @property
+    def sensor_window(self) -> bool:
+        return not self.sensors_whole
 
     @classmethod
     def from_store(cls, cut_s: int, cut_day: int, parts: pd.DataFrame, days: pd.DataFrame,
-                   state: dict) -> Prior:
+                   state: dict, sensor_ids=()) -> Prior:
+        sensors_whole = bool(state.get("sensors_whole", False))
+        sensor_ids = set(sensor_ids)
+        is_sensor = days["device_id"].isin(list(sensor_ids))
+        sdays = days[is_sensor & (days["day_no"] < cut_day)]
+        days = days[~is_sensor]
+        if sensors_whole:  # the sensors' stored parts are replaced whole too
+            parts = parts[~parts["device_id"].isin(list(sensor_ids))]
         full = set(state.get("full_devices", []))
         keep = (parts["start_s"] < cut_s) & ~parts["device_id"].isin(list(full))
         kept = parts[keep]
+        s_kept = kept["device_id"].isin(list(sensor_ids))
+        sensor_parts = kept[s_kept][list(FLAG_COLUMNS)].reset_index(drop=True)
+        kept = kept[~s_kept]
         late = kept["kind"] == "input_mismatch"
         d = days[(days["day_no"] < cut_day) & ~days["device_id"].isin(list(full))]
         return cls(cut_s=int(cut_s), cut_day=int(cut_day),
@@ -170,7 +241,15 @@ class Prior:
                    late_parts=kept[late][list(FLAG_COLUMNS)].reset_index(drop=True),
                    days=d.reset_index(drop=True),
                    last_seen={k: int(v) for k, v in state.get("last_seen", {}).items()},
-                   seen=set(state.get("seen", [])), full_devices=full)
+                   seen=set(state.get("seen", [])), full_devices=full,
+                   sensor_days={} if sensors_whole else {
+                       sid: g.reset_index(drop=True) for sid, g in sdays.groupby("device_id")},
+                   sensor_last={k: (int(v[0]), str(v[1]))
+                                for k, v in state.get("sensor_last", {}).items()},
+                   sensor_span={k: (int(v[0]), int(v[1]))
+                                for k, v in state.get("sensor_span", {}).items()},
+                   sensors_whole=sensors_whole, sensor_parts=sensor_parts,
+                   whole_sensors=sensor_ids if sensors_whole else set())
 
     def keep_new(self, part: pd.DataFrame) -> pd.DataFrame:
         """Rows of a window's flags that the window decides: from the cut on, or of an
@@ -178,7 +257,7 @@ class Prior:
         if part.empty:
             return part
         m = (part["start_s"].to_numpy(np.int64) >= self.cut_s) | \
-            part["device_id"].isin(list(self.full_devices)).to_numpy()
+            part["device_id"].isin(list(self.full_devices | self.whole_sensors)).to_numpy()
         return part[m]
 
     def merge(self, inv_parts, withheld, soiling_pi, clock_days):

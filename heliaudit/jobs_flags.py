@@ -463,16 +463,26 @@ def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) 
     return fl
 
 
+#: A sensor's flags from runs of its readings (kept per flag in ``flag_part`` by incremental
+#: runs); its other flags come from its day judgements over the whole history.
+SENSOR_INTERVAL_KINDS = ("sensor_dropout", "data_dropout", "sensor_range", "sensor_flatline",
+                         "sensor_night")
+
+
 def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataFrame, *,
                  std_offset_s: int, site_zone: str,
                  source: tuple[str, str] | None = None,
                  x_valid: pd.Series | None = None,
-                 interval_s: np.ndarray | None = None) -> tuple[list[pd.DataFrame], pd.Series | None]:
+                 interval_s: np.ndarray | None = None, prior=None,
+                 keep: dict | None = None) -> tuple[list[pd.DataFrame], pd.Series | None]:
     """QA flags of one sensor; also returns its daily clear-sky ratio (POA) for sibling checks.
 
     Range, flatline, dropout and night checks run on the raw readings ``x``; the clock and
     drift diagnoses only on ``x_valid`` (the readings of days judged plausible).
-    ``interval_s``: each reading's interval as recorded at ingest (None: from the spacing)."""
+    ``interval_s``: each reading's interval as recorded at ingest (None: from the spacing).
+    ``prior`` and ``keep`` as in :func:`judge_sensors`: the clock offsets and clear-period
+    ratios of the stored days before the cut are joined with this run's before the clock,
+    level and drift checks."""
     # each reading's own interval (#11); the grid's rows carry theirs (sun_at's interval_s)
     tau_s = (np.asarray(interval_s, dtype=float) if interval_s is not None
              else _tau_s(x.index, interval_s))
@@ -487,7 +497,8 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     short = [d["missing_daytime_hours"] < 36.0 for d in drop["details"]]
     drop.loc[np.asarray(short, dtype=bool), "kind"] = "data_dropout"
     out = [drop]
-    if x.empty:
+    stored = _stored(prior, sensor_id)
+    if x.empty and stored is None:
         return out, None
     if quantity in sensor_qa.RANGES:
         out.append(sensor_qa.range_flags(x, device_id=sensor_id, quantity=quantity, tau_s=tau_s))
@@ -499,12 +510,24 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     if quantity in ("poa_wm2", "ghi_wm2"):
         out.append(sensor_qa.night_irradiance_flags(x, s["elev"].to_numpy(), device_id=sensor_id,
                                                     quantity=quantity, tau_s=tau_s))
-    if quantity == "poa_wm2" and xv.notna().any():
+    had = stored is not None and (stored.get("clock_delta_min", pd.Series(dtype=float)).notna().any()
+                                  or stored.get("sky_ratio", pd.Series(dtype=float)).notna().any())
+    if quantity == "poa_wm2" and (xv.notna().any() or had):
         tau_h = np.broadcast_to(np.asarray(tau_s, dtype=float) / 3600.0, (len(x),))
         clear = clock.clear_day_mask(xv, s["poa_cs"], std_offset_s=std_offset_s,
                                      ratio_range=(0.7, 1.3))
         off = clock.clock_offsets(xv, s["poa_cs"], tau_h, std_offset_s=std_offset_s,
                                   clear=clear)
+        _keep(keep, sensor_id, "clock_delta_min", off["delta_min"])
+        _keep(keep, sensor_id, "clock_clear", off["clear"])
+        if prior is not None:
+            old = None
+            if stored is not None and "clock_clear" in stored:
+                c = stored["clock_clear"].notna().to_numpy()
+                old = pd.DataFrame({"delta_min": stored["clock_delta_min"].to_numpy(float)[c],
+                                    "clear": stored["clock_clear"].to_numpy()[c].astype(bool)},
+                                   index=stored.index[c])
+            off = _join_series(old, off, prior)
         out.append(clock.refine_fix_moment(clock.clock_shift_flags(
             off, device_id=sensor_id, std_offset_s=std_offset_s, site_zone=site_zone,
             source_name=source[0] if source else None,
@@ -512,6 +535,11 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
             std_offset_s=std_offset_s, zone=_export_zone(source, site_zone)))
         ratio = sensor_qa.clear_period_ratio(xv, s["poa_cs"], s["aoi"].to_numpy(), clear,
                                              std_offset_s=std_offset_s)
+        _keep(keep, sensor_id, "sky_ratio", ratio)
+        if prior is not None:
+            ratio = _join_series(None if stored is None or "sky_ratio" not in stored
+                                 else stored["sky_ratio"].dropna(), ratio, prior)
+            ratio = ratio if ratio is not None else pd.Series(dtype=float)
         out.append(sensor_qa.clear_sky_level_flags(ratio, device_id=sensor_id,
                                                    std_offset_s=std_offset_s))
         out.append(sensor_qa.drift_flags(ratio, device_id=sensor_id, method="clearsky",
@@ -715,16 +743,80 @@ def high_vs_power_by_sensor(insolation: dict[str, pd.Series], daily: pd.DataFram
     return out
 
 
+def _keep(keep: dict | None, sid: str, name: str, values: pd.Series) -> None:
+    """Record one day product of a sensor for the next incremental run (``flag_day``)."""
+    if keep is not None and len(values):
+        keep.setdefault(sid, {})[name] = values
+
+
+def _stored(prior, sid: str) -> pd.DataFrame | None:
+    """A sensor's stored day judgements before the cut (incremental runs), by day."""
+    from heliaudit.flags_window import stored_sensor_days
+
+    if prior is None:
+        return None
+    return stored_sensor_days(prior.sensor_days.get(sid))
+
+
+def _join_days(stored: pd.DataFrame | None, window: pd.DataFrame, prior) -> pd.DataFrame:
+    """A sensor's validity day table: the stored days before the cut, this run's from it."""
+    if prior is None:
+        return window
+    cut = pd.Timestamp(int(prior.cut_day) * 86400, unit="s")
+    window = window[window.index >= cut]
+    if stored is None or "valid_reason" not in stored:
+        return window
+    r = stored["valid_reason"].dropna()
+    old = pd.DataFrame({"valid": (r == "").to_numpy(bool), "reason": r.to_numpy(object)},
+                       index=r.index)
+    return pd.concat([old, window]) if len(window) else old
+
+
+def _join_series(stored: pd.Series | None, window: pd.Series | None, prior) -> pd.Series | None:
+    """A day series: the stored days before the cut, this run's from it."""
+    if prior is None:
+        return window
+    cut = pd.Timestamp(int(prior.cut_day) * 86400, unit="s")
+    if window is not None:
+        window = window[window.index >= cut]
+    pieces = [x for x in (stored, window) if x is not None and len(x)]
+    if not pieces:
+        return window if window is not None else stored
+    return pd.concat(pieces) if len(pieces) > 1 else pieces[0]
+
+
+def _day_arrays(values: np.ndarray, mask: np.ndarray, index: pd.DatetimeIndex,
+                std_offset_s: int) -> pd.Series:
+    """The samples ``values`` (taken where ``mask``) grouped by local standard day."""
+    if not len(index):
+        return pd.Series(dtype=object)
+    day = (epoch_s(index) + int(std_offset_s)) // 86400
+    d = day[np.asarray(mask, bool)]
+    uday = np.unique(day)
+    pos = np.searchsorted(d, uday)
+    ends = np.append(pos[1:], d.size)
+    return pd.Series([np.asarray(values[a:b], dtype=float) for a, b in zip(pos, ends, strict=True)],
+                     index=pd.to_datetime(uday * 86400, unit="s"), dtype=object)
+
+
+class SensorsWholeNeeded(Exception):
+    """An incremental run found a sibling jump: its invalid days change the judgement of
+    days before the cut, so the sensors are judged whole."""
+
+
 def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.DataFrame, *,
                   std_offset_s: int, intervals: dict | None = None,
-                  site: dict | None = None
+                  site: dict | None = None, prior=None, keep: dict | None = None
                   ) -> tuple[dict, list[pd.DataFrame]]:
     """Plausibility of every sensor before any diagnosis.
 
     ``grid_sun_for(index, sensor_id)`` gives the sun and clear-sky POA on the sensor's own
     plane; ``intervals`` maps sensor id -> each (time-sorted) reading's interval [s];
     ``site`` (the site row) enables the checks across sensors and inverters (sibling jumps,
-    a sensor reading high against its arrays).
+    a sensor reading high against its arrays). ``prior`` (an incremental run,
+    :class:`heliaudit.flags_window.Prior`): ``sensors`` hold the readings from the cut minus
+    the look-back; the days before the cut come from the store. ``keep`` receives each
+    sensor's day judgements for the next incremental run.
 
     Returns
     -------
@@ -744,7 +836,8 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
     invalid: dict = {}
     flags: list[pd.DataFrame] = []
     for sid, (q, x) in by_id.items():
-        if q not in ("poa_wm2", "ghi_wm2") or x.empty:
+        stored = _stored(prior, sid)
+        if q not in ("poa_wm2", "ghi_wm2") or (x.empty and stored is None):
             continue
         gs = grid_sun_for(x.index, sid)  # on the sensor's own plane, at its own intervals
         s = gs.reindex(x.index)
@@ -761,13 +854,17 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
                 lo = m.reindex(days.index).fillna(False).to_numpy(bool)
                 days.loc[lo & days["valid"].to_numpy(bool), "reason"] = reason
         days["valid"] = days["reason"] == ""
+        _keep(keep, sid, "valid_reason", days["reason"])
+        days = _join_days(stored, days, prior)
         invalid[sid] = days
         flags.append(sensor_qa.validity_flags(days, device_id=sid, quantity=q,
                                               std_offset_s=std_offset_s))
     # a sensor that jumped against its siblings reads wrong from the jump on: excluded
     if site is not None:
         jumps, jump_days = sibling_jumps(sensors, site, std_offset_s=std_offset_s,
-                                         sun_for=grid_sun_for)
+                                         sun_for=grid_sun_for, prior=prior, keep=keep)
+        if len(jumps) and prior is not None:
+            raise SensorsWholeNeeded
         if len(jumps):
             flags.append(jumps)
         for sid, tab in jump_days.items():
@@ -792,7 +889,8 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
     mount = inverters["mounting"].mode().iloc[0] if len(inverters) else "open_rack_glass_polymer"
     par = SAPM_PARAMETERS.get(mount, SAPM_PARAMETERS["open_rack_glass_polymer"])
     for sid, (q, x) in by_id.items():
-        if q != "t_module_c" or x.empty:
+        stored = _stored(prior, sid)
+        if q != "t_module_c" or (x.empty and stored is None):
             continue
         gs = grid_sun_for(x.index, sid).reindex(x.index)
         g_id, a_id, w_id = (paired(sid, "poa_sensor_id", "poa_wm2"),
@@ -812,16 +910,58 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
             x, poa_wm2=None if g is None else g.to_numpy(float),
             t_amb_c=None if ta is None else ta.to_numpy(float), t_mod_model_c=model,
             std_offset_s=std_offset_s, day_mask=(gs["elev"] >= 15.0).to_numpy())
+        _keep(keep, sid, "valid_reason", days["reason"])
+        window_days = days
+        days = _join_days(stored, days, prior)
         invalid[sid] = days
         flags.append(sensor_qa.validity_flags(days, device_id=sid, quantity=q,
                                               std_offset_s=std_offset_s))
         if a_id and model is not None:
-            tm_ok = x.mask(sensor_qa.invalid_interval_mask(x.index, days,
+            tm_ok = x.mask(sensor_qa.invalid_interval_mask(x.index, window_days,
                                                            std_offset_s=std_offset_s))
-            flags.append(sensor_qa.ambient_offset_flags(
-                by_id[a_id][1].reindex(x.index), tm_ok, model, gs["elev"].to_numpy(),
-                g.to_numpy(float), device_id=a_id, module_sensor=sid))
+            ta_x = by_id[a_id][1].reindex(x.index)
+            night, nd, sun, dr = sensor_qa.ambient_offset_samples(
+                ta_x, tm_ok, model, gs["elev"].to_numpy(), g.to_numpy(float))
+            an = _day_arrays(nd, night, x.index, std_offset_s)
+            ad = _day_arrays(dr, sun, x.index, std_offset_s)
+            _keep(keep, sid, "amb_night_c", an)
+            _keep(keep, sid, "amb_day_c", ad)
+            if prior is None:
+                flags.append(sensor_qa.ambient_offset_flags(
+                    ta_x, tm_ok, model, gs["elev"].to_numpy(), g.to_numpy(float),
+                    device_id=a_id, module_sensor=sid))
+            else:  # the stored days' samples with this run's from the cut
+                flags.append(_ambient_from_days(stored, an, ad, prior, sid, a_id,
+                                                ta_x, tm_ok, x.index))
     return invalid, flags
+
+
+def _ambient_from_days(stored, an: pd.Series, ad: pd.Series, prior, sid: str, a_id: str,
+                       ta_x: pd.Series, tm_ok: pd.Series, index: pd.DatetimeIndex
+                       ) -> pd.DataFrame:
+    """The ambient-offset check of an incremental run: the night and full-sun samples of
+    the stored days before the cut and of this run's days from it, over the module sensor's
+    whole period (its first row from the store)."""
+    def joined(name, window):
+        old = None if stored is None or name not in stored else stored[name].dropna()
+        got = _join_series(old, window, prior)
+        arrays = [a for a in ([] if got is None else got.tolist()) if a is not None]
+        return np.concatenate(arrays) if arrays else np.zeros(0)
+
+    nd, dr = joined("amb_night_c", an), joined("amb_day_c", ad)
+    first = prior.sensor_span.get(sid, (None, None))[0]
+    last = (int(epoch_s(index[-1:])[0]) if len(index)
+            else prior.sensor_span.get(sid, (None, None))[1])
+    if first is None and len(index):
+        first = int(epoch_s(index[:1])[0])
+    if first is None or last is None:
+        return flag_frame([])
+    if (ta_x.notna().sum() == 0 and not nd.size and not dr.size) or (
+            tm_ok.notna().sum() == 0 and not nd.size and not dr.size):
+        return flag_frame([])
+    return sensor_qa.ambient_offset_flags(ta_x, tm_ok, None, None, None, device_id=a_id,
+                                          module_sensor=sid, samples=(nd, dr),
+                                          span_s=(int(first), int(last)))
 
 
 def consolidate_clock_flags(flags: pd.DataFrame, *, n_clock_devices: int,
@@ -1179,14 +1319,18 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         return sun_at(idx, iv if iv is not None and len(iv) == len(idx) else None,
                       planes.get(sid))
 
+    # an incremental run judges the sensors' new days only (unless a sibling jump was found)
+    sp = prior if prior is not None and prior.sensor_window else None
+    skeep: dict = {}  # sensor id -> its day judgements, for the next incremental run
     invalid_days, judged = judge_sensors(sensors, sensor_sun, inverters, daily,
                                          std_offset_s=off_s, intervals=iv_of,
-                                         site=site)
+                                         site=site, prior=sp, keep=skeep)
     parts += judged
     last_seen: dict[str, int] = {}
     kinds: dict[str, str] = {}
     ratios: dict[str, pd.Series] = {}
     rain_parts: list[pd.Series] = []
+    sensor_parts: list[pd.DataFrame] = []  # interval checks, kept in flag_part
     inv_rows = {r["device_id"]: r for r in inverters.to_dict("records")}
     n_clock = 0
     for entry in sensors:
@@ -1198,15 +1342,20 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         xn = x.dropna()
         if len(xn):
             last_seen[sid], kinds[sid] = int(epoch_s(xn.index[-1:])[0]), q
-        if len(x):
-            g_idx, g_iv = expected_grid(x, iv)
+        elif sp is not None and sid in sp.sensor_last:
+            last_seen[sid], kinds[sid] = sp.sensor_last[sid]
+        if len(x) or _stored(sp, sid) is not None:
+            g_idx, g_iv = expected_grid(x, iv) if len(x) else (x.index, iv)
             gs = sun_at(g_idx, g_iv, planes.get(sid))  # the sensor's own plane (#11)
             days = invalid_days.get(sid)
             xv = x if days is None else x.mask(sensor_qa.invalid_interval_mask(
                 x.index, days, std_offset_s=off_s))
             fl, ratio = sensor_flags(sid, q, x, gs, std_offset_s=off_s, site_zone=zone,
-                                     source=sources.get(sid), x_valid=xv, interval_s=iv)
-            parts += fl
+                                     source=sources.get(sid), x_valid=xv, interval_s=iv,
+                                     prior=sp, keep=skeep)
+            for f in fl:
+                (sensor_parts if len(f) and f["kind"].isin(SENSOR_INTERVAL_KINDS).all()
+                 else parts).append(f)
             n_clock += q == "poa_wm2"
             if ratio is not None and len(ratio):
                 ratios[sid] = ratio
@@ -1214,10 +1363,20 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
                 day = (epoch_s(x.index) + off_s) // 86400
                 r = x.groupby(day).sum()
                 r.index = pd.to_datetime(r.index.to_numpy() * 86400, unit="s")
-                rain_parts.append(r)
+                _keep(skeep, sid, "rain_mm", r)
+                if sp is not None:
+                    st = _stored(sp, sid)
+                    r = _join_series(None if st is None or "rain_mm" not in st
+                                     else st["rain_mm"].dropna(), r, sp)
+                if r is not None and len(r):
+                    rain_parts.append(r)
         done += 1
         if progress:
             progress(done, n_total)
+    if sp is not None:  # the sensors' interval flags before the cut from the store
+        sensor_parts = [p for p in [sp.sensor_parts, *(sp.keep_new(f) for f in sensor_parts)]
+                        if p is not None and len(p)]
+    parts += sensor_parts
     parts += sibling_flags(ratios, std_offset_s=off_s)
     # several rain gauges: the daily mean of those that reported
     rain_daily = pd.concat(rain_parts, axis=1).mean(axis=1) if rain_parts else None
@@ -1263,7 +1422,11 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
             kinds[dev] = "inverter"
         seen |= prior.seen
     if collect is not None:
-        from heliaudit.flags_window import day_products
+        from heliaudit.flags_window import day_products, sensor_day_rows
+        collect.update(sensor_parts=sensor_parts, sensor_days=sensor_day_rows(
+                           {sid: pd.DataFrame(k) for sid, k in skeep.items()}),
+                       sensor_last={sid: [int(last_seen[sid]), kinds[sid]]
+                                    for sid in last_seen if kinds.get(sid) != "inverter"})
         collect.update(parts=[p for p in inv_parts if len(p)], seen=sorted(seen),
                        days=day_products(withheld, soiling_pi, clock_days,
                                          from_day=None if prior is None else prior.cut_day,
@@ -1383,8 +1546,8 @@ def read_sensors(engine: sa.Engine, site_id: str, *, quantities: tuple[str, ...]
         return _read_sensors(conn, setup, quantities)
 
 
-def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None
-                  ) -> tuple[pd.DataFrame, dict]:
+def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None, prior=None,
+                  keep: dict | None = None) -> tuple[pd.DataFrame, dict]:
     """Jumps of POA sensors against their siblings, and the invalid days they imply.
 
     Each POA sensor's clear-day ratio to the modelled clear-sky POA (on the site plane, on
@@ -1394,12 +1557,16 @@ def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None
     flags job both call this, so PR, filters and degradation leave out the same days that
     the flags report (issue #14).
 
+    ``prior`` and ``keep`` as in :func:`judge_sensors` (an incremental run: the stored
+    clear-day ratios and days before the cut; this run's ratios for the next run).
+
     Returns
     -------
     (flags, {sensor id: day table with reason 'jump_vs_sibling'})
     """
     planes = sensor_planes(site)
-    poa = [(e[0], e[2].sort_index()) for e in sensors if e[1] == "poa_wm2" and len(e[2])
+    poa = [(e[0], e[2].sort_index()) for e in sensors if e[1] == "poa_wm2"
+           and (len(e[2]) or _stored(prior, e[0]) is not None)
            and planes.get(e[0], "site") != "tracker"]
     if len(poa) < 2:
         return flag_frame([]), {}
@@ -1416,6 +1583,16 @@ def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None
         xv = x.mask(sensor_qa.invalid_interval_mask(x.index, days, std_offset_s=std_offset_s))
         r = sensor_qa.clear_day_ratio(xv, sun["poa_cs"], sun["aoi"].to_numpy(),
                                       std_offset_s=std_offset_s)
+        _keep(keep, sid, "jump_ratio", r)
+        if prior is not None:
+            stored = _stored(prior, sid)
+            old_days = (pd.DatetimeIndex([]) if stored is None or "valid_reason" not in stored
+                        else stored.index[stored["valid_reason"].notna().to_numpy()])
+            cut = pd.Timestamp(int(prior.cut_day) * 86400, unit="s")
+            days_of[sid] = old_days.append(days.index[days.index >= cut])
+            r = _join_series(None if stored is None or "jump_ratio" not in stored
+                             else stored["jump_ratio"].dropna(), r, prior)
+            r = r if r is not None else pd.Series(dtype=float)
         if len(r):
             ratios[sid] = r
     # only sensors in one plane are siblings: each plane's clear-day ratios are compared
@@ -1506,13 +1683,14 @@ def _site_setup(engine: sa.Engine, site_id: str) -> dict:
 
 
 def _read_sensors(conn: sa.Connection, setup: dict,
-                  quantities: tuple[str, ...] | None = None) -> list[tuple]:
+                  quantities: tuple[str, ...] | None = None, start_s: int | None = None
+                  ) -> list[tuple]:
     sensors = []
     for sid, q in setup["sensor_rows"]:
         ch = setup["channels"].get((sid, q))
         if ch is None or (quantities is not None and q not in quantities):
             continue
-        ts, v, iv = read_channel(conn, ch, with_interval=True)
+        ts, v, iv = read_channel(conn, ch, start_s, with_interval=True)
         iv = fill_unknown_intervals(ts, iv)
         if ch in setup["instant"]:  # samples: QA runs on the samples, durations by their spacing
             iv = np.append(np.diff(ts).astype(float), iv[-1:]) if ts.size else iv
@@ -1541,6 +1719,8 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
     state = (last or {}).get("params", {}).get("window")
     if not state:
         return None, "no earlier flags run with a stored window state"
+    if not state.get("sensor_days"):
+        return None, "the stored state predates the sensors' day judgements (store v7)"
     if {k: v for k, v in last["params"].items() if k != "window"} != json.loads(
             to_json(setup["params"])):
         return None, "detector settings changed since the last flags run"
@@ -1558,7 +1738,33 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
                       state.get("full_devices", []))
     cut_day = (cut + setup["off_s"]) // 86400
     return fw.Prior.from_store(cut, cut_day, parts, read_flag_days(engine, site_id),
-                               state), f"from {dt.datetime.fromtimestamp(cut, dt.UTC):%Y-%m-%d %H:%M} UTC"
+                               state, sensor_ids=[sid for sid, _q in setup["sensor_rows"]]
+                               ), f"from {dt.datetime.fromtimestamp(cut, dt.UTC):%Y-%m-%d %H:%M} UTC"
+
+
+def _sensor_spans(sensors, prior) -> dict:
+    """Sensor id -> [first row, last row] (UTC s) over its whole history: the first from the
+    store in an incremental run."""
+    out = {}
+    for e in sensors:
+        sid, x = e[0], e[2]
+        old = None if prior is None else prior.sensor_span.get(sid)
+        if len(x):
+            ts = epoch_s(x.index)
+            first, last = int(ts.min()), int(ts.max())
+            if old is not None and not prior.sensors_whole:
+                first = min(first, old[0])
+            out[sid] = [first, last]
+        elif old is not None:
+            out[sid] = list(old)
+    return out
+
+
+def _has_jump(flags: pd.DataFrame) -> bool:
+    """Whether the flags hold a sensor jump against its siblings."""
+    m = flags["kind"] == "sensor_implausible"
+    return any(isinstance(d, dict) and d.get("reason") == "jump_vs_sibling"
+               for d in flags.loc[m, "details"])
 
 
 def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None, *,
@@ -1599,8 +1805,9 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
         frames = itertools.chain(
             inverter_frames(engine, site_id, start_s, None, window) if window else (),
             inverter_frames(engine, site_id, None, None, read_whole) if read_whole else ())
+    sensor_start = None if prior is None or prior.sensors_whole else start_s
     with engine.connect() as conn:
-        sensors = _read_sensors(conn, setup)
+        sensors = _read_sensors(conn, setup, start_s=sensor_start)
         counters = _read_counters(conn, setup, read_whole, None)
         if prior is not None:
             counters.update(_read_counters(conn, setup, [d for d in all_inv
@@ -1608,11 +1815,20 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
                                            start_s))
     arrays = _resolved_arrays(site.get("config_toml"), _arrays_by_inverter(setup["cfg"]))
     collect: dict = {}
-    flags = compute_flags(site, _with_planes(inverters, arrays), frames, sensors, daily,
-                          economics=setup["economics"], sources=_sources_by_device(setup["cfg"]),
-                          progress=progress, counters=counters,
-                          planes=device_planes(site.get("config_toml"), site), prior=prior,
-                          collect=collect)
+    kw = dict(economics=setup["economics"], sources=_sources_by_device(setup["cfg"]),
+              progress=progress, counters=counters,
+              planes=device_planes(site.get("config_toml"), site), collect=collect)
+    try:
+        flags = compute_flags(site, _with_planes(inverters, arrays), frames, sensors, daily,
+                              prior=prior, **kw)
+    except SensorsWholeNeeded:  # a sibling jump: the sensors are judged whole
+        prior.sensors_whole = True
+        prior.sensor_days, prior.sensor_parts = {}, None
+        prior.whole_sensors = {sid for sid, _q in setup["sensor_rows"]}
+        with engine.connect() as conn:
+            sensors = _read_sensors(conn, setup)
+        flags = compute_flags(site, _with_planes(inverters, arrays), frames, sensors, daily,
+                              prior=prior, **kw)
     mism, _note = input_mismatch_for_site(engine, site_id, arrays, off_s, start_inputs)
     mism = [m for m in mism if len(m)]
     if prior is not None:
@@ -1621,14 +1837,17 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
             mism.append(prior.late_parts)
     if mism:
         flags = pd.concat([flags, *mism], ignore_index=True)
-    parts = pd.concat([*collect["parts"], *mism], ignore_index=True) if (
-        collect["parts"] or mism) else flag_frame([])
+    pieces = [*collect["sensor_parts"], *collect["parts"], *mism]
+    parts = pd.concat(pieces, ignore_index=True) if pieces else flag_frame([])
     if prior is not None:  # stored parts before the cut stay where they are
         parts = prior.keep_new(parts)
     days = collect["days"]
+    if len(collect["sensor_days"]):
+        days = pd.concat([d for d in (days, collect["sensor_days"]) if len(d)],
+                         ignore_index=True)
     if prior is not None and len(days):
         days = days[(days["day_no"] >= prior.cut_day)
-                    | days["device_id"].isin(list(prior.full_devices))]
+                    | days["device_id"].isin(list(prior.full_devices | prior.whole_sensors))]
     seen_ts = [*collect["last_seen"].values(),
                *(int(epoch_s(x.index[-1:])[0]) for _s, _q, x, *_r in sensors if len(x))]
     limited = sorted({str(d) for d in parts.loc[parts["kind"] == "power_limit", "device_id"]})
@@ -1636,11 +1855,16 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
              "config_sha256": site.get("config_sha256"),
              "last_seen": collect["last_seen"], "seen": collect["seen"],
              "full_devices": limited if prior is None else sorted(
-                 set(limited) | prior.full_devices), "scope": scope}
+                 set(limited) | prior.full_devices), "scope": scope,
+             # sensors' day judgements are stored (v7); a sibling jump: next run whole
+             "sensor_days": True, "sensor_last": collect["sensor_last"],
+             "sensor_span": _sensor_spans(sensors, prior),
+             "sensors_whole": bool(_has_jump(flags))}
     with engine.begin() as conn:
         n = store_flags(conn, site_id, flags, comp_id, parts=parts, days=days,
                         cut_s=None if prior is None else prior.cut_s,
                         cut_day=None if prior is None else prior.cut_day,
-                        full_devices=() if prior is None else prior.full_devices)["flags"]
+                        full_devices=() if prior is None
+                        else prior.full_devices | prior.whole_sensors)["flags"]
         finish_computation(conn, comp_id, params={**setup["params"], "window": state})
     return n

@@ -178,3 +178,45 @@ def test_v6_step_refuses_a_lossy_move(tmp_path, monkeypatch):
     with eng.connect() as conn:
         assert current_version(conn) == 5
         assert conn.execute(sa.text("SELECT count(*) FROM reading")).scalar() == len(old)
+
+
+# ---------------------------------------------------------------- v7: sensor days (#16)
+
+def test_v6_store_gains_the_sensor_day_columns_and_keeps_its_rows(tmp_path):
+    """A v6 store (flag_day with the inverter columns only, one row kept) reaches v7: the
+    sensors' day-judgement columns exist, the row is unchanged, and the new columns
+    round-trip (a float array as bytes)."""
+    from db.flags import read_flag_days
+    from tests.helpers_store import add_site
+
+    path = tmp_path / "v6.sqlite"
+    eng = make_engine(path)
+    with eng.begin() as conn:
+        conn.execute(sa.text("DROP TABLE flag_day"))
+        conn.execute(sa.text(
+            "CREATE TABLE flag_day (site_id VARCHAR(64) NOT NULL, device_id VARCHAR(64) NOT NULL, "
+            "day_no INTEGER NOT NULL, soiling_pi FLOAT, withheld_kwh FLOAT, "
+            "clock_delta_min FLOAT, clock_clear BOOLEAN, PRIMARY KEY (site_id, device_id, day_no))"))
+        add_site(conn, "s1")
+        conn.execute(sa.text("INSERT INTO flag_day VALUES ('s1', 'inv1', 19000, 0.97, NULL, "
+                             "-2.5, 1)"))
+        conn.execute(schema.schema_version.delete())
+        conn.execute(schema.schema_version.insert().values(version=6, applied_utc="x", note="v6"))
+    eng.dispose()
+    eng = sa.create_engine(f"sqlite:///{path}")
+    assert upgrade(eng) == 7
+    cols = {c["name"] for c in sa.inspect(eng).get_columns("flag_day")}
+    assert {"valid_reason", "sky_ratio", "jump_ratio", "rain_mm", "amb_night_c",
+            "amb_day_c"} <= cols
+    with eng.begin() as conn:
+        conn.execute(schema.flag_day.insert().values(
+            site_id="s1", device_id="poa1", day_no=19000, valid_reason="stuck", sky_ratio=0.98,
+            amb_night_c=np.array([1.5, -0.25]).astype("<f8").tobytes()))
+    days = read_flag_days(eng, "s1").set_index("device_id")
+    assert days.loc["inv1", "soiling_pi"] == 0.97 and days.loc["inv1", "clock_clear"] is True
+    assert days.loc["poa1", "valid_reason"] == "stuck"
+    assert days.loc["poa1", "amb_night_c"].tolist() == [1.5, -0.25]
+    with eng.connect() as conn:
+        notes = conn.execute(sa.select(schema.schema_version.c.note).where(
+            schema.schema_version.c.version == 7)).scalar()
+    assert "sensor" in notes

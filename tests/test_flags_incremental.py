@@ -6,6 +6,11 @@ The flags table must then hold exactly what a full recompute of the same store g
 same events with the same dates, severity, details and lost energy. The reference is the
 full recompute (the detectors as they run on the whole history), not a copy of the window
 logic; the faults injected across the boundary make events that the window has to merge.
+Sensor faults too (issue #16, store v7: sensors are judged day by day from the cut on and
+joined with their stored days): an ambient sensor stuck from before the cut into the new
+week (a flat line open at the cut moves the cut back a month) and otherwise reading ~8 °C
+high (its offset check takes medians over the whole history, joined from the stored days'
+samples), a POA reference cell stuck for two days and a short POA gap in the new week.
 """
 
 import json
@@ -47,6 +52,13 @@ def _site_data():
         if dev == "inv5":  # stops reporting four days before the end
             p[w.index[-1] - pd.Timedelta("4D"):] = np.nan
         power[dev] = p.clip(0, 100.0)
+    w = w.copy()
+    # sensor faults across the cut and the boundary (after the power, which stays normal)
+    w.loc["2024-07-14 07:00":"2024-07-16 06:45", "poa_wm2"] = 3.0  # stuck cell, 2 local days
+    w.loc["2024-07-12 17:00":"2024-07-12 21:00", "poa_wm2"] = np.nan  # a short gap
+    hour = (w.index.hour.to_numpy() - 7) % 24  # local standard time (UTC-7)
+    w["t_amb_c"] = 24.0 + 4.0 * np.sin(2 * np.pi * (hour - 9) / 24)  # reads ~8 C high
+    w.loc["2024-06-29 12:00":"2024-07-12 20:00", "t_amb_c"] = 27.0  # stuck ambient sensor
     return w, power
 
 
@@ -59,6 +71,7 @@ def _load(eng, w, power, lo, hi, first: bool) -> None:
                      longitude_deg=LON, altitude_m=ALT, tilt_deg=TILT, azimuth_deg=AZ)
             add_sensor(conn, "s1", "poa1", "poa_wm2", instrument="reference_cell")
             add_sensor(conn, "s1", "tmod1", "t_module_c")
+            add_sensor(conn, "s1", "tamb1", "t_amb_c")
             for dev in power:
                 add_inverter(conn, "s1", dev, poa_sensor_id="poa1", t_module_sensor_id="tmod1",
                              p_dc_kwp=120.0 if dev == "inv6" else 100.0, p_ac_max_kw=100.0,
@@ -69,6 +82,7 @@ def _load(eng, w, power, lo, hi, first: bool) -> None:
                 schema.channel, schema.channel.c.device_pk == schema.device.c.device_pk))}
         add_readings(conn, chans[("poa1", "poa_wm2")], ts, w["poa_wm2"][m])
         add_readings(conn, chans[("tmod1", "t_module_c")], ts, w["t_module_c"][m])
+        add_readings(conn, chans[("tamb1", "t_amb_c")], ts, w["t_amb_c"][m])
         for dev, p in power.items():
             add_readings(conn, chans[(dev, "p_ac_kw")], ts, p[m])
 
@@ -104,9 +118,10 @@ def runs(tmp_path_factory):
 def test_incremental_run_used_a_window(runs):
     _before, _inc, _full, scopes, _eng = runs
     assert scopes[0] == "full"
-    # the cut is the start of the local month two days before the new week: 2024-07-01
-    # 00:00 local standard time (UTC-7) = 07:00 UTC
-    assert scopes[1] == "window from 2024-07-01 07:00 UTC"
+    # the cut is the start of the local month two days before the new week, 2024-07-01 00:00
+    # local standard time (UTC-7), moved back to the month start of the module sensor's flat
+    # line still open at it (the ambient sensor, from 2024-06-29): 2024-06-01 00:00 local = 07:00 UTC
+    assert scopes[1] == "window from 2024-06-01 07:00 UTC"
 
 
 def test_incremental_flags_equal_full_recompute(runs):
@@ -135,6 +150,36 @@ def test_boundary_events_are_merged_not_split(runs):
     up = full[(full["kind"] == "underperformance") & (full["device_id"] == "inv3")]
     assert len(up) == 1 and up.iloc[0]["start_s"] < b < up.iloc[0]["end_s"]
     assert (full["kind"] == "stopped_reporting").any()
+
+
+def test_sensor_faults_across_the_boundary(runs):
+    """The sensor events that straddle the cut or the boundary are each one event, equal to
+    the full recompute's (checked by the equality test), and the incremental run kept the
+    sensors' day judgements (it read them from the cut's look-back only)."""
+    _before, inc, full, _scopes, eng = runs
+    b = _s(BOUNDARY)
+
+    def one(kind, dev, reason=None):
+        f = full[(full["kind"] == kind) & (full["device_id"] == dev)]
+        if reason is not None:
+            f = f[[d.get("reason") == reason for d in f["details"]]]
+        return f
+
+    flat = one("sensor_flatline", "tamb1")
+    assert len(flat) == 1 and flat.iloc[0]["start_s"] < _s("2024-07-01 07:00") < b \
+        < flat.iloc[0]["end_s"]
+    cell = one("sensor_implausible", "poa1", "stuck")
+    assert len(cell) == 1 and cell.iloc[0]["details"]["n_days_excluded"] == 2
+    amb = one("sensor_implausible", "tamb1", "ambient_offset")
+    # over the module sensor's whole period, from its first reading
+    assert len(amb) == 1 and amb.iloc[0]["start_s"] == _s("2024-05-01 07:00") \
+        and amb.iloc[0]["end_s"] > b
+    # both runs give the same (equality test), and the store holds the sensors' days
+    from db.flags import read_flag_days
+    days = read_flag_days(eng, "s1")
+    poa = days[days["device_id"] == "poa1"]
+    assert poa["valid_reason"].notna().sum() >= 70
+    assert days[days["device_id"] == "tmod1"]["amb_night_c"].notna().sum() >= 70
 
 
 def test_configuration_change_makes_the_next_run_full(runs):
