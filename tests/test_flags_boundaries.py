@@ -284,3 +284,55 @@ def test_dropout_warning_from_24_hours(n_missing, severity):
     x.iloc[50:50 + n_missing] = np.nan
     fl = dropout_flags(x, pd.Series(True, index=grid), device_id="poa1", quantity="poa_wm2")
     assert len(fl) == 1 and fl.iloc[0]["severity"] == severity
+
+
+# ------------------------------------------------------------ physical limits
+
+
+LIMITS = [("poa_wm2", -10.0, 1500.0), ("ghi_wm2", -10.0, 1500.0), ("t_module_c", -40.0, 90.0),
+          ("t_amb_c", -40.0, 55.0), ("wind_ms", 0.0, 50.0), ("rain_mm", 0.0, 200.0)]
+
+
+@pytest.mark.parametrize("quantity,lo,hi", LIMITS)
+@pytest.mark.parametrize("side", ["lo", "hi"])
+@pytest.mark.parametrize("nudge,flagged", [(-0.01, False), (0.0, False), (0.01, True)])
+def test_physical_limits(quantity, lo, hi, side, nudge, flagged):
+    # common practice, README Filters / Flags ("values outside physical limits"): G −10…1500
+    # W/m², T_mod −40…90 °C, T_amb −40…55 °C, wind 0…50 m/s; rain 0…200 mm per interval
+    # (docs/flags.md). The limits themselves are inside; `nudge` moves outwards. Five
+    # samples (a warning; fewer than 4 are information) between plausible ones.
+    from analytics.sensor_qa import range_flags
+
+    value = lo - nudge if side == "lo" else hi + nudge
+    mid = (lo + hi) / 2
+    x = pd.Series(np.r_[np.full(10, mid), np.full(5, value), np.full(10, mid)],
+                  index=pd.date_range("2024-06-01", periods=25, freq="15min", tz="UTC"))
+    fl = range_flags(x, device_id="s1", quantity=quantity)
+    assert (len(fl) == 1) == flagged
+    if flagged:
+        assert fl.iloc[0]["severity"] == "warning"
+
+
+@pytest.mark.parametrize("n_bad,invalid", [(20, False), (21, True), (22, True)])
+def test_irradiance_out_of_range_on_most_daytime_readings(n_bad, invalid):
+    # heliaudit's documented choice, README Flags: a day is excluded as out of range when
+    # *most* (more than half) of its daytime readings are outside −10…1500 W/m²; 40
+    # daytime readings, n_bad of them at 2000 W/m²
+    g = CS.copy()
+    day = np.flatnonzero(ELEV >= 15)
+    g[day[40:]] = np.nan  # exactly 40 daytime readings
+    g[day[:n_bad]] = 2000.0
+    days = _irr_days(g)
+    assert (days["reason"] == "out_of_range").any() == invalid
+
+
+@pytest.mark.parametrize("n_bad,invalid", [(20, False), (21, True), (22, True)])
+def test_module_out_of_range_on_most_daytime_readings(n_bad, invalid):
+    # heliaudit's documented choice, README Flags: most daytime module readings outside
+    # −40…90 °C; 40 daytime readings (day_mask), n_bad at −60 °C
+    mask = np.zeros(96, bool)
+    mask[30:70] = True
+    t = 30.0 + 0.1 * np.arange(96)
+    t[30:30 + n_bad] = -60.0
+    days = module_temperature_validity(pd.Series(t, index=IDX), std_offset_s=0, day_mask=mask)
+    assert (days["reason"] == "out_of_range").any() == invalid
