@@ -207,3 +207,70 @@ def week_share_of_lost_energy(flags: pd.DataFrame, daily_expected: pd.DataFrame,
             overlap = max(0, min(b, week_end_s) - max(a, week_start_s))
             out[i] = float(lost) * overlap / (b - a)
     return out
+
+
+#: A site whose daily results end more than this many days before the portfolio's week end
+#: is "not reporting" (the same 3 days after which a device gets ``stopped_reporting``).
+STALE_AFTER_DAYS = 3
+
+
+def portfolio_order(sites: pd.DataFrame, week_end) -> pd.DataFrame:
+    """Sites ordered by what needs attention first, with a one-line ``status``.
+
+    Order (common practice for a portfolio's weekly screen: a plant that sends nothing is
+    the least known, then open alarms, then warnings): ``not reporting`` (its daily results
+    end more than :data:`STALE_AFTER_DAYS` days before ``week_end``, or it has none), then by
+    number of alarms, then of warnings, each group by the week's lost energy, largest first.
+
+    Parameters
+    ----------
+    sites : DataFrame
+        ``site_id, last_day`` (date or None), ``n_alarms, n_warnings, lost_week_kwh``.
+    week_end : date
+        The last day of the week shown.
+
+    Returns
+    -------
+    DataFrame
+        ``sites`` in that order with ``rank`` (0 not reporting, 1 alarm, 2 warning, 3 none),
+        ``days_behind`` (days from its last daily result to ``week_end``; NaN without any)
+        and ``status`` (text).
+
+    Examples
+    --------
+    >>> import datetime as dt
+    >>> s = pd.DataFrame({"site_id": ["a", "b", "c"],
+    ...                   "last_day": [dt.date(2024, 6, 30), dt.date(2024, 6, 20), dt.date(2024, 6, 30)],
+    ...                   "n_alarms": [0, 0, 2], "n_warnings": [1, 0, 0],
+    ...                   "lost_week_kwh": [5.0, 0.0, 80.0]})
+    >>> portfolio_order(s, dt.date(2024, 6, 30))[["site_id", "status"]].values.tolist()
+    [['b', 'no daily results since 2024-06-20 (10 days)'], ['c', '2 alarms'], ['a', '1 warning']]
+    """
+    out = sites.copy()
+    end = pd.Timestamp(week_end)
+    last = pd.to_datetime(pd.Series(list(out["last_day"]), index=out.index, dtype=object))
+    out["days_behind"] = (end - last).dt.days.astype("float64")
+    stale = out["days_behind"].isna() | (out["days_behind"] > STALE_AFTER_DAYS)
+    n_al = out["n_alarms"].fillna(0).astype(int)
+    n_wa = out["n_warnings"].fillna(0).astype(int)
+    out["rank"] = np.select([stale, n_al > 0, n_wa > 0], [0, 1, 2], 3)
+
+    def _plural(n: int, word: str) -> str:
+        return f"{n} {word}{'' if n == 1 else 's'}"
+
+    status = []
+    for st, lastd, behind, a, w in zip(stale, out["last_day"], out["days_behind"], n_al, n_wa,
+                                       strict=True):
+        if st:
+            status.append("no daily results yet" if pd.isna(behind) else
+                          f"no daily results since {lastd} ({int(behind)} days)")
+        elif a or w:
+            status.append(", ".join(x for x in (_plural(a, "alarm") if a else "",
+                                                _plural(w, "warning") if w else "") if x))
+        else:
+            status.append("no alarm or warning")
+    out["status"] = status
+    out["_lost"] = out["lost_week_kwh"].fillna(0.0)
+    out = out.sort_values(["rank", "n_alarms", "n_warnings", "_lost", "site_id"],
+                          ascending=[True, False, False, False, True], kind="stable")
+    return out.drop(columns="_lost").reset_index(drop=True)

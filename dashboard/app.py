@@ -22,21 +22,33 @@ st.set_page_config(page_title="heliaudit", page_icon=ICON, layout="wide")
 
 weekly = st.Page(ui.PAGES["weekly"], title="Weekly check", icon=":material/calendar_view_week:",
                  url_path="weekly")
+# whether this visit named a site (the sidebar below writes the chosen site into the URL
+# before the page runs)
+ASKED_SITE = "site" in st.query_params
+portfolio = st.Page(ui.PAGES["portfolio"], title="Portfolio", icon=":material/apps:",
+                    url_path="portfolio")
 
 
 def _home() -> None:
-    """The app's root address opens the weekly check at its own address, ``/weekly``.
+    """The app's root address opens the weekly check at its own address, ``/weekly`` (the
+    portfolio page, ``/portfolio``, when the store holds more than one site).
 
     Streamlit serves its default page only at the root and ignores that page's
     ``url_path``, so a default weekly page would make ``/weekly`` (the address the menu and
     links name) "page not found"; the hidden default page forwards there instead, keeping
     the site and date range of the query string.
     """
-    st.switch_page(weekly, query_params=st.query_params.to_dict())
+    try:
+        several = len(data.site_list(data.db_url())) > 1
+    except data.DatabaseUnreadable:
+        several = False
+    st.switch_page(portfolio if several and not ASKED_SITE else weekly,
+                   query_params=st.query_params.to_dict())
 
 
 pages = [
     st.Page(_home, title="heliaudit", url_path="home", default=True, visibility="hidden"),
+    portfolio,
     weekly,
     st.Page(ui.PAGES["trends"], title="Inverter trends", icon=":material/show_chart:",
             url_path="trends"),

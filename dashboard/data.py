@@ -50,7 +50,12 @@ from analytics.reporting import (
 )
 from analytics.temperature import cell_temperature_best_available, sapm_parameters
 from analytics.warranty import warranted_fraction, warranty_envelope, warranty_rate_test
-from analytics.weekly import period_kpis, week_share_of_lost_energy, weekly_comparison
+from analytics.weekly import (
+    period_kpis,
+    portfolio_order,
+    week_share_of_lost_energy,
+    weekly_comparison,
+)
 from db import degradation as db_degradation
 from db import ingest_log as db_ingest_log
 from db import queries, registry
@@ -361,34 +366,65 @@ def week_energy(url: str, site_id: str, end: dt.date) -> dict:
 
 
 @_cache
-def fleet_sites(url: str, end: dt.date) -> pd.DataFrame:
-    """One row per site for the week ending ``end`` (sums over its inverters)."""
-    rows = []
-    for site_id in site_list(url)["site_id"]:
-        eng = engine(url)
-        w0, w1 = week_of(end)
-        t0 = w0 - dt.timedelta(days=7 * TRAILING_WEEKS)
-        cols = ["e_ac_kwh", "e_ac_pr_kwh", "e_ref_kwh", "e_ref_stc_kwh", "e_lost_kwh",
-                "t_daylight_h", "t_unavailable_h", "n_days_valid"]
-        wk = queries.period_sums(eng, site_id, w0, w1)[cols].sum().to_frame().T
-        tr = queries.period_sums(eng, site_id, t0, w0 - dt.timedelta(days=1))[cols].sum()
-        k = period_kpis(wk).iloc[0]
-        tk = period_kpis(tr.to_frame().T).iloc[0]
-        info = site_info(url, site_id)
+def portfolio_end(url: str) -> dt.date | None:
+    """The last day with daily results in any site of the store (the portfolio's default
+    week end), or None."""
+    spans = queries.portfolio_spans(engine(url))
+    days = [d for d in spans["last_day"] if d is not None]
+    return max(days) if days else None
+
+
+@_cache
+def portfolio_week(url: str, end: dt.date) -> pd.DataFrame:
+    """One row per site of the store for the week ending ``end``, the sites that need
+    attention first (:func:`analytics.weekly.portfolio_order`).
+
+    Columns: ``site_id, name, status, rank, last_day, days_behind, p_dc_kwp, n_inverters,
+    n_inverters_reporting, e_ac_kwh, yf_h, pr_stc, d_trailing_pct, avail_energy, n_alarms,
+    n_warnings, n_flags, lost_week_kwh, rate_pct_per_yr, ci_low, ci_high, rate_method,
+    n_caveats, warranted_pct_per_yr``. Energy and PR are ratios of sums over all the site's
+    inverters and sensor types (IEC 61724-1); ``d_trailing_pct`` compares with the site's
+    :data:`TRAILING_WEEKS` weeks before; the rate is the site's recommended degradation rate.
+    The sums come from one statement per period for the whole store; flags per site.
+    """
+    eng = engine(url)
+    w0, w1 = week_of(end)
+    t0, t1 = w0 - dt.timedelta(days=7 * TRAILING_WEEKS), w0 - dt.timedelta(days=1)
+    sites = site_list(url)[["site_id", "name", "n_inverters"]]
+    spans = queries.portfolio_spans(eng)[["site_id", "last_day", "p_dc_kwp"]]
+    wk = queries.portfolio_sums(eng, w0, w1).set_index("site_id")
+    tr = queries.portfolio_sums(eng, t0, t1).set_index("site_id")
+    out = sites.merge(spans, on="site_id", how="left")
+    k = period_kpis(wk.astype(float)) if not wk.empty else pd.DataFrame(
+        columns=["pr_stc", "avail_energy", "e_ac_kwh"])
+    tk = period_kpis(tr.astype(float)) if not tr.empty else pd.DataFrame(columns=["pr_stc"])
+    out["n_inverters_reporting"] = out["site_id"].map(wk.get("n_inverters_reporting")
+                                                      ).fillna(0).astype(int)
+    out["e_ac_kwh"] = out["site_id"].map(k.get("e_ac_kwh")).astype(float)
+    out["yf_h"] = out["e_ac_kwh"] / out["p_dc_kwp"]
+    out["pr_stc"] = out["site_id"].map(k.get("pr_stc")).astype(float)
+    trailing = out["site_id"].map(tk.get("pr_stc")).astype(float)
+    out["d_trailing_pct"] = 100.0 * (out["pr_stc"] / trailing - 1.0)
+    out["avail_energy"] = out["site_id"].map(k.get("avail_energy")).astype(float)
+    counts = []
+    for site_id in out["site_id"]:
         fl = week_flags(url, site_id, end)
-        insts = inverter_instruments(url, site_id)["instrument"].unique()
-        rows.append({"site_id": site_id, "name": info["name"],
-                     "n_inverters": len(inverter_list(url, site_id)),
-                     "instruments": ", ".join(sorted(map(str, insts))),
-                     "e_ac_kwh": k["e_ac_kwh"], "pr_stc": k["pr_stc"],
-                     "d_trailing_pct": 100 * (k["pr_stc"] / tk["pr_stc"] - 1)
-                     if tk["pr_stc"] and not pd.isna(tk["pr_stc"]) else np.nan,
-                     "avail_energy": k["avail_energy"],
-                     "n_alarms": int((fl["severity"] == "alarm").sum()),
-                     "n_warnings": int((fl["severity"] == "warning").sum()),
-                     "n_flags": len(fl),
-                     "lost_week_kwh": float(fl["lost_week_kwh"].fillna(0).sum())})
-    return pd.DataFrame(rows)
+        counts.append({"n_alarms": int((fl["severity"] == "alarm").sum()),
+                       "n_warnings": int((fl["severity"] == "warning").sum()),
+                       "n_flags": len(fl),
+                       "lost_week_kwh": float(fl["lost_week_kwh"].fillna(0).sum())})
+    out = pd.concat([out, pd.DataFrame(counts, index=out.index,
+                                       columns=["n_alarms", "n_warnings", "n_flags",
+                                                "lost_week_kwh"])], axis=1)
+    rates = queries.portfolio_site_rates(eng, db_degradation.SITE_DEVICE, RECOMMENDED)
+    rates["rate_method"] = [method_code((d or {}).get("chosen_method")) for d in rates["details"]]
+    rates["n_caveats"] = [len((d or {}).get("caveats") or []) for d in rates["details"]]
+    out = out.merge(rates.drop(columns="details"), on="site_id", how="left")
+    out.loc[out["rate_pct_per_yr"].isna(), "n_caveats"] = np.nan
+    out["warranted_pct_per_yr"] = [
+        -w["annual_loss_pct"] if (w := warranty_terms(url, sid)) else np.nan
+        for sid in out["site_id"]]
+    return portfolio_order(out, end)
 
 
 #: Heatmaps show one column per day up to this many days, then one per week up to

@@ -20,6 +20,7 @@ from dashboard import data
 #: folder beside the entry script switches Streamlit (and AppTest's switch_page) to the old
 #: automatic multipage mode, which drops the entry script's sidebar widgets on page change.
 PAGES = {
+    "portfolio": "views/portfolio.py",
     "weekly": "views/weekly.py",
     "trends": "views/trends.py",
     "degradation": "views/degradation.py",

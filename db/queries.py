@@ -150,6 +150,75 @@ def period_sums(engine: sa.Engine, site_id: str, start: dt.date, end: dt.date) -
     return _frame(engine, q)
 
 
+# ---------------------------------------------------------------- portfolio (#16)
+
+
+def portfolio_sums(engine: sa.Engine, start: dt.date, end: dt.date) -> pd.DataFrame:
+    """Per site, the sums of :func:`period_sums` over the local days ``[start, end]`` of all
+    its inverters, in one statement for the whole store (a portfolio page reads every site).
+
+    Columns: ``site_id, n_inverters_reporting, n_days, n_days_valid, e_ac_kwh, e_ac_pr_kwh,
+    e_ref_kwh, e_ref_stc_kwh, e_lost_kwh, t_daylight_h, t_unavailable_h``.
+    """
+    d = s.daily_inverter.c
+    valid = d.day_valid.is_(True)
+
+    def vsum(col):
+        return sa.func.sum(sa.case((valid, col), else_=None))
+
+    q = (sa.select(s.device.c.site_id,
+                   sa.func.count(sa.distinct(d.device_pk)).label("n_inverters_reporting"),
+                   sa.func.count().label("n_days"),
+                   sa.func.sum(sa.case((valid, 1), else_=0)).label("n_days_valid"),
+                   sa.func.sum(d.e_ac_kwh).label("e_ac_kwh"),
+                   vsum(sa.func.coalesce(d.e_ac_pr_kwh, d.e_ac_kwh)).label("e_ac_pr_kwh"),
+                   vsum(d.e_ref_kwh).label("e_ref_kwh"),
+                   vsum(d.e_ref_stc_kwh).label("e_ref_stc_kwh"),
+                   sa.func.sum(d.e_lost_kwh).label("e_lost_kwh"),
+                   sa.func.sum(d.t_daylight_h).label("t_daylight_h"),
+                   sa.func.sum(d.t_unavailable_h).label("t_unavailable_h"))
+         .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
+         .where(d.day >= start, d.day <= end)
+         .group_by(s.device.c.site_id).order_by(s.device.c.site_id))
+    return _frame(engine, q)
+
+
+def portfolio_spans(engine: sa.Engine) -> pd.DataFrame:
+    """Per site: ``site_id, first_day, last_day`` of its daily table and ``p_dc_kwp`` (the
+    sum of its inverters' DC ratings); sites without daily rows have no days."""
+    d = s.daily_inverter.c
+    days = (sa.select(s.device.c.site_id, sa.func.min(d.day).label("first_day"),
+                      sa.func.max(d.day).label("last_day"))
+            .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
+            .group_by(s.device.c.site_id).subquery())
+    kwp = (sa.select(s.device.c.site_id, sa.func.sum(s.inverter.c.p_dc_kwp).label("p_dc_kwp"))
+           .select_from(s.device.join(s.inverter, s.inverter.c.device_pk == s.device.c.device_pk))
+           .group_by(s.device.c.site_id).subquery())
+    q = (sa.select(s.site.c.site_id, days.c.first_day, days.c.last_day, kwp.c.p_dc_kwp)
+         .select_from(s.site.outerjoin(days, days.c.site_id == s.site.c.site_id)
+                      .outerjoin(kwp, kwp.c.site_id == s.site.c.site_id))
+         .order_by(s.site.c.site_id))
+    out = _frame(engine, q)
+    for c in ("first_day", "last_day"):
+        out[c] = [_as_date(x) for x in out[c]]
+    out["p_dc_kwp"] = pd.to_numeric(out["p_dc_kwp"], errors="coerce").astype("float64")
+    return out
+
+
+def portfolio_site_rates(engine: sa.Engine, device_id: str, method: str) -> pd.DataFrame:
+    """The degradation row ``(device_id, method)`` of every site that has one (the site-level
+    recommended rate: device ``"(site)"``, method ``"recommended"``): ``site_id,
+    rate_pct_per_yr, ci_low, ci_high, details`` (dict)."""
+    t = s.degradation_result.c
+    q = (sa.select(t.site_id, t.rate_pct_per_yr, t.ci_low, t.ci_high, t.details_json)
+         .where(t.device_id == device_id, t.method == method).order_by(t.site_id))
+    out = _frame(engine, q)
+    for c in ("rate_pct_per_yr", "ci_low", "ci_high"):
+        out[c] = pd.to_numeric(out[c], errors="coerce").astype("float64")
+    out["details"] = [_json(x) for x in out.pop("details_json")]
+    return out
+
+
 # ---------------------------------------------------------------- flags
 
 FLAG_COLUMNS = READ_COLUMNS

@@ -102,19 +102,10 @@ if len(bi) > 1:
                "cent; Dunn, Gostein & Emery 2012), so PRs are shown and compared per sensor "
                "type, never across them.")
 
-k = data.fleet_sites(url, end)
-if len(k) > 1:
-    with st.expander(f"All {len(k)} sites", expanded=False):
-        st.dataframe(ui.clean_frame(k), hide_index=True, column_config={
-            "site_id": "Site", "name": "Name", "n_inverters": "Inverters",
-            "instruments": "POA sensor types",
-            "e_ac_kwh": st.column_config.NumberColumn("Energy [kWh]", format="localized"),
-            "pr_stc": st.column_config.NumberColumn("PR_STC (all sensor types)", format="%.3f"),
-            "d_trailing_pct": st.column_config.NumberColumn("vs trailing [%]", format="%+.1f"),
-            "avail_energy": st.column_config.NumberColumn("Availability", format="percent"),
-            "n_alarms": "Alarms", "n_warnings": "Warnings", "n_flags": "Flags",
-            "lost_week_kwh": st.column_config.NumberColumn("Lost this week [kWh]",
-                                                           format="localized")})
+if len(data.site_list(url)) > 1:
+    st.page_link(ui.PAGES["portfolio"], icon=":material/apps:",
+                 label="All sites of this database for the same week: Portfolio",
+                 query_params={"week_end": end.isoformat()})
 
 # ---- 3. inverters
 st.subheader("Inverters")

@@ -232,9 +232,8 @@ def run_bench(url: str, site_id: str) -> None:
         fleet = data.fleet_week(url, site_id, end)
         heat = data.pr_relative_heatmap(url, site_id, start, end)
         flags = data.week_flags(url, site_id, end)
-        sites = data.fleet_sites(url, end)
         figs = [charts.pr_heatmap(heat), charts.fleet_quadrant(fleet)]
-        return fleet, heat, (flags, sites), figs
+        return fleet, heat, flags, figs
 
     data.engine(url)  # the engine is a resource made once per server, not per page view
     cold, (fleet, heat, flags, _) = _timed(fleet_page, before=clear)

@@ -198,7 +198,39 @@ def cycle(label: str, url: str, sites: list[dict], *, pg_schema: str | None,
         ingest_all(url, sites, "week", 1)
         r["inc_w2_s"] = timed(url, "compute", "--worker", n=2)
         print(f"second week, 2 workers: incremental compute {r['inc_w2_s']:.1f} s")
+    r.update(portfolio_page(url))
     return r
+
+
+def portfolio_page(url: str) -> dict:
+    """The dashboard's portfolio page for the last week (every site from one store), cold
+    (caches cleared) and warm, against reading the same daily rows with ``pd.read_sql``."""
+    import logging
+
+    import streamlit as st
+
+    logging.getLogger("streamlit.runtime.caching.cache_data_api").setLevel(logging.ERROR)
+    from dashboard import data
+
+    end = data.portfolio_end(url)
+    st.cache_data.clear()
+    t0 = time.perf_counter()
+    table = data.portfolio_week(url, end)
+    cold = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    data.portfolio_week(url, end)
+    warm = time.perf_counter() - t0
+    t0_day = end - dt.timedelta(days=7 * (data.TRAILING_WEEKS + 1) - 1)
+    eng = sa.create_engine(url)
+    t0 = time.perf_counter()
+    base = pd.read_sql(sa.text("SELECT * FROM daily_inverter WHERE day >= :a AND day <= :b"),
+                       eng, params={"a": t0_day, "b": end})
+    tb = time.perf_counter() - t0
+    eng.dispose()
+    print(f"portfolio page ({len(table)} sites, week ending {end}): cold {cold:.2f} s, warm "
+          f"{warm:.3f} s; baseline pd.read_sql of the same {len(base):,} daily rows "
+          f"{tb:.3f} s (cold / baseline {cold / tb:.1f})")
+    return {"portfolio_cold_s": cold, "portfolio_warm_s": warm, "portfolio_base_s": tb}
 
 
 def extrapolate(r: dict, n_sites: int, n_inv: int, years: float, label: str) -> None:
