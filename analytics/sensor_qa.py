@@ -213,38 +213,73 @@ def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
 
 
 def dropout_flags(x: pd.Series, daytime: pd.Series, *, device_id: str, quantity: str,
-                  tau_s: int = 900, min_missing_h: float = 1.0) -> pd.DataFrame:
-    """Runs of missing daytime samples of at least ``min_missing_h`` hours in total.
+                  tau_s: int = 900, min_missing_h: float = 1.0, min_silence_h: float = 0.0,
+                  night_share: float = 0.9) -> pd.DataFrame:
+    """Gaps in a device's data: at least ``min_missing_h`` hours missing in a silence of at
+    least ``min_silence_h`` hours (wall clock, first missing interval to the end of the last).
 
     ``daytime`` is a bool Series on the full expected interval grid (all intervals of the
     period, sun up); ``x`` may lack rows or hold NaN. ``tau_s``: one interval [s] or each grid
-    row's own; the missing hours are the sum of the missing intervals' lengths. Missing runs are merged across nights
-    so that a sensor that is dead for a week is one event.
+    row's own; missing hours are sums of the missing intervals' own lengths.
+
+    What counts as missing depends on the device's own habit (issue #14: real inverters
+    sleep at night and send nothing, about 1,000 false night "dropouts" on a real plant):
+
+    * a device that reports at night (``night_share`` or more of its night rows present)
+      is missing wherever a row is absent or NaN, night included: a logger silent from
+      21:30 to 04:45 is a gap, and a device that reported through the night between two
+      daytime gaps gives two gaps;
+    * a device that does not (a sleeping inverter) is missing only in daytime, and its
+      missing runs merge across nights, so that a sensor dead for a week is one event.
+
+    ``missing_daytime_hours`` in the details counts the daytime part only (the sensor-fault
+    rule of the flags job reads it), ``missing_hours`` all of it and ``silence_hours`` the
+    span; ``night_only`` marks a gap with no daytime missing (no production data lost).
     """
     grid = daytime.index
     present = x.reindex(grid).notna().to_numpy()
     day = daytime.to_numpy(bool)
-    miss = day & ~present
     ts = _ts_s(grid)
     tau = _per_row(tau_s, ts.size)
-    # bridge nights: merge missing-daytime runs separated only by night or missing samples
-    state = np.where(miss, 1.0, np.where(day & present, 0.0, np.nan))
-    s = pd.Series(state).ffill().fillna(0).to_numpy() == 1
+    night = ~day
+    at_night = bool(night.any()) and float(present[night].mean()) >= night_share
+    if at_night:
+        miss = ~present
+        s = miss
+    else:
+        miss = day & ~present
+        # bridge nights: merge missing-daytime runs separated only by night or missing samples
+        state = np.where(miss, 1.0, np.where(day & present, 0.0, np.nan))
+        s = pd.Series(state).ffill().fillna(0).to_numpy() == 1
     recs = []
     for a, b in _true_runs(s):
         idx = np.flatnonzero(miss[a:b + 1]) + a
-        hours = float(tau[idx].sum()) / 3600  # each missing interval's own length
-        if idx.size == 0 or hours < min_missing_h - 1e-9:
+        if idx.size == 0:
             continue
+        day_idx = idx[day[idx]]
+        day_hours = float(tau[day_idx].sum()) / 3600  # each missing interval's own length
+        hours = float(tau[idx].sum()) / 3600 if at_night else day_hours
         a, b = int(idx[0]), int(idx[-1])
-        n = idx.size
+        silence_h = float(ts[b] + tau[b] - ts[a]) / 3600
+        if hours < min_missing_h - 1e-9 or silence_h < min_silence_h - 1e-9:
+            continue
         recs.append(dict(device_id=device_id, kind="sensor_dropout", start_s=int(ts[a]),
                          end_s=int(ts[b] + tau[b]),
-                         severity="warning" if hours >= 24 or ts[b] - ts[a] >= 86400 else "info",
+                         # a warning when the daylight lost spans a day (first to last
+                         # missing daytime interval) or sums to 24 h; otherwise information
+                         severity="warning" if day_hours >= 24 or (
+                             day_idx.size and ts[day_idx[-1]] - ts[day_idx[0]] >= 86400)
+                         else "info",
                          lost_kwh=np.nan,
-                         details=dict(quantity=quantity, missing_daytime_hours=hours,
-                                      n_samples=int(n),
-                                      rule=f"missing daytime samples for >= {min_missing_h:g} h")))
+                         details=dict(quantity=quantity, missing_daytime_hours=day_hours,
+                                      missing_hours=hours, silence_hours=silence_h,
+                                      night_only=bool(day_hours == 0),
+                                      reports_at_night=at_night, n_samples=int(idx.size),
+                                      rule=(f"missing samples for >= {min_missing_h:g} h"
+                                            + (" (night included: the device reports at "
+                                               "night)" if at_night else " in daytime")
+                                            + (f" in a silence of >= {min_silence_h:g} h"
+                                               if min_silence_h > 0 else "")))))
     return flag_frame(recs)
 
 

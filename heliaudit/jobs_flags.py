@@ -98,7 +98,8 @@ PARAMS = {
     "sensor": {"ranges": sensor_qa.RANGES, "p_ac_range": [-0.02, 1.05],
                "flatline_samples": {"irradiance_power": 4, "temperature": 8},
                "p_ac_flat_min_frac": 0.05, "p_ac_flat_limit_band_frac": 0.01,
-               "dropout_min_h": 1.0, "night_wm2": 5.0, "night_elevation_deg": -3.0,
+               "dropout_min_h": 1.0, "gap_flag_min_silence_h": 6.0,
+               "night_wm2": 5.0, "night_elevation_deg": -3.0,
                "drift_threshold_pct_per_yr": 1.0, "daytime_elevation_deg": 10.0,
                "validity": {"day_elevation_deg": 15.0, "night_elevation_deg": -12.0,
                             "night_max_wm2": 5.0, "stuck_tol_wm2": 0.5,
@@ -116,6 +117,11 @@ PARAMS = {
     "power_model": "PVWatts V5 (Dobos 2014) via analytics.power.expected_ac_power",
     "clear_sky": "pvlib Ineichen, isotropic transposition, interval midpoints",
 }
+#: A data gap is a flag from a silence of 6 h (a quarter of a day, most of a winter day's
+#: production) with >= 1 h missing; shorter gaps are routine communication losses whose
+#: effect is in the daily table's coverage and day_valid (issue #14: 50 of 120 gap flags
+#: on generated fleets were gaps of 1-6 h, information nobody acts on; common practice).
+GAP_MIN_SILENCE_H = PARAMS["sensor"]["gap_flag_min_silence_h"]
 
 
 # ---------------------------------------------------------------- solar geometry
@@ -457,7 +463,7 @@ def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) 
     p = frame["p_ac_kw"] if len(frame) else pd.Series(dtype=float)
     day = grid_sun["elev"] >= PARAMS["outage"]["min_elevation_deg"]
     fl = sensor_qa.dropout_flags(p, day, device_id=inv["device_id"], quantity="p_ac_kw",
-                                 tau_s=tau_s)
+                                 tau_s=tau_s, min_silence_h=GAP_MIN_SILENCE_H)
     # missing power is information unavailable (IEC TS 63019), not a faulty sensor
     fl["kind"] = "data_dropout"
     return fl
@@ -490,7 +496,8 @@ def sensor_flags(sensor_id: str, quantity: str, x: pd.Series, grid_sun: pd.DataF
     xv = x if x_valid is None else x_valid
     day_grid = grid_sun["elev"] >= PARAMS["sensor"]["daytime_elevation_deg"]
     drop = sensor_qa.dropout_flags(x, day_grid, device_id=sensor_id, quantity=quantity,
-                                   tau_s=_grid_tau_s(grid_sun))
+                                   tau_s=_grid_tau_s(grid_sun),
+                                   min_silence_h=GAP_MIN_SILENCE_H)
     # a gap of hours or a day or two is data unavailable (communication); a sensor silent
     # for 36 or more daylight hours (about three days) is a sensor problem (common practice;
     # issue #14: 29-h column gaps of healthy sensors on generated fleets)
@@ -681,14 +688,50 @@ def _yield_by_sensor(daily: pd.DataFrame, inverters: pd.DataFrame) -> dict[str, 
 
 
 def _low_vs_yield(h: pd.Series, yf: pd.Series | None, *, min_yf_h: float = 1.0,
-                  factor: float = 0.25) -> pd.Series:
+                  factor: float = 0.25, coverage: pd.Series | None = None,
+                  min_coverage: float = 0.8) -> pd.Series:
     """Days on which the sensor's insolation ``h`` is below ``factor`` × the arrays' final
     yield (Y_f ≤ Y_r for any PR ≤ 1, IEC 61724-1): the sensor reads far less than the power
-    delivered under it."""
+    delivered under it.
+
+    Judged only on days whose readings cover at least ``min_coverage`` of the day's clear-sky
+    insolation (``coverage``; 0.8, the daily table's minimum coverage of a valid day): a
+    sensor silent for most of a day has a small insolation because it said nothing, not
+    because it read low (issue #14: two healthy POA sensors with 17-18 h column gaps were
+    judged ``low_vs_power`` on generated fleets). A gap in the power only lowers Y_f, which
+    cannot make a sensor look low."""
     if yf is None or yf.empty or h.empty:
         return pd.Series(dtype=bool)
     y = yf.reindex(h.index)
-    return (y >= min_yf_h) & (h < factor * y)
+    low = (y >= min_yf_h) & (h < factor * y)
+    if coverage is not None:
+        low &= coverage.reindex(h.index).fillna(0.0) >= min_coverage
+    return low
+
+
+def clear_sky_coverage(x: pd.Series, poa_cs: np.ndarray, interval_s: np.ndarray,
+                       grid_sun_for, sensor_id: str, std_offset_s: int) -> pd.Series:
+    """Share of each local standard day's clear-sky insolation on the sensor's plane that
+    falls in intervals with a finite reading (1: complete, 0: silent all day). The day's
+    clear-sky insolation is summed on a regular grid at the sensor's median interval, in
+    phase with its readings, over whole local days."""
+    if x.empty:
+        return pd.Series(dtype=float)
+    ts = epoch_s(x.index)
+    tau = fill_unknown_intervals(ts, np.asarray(interval_s, dtype=float))
+    step = max(int(np.median(tau)), 60)
+    off = int(std_offset_s)
+    d0 = (int(ts.min()) + off) // 86400 * 86400 - off
+    d1 = ((int(ts.max()) + off) // 86400 + 1) * 86400 - off
+    g_ts = np.arange(d0 + (int(ts.min()) - d0) % step, d1, step)
+    g_idx = pd.DatetimeIndex(pd.to_datetime(g_ts, unit="s", utc=True), name="ts_utc")
+    cs_grid = np.nan_to_num(grid_sun_for(g_idx, sensor_id)["poa_cs"].to_numpy(float))
+    full = daily_insolation(pd.Series(cs_grid, index=g_idx), off, np.full(g_ts.size, step))
+    seen = np.where(np.isfinite(x.to_numpy(float)), np.nan_to_num(np.asarray(poa_cs, float)),
+                    0.0)
+    got = daily_insolation(pd.Series(seen, index=x.index), off, tau)
+    full = full.where(full > 0)
+    return (got.reindex(full.index).fillna(0.0) / full).clip(upper=1.0)
 
 
 def daily_insolation(x: pd.Series, std_offset_s: int, interval_s=None) -> pd.Series:
@@ -844,9 +887,11 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
         days = sensor_qa.irradiance_validity(x, s["elev"].to_numpy(), s["poa_cs"].to_numpy(),
                                              std_offset_s=std_offset_s)
         iv = (intervals or {}).get(sid)
-        h = daily_insolation(x, std_offset_s, iv_of[sid] if iv is None or len(iv) != len(x)
-                             else iv)
-        low = _low_vs_yield(h, yields.get(sid))
+        iv = iv_of[sid] if iv is None or len(iv) != len(x) else iv
+        h = daily_insolation(x, std_offset_s, iv)
+        cov = clear_sky_coverage(x, s["poa_cs"].to_numpy(), iv, grid_sun_for, sid,
+                                 std_offset_s)
+        low = _low_vs_yield(h, yields.get(sid), coverage=cov)
         high = high_vs_power_by_sensor({sid: h}, daily, _in_plane_of(
             inverters, planes.get(sid, "site"), site)).get(sid, pd.Series(dtype=bool))
         for reason, m in (("low_vs_power", low), ("high_vs_power", high)):

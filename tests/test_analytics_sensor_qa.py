@@ -114,8 +114,16 @@ def test_dropout_merges_nights(month):
     assert len(fl) == 1
     f = fl.iloc[0]
     assert f["start_s"] == _ts("2024-06-05 15:00")
-    assert _ts("2024-06-08 01:00") <= f["end_s"] <= _ts("2024-06-08 03:00")
+    # the device reports at night, so the silence is exact: the absent rows end with the
+    # one labelled 03:00 (string slices include their end), whose interval ends at 03:15
+    assert f["end_s"] == _ts("2024-06-08 03:15")
     assert f["severity"] == "warning"
+    # a device that sends nothing at night: its daytime runs merge across the nights
+    sleepy = g[month["elev"].reindex(g.index) > 0]
+    fl = dropout_flags(sleepy, day, device_id="inv1", quantity="p_ac_kw")
+    assert len(fl) == 1
+    assert fl.iloc[0]["start_s"] == _ts("2024-06-05 15:00")
+    assert _ts("2024-06-08 01:00") <= fl.iloc[0]["end_s"] <= _ts("2024-06-08 03:15")
 
 
 def test_night_irradiance(month):
@@ -192,3 +200,60 @@ def test_dropout_counts_each_missing_intervals_own_length():
     median = dropout_flags(x, pd.Series(True, grid), device_id="poa1", quantity="poa_wm2",
                            tau_s=300)
     assert median.empty  # the old reading: 4 × 5 min < 1 h
+
+
+def _grid_gap(month, start, end, *, night_rows=True):
+    """The month's readings with rows absent over [start, end); ``night_rows=False``: a
+    device that sends nothing at night (a sleeping inverter)."""
+    g = month["poa_wm2"].copy()
+    if not night_rows:
+        g = g[month["elev"] > 0]
+    return g.drop(g[(g.index >= start) & (g.index < end)].index)
+
+
+def test_night_silence_of_a_device_that_reports_at_night_is_a_gap(month):
+    # a logger silent 21:30-04:45 (7.25 h, all of it night at 45° N in June): the device
+    # reports at night, so the absent rows are a gap; hand count: 29 rows of 15 min
+    day = month["elev"] > 0
+    a, b = pd.Timestamp("2024-06-10 21:30", tz="UTC"), pd.Timestamp("2024-06-11 04:45", tz="UTC")
+    fl = dropout_flags(_grid_gap(month, a, b), day, device_id="poa1", quantity="poa_wm2",
+                       min_silence_h=6.0)
+    assert len(fl) == 1
+    f = fl.iloc[0]
+    assert (f["start_s"], f["end_s"]) == (_ts("2024-06-10 21:30"), _ts("2024-06-11 04:45"))
+    d = f["details"]
+    assert d["missing_hours"] == pytest.approx(7.25) and d["silence_hours"] == pytest.approx(7.25)
+    assert d["night_only"] == (d["missing_daytime_hours"] == 0)
+    assert f["severity"] == "info"
+
+
+def test_night_silence_of_a_sleeping_device_is_not_a_gap(month):
+    # issue #14: real inverters send nothing at night; the same silence on such a device
+    # is its habit, not a gap (about 1,000 false night "dropouts" on a real plant)
+    day = month["elev"] > 0
+    a, b = pd.Timestamp("2024-06-10 21:30", tz="UTC"), pd.Timestamp("2024-06-11 04:45", tz="UTC")
+    fl = dropout_flags(_grid_gap(month, a, b, night_rows=False), day, device_id="inv1",
+                       quantity="p_ac_kw", min_silence_h=6.0)
+    assert fl.empty
+
+
+def test_two_daytime_gaps_with_a_reported_night_between_are_two(month):
+    # the device reported through the night between the gaps: two silences, not one
+    day = month["elev"] > 0
+    g = _grid_gap(month, pd.Timestamp("2024-06-12 12:00", tz="UTC"),
+                  pd.Timestamp("2024-06-12 19:00", tz="UTC"))
+    g = g.drop(g[(g.index >= pd.Timestamp("2024-06-13 06:00", tz="UTC"))
+                 & (g.index < pd.Timestamp("2024-06-13 13:00", tz="UTC"))].index)
+    fl = dropout_flags(g, day, device_id="poa1", quantity="poa_wm2", min_silence_h=6.0)
+    assert sorted(fl["start_s"]) == [_ts("2024-06-12 12:00"), _ts("2024-06-13 06:00")]
+
+
+@pytest.mark.parametrize("n_rows,flagged", [(23, False), (24, True), (25, True)])
+def test_gap_flag_from_a_6_hour_silence(month, n_rows, flagged):
+    # documented: a gap is a flag from a 6-h silence (24 rows of 15 min), shorter gaps stay
+    # in the daily coverage; midday rows, so every missing hour is daytime
+    a = pd.Timestamp("2024-06-14 07:00", tz="UTC")
+    g = _grid_gap(month, a, a + pd.Timedelta(minutes=15 * n_rows))
+    fl = dropout_flags(g, month["elev"] > 0, device_id="poa1", quantity="poa_wm2",
+                       min_silence_h=6.0)
+    assert (len(fl) == 1) == flagged
