@@ -311,13 +311,17 @@ def _inv():
 
 @pytest.mark.parametrize("elev,found", [(9.99, False), (10.0, True), (10.01, True)])
 def test_power_dropout_needs_sun_10_degrees(elev, found):
-    # heliaudit's documented choice, README Flags: an inverter's missing power with the sun
-    # >= 10° is a data_dropout (2 h missing at a constant `elev`)
+    # heliaudit's documented choice, README Flags: an inverter that sends nothing at night
+    # (a sleeping inverter) is missing only with the sun >= 10°. Night (sun at -20°, no rows)
+    # for the first 8 h, then the constant `elev` with 8 h of missing power inside it (a
+    # data gap is a flag from a 6-h silence)
     from heliaudit.jobs_flags import power_dropout_flags
 
-    grid = pd.DataFrame({"elev": elev, "aoi": 30.0, "poa_cs": 500.0}, index=IDX)
+    el = np.where(np.arange(IDX.size) < 32, -20.0, elev)
+    grid = pd.DataFrame({"elev": el, "aoi": 30.0, "poa_cs": 500.0}, index=IDX)
     p = pd.Series(50.0, index=IDX)
-    p.iloc[40:48] = np.nan
+    p.iloc[:32] = np.nan
+    p.iloc[48:80] = np.nan
     fl = power_dropout_flags(_inv(), pd.DataFrame({"p_ac_kw": p, "interval_h": 0.25}), grid)
     assert (len(fl) == 1) == found
     if found:
