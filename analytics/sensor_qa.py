@@ -447,7 +447,7 @@ def irradiance_validity(g: pd.Series, solar_elevation_deg, poa_clearsky_wm2, *,
                         min_night_samples: int = 2, stuck_tol_wm2: float = 0.5,
                         min_day_samples: int = 4, low_share: float = 0.5,
                         min_p_norm: float = 0.2, low_factor: float = 0.25,
-                        range_wm2=(-10.0, 1500.0)) -> pd.DataFrame:
+                        range_wm2=(-10.0, 1500.0), memo: dict | None = None) -> pd.DataFrame:
     """Judge an irradiance sensor day by day.
 
     A local standard day is **invalid** for the sensor when
@@ -475,6 +475,10 @@ def irradiance_validity(g: pd.Series, solar_elevation_deg, poa_clearsky_wm2, *,
     p_norm : array-like, optional
         Measured AC power / DC rating of the array(s) on this sensor (median across
         inverters) on the same rows. [kW/kWp]
+    memo : dict, optional
+        Kept across calls: the rules that do not need ``p_norm`` are reused when the
+        readings, sun and settings are the same as in the last call (inverters on one
+        sensor share them).
 
     Returns
     -------
@@ -486,13 +490,49 @@ def irradiance_validity(g: pd.Series, solar_elevation_deg, poa_clearsky_wm2, *,
     A cell reading exactly 3.0 W/m² all day is ``stuck``; the same day with a normal
     profile is valid (see tests/test_analytics_sensor_qa.py).
     """
-    code, uday = _day_index(g.index, std_offset_s)
+    x = g.to_numpy(float)
+    el = np.asarray(solar_elevation_deg, dtype=float)
+    cs_in = np.asarray(poa_clearsky_wm2, dtype=float)
+    inputs = (g.index.asi8, x, el, cs_in, int(std_offset_s), float(day_elev_deg),
+              float(night_elev_deg), float(night_max_wm2), int(min_night_samples),
+              float(stuck_tol_wm2), int(min_day_samples), tuple(range_wm2))
+    hit = None if memo is None else memo.get("irradiance")
+    if hit is not None and _same_inputs(hit[0], inputs):
+        code, uday, day, nd, base = hit[1]
+    else:
+        code, uday, day, nd, base = _irradiance_base(
+            g, x, el, cs_in, std_offset_s=std_offset_s, day_elev_deg=day_elev_deg,
+            night_elev_deg=night_elev_deg, night_max_wm2=night_max_wm2,
+            min_night_samples=min_night_samples, stuck_tol_wm2=stuck_tol_wm2,
+            min_day_samples=min_day_samples, range_wm2=range_wm2)
+        if memo is not None:
+            memo["irradiance"] = (inputs, (code, uday, day, nd, base))
     n = uday.size
     if n == 0:
         return _days_frame(uday, {})
-    x = g.to_numpy(float)
-    el = np.asarray(solar_elevation_deg, dtype=float)
-    cs = np.nan_to_num(np.asarray(poa_clearsky_wm2, dtype=float))
+    low_d = np.zeros(n, dtype=bool)
+    if p_norm is not None:
+        pn = np.asarray(p_norm, dtype=float)
+        with np.errstate(invalid="ignore"):
+            prod = day & (pn >= min_p_norm)
+            low = prod & (x < low_factor * 1000.0 * pn)
+        n_prod = np.bincount(code, weights=prod, minlength=n)
+        low_d = (n_prod >= min_day_samples) & (
+            np.bincount(code, weights=low, minlength=n) >= low_share * n_prod)
+    return _days_frame(uday, {**base, "low_vs_power": low_d})
+
+
+def _irradiance_base(g: pd.Series, x: np.ndarray, el: np.ndarray, cs_in: np.ndarray, *,
+                     std_offset_s: int, day_elev_deg: float, night_elev_deg: float,
+                     night_max_wm2: float, min_night_samples: int, stuck_tol_wm2: float,
+                     min_day_samples: int, range_wm2) -> tuple:
+    """The rules of :func:`irradiance_validity` that need no power: (day codes, days,
+    daytime mask, daytime samples per day, {reason: day mask} in priority order)."""
+    code, uday = _day_index(g.index, std_offset_s)
+    n = uday.size
+    if n == 0:
+        return code, uday, np.zeros(0, bool), np.zeros(0), {}
+    cs = np.nan_to_num(cs_in)
     fin = np.isfinite(x)
     day = (el >= day_elev_deg) & fin
     nd = np.bincount(code, weights=day, minlength=n)
@@ -510,17 +550,8 @@ def irradiance_validity(g: pd.Series, solar_elevation_deg, poa_clearsky_wm2, *,
     with np.errstate(invalid="ignore"):
         oor = day & ((x < range_wm2[0]) | (x > range_wm2[1]))
     oor_d = np.bincount(code, weights=oor, minlength=n) > 0.5 * np.maximum(nd, 1)
-    low_d = np.zeros(n, dtype=bool)
-    if p_norm is not None:
-        pn = np.asarray(p_norm, dtype=float)
-        with np.errstate(invalid="ignore"):
-            prod = day & (pn >= min_p_norm)
-            low = prod & (x < low_factor * 1000.0 * pn)
-        n_prod = np.bincount(code, weights=prod, minlength=n)
-        low_d = (n_prod >= min_day_samples) & (
-            np.bincount(code, weights=low, minlength=n) >= low_share * n_prod)
-    return _days_frame(uday, {"out_of_range": oor_d, "stuck": stuck,
-                              "night_reading": night_n, "low_vs_power": low_d})
+    return code, uday, day, nd, {"out_of_range": oor_d, "stuck": stuck,
+                                 "night_reading": night_n}
 
 
 def module_temperature_validity(t_mod: pd.Series, *, poa_wm2=None, t_amb_c=None,
@@ -737,7 +768,8 @@ def ambient_offset_flags(t_amb_c: pd.Series, t_mod_c: pd.Series, t_mod_model_c,
 
 def frame_sensor_validity(frame: pd.DataFrame, solar_elevation_deg, poa_clearsky_wm2, *,
                           p_dc_kwp: float, std_offset_s: int = 0, a: float = -3.56,
-                          b: float = -0.0750) -> tuple[np.ndarray, np.ndarray]:
+                          b: float = -0.0750, memo: dict | None = None
+                          ) -> tuple[np.ndarray, np.ndarray]:
     """Invalid-interval masks of one inverter frame's POA and module-temperature readings.
 
     The per-day rules of :func:`irradiance_validity` (with the inverter's own AC power per
@@ -745,6 +777,10 @@ def frame_sensor_validity(frame: pd.DataFrame, solar_elevation_deg, poa_clearsky
     Sandia module model, King et al. 2004 Eq. 11, with coefficients ``a``, ``b``), turned
     into interval masks. Used by the daily job to leave a faulty sensor's days out of PR
     and filters, and by the flags job before any diagnosis.
+
+    ``memo`` (a dict kept across the inverters of one run): the module-temperature judgement
+    of the last frame with the same inputs (timestamps, module and ambient temperature, wind,
+    masked POA, sun) is reused, not recomputed: inverters on one set of sensors share it.
 
     Returns
     -------
@@ -762,13 +798,19 @@ def frame_sensor_validity(frame: pd.DataFrame, solar_elevation_deg, poa_clearsky
     g_bad = np.zeros(n, bool)
     if "poa_wm2" in frame and frame["poa_wm2"].notna().any():
         days = irradiance_validity(frame["poa_wm2"], el, poa_clearsky_wm2, p_norm=p_norm,
-                                   std_offset_s=std_offset_s)
+                                   std_offset_s=std_offset_s, memo=memo)
         g_bad = invalid_interval_mask(frame.index, days, std_offset_s=std_offset_s)
     t_bad = np.zeros(n, bool)
     if "t_module_c" in frame and frame["t_module_c"].notna().any():
         g = np.where(g_bad, np.nan, frame["poa_wm2"].to_numpy(float)) if "poa_wm2" in frame \
             else None
         ta = frame["t_amb_c"].to_numpy(float) if "t_amb_c" in frame else None
+        wind_col = frame["wind_ms"].to_numpy(float) if "wind_ms" in frame else None
+        inputs = (frame.index.asi8, frame["t_module_c"].to_numpy(float), g, ta, wind_col, el,
+                  float(a), float(b), int(std_offset_s))
+        hit = None if memo is None else memo.get("t_module")
+        if hit is not None and _same_inputs(hit[0], inputs):
+            return g_bad, hit[1].copy()
         model = None
         if g is not None and ta is not None and np.isfinite(ta).any():
             wind = (frame["wind_ms"].fillna(1.0).to_numpy(float) if "wind_ms" in frame
@@ -779,7 +821,25 @@ def frame_sensor_validity(frame: pd.DataFrame, solar_elevation_deg, poa_clearsky
                                            t_mod_model_c=model, std_offset_s=std_offset_s,
                                            day_mask=el >= 15.0)
         t_bad = invalid_interval_mask(frame.index, days, std_offset_s=std_offset_s)
+        if memo is not None:
+            memo["t_module"] = (inputs, t_bad.copy())
     return g_bad, t_bad
+
+
+def _same_inputs(a: tuple, b: tuple) -> bool:
+    """Whether two tuples of arrays / scalars / None hold the same values (NaN equal)."""
+    for x, y in zip(a, b, strict=True):
+        if x is None or y is None:
+            if x is not y:
+                return False
+        elif isinstance(x, np.ndarray):
+            if not (isinstance(y, np.ndarray) and x.shape == y.shape and (
+                    np.array_equal(x, y) if x.dtype.kind in "iub"
+                    else np.array_equal(x, y, equal_nan=True))):
+                return False
+        elif x != y:
+            return False
+    return True
 
 
 def level_step(daily_ratio: pd.Series, *, min_side: int = 20, min_step: float = 0.03

@@ -85,13 +85,16 @@ class _Inv:
 
 
 def _mask_faulty_sensor_days(frame: pd.DataFrame, inv: dict, sun: pd.DataFrame,
-                             off_s: int) -> pd.DataFrame:
+                             off_s: int, memo: dict | None = None) -> pd.DataFrame:
     """POA / module temperature of days on which the sensor is judged faulty -> NaN
-    (reason 'missing' in the filters; issue #14, ``analytics.sensor_qa.frame_sensor_validity``)."""
+    (reason 'missing' in the filters; issue #14, ``analytics.sensor_qa.frame_sensor_validity``).
+    ``memo``: kept across the run's inverters, so inverters on one module sensor share its
+    judgement (issue #16: it was recomputed for each inverter)."""
     par = SAPM_PARAMETERS.get(inv.get("mounting"), SAPM_PARAMETERS["open_rack_glass_polymer"])
     g_bad, t_bad = sensor_qa.frame_sensor_validity(
         frame, sun["solar_elevation_deg"].to_numpy(), sun["poa_clearsky_wm2"].to_numpy(),
-        p_dc_kwp=float(inv["p_dc_kwp"]), std_offset_s=off_s, a=par["a"], b=par["b"])
+        p_dc_kwp=float(inv["p_dc_kwp"]), std_offset_s=off_s, a=par["a"], b=par["b"],
+        memo=memo)
     if not (g_bad.any() or t_bad.any()):
         return frame
     frame = frame.copy()
@@ -181,6 +184,7 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
     parts, ids, done = [], [], 0
     days_seen: list[int] = []
     batch: list[tuple[dict, pd.DataFrame]] = []
+    validity_memo: dict = {}  # sensors -> their last module-temperature judgement
 
     def sun_for(frame: pd.DataFrame) -> pd.DataFrame:
         # solar position once per site timestamp grid: the inverters usually share it
@@ -210,7 +214,9 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
                 sun_k = sun_k.assign(poa_clearsky_wm2=cs)
             # a sensor judged faulty gives no PR evidence (#14), nor one that jumped
             # against its siblings, from the jump on
-            fr = _mask_faulty_sensor_days(fr, inv, sun_k, off_s)
+            fr = _mask_faulty_sensor_days(fr, inv, sun_k, off_s, validity_memo.setdefault(
+                (inv.get("t_module_sensor_id"), inv.get("poa_sensor_id"),
+                 inv.get("t_amb_sensor_id"), inv.get("wind_sensor_id")), {}))
             fr = _mask_days(fr, "poa_wm2", high_days.get(inv["device_id"]), off_s)
             frames.append(_mask_days(fr, "poa_wm2", jump_days.get(inv.get("poa_sensor_id")),
                                      off_s))

@@ -185,6 +185,32 @@ def test_frame_validity_masks_the_faulty_days_only(july):
     assert_array_equal(g_bad & t_bad, np.zeros(len(f), bool))
 
 
+def test_frame_validity_memo_gives_the_same_masks(july):
+    """Inverters on one set of sensors share the sensor-only judgements through ``memo``
+    (issue #16); each inverter's own power still decides its low-vs-power days: with a memo
+    kept across three frames the masks equal those judged without one."""
+    base = july.copy()
+    base["t_amb_c"] = 25.0
+    base.loc["2024-07-08":"2024-07-10", "poa_wm2"] = 3.0
+    base.loc["2024-07-14":"2024-07-15", "t_module_c"] = -19.0
+    frames = []
+    for k, scale in enumerate((1.0, 0.9, 1.0)):
+        f = base.copy()
+        f["p_ac_kw"] = inverter_power(f) * scale
+        if k == 1:  # this inverter's sensor reads far too low on one day: its own evidence
+            f.loc["2024-07-20", "poa_wm2"] = f.loc["2024-07-20", "poa_wm2"] * 0.1
+        frames.append(f)
+    memo: dict = {}
+    for f in frames:
+        kw = dict(p_dc_kwp=120.0, std_offset_s=STD_OFFSET_S)
+        want = frame_sensor_validity(f, f["elev"].to_numpy(), f["poa_cs"].to_numpy(), **kw)
+        got = frame_sensor_validity(f, f["elev"].to_numpy(), f["poa_cs"].to_numpy(), memo=memo,
+                                    **kw)
+        assert_array_equal(got[0], want[0])
+        assert_array_equal(got[1], want[1])
+    assert "irradiance" in memo and "t_module" in memo
+
+
 @pytest.mark.parametrize("step,found", [(0.029, False), (0.031, True), (-0.05, True)])
 def test_sibling_jump_boundary_and_suspect(step, found):
     # documented: the clear-day ratio of two sensors steps by >= 3 % and stays; the suspect
