@@ -109,19 +109,24 @@ def write_daily(engine_or_conn: sa.Engine | sa.Connection, site_id: str, rows: p
 
 def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None,
                 start: dt.date | None = None, end: dt.date | None = None, *,
-                with_text: bool = True) -> pd.DataFrame:
+                with_text: bool = True, columns=None) -> pd.DataFrame:
     """Daily rows of a site's inverters, days ``[start, end]`` inclusive, by device and day.
 
     Columns: ``device_id, day`` (``datetime.date``), every value column of
     ``daily_inverter`` (``day_valid`` as bool) and ``computation_id``. With ``with_text``
     False the text columns (details, bases) are not read and hold None (a third of the time
-    of reading a long history; issue #16).
+    of reading a long history; issue #16). ``columns``: only these value columns are read
+    and returned (with ``device_id``, ``day`` and ``computation_id``).
     """
     if isinstance(engine, sa.Engine):
         with engine.connect() as conn:
-            return daily_table(conn, site_id, device_ids, start, end, with_text=with_text)
+            return daily_table(conn, site_id, device_ids, start, end, with_text=with_text,
+                               columns=columns)
     conn = engine
-    value_cols = [c for c in VALUE_COLUMNS if with_text or c not in _TEXT_COLUMNS]
+    if columns is not None and (unknown := set(columns) - set(VALUE_COLUMNS)):
+        raise KeyError(f"daily_inverter has no column {', '.join(sorted(unknown))}")
+    value_cols = [c for c in VALUE_COLUMNS if (with_text or c not in _TEXT_COLUMNS)
+                  and (columns is None or c in columns)]
     cols = ["device_id", "day", *value_cols, "computation_id"]
     # raw DBAPI cursor: a year of a 100-inverter site is ~36 000 rows x 30 columns
     ph = "?" if conn.dialect.paramstyle == "qmark" else "%s"
@@ -150,12 +155,14 @@ def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None
         cur.close()
     if len(out) and isinstance(out["day"].iloc[0], str):
         out["day"] = pd.to_datetime(out["day"], format="%Y-%m-%d").dt.date
-    for c in VALUE_COLUMNS:
+    for c in VALUE_COLUMNS if columns is None else value_cols:
         if c not in out:
             out[c] = None
         if c == "day_valid" or c in _TEXT_COLUMNS:
             continue
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(
             "int64" if c in _INT_COLUMNS else "float64")
-    out["day_valid"] = out["day_valid"].astype(bool)
-    return out[["device_id", "day", *VALUE_COLUMNS, "computation_id"]]
+    if "day_valid" in out:
+        out["day_valid"] = out["day_valid"].astype(bool)
+    return out[["device_id", "day", *(VALUE_COLUMNS if columns is None else value_cols),
+                "computation_id"]]

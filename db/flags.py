@@ -154,18 +154,33 @@ def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
     return out
 
 
-def read_flag_days(engine: sa.Engine, site_id: str) -> pd.DataFrame:
+def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataFrame:
     """The per-device daily inputs kept by the last flags run (``flag_day``): inverters'
     daily inputs and sensors' day judgements (arrays as numpy float arrays, None where
-    absent)."""
+    absent). With ``sensor_ids`` the other devices' rows are read without the sensor
+    columns (NULL for an inverter; half the values of a long history; issue #16)."""
     ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
+    inv_cols = DAY_COLUMNS[:6]
     with engine.connect() as conn:
         # raw DBAPI cursor: a 100-inverter site keeps ~37 000 rows a year
         cur = conn.connection.cursor()
         try:
-            cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = {ph} "
-                        "ORDER BY device_id, day_no", [site_id])
-            rows = cur.fetchall()
+            if sensor_ids is None:
+                cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = "
+                            f"{ph} ORDER BY device_id, day_no", [site_id])
+                rows = cur.fetchall()
+            else:
+                ids = [str(i) for i in sensor_ids]
+                inl = ", ".join([ph] * len(ids)) if ids else "NULL"
+                pad = (None,) * (len(DAY_COLUMNS) - len(inv_cols))
+                cur.execute(f"SELECT {', '.join(inv_cols)} FROM flag_day WHERE site_id = {ph} "
+                            f"AND device_id NOT IN ({inl})", [site_id, *ids])
+                rows = [r + pad for r in cur.fetchall()]
+                if ids:
+                    cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE "
+                                f"site_id = {ph} AND device_id IN ({inl})", [site_id, *ids])
+                    rows += [tuple(r) for r in cur.fetchall()]
+                rows.sort(key=lambda r: (r[0], r[1]))
         finally:
             cur.close()
     out = pd.DataFrame.from_records(rows, columns=list(DAY_COLUMNS), coerce_float=True)

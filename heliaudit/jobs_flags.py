@@ -469,6 +469,11 @@ def power_dropout_flags(inv: dict, frame: pd.DataFrame, grid_sun: pd.DataFrame) 
     return fl
 
 
+#: The daily-table columns the flags job reads (issue #16: a third of the table's columns, a
+#: third of the time of reading a long history); a detector using another one adds it here.
+DAILY_COLUMNS_USED = ("day_valid", "pi", "e_exp_kwh", "h_poa_kwhm2", "e_ac_kwh",
+                      "e_exp_valid_kwh", "avail_time", "n_intervals")
+
 #: A sensor's flags from runs of its readings (kept per flag in ``flag_part`` by incremental
 #: runs); its other flags come from its day judgements over the whole history.
 SENSOR_INTERVAL_KINDS = ("sensor_dropout", "data_dropout", "sensor_range", "sensor_flatline",
@@ -1782,7 +1787,8 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
     cut = fw.find_cut(first_new, state.get("through_s"), parts, setup["off_s"],
                       state.get("full_devices", []))
     cut_day = (cut + setup["off_s"]) // 86400
-    return fw.Prior.from_store(cut, cut_day, parts, read_flag_days(engine, site_id),
+    sensor_ids = [sid for sid, _q in setup["sensor_rows"]]
+    return fw.Prior.from_store(cut, cut_day, parts, read_flag_days(engine, site_id, sensor_ids),
                                state, sensor_ids=[sid for sid, _q in setup["sensor_rows"]]
                                ), f"from {dt.datetime.fromtimestamp(cut, dt.UTC):%Y-%m-%d %H:%M} UTC"
 
@@ -1836,7 +1842,7 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
     with engine.begin() as conn:
         comp_id = begin_computation(conn, site_id, "flags", setup["params"], scope=scope,
                                     software_version=heliaudit.__version__)
-    daily = daily_table(engine, site_id, with_text=False)
+    daily = daily_table(engine, site_id, with_text=False, columns=DAILY_COLUMNS_USED)
     all_inv = list(inverters["device_id"])
     if prior is None:
         frames = inverter_frames(engine, site_id)
