@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 
 from analytics.sensor_qa import (
+    ambient_offset_flags,
     clear_sky_level_flags,
     drift_flags,
     dropout_flags,
@@ -336,3 +337,20 @@ def test_module_out_of_range_on_most_daytime_readings(n_bad, invalid):
     t[30:30 + n_bad] = -60.0
     days = module_temperature_validity(pd.Series(t, index=IDX), std_offset_s=0, day_mask=mask)
     assert (days["reason"] == "out_of_range").any() == invalid
+
+
+@pytest.mark.parametrize("extra,found", [(-1, False), (0, True), (1, True)])
+def test_ambient_offset_needs_30_days(extra, found):
+    # heliaudit's documented choice (docs/flags.md; common practice): the ambient check
+    # needs at least 30 days of data (first to last reading). Ambient 6 °C above the module
+    # at night and the module 5 °C below the Sandia model in full sun, as in
+    # tests/test_analytics_plausibility.py, over 30 days of 15-min data +- one reading
+    n = 30 * 96 + 1 + extra
+    idx = pd.date_range("2024-06-01", periods=n, freq="15min", tz="UTC")
+    el = np.resize(ELEV, n)
+    g = np.resize(CS, n)
+    t_mod = np.where(el < -12, 14.0, 40.0)
+    model = np.where(g >= 600, t_mod + 5.0, t_mod)
+    fl = ambient_offset_flags(pd.Series(20.0, index=idx), pd.Series(t_mod, index=idx), model,
+                              el, g, device_id="tamb1", module_sensor="tmod1")
+    assert (len(fl) == 1) == found

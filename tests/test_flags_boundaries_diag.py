@@ -399,3 +399,53 @@ def test_inverter_power_range_minus_2_percent(p_kw, flagged):
     out = inverter_flags(_inv(), fr, sun, std_offset_s=0, site_zone="UTC")
     kinds = [k for f in out if len(f) for k in f["kind"]]
     assert ("sensor_range" in kinds) == flagged
+
+
+@pytest.mark.parametrize("k,found", [(19, False), (20, True), (21, True)])
+def test_own_history_needs_20_valid_days(k, found):
+    # heliaudit's documented choice (docs/flags.md, `min_history_days`): the own-history
+    # reference needs at least 20 valid days. Two inverters (own basis); 'a' at 0.95 on its
+    # first k days, then no valid day until day 60, then 20 days at 0.8075 = 0.85 x 0.95
+    # (above the 0.80 expected-power rule, below 0.90 x its history). Every low day's
+    # reference window (days d − 120 … d − 31) holds exactly the k history days.
+    n = 80
+    a = np.full(n, 0.95)
+    a[60:] = 0.95 * 0.85
+    d = _daily({"a": a, "b": np.full(n, 0.95)}, n)
+    is_a = d["device_id"] == "a"
+    gap = is_a & (d["day"] >= pd.Timestamp("2024-01-01") + pd.Timedelta(days=k)) & (
+        d["day"] < pd.Timestamp("2024-03-01"))
+    d.loc[gap, "day_valid"] = False
+    fl = underperformance_flags(d)
+    assert (list(fl["device_id"]) == ["a"]) == found
+    if found:
+        f = fl.iloc[0]
+        assert f["details"]["basis"] == "own_expected_and_history"
+        assert f["details"]["first_day"] == "2024-03-01"  # day 60
+        # exact lost energy: 20 days x 100 kWh x (1 − 0.85) = 300 kWh (hand calculation)
+        assert f["lost_kwh"] == pytest.approx(300.0, rel=1e-9)
+
+
+@pytest.mark.parametrize("b_kw_per_kwp,found", [(0.0999, False), (0.1, True), (0.1001, True)])
+def test_input_mismatch_counts_intervals_from_01_kw_per_kwp(b_kw_per_kwp, found):
+    # heliaudit's documented choice (docs/flags.md; 10 % of STC keeps dawn, dusk and
+    # stand-still out): an interval counts only when every input delivers >= 0.1 kW/kWp.
+    # B at 90 % of A and C all day, constant; below 0.1 no interval counts at all
+    idx = pd.date_range("2024-06-01", periods=96 * 10, freq="15min", tz="UTC")
+    df = pd.DataFrame({"A": b_kw_per_kwp / 0.9 * 10, "B": b_kw_per_kwp * 10,
+                       "C": b_kw_per_kwp / 0.9 * 10}, index=idx)
+    fl = input_mismatch_flags(df, {"A": 10.0, "B": 10.0, "C": 10.0}, device_id="inv1")
+    assert (len(fl) == 1) == found
+
+
+@pytest.mark.parametrize("n_iv,found", [(15, False), (16, True), (17, True)])
+def test_input_mismatch_days_from_05_kwh_per_kwp(n_iv, found):
+    # heliaudit's documented choice (docs/flags.md): a day counts when its siblings'
+    # median yield is >= 0.5 kWh/kWp. Siblings at 0.125 kW/kWp on n_iv intervals a day
+    # (16 x 0.125 x 0.25 h = 0.5 kWh/kWp exactly), B at 90 % of them
+    idx = pd.date_range("2024-06-01", periods=96 * 10, freq="15min", tz="UTC")
+    on = (np.arange(idx.size) % 96 >= 40) & (np.arange(idx.size) % 96 < 40 + n_iv)
+    p = np.where(on, 1.25, 0.0)
+    df = pd.DataFrame({"A": p, "B": 0.9 * p, "C": p}, index=idx)
+    fl = input_mismatch_flags(df, {"A": 10.0, "B": 10.0, "C": 10.0}, device_id="inv1")
+    assert (len(fl) == 1) == found
