@@ -351,7 +351,9 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
                     reference: str = "pairwise", block_length: int | None = None,
                     min_years: float = 2.0, warn_years: float = 3.0, min_pairs: int = 90,
                     hist_bin_pct: float = 0.25, breaks=None, min_segment_months: int = 9,
-                    year_effects: bool = False, method: str = "sensor_year_pairs") -> RateResult:
+                    year_effects: bool = False, method: str = "sensor_year_pairs",
+                    pi_draws: np.ndarray | None = None,
+                    min_year_sd_pct_per_yr: float = 0.0) -> RateResult:
     """Year-on-year degradation rate with a moving-block bootstrap interval.
 
     Parameters
@@ -380,6 +382,21 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         read. Off by default: on 11 drift-free validation fleets (88 inverters) the bootstrap
         alone covered the truth for 98 % (95 % interval) and 73 % (68 %) of inverters, with
         the component 99 % and 80 %, above the 68 % target (tests/validation).
+    pi_draws : array (n_draws, len(pi)), optional
+        Monte-Carlo draws of the index itself under an uncertain correction (e.g. the index
+        divided by draws of its soiling ratio, :func:`analytics.soiling.soiling_ratio_draws`),
+        aligned with ``pi`` (its non-NaN days, in order). Each draw's median pair rate minus
+        the point rate is added to one bootstrap resample, so the interval carries both the
+        day-to-day sampling error and the correction's own uncertainty, read as independent
+        (propagation of distributions by Monte Carlo, JCGM 101:2008).
+        ``details["correction_sd_pct_per_yr"]`` reports the correction's part.
+    min_year_sd_pct_per_yr : float, default 0
+        With fewer than two year groups of pairs (under three years of data) the between-year
+        component cannot be estimated from the data (:func:`year_component` gives 0); this
+        standard deviation of a yearly level error ``σ_a`` is then assumed instead and its
+        component, ``√2 · σ_a`` (one year group: the median reads about ``a_2 − a_1``), added
+        to the bootstrap distribution (``details["year_component"]["assumed"]``). 0 keeps
+        the bootstrap alone.
     min_segment_months : int, default 9
         With ``breaks``: a segment's pairs enter only if their first days cover at least this
         many calendar months (three quarters of the year, so that season-specific
@@ -461,8 +478,20 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
                               block_length=block_length, rng=gen)
     yc = year_component(r, float(np.var(boot)), lag_days=lag_days)
     yc["added_to_interval"] = bool(year_effects and yc["sd_pct_per_yr"] > 0)
+    if yc["n_years"] < 2 and min_year_sd_pct_per_yr > 0:
+        # too few years to measure the shared yearly error: assume the stated one; the
+        # median of one year group of pairs reads about a_2 - a_1, variance 2 σ_a²
+        yc.update(sd_pct_per_yr=float(np.sqrt(2.0) * min_year_sd_pct_per_yr),
+                  assumed=True, assumed_sigma_a_pct=float(min_year_sd_pct_per_yr),
+                  added_to_interval=True)
     if yc["added_to_interval"]:
         boot = boot + gen.normal(0.0, yc["sd_pct_per_yr"], len(boot))
+    corr_sd = None
+    if pi_draws is not None:
+        delta = _draw_deltas(s, r, np.asarray(pi_draws, dtype=float), lag_days=lag_days,
+                             reference=reference)
+        corr_sd = float(np.std(delta))
+        boot = boot + delta[gen.integers(0, len(delta), len(boot))]
     alpha = 1 - confidence
     lo, hi = np.quantile(boot, [alpha / 2, 1 - alpha / 2])
     lo68, hi68 = np.quantile(boot, [0.159, 0.841])
@@ -479,6 +508,8 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
         "reference": reference, "block_length": b, "n_resamples": n_resamples,
         "n_pairs_spanning_breaks_dropped": n_spanning,
         "year_component": yc,
+        **({"correction_sd_pct_per_yr": corr_sd, "n_correction_draws": int(len(pi_draws))}
+           if corr_sd is not None else {}),
         **({"segments": segment_info, "min_segment_months": min_segment_months}
            if breaks else {}),
         "ci_68": [float(lo68), float(hi68)],
@@ -490,6 +521,33 @@ def degradation_yoy(pi: pd.Series, *, confidence: float = 0.95, n_resamples: int
                       "counts": [int(c) for c in counts]},
     }
     return res
+
+
+def _draw_deltas(s: pd.Series, r: pd.Series, draws: np.ndarray, *, lag_days: int,
+                 reference: str) -> np.ndarray:
+    """Median pair rate of each draw of the index minus that of ``r`` (the point's pairs,
+    same days): the draws' own spread of the rate [%/yr]."""
+    if draws.ndim != 2 or draws.shape[1] != len(s):
+        raise ValueError(f"pi_draws must have shape (n_draws, {len(s)}), got {draws.shape}")
+    i1 = s.index.get_indexer(r.index)
+    i2 = s.index.get_indexer(r.index + pd.Timedelta(days=lag_days))
+    ok = (i1 >= 0) & (i2 >= 0)
+    a, b = draws[:, i1[ok]], draws[:, i2[ok]]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rk = 100.0 * (b - a) / a * (365.0 / lag_days)
+    # np.median partitions in place and is far faster than np.nanmedian; rows with a
+    # non-finite pair (a zero in a draw) are dropped
+    good = np.isfinite(rk).all(axis=1)
+    rk = rk[good]
+    if reference == "start":
+        # the factor (1 + R t / 100) with the point's pairwise R: a draw's own R differs by a
+        # few hundredths of %/yr, which changes a pair's rate by under 0.3 % of itself
+        t_yr = ((r.index[ok] - s.index[0]).days / DAYS_PER_YEAR).to_numpy()
+        a0, b0 = s.to_numpy()[i1[ok]], s.to_numpy()[i2[ok]]
+        r_pt = float(np.median(100.0 * (b0 - a0) / a0 * (365.0 / lag_days)))
+        rk *= (1 + r_pt / 100.0 * t_yr)[None, :]
+    med = np.median(rk, axis=1)
+    return med - float(np.median(r.to_numpy()[ok]))
 
 
 def year_component(r: pd.Series, boot_var: float, *, lag_days: int = 365,
@@ -1139,7 +1197,8 @@ def _fallback_evidence(drift, shifts, loss, min_soiling_loss_pct: float,
         parts.append(f"no {words} found")
     if soiling_cancels:
         parts.append("the soiling cancels in the year pairs")
-    if seen["sensor drift"] or seen["level shift"]:
+    if seen["sensor drift"] or seen["level shift"] or (seen["material soiling"]
+                                                       and not soiling_cancels):
         parts.append("the rule for the evidence above gave no rate")
     return "; ".join(parts)
 
@@ -1160,14 +1219,13 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
        :func:`analytics.changepoint.detect_level_shifts`): the rate within the segments
        between shifts, ``sensor_year_pairs_between_shifts``; each shift is reported beside it
        (date, size, energy);
-    3. soiling is material (``soiling["loss_pct"]`` ≥ ``min_soiling_loss_pct``, 2 %) and the
+    3. soiling is material (``soiling["loss_pct"]`` ≥ ``min_soiling_loss_pct``, 2 %): the
        soiling-corrected rate ``sensor_year_pairs_unsoiled`` (soiling ratio after
-       Deceglie et al. 2018) differs from ``sensor_year_pairs`` by more than the sum of their
-       68 % half-widths: soiling that differs from year to year leaks into year-on-year
-       pairs, soiling that repeats with the seasons cancels in them (then rule 4 applies, with
-       the soiling caveat). On a synthetic arid fleet (tests/validation) year pairs read
-       0.72 %/yr too pessimistic and the corrected rate 0.08; on a clean fleet the correction
-       finds spurious "soiling" below 1.2 % and is not used;
+       Deceglie et al. 2018), whose interval carries the correction's own uncertainty
+       (draws of the soiling ratio in its bootstrap, ``correction_sd_pct_per_yr``): soiling
+       that differs from year to year leaks into year-on-year pairs (on the synthetic arid
+       fleets of tests/validation year pairs read up to 0.6 %/yr too pessimistic); on a
+       clean fleet the correction finds spurious "soiling" below 1.2 % and is not used;
     4. otherwise the best-calibrated method on the validation fleets, ``sensor_year_pairs``
        (then ``sensor_monthly_robust_line`` if it was refused).
 
@@ -1244,24 +1302,19 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
                         "text": f"soiling costs about {loss:.1f} % of the energy; soiling that differs "
                                 f"from year to year leaks into {_lbl(YEAR_PAIRS)}; {_lbl(SOILING_CORRECTED)} "
                                 "divides it out"})
-        if chosen is None and have(SOILING_CORRECTED) and have(YEAR_PAIRS):
-            a, b = results[YEAR_PAIRS], results[SOILING_CORRECTED]
-            la, ha = interval_68(a)
-            lb, hb = interval_68(b)
-            gap = abs(a.rate_pct_per_yr - b.rate_pct_per_yr)
-            half = ((ha - la) + (hb - lb)) / 2 if None not in (la, ha, lb, hb) else 0.0
-            if gap > half:
-                chosen = SOILING_CORRECTED
-                reasons.append(f"soiling is material ({loss:.1f} % energy loss) and the "
-                               f"soiling-corrected rate differs from {_lbl(YEAR_PAIRS)} by {gap:.2f} %/yr, "
-                               "more than their 68 % intervals allow: soiling differs between "
-                               f"years, so {_lbl(SOILING_CORRECTED)} is recommended")
-            else:
-                soiling_cancels = True
-                reasons.append(f"soiling is material ({loss:.1f} % energy loss) but "
-                               f"{_lbl(SOILING_CORRECTED)} agrees with {_lbl(YEAR_PAIRS)} within their 68 % "
-                               "intervals: the soiling repeats with the seasons and cancels in the "
-                               "year pairs")
+        if chosen is None and have(SOILING_CORRECTED):
+            chosen = SOILING_CORRECTED
+            b = results[SOILING_CORRECTED]
+            sd = b.details.get("correction_sd_pct_per_yr") if isinstance(b.details, dict) else None
+            gap = (f"; it differs from {_lbl(YEAR_PAIRS)} by "
+                   f"{b.rate_pct_per_yr - results[YEAR_PAIRS].rate_pct_per_yr:+.2f} %/yr"
+                   if have(YEAR_PAIRS) else "")
+            reasons.append(f"soiling is material ({loss:.1f} % energy loss): soiling that differs "
+                           f"between years leaks into year pairs, so the soiling-corrected rate "
+                           f"{_lbl(SOILING_CORRECTED)} is recommended{gap}; its interval carries "
+                           "the soiling correction's own uncertainty"
+                           + (f" (±{sd:.2f} %/yr, one standard deviation)" if sd is not None
+                              else ""))
     if chosen is None:
         for m in (YEAR_PAIRS, ROBUST_LINE):
             if have(m):

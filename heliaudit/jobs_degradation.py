@@ -66,6 +66,15 @@ from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
 
 Progress = Callable[[int, int], None]
 
+#: Standard deviation σ_a [%] of the yearly level error shared by all days of a year (that
+#: year's weather against the expected-power model), assumed for records with fewer than two
+#: year groups of pairs (under three years), where it cannot be measured
+#: (analytics.degradation.year_component). Measured on the 15 drift-free validation fleets of
+#: 3–4 years (tests/validation/scorecard_degradation.py, suite seeds): the spread of each
+#: fleet's mean per-year pair medians gives σ_a = 0.000–0.066 %, root mean square 0.028 %;
+#: 0.03 is that figure rounded up (README "Degradation validation").
+MIN_YEAR_SD_PCT = 0.03
+
 #: Parameters of a run (recorded in the computation row). Sources in analytics docstrings.
 DEFAULTS: dict = {
     "confidence": 0.95,
@@ -88,6 +97,9 @@ DEFAULTS: dict = {
     "site_min_inverter_fraction": 0.5,
     "sigma_extra_pct_per_yr": 0.0,
     "soiling_min_loss_pct": 2.0,  # below: soiling not material (recommended rate, issue #13)
+    "soiling_draws": 1000,  # soiling-ratio draws carried into the soiling-corrected interval
+    # sigma_a assumed when a record is too short to measure the shared yearly error (#13)
+    "min_year_sd_pct": MIN_YEAR_SD_PCT,
 }
 METHODS = ("sensor_year_pairs", "sensor_monthly_robust_line", "sensor_monthly_trend_line", "peer_ratio_year_pairs", "modelled_sky_year_pairs", "sensor_drift_check",
            "sensor_year_pairs_between_shifts", "sensor_year_pairs_unsoiled", "modelled_sky_between_shifts")
@@ -250,8 +262,11 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
     conf, seed = p["confidence"], [p["seed"], rng_key]
     yoy_kw = dict(confidence=conf, n_resamples=p["n_resamples"], lag_days=p["lag_days"],
                   reference=p["reference"], min_years=p["min_years"], warn_years=p["warn_years"])
+    # absolute rates: a short record's interval carries the assumed between-year error (the
+    # ratios below, peer-relative and the drift check, cancel what the fleet's weather shares)
+    abs_kw = dict(yoy_kw, min_year_sd_pct_per_yr=p["min_year_sd_pct"])
     res = {
-        "sensor_year_pairs": _try("sensor_year_pairs", adeg.degradation_yoy, s, rng=np.random.default_rng(seed + [1]), **yoy_kw),
+        "sensor_year_pairs": _try("sensor_year_pairs", adeg.degradation_yoy, s, rng=np.random.default_rng(seed + [1]), **abs_kw),
         "sensor_monthly_robust_line": _try("sensor_monthly_robust_line", adeg.degradation_rlm, s, weights, aggregate=p["rlm_aggregate"],
                     harmonics=p["rlm_harmonics"], confidence=conf, min_years=p["min_years"],
                     warn_years=p["warn_years"]),
@@ -267,7 +282,7 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
         clear_pi = clear_pi.where((clear_pi >= 0.3) & (clear_pi <= 1.3))  # plausibility window (common practice)
         dense = acs.densify_clear_days(clear_pi, window_days=p["clearsky_window_days"])
         res["modelled_sky_year_pairs"] = _try("modelled_sky_year_pairs", adeg.degradation_yoy, dense,
-                                   rng=np.random.default_rng(seed + [3]), **yoy_kw)
+                                   rng=np.random.default_rng(seed + [3]), **abs_kw)
         res["modelled_sky_year_pairs"].details["n_clear_days"] = int(clear_pi.notna().sum())
         res["sensor_drift_check"] = _try("sensor_drift_check", adeg.sensor_clearsky_drift, s,
                                          clear_pi, window_days=p["clearsky_window_days"],
@@ -276,7 +291,7 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
         res["modelled_sky_year_pairs"] = adeg.RateResult.refused("modelled_sky_year_pairs", clear_reason or "not computed")
         res["sensor_drift_check"] = adeg.RateResult.refused("sensor_drift_check",
                                                             clear_reason or "not computed")
-    res[adeg.SOILING_CORRECTED], soil = _soiling_corrected(s, weights, p, seed + [6], yoy_kw)
+    res[adeg.SOILING_CORRECTED], soil = _soiling_corrected(s, weights, p, seed + [6], abs_kw)
     base = ratio.dropna() if ratio is not None and ratio.notna().sum() > 400 else s
     cps = acp.detect_level_shifts(base, penalty_factor=p["changepoint_penalty_factor"],
                                   min_step_pct=p["changepoint_min_step_pct"],
@@ -287,11 +302,11 @@ def _methods_for(s: pd.Series, weights: pd.Series | None, *, ratio: pd.Series | 
     if breaks:
         res["sensor_year_pairs_between_shifts"] = _try("sensor_year_pairs_between_shifts", adeg.degradation_yoy, s,
                                           breaks=breaks, rng=np.random.default_rng(seed + [4]),
-                                          **yoy_kw)
+                                          **abs_kw)
         if res["modelled_sky_year_pairs"].rate_pct_per_yr is not None:
             res[adeg.SKY_BETWEEN_SHIFTS] = _try(
                 adeg.SKY_BETWEEN_SHIFTS, adeg.degradation_yoy, dense, breaks=breaks,
-                rng=np.random.default_rng(seed + [7]), **yoy_kw)
+                rng=np.random.default_rng(seed + [7]), **abs_kw)
         else:
             res[adeg.SKY_BETWEEN_SHIFTS] = adeg.RateResult.refused(
                 adeg.SKY_BETWEEN_SHIFTS, "no clear-sky index: " + str(
@@ -327,7 +342,7 @@ def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: l
             # slopes on 3-day medians: a ninth of the Theil-Sen pairs (O(n^2)) for rates of
             # weeks-long dry intervals; an interval needs 4 such points (12 days)
             thin = full.rolling(3, min_periods=1).median().iloc[2::3]
-            iv = asoil.soiling_intervals(thin, list(ev.index), min_days=4)
+            iv = asoil.soiling_intervals(thin, list(ev.index), min_days=4, step_days=3)
             if len(iv):  # the intervals tile the daily index, first day to last
                 iv.loc[iv.index[0], "start"] = full.index[0]
                 iv.loc[iv.index[-1], "end"] = full.index[-1]
@@ -343,15 +358,34 @@ def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: l
     loss = float(100 * (1 - (sr * w).sum() / w.sum())) if w.sum() > 0 else None
     info = {"loss_pct": None if loss is None else round(loss, 3),
             "n_cleanings": int(len(ev)), "n_soiled_intervals": int(iv["soiled"].sum())
-            if len(iv) else 0}
+            if len(iv) else 0, "weight": float(w.sum())}
+    sr_d = None
+    if p.get("soiling_draws") and info["n_soiled_intervals"] and loss is not None:
+        # the soiling ratio's own uncertainty: draws of each soiled interval's rate from its
+        # Theil-Sen standard error (analytics.soiling.soiling_ratio_draws), full recovery at
+        # each cleaning as in the point estimate
+        sr_d = asoil.soiling_ratio_draws(full.index, iv, n_runs=int(p["soiling_draws"]),
+                                         rng=np.random.default_rng(seed + [1]))
+        pos_s = full.index.get_indexer(s.index)
+        ld = 100 * (1 - (sr_d[:, pos_s] @ w.to_numpy()) / w.sum())
+        lo, hi = np.percentile(ld, [2.5, 97.5])
+        info.update(loss_low_pct=round(float(min(lo, loss)), 3),
+                    loss_high_pct=round(float(max(hi, loss)), 3), _loss_draws=ld)
     if loss is None or loss < p["soiling_min_loss_pct"]:
         res = adeg.RateResult.refused(
             m, f"soiling loss {0 if loss is None else loss:.1f} % is below "
                f"{p['soiling_min_loss_pct']:g} %: not material, the year-on-year rate applies")
         res.details["soiling_loss_pct"] = info["loss_pct"]
         return res, info
-    res = _try(m, adeg.degradation_yoy, (s / sr.where(sr > 0.5)).dropna(),
-               rng=np.random.default_rng(seed), **yoy_kw)
+    corrected = (s / sr.where(sr > 0.5)).dropna()
+    draws = None
+    if sr_d is not None:
+        # the correction's uncertainty carried into the year-pairs bootstrap: the index
+        # divided by each draw of its soiling ratio (analytics.degradation.degradation_yoy)
+        pos = full.index.get_indexer(corrected.index)
+        draws = s.reindex(corrected.index).to_numpy()[None, :] / np.maximum(sr_d[:, pos], 0.5)
+    res = _try(m, adeg.degradation_yoy, corrected, rng=np.random.default_rng(seed),
+               pi_draws=draws, **yoy_kw)
     res.details.update({"soiling_loss_pct": info["loss_pct"],
                         "soiling_ratio": "Deceglie et al. 2018 (analytics.soiling)"})
     return res, info
@@ -551,6 +585,7 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         checks = [results[task_of[d]][0].get(adeg.DRIFT_CHECK) for d in members if d in task_of]
         drift_by_sensor[sid] = {**adeg.judge_sensor_drift(checks), "sensor_id": sid}
     rows, refused = [], 0
+    soil_of, loss_draws = {}, {}
     for _, inv in invs.iterrows():
         dev = inv["device_id"]
         if dev not in usable:
@@ -560,6 +595,9 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         else:
             ratio = ratios.get(dev)
             res, cps = results[task_of[dev]]
+            if isinstance(cps.get("soiling"), dict):
+                soil_of[dev] = cps["soiling"]
+                loss_draws[dev] = cps["soiling"].pop("_loss_draws", None)
             if ratio is None:
                 res["peer_ratio_year_pairs"] = adeg.RateResult.refused(
                     "peer_ratio_year_pairs", f"fewer than {p['min_peers'] + 1} inverters in peer group "
@@ -580,6 +618,11 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
     # the site as a whole
     if len(s):
         res, cps = results[-1]
+        if isinstance(cps.get("soiling"), dict):
+            cps["soiling"].pop("_loss_draws", None)
+            fleet = _fleet_soiling(soil_of, loss_draws)
+            if fleet:
+                cps["soiling"].update(fleet)
         res["peer_ratio_year_pairs"] = adeg.RateResult.refused(
             "peer_ratio_year_pairs", "not defined for the site as a whole (relative to itself)")
         rep = {"n_days_used": int(len(s)), "n_inverters": len(usable),
@@ -614,6 +657,35 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
         progress(total, total)
     return {"site_id": site_id, "computation_id": comp_id, "rows": n, "inverters": len(invs),
             "refused": int(refused)}
+
+
+def _fleet_soiling(soil_of: dict, loss_draws: dict) -> dict:
+    """The fleet's soiling energy loss: each inverter's loss (its own daily soiling ratio,
+    Deceglie et al. 2018) weighted by its expected energy on the usable days, with the
+    Monte-Carlo 95 % interval of the same weighted mean over the inverters' soiling-ratio
+    draws (draw k of every inverter together; an inverter without soiled intervals keeps
+    its point loss). Empty when no inverter has a loss."""
+    have = {d: v for d, v in soil_of.items() if v.get("loss_pct") is not None
+            and v.get("weight", 0) > 0}
+    if not have:
+        return {}
+    wsum = sum(v["weight"] for v in have.values())
+    point = sum(v["weight"] * v["loss_pct"] for v in have.values()) / wsum
+    n = max((len(x) for x in loss_draws.values() if x is not None), default=0)
+    out = {"fleet_loss_pct": round(point, 3), "fleet_n_inverters": len(have),
+           "fleet_method": "expected-energy-weighted mean of the inverters' soiling losses "
+                           "(each from its own daily soiling ratio, Deceglie et al. 2018); "
+                           "interval: 2.5-97.5 % of the same mean over Monte-Carlo draws of "
+                           "each dry interval's Theil-Sen rate, full recovery at cleanings"}
+    if n:
+        tot = np.zeros(n)
+        for d, v in have.items():
+            x = loss_draws.get(d)
+            tot += v["weight"] * (x[:n] if x is not None and len(x) >= n else v["loss_pct"])
+        lo, hi = np.percentile(tot / wsum, [2.5, 97.5])
+        out["fleet_loss_interval_pct"] = [round(float(min(lo, point)), 3),
+                                          round(float(max(hi, point)), 3)]
+    return out
 
 
 def _shift_energy(cps: dict, d: pd.DataFrame) -> None:

@@ -429,21 +429,27 @@ def test_recommended_rules_in_order():
     # recoveries (cleanings) are not shifts
     assert recommend_rate(res, shifts=[dict(shift[0], kind="recovery")]).details[
         "chosen_method"] == "sensor_year_pairs"
-    # material soiling whose correction changes the rate beyond the 68 % intervals -> the
-    # soiling-corrected rate; a correction within them, or soiling below 2 %, does not switch
+    # material soiling (>= 2 %) -> the soiling-corrected rate, whether or not it moved the
+    # rate (its interval carries the correction's uncertainty); soiling below 2 % does not
+    # switch
     moved = dict(res, sensor_year_pairs_unsoiled=_r(
         "sensor_year_pairs_unsoiled", -0.2, -0.3, -0.1))
     assert recommend_rate(moved, soiling={"loss_pct": 3.2}).details["chosen_method"] == \
         "sensor_year_pairs_unsoiled"
-    same = recommend_rate(res, soiling={"loss_pct": 3.2})  # -0.50 vs -0.45: within
-    assert same.details["chosen_method"] == "sensor_year_pairs"
+    same = recommend_rate(res, soiling={"loss_pct": 3.2})
+    assert same.details["chosen_method"] == "sensor_year_pairs_unsoiled"
     assert any(c["kind"] == "soiling" for c in same.details["caveats"])
-    # the reasons do not contradict each other: material soiling that cancels is not also
-    # "no material soiling found" (seen on the demo's weekly check)
-    assert "soiling cancels" in same.details["reasons"][-1]
     assert "material soiling found" not in " ".join(same.details["reasons"])
     assert recommend_rate(moved, soiling={"loss_pct": 1.5}).details["chosen_method"] == \
         "sensor_year_pairs"
+    # material soiling whose corrected rate was refused: the plain rate, and the reason says
+    # the soiling rule gave no rate (not "no material soiling found")
+    from analytics.degradation import RateResult as _RR
+    ref = recommend_rate(dict(res, sensor_year_pairs_unsoiled=_RR.refused(
+        "sensor_year_pairs_unsoiled", "x")), soiling={"loss_pct": 3.2})
+    assert ref.details["chosen_method"] == "sensor_year_pairs"
+    assert "gave no rate" in ref.details["reasons"][-1]
+    assert "material soiling" not in ref.details["reasons"][-1]
     # a rule whose method was refused falls through
     from analytics.degradation import RateResult
     no_sky = dict(res, modelled_sky_year_pairs=RateResult.refused("modelled_sky_year_pairs", "x"))
@@ -572,3 +578,46 @@ def test_year_component_matches_monte_carlo_spread():
         est.append(v_day + yc["sd_pct_per_yr"] ** 2)
     ratio = float(np.mean(est)) / float(np.var(errs))
     assert 0.6 < ratio < 1.6, ratio
+
+
+def test_pi_draws_add_the_correction_uncertainty_in_quadrature():
+    # Each draw multiplies the index by (1 + c_k t), c_k ~ N(0, 0.002/yr): a correction whose
+    # uncertainty is a trend of 0.2 %/yr (one standard deviation). Propagating the draws by
+    # Monte Carlo (JCGM 101:2008) must give that spread on the rate, and independent errors
+    # add in quadrature (JCGM 100:2008, law of propagation of uncertainty): the 95 % half-width
+    # with the draws ≈ 1.96 · √(se_boot² + 0.2²), within 10 %.
+    pi = daily_pi(years=4, noise=0.01, seed=3)
+    t = ((pi.index - pi.index[0]).days / 365.25).to_numpy()
+    c = np.random.default_rng(5).normal(0.0, 0.002, 2000)
+    draws = pi.to_numpy()[None, :] * (1 + c[:, None] * t[None, :])
+    plain = degradation_yoy(pi, reference="start", n_resamples=2000, rng=1)
+    both = degradation_yoy(pi, reference="start", n_resamples=2000, rng=1, pi_draws=draws)
+    assert both.rate_pct_per_yr == plain.rate_pct_per_yr  # the point is unchanged
+    assert 0.18 < both.details["correction_sd_pct_per_yr"] < 0.22
+    se_boot = (plain.ci_high - plain.ci_low) / (2 * 1.96)
+    expect = 1.96 * np.hypot(se_boot, 0.2)
+    half = (both.ci_high - both.ci_low) / 2
+    assert abs(half / expect - 1) < 0.10, (half, expect)
+    # the draws must match the index day by day
+    with pytest.raises(ValueError, match="pi_draws"):
+        degradation_yoy(pi, pi_draws=draws[:, :-1])
+
+
+def test_short_record_interval_carries_the_assumed_between_year_error():
+    # Two years: one year of pairs, so the year pairs' median is about a_2 - a_1, whose
+    # variance is 2 σ_a² for independent yearly errors (variance of a difference of two
+    # independent variables). No data can measure σ_a then; with an assumed σ_a = 0.1 % the
+    # interval must widen to about 1.96 · √(se_boot² + 2 · 0.1²), within 10 %.
+    pi = daily_pi(years=2.2, noise=0.01, seed=4)
+    plain = degradation_yoy(pi, n_resamples=2000, rng=2)
+    assumed = degradation_yoy(pi, n_resamples=2000, rng=2, min_year_sd_pct_per_yr=0.1)
+    yc = assumed.details["year_component"]
+    assert yc["assumed"] and yc["added_to_interval"] and yc["n_years"] < 2
+    assert abs(yc["sd_pct_per_yr"] - np.sqrt(2) * 0.1) < 0.01
+    se = (plain.ci_high - plain.ci_low) / (2 * 1.96)
+    half = (assumed.ci_high - assumed.ci_low) / 2
+    assert abs(half / (1.96 * np.hypot(se, np.sqrt(2) * 0.1)) - 1) < 0.10
+    # with two or more year groups the component is measured, not assumed
+    long = degradation_yoy(daily_pi(years=4, noise=0.01, seed=4), n_resamples=200,
+                           min_year_sd_pct_per_yr=0.1)
+    assert not long.details["year_component"].get("assumed", False)

@@ -7,7 +7,8 @@ injected rates; known answers of our own generator):
 each at the README's own figures ("What the main job does", "Degradation rates"):
 
 * inverters on the stable POA sensor (POA-RC1) and without faults: year-on-year within
-  0.05 %/yr of the injected rate, and it is their recommended rate;
+  0.05 %/yr of the injected rate, and it is their recommended rate, except for the two whose
+  soiling costs 2 % (the soiling-corrected rate, 0.22-0.25 %/yr too steep, inside its interval);
 * inverters on POA-PY2 (the generator drifts it −0.8 %/yr from 2023-07-01): the sensor is
   judged to drift, from about 2023-05-04 at about 0.63 %/yr (the whole-period year pairs read
   0.41), the year-on-year rate reads 0.65-0.75 %/yr too optimistic, the recommended rate
@@ -87,20 +88,33 @@ def _sensor_of(truth, dev):
 def test_stable_sensor_inverters_within_readme_figure(results, truth):
     # README "What the main job does": the year-on-year rates of the inverters on the stable
     # reference cell land within 0.05 %/yr of the injected truth (0.006-0.050 too pessimistic),
-    # and for them the recommended rate is the year-on-year rate.
+    # and for them the recommended rate is the year-on-year rate, except where soiling costs
+    # 2 % or more (the soiling-corrected rate, README "Degradation rates").
     rates = truth["degradation"]["per_inverter_pct_per_yr"]
     faulty = {truth["string_failure"]["inverter"]}
-    checked = 0
+    checked = soiled = 0
     for dev, rd in rates.items():
         if _sensor_of(truth, dev) != "POA-RC1" or dev in faulty:
             continue
         got = results.loc[(dev, "sensor_year_pairs"), "rate_pct_per_yr"]
         assert -0.0505 < got - rd <= 0.0, (dev, got, rd)
         rec = results.loc[(dev, "recommended")]
-        assert rec["details"]["chosen_method"] == "sensor_year_pairs"
-        assert rec["rate_pct_per_yr"] == got
+        unsoiled = results.loc[(dev, "sensor_year_pairs_unsoiled")]
+        loss = (unsoiled["details"] or {}).get("soiling_loss_pct") or 0.0
+        if loss >= 2.0:
+            # README "Degradation rates" (the recommended rate, rule 3): material soiling -> the soiling-corrected
+            # rate (INV-03, INV-06: 2.0 % loss), 0.22-0.25 %/yr too steep here, its 95 %
+            # interval (which carries the soiling correction's uncertainty) holding the truth
+            assert rec["details"]["chosen_method"] == "sensor_year_pairs_unsoiled", dev
+            assert -0.25 <= rec["rate_pct_per_yr"] - rd <= -0.22, (dev, rec["rate_pct_per_yr"], rd)
+            assert rec["ci_low"] <= rd <= rec["ci_high"], dev
+            assert unsoiled["details"]["correction_sd_pct_per_yr"] > 0
+            soiled += 1
+        else:
+            assert rec["details"]["chosen_method"] == "sensor_year_pairs", dev
+            assert rec["rate_pct_per_yr"] == got
         checked += 1
-    assert checked >= 4
+    assert checked >= 4 and soiled == 2
 
 
 def test_drifting_pyranometer_judged_and_recommended_rate_sensor_independent(results, truth):

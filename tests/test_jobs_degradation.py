@@ -314,3 +314,18 @@ def test_method_codes_fit_the_store_column():
     from heliaudit.jobs_degradation import METHODS
     width = schema.degradation_result.c.method.type.length
     assert all(len(m) <= width for m in (*METHODS, "recommended", "overview")), width
+
+
+def test_fleet_soiling_is_the_energy_weighted_mean_with_its_draws():
+    # hand calculation: inverters of expected energy 100 and 300 kWh losing 4 % and 8 % lose
+    # (100·4 + 300·8) / 400 = 7 % of the fleet's energy; their draws combine draw by draw
+    from heliaudit.jobs_degradation import _fleet_soiling
+    soil = {"A": {"loss_pct": 4.0, "weight": 100.0}, "B": {"loss_pct": 8.0, "weight": 300.0},
+            "C": {"loss_pct": None, "weight": 50.0}}
+    draws = {"A": np.full(200, 4.0), "B": np.linspace(7.0, 9.0, 200)}
+    out = _fleet_soiling(soil, draws)
+    assert out["fleet_loss_pct"] == 7.0 and out["fleet_n_inverters"] == 2
+    lo, hi = out["fleet_loss_interval_pct"]
+    # B's draws span 7..9 -> the fleet 0.25·4 + 0.75·(7..9) = 6.25..7.75, cut at 2.5/97.5 %
+    assert 6.25 < lo < 6.35 and 7.65 < hi < 7.75
+    assert _fleet_soiling({}, {}) == {}

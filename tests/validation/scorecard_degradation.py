@@ -177,6 +177,15 @@ def soiling_and_drift(case: dict) -> dict:
                                   "point_in_interval": lo <= est <= hi,
                                   "truth_in_interval": lo <= true_loss <= hi}
                 break
+        # the degradation job's fleet figure (inverters' own soiling ratios, energy-weighted)
+        fl = ((case["results"].get("site_result") or {}).get("soiling") or {})
+        if isinstance(fl.get("fleet_loss_pct"), (int, float)):
+            est = float(fl["fleet_loss_pct"])
+            lo, hi = fl.get("fleet_loss_interval_pct") or [est, est]
+            out["soiling_fleet"] = {"true_loss_pct": true_loss, "est_loss_pct": est,
+                                    "interval_pct": [lo, hi], "err_pp": est - true_loss,
+                                    "point_in_interval": lo <= est <= hi,
+                                    "truth_in_interval": lo <= true_loss <= hi}
     drifts = [f for f in truth.get("sensor_faults", []) if f["kind"] == "drift"]
     if drifts:
         d = drifts[0]
@@ -329,9 +338,12 @@ def main(argv=None) -> int:
     if extras:
         print("\nSoiling loss and sensor-drift onset:")
         for e in extras:
-            if "soiling" in e:
-                so = e["soiling"]
-                print(f"  {e['case']} (seed {e['seed']}): soiling loss {so['est_loss_pct']:.2f} % "
+            for key, what in (("soiling", "soiling loss (flags, site-median index)"),
+                              ("soiling_fleet", "fleet soiling loss (degradation job)")):
+                if key not in e:
+                    continue
+                so = e[key]
+                print(f"  {e['case']} (seed {e['seed']}): {what} {so['est_loss_pct']:.2f} % "
                       f"[{so['interval_pct'][0]:.2f}, {so['interval_pct'][1]:.2f}] vs true "
                       f"{so['true_loss_pct']:.2f} % (error {so['err_pp']:+.2f} pp; point in its "
                       f"interval: {so['point_in_interval']}, truth in it: {so['truth_in_interval']})")
