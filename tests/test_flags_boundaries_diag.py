@@ -449,3 +449,32 @@ def test_input_mismatch_days_from_05_kwh_per_kwp(n_iv, found):
     df = pd.DataFrame({"A": p, "B": 0.9 * p, "C": p}, index=idx)
     fl = input_mismatch_flags(df, {"A": 10.0, "B": 10.0, "C": 10.0}, device_id="inv1")
     assert (len(fl) == 1) == found
+
+
+def _low_vs_yield(h, yf, cov):
+    from heliaudit.jobs_flags import _low_vs_yield as rule
+
+    days = pd.date_range("2024-06-01", periods=1, freq="D")
+    return bool(rule(pd.Series(h, index=days), pd.Series(yf, index=days),
+                     coverage=pd.Series(cov, index=days)).iloc[0])
+
+
+@pytest.mark.parametrize("h,low", [(0.99, True), (1.0, False), (1.01, False)])
+def test_low_vs_yield_factor_025(h, low):
+    # IEC 61724-1 (Y_f <= Y_r for any PR <= 1); heliaudit's documented choice, README Flags:
+    # a daily insolation below 0.25 x the arrays' final yield (Y_f = 4 h: 1.0 kWh/m²)
+    assert _low_vs_yield(h, 4.0, 1.0) == low
+
+
+@pytest.mark.parametrize("yf,low", [(0.99, False), (1.0, True), (1.01, True)])
+def test_low_vs_yield_needs_arrays_producing_1_hour(yf, low):
+    # heliaudit's documented choice, docs/flags.md: judged when the arrays produced Y_f >= 1 h
+    # (H = 0.1 kWh/m² is below 0.25 x Y_f in all three cases)
+    assert _low_vs_yield(0.1, yf, 1.0) == low
+
+
+@pytest.mark.parametrize("cov,low", [(0.79, False), (0.8, True), (0.81, True)])
+def test_low_vs_yield_needs_80_percent_coverage(cov, low):
+    # heliaudit's documented choice, docs/flags.md (the daily table's minimum coverage of a
+    # valid day): judged on days whose readings cover >= 80 % of the clear-sky insolation
+    assert _low_vs_yield(0.1, 4.0, cov) == low
