@@ -14,7 +14,7 @@ METHOD_LABELS = {
     "sensor_monthly_robust_line": "Robust line through monthly index, POA sensor",
     "sensor_monthly_trend_line": "Seasonal-trend line, POA sensor",
     "peer_ratio_year_pairs": "Year-on-year relative to the peers",
-    "modelled_sky_year_pairs": "Year-on-year on modelled clear sky (no POA sensor)",
+    "modelled_sky_year_pairs": "Year-on-year on modelled clear sky (POA sensor not used)",
     "sensor_drift_check": "POA sensor drift against clear sky",
     "sensor_year_pairs_between_shifts": "Year-on-year between level shifts",
     "sensor_year_pairs_unsoiled": "Year-on-year with soiling removed, POA sensor",
@@ -133,6 +133,23 @@ def label(code, table: dict | None = None) -> str:
     if code in OLD_METHOD_CODES:
         return METHOD_LABELS[OLD_METHOD_CODES[code]]
     return _human(code)
+
+
+def codes_in_words(text: str | None) -> str | None:
+    """A stored reason text with every method code in it replaced by its words in quotes
+    (reasons are written with codes, so the results document stays machine-readable; a
+    screen shows words).
+
+    >>> codes_in_words("sensor_year_pairs: daily index: 0 usable days")
+    "'Year-on-year, POA sensor': daily index: 0 usable days"
+    """
+    if not text:
+        return text
+    import re
+
+    codes = sorted({*METHOD_LABELS, *OLD_METHOD_CODES}, key=len, reverse=True)
+    pattern = re.compile(r"(?<![\w./-])(" + "|".join(map(re.escape, codes)) + r")(?![\w-])")
+    return pattern.sub(lambda m: f"'{method_label(m.group(1))}'", str(text))
 
 
 def method_label(code) -> str:

@@ -111,7 +111,8 @@ def clean_frame(df: pd.DataFrame, formats: dict | None = None) -> pd.DataFrame:
             continue
         if pd.api.types.is_numeric_dtype(col):
             if col.isna().any():
-                digits = 0 if col.abs().max(skipna=True) >= 100 else 3
+                top = col.abs().max(skipna=True)  # NA when the whole column is missing
+                digits = 0 if pd.notna(top) and top >= 100 else 3
                 fmt = (formats or {}).get(c, f",.{digits}f")
                 out[c] = [("–" if pd.isna(x) else format(x, fmt)) for x in col]
             elif pd.api.types.is_float_dtype(col) and col.abs().max() >= 100:

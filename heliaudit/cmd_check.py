@@ -23,6 +23,7 @@ from analytics.labels import (
     CAVEAT_LABELS,
     FIELD_KINDS,
     SEVERITY_ORDER,
+    codes_in_words,
     instrument_label,
     kind_label,
     method_label,
@@ -251,7 +252,7 @@ def _print_degradation(engine, site_id, echo) -> None:
         name = "site" if dev == "(site)" else dev
         if rec is None or rec.get("rate_pct_per_yr") is None:
             why = (rec or {}).get("reason") or "no rate"
-            echo(f"{name:<10} not computed: {why}")
+            echo(f"{name:<10} not computed: {codes_in_words(why)}")
             continue
         echo(f"{name:<10} {_rate_text(rec)}  {method_label(rec['method'])}")
         if rec.get("stored") and rec.get("reasons"):

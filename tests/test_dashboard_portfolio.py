@@ -143,3 +143,26 @@ def test_the_same_portfolio_from_one_postgresql_server(two_sites, pg_engine):
     for c in ("e_ac_kwh", "pr_stc", "yf_h", "avail_energy", "lost_week_kwh", "p_dc_kwp"):
         np.testing.assert_allclose(a[c].astype(float), b[c].astype(float), rtol=1e-9,
                                    equal_nan=True, err_msg=c)
+
+
+def test_a_device_without_rate_gets_words_and_no_pair_charts(two_sites):
+    """14 months of data: the degradation job refuses every rate (Jordan et al. 2018 pair
+    days one year apart; heliaudit asks for 2 usable years after stabilisation). The page
+    says why in words (no method code) and draws no pair chart that would read as a rate."""
+    import re
+
+    from analytics.labels import METHOD_LABELS
+
+    at = AppTest.from_file(APP, default_timeout=TIMEOUT_S)
+    at.query_params["site"] = "north"
+    at.switch_page("views/degradation.py")
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    info = " ".join(i.value for i in at.info)
+    assert info.startswith("No rate for this device"), info
+    assert "2 years" in info  # the refusal's reason is shown
+    codes = sorted((c for c in METHOD_LABELS if "_" in c), key=len, reverse=True)
+    assert not re.search(r"(?<![\w'])(" + "|".join(codes) + r")(?![\w'])", info), info
+    keys = [el.proto.id for el in at.get("plotly_chart")]
+    assert not any("pair_grid" in k or "year_rates" in k for k in keys), keys
+    assert any("No chart of year-on-year pairs" in c.value for c in at.caption)

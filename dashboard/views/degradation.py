@@ -4,7 +4,7 @@ and the soiling result in its own form."""
 
 import streamlit as st
 
-from analytics.labels import CAVEAT_LABELS, RELATIVE_METHODS, method_label
+from analytics.labels import CAVEAT_LABELS, RELATIVE_METHODS, codes_in_words, method_label
 from dashboard import charts, data, ui
 
 sel = ui.selection()
@@ -38,8 +38,8 @@ st.subheader(f"Recommended degradation rate of {name}")
 chosen = rec["method"] if rec else None
 with st.container(border=True):
     if rec is None or rec["rate_pct_per_yr"] is None:
-        st.info("No rate for this device" + (f": {rec['reason']}." if rec and rec.get("reason")
-                                             else "."))
+        st.info("No rate for this device" + (f": {codes_in_words(rec['reason'])}."
+                                             if rec and rec.get("reason") else "."))
     else:
         c = st.columns([2, 3, 3])
         conf = rec["confidence"] or 0.95
@@ -66,37 +66,43 @@ with st.container(border=True):
                        "out-of-range rate or short record was found).")
 
 # ---- 2. is the rate stable over the years and seasons? which periods drive it?
-grid = data.pair_grid(url, site_id, device)
-left, right = st.columns(2)
-left.plotly_chart(charts.pair_grid_chart(grid, warranted,
-                                         title=f"{title_name}: median pair rate (number of pairs)"),
-                  theme=None, key="pair_grid")
-fallback_rate = res[(res["device_id"] == device) & (res["method"] == "sensor_year_pairs")]
-yoy_rate = (float(fallback_rate["rate_pct_per_yr"].iloc[0])
-            if len(fallback_rate) and fallback_rate["rate_pct_per_yr"].notna().iloc[0]
-            else None)
-yoy_ci = ((float(fallback_rate["ci_low"].iloc[0]), float(fallback_rate["ci_high"].iloc[0]))
-          if yoy_rate is not None and fallback_rate["ci_low"].notna().iloc[0] else None)
-right.plotly_chart(charts.year_rates_chart(grid, yoy_rate, yoy_ci, warranted,
-                                           title=f"{title_name}: pair rates by year and season"),
-                   theme=None, key="year_rates")
-st.caption("Both charts use the pairs of days one year apart of the year-on-year method on "
-           "the POA sensor (Jordan et al. 2018), grouped by the year and meteorological season "
-           "of the later day (Dec–Feb counts to the year of its January). Grid colour: red where "
-           "a season's pairs lost more than the warranted rate"
-           + (f" ({warranted:+.2f} %/yr)" if warranted is not None else " (0 without warranty "
-              "terms)") + ", blue where less; cells with fewer than 10 pairs stay empty. "
-           "Right: each dot is a season's median pair rate with the middle half of its pairs "
-           "(a spread, not a confidence interval); the line and band are the whole-period "
-           "year-on-year rate and its interval. A row or a season far from the rest points to "
-           "a step, a drifting sensor or soiling rather than steady degradation.")
+# (not drawn without a rate: pairs that exist but are too few for a rate would read
+# as one)
+if rec is None or rec["rate_pct_per_yr"] is None:
+    st.caption("No chart of year-on-year pairs: without a rate for this device its "
+               "pairs are too few or too short a record to read a trend from.")
+else:
+    grid = data.pair_grid(url, site_id, device)
+    left, right = st.columns(2)
+    left.plotly_chart(charts.pair_grid_chart(grid, warranted,
+                                             title=f"{title_name}: median pair rate (number of pairs)"),
+                      theme=None, key="pair_grid")
+    fallback_rate = res[(res["device_id"] == device) & (res["method"] == "sensor_year_pairs")]
+    yoy_rate = (float(fallback_rate["rate_pct_per_yr"].iloc[0])
+                if len(fallback_rate) and fallback_rate["rate_pct_per_yr"].notna().iloc[0]
+                else None)
+    yoy_ci = ((float(fallback_rate["ci_low"].iloc[0]), float(fallback_rate["ci_high"].iloc[0]))
+              if yoy_rate is not None and fallback_rate["ci_low"].notna().iloc[0] else None)
+    right.plotly_chart(charts.year_rates_chart(grid, yoy_rate, yoy_ci, warranted,
+                                               title=f"{title_name}: pair rates by year and season"),
+                       theme=None, key="year_rates")
+    st.caption("Both charts use the pairs of days one year apart of the year-on-year method on "
+               "the POA sensor (Jordan et al. 2018), grouped by the year and meteorological season "
+               "of the later day (Dec–Feb counts to the year of its January). Grid colour: red where "
+               "a season's pairs lost more than the warranted rate"
+               + (f" ({warranted:+.2f} %/yr)" if warranted is not None else " (0 without warranty "
+                  "terms)") + ", blue where less; cells with fewer than 10 pairs stay empty. "
+               "Right: each dot is a season's median pair rate with the middle half of its pairs "
+               "(a spread, not a confidence interval); the line and band are the whole-period "
+               "year-on-year rate and its interval. A row or a season far from the rest points to "
+               "a step, a drifting sensor or soiling rather than steady degradation.")
 
 # ---- 3. the warranty check, from the recommended rate
 st.subheader("Against the warranty")
 w = data.warranty_view(url, site_id, device, chosen) if chosen else None
 why = (data.summary_details(res_all, device).get("warranty") or {}).get("reason")
 if w is None:
-    st.info("No warranty check" + (f": {why}." if why else ": the site configuration has no "
+    st.info("No warranty check" + (f": {codes_in_words(why)}." if why else ": the site configuration has no "
             "[warranty] table, or the recommended rate is missing for this device."))
 else:
     wl, wr = st.columns([3, 2])
@@ -178,7 +184,7 @@ table["kind"] = ["relative / drift" if m in RELATIVE_METHODS else "rate of the p
 table["method"] = [method_label(m) for m in table["method"]]
 table["recommended"] = [recs.get(d if d != "whole site" else "(site)") == m
                         for d, m in zip(table["device_id"], res["method"], strict=True)]
-table["reason"] = table["reason"].fillna("")
+table["reason"] = [codes_in_words(x) or "" for x in table["reason"].fillna("")]
 table = table[["device_id", "method", "recommended", "kind", "rate_pct_per_yr", "ci_low",
                "ci_high", "n_points", "reason"]]
 st.dataframe(ui.clean_frame(table, {"rate_pct_per_yr": "+.2f", "ci_low": "+.2f",
