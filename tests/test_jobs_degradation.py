@@ -329,3 +329,6 @@ def test_fleet_soiling_is_the_energy_weighted_mean_with_its_draws():
     # B's draws span 7..9 -> the fleet 0.25·4 + 0.75·(7..9) = 6.25..7.75, cut at 2.5/97.5 %
     assert 6.25 < lo < 6.35 and 7.65 < hi < 7.75
     assert _fleet_soiling({}, {}) == {}
+    # the insolation-weighted loss (Deceglie et al. 2018) is the one summed when present
+    both = {"A": {"loss_pct": 4.0, "loss_insolation_pct": 5.0, "weight": 1.0}}
+    assert _fleet_soiling(both, {})["fleet_loss_pct"] == 5.0
