@@ -177,10 +177,28 @@ def flatline_mask(x, daytime, *, min_run: int = 4, abs_tol: float | None = None,
     return out
 
 
+#: A flat line is a warning from this long (1 h), information below (heliaudit's documented
+#: choice: a few repeated samples are a logger holding its last value, already masked).
+FLATLINE_WARNING_S = 3600
+
+
 def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
                    tau_s: int = 900, exclude=None, min_run: int | None = None,
                    abs_tol: float | None = None, sun_ref=None) -> pd.DataFrame:
-    """Flatline events; 'alarm' when the stuck run lasts more than a day (common practice)."""
+    """Flatline events; 'alarm' when the stuck run lasts more than a day (common practice),
+    'warning' from an hour, 'info' below (a logger repeating its last value for a few
+    samples: the samples are masked either way, nobody needs to act on it).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> idx = pd.date_range("2024-06-01 08:00", periods=10, freq="5min", tz="UTC")
+    >>> x = pd.Series([100, 110, 300, 300, 300, 300, 300, 320, 330, 340.0], index=idx)
+    >>> fl = flatline_flags(x, np.ones(10, bool), device_id="GHI-1", quantity="ghi_wm2",
+    ...                     tau_s=300)
+    >>> len(fl), fl.iloc[0]["severity"]
+    (1, 'info')
+    """
     temp = quantity in ("t_module_c", "t_amb_c")
     if min_run is None:
         # common practice: 4 samples for G and P, 8 for temperatures; wind is logged to 0.1 m/s
@@ -201,7 +219,8 @@ def flatline_flags(x: pd.Series, daytime, *, device_id: str, quantity: str,
     short = 6 * 3600 if temp else 0
     recs = _events(
         m, x.index, tau_s, device_id=device_id, kind="sensor_flatline", merge_gap_s=18 * 3600,
-        severity_fn=lambda n, dur: "alarm" if dur > 86400 else "warning",
+        severity_fn=lambda n, dur: ("alarm" if dur > 86400 else "warning"
+                                    if dur >= FLATLINE_WARNING_S else "info"),
         details_fn=lambda a, b, n: dict(
             quantity=quantity, n_samples=n, stuck_value=float(np.nanmedian(v[a:b + 1][m[a:b + 1]])),
             stuck_hours=float(tau[a:b + 1][m[a:b + 1]].sum() / 3600.0),

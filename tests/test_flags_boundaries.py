@@ -275,6 +275,17 @@ def test_flatline_alarm_beyond_one_day(n, severity):
     assert len(fl) == 1 and fl.iloc[0]["severity"] == severity
 
 
+@pytest.mark.parametrize("n,severity", [(11, "info"), (12, "warning"), (13, "warning")])
+def test_flatline_warning_from_one_hour(n, severity):
+    # heliaudit's documented choice, docs/flags.md: a flat line is a warning from 1 h of
+    # stuck samples (12 x 5 min), information below (a logger repeating its last value)
+    x = np.r_[[100.0, 200.0], np.full(n, 300.0), [400.0, 500.0]]
+    idx = pd.date_range("2024-06-01 08:00", periods=x.size, freq="5min", tz="UTC")
+    fl = flatline_flags(pd.Series(x, index=idx), np.ones(x.size, bool), device_id="poa1",
+                        quantity="poa_wm2", tau_s=300)
+    assert len(fl) == 1 and fl.iloc[0]["severity"] == severity
+
+
 @pytest.mark.parametrize("n_missing,severity", [(95, "info"), (96, "warning"),
                                                 (97, "warning")])
 def test_dropout_warning_from_24_hours(n_missing, severity):
