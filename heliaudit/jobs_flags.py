@@ -90,7 +90,8 @@ PARAMS = {
                                           "inverters clip that month"},
     "soiling": {"input": "site median of each inverter's daily pi over unclipped intervals "
                          "(POA >= 200 W/m2, expected < 95 % of rating, 1-98 % of rating "
-                         "measured) on the daily table's valid days",
+                         "measured) on the daily table's valid days, each inverter divided "
+                         "by its median ratio to the site median (days with >= 2 inverters)",
                 "window": 7, "min_days": 7, "min_rate_pct_per_day": 0.04,
                 "max_line_vs_step": 1.25,
                 "rain_threshold_mm": 5.0, "min_loss": 0.01, "horizon_days": 30,
@@ -586,7 +587,8 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
     """Underperformance, soiling/cleaning and fleet-power drift flags from the daily table.
 
     Soiling reads the site median of each inverter's unclipped daily performance index
-    (:func:`unclipped_daily_pi`) where the flags job computed it, else the daily ``pi``."""
+    (:func:`unclipped_daily_pi`) where the flags job computed it, else the daily ``pi``, each
+    inverter relative to its own level (:func:`analytics.soiling.fleet_relative_pi`)."""
     if daily.empty:
         return []
     d = daily.copy()
@@ -598,13 +600,13 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
                                            **up)]
     valid = d[d["day_valid"].astype(bool)]
     if len(valid):
-        pi = valid.groupby("day")["pi"].median()
+        wide = valid.pivot_table(index="day", columns="device_id", values="pi",
+                                 aggfunc="first")
         if soiling_pi:
-            wide = pd.DataFrame(soiling_pi)
-            ok = valid.pivot_table(index="day", columns="device_id", values="pi",
-                                   aggfunc="first").notna()
-            wide = wide.reindex(index=ok.index, columns=ok.columns).where(ok)
-            pi = wide.median(axis=1).dropna()
+            ok = wide.notna()
+            wide = pd.DataFrame(soiling_pi).reindex(index=ok.index, columns=ok.columns).where(ok)
+        # each inverter relative to its own level, then the site median (issue #14)
+        pi = soiling.fleet_relative_pi(wide)
         h = valid.groupby("day")["h_poa_kwhm2"].median()
         e_exp = d.groupby("day")["e_exp_kwh"].sum(min_count=1)
         soil = soiling.soiling_flags(
