@@ -220,3 +220,17 @@ def test_v6_store_gains_the_sensor_day_columns_and_keeps_its_rows(tmp_path):
         notes = conn.execute(sa.select(schema.schema_version.c.note).where(
             schema.schema_version.c.version == 7)).scalar()
     assert "sensor" in notes
+
+
+def test_v7_step_on_postgres_adds_the_sensor_day_columns(pg_engine):
+    """The PostgreSQL branch of step 7 (BYTEA for the sample arrays) on a v6-shaped flag_day."""
+    with pg_engine.begin() as conn:
+        for c in ("valid_reason", "sky_ratio", "jump_ratio", "rain_mm", "amb_night_c",
+                  "amb_day_c"):
+            conn.execute(sa.text(f"ALTER TABLE flag_day DROP COLUMN {c}"))
+        conn.execute(schema.schema_version.delete())
+        conn.execute(schema.schema_version.insert().values(version=6, applied_utc="x", note="v6"))
+    assert upgrade(pg_engine) == 7
+    cols = {c["name"]: c["type"] for c in sa.inspect(pg_engine).get_columns("flag_day")}
+    assert isinstance(cols["amb_night_c"], sa.LargeBinary)
+    assert {"valid_reason", "sky_ratio", "jump_ratio", "rain_mm", "amb_day_c"} <= set(cols)

@@ -193,3 +193,28 @@ def test_configuration_change_makes_the_next_run_full(runs):
             schema.computation.c.kind == "flags").order_by(
             schema.computation.c.computation_id.desc()).limit(1)).scalar()
     assert scope == "full"
+
+
+def test_incremental_flags_equal_full_recompute_on_postgres(pg_engine):
+    """The same week on PostgreSQL: the sensors' stored days (BYTEA samples, booleans) and
+    parts read back as on SQLite, and the window gives the full recompute's flags."""
+    eng = pg_engine
+    w, power = _site_data()
+    _load(eng, w, power, w.index[0], BOUNDARY, first=True)
+    recompute_all(eng, "s1")
+    run_flags(eng, "s1", full=True)
+    _load(eng, w, power, BOUNDARY, w.index[-1] + pd.Timedelta("1h"), first=False)
+    recompute_range(eng, "s1", _s(BOUNDARY), int(w.index[-1].value // 10**9))
+    run_flags(eng, "s1", full=False, since_s=_s(BOUNDARY))
+    inc = _table(eng)
+    with eng.connect() as conn:
+        scope = conn.execute(sa.select(schema.computation.c.scope).where(
+            schema.computation.c.kind == "flags").order_by(
+            schema.computation.c.computation_id.desc()).limit(1)).scalar()
+    assert scope.startswith("window")
+    run_flags(eng, "s1", full=True)
+    full = _table(eng)
+    cols = ["kind", "device_id", "start_s", "end_s", "severity"]
+    assert inc[cols].to_dict("records") == full[cols].to_dict("records")
+    assert inc["details"].tolist() == full["details"].tolist()
+    assert ((full["kind"] == "sensor_implausible") & (full["device_id"] == "tamb1")).any()
