@@ -98,8 +98,9 @@ def clear_day_mask(x: pd.Series, x_cs: pd.Series, *, std_offset_s: int = 0,
     """Clear days: the measured profile is as smooth as the clear-sky one.
 
     The variability index VI = Σ|Δx| / Σ|Δx_cs| after scaling each day's series to unit
-    sum (Stein et al. 2012, from memory) is close to 1 on a clear day whatever the scale
-    and the clock shift; cloudy days give VI ≫ 1. For irradiance, ``ratio_range`` also
+    sum is close to 1 on a clear day whatever the scale and the clock shift; cloudy days
+    give VI ≫ 1. It is a scale-free form of the variability index of Stein et al. 2012
+    (from memory: their ratio of curve lengths also counts the time step between readings). For irradiance, ``ratio_range`` also
     bounds Σx / Σx_cs (e.g. (0.7, 1.3): clear-sky models carry 5–10 % bias). A day also
     needs readings in ``min_coverage`` of its daylight intervals.
 

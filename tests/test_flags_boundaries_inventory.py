@@ -11,7 +11,8 @@ DOC = (ROOT / "docs" / "flags.md").read_text(encoding="utf-8")
 FILES = {"FT": "test_flag_thresholds.py", "FR": "test_analytics_flag_rules.py",
          "PL": "test_analytics_plausibility.py", "SQ": "test_analytics_sensor_qa.py",
          "SO": "test_analytics_soiling.py", "PA": "test_jobs_flags_patterns.py",
-         "B1": "test_flags_boundaries.py", "B2": "test_flags_boundaries_diag.py"}
+         "B1": "test_flags_boundaries.py", "B2": "test_flags_boundaries_diag.py",
+         "B3": "test_flags_boundaries_more.py"}
 
 
 def _rows():
