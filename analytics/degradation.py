@@ -44,6 +44,7 @@ References
 
 from __future__ import annotations
 
+import math
 import warnings
 from dataclasses import asdict, dataclass, field
 
@@ -81,6 +82,16 @@ class RateResult:
     def refused(cls, method: str, reason: str, **details) -> RateResult:
         return cls(method=method, rate_pct_per_yr=None, reason=reason, details=details)
 
+
+
+def _years_below(span: float) -> str:
+    """A span of years to two decimals, rounded down, so a record just short of a limit is
+    never printed as the limit itself ("2.99 years; 3 or more are recommended", not 3.00).
+
+    >>> _years_below(2.9986), _years_below(1.54)
+    ('2.99', '1.54')
+    """
+    return f"{math.floor(span * 100 + 1e-9) / 100:.2f}"
 
 def _warn(result: RateResult, message: str) -> None:
     result.warnings.append(message)
@@ -199,11 +210,11 @@ def check_span(days: pd.DatetimeIndex, *, min_years: float = 2.0, warn_years: fl
     span = ((days.max() - days.min()).days + 1) / DAYS_PER_YEAR
     if span < min_years:
         raise InsufficientDataError(
-            f"{what}: usable data span {span:.2f} years ({len(days)} days); at least "
+            f"{what}: usable data span {_years_below(span)} years ({len(days)} days); at least "
             f"{min_years:g} years are needed for a degradation rate")
     msg = None
     if span < warn_years:
-        msg = (f"{what}: only {span:.2f} years of usable data; {warn_years:g} or more are "
+        msg = (f"{what}: only {_years_below(span)} years of usable data; {warn_years:g} or more are "
                "recommended, the interval is wide and seasonal effects may not average out")
     return span, msg
 
@@ -1346,7 +1357,7 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
     span = r.details.get("span_years") if isinstance(r.details, dict) else None
     if span is not None and span < 3:
         caveats.append({"kind": "little_data", "method": chosen,
-                        "text": f"{_lbl(chosen)} rests on {span:.2f} years of usable data; 3 or more are "
+                        "text": f"{_lbl(chosen)} rests on {_years_below(span)} years of usable data; 3 or more are "
                                 "recommended, seasonal effects may not average out"})
     if r.ci_low is not None:
         for m in (YEAR_PAIRS, ROBUST_LINE, SKY_PAIRS):
