@@ -399,8 +399,9 @@ def soiling_loss_chart(summary: dict) -> go.Figure:
 
 
 def soiling_loss_bar(summary: dict) -> go.Figure:
-    """The insolation-weighted soiling loss over the period [%] as one bar, with the range
-    the Monte-Carlo runs give when recoveries at cleanings are in doubt."""
+    """The insolation-weighted soiling loss over the period [%] as one bar, with the 95 %
+    Monte-Carlo interval from the soiling rates' standard errors (full recovery at each
+    cleaning), and the present loss."""
     loss = summary.get("loss_pct") if summary else None
     if loss is None:
         return empty("No soiling loss computed", "Energy lost to soiling [%]", "")
@@ -412,7 +413,7 @@ def soiling_loss_bar(summary: dict) -> go.Figure:
                                        "<extra></extra>", width=0.5))
     if lo is not None and hi is not None:
         fig.add_trace(go.Scatter(x=[lo, hi], y=["whole period", "whole period"],
-                                 mode="lines+markers", name="range if recoveries are partial",
+                                 mode="lines+markers", name="95 % interval (soiling rates)",
                                  line=dict(color=theme.TEXT, width=3),
                                  marker=dict(symbol="line-ns-open", size=16,
                                              line=dict(width=3, color=theme.TEXT)),

@@ -787,9 +787,22 @@ def soiling_summary(url: str, site_id: str) -> dict | None:
         "severity": fl["severity"]})
     periods["lost_revenue"] = (periods["lost_kwh"] * econ["tariff_per_kwh"]
                                if econ else np.nan)
-    return {"loss_pct": None if sr is None else 100 * (1 - sr),
-            "loss_low_pct": None if hi is None else 100 * (1 - hi),
-            "loss_high_pct": None if lo is None else 100 * (1 - lo),
+    flags_loss = {"loss_pct": None if sr is None else 100 * (1 - sr),
+                  "loss_low_pct": None if hi is None else 100 * (1 - hi),
+                  "loss_high_pct": None if lo is None else 100 * (1 - lo)}
+    # the headline loss: the degradation job's fleet figure (each inverter's own
+    # insolation-weighted loss, weighted by its expected energy; issue #13's validated
+    # soiling loss) when it exists, the flags' site-median figure beside it
+    fleet = (summary_details(degradation_table(url, site_id), "(site)").get("soiling")
+             or {})
+    fl_iv = fleet.get("fleet_loss_interval_pct") or [None, None]
+    head = ({"loss_pct": fleet["fleet_loss_pct"], "loss_low_pct": fl_iv[0],
+             "loss_high_pct": fl_iv[1]}
+            if isinstance(fleet.get("fleet_loss_pct"), (int, float)) else flags_loss)
+    return {**head, "loss_source": "fleet" if head is not flags_loss else "flags",
+            "site_median_loss_pct": flags_loss["loss_pct"],
+            "site_median_loss_low_pct": flags_loss["loss_low_pct"],
+            "site_median_loss_high_pct": flags_loss["loss_high_pct"],
             "loss_partial_recovery_pct": (
                 None if not isinstance(last.get("soiling_ratio_weighted_partial_recovery"),
                                        (int, float))

@@ -252,7 +252,11 @@ def _print_degradation(engine, site_id, echo) -> None:
         name = "site" if dev == "(site)" else dev
         if rec is None or rec.get("rate_pct_per_yr") is None:
             why = (rec or {}).get("reason") or "no rate"
-            echo(f"{name:<10} not computed: {codes_in_words(why)}")
+            why = codes_in_words(why)
+            if len(why) > 200 and "; '" in why:  # one refusal per method: the first says why
+                why = (why.split("; '")[0] + "; … every method's reason: `heliaudit results "
+                       f"--site {site_id}`)")
+            echo(f"{name:<10} not computed: {why}")
             continue
         echo(f"{name:<10} {_rate_text(rec)}  {method_label(rec['method'])}")
         if rec.get("stored") and rec.get("reasons"):

@@ -648,3 +648,26 @@ def test_demo_weekly_check_shows_the_open_alarm_first(demo):
     shown = float(_metric(at, "Lost energy (flags, this week)").split()[0].replace(",", ""))
     end = at.date_input(key="window").value[1]
     assert shown == pytest.approx(_week_share_independent(demo, end), abs=1.0)
+
+
+@pytest.mark.slow
+def test_demo_soiling_panel_leads_with_the_results_fleet_loss(demo):
+    """One soiling loss on screen as in `heliaudit results` (issue #13): the panel's bar is
+    the site result's `fleet_loss_pct` with its interval; the flags' site-median figure is
+    named beside it as the other estimate (soiling ratio weighted by insolation, Deceglie,
+    Micheli & Muller 2018), never as the same number."""
+    from heliaudit.jobs_degradation import results_document
+
+    doc = results_document(demo["engine"], demo["site_id"])
+    soil = doc["site_result"]["soiling"]
+    assert isinstance(soil.get("fleet_loss_pct"), float)
+    at = _app("views/degradation.py", site=demo["site_id"])
+    bar = next(f for f in _figures(at) if (f["layout"].get("title") or {}).get("text")
+               == "Energy lost to soiling")
+    whole = next(t for t in bar["data"] if t.get("name") == "full recovery")
+    assert _arr(whole["x"])[0] == pytest.approx(soil["fleet_loss_pct"], abs=1e-9)
+    iv = next(t for t in bar["data"] if t.get("name") == "95 % interval (soiling rates)")
+    np.testing.assert_allclose(_arr(iv["x"]), soil["fleet_loss_interval_pct"], atol=1e-9)
+    cap = next(c.value for c in at.caption if c.value.startswith("Bar: energy lost to soiling"))
+    assert f"{soil['fleet_loss_pct']:.2f} %" in cap
+    assert "site-median daily index of the soiling flags gives" in cap

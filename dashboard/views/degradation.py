@@ -235,14 +235,27 @@ else:
     lo, hi = soil.get("loss_low_pct"), soil.get("loss_high_pct")
     period = soil.get("period") or ["", ""]
     if soil.get("loss_pct") is not None:
-        st.caption(f"Bar: energy lost to soiling over {period[0]} … {period[1]}, weighted by "
-                   f"insolation (Deceglie et al. 2018), {soil['loss_pct']:.2f} % if every "
-                   "cleaning and washing rain restored the clean level"
+        fleet_src = soil.get("loss_source") == "fleet"
+        med, mlo, mhi = (soil.get("site_median_loss_pct"), soil.get("site_median_loss_low_pct"),
+                         soil.get("site_median_loss_high_pct"))
+        st.caption(f"Bar: energy lost to soiling over {period[0]} … {period[1]}, "
+                   + ("each inverter's own loss weighted by daily insolation (Deceglie et al. "
+                      "2018), then by its expected energy"
+                      if fleet_src else "the site's daily index weighted by insolation "
+                      "(Deceglie et al. 2018)")
+                   + f": {soil['loss_pct']:.2f} % if every cleaning and washing rain restored "
+                   "the clean level"
                    + (f" (95 % interval {lo:.2f} … {hi:.2f} %, Monte-Carlo over the soiling "
                       "rates' standard errors, same assumption)"
                       if lo is not None and hi is not None else "")
-                   + (f"; {soil['loss_partial_recovery_pct']:.2f} % if cleanings restored only "
-                      "half to all of the lost output"
+                   + (f". The site-median daily index of the soiling flags gives {med:.2f} %"
+                      + (f" ({mlo:.2f} … {mhi:.2f} %)" if mlo is not None and mhi is not None
+                         else "")
+                      + "; the intervals carry only the soiling rates' statistical error, "
+                      "not the difference between the two estimates"
+                      if fleet_src and med is not None else "")
+                   + (f"; {soil['loss_partial_recovery_pct']:.2f} % (site-median index) if "
+                      "cleanings restored only half to all of the lost output"
                       if soil.get("loss_partial_recovery_pct") is not None else "") + ". "
                    + (soil.get("caution") or ""))
     elif soil.get("caution"):
