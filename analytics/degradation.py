@@ -1310,7 +1310,7 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
     soiling_cancels = False
     if loss is not None and loss >= min_soiling_loss_pct:
         caveats.append({"kind": "soiling", "method": YEAR_PAIRS,
-                        "text": f"soiling costs about {loss:.1f} % of the energy; soiling that differs "
+                        "text": f"soiling costs about {loss:.1f} % of the expected energy of the days the rate uses; soiling that differs "
                                 f"from year to year leaks into {_lbl(YEAR_PAIRS)}; {_lbl(SOILING_CORRECTED)} "
                                 "divides it out"})
         if chosen is None and have(SOILING_CORRECTED):
@@ -1344,7 +1344,7 @@ def recommend_rate(results: dict[str, RateResult], *, drift: dict | None = None,
     if chosen in (SKY_PAIRS, SKY_BETWEEN_SHIFTS) and loss is not None \
             and loss >= min_soiling_loss_pct / 2:
         caveats.append({"kind": "soiling", "method": chosen,
-                        "text": f"soiling costs about {loss:.1f} % of the energy; {_lbl(chosen)} "
+                        "text": f"soiling costs about {loss:.1f} % of the expected energy of the days the rate uses; {_lbl(chosen)} "
                                 "rests on clear days, mostly in the dry season when soiling is "
                                 "highest, so soiling that differs from year to year does not cancel "
                                 "in its pairs (on the demo site it reads the rate about 0.2 %/yr "

@@ -389,7 +389,8 @@ def _soiling_corrected(s: pd.Series, weights: pd.Series | None, p: dict, seed: l
                     loss_high_pct=round(float(max(hi, loss_h)), 3), _loss_draws=ld)
     if loss is None or loss < p["soiling_min_loss_pct"]:
         res = adeg.RateResult.refused(
-            m, f"soiling loss {0 if loss is None else loss:.1f} % is below "
+            m, f"soiling loss {0 if loss is None else loss:.1f} % of the expected energy of the "
+               "days the rate uses is below "
                f"{p['soiling_min_loss_pct']:g} %: not material, the year-on-year rate applies")
         res.details["soiling_loss_pct"] = info["loss_pct"]
         return res, info
