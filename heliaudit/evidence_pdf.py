@@ -213,11 +213,31 @@ def _styles() -> dict:
     return st
 
 
+#: A table cell holds at most this many characters: a row cannot break across pages, so a
+#: long refusal (every method's reason) in a narrow column would not fit one page; the full
+#: text is in data/results.json.
+CELL_MAX_CHARS = 300
+
+
+def _cell_text(text: str) -> str:
+    """``text``, or its first words up to :data:`CELL_MAX_CHARS` with a pointer to the full
+    text.
+
+    >>> _cell_text("short")
+    'short'
+    >>> _cell_text("word " * 100).endswith("… (in full: data/results.json)")
+    True
+    """
+    if len(text) <= CELL_MAX_CHARS:
+        return text
+    return text[:CELL_MAX_CHARS].rsplit(" ", 1)[0] + " … (in full: data/results.json)"
+
+
 def _table(rows: list[list], widths: list[float] | None = None, header: bool = True,
            st: dict | None = None) -> Table:
     st = st or _styles()
-    data = [[c if not isinstance(c, str) else Paragraph(_esc(c), st["cell"]) for c in r]
-            for r in rows]
+    data = [[c if not isinstance(c, str) else Paragraph(_esc(_cell_text(c)), st["cell"])
+             for c in r] for r in rows]
     t = Table(data, colWidths=widths, repeatRows=1 if header else 0, hAlign="LEFT")
     style = [("FONTNAME", (0, 0), (-1, -1), FONT), ("FONTSIZE", (0, 0), (-1, -1), 7.6),
              ("VALIGN", (0, 0), (-1, -1), "TOP"),
