@@ -119,6 +119,27 @@ def daily_rows(engine: sa.Engine, site_id: str, start: dt.date | None = None,
     return out
 
 
+def _period_sum_columns() -> list:
+    """The aggregates of :func:`period_sums` and :func:`portfolio_sums`: day counts, energy
+    and daylight/unavailable hours over all days; the PR numerator and denominators over the
+    valid days only (IEC 61724-1: both sides of a ratio over the same days)."""
+    d = s.daily_inverter.c
+    valid = d.day_valid.is_(True)
+
+    def vsum(col):
+        return sa.func.sum(sa.case((valid, col), else_=None))
+
+    return [sa.func.count().label("n_days"),
+            sa.func.sum(sa.case((valid, 1), else_=0)).label("n_days_valid"),
+            sa.func.sum(d.e_ac_kwh).label("e_ac_kwh"),
+            vsum(sa.func.coalesce(d.e_ac_pr_kwh, d.e_ac_kwh)).label("e_ac_pr_kwh"),
+            vsum(d.e_ref_kwh).label("e_ref_kwh"),
+            vsum(d.e_ref_stc_kwh).label("e_ref_stc_kwh"),
+            sa.func.sum(d.e_lost_kwh).label("e_lost_kwh"),
+            sa.func.sum(d.t_daylight_h).label("t_daylight_h"),
+            sa.func.sum(d.t_unavailable_h).label("t_unavailable_h")]
+
+
 def period_sums(engine: sa.Engine, site_id: str, start: dt.date, end: dt.date) -> pd.DataFrame:
     """Per inverter, sums over the days ``[start, end]`` from which any period KPI is a ratio
     of sums (IEC 61724-1: PR over a period is Σ energy / Σ reference energy, not a mean of
@@ -129,21 +150,7 @@ def period_sums(engine: sa.Engine, site_id: str, start: dt.date, end: dt.date) -
     ``e_lost_kwh, t_daylight_h, t_unavailable_h`` (all days).
     """
     d = s.daily_inverter.c
-    valid = d.day_valid.is_(True)
-
-    def vsum(col):
-        return sa.func.sum(sa.case((valid, col), else_=None))
-
-    q = (sa.select(s.device.c.device_id,
-                   sa.func.count().label("n_days"),
-                   sa.func.sum(sa.case((valid, 1), else_=0)).label("n_days_valid"),
-                   sa.func.sum(d.e_ac_kwh).label("e_ac_kwh"),
-                   vsum(sa.func.coalesce(d.e_ac_pr_kwh, d.e_ac_kwh)).label("e_ac_pr_kwh"),
-                   vsum(d.e_ref_kwh).label("e_ref_kwh"),
-                   vsum(d.e_ref_stc_kwh).label("e_ref_stc_kwh"),
-                   sa.func.sum(d.e_lost_kwh).label("e_lost_kwh"),
-                   sa.func.sum(d.t_daylight_h).label("t_daylight_h"),
-                   sa.func.sum(d.t_unavailable_h).label("t_unavailable_h"))
+    q = (sa.select(s.device.c.device_id, *_period_sum_columns())
          .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
          .where(s.device.c.site_id == site_id, d.day >= start, d.day <= end)
          .group_by(s.device.c.device_id).order_by(s.device.c.device_id))
@@ -161,22 +168,9 @@ def portfolio_sums(engine: sa.Engine, start: dt.date, end: dt.date) -> pd.DataFr
     e_ref_kwh, e_ref_stc_kwh, e_lost_kwh, t_daylight_h, t_unavailable_h``.
     """
     d = s.daily_inverter.c
-    valid = d.day_valid.is_(True)
-
-    def vsum(col):
-        return sa.func.sum(sa.case((valid, col), else_=None))
-
     q = (sa.select(s.device.c.site_id,
                    sa.func.count(sa.distinct(d.device_pk)).label("n_inverters_reporting"),
-                   sa.func.count().label("n_days"),
-                   sa.func.sum(sa.case((valid, 1), else_=0)).label("n_days_valid"),
-                   sa.func.sum(d.e_ac_kwh).label("e_ac_kwh"),
-                   vsum(sa.func.coalesce(d.e_ac_pr_kwh, d.e_ac_kwh)).label("e_ac_pr_kwh"),
-                   vsum(d.e_ref_kwh).label("e_ref_kwh"),
-                   vsum(d.e_ref_stc_kwh).label("e_ref_stc_kwh"),
-                   sa.func.sum(d.e_lost_kwh).label("e_lost_kwh"),
-                   sa.func.sum(d.t_daylight_h).label("t_daylight_h"),
-                   sa.func.sum(d.t_unavailable_h).label("t_unavailable_h"))
+                   *_period_sum_columns())
          .select_from(s.daily_inverter.join(s.device, s.device.c.device_pk == d.device_pk))
          .where(d.day >= start, d.day <= end)
          .group_by(s.device.c.site_id).order_by(s.device.c.site_id))
