@@ -369,36 +369,32 @@ def test_power_flat_within_1_percent_of_its_limit_is_not_stuck(above_kw, stuck):
     assert (out["kind"] == "sensor_flatline").any() == stuck
 
 
-@pytest.mark.parametrize("p_kw,flagged", [(104.99, False), (105.0, False), (105.01, True)])
-def test_inverter_power_range_105_percent(p_kw, flagged):
-    # common practice, README Filters: P_ac plausible within −2…105 % of the rating; the
-    # job's inverter checks flag five readings above it (a warning)
+def _power_range_kinds(rows: slice, p_kw: float) -> list[str]:
+    """Flag kinds of the job's inverter checks on a clear day of the P_MAX inverter near its
+    expected power, with the readings ``rows`` set to ``p_kw``."""
     from heliaudit.jobs_flags import inverter_flags
 
     p = CS / 1000.0 * 100.0
-    p[44:49] = p_kw
+    p[rows] = p_kw
     fr = pd.DataFrame({"p_ac_kw": p, "poa_wm2": CS, "t_module_c": 35.0, "t_amb_c": 25.0,
                        "wind_ms": 1.0, "interval_h": 0.25}, index=IDX)
     sun = pd.DataFrame({"elev": ELEV, "aoi": 30.0, "poa_cs": CS}, index=IDX)
     out = inverter_flags(_inv(), fr, sun, std_offset_s=0, site_zone="UTC")
-    kinds = [k for f in out if len(f) for k in f["kind"]]
-    assert ("sensor_range" in kinds) == flagged
+    return [k for f in out if len(f) for k in f["kind"]]
+
+
+@pytest.mark.parametrize("p_kw,flagged", [(104.99, False), (105.0, False), (105.01, True)])
+def test_inverter_power_range_105_percent(p_kw, flagged):
+    # common practice, README Filters: P_ac plausible within −2…105 % of the rating; the
+    # job's inverter checks flag five readings above it (a warning)
+    assert ("sensor_range" in _power_range_kinds(slice(44, 49), p_kw)) == flagged
 
 
 @pytest.mark.parametrize("p_kw,flagged", [(-1.99, False), (-2.0, False), (-2.01, True)])
 def test_inverter_power_range_minus_2_percent(p_kw, flagged):
     # common practice, README Filters: below −2 % of the rating (night consumption of a
     # few per mille is plausible); five readings at night
-    from heliaudit.jobs_flags import inverter_flags
-
-    p = CS / 1000.0 * 100.0
-    p[4:9] = p_kw
-    fr = pd.DataFrame({"p_ac_kw": p, "poa_wm2": CS, "t_module_c": 35.0, "t_amb_c": 25.0,
-                       "wind_ms": 1.0, "interval_h": 0.25}, index=IDX)
-    sun = pd.DataFrame({"elev": ELEV, "aoi": 30.0, "poa_cs": CS}, index=IDX)
-    out = inverter_flags(_inv(), fr, sun, std_offset_s=0, site_zone="UTC")
-    kinds = [k for f in out if len(f) for k in f["kind"]]
-    assert ("sensor_range" in kinds) == flagged
+    assert ("sensor_range" in _power_range_kinds(slice(4, 9), p_kw)) == flagged
 
 
 @pytest.mark.parametrize("k,found", [(19, False), (20, True), (21, True)])
