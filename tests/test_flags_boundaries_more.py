@@ -208,6 +208,27 @@ def test_sibling_jump_needs_20_days_either_side(days_each_side, found):
         assert d["step_pct"] == pytest.approx(-5.0, abs=1e-9)
 
 
+@pytest.mark.parametrize("step_day", [333, 334, 335, 336])
+def test_sibling_jump_on_a_long_series_keeps_its_own_day(step_day):
+    # Known answer: a 5 % step of sensor a against sensor b on day step_day of 900 clear
+    # days (day-to-day scatter 0.3 %, seeded) must be dated to step_day itself. The split
+    # search first steps by (900 - 40) // 200 = 4 days (docs/flags.md); before the
+    # refinement a step between two grid points (20, 24, ..., 332, 336) was dated to the
+    # next one, up to 3 days late, and its first days stayed in every calculation.
+    n = 900
+    days = pd.date_range("2021-01-01", periods=n, freq="D")
+    rng = np.random.default_rng(step_day)
+    a = pd.Series(np.where(np.arange(n) >= step_day, 0.95, 1.0)
+                  * (1 + 0.003 * rng.standard_normal(n)), index=days)
+    b = pd.Series(1.0 + 0.003 * rng.standard_normal(n), index=days)
+    fl = sibling_jump_flags({"a": a, "b": b})
+    assert len(fl) == 1
+    d = fl.iloc[0]["details"]
+    assert fl.iloc[0]["device_id"] == "a"
+    assert d["first_day"] == str(days[step_day].date())
+    assert d["step_pct"] == pytest.approx(-5.0, abs=0.5)
+
+
 # -- the moment of a clock fix inside a day: a split kept from a 20 % gain ---------------------
 
 FIX_IDX = pd.date_range("2024-06-03", periods=96, freq="15min", tz="UTC")
