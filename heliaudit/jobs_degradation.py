@@ -583,6 +583,14 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
             clear, how, clear_reason = _clearsky_daily(engine, site, invs, offset_h, p)
         except (ImportError, ValueError, KeyError) as exc:
             clear_reason = f"clear-sky index not computed: {exc}"
+    # the clear-sky index skips the same stabilisation period as the sensor-based index
+    # (light-induced and metastable effects after commissioning): every method of a device
+    # rests on the same days after commissioning
+    for dev, rep in reports.items():
+        until = rep.get("stabilisation_until")
+        if until and dev in clear and clear[dev] is not None:
+            x = clear[dev]
+            clear[dev] = x[pd.DatetimeIndex(pd.to_datetime(x.index)) >= pd.Timestamp(until)]
     # every series' methods (the costly part) first, in a process pool; then summaries
     tasks, task_of = [], {}
     for k, (_, inv) in enumerate(invs.iterrows()):

@@ -121,7 +121,7 @@ def test_drifting_pyranometer_judged_and_recommended_rate_sensor_independent(res
     # README: POA-PY2 (drifting -0.8 %/yr from 2023-07-01) is judged to drift, from about
     # 2023-05-04 at about 0.63 %/yr (whole-period pairs: 0.41); its inverters' year-on-year
     # rates read 0.65-0.75 %/yr too optimistic; the recommended rate is the clear-sky one,
-    # 0.17-0.25 %/yr too pessimistic and inside its 95 % interval, and every one carries the
+    # 0.07-0.13 %/yr too pessimistic and inside its 95 % interval, and every one carries the
     # "check its calibration" warning with the onset.
     rates = truth["degradation"]["per_inverter_pct_per_yr"]
     drift = truth["poa_drift"]["sensor"]
@@ -132,7 +132,7 @@ def test_drifting_pyranometer_judged_and_recommended_rate_sensor_independent(res
         assert 0.645 <= yoy - rates[dev] <= 0.755, (dev, yoy)
         rec = results.loc[(dev, "recommended")]
         assert rec["details"]["chosen_method"] == "modelled_sky_year_pairs", dev
-        assert -0.255 <= rec["rate_pct_per_yr"] - rates[dev] <= -0.165, (dev, rec["rate_pct_per_yr"])
+        assert -0.135 <= rec["rate_pct_per_yr"] - rates[dev] <= -0.065, (dev, rec["rate_pct_per_yr"])
         assert rec["ci_low"] <= rates[dev] <= rec["ci_high"]
         assert rec["details"]["caveats"][0]["kind"] == "sensor_drift"
         summary = results.loc[(dev, "overview"), "details"]
@@ -198,10 +198,11 @@ def test_soiling_differences_are_not_level_shifts(results, truth):
 
 def test_clear_sky_pessimism_is_soiling(demo_engine, results, truth):
     # README Methods, "Why the clear-sky rate reads too steep on the demo": the clear-sky rates
-    # of the 13 inverters without a step are 0.15-0.25 %/yr too pessimistic, and dividing the
-    # clear-day index by the generator's own soiling ratio (the demo generator's soiling
-    # model, heliaudit.demo_generator.soiling, with truth.json's rain) moves each one by
-    # +0.21 to +0.42 %/yr: the cause is soiling, not the sensor or the clear-sky model.
+    # of the 13 inverters without a step are 0.01-0.14 %/yr too pessimistic (days from 180
+    # after commissioning on, as every method), and dividing the clear-day index by the
+    # generator's own soiling ratio (the demo generator's soiling model,
+    # heliaudit.demo_generator.soiling, with truth.json's rain) moves each one by +0.12 to
+    # +0.32 %/yr: soiling pulls them down (and the true ratio over-corrects, README).
     import pandas as pd
 
     from analytics import clearsky as acs
@@ -228,10 +229,31 @@ def test_clear_sky_pessimism_is_soiling(demo_engine, results, truth):
         if dev == truth["string_failure"]["inverter"]:
             continue
         sky = results.loc[(dev, "modelled_sky_year_pairs"), "rate_pct_per_yr"]
-        assert -0.255 <= sky - rd <= -0.145, (dev, sky, rd)
+        assert -0.15 <= sky - rd <= 0.0, (dev, sky, rd)
         sr = pd.Series(1 - mult[dev] * (1 - sr_base), days)
-        c = clear[dev].where((clear[dev] >= 0.3) & (clear[dev] <= 1.3))
+        # the stabilisation period the job skips (180 days after commissioning)
+        until = pd.Timestamp(invs.set_index("device_id").loc[dev, "commissioned"]) \
+            + pd.Timedelta(days=jd.DEFAULTS["stabilisation_days"])
+        c = clear[dev][pd.to_datetime(clear[dev].index) >= until]
+        c = c.where((c >= 0.3) & (c <= 1.3))
         dense = acs.densify_clear_days((c / sr.reindex(c.index)).dropna(), window_days=15)
         unsoiled = adeg.degradation_yoy(dense, reference="start", n_resamples=200).rate_pct_per_yr
         moves.append(unsoiled - sky)
-        assert 0.205 <= unsoiled - sky <= 0.425, (dev, sky, unsoiled)
+        assert 0.11 <= unsoiled - sky <= 0.33, (dev, sky, unsoiled)
+
+
+def test_every_method_skips_the_stabilisation_period(demo_engine, results):
+    # README Methods: the first 180 days after commissioning are skipped (light-induced and
+    # metastable effects; Jordan et al. 2018 name the first months, from memory). Every
+    # method of a device rests on the same days: the clear-sky year pairs too (before, they
+    # started on the first day of data, half a year earlier than the sensor-based ones).
+    import datetime as dt
+
+    from db import queries
+
+    invs = queries.inverters(demo_engine, "quillpond").set_index("device_id")
+    for dev, inv in invs.iterrows():
+        until = inv["commissioned"] + dt.timedelta(days=180)
+        for method in ("sensor_year_pairs", "modelled_sky_year_pairs"):
+            d = results.loc[(dev, method), "details"]
+            assert dt.date.fromisoformat(d["first_pair_day"]) >= until, (dev, method, d)
