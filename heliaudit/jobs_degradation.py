@@ -253,6 +253,19 @@ def _clearsky_daily(engine, site: dict, invs: pd.DataFrame, offset_h: float, p: 
     return out, how, None
 
 
+def _name_stabilisation(res: dict, report: dict, days: int) -> None:
+    """Append the end of the skipped stabilisation period to each refusal for a short span
+    (``check_span``'s "usable data span"), in place."""
+    until = report.get("stabilisation_until")
+    if not until:
+        return
+    for r in res.values():
+        if r.reason and "usable data span" in r.reason and "stabilisation" not in r.reason:
+            r.reason += (f" (the days before {until} are skipped: the first "
+                         f"{days} days after commissioning, "
+                         "light-induced and metastable effects)")
+
+
 # ---------------------------------------------------------------- per series
 
 
@@ -611,6 +624,16 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
                           energy_kwh=sum(energy.values()) if energy else None))
     results = methods_many(tasks, workers=workers,
                            progress=(lambda i: progress(i, total)) if progress else None)
+    # a refusal for a short span says when the skipped stabilisation period ended: two years
+    # of data commissioned shortly before hold only about 1.5 usable years
+    for dev, k in task_of.items():
+        _name_stabilisation(results[k][0], reports[dev], p["stabilisation_days"])
+    if len(s):
+        firsts = [r["stabilisation_until"] for r in reports.values()
+                  if r.get("stabilisation_until")]
+        if firsts:
+            _name_stabilisation(results[-1][0], {"stabilisation_until": min(firsts)},
+                                p["stabilisation_days"])
     # the irradiance sensor's drift, judged from the drift checks of all inverters it serves
     drift_by_sensor = {}
     for sid, members in invs.groupby("poa_sensor_id")["device_id"]:

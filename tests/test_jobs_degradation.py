@@ -332,3 +332,30 @@ def test_fleet_soiling_is_the_energy_weighted_mean_with_its_draws():
     # the insolation-weighted loss (Deceglie et al. 2018) is the one summed when present
     both = {"A": {"loss_pct": 4.0, "loss_insolation_pct": 5.0, "weight": 1.0}}
     assert _fleet_soiling(both, {})["fleet_loss_pct"] == 5.0
+
+
+def test_short_span_refusal_names_the_skipped_stabilisation_period(store, tmp_path):
+    # README Methods: the first days after commissioning are skipped (light-induced and
+    # metastable effects; Jordan et al. 2018 name the first months, from memory) and a rate
+    # needs 2 years of usable data. 2.6 years of data from the commissioning day
+    # (2019-01-01) with 240 days skipped leave 1.94 years: every method refuses, and the
+    # reason says which days were skipped, so "1.94 years" out of 2.6 is not a riddle.
+    import sqlite3
+
+    from db.engine import make_engine
+
+    engine, _ = store
+    copy = tmp_path / "copy.sqlite"
+    with sqlite3.connect(engine.url.database) as src, sqlite3.connect(copy) as dst:
+        src.backup(dst)  # the store's WAL included
+    eng = make_engine(copy, create=False)
+    run_degradation(eng, "s1", stabilisation_days=240, n_resamples=50)
+    res = degradation_results(eng, "s1").set_index(["device_id", "method"])
+    until = (dt.date(2019, 1, 1) + dt.timedelta(days=240)).isoformat()
+    for dev in ("INV01", SITE_DEVICE):
+        for method in ("sensor_year_pairs", "modelled_sky_year_pairs"):
+            r = res.loc[(dev, method)]
+            assert np.isnan(r["rate_pct_per_yr"]), (dev, method)
+            assert "usable data span 1.9" in r["reason"], r["reason"]
+            assert f"the days before {until} are skipped" in r["reason"], r["reason"]
+    eng.dispose()
