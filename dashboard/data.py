@@ -382,7 +382,7 @@ def portfolio_week(url: str, end: dt.date) -> pd.DataFrame:
     Columns: ``site_id, name, status, rank, last_day, days_behind, p_dc_kwp, n_inverters,
     n_inverters_reporting, e_ac_kwh, yf_h, pr_stc, d_trailing_pct, avail_energy, n_alarms,
     n_warnings, n_flags, lost_week_kwh, rate_pct_per_yr, ci_low, ci_high, rate_method,
-    n_caveats, warranted_pct_per_yr``. Energy and PR are ratios of sums over all the site's
+    n_caveats, warranted_pct_per_yr, warranty_test``. Energy and PR are ratios of sums over all the site's
     inverters and sensor types (IEC 61724-1); ``d_trailing_pct`` compares with the site's
     :data:`TRAILING_WEEKS` weeks before; the rate is the site's recommended degradation rate.
     The sums come from one statement per period for the whole store; flags per site.
@@ -424,7 +424,24 @@ def portfolio_week(url: str, end: dt.date) -> pd.DataFrame:
     out["warranted_pct_per_yr"] = [
         -w["annual_loss_pct"] if (w := warranty_terms(url, sid)) else np.nan
         for sid in out["site_id"]]
+    # the one-sided screening test the degradation job stored with the site's rate (the
+    # verdict the Degradation & warranty page shows), so a rate beyond the warranted one is
+    # not read as a breach the test does not support
+    over = queries.portfolio_site_rates(eng, db_degradation.SITE_DEVICE, SUMMARY_METHOD)
+    tests = {r.site_id: (r.details or {}).get("warranty") or {} for r in over.itertuples()}
+    out["warranty_test"] = [portfolio_warranty_words(tests.get(sid, {})) for sid in out["site_id"]]
     return portfolio_order(out, end)
+
+
+def portfolio_warranty_words(test: dict) -> str:
+    """Short words for the stored warranty screening of a site's recommended rate
+    (:func:`analytics.warranty.warranty_rate_test`, one-sided), or why there is none."""
+    if "exceeds" in test:
+        conf = test.get("confidence")
+        level = f" at {conf:.0%} one-sided" if isinstance(conf, (int, float)) else ""
+        return (f"loss exceeds the warranted rate{level}" if test["exceeds"]
+                else f"no evidence it exceeds{level}")
+    return "not tested" + (f": {test['reason']}" if test.get("reason") else "")
 
 
 #: Heatmaps show one column per day up to this many days, then one per week up to

@@ -166,3 +166,30 @@ def test_a_device_without_rate_gets_words_and_no_pair_charts(two_sites):
     keys = [el.proto.id for el in at.get("plotly_chart")]
     assert not any("pair_grid" in k or "year_rates" in k for k in keys), keys
     assert any("No chart of year-on-year pairs" in c.value for c in at.caption)
+
+
+def test_portfolio_warranty_column_says_what_the_degradation_page_says(dashboard_store):
+    # The portfolio's "Against the warranty" words come from the same one-sided screening
+    # test (analytics.warranty.warranty_rate_test, checked against hand test vectors in its
+    # docstring) that the Degradation & warranty page shows for the site's recommended rate;
+    # two screens must not disagree. The demo site (36 months, [warranty] 0.55 %/yr) has a
+    # site rate; a site without warranty terms says why it is not tested.
+    from dashboard import data
+    from db.degradation import SITE_DEVICE
+
+    url, sid = dashboard_store["url"], dashboard_store["site_id"]
+    data.st.cache_data.clear()
+    t = data.portfolio_week(url, data.portfolio_end(url)).set_index("site_id")
+    res = data.degradation_table(url, sid)
+    summary = data.summary_details(res, SITE_DEVICE)
+    rec = res[(res["device_id"] == SITE_DEVICE) & (res["method"] == data.RECOMMENDED)].iloc[0]
+    method = rec["details"]["chosen_method"]
+    assert method, rec["details"]
+    page = data.warranty_view(url, sid, SITE_DEVICE, method)["test"]
+    words = t.loc[sid, "warranty_test"]
+    assert words.startswith("loss exceeds" if page["exceeds"] else "no evidence it exceeds")
+    level = f"at {summary['warranty']['confidence']:.0%} one-sided"
+    assert level in words and level in page["verdict"], (words, page["verdict"])
+    assert summary["warranty"]["exceeds"] == page["exceeds"]
+    assert data.portfolio_warranty_words({"reason": "no [warranty] in the site configuration"}) \
+        == "not tested: no [warranty] in the site configuration"

@@ -119,6 +119,7 @@ deg = pd.DataFrame({
     "method": [method_label(m) if isinstance(m, str) else "no rate" for m in table["rate_method"]],
     "caveats": table["n_caveats"],
     "warranted": table["warranted_pct_per_yr"],
+    "warranty_test": table["warranty_test"],
 })
 st.dataframe(ui.clean_frame(deg, {"warranted": "+.2f", "caveats": ".0f"}), hide_index=True,
              key="portfolio_degradation", column_config={
@@ -131,6 +132,11 @@ st.dataframe(ui.clean_frame(deg, {"warranted": "+.2f", "caveats": ".0f"}), hide_
     "warranted": st.column_config.NumberColumn(
         "Warranted [%/yr]", format="%+.2f", width="small",
         help="The annual loss the site's [warranty] configuration allows."),
+    "warranty_test": st.column_config.TextColumn(
+        "Against the warranty", width="medium",
+        help="The one-sided screening test of the site's recommended rate against the "
+             "warranted annual loss, as on the Degradation & warranty page: a rate steeper "
+             "than the warranted one is not a breach unless its interval says so."),
 })
 st.caption("Site names: " + "; ".join(f"{r.site_id} = {r.name}" for r in table.itertuples())
            + ".")
