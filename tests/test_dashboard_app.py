@@ -435,6 +435,11 @@ def _check_device_against_results(at: AppTest, doc: dict, res: pd.DataFrame, dev
     if rec is None or rec.get("rate_pct_per_yr") is None:
         return
     assert _metric(at, "Recommended rate") == f"{rec['rate_pct_per_yr']:+.2f} %/yr"
+    # the year-pair charts are the POA sensor's pairs: when the rate does not rest on the
+    # sensor (a drifting one: the clear-sky rate), the page says the charts are not the rate
+    off_sensor = not str(rec.get("method") or "").startswith("sensor_")
+    notes = [x for x in _texts(at, "info") if "does not use them" in x]
+    assert len(notes) == int(off_sensor), (dev, rec.get("method"), notes)
     warnings = _texts(at, "warning")
     for c in rec.get("caveats", []):
         assert any(c["text"] in w and CAVEAT_LABELS[c["kind"]] in w for w in warnings), \

@@ -4,7 +4,13 @@ and the soiling result in its own form."""
 
 import streamlit as st
 
-from analytics.labels import CAVEAT_LABELS, RELATIVE_METHODS, codes_in_words, method_label
+from analytics.labels import (
+    CAVEAT_LABELS,
+    RELATIVE_METHODS,
+    codes_in_words,
+    method_code,
+    method_label,
+)
 from dashboard import charts, data, ui
 
 sel = ui.selection()
@@ -73,6 +79,12 @@ if rec is None or rec["rate_pct_per_yr"] is None:
                "pairs are too few or too short a record to read a trend from.")
 else:
     grid = data.pair_grid(url, site_id, device)
+    if chosen and not str(method_code(chosen)).startswith("sensor_"):
+        # the charts show the POA sensor's pairs; the recommended rate does not use them
+        st.info(f"The charts below show the year-on-year pairs on the POA sensor. The "
+                f"recommended rate above is '{method_label(chosen)}' and does not use them "
+                "(see its reasons): read the charts for where the sensor-based pairs depart, "
+                "not as the rate.", icon=":material/info:")
     left, right = st.columns(2)
     left.plotly_chart(charts.pair_grid_chart(grid, warranted,
                                              title=f"{title_name}: median pair rate (number of pairs)"),
