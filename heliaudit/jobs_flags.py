@@ -93,7 +93,9 @@ PARAMS = {
                          "measured) on the daily table's valid days, each inverter divided "
                          "by its median ratio to the site median (days with >= 2 inverters)",
                 "window": 7, "min_days": 7, "min_rate_pct_per_day": 0.04,
-                "max_line_vs_step": 1.25,
+                "max_line_vs_step": 1.25, "clear_share": 0.5, "min_clear_days": 3,
+                "clear_day": "the clock check's clear days (power profile variability "
+                             "index <= 1.3) on at least clear_share of the inverters",
                 "rain_threshold_mm": 5.0, "min_loss": 0.01, "horizon_days": 30,
                 "n_runs": 1000},
     "sensor": {"ranges": sensor_qa.RANGES, "p_ac_range": [-0.02, 1.05],
@@ -583,12 +585,16 @@ def _adjust_pi_for_limits(d: pd.DataFrame, withheld: dict) -> pd.DataFrame:
 def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: int,
                 economics: dict, rain_daily: pd.Series | None = None,
                 n_runs: int = 1000, withheld: dict | None = None,
-                soiling_pi: dict | None = None) -> list[pd.DataFrame]:
+                soiling_pi: dict | None = None,
+                clock_days: dict | None = None) -> list[pd.DataFrame]:
     """Underperformance, soiling/cleaning and fleet-power drift flags from the daily table.
 
     Soiling reads the site median of each inverter's unclipped daily performance index
     (:func:`unclipped_daily_pi`) where the flags job computed it, else the daily ``pi``, each
-    inverter relative to its own level (:func:`analytics.soiling.fleet_relative_pi`)."""
+    inverter relative to its own level (:func:`analytics.soiling.fleet_relative_pi`). With
+    ``clock_days`` (each inverter's clock-check days, column ``clear``) a soiled interval
+    must also show its decline on the site's clear days
+    (:func:`analytics.soiling.site_clear_days`, :func:`analytics.soiling.soiling_intervals`)."""
     if daily.empty:
         return []
     d = daily.copy()
@@ -609,12 +615,19 @@ def daily_flags(daily: pd.DataFrame, inverters: pd.DataFrame, *, std_offset_s: i
         pi = soiling.fleet_relative_pi(wide)
         h = valid.groupby("day")["h_poa_kwhm2"].median()
         e_exp = d.groupby("day")["e_exp_kwh"].sum(min_count=1)
+        clear = None
+        if clock_days:
+            clear = soiling.site_clear_days(
+                pd.DataFrame({dev: off["clear"] for dev, off in clock_days.items()
+                              if len(off)}).astype(float),
+                min_share=PARAMS["soiling"]["clear_share"])
         soil = soiling.soiling_flags(
-            pi, h, e_exp, rain_mm=rain_daily, tariff_per_kwh=economics.get("tariff_per_kwh", 0.05),
+            pi, h, e_exp, rain_mm=rain_daily, clear_days=clear, tariff_per_kwh=economics.get("tariff_per_kwh", 0.05),
             cleaning_cost=economics.get("cleaning_cost", 0.0),
             currency=economics.get("currency", "EUR"), std_offset_s=std_offset_s,
             n_runs=n_runs, **{k: PARAMS["soiling"][k] for k in (
-                "window", "min_days", "rain_threshold_mm", "min_loss", "horizon_days")})
+                "window", "min_days", "rain_threshold_mm", "min_loss", "horizon_days",
+                "min_clear_days")})
         out[0], soil = attach_uneven_soiling(out[0], soil, valid, std_offset_s=std_offset_s,
                                              min_deficit=up["min_deficit"])
         out.append(soil)
@@ -1490,7 +1503,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
                                   sources=sources, series=clock_series)
     parts += daily_flags(daily, inverters, std_offset_s=off_s, economics=economics,
                          rain_daily=rain_daily, n_runs=n_runs, withheld=withheld,
-                         soiling_pi=soiling_pi)
+                         soiling_pi=soiling_pi, clock_days=clock_days)
     if last_seen:
         parts.append(flag_frame(stopped_reporting_flags(
             last_seen, max(last_seen.values()), min_days=PARAMS["stopped"]["min_days"],

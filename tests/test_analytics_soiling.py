@@ -13,6 +13,7 @@ from analytics.soiling import (
     detect_cleanings,
     fleet_relative_pi,
     line_vs_step,
+    site_clear_days,
     soiling_flags,
     soiling_intervals,
     soiling_ratio_insolation_weighted,
@@ -460,3 +461,116 @@ def test_flags_job_reads_soiling_from_the_fleet_relative_index():
     assert len(so) == 3
     assert all(d["soiling_rate_pct_per_day"] == pytest.approx(-0.25, abs=1e-9)
                for d in so["details"])
+
+
+# ---------------------------------------------------------------- clear-day check (issue #14)
+# Cloudy days read low in the daily pi on every inverter alike (the expected-power model
+# over-predicts at low and diffuse irradiance; on the 15 generated scorecard fleets 0.4–1.6 %,
+# median per fleet), dust lowers clear and cloudy days alike: a soiled interval must show
+# its decline on its clear days too (documented choice, measured: README Flags / Limits).
+
+
+def _mixed_interval(rate_clear, n=21, clear_every=2, cloudy_rate=-0.003):
+    """Noise-free 21-day interval: the clear days (every other day from day 0) on the line
+    0.97 (1 + rate_clear d), the cloudy days on 0.97 (1 + cloudy_rate d)."""
+    days = pd.date_range("2024-05-01", periods=n, freq="D")
+    d = np.arange(n)
+    clear = d % clear_every == 0
+    pi = pd.Series(0.97 * np.where(clear, 1 + rate_clear * d, 1 + cloudy_rate * d), index=days)
+    return pi, pd.Series(clear, index=days)
+
+
+@pytest.mark.parametrize("rate,soiled", [(-0.000399, False), (-0.0004 * (1 + 1e-9), True),
+                                         (-0.000401, True)])
+def test_clear_day_rate_boundary(rate, soiled):
+    # documented: with the site's clear days given, a soiled interval's clear days alone
+    # must show a Theil–Sen rate of at least the soiling minimum, 0.04 %/day (noise-free
+    # clear-day line, so its Theil–Sen rate is the line's: "at" is the threshold to 1e-9
+    # relative, as in test_min_soiling_rate_boundary)
+    pi, clear = _mixed_interval(rate)
+    # the premise: the interval of all days is soiling (cloudy days 0.3 %/day), checked
+    # without the clear days
+    assert bool(soiling_intervals(pi, [])["soiled"].iloc[0])
+    iv = soiling_intervals(pi, [], clear_days=clear)
+    assert bool(iv["soiled"].iloc[0]) == soiled
+    assert iv["clear_rate_per_day"].iloc[0] == pytest.approx(rate, rel=1e-9)
+
+
+@pytest.mark.parametrize("n_clear,soiled", [(2, True), (3, False), (4, False)])
+def test_min_clear_days_boundary(n_clear, soiled):
+    # documented: the clear-day check needs at least 3 clear days (with two, the Theil–Sen
+    # rate is one pair's slope); with fewer the verdict of all days stands. Clear days on a flat line (no soiling), the other days
+    # falling 0.2 %/day.
+    days = pd.date_range("2024-05-01", periods=21, freq="D")
+    d = np.arange(21)
+    at = [2, 10, 18, 6][:n_clear]
+    on = np.isin(d, at)
+    pi = pd.Series(0.97 * np.where(on, 1 - 0.002 * 2, 1 - 0.002 * d), index=days)
+    assert bool(soiling_intervals(pi, [])["soiled"].iloc[0])  # premise
+    iv = soiling_intervals(pi, [], clear_days=pd.Series(on, index=days))
+    assert bool(iv["soiled"].iloc[0]) == soiled
+
+
+@pytest.mark.parametrize("n_clear_of_4,clear", [(1, False), (2, True), (3, True)])
+def test_site_clear_days_share_boundary(n_clear_of_4, clear):
+    # documented: a site day is clear when at least half of the inverters with a verdict
+    # call it clear (the majority); an inverter without a verdict (NaN) is not counted
+    w = pd.DataFrame({f"I{k}": [k < n_clear_of_4] for k in range(4)},
+                     index=pd.date_range("2024-05-01", periods=1)).astype(float)
+    w["I4"] = np.nan
+    assert site_clear_days(w).tolist() == [clear]
+
+
+def test_overcast_week_closing_an_interval_is_not_soiling_but_soiling_under_clouds_is():
+    # issue #14 (quick suite, clean fleet of seed 201, no soiling): the site index as the
+    # flags job read it, 2022-08-30 .. 09-10 (4 digits; 08-28/29 invalid after a 5.8 mm
+    # rain), the clock check's clear days marked; the four clear days sit at 0.927-0.931,
+    # the seven cloudy days that close the interval 0.2-2.2 % lower. Theil-Sen of all days
+    # read it as -0.23 %/day, 2.7 % at the end (a false flag); its clear days alone are
+    # flat. Here a rain ends the interval on 09-10 (the job found a pi step there). The
+    # same days with true soiling of 0.2 %/day on every day, clear ones included, stay
+    # soiling.
+    days = pd.date_range("2022-08-28", periods=22, freq="D")
+    vals = [np.nan, np.nan, 0.9284, 0.9274, 0.9308, 0.9274, 0.9225, 0.9102, 0.9265, 0.9195,
+            0.9125, 0.9135, 0.9076, 0.9151, 0.9262, np.nan, 0.9277, 0.9267, 0.9261, 0.9252,
+            0.9270, 0.9258]
+    clear = pd.Series([False, False, True, True, True, True] + [False] * 8
+                      + [True, False] + [True] * 6, index=days)
+    rain = pd.Series(0.0, index=days)
+    rain[[days[0], days[13]]] = [5.8, 8.0]
+    h, e = pd.Series(7.0, index=days), pd.Series(1000.0, index=days)
+    t = np.where(days < days[13], np.arange(22), np.arange(22) - 13)
+    for rate, want in ((0.0, 0), (-0.002, 1)):
+        pi = pd.Series(np.array(vals) * (1 + rate * t), index=days)
+        before = soiling_flags(pi, h, e, rain_mm=rain, n_runs=0)
+        assert (before["kind"] == "soiling").sum() == 1  # the premise: all days say soiling
+        fl = soiling_flags(pi, h, e, rain_mm=rain, n_runs=0, clear_days=clear)
+        assert (fl["kind"] == "soiling").sum() == want
+
+
+def test_flags_job_passes_the_clock_checks_clear_days_to_soiling():
+    # heliaudit.jobs_flags.daily_flags with each inverter's clock-check days (column
+    # ``clear``): on the two-level fleet (-0.25 %/day on every day, hand calculation) every
+    # day clear keeps the three flags and their clear-day rate is the same -0.25 %/day; the
+    # check's effect on a cloudy interval is tested above on soiling_flags
+    from heliaudit.jobs_flags import daily_flags
+
+    wide, rain, days, _sr = _two_level_fleet()
+    rows = []
+    for dev in wide.columns:
+        for day, v in wide[dev].items():
+            rows.append(dict(device_id=dev, day=day.date(), day_valid=bool(np.isfinite(v)),
+                             pi=0.9 if not np.isfinite(v) else v, e_exp_kwh=125.0,
+                             h_poa_kwhm2=7.0, e_ac_kwh=100.0, e_exp_valid_kwh=125.0,
+                             avail_time=1.0, n_intervals=96))
+    daily = pd.DataFrame(rows)
+    inv = pd.DataFrame(dict(device_id=list(wide.columns),
+                            peer_group=[c[0] for c in wide.columns], poa_sensor_id="POA1"))
+    all_clear = {dev: pd.DataFrame({"delta_min": 0.0, "clear": True}, index=days)
+                 for dev in wide.columns}
+    out = daily_flags(daily, inv, std_offset_s=0, economics={}, rain_daily=rain, n_runs=0,
+                      clock_days=all_clear)
+    so = pd.concat(out, ignore_index=True).query("kind == 'soiling'")
+    assert len(so) == 3
+    assert all(dd["clear_day_rate_pct_per_day"] == pytest.approx(-0.25, abs=1e-9)
+               for dd in so["details"])

@@ -78,6 +78,8 @@ DOCUMENTED = [
     (("soiling", "rain_threshold_mm"), 5.0),
     (("soiling", "min_loss"), 0.01),
     (("soiling", "horizon_days"), 30),
+    (("soiling", "clear_share"), 0.5),
+    (("soiling", "min_clear_days"), 3),
     (("sensor", "p_ac_flat_min_frac"), 0.05),
     (("sensor", "p_ac_flat_limit_band_frac"), 0.01),
     (("sensor", "dropout_min_h"), 1.0),
