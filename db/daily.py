@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
-from db import schema
+from db import rowcols, schema
 from db.engine import is_sqlite
 
 #: Stored columns besides the key (device_pk, day) and computation_id.
@@ -150,19 +150,36 @@ def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None
     cur = conn.connection.cursor()
     try:
         cur.execute(sql, args)
-        out = pd.DataFrame.from_records(cur.fetchall(), columns=cols, coerce_float=True)
+        rows = cur.fetchall()
     finally:
         cur.close()
-    if len(out) and isinstance(out["day"].iloc[0], str):
-        out["day"] = pd.to_datetime(out["day"], format="%Y-%m-%d").dt.date
-    for c in VALUE_COLUMNS if columns is None else value_cols:
-        if c not in out:
-            out[c] = None
-        if c == "day_valid" or c in _TEXT_COLUMNS:
-            continue
-        out[c] = pd.to_numeric(out[c], errors="coerce").astype(
-            "int64" if c in _INT_COLUMNS else "float64")
-    if "day_valid" in out:
-        out["day_valid"] = out["day_valid"].astype(bool)
-    return out[["device_id", "day", *(VALUE_COLUMNS if columns is None else value_cols),
-                "computation_id"]]
+    out_cols = ["device_id", "day", *(VALUE_COLUMNS if columns is None else value_cols),
+                "computation_id"]
+    if not rows:
+        out = pd.DataFrame({c: pd.Series(dtype=object) for c in out_cols})
+        for c in out_cols[2:-1]:
+            if c in _INT_COLUMNS:
+                out[c] = out[c].astype("int64")
+            elif c == "day_valid":
+                out[c] = out[c].astype(bool)
+            elif c not in _TEXT_COLUMNS:
+                out[c] = out[c].astype("float64")
+        return out
+    # whole columns converted at once (db.rowcols): ~184 000 rows for 100 inverters x 5 years
+    got = dict(zip(cols, rowcols.columns(rows, len(cols)), strict=True))
+    data: dict[str, object] = {"device_id": pd.Series(got["device_id"]),
+                               "day": pd.Series(rowcols.dates(got["day"]), dtype=object)}
+    for c in out_cols[2:-1]:
+        v = got.get(c)
+        if v is None:  # a text column not read
+            data[c] = pd.Series(np.full(len(rows), None, dtype=object), dtype=object)
+        elif c == "day_valid":
+            data[c] = v.astype(bool)
+        elif c in _TEXT_COLUMNS:
+            data[c] = pd.Series(v)
+        elif c in _INT_COLUMNS:
+            data[c] = v.astype(np.int64)
+        else:
+            data[c] = rowcols.floats(v)
+    data["computation_id"] = pd.Series(got["computation_id"].tolist())
+    return pd.DataFrame(data)[out_cols]

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
-from db import schema
+from db import rowcols, schema
 from db.jsontext import to_json
 
 #: Stable flag kinds (issues #5, #14); other strings are refused.
@@ -157,8 +157,9 @@ def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
 def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataFrame:
     """The per-device daily inputs kept by the last flags run (``flag_day``): inverters'
     daily inputs and sensors' day judgements (arrays as numpy float arrays, None where
-    absent). With ``sensor_ids`` the other devices' rows are read without the sensor
-    columns (NULL for an inverter; half the values of a long history; issue #16)."""
+    absent), by device and day. With ``sensor_ids`` the other devices' rows are read without
+    the sensor columns (NULL for an inverter; half the values of a long history; issue #16).
+    Columns are converted whole (:mod:`db.rowcols`), not row by row."""
     ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
     inv_cols = DAY_COLUMNS[:6]
     with engine.connect() as conn:
@@ -168,29 +169,45 @@ def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataF
             if sensor_ids is None:
                 cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = "
                             f"{ph} ORDER BY device_id, day_no", [site_id])
-                rows = cur.fetchall()
+                got = [(cur.fetchall(), len(DAY_COLUMNS))]
             else:
                 ids = [str(i) for i in sensor_ids]
                 inl = ", ".join([ph] * len(ids)) if ids else "NULL"
-                pad = (None,) * (len(DAY_COLUMNS) - len(inv_cols))
                 cur.execute(f"SELECT {', '.join(inv_cols)} FROM flag_day WHERE site_id = {ph} "
                             f"AND device_id NOT IN ({inl})", [site_id, *ids])
-                rows = [r + pad for r in cur.fetchall()]
+                got = [(cur.fetchall(), len(inv_cols))]
                 if ids:
                     cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE "
                                 f"site_id = {ph} AND device_id IN ({inl})", [site_id, *ids])
-                    rows += [tuple(r) for r in cur.fetchall()]
-                rows.sort(key=lambda r: (r[0], r[1]))
+                    got.append((cur.fetchall(), len(DAY_COLUMNS)))
         finally:
             cur.close()
-    out = pd.DataFrame.from_records(rows, columns=list(DAY_COLUMNS), coerce_float=True)
+    # each query's rows as columns; the inverters' rows have no sensor columns (NULL)
+    cols: dict[str, list[np.ndarray]] = {c: [] for c in DAY_COLUMNS}
+    for rows, n_cols in got:
+        have = rowcols.columns(rows, n_cols)
+        for k, c in enumerate(DAY_COLUMNS):
+            cols[c].append(have[k] if k < n_cols else np.full(len(rows), None, dtype=object))
+    col = {c: np.concatenate(v) if len(v) > 1 else v[0] for c, v in cols.items()}
+    dev, day_no = col["device_id"], col["day_no"].astype(np.int64)
+    order = None
+    if sensor_ids is not None:  # by device (code-point order, as a Python sort) and day
+        codes, _u = pd.factorize(dev, sort=True)
+        order = np.lexsort((day_no, codes))
+    data = {"device_id": pd.Series(dev, dtype=None if len(dev) else object), "day_no": day_no}
     for c in _FLOAT_DAY_COLUMNS:
-        out[c] = pd.to_numeric(out[c], errors="coerce").astype(float)
+        data[c] = rowcols.floats(col[c])
+    data["clock_clear"] = pd.Series(rowcols.flags(col["clock_clear"]), dtype=object)
+    data["valid_reason"] = pd.Series(col["valid_reason"], dtype=None if len(dev) else object)
     for c in _ARRAY_DAY_COLUMNS:
-        out[c] = pd.Series([None if v is None else np.frombuffer(bytes(v), dtype="<f8")
-                            for v in out[c]], dtype=object)
-    out["day_no"] = out["day_no"].astype("int64")
-    out["clock_clear"] = pd.Series([_flag(v) for v in out["clock_clear"]], dtype=object)
+        v = np.full(len(dev), None, dtype=object)
+        blobs = col[c]
+        for k in np.flatnonzero(pd.notna(blobs)):  # sensors' days only
+            v[k] = np.frombuffer(bytes(blobs[k]), dtype="<f8")
+        data[c] = pd.Series(v, dtype=object)
+    out = pd.DataFrame({c: data[c] for c in DAY_COLUMNS})
+    if order is not None:
+        out = out.iloc[order].reset_index(drop=True)
     return out
 
 

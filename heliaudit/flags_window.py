@@ -109,7 +109,10 @@ def day_products(withheld: dict, soiling_pi: dict, clock_days: dict, *,
                  from_day: int | None = None, keep=()) -> pd.DataFrame:
     """One row per inverter and local day with the daily inputs of the whole-history
     detectors (the ``flag_day`` columns); ``clock_clear`` is None on days without an offset.
-    With ``from_day`` only days from it on (all days of the inverters in ``keep``)."""
+    With ``from_day`` only days from it on (all days of the inverters in ``keep``).
+
+    A row for every (inverter, day) any input has (a NaN value included); a day given twice
+    in one input keeps its first non-NaN value. Built on whole arrays (issue #16)."""
     if from_day is not None:
         cut = _day_ts(from_day)
 
@@ -118,34 +121,49 @@ def day_products(withheld: dict, soiling_pi: dict, clock_days: dict, *,
                     for d, x in src.items()}
 
         withheld, soiling_pi, clock_days = tail(withheld), tail(soiling_pi), tail(clock_days)
-    pieces = []
-    for name, src in (("withheld_kwh", withheld), ("soiling_pi", soiling_pi)):
-        for dev, x in src.items():
-            if x is not None and len(x):
-                pieces.append(pd.DataFrame({"device_id": dev, "day_no": _day_numbers(x.index),
-                                            "col": name, "v": x.to_numpy(float)}))
-    frames = [pd.concat(pieces, ignore_index=True).pivot_table(
-        index=["device_id", "day_no"], columns="col", values="v", aggfunc="first",
-        dropna=False)] if pieces else []
-    clocks = []
-    for dev, off in clock_days.items():
-        if len(off):
-            clocks.append(pd.DataFrame({"clock_delta_min": off["delta_min"].to_numpy(float),
-                                        "clock_clear": off["clear"].to_numpy(bool)},
-                                       index=pd.MultiIndex.from_arrays(
-                                           [np.full(len(off), dev, dtype=object),
-                                            _day_numbers(off.index)],
-                                           names=["device_id", "day_no"])))
-    if clocks:
-        frames.append(pd.concat(clocks))
     cols = ["device_id", "day_no", "soiling_pi", "withheld_kwh", "clock_delta_min", "clock_clear"]
-    if not frames:
+    srcs = {"withheld_kwh": {d: x for d, x in withheld.items() if x is not None and len(x)},
+            "soiling_pi": {d: x for d, x in soiling_pi.items() if x is not None and len(x)},
+            "clock": {d: x for d, x in clock_days.items() if x is not None and len(x)}}
+    devs = sorted({str(d) for s in srcs.values() for d in s})
+    if not devs:
         return pd.DataFrame(columns=cols)
-    out = frames[0] if len(frames) == 1 else frames[0].join(frames[1], how="outer")
-    out = out.reset_index().reindex(columns=cols)
-    out["clock_clear"] = pd.Series([None if v is None or v != v else bool(v)
-                                    for v in out["clock_clear"]], dtype=object)
-    return out.sort_values(["device_id", "day_no"], kind="stable").reset_index(drop=True)
+    code = {d: k for k, d in enumerate(devs)}  # code order = device order
+
+    def keys(src) -> np.ndarray:  # (device code, day number) as one sortable int64
+        if not src:
+            return np.empty(0, np.int64)
+        return np.concatenate([code[str(d)] * _KEY_DAYS + _day_numbers(x.index) + _KEY_DAYS // 2
+                               for d, x in src.items()])
+
+    def values(src, get) -> np.ndarray:
+        return np.concatenate([get(x) for x in src.values()]) if src else np.empty(0)
+
+    k = {n: keys(src) for n, src in srcs.items()}
+    key = np.unique(np.concatenate(list(k.values())))  # sorted: by device, then day
+    out = {"device_id": np.asarray(devs, dtype=object)[key // _KEY_DAYS],
+           "day_no": key % _KEY_DAYS - _KEY_DAYS // 2}
+    for n in ("soiling_pi", "withheld_kwh"):
+        v = values(srcs[n], lambda x: x.to_numpy(float))
+        out[n] = np.full(len(key), np.nan)
+        if len(v):  # the first non-NaN value of each key (pivot_table's "first")
+            o = np.lexsort((np.isnan(v), k[n]))
+            uk, first = np.unique(k[n][o], return_index=True)
+            out[n][np.searchsorted(key, uk)] = v[o][first]
+    delta = np.full(len(key), np.nan)
+    clear = np.full(len(key), None, dtype=object)
+    if srcs["clock"]:
+        at = np.searchsorted(key, k["clock"])
+        delta[at] = values(srcs["clock"], lambda x: x["delta_min"].to_numpy(float))
+        clear[at] = values(srcs["clock"], lambda x: x["clear"].to_numpy(bool)).astype(object)
+    out["clock_delta_min"], out["clock_clear"] = delta, clear
+    res = pd.DataFrame({c: out[c] for c in cols})
+    res["clock_clear"] = res["clock_clear"].astype(object)
+    return res
+
+
+#: Day numbers per device code in :func:`day_products`' row keys (days from 1970 +- 2**31).
+_KEY_DAYS = 1 << 32
 
 
 def sensor_day_rows(products: dict) -> pd.DataFrame:
@@ -266,7 +284,7 @@ class Prior:
         parts = [self.parts] if len(self.parts) else []
         parts += [k for k in (self.keep_new(p) for p in inv_parts if len(p)) if len(k)]
         cut = _day_ts(self.cut_day)
-        by_dev = {dev: g for dev, g in self.days.groupby("device_id")}
+        by_dev = self._stored_by_device()
 
         def join(stored, window):
             if window is not None and len(window):
@@ -281,21 +299,37 @@ class Prior:
                     if dev in src:
                         out[dev] = src[dev]
                 continue
-            g = by_dev.get(dev)
-            sw = ss = sc = None
-            if g is not None:
-                idx = pd.to_datetime(g["day_no"].to_numpy(np.int64) * 86400, unit="s")
-                w = g["withheld_kwh"].notna().to_numpy()
-                sw = pd.Series(g["withheld_kwh"].to_numpy(float)[w], index=idx[w]) if w.any() else None
-                s = g["soiling_pi"].notna().to_numpy()
-                ss = pd.Series(g["soiling_pi"].to_numpy(float)[s], index=idx[s])
-                c = g["clock_clear"].notna().to_numpy()
-                sc = pd.DataFrame({"delta_min": g["clock_delta_min"].to_numpy(float)[c],
-                                   "clear": g["clock_clear"].to_numpy()[c].astype(bool)},
-                                  index=idx[c])
+            sw, ss, sc = by_dev.get(dev, (None, None, None))
             for out, stored, src in ((out_w, sw, withheld), (out_s, ss, soiling_pi),
                                      (out_c, sc, clock_days)):
                 got = join(stored, src.get(dev))
                 if got is not None:
                     out[dev] = got
         return parts, out_w, out_s, out_c
+
+    def _stored_by_device(self) -> dict:
+        """Inverter id -> its stored (withheld, soiling index, clock offsets) before the cut
+        day, each None when it has no value: slices of whole columns (issue #16)."""
+        d = self.days
+        if not len(d):
+            return {}
+        codes, devs = pd.factorize(d["device_id"].to_numpy(object), sort=True)
+        order = np.argsort(codes, kind="stable")
+        bounds = np.searchsorted(codes[order], np.arange(len(devs) + 1))
+        idx = pd.to_datetime(d["day_no"].to_numpy(np.int64)[order] * 86400, unit="s")
+        w = d["withheld_kwh"].to_numpy(float)[order]
+        s = d["soiling_pi"].to_numpy(float)[order]
+        delta = d["clock_delta_min"].to_numpy(float)[order]
+        clear = d["clock_clear"].to_numpy(object)[order]
+        has_w, has_s, has_c = ~np.isnan(w), ~np.isnan(s), pd.notna(clear)
+        out = {}
+        for k, dev in enumerate(devs):
+            sl = slice(bounds[k], bounds[k + 1])
+            mw, ms, mc = has_w[sl], has_s[sl], has_c[sl]
+            i = idx[sl]
+            out[dev] = (
+                pd.Series(w[sl][mw], index=i[mw]) if mw.any() else None,
+                pd.Series(s[sl][ms], index=i[ms]) if ms.any() else None,
+                pd.DataFrame({"delta_min": delta[sl][mc], "clear": clear[sl][mc].astype(bool)},
+                             index=i[mc]) if mc.any() else None)
+        return out
