@@ -199,6 +199,11 @@ def _dst_dates(zone: str | None, first, last) -> list[pd.Timestamp]:
     return [pd.Timestamp(local[i].date()) for i in ch]
 
 
+def _first_at(days: pd.DatetimeIndex, day) -> int:
+    """Position of the first ``day`` in ``days`` (as ``list.index``)."""
+    return int(np.flatnonzero(days == day)[0])
+
+
 def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: float = 10.0,
                       n_clear: int = 7, min_clear_days: int = 4, std_offset_s: int = 0,
                       site_zone: str | None = None, source_name: str | None = None,
@@ -234,14 +239,14 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
     level_jump = med.diff().abs() > threshold_min
     seg_id = ((shifted != shifted.shift()) | level_jump).cumsum()
     all_delta = offsets["delta_min"]
-    days = list(clear.index)
+    days = clear.index  # not a list: 1 800 Timestamps per inverter-history (issue #16)
     records = []
     for _sid, grp in clear.groupby(seg_id):
         if not shifted[grp.index[0]] or len(grp) < min_clear_days:
             continue
         level = float(np.median(grp))
         first, last = grp.index[0], grp.index[-1]
-        i0, i1 = days.index(first), days.index(last)
+        i0, i1 = _first_at(days, first), _first_at(days, last)
         prev_day = days[i0 - 1] if i0 > 0 else None
         next_day = days[i1 + 1] if i1 + 1 < len(days) else None
         before = float(np.median(clear[:prev_day].tail(n_clear))) if prev_day is not None else 0.0

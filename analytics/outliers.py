@@ -24,7 +24,6 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 #: Columns of every flag frame the detectors return (``details`` is a dict).
 FLAG_COLUMNS = ("device_id", "kind", "start_s", "end_s", "severity", "lost_kwh", "details")
@@ -37,6 +36,8 @@ FIELD_CAUTION = (
 
 #: sqrt(pi/2): mean absolute deviation -> standard deviation for normal data (E|X − μ| = σ·√(2/π) for a normal distribution).
 MEAN_AD_TO_SIGMA = 1.253314
+#: Φ⁻¹(0.75): MAD / this estimates σ for normal data (scipy's ``scale="normal"`` [2]).
+NORMAL_MAD_SCALE = 0.6744897501960817
 
 
 def flag_frame(records: list[dict]) -> pd.DataFrame:
@@ -117,8 +118,10 @@ def robust_z(x, axis=None, *, mad_zero_fallback: bool = True):
         # result, not something for the user (numpy RuntimeWarning, scipy SmallSampleWarning)
         warnings.simplefilter("ignore", RuntimeWarning)
         med = np.nanmedian(a, axis=axis, keepdims=True)
-        mad = stats.median_abs_deviation(a, axis=axis, scale="normal", nan_policy="omit")
-        mad = np.asarray(mad, dtype=float)
+        # scipy.stats.median_abs_deviation(scale="normal", nan_policy="omit") [2], whole
+        # rows at once: scipy takes NaN-holding rows one by one (a fleet's 1 800 days, #16)
+        mad = np.asarray(np.nanmedian(np.abs(a - med), axis=axis) / NORMAL_MAD_SCALE,
+                         dtype=float)
         mad = mad.reshape(med.shape) if mad.ndim else np.full(med.shape, float(mad))
         if mad_zero_fallback:
             mean_ad = MEAN_AD_TO_SIGMA * np.nanmean(np.abs(a - med), axis=axis, keepdims=True)

@@ -111,8 +111,9 @@ def day_products(withheld: dict, soiling_pi: dict, clock_days: dict, *,
     detectors (the ``flag_day`` columns); ``clock_clear`` is None on days without an offset.
     With ``from_day`` only days from it on (all days of the inverters in ``keep``).
 
-    A row for every (inverter, day) any input has (a NaN value included); a day given twice
-    in one input keeps its first non-NaN value. Built on whole arrays (issue #16)."""
+    Rows: every inverter with a withheld energy or soiling index on every day any of them
+    has one (NaN where it has none), and every day with a clock offset; a day given twice in
+    one input keeps its first non-NaN value. Built on whole arrays (issue #16)."""
     if from_day is not None:
         cut = _day_ts(from_day)
 
@@ -140,7 +141,13 @@ def day_products(withheld: dict, soiling_pi: dict, clock_days: dict, *,
         return np.concatenate([get(x) for x in src.values()]) if src else np.empty(0)
 
     k = {n: keys(src) for n, src in srcs.items()}
-    key = np.unique(np.concatenate(list(k.values())))  # sorted: by device, then day
+    # the withheld energy and soiling index: every device with either, on every day any of
+    # them has (the cartesian product pandas' pivot_table(dropna=False) gave before), then
+    # the clock days
+    ws = np.concatenate([k["withheld_kwh"], k["soiling_pi"]])
+    grid = (np.unique(ws // _KEY_DAYS)[:, None] * _KEY_DAYS
+            + np.unique(ws % _KEY_DAYS)[None, :]).ravel()
+    key = np.unique(np.concatenate([grid, k["clock"]]))  # sorted: by device, then day
     out = {"device_id": np.asarray(devs, dtype=object)[key // _KEY_DAYS],
            "day_no": key % _KEY_DAYS - _KEY_DAYS // 2}
     for n in ("soiling_pi", "withheld_kwh"):
