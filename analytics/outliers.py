@@ -201,30 +201,39 @@ def persistent_low_events(low: pd.Series, valid: pd.Series, *, window: int = 5,
     """
     idx = low.index[valid.to_numpy(bool)]
     lo = low.to_numpy(bool)[valid.to_numpy(bool)]
-    events, recent = [], []
-    open_start = last_low = None
-    n_low = normal_run = 0
-    for i, is_low in enumerate(lo):
-        recent.append(i)
-        if len(recent) > window:
-            recent.pop(0)
-        if open_start is None:
-            if is_low and sum(lo[j] for j in recent) >= k_required:
-                first = next(j for j in recent if lo[j])
-                open_start, last_low = idx[first], idx[i]
-                n_low, normal_run = int(sum(lo[j] for j in recent)), 0
-        else:
-            if is_low:
-                last_low, normal_run = idx[i], 0
-                n_low += 1
-            else:
-                normal_run += 1
-                if normal_run >= clear_days:
-                    events.append((open_start, last_low, n_low))
-                    open_start, recent = None, []
-    if open_start is not None:
-        events.append((open_start, last_low, n_low))
-    return events
+    # The rule walked day by day, but jumping between the days where the state can change
+    # (issue #16: a fleet's whole history is 100 x 1 800 days; most days are normal).
+    n = len(lo)
+    n_lows = np.concatenate([[0], np.cumsum(lo)])  # lows before each position
+    lows = np.flatnonzero(lo)
+    # consecutive normal days ending at each position
+    pos = np.arange(n)
+    last_low_at = np.maximum.accumulate(np.where(lo, pos, -1)) if n else pos
+    closes = np.flatnonzero(pos - last_low_at >= clear_days)  # >= clear_days normal days
+    events = []
+    start = 0  # days before it do not count towards opening (after a closed event)
+    while True:
+        # closed: the first low day i whose recent days (at most `window`, none before
+        # `start`) hold >= k_required lows
+        i = None
+        for c in lows[np.searchsorted(lows, start):]:
+            first = max(start, c - window + 1)
+            if n_lows[c + 1] - n_lows[first] >= k_required:
+                i = int(c)
+                break
+        if i is None:
+            return events
+        first = max(start, i - window + 1)
+        f = int(lows[np.searchsorted(lows, first)])
+        n_recent = int(n_lows[i + 1] - n_lows[first])
+        # open: closes on the first day with clear_days normal days all after day i
+        k = np.searchsorted(closes, i + clear_days)
+        end = int(closes[k]) if k < len(closes) else n - 1
+        last = int(lows[np.searchsorted(lows, end, side="right") - 1])
+        events.append((idx[f], idx[last], n_recent + int(n_lows[end + 1] - n_lows[i + 1])))
+        if k >= len(closes):
+            return events
+        start = end + 1
 
 
 def _merge_close_events(events: list[tuple], gap_days: int) -> list[tuple]:
@@ -236,6 +245,30 @@ def _merge_close_events(events: list[tuple], gap_days: int) -> list[tuple]:
         else:
             out.append((first, last, n_low))
     return out
+
+
+def _wide_by_day(d: pd.DataFrame, values: list[str]) -> list[pd.DataFrame]:
+    """Each of ``values`` as a day x device table (rows sorted by day, columns by device):
+    ``pivot_table(index="day", columns="device_id", aggfunc="first", dropna=False)``. One
+    row per device and day is placed directly (a fleet's whole history, issue #16); other
+    tables go through ``pivot_table``."""
+    day, dev = d["day"], d["device_id"]
+    if len(d) and not (day.isna().any() or dev.isna().any()):
+        dc, days = pd.factorize(day, sort=True)
+        vc, devs = pd.factorize(dev, sort=True)
+        cell = dc.astype(np.int64) * len(devs) + vc
+        if np.bincount(cell, minlength=1).max() <= 1:  # one row per device and day
+            out = []
+            for v in values:
+                a = np.full(len(days) * len(devs), np.nan)
+                a[cell] = d[v].to_numpy(float)
+                out.append(pd.DataFrame(a.reshape(len(days), len(devs)),
+                                        index=pd.Index(days, name="day"),
+                                        columns=pd.Index(list(devs), name="device_id")))
+            return out
+    wide = [d.pivot_table(index="day", columns="device_id", values=v, aggfunc="first",
+                          dropna=False).sort_index() for v in values]
+    return [wide[0], *(w.reindex_like(wide[0]) for w in wide[1:])]
 
 
 def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = None,
@@ -292,10 +325,7 @@ def underperformance_flags(daily: pd.DataFrame, *, peer_group: dict | None = Non
         raise ValueError(f"daily table lacks columns {sorted(missing)}")
     d = daily.copy()
     d["pi_v"] = d["pi"].where(d["day_valid"].astype(bool))
-    pi_wide = d.pivot_table(index="day", columns="device_id", values="pi_v", aggfunc="first",
-                            dropna=False).sort_index()
-    e_exp = d.pivot_table(index="day", columns="device_id", values="e_exp_kwh",
-                          aggfunc="first", dropna=False).reindex_like(pi_wide)
+    pi_wide, e_exp = _wide_by_day(d, ["pi_v", "e_exp_kwh"])
     groups = peer_group or {c: "site" for c in pi_wide.columns}
     records = []
     for _g, cols in pd.Series(groups).groupby(pd.Series(groups)):
