@@ -895,7 +895,14 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
         by_id[e[0]] = (e[1], e[2].iloc[order])
         given = e[3] if len(e) > 3 and e[3] is not None else np.full(len(e[2]), np.nan)
         iv_of[e[0]] = np.asarray(given, dtype=float)[order]
-    yields = _yield_by_sensor(daily, inverters)
+    # each daily row's day as UTC s of its midnight: a sensor is judged on the days of its
+    # readings (its insolation h), so only those days of the daily table are taken (an
+    # incremental run reads a window; issue #16). Per-day results are unchanged by it.
+    if len(daily):
+        codes, uniq = pd.factorize(daily["day"])
+        daily_day_s = pd.DatetimeIndex(pd.to_datetime(uniq)).as_unit("s").asi8[codes]
+    else:
+        daily_day_s = np.empty(0, np.int64)
     invalid: dict = {}
     flags: list[pd.DataFrame] = []
     for sid, (q, x) in by_id.items():
@@ -911,8 +918,10 @@ def judge_sensors(sensors, grid_sun_for, inverters: pd.DataFrame, daily: pd.Data
         h = daily_insolation(x, std_offset_s, iv)
         cov = clear_sky_coverage(x, s["poa_cs"].to_numpy(), iv, grid_sun_for, sid,
                                  std_offset_s)
-        low = _low_vs_yield(h, yields.get(sid), coverage=cov)
-        high = high_vs_power_by_sensor({sid: h}, daily, _in_plane_of(
+        on_days = daily.iloc[:0] if h.empty else daily[
+            np.isin(daily_day_s, pd.DatetimeIndex(h.index).as_unit("s").asi8)]
+        low = _low_vs_yield(h, _yield_by_sensor(on_days, inverters).get(sid), coverage=cov)
+        high = high_vs_power_by_sensor({sid: h}, on_days, _in_plane_of(
             inverters, planes.get(sid, "site"), site)).get(sid, pd.Series(dtype=bool))
         for reason, m in (("low_vs_power", low), ("high_vs_power", high)):
             if len(m):
