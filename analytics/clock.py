@@ -236,6 +236,8 @@ def clock_shift_flags(offsets: pd.DataFrame, *, device_id: str, threshold_min: f
         return flag_frame([])
     med = clear.rolling(n_clear, center=True, min_periods=min(4, n_clear)).median()
     shifted = med.abs() > threshold_min
+    if not shifted.any():  # no segment to flag (most inverters, most of the time)
+        return flag_frame([])
     level_jump = med.diff().abs() > threshold_min
     seg_id = ((shifted != shifted.shift()) | level_jump).cumsum()
     all_delta = offsets["delta_min"]
