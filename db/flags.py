@@ -155,20 +155,24 @@ def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
 
 
 def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataFrame:
-    """The per-device daily inputs kept by the last flags run (``flag_day``): inverters'
-    daily inputs and sensors' day judgements (arrays as numpy float arrays, None where
-    absent), by device and day. With ``sensor_ids`` the other devices' rows are read without
-    the sensor columns (NULL for an inverter; half the values of a long history; issue #16).
-    Columns are converted whole (:mod:`db.rowcols`), not row by row."""
+    """The per-device daily inputs kept by the last flags run: the inverters' daily inputs
+    (``flag_day_pack``, and any ``flag_day`` rows of a store not yet migrated) and the
+    sensors' day judgements (``flag_day``; arrays as numpy float arrays, None where absent),
+    one row per device and day, by device (code-point order) and day. With ``sensor_ids``
+    the other devices' ``flag_day`` rows are read without the sensor columns (NULL for an
+    inverter; issue #16). Columns are built whole (:mod:`db.rowcols`), not row by row."""
     ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
     inv_cols = DAY_COLUMNS[:6]
     with engine.connect() as conn:
-        # raw DBAPI cursor: a 100-inverter site keeps ~37 000 rows a year
+        # raw DBAPI cursor: a 100-inverter site keeps ~37 000 days a year
         cur = conn.connection.cursor()
         try:
+            cur.execute(f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
+                        f"flag_day_pack WHERE site_id = {ph}", [site_id])
+            packs = cur.fetchall()
             if sensor_ids is None:
                 cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = "
-                            f"{ph} ORDER BY device_id, day_no", [site_id])
+                            f"{ph}", [site_id])
                 got = [(cur.fetchall(), len(DAY_COLUMNS))]
             else:
                 ids = [str(i) for i in sensor_ids]
@@ -182,32 +186,93 @@ def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataF
                     got.append((cur.fetchall(), len(DAY_COLUMNS)))
         finally:
             cur.close()
-    # each query's rows as columns; the inverters' rows have no sensor columns (NULL)
+    # each source as whole columns; columns a source lacks are NULL
     cols: dict[str, list[np.ndarray]] = {c: [] for c in DAY_COLUMNS}
     for rows, n_cols in got:
         have = rowcols.columns(rows, n_cols)
         for k, c in enumerate(DAY_COLUMNS):
             cols[c].append(have[k] if k < n_cols else np.full(len(rows), None, dtype=object))
-    col = {c: np.concatenate(v) if len(v) > 1 else v[0] for c, v in cols.items()}
+    n_rows = sum(len(r) for r, _n in got)
+    col = {c: np.concatenate(v) for c, v in cols.items()}
+    fl = {c: rowcols.floats(col[c]) for c in _FLOAT_DAY_COLUMNS}
+    clear = rowcols.flags(col["clock_clear"])
     dev, day_no = col["device_id"], col["day_no"].astype(np.int64)
-    order = None
-    if sensor_ids is not None:  # by device (code-point order, as a Python sort) and day
-        codes, _u = pd.factorize(dev, sort=True)
-        order = np.lexsort((day_no, codes))
-    data = {"device_id": pd.Series(dev, dtype=None if len(dev) else object), "day_no": day_no}
-    for c in _FLOAT_DAY_COLUMNS:
-        data[c] = rowcols.floats(col[c])
-    data["clock_clear"] = pd.Series(rowcols.flags(col["clock_clear"]), dtype=object)
-    data["valid_reason"] = pd.Series(col["valid_reason"], dtype=None if len(dev) else object)
+    if packs:  # the inverters' packed days, after the rows
+        unpacked = _unpack_days(packs)
+        n_p = len(unpacked["day_no"])
+        dev = np.concatenate([dev, unpacked["device_id"]])
+        day_no = np.concatenate([day_no, unpacked["day_no"]])
+        for c in _FLOAT_DAY_COLUMNS:
+            fl[c] = np.concatenate([fl[c], unpacked[c] if c in unpacked else np.full(n_p, np.nan)])
+        clear = np.concatenate([clear, unpacked["clock_clear"]])
+        for c in ("valid_reason", *_ARRAY_DAY_COLUMNS):
+            col[c] = np.concatenate([col[c], np.full(n_p, None, dtype=object)])
+    n = len(day_no)
+    data = {"device_id": pd.Series(dev, dtype=None if n else object), "day_no": day_no, **fl,
+            "clock_clear": pd.Series(clear, dtype=object),
+            "valid_reason": pd.Series(col["valid_reason"], dtype=None if n else object)}
     for c in _ARRAY_DAY_COLUMNS:
-        v = np.full(len(dev), None, dtype=object)
+        v = np.full(n, None, dtype=object)
         blobs = col[c]
-        for k in np.flatnonzero(pd.notna(blobs)):  # sensors' days only
+        for k in np.flatnonzero(pd.notna(blobs[:n_rows])):  # sensors' days only
             v[k] = np.frombuffer(bytes(blobs[k]), dtype="<f8")
         data[c] = pd.Series(v, dtype=object)
     out = pd.DataFrame({c: data[c] for c in DAY_COLUMNS})
-    if order is not None:
-        out = out.iloc[order].reset_index(drop=True)
+    if n:  # by device (code-point order, as a Python sort) and day
+        codes, _u = pd.factorize(dev, sort=True)
+        order = np.lexsort((day_no, codes))
+        if (np.diff(order) != 1).any():
+            out = out.iloc[order].reset_index(drop=True)
+    return out
+
+
+#: flag_day columns kept per inverter in flag_day_pack (store v8), and the packed columns.
+PACK_COLUMNS = ("day_no", "soiling_pi", "withheld_kwh", "clock_delta_min", "clock_clear")
+_PACK_BLOBS = tuple(f"{c}_blob" for c in PACK_COLUMNS)
+_PACK_DTYPES = {"day_no": "<i4", "soiling_pi": "<f8", "withheld_kwh": "<f8",
+                "clock_delta_min": "<f8", "clock_clear": "<i1"}
+_CLEAR_OF_CODE = np.array([None, False, True], dtype=object)  # code + 1 -> flag
+
+
+def pack_days(device_days: pd.DataFrame) -> dict:
+    """One inverter's daily inputs (``day_no`` and the flag_day inverter columns, days
+    unique) as a ``flag_day_pack`` row without its key: arrays sorted by day, non-finite
+    numbers as NaN (NULL in flag_day), ``clock_clear`` as 1 / 0 / -1 (none)."""
+    d = device_days
+    day = d["day_no"].to_numpy(np.int64)
+    order = np.argsort(day, kind="stable")
+    day = day[order]
+    if len(day) and (np.diff(day) == 0).any():
+        raise ValueError(f"flag_day_pack: day {int(day[np.flatnonzero(np.diff(day) == 0)[0]])} "
+                         "given twice for one device")
+    if len(day) and (day.min() < -2**31 or day.max() >= 2**31):
+        raise ValueError("flag_day_pack: day number out of the 32-bit range")
+    n = len(d)
+    out = {"n_days": n, "day_no_blob": day.astype("<i4").tobytes()}
+    for c in PACK_COLUMNS[1:4]:
+        v = (pd.to_numeric(d[c], errors="coerce").to_numpy(float) if c in d
+             else np.full(n, np.nan))[order]
+        out[f"{c}_blob"] = np.where(np.isfinite(v), v, np.nan).astype("<f8").tobytes()
+    clear = rowcols.flags(d["clock_clear"].to_numpy(object) if "clock_clear" in d
+                          else np.full(n, None, dtype=object))[order]
+    code = np.full(n, -1, dtype=np.int8)
+    have = clear != None  # noqa: E711 - elementwise on an object array
+    code[have] = clear[have].astype(bool).astype(np.int8)
+    out["clock_clear_blob"] = code.astype("<i1").tobytes()
+    return out
+
+
+def _unpack_days(packs: list) -> dict:
+    """Fetched ``(device_id, n_days, *blobs)`` rows as whole columns of all their days."""
+    n = np.array([int(r[1]) for r in packs], dtype=np.int64)
+    out = {"device_id": np.repeat(np.array([str(r[0]) for r in packs], dtype=object), n)}
+    for k, c in enumerate(PACK_COLUMNS):
+        a = np.concatenate([np.frombuffer(bytes(r[2 + k]), dtype=_PACK_DTYPES[c])
+                            for r in packs])
+        if len(a) != n.sum():
+            raise ValueError(f"flag_day_pack: {c} holds {len(a)} values for {n.sum()} days")
+        out[c] = a.astype(np.int64) if c == "day_no" else (
+            _CLEAR_OF_CODE[a.astype(np.int64) + 1] if c == "clock_clear" else a.astype(float))
     return out
 
 
@@ -220,17 +285,23 @@ def store_flags(conn: sa.Connection, site_id: str, flags_df: pd.DataFrame,
 
     Flags: only what changed is replaced (a flag identical to a stored one keeps its row and
     id), so after an incremental run the table holds exactly the flags of this run.
-    ``flag_part`` rows starting at or after ``cut_s`` and ``flag_day`` rows from ``cut_day``
-    on (everything when None; every row of ``full_devices``) are replaced by ``parts`` and
-    ``days``. Returns ``{"flags", "inserted", "deleted"}``. Raises ``ValueError`` (nothing
-    written) on an unknown kind or severity or an end before the start.
+    ``flag_part`` rows starting at or after ``cut_s`` and the daily inputs from ``cut_day``
+    on (everything when None; every day of ``full_devices``) are replaced by ``parts`` and
+    ``days``: a sensor's days as ``flag_day`` rows, every other device's packed in its
+    ``flag_day_pack`` row (store v8). Returns ``{"flags", "inserted", "deleted"}``. Raises
+    ``ValueError`` (nothing written) on an unknown kind or severity, an end before the
+    start, or a day given twice for one inverter.
     """
     rows = _rows(site_id, flags_df, computation_id)
     part_rows = [{k: v for k, v in r.items() if k != "computation_id"}
                  for r in _rows(site_id, parts, None)]
     t, tp, td = schema.flag, schema.flag_part, schema.flag_day
-    day_rows = _day_tuples(site_id, days)
+    sensors = _sensor_ids(conn, site_id)
+    is_sensor = days["device_id"].astype(str).isin(sensors).to_numpy(bool) if len(days) \
+        else np.zeros(0, bool)
+    day_rows = _day_tuples(site_id, days[is_sensor])
     full_devices = [str(d) for d in full_devices]
+    _store_packs(conn, site_id, days[~is_sensor], cut_day, set(full_devices))
     have = conn.execute(sa.select(t.c.flag_id, t.c.device_id, t.c.kind, t.c.start_s,
                                   t.c.end_s, t.c.severity, t.c.lost_kwh, t.c.details_json)
                         .where(t.c.site_id == site_id)).mappings().all()
@@ -272,6 +343,57 @@ def store_flags(conn: sa.Connection, site_id: str, flags_df: pd.DataFrame,
         else:
             conn.execute(td.insert(), [dict(zip(cols, r, strict=True)) for r in day_rows])
     return {"flags": len(rows), "inserted": len(new), "deleted": len(gone)}
+
+
+def _sensor_ids(conn: sa.Connection, site_id: str) -> set[str]:
+    """The site's sensors: their daily judgements are kept as ``flag_day`` rows."""
+    d, sn = schema.device, schema.sensor
+    return {r[0] for r in conn.execute(
+        sa.select(d.c.device_id).join(sn, sn.c.device_pk == d.c.device_pk)
+        .where(d.c.site_id == site_id))}
+
+
+def _store_packs(conn: sa.Connection, site_id: str, days: pd.DataFrame,
+                 cut_day: int | None, full_devices: set) -> None:
+    """Replace the packed days from ``cut_day`` on (all of them when None, and all of each
+    device in ``full_devices``) by ``days`` (one row per inverter and day)."""
+    t = schema.flag_day_pack
+    new = {str(dev): g for dev, g in days.groupby("device_id", sort=False)} if len(days) else {}
+    if cut_day is None:
+        conn.execute(t.delete().where(t.c.site_id == site_id))
+        out = {dev: pack_days(g) for dev, g in new.items()}
+    else:
+        have = conn.execute(sa.select(t.c.device_id, t.c.n_days, *(t.c[b] for b in _PACK_BLOBS))
+                            .where(t.c.site_id == site_id)).all()
+        out = {}
+        for r in have:
+            dev = str(r[0])
+            days_old = np.frombuffer(bytes(r[2]), dtype="<i4")
+            k = 0 if dev in full_devices else int(np.searchsorted(days_old, int(cut_day)))
+            g = new.pop(dev, None)
+            if g is not None and k and g["day_no"].to_numpy(np.int64).min() < int(cut_day):
+                # a new day before the cut (not what a flags run gives): merge day by day
+                old = _unpack_days([r])
+                kept = pd.DataFrame({c: old[c][:k] for c in PACK_COLUMNS})
+                out[dev] = pack_days(pd.concat([kept, g.reindex(columns=list(PACK_COLUMNS))],
+                                               ignore_index=True))
+                continue
+            if g is None and k == int(r[1]):
+                continue  # unchanged: nothing from the cut on, none new
+            tail = pack_days(g) if g is not None else None
+            width = {c: np.dtype(_PACK_DTYPES[c]).itemsize for c in PACK_COLUMNS}
+            out[dev] = {"n_days": k + (tail["n_days"] if tail else 0),
+                        **{b: bytes(r[2 + j])[:k * width[c]] + (tail[b] if tail else b"")
+                           for j, (c, b) in enumerate(zip(PACK_COLUMNS, _PACK_BLOBS,
+                                                          strict=True))}}
+        out.update({dev: pack_days(g) for dev, g in new.items()})  # inverters new to the store
+        ids = list(out)
+        for k in range(0, len(ids), 500):
+            conn.execute(t.delete().where(t.c.site_id == site_id,
+                                          t.c.device_id.in_(ids[k:k + 500])))
+    rows = [{"site_id": site_id, "device_id": dev, **p} for dev, p in out.items() if p["n_days"]]
+    if rows:
+        conn.execute(t.insert(), rows)
 
 
 def _day_tuples(site_id: str, days: pd.DataFrame) -> list[tuple]:

@@ -13,11 +13,13 @@ import hashlib
 from collections.abc import Callable
 
 import numpy as np
+import pandas as pd
 import sqlalchemy as sa
 
 from db import daypack, readings, schema
 from db.computations import now_utc
 from db.engine import write_lock
+from db.flags import PACK_COLUMNS, pack_days
 
 
 class SchemaTooNewError(RuntimeError):
@@ -211,6 +213,36 @@ def _v7_sensor_days(conn: sa.Connection) -> str:
 
 
 STEPS[7] = _v7_sensor_days
+
+
+def _v8_packed_flag_days(conn: sa.Connection) -> str:
+    """The inverters' daily flag inputs move from flag_day rows to one packed row per
+    inverter in flag_day_pack (#16); sensors' days stay in flag_day."""
+    schema.flag_day_pack.create(conn, checkfirst=True)
+    if not sa.inspect(conn).has_table("flag_day"):
+        return "no flag_day table yet"
+    td, d, sn = schema.flag_day, schema.device, schema.sensor
+    # a row of a device that is not one of its site's sensors
+    inverter_rows = ~sa.exists(
+        sa.select(d.c.device_pk).join(sn, sn.c.device_pk == d.c.device_pk)
+        .where(d.c.site_id == td.c.site_id, d.c.device_id == td.c.device_id))
+    rows = conn.execute(sa.select(td.c.site_id, td.c.device_id, *(td.c[c] for c in PACK_COLUMNS))
+                        .where(inverter_rows)
+                        .order_by(td.c.site_id, td.c.device_id, td.c.day_no)).all()
+    if not rows:
+        return "moved 0 days"
+    frame = pd.DataFrame(rows, columns=["site_id", "device_id", *PACK_COLUMNS])
+    packs = []
+    for (site, dev), g in frame.groupby(["site_id", "device_id"], sort=False):
+        packs.append({"site_id": site, "device_id": dev, **pack_days(g)})
+    if sum(p["n_days"] for p in packs) != len(frame):
+        raise MigrationError("flag_day_pack: packed day count differs from the rows moved")
+    conn.execute(schema.flag_day_pack.insert(), packs)
+    conn.execute(td.delete().where(inverter_rows))
+    return f"moved {len(frame)} days of {len(packs)} inverters"
+
+
+STEPS[8] = _v8_packed_flag_days
 
 
 def current_version(conn: sa.Connection) -> int | None:

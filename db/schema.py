@@ -14,11 +14,12 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 7  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+SCHEMA_VERSION = 8  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
 #                    4: reading.interval_s, channel.sampling/input_id (#11);
 #                    5: site model: daily bases, optional commissioning/module sensor (#11);
 #                    6: readings packed per channel and UTC day, table reading_day (#16);
-#                    7: per-day sensor judgements in flag_day (#16)
+#                    7: per-day sensor judgements in flag_day (#16);
+#                    8: inverters' daily flag inputs packed per device, flag_day_pack (#16)
 
 metadata = sa.MetaData()
 
@@ -260,6 +261,21 @@ flag_day = sa.Table(
     sa.Column("rain_mm", sa.Float),  # daily rain
     sa.Column("amb_night_c", sa.LargeBinary),  # ambient check: T_amb - T_mod at night (<f8)
     sa.Column("amb_day_c", sa.LargeBinary),  # ambient check: T_mod - T_model in full sun (<f8)
+)
+# flag_day_pack (v8): the inverters' daily inputs (the first four value columns of flag_day),
+# one row per inverter with its days as packed arrays (db.flags), as reading_day packs
+# readings: an incremental run reads a whole history of 100 inverters as 100 rows instead of
+# ~180 000 (issue #16). Sensors' days stay in flag_day, one row per day.
+flag_day_pack = sa.Table(
+    "flag_day_pack", metadata,
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), primary_key=True),
+    sa.Column("device_id", sa.String(64), primary_key=True),
+    sa.Column("n_days", sa.Integer, nullable=False),
+    sa.Column("day_no_blob", sa.LargeBinary, nullable=False),  # <i4, ascending
+    sa.Column("soiling_pi_blob", sa.LargeBinary, nullable=False),  # <f8, NaN = none
+    sa.Column("withheld_kwh_blob", sa.LargeBinary, nullable=False),  # <f8, NaN = none
+    sa.Column("clock_delta_min_blob", sa.LargeBinary, nullable=False),  # <f8, NaN = none
+    sa.Column("clock_clear_blob", sa.LargeBinary, nullable=False),  # <i1: 1, 0, -1 = none
 )
 
 # degradation_result: owned by the degradation issue (#7).

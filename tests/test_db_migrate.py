@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 import sqlalchemy as sa
 
@@ -204,7 +205,7 @@ def test_v6_store_gains_the_sensor_day_columns_and_keeps_its_rows(tmp_path):
         conn.execute(schema.schema_version.insert().values(version=6, applied_utc="x", note="v6"))
     eng.dispose()
     eng = sa.create_engine(f"sqlite:///{path}")
-    assert upgrade(eng) == 7
+    assert upgrade(eng, target=7) == 7  # step 7 alone (step 8 is tested below)
     cols = {c["name"] for c in sa.inspect(eng).get_columns("flag_day")}
     assert {"valid_reason", "sky_ratio", "jump_ratio", "rain_mm", "amb_night_c",
             "amb_day_c"} <= cols
@@ -230,7 +231,94 @@ def test_v7_step_on_postgres_adds_the_sensor_day_columns(pg_engine):
             conn.execute(sa.text(f"ALTER TABLE flag_day DROP COLUMN {c}"))
         conn.execute(schema.schema_version.delete())
         conn.execute(schema.schema_version.insert().values(version=6, applied_utc="x", note="v6"))
-    assert upgrade(pg_engine) == 7
+    assert upgrade(pg_engine, target=7) == 7
     cols = {c["name"]: c["type"] for c in sa.inspect(pg_engine).get_columns("flag_day")}
     assert isinstance(cols["amb_night_c"], sa.LargeBinary)
     assert {"valid_reason", "sky_ratio", "jump_ratio", "rain_mm", "amb_day_c"} <= set(cols)
+
+
+# ---------------------------------------------------------------- v8: packed inverter days (#16)
+
+def _v7_flag_days(eng) -> None:
+    """A store at v7: flag_day holds every device's days (two inverters, one sensor, one
+    device of no site record); no flag_day_pack."""
+    from tests.helpers_store import add_inverter, add_sensor, add_site
+
+    with eng.begin() as conn:
+        add_site(conn, "s1")
+        add_sensor(conn, "s1", "poa1", "poa_wm2")
+        add_sensor(conn, "s1", "tmod1", "t_module_c")
+        for inv in ("inv1", "inv2"):
+            add_inverter(conn, "s1", inv, poa_sensor_id="poa1", t_module_sensor_id="tmod1")
+        conn.execute(sa.text("DROP TABLE flag_day_pack"))
+        t = schema.flag_day
+        blank = {c.name: None for c in t.columns}
+        conn.execute(t.insert(), [{**blank, **r} for r in [
+            dict(site_id="s1", device_id="inv1", day_no=19000, soiling_pi=0.97,
+                 withheld_kwh=None, clock_delta_min=-2.5, clock_clear=True),
+            dict(site_id="s1", device_id="inv1", day_no=19001, soiling_pi=None,
+                 withheld_kwh=1.25, clock_delta_min=3.0, clock_clear=False),
+            dict(site_id="s1", device_id="inv1", day_no=19002, soiling_pi=0.955,
+                 withheld_kwh=None, clock_delta_min=None, clock_clear=None),
+            dict(site_id="s1", device_id="inv2", day_no=18999, soiling_pi=1.01,
+                 withheld_kwh=0.0, clock_delta_min=0.5, clock_clear=True),
+            dict(site_id="s1", device_id="old9", day_no=19000, soiling_pi=0.9,
+                 withheld_kwh=None, clock_delta_min=None, clock_clear=None),
+            dict(site_id="s1", device_id="poa1", day_no=19000, valid_reason="",
+                 sky_ratio=0.98, clock_delta_min=1.5, clock_clear=True),
+            dict(site_id="s1", device_id="poa1", day_no=19001, valid_reason="stuck"),
+            dict(site_id="s1", device_id="tmod1", day_no=19000,
+                 amb_night_c=np.array([1.5, -0.25]).astype("<f8").tobytes()),
+        ]])
+        conn.execute(schema.schema_version.delete())
+        conn.execute(schema.schema_version.insert().values(version=7, applied_utc="x", note="v7"))
+
+
+def _assert_v8_keeps_the_days(eng) -> None:
+    """Common practice for a migration: every value it moves reads back as before (the
+    same frame from ``read_flag_days``, whole and with the sensors named), the inverters'
+    days in one packed row each, the sensors' rows where they were."""
+    from db.flags import read_flag_days
+
+    with eng.begin() as conn:  # read the v7 rows (the reader wants the table, empty here)
+        schema.flag_day_pack.create(conn)
+    before = read_flag_days(eng, "s1")
+    before_s = read_flag_days(eng, "s1", ["poa1", "tmod1"])
+    with eng.begin() as conn:
+        schema.flag_day_pack.drop(conn)  # as a v7 store: step 8 creates it
+    assert upgrade(eng) == 8
+    after, after_s = read_flag_days(eng, "s1"), read_flag_days(eng, "s1", ["poa1", "tmod1"])
+    for b, a in ((before, after), (before_s, after_s)):
+        assert len(a) == 8
+        pd.testing.assert_frame_equal(
+            a.drop(columns=["amb_night_c", "amb_day_c"]),
+            b.drop(columns=["amb_night_c", "amb_day_c"]), check_exact=True)
+        assert [type(v) for v in a["clock_clear"]] == [type(v) for v in b["clock_clear"]]
+        assert [None if v is None else v.tolist() for v in a["amb_night_c"]] == \
+            [None if v is None else v.tolist() for v in b["amb_night_c"]]
+    inv1 = after[after["device_id"] == "inv1"]
+    assert inv1["day_no"].tolist() == [19000, 19001, 19002]
+    assert inv1["clock_clear"].tolist() == [True, False, None]
+    assert inv1["withheld_kwh"].isna().tolist() == [True, False, True]
+    with eng.connect() as conn:
+        rows = conn.execute(sa.select(schema.flag_day.c.device_id)).scalars().all()
+        packs = conn.execute(sa.select(schema.flag_day_pack.c.device_id,
+                                       schema.flag_day_pack.c.n_days)).all()
+        note = conn.execute(sa.select(schema.schema_version.c.note).where(
+            schema.schema_version.c.version == 8)).scalar()
+    assert sorted(rows) == ["poa1", "poa1", "tmod1"]
+    assert sorted(packs) == [("inv1", 3), ("inv2", 1), ("old9", 1)]
+    assert "moved 5 days of 3 inverters" in note
+
+
+def test_v7_store_packs_the_inverters_days_and_reads_them_back_unchanged(tmp_path):
+    path = tmp_path / "v7.sqlite"
+    eng = make_engine(path)
+    _v7_flag_days(eng)
+    eng.dispose()
+    _assert_v8_keeps_the_days(sa.create_engine(f"sqlite:///{path}"))
+
+
+def test_v7_store_packs_the_inverters_days_on_postgres(pg_engine):
+    _v7_flag_days(pg_engine)
+    _assert_v8_keeps_the_days(pg_engine)
