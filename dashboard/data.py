@@ -435,13 +435,18 @@ def portfolio_week(url: str, end: dt.date) -> pd.DataFrame:
 
 def portfolio_warranty_words(test: dict) -> str:
     """Short words for the stored warranty screening of a site's recommended rate
-    (:func:`analytics.warranty.warranty_rate_test`, one-sided), or why there is none."""
+    (:func:`analytics.warranty.warranty_rate_test`, one-sided), or why there is none; short
+    enough for a table cell (the page names the test and its bound)."""
     if "exceeds" in test:
         conf = test.get("confidence")
-        level = f" at {conf:.0%} one-sided" if isinstance(conf, (int, float)) else ""
-        return (f"loss exceeds the warranted rate{level}" if test["exceeds"]
-                else f"no evidence it exceeds{level}")
-    return "not tested" + (f": {test['reason']}" if test.get("reason") else "")
+        level = f" ({conf:.0%} one-sided)" if isinstance(conf, (int, float)) else ""
+        return (f"exceeds{level}" if test["exceeds"] else f"no evidence it exceeds{level}")
+    reason = str(test.get("reason") or "")
+    if reason.startswith("no [warranty]"):
+        return "not tested: no warranty terms"
+    if reason.startswith("no measured rate"):
+        return "not tested: no rate"
+    return "not tested" + (f": {reason}" if reason else "")
 
 
 #: Heatmaps show one column per day up to this many days, then one per week up to

@@ -187,9 +187,9 @@ def test_portfolio_warranty_column_says_what_the_degradation_page_says(dashboard
     assert method, rec["details"]
     page = data.warranty_view(url, sid, SITE_DEVICE, method)["test"]
     words = t.loc[sid, "warranty_test"]
-    assert words.startswith("loss exceeds" if page["exceeds"] else "no evidence it exceeds")
-    level = f"at {summary['warranty']['confidence']:.0%} one-sided"
-    assert level in words and level in page["verdict"], (words, page["verdict"])
+    assert words.startswith("exceeds" if page["exceeds"] else "no evidence it exceeds")
+    conf = f"{summary['warranty']['confidence']:.0%} one-sided"
+    assert conf in words and f"at {conf}" in page["verdict"], (words, page["verdict"])
     assert summary["warranty"]["exceeds"] == page["exceeds"]
     assert data.portfolio_warranty_words({"reason": "no [warranty] in the site configuration"}) \
-        == "not tested: no [warranty] in the site configuration"
+        == "not tested: no warranty terms"

@@ -124,8 +124,8 @@ deg = pd.DataFrame({
 st.dataframe(ui.clean_frame(deg, {"warranted": "+.2f", "caveats": ".0f"}), hide_index=True,
              key="portfolio_degradation", column_config={
     "link": site_col,
-    "rate": st.column_config.TextColumn("Rate [%/yr]", width="small"),
-    "method": st.column_config.TextColumn("Method", width="large"),
+    "rate": st.column_config.TextColumn("Rate [%/yr]", width=150),
+    "method": st.column_config.TextColumn("Method", width=335),
     "caveats": st.column_config.NumberColumn(
         "Caveats", format="%d", width="small",
         help="Caveats on the rate (sensor drift, level shifts, soiling, short record)."),
@@ -133,7 +133,7 @@ st.dataframe(ui.clean_frame(deg, {"warranted": "+.2f", "caveats": ".0f"}), hide_
         "Warranted [%/yr]", format="%+.2f", width="small",
         help="The annual loss the site's [warranty] configuration allows."),
     "warranty_test": st.column_config.TextColumn(
-        "Against the warranty", width="medium",
+        "Against the warranty", width=325,
         help="The one-sided screening test of the site's recommended rate against the "
              "warranted annual loss, as on the Degradation & warranty page: a rate steeper "
              "than the warranted one is not a breach unless its interval says so."),
