@@ -617,7 +617,15 @@ def run_degradation(engine, site_id: str, progress: Progress | None = None, *,
                               energy_kwh=energy.get(dev)))
     s, w = _site_daily(usable, by_dev, p["site_min_inverter_fraction"])
     if len(s):
-        cl = pd.DataFrame(clear).median(axis=1) if clear else None
+        cl = None
+        if clear:
+            # the site's clear-day index follows the site index's rule: a day counts when at
+            # least site_min_inverter_fraction of the inverters have one (so one inverter
+            # without a commissioning date does not carry the site through the others'
+            # stabilisation period alone)
+            cw = pd.DataFrame(clear)
+            n_clear = cw.notna().sum(axis=1)
+            cl = cw.median(axis=1)[n_clear >= p["site_min_inverter_fraction"] * cw.shape[1]]
         site_h = (pd.DataFrame(insol).median(axis=1).reindex(s.index) if insol else None)
         tasks.append(dict(s=s, weights=w, ratio=None, clear_pi=cl, clear_reason=clear_reason,
                           p=p, rng_key=len(invs), insolation=site_h,

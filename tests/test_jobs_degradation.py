@@ -348,6 +348,12 @@ def test_short_span_refusal_names_the_skipped_stabilisation_period(store, tmp_pa
     copy = tmp_path / "copy.sqlite"
     with sqlite3.connect(engine.url.database) as src, sqlite3.connect(copy) as dst:
         src.backup(dst)  # the store's WAL included
+    # INV02's commissioning date is not on record (#11: no stabilisation period skipped);
+    # it alone must not carry the site's clear-sky index through the others' skipped days
+    # (the site index counts a day when half of the inverters have one, common practice)
+    with sqlite3.connect(copy) as c:
+        c.execute("UPDATE inverter SET commissioned = NULL WHERE device_pk = (SELECT "
+                  "device_pk FROM device WHERE site_id = 's1' AND device_id = 'INV02')")
     eng = make_engine(copy, create=False)
     run_degradation(eng, "s1", stabilisation_days=240, n_resamples=50)
     res = degradation_results(eng, "s1").set_index(["device_id", "method"])
@@ -358,4 +364,6 @@ def test_short_span_refusal_names_the_skipped_stabilisation_period(store, tmp_pa
             assert np.isnan(r["rate_pct_per_yr"]), (dev, method)
             assert "usable data span 1.9" in r["reason"], r["reason"]
             assert f"the days before {until} are skipped" in r["reason"], r["reason"]
+    for method in ("sensor_year_pairs", "modelled_sky_year_pairs"):  # its whole record
+        assert np.isfinite(res.loc[("INV02", method), "rate_pct_per_yr"]), method
     eng.dispose()
