@@ -438,11 +438,10 @@ def test_fleet_relative_pi_keeps_one_faulty_inverter_out_and_clean_fleet_flat():
     assert (fl["kind"] == "soiling").sum() == 0
 
 
-def test_flags_job_reads_soiling_from_the_fleet_relative_index():
-    # the same hand-made fleet through heliaudit.jobs_flags.daily_flags (the daily table's
-    # day_valid marks the clipping days out): the soiling flags carry the exact -0.25 %/day
-    from heliaudit.jobs_flags import daily_flags
-
+def _two_level_daily():
+    """The two-level fleet as daily-table rows (the daily table's day_valid marks the
+    clipping days out) and its inverter table, each level its own peer group, so that the
+    two levels are not underperformance."""
     wide, rain, days, _sr = _two_level_fleet()
     rows = []
     for dev in wide.columns:
@@ -451,10 +450,17 @@ def test_flags_job_reads_soiling_from_the_fleet_relative_index():
                              pi=0.9 if not np.isfinite(v) else v, e_exp_kwh=125.0,
                              h_poa_kwhm2=7.0, e_ac_kwh=100.0, e_exp_valid_kwh=125.0,
                              avail_time=1.0, n_intervals=96))
-    daily = pd.DataFrame(rows)
-    # each level its own peer group, so that the two levels are not underperformance
     inv = pd.DataFrame(dict(device_id=list(wide.columns),
                             peer_group=[c[0] for c in wide.columns], poa_sensor_id="POA1"))
+    return wide, rain, days, pd.DataFrame(rows), inv
+
+
+def test_flags_job_reads_soiling_from_the_fleet_relative_index():
+    # the same hand-made fleet through heliaudit.jobs_flags.daily_flags (the daily table's
+    # day_valid marks the clipping days out): the soiling flags carry the exact -0.25 %/day
+    from heliaudit.jobs_flags import daily_flags
+
+    wide, rain, days, daily, inv = _two_level_daily()
     out = daily_flags(daily, inv, std_offset_s=0, economics={}, rain_daily=rain, n_runs=0)
     fl = pd.concat(out, ignore_index=True)
     so = fl[fl["kind"] == "soiling"]
@@ -555,17 +561,7 @@ def test_flags_job_passes_the_clock_checks_clear_days_to_soiling():
     # check's effect on a cloudy interval is tested above on soiling_flags
     from heliaudit.jobs_flags import daily_flags
 
-    wide, rain, days, _sr = _two_level_fleet()
-    rows = []
-    for dev in wide.columns:
-        for day, v in wide[dev].items():
-            rows.append(dict(device_id=dev, day=day.date(), day_valid=bool(np.isfinite(v)),
-                             pi=0.9 if not np.isfinite(v) else v, e_exp_kwh=125.0,
-                             h_poa_kwhm2=7.0, e_ac_kwh=100.0, e_exp_valid_kwh=125.0,
-                             avail_time=1.0, n_intervals=96))
-    daily = pd.DataFrame(rows)
-    inv = pd.DataFrame(dict(device_id=list(wide.columns),
-                            peer_group=[c[0] for c in wide.columns], poa_sensor_id="POA1"))
+    wide, rain, days, daily, inv = _two_level_daily()
     all_clear = {dev: pd.DataFrame({"delta_min": 0.0, "clear": True}, index=days)
                  for dev in wide.columns}
     out = daily_flags(daily, inv, std_offset_s=0, economics={}, rain_daily=rain, n_runs=0,
