@@ -415,7 +415,7 @@ def _day_tuples(site_id: str, days: pd.DataFrame) -> list[tuple]:
             o[~np.isfinite(a)] = None
             out.append(o.tolist())
         elif c == "clock_clear":
-            out.append([_flag(x) for x in v.tolist()])
+            out.append(rowcols.flags(v.to_numpy(object)).tolist())
         elif c in _ARRAY_DAY_COLUMNS:
             out.append([_blob(x) for x in v.tolist()])
         else:
@@ -436,6 +436,3 @@ def _blob(v) -> bytes | None:
         return None
     return np.ascontiguousarray(v, dtype="<f8").tobytes()
 
-
-def _flag(v) -> bool | None:
-    return None if v is None or (isinstance(v, float) and not np.isfinite(v)) else bool(v)

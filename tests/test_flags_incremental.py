@@ -95,9 +95,9 @@ def _table(eng) -> pd.DataFrame:
     return fl.assign(device_id=fl["device_id"].fillna("")).sort_values(key).reset_index(drop=True)
 
 
-@pytest.fixture(scope="module")
-def runs(tmp_path_factory):
-    eng = make_store(tmp_path_factory.mktemp("flags_incremental"))
+def _full_then_new_week(eng) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Load the history up to BOUNDARY, compute it whole, then load the rest and compute
+    the daily table and the flags incrementally; the flags table after each step."""
     w, power = _site_data()
     _load(eng, w, power, w.index[0], BOUNDARY, first=True)
     recompute_all(eng, "s1")
@@ -106,7 +106,13 @@ def runs(tmp_path_factory):
     _load(eng, w, power, BOUNDARY, w.index[-1] + pd.Timedelta("1h"), first=False)
     recompute_range(eng, "s1", _s(BOUNDARY), int(w.index[-1].value // 10**9))
     run_flags(eng, "s1", full=False, since_s=_s(BOUNDARY))
-    incremental = _table(eng)
+    return before, _table(eng)
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory):
+    eng = make_store(tmp_path_factory.mktemp("flags_incremental"))
+    before, incremental = _full_then_new_week(eng)
     with eng.connect() as conn:
         scopes = conn.execute(sa.select(schema.computation.c.scope).where(
             schema.computation.c.kind == "flags").order_by(
@@ -199,14 +205,7 @@ def test_incremental_flags_equal_full_recompute_on_postgres(pg_engine):
     """The same week on PostgreSQL: the sensors' stored days (BYTEA samples, booleans) and
     parts read back as on SQLite, and the window gives the full recompute's flags."""
     eng = pg_engine
-    w, power = _site_data()
-    _load(eng, w, power, w.index[0], BOUNDARY, first=True)
-    recompute_all(eng, "s1")
-    run_flags(eng, "s1", full=True)
-    _load(eng, w, power, BOUNDARY, w.index[-1] + pd.Timedelta("1h"), first=False)
-    recompute_range(eng, "s1", _s(BOUNDARY), int(w.index[-1].value // 10**9))
-    run_flags(eng, "s1", full=False, since_s=_s(BOUNDARY))
-    inc = _table(eng)
+    _before, inc = _full_then_new_week(eng)
     with eng.connect() as conn:
         scope = conn.execute(sa.select(schema.computation.c.scope).where(
             schema.computation.c.kind == "flags").order_by(
