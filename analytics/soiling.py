@@ -32,6 +32,7 @@ References
 
 from __future__ import annotations
 
+import heapq
 import math
 
 import numpy as np
@@ -240,13 +241,18 @@ def detect_cleanings(pi: pd.Series, *, rain_mm: pd.Series | None = None,
     return out.sort_index()
 
 
-def line_vs_step(y, x) -> float:
+def line_vs_step(y, x, line: tuple[float, float] | None = None) -> float:
     """How much better a straight line explains a dry interval than a single step:
     Σ|y − Theil–Sen line| / min over split days k of Σ|y − median of its side| (L1 costs;
     the step is the two-median split of :func:`analytics.sensor_qa.level_step`). Dust builds
     up gradually, so soiling gives a ratio well below 1; a weather regime or an event that
     drops ``pi`` at one moment in an otherwise flat interval fits a step better (> 1).
-    NaN with fewer than 4 points.
+    NaN with fewer than 4 points. ``line``: the Theil–Sen ``(slope, intercept)`` of ``y`` on
+    ``x`` when the caller has it (``scipy.stats.theilslopes``, default method), else computed.
+
+    The split costs of every k come from running medians (two heaps, O(n log n)); the few
+    splits within rounding of the cheapest are then summed directly, so the result is the
+    direct minimum over all splits (a five-year dry interval has ~1 800 splits; issue #16).
 
     Examples
     --------
@@ -257,13 +263,49 @@ def line_vs_step(y, x) -> float:
     x = np.asarray(x, dtype=float)
     if y.size < 4:
         return float("nan")
-    res = stats.theilslopes(y, x)
-    line = float(np.abs(y - (res.intercept + res.slope * x)).sum())
+    if line is None:
+        res = stats.theilslopes(y, x)
+        line = (res.slope, res.intercept)
+    cost_line = float(np.abs(y - (line[1] + line[0] * x)).sum())
+    n = y.size
+    yc = y - np.median(y)  # centred: running sums without large cancellations
+    fast = _l1_prefix_costs(yc)[2:n - 1] + _l1_prefix_costs(yc[::-1])[n - 2:1:-1]
+    tol = 1e-9 * (float(np.abs(yc).sum()) + 1e-12)
     step = min(float(np.abs(y[:k] - np.median(y[:k])).sum()
-                     + np.abs(y[k:] - np.median(y[k:])).sum()) for k in range(2, y.size - 1))
+                     + np.abs(y[k:] - np.median(y[k:])).sum())
+               for k in 2 + np.flatnonzero(fast <= fast.min() + tol))
     if step <= 0:
-        return float("inf") if line > 0 else 0.0
-    return line / step
+        return float("inf") if cost_line > 0 else 0.0
+    return cost_line / step
+
+
+def _l1_prefix_costs(y: np.ndarray) -> np.ndarray:
+    """``out[k] = Σ_{i<k} |y_i − median(y[:k])|`` for k = 0 … n, by running medians: a
+    max-heap of the lower half and a min-heap of the upper half with their sums; the L1
+    distance to the median is (upper sum − lower sum) + median · (n_lower − n_upper)."""
+    lo: list[float] = []  # lower half, negated (max-heap), holds the extra element
+    hi: list[float] = []
+    s_lo = s_hi = 0.0
+    out = np.zeros(y.size + 1)
+    for k, v in enumerate(y.tolist(), start=1):
+        if lo and v > -lo[0]:
+            heapq.heappush(hi, v)
+            s_hi += v
+        else:
+            heapq.heappush(lo, -v)
+            s_lo += v
+        if len(lo) > len(hi) + 1:
+            m = -heapq.heappop(lo)
+            s_lo -= m
+            heapq.heappush(hi, m)
+            s_hi += m
+        elif len(hi) > len(lo):
+            m = heapq.heappop(hi)
+            s_hi -= m
+            heapq.heappush(lo, -m)
+            s_lo += m
+        out[k] = s_hi - s_lo + (-lo[0]) * (len(lo) - len(hi))
+    return out
 
 
 def _ar1_inflation(resid, x, step: float = 1.0) -> float:
@@ -398,7 +440,7 @@ def soiling_intervals(pi: pd.Series, cleanings, *, min_days: int = 7,
             res = stats.theilslopes(seg.to_numpy(float), x, alpha=alpha, method="separate")
             level = res.intercept  # line value at x = 0 (interval start)
             row["clean_level"] = float(level)
-            shape = line_vs_step(seg.to_numpy(float), x)
+            shape = line_vs_step(seg.to_numpy(float), x, line=(res.slope, res.intercept))
             row["line_vs_step"] = shape
             clear_ok = True
             if clear_days is not None:

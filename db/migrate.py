@@ -245,6 +245,16 @@ def _v8_packed_flag_days(conn: sa.Connection) -> str:
 STEPS[8] = _v8_packed_flag_days
 
 
+def _v9_daily_pack(conn: sa.Connection) -> str:
+    """The flags job's packed copy of daily columns, flag_daily_pack (#16): created empty;
+    the next flags run fills it (until then it reads the daily table, as before)."""
+    schema.flag_daily_pack.create(conn, checkfirst=True)
+    return "created flag_daily_pack (empty)"
+
+
+STEPS[9] = _v9_daily_pack
+
+
 def current_version(conn: sa.Connection) -> int | None:
     if not sa.inspect(conn).has_table("schema_version"):
         return None

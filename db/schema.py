@@ -14,12 +14,13 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
-SCHEMA_VERSION = 8  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
+SCHEMA_VERSION = 9  # 2: daily_inverter.e_ac_pr_kwh (#4); 3: plain-word degradation method names (#10);
 #                    4: reading.interval_s, channel.sampling/input_id (#11);
 #                    5: site model: daily bases, optional commissioning/module sensor (#11);
 #                    6: readings packed per channel and UTC day, table reading_day (#16);
 #                    7: per-day sensor judgements in flag_day (#16);
-#                    8: inverters' daily flag inputs packed per device, flag_day_pack (#16)
+#                    8: inverters' daily flag inputs packed per device, flag_day_pack (#16);
+#                    9: the flags job's packed copy of daily columns, flag_daily_pack (#16)
 
 metadata = sa.MetaData()
 
@@ -276,6 +277,20 @@ flag_day_pack = sa.Table(
     sa.Column("withheld_kwh_blob", sa.LargeBinary, nullable=False),  # <f8, NaN = none
     sa.Column("clock_delta_min_blob", sa.LargeBinary, nullable=False),  # <f8, NaN = none
     sa.Column("clock_clear_blob", sa.LargeBinary, nullable=False),  # <i1: 1, 0, -1 = none
+)
+
+# flag_daily_pack (v9): the daily-table columns the flags job reads for every day (pi,
+# validity, energies, availability), one row per inverter with its days packed: a cache that
+# db.dailypack trusts only where the daily_inverter rows are provably unchanged since it was
+# written (row count and newest computation_id per inverter), else reads the table (#16).
+flag_daily_pack = sa.Table(
+    "flag_daily_pack", metadata,
+    sa.Column("site_id", sa.String(64), sa.ForeignKey("site.site_id"), primary_key=True),
+    sa.Column("device_id", sa.String(64), primary_key=True),
+    sa.Column("n_days", sa.Integer, nullable=False),
+    sa.Column("columns_json", sa.Text, nullable=False),  # packed columns, last computation_id
+    sa.Column("day_no_blob", sa.LargeBinary, nullable=False),  # <i4, ascending
+    sa.Column("values_blob", sa.LargeBinary, nullable=False),  # <f8 [column][day], NaN = NULL
 )
 
 # degradation_result: owned by the degradation issue (#7).

@@ -51,7 +51,7 @@ from db.computations import (
     finish_computation,
     latest_batch_id,
 )
-from db.daily import daily_table
+from db.dailypack import read_daily_inputs, write_daily_pack
 from db.degradation import last_computation
 from db.flags import read_flag_days, read_flag_parts, store_flags
 from db.jsontext import to_json
@@ -1333,6 +1333,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     cs_cache: dict[tuple, pd.Series] = {}
 
     base_cache: dict[int, pd.DataFrame] = {}  # interval [s] -> sun position, clear sky
+    last_sun: dict = {}  # plane -> (index, intervals, sun) of the last sun_at call
 
     def base_at(idx: pd.DatetimeIndex, u: int) -> pd.DataFrame:
         have = base_cache.get(u)
@@ -1353,6 +1354,9 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
         if interval_s is None:
             interval_s = np.full(len(index), float(_tau_s(index)))
         iv = np.round(np.asarray(interval_s, dtype=float)).astype(np.int64)
+        last = last_sun.get(plane)  # the inverters of a site usually share one grid
+        if last is not None and np.array_equal(last[1], iv) and last[0].equals(index):
+            return last[2].copy()
         out["interval_s"] = iv.astype(float)
         for u in np.unique(iv):
             m = iv == u
@@ -1366,6 +1370,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
             vals = have.reindex(idx)[cols].to_numpy() if not (
                 len(have) == len(idx) and have.index.equals(idx)) else have[cols].to_numpy()
             out.iloc[np.flatnonzero(m), :3] = vals
+        last_sun[plane] = (index, iv, out.copy())
         return out
 
     def expected_grid(x: pd.Series, iv: np.ndarray) -> tuple[pd.DatetimeIndex, np.ndarray]:
@@ -1842,6 +1847,21 @@ def _has_jump(flags: pd.DataFrame) -> bool:
                for d in flags.loc[m, "details"])
 
 
+def _repack_daily(prior, daily_read: dict, daily: pd.DataFrame) -> bool:
+    """Whether this run rewrites the packed copy of the daily columns (``flag_daily_pack``):
+    after a full run, when an inverter had to be read whole, and when the pack would no
+    longer reach the next run's cut (about the start of the month of the last day; a weekly
+    cycle rewrites it about once a month, each rewrite costing about as much as reading a
+    month of rows)."""
+    if prior is None or daily_read["whole"] or daily_read["pack_last_day"] is None:
+        return True
+    if not len(daily):
+        return False
+    last = pd.Timestamp(max(daily["day"])) - pd.Timedelta(days=2)
+    next_cut = (last - pd.Timedelta(days=last.day - 1)).normalize()
+    return daily_read["pack_last_day"] + 1 < (next_cut - pd.Timestamp("1970-01-01")).days
+
+
 def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None, *,
               full: bool = True, since_s: int | None = None) -> int:
     """Recompute the flags of ``site_id`` and store them; return how many the site has.
@@ -1866,7 +1886,9 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
     with engine.begin() as conn:
         comp_id = begin_computation(conn, site_id, "flags", setup["params"], scope=scope,
                                     software_version=heliaudit.__version__)
-    daily = daily_table(engine, site_id, with_text=False, columns=DAILY_COLUMNS_USED)
+    # the days before the cut from the flags' own packed copy where provably unchanged (v9)
+    daily, daily_read = read_daily_inputs(engine, site_id, DAILY_COLUMNS_USED,
+                                          from_day=None if prior is None else prior.cut_day)
     all_inv = list(inverters["device_id"])
     if prior is None:
         frames = inverter_frames(engine, site_id)
@@ -1934,8 +1956,13 @@ def run_flags(engine: sa.Engine, site_id: str, progress: Progress | None = None,
              # sensors' day judgements are stored (v7); a sibling jump: next run whole
              "sensor_days": True, "sensor_last": collect["sensor_last"],
              "sensor_span": _sensor_spans(sensors, prior),
-             "sensors_whole": bool(_has_jump(flags))}
+             "sensors_whole": bool(_has_jump(flags)),
+             "daily_read": {"packed_days": daily_read["packed_days"],
+                            "rows_read": daily_read["rows_read"],
+                            "inverters_whole": len(daily_read["whole"])}}
     with engine.begin() as conn:
+        if _repack_daily(prior, daily_read, daily):
+            write_daily_pack(conn, site_id, daily, DAILY_COLUMNS_USED)
         n = store_flags(conn, site_id, flags, comp_id, parts=parts, days=days,
                         cut_s=None if prior is None else prior.cut_s,
                         cut_day=None if prior is None else prior.cut_day,

@@ -570,3 +570,26 @@ def test_flags_job_passes_the_clock_checks_clear_days_to_soiling():
     assert len(so) == 3
     assert all(dd["clear_day_rate_pct_per_day"] == pytest.approx(-0.25, abs=1e-9)
                for dd in so["details"])
+
+
+def test_line_vs_step_equals_its_direct_definition():
+    # issue #16 made the split search O(n log n) (running medians); the reference is the
+    # definition summed directly over every split k (numpy medians, scipy.stats.theilslopes)
+    # on 400 random intervals: noisy ramps, rounded values with many ties, exact steps, flat
+    rng = np.random.default_rng(16)
+
+    def direct(y, x):
+        res = stats.theilslopes(y, x)
+        line = np.abs(y - (res.intercept + res.slope * x)).sum()
+        best = min(np.abs(y[:j] - np.median(y[:j])).sum() + np.abs(y[j:] - np.median(y[j:])).sum()
+                   for j in range(2, y.size - 1))
+        return float("inf") if best <= 0 < line else (0.0 if best <= 0 else line / best)
+
+    for t in range(400):
+        n = int(rng.integers(4, 90))
+        x = np.sort(rng.choice(np.arange(300.0), n, replace=False))
+        y = [0.97 - 0.002 * x + 0.01 * rng.standard_normal(n),
+             np.round(rng.standard_normal(n), 1),
+             np.where(np.arange(n) < n // 3, 1.0, 0.96),
+             np.full(n, 0.95)][t % 4]
+        assert line_vs_step(y, x) == direct(y, x)

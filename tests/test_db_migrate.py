@@ -286,7 +286,7 @@ def _assert_v8_keeps_the_days(eng) -> None:
     before_s = read_flag_days(eng, "s1", ["poa1", "tmod1"])
     with eng.begin() as conn:
         schema.flag_day_pack.drop(conn)  # as a v7 store: step 8 creates it
-    assert upgrade(eng) == 8
+    assert upgrade(eng, target=8) == 8
     after, after_s = read_flag_days(eng, "s1"), read_flag_days(eng, "s1", ["poa1", "tmod1"])
     for b, a in ((before, after), (before_s, after_s)):
         assert len(a) == 8

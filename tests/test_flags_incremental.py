@@ -114,24 +114,31 @@ def runs(tmp_path_factory):
     eng = make_store(tmp_path_factory.mktemp("flags_incremental"))
     before, incremental = _full_then_new_week(eng)
     with eng.connect() as conn:
-        scopes = conn.execute(sa.select(schema.computation.c.scope).where(
+        comps = conn.execute(sa.select(schema.computation.c.scope,
+                                       schema.computation.c.params_json).where(
             schema.computation.c.kind == "flags").order_by(
-            schema.computation.c.computation_id)).scalars().all()
+            schema.computation.c.computation_id)).all()
     run_flags(eng, "s1", full=True)
-    return before, incremental, _table(eng), scopes, eng
+    return before, incremental, _table(eng), [c[0] for c in comps], eng, [
+        json.loads(c[1])["window"]["daily_read"] for c in comps]
 
 
 def test_incremental_run_used_a_window(runs):
-    _before, _inc, _full, scopes, _eng = runs
+    _before, _inc, _full, scopes, _eng, reads = runs
     assert scopes[0] == "full"
     # the cut is the start of the local month two days before the new week, 2024-07-01 00:00
     # local standard time (UTC-7), moved back to the month start of the module sensor's flat
     # line still open at it (the ambient sensor, from 2024-06-29): 2024-06-01 00:00 local = 07:00 UTC
     assert scopes[1] == "window from 2024-06-01 07:00 UTC"
+    # the daily rows before the cut came from the flags' packed copy (store v9), written by
+    # the full run: 31 days of May for each of the 6 inverters; June on from the table
+    assert reads[0]["packed_days"] == 0 and reads[1]["packed_days"] == 6 * 31
+    assert reads[1]["inverters_whole"] == 0 and reads[0]["rows_read"] == 6 * 70
+    assert reads[1]["rows_read"] == 6 * 46  # 2024-06-01 .. 07-16 (local days)
 
 
 def test_incremental_flags_equal_full_recompute(runs):
-    _before, inc, full, _scopes, _eng = runs
+    _before, inc, full, _scopes, _eng, _reads = runs
     cols = ["kind", "device_id", "start_s", "end_s", "severity"]
     assert inc[cols].to_dict("records") == full[cols].to_dict("records")
     np.testing.assert_allclose(inc["lost_kwh"].to_numpy(float), full["lost_kwh"].to_numpy(float),
@@ -140,7 +147,7 @@ def test_incremental_flags_equal_full_recompute(runs):
 
 
 def test_boundary_events_are_merged_not_split(runs):
-    before, _inc, full, _scopes, _eng = runs
+    before, _inc, full, _scopes, _eng, _reads = runs
     b = _s(BOUNDARY)
     out = full[(full["kind"] == "outage") & (full["device_id"] == "inv2")]
     # one outage from two days before the boundary to a day after (±1 h for the sunny-gate
@@ -162,7 +169,7 @@ def test_sensor_faults_across_the_boundary(runs):
     """The sensor events that straddle the cut or the boundary are each one event, equal to
     the full recompute's (checked by the equality test), and the incremental run kept the
     sensors' day judgements (it read them from the cut's look-back only)."""
-    _before, inc, full, _scopes, eng = runs
+    _before, inc, full, _scopes, eng, _reads = runs
     b = _s(BOUNDARY)
 
     def one(kind, dev, reason=None):
@@ -190,7 +197,7 @@ def test_sensor_faults_across_the_boundary(runs):
 
 def test_configuration_change_makes_the_next_run_full(runs):
     """Stored flags were made with the old inverter ratings and sensors: recompute all."""
-    eng = runs[-1]
+    eng = runs[4]
     with eng.begin() as conn:
         conn.execute(schema.site.update().values(config_sha256="1" * 64))
     run_flags(eng, "s1", full=False)
