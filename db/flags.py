@@ -208,7 +208,7 @@ def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataF
         for c in ("valid_reason", *_ARRAY_DAY_COLUMNS):
             col[c] = np.concatenate([col[c], np.full(n_p, None, dtype=object)])
     n = len(day_no)
-    data = {"device_id": pd.Series(dev, dtype=None if n else object), "day_no": day_no, **fl,
+    data = {"device_id": pd.Series(dev, dtype=object), "day_no": day_no, **fl,
             "clock_clear": pd.Series(clear, dtype=object),
             "valid_reason": pd.Series(col["valid_reason"], dtype=None if n else object)}
     for c in _ARRAY_DAY_COLUMNS:
