@@ -154,22 +154,26 @@ def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
     return out
 
 
-def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataFrame:
+def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None, *,
+                   inverters: bool = True) -> pd.DataFrame:
     """The per-device daily inputs kept by the last flags run: the inverters' daily inputs
     (``flag_day_pack``, and any ``flag_day`` rows of a store not yet migrated) and the
     sensors' day judgements (``flag_day``; arrays as numpy float arrays, None where absent),
     one row per device and day, by device (code-point order) and day. With ``sensor_ids``
     the other devices' ``flag_day`` rows are read without the sensor columns (NULL for an
-    inverter; issue #16). Columns are built whole (:mod:`db.rowcols`), not row by row."""
+    inverter; issue #16); with ``inverters`` False as well, only those sensors' rows are read.
+    Columns are built whole (:mod:`db.rowcols`), not row by row."""
     ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
     inv_cols = DAY_COLUMNS[:6]
     with engine.connect() as conn:
         # raw DBAPI cursor: a 100-inverter site keeps ~37 000 days a year
         cur = conn.connection.cursor()
         try:
-            cur.execute(f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
-                        f"flag_day_pack WHERE site_id = {ph}", [site_id])
-            packs = cur.fetchall()
+            packs = []
+            if inverters or sensor_ids is None:
+                cur.execute(f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
+                            f"flag_day_pack WHERE site_id = {ph}", [site_id])
+                packs = cur.fetchall()
             if sensor_ids is None:
                 cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = "
                             f"{ph}", [site_id])
@@ -177,15 +181,18 @@ def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None) -> pd.DataF
             else:
                 ids = [str(i) for i in sensor_ids]
                 inl = ", ".join([ph] * len(ids)) if ids else "NULL"
-                cur.execute(f"SELECT {', '.join(inv_cols)} FROM flag_day WHERE site_id = {ph} "
-                            f"AND device_id NOT IN ({inl})", [site_id, *ids])
-                got = [(cur.fetchall(), len(inv_cols))]
+                got = []
+                if inverters:
+                    cur.execute(f"SELECT {', '.join(inv_cols)} FROM flag_day WHERE site_id = "
+                                f"{ph} AND device_id NOT IN ({inl})", [site_id, *ids])
+                    got.append((cur.fetchall(), len(inv_cols)))
                 if ids:
                     cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE "
                                 f"site_id = {ph} AND device_id IN ({inl})", [site_id, *ids])
                     got.append((cur.fetchall(), len(DAY_COLUMNS)))
         finally:
             cur.close()
+    got = got or [([], len(DAY_COLUMNS))]
     # each source as whole columns; columns a source lacks are NULL
     cols: dict[str, list[np.ndarray]] = {c: [] for c in DAY_COLUMNS}
     for rows, n_cols in got:

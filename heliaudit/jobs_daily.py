@@ -103,22 +103,42 @@ def _mask_faulty_sensor_days(frame: pd.DataFrame, inv: dict, sun: pd.DataFrame,
     return frame
 
 
-def _fleet_sensor_checks(engine: sa.Engine, site_id: str, site: dict, off_s: int
-                         ) -> tuple[dict, dict]:
+def _fleet_sensor_checks(engine: sa.Engine, site_id: str, site: dict, off_s: int,
+                         first_day: int | None = None) -> tuple[dict, dict]:
     """The sensor judgements that need more than one inverter's frame.
 
     Returns ``(jump_days, insolation)``: sensor id -> day table of the days a POA sensor is
     excluded because it jumped against its siblings (:func:`heliaudit.jobs_flags.
     sibling_jumps`, on the sensors' whole history: a step needs weeks on either side,
     whatever range this run recomputes), and sensor id -> its daily insolation from the raw
-    readings (for :func:`heliaudit.jobs_flags.high_vs_power_by_sensor`)."""
-    from heliaudit.jobs_flags import daily_insolation, read_sensors, sibling_jumps
+    readings (for :func:`heliaudit.jobs_flags.high_vs_power_by_sensor`).
 
-    sensors = read_sensors(engine, site_id, quantities=("poa_wm2",))
+    With ``first_day`` (a range run) the days before a cut come from the day judgements the
+    last flags run stored (:func:`heliaudit.jobs_flags.stored_poa_days`; issue #16: this
+    check read and judged every POA reading of the site's history on every run), and only
+    the readings from the cut are read; the clear-day ratios and the jumps found are the same
+    as from the whole history, the sun being taken as the flags job takes it
+    (:func:`heliaudit.jobs_flags.sensor_sun_for`). Insolation is then known from the cut on,
+    which covers the recomputed days."""
+    from heliaudit.jobs_flags import (
+        SunAt,
+        daily_insolation,
+        device_planes,
+        read_sensors,
+        sensor_sun_for,
+        sibling_jumps,
+        stored_poa_days,
+    )
+
+    prior = None if first_day is None else stored_poa_days(engine, site_id, first_day)
+    sensors = read_sensors(engine, site_id, quantities=("poa_wm2",),
+                           start_s=None if prior is None else prior.read_from_s)
     h = {e[0]: daily_insolation(e[2], off_s, e[3]) for e in sensors}
     if len(sensors) < 2:
         return {}, h
-    return sibling_jumps(sensors, site, std_offset_s=off_s)[1], h
+    _iv, sun_for = sensor_sun_for(sensors, device_planes(site.get("config_toml"), site),
+                                  SunAt(site))
+    return sibling_jumps(sensors, site, std_offset_s=off_s, sun_for=sun_for, prior=prior)[1], h
 
 
 def _high_sensor_days(rows: pd.DataFrame, invs: list[dict], insolation: dict) -> dict:
@@ -176,7 +196,8 @@ def _compute(engine: sa.Engine, site_id: str, first_day: int | None, last_day: i
         comp_id = begin_computation(conn, site_id, "daily", params, scope=scope,
                                     software_version=heliaudit.__version__)
 
-    jump_days, insolation = _fleet_sensor_checks(engine, site_id, site, off_s)
+    jump_days, insolation = _fleet_sensor_checks(engine, site_id, site, off_s,
+                                                 None if scope == "full" else first_day)
     high_days: dict[str, pd.DataFrame] = {}  # inverter id -> days its POA sensor reads high
     invs: list[dict] = []
     sun = pd.DataFrame({"solar_elevation_deg": [], "poa_clearsky_wm2": []},

@@ -192,6 +192,81 @@ def sun_on_plane(sp: pd.DataFrame, site: dict, plane=None) -> pd.DataFrame:
                         index=index)
 
 
+class SunAt:
+    """Sun at each row's own interval midpoint, on the site's plane or a device's plane
+    (:func:`sun_base`, :func:`sun_on_plane`), computed once per (timestamp, interval, plane)
+    and kept for the run: ``sun_at(index, interval_s, plane)`` gives a frame with ``elev``,
+    ``aoi``, ``poa_cs`` and ``interval_s``. Each timestamp's values depend on it alone, so a
+    window gets the same sun as the whole history at the same timestamps."""
+
+    _COLS = ["elev", "aoi", "poa_cs"]
+
+    def __init__(self, site: dict):
+        self.site = site
+        self._base: dict[int, pd.DataFrame] = {}  # interval [s] -> sun position, clear sky
+        self._sun: dict[tuple, pd.DataFrame] = {}  # (interval [s], plane) -> sun
+        self._last: dict = {}  # plane -> (index, intervals, sun) of the last call
+
+    def _base_at(self, idx: pd.DatetimeIndex, u: int) -> pd.DataFrame:
+        have = self._base.get(u)
+        missing = idx if have is None else idx.difference(have.index)
+        if len(missing):
+            new = sun_base(missing, self.site, u / 3600.0)
+            have = new if have is None else pd.concat([have, new]).sort_index()
+            self._base[u] = have
+        return have if have.index.equals(idx) else have.reindex(idx)
+
+    def __call__(self, index: pd.DatetimeIndex, interval_s, plane=None) -> pd.DataFrame:
+        cols = self._COLS
+        out = pd.DataFrame(np.full((len(index), 3), np.nan), index=index, columns=cols)
+        if len(index) == 0:
+            return out
+        if interval_s is None:
+            interval_s = np.full(len(index), float(_tau_s(index)))
+        iv = np.round(np.asarray(interval_s, dtype=float)).astype(np.int64)
+        last = self._last.get(plane)  # the inverters of a site usually share one grid
+        if last is not None and np.array_equal(last[1], iv) and last[0].equals(index):
+            return last[2].copy()
+        out["interval_s"] = iv.astype(float)
+        for u in np.unique(iv):
+            m = iv == u
+            idx = index[m] if not m.all() else index
+            have = self._sun.get((int(u), plane))
+            missing = idx if have is None else idx.difference(have.index)
+            if len(missing):
+                new = sun_on_plane(self._base_at(missing, int(u)), self.site, plane)
+                have = new if have is None else pd.concat([have, new]).sort_index()
+                self._sun[(int(u), plane)] = have
+            vals = have.reindex(idx)[cols].to_numpy() if not (
+                len(have) == len(idx) and have.index.equals(idx)) else have[cols].to_numpy()
+            out.iloc[np.flatnonzero(m), :3] = vals
+        self._last[plane] = (index, iv, out.copy())
+        return out
+
+
+def sensor_intervals(entry) -> np.ndarray:
+    """A sensor entry's ``(id, quantity, Series[, interval_s])`` interval per reading in
+    time order: the recorded one, else from the spacing of its timestamps."""
+    x = entry[2]
+    given = entry[3] if len(entry) > 3 and entry[3] is not None else np.full(len(x), np.nan)
+    return fill_unknown_intervals(epoch_s(x.sort_index().index), given)
+
+
+def sensor_sun_for(sensors, planes: dict, sun_at: SunAt) -> tuple[dict, Callable]:
+    """Each sensor's intervals (recorded, else from its spacing) and ``sensor_sun(index,
+    sensor id)``: the sun at its readings' own interval midpoints on its own plane
+    (``planes``, :func:`device_planes`). The flags job and the daily job's sibling check
+    both take the sun this way, so a sensor's clear-day ratios are the same in both."""
+    iv_of = {e[0]: sensor_intervals(e) for e in sensors}
+
+    def sensor_sun(idx: pd.DatetimeIndex, sid: str | None = None) -> pd.DataFrame:
+        iv = iv_of.get(sid)
+        return sun_at(idx, iv if iv is not None and len(iv) == len(idx) else None,
+                      planes.get(sid))
+
+    return iv_of, sensor_sun
+
+
 def device_planes(config_toml: str | None, site: dict) -> dict[str, tuple]:
     """Each device's own planes from the site model (#11), where they differ from the site's:
     inverter id -> ``((Plane, p_dc_kwp), ...)`` of its arrays (trackers included), irradiance
@@ -1329,60 +1404,14 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     n_total = len(inverters) + len(sensors)
     done = 0
     parts: list[pd.DataFrame] = []
-    sun_cache: dict[tuple, pd.DataFrame] = {}  # (interval [s], plane) -> sun at those starts
     cs_cache: dict[tuple, pd.Series] = {}
-
-    base_cache: dict[int, pd.DataFrame] = {}  # interval [s] -> sun position, clear sky
-    last_sun: dict = {}  # plane -> (index, intervals, sun) of the last sun_at call
-
-    def base_at(idx: pd.DatetimeIndex, u: int) -> pd.DataFrame:
-        have = base_cache.get(u)
-        missing = idx if have is None else idx.difference(have.index)
-        if len(missing):
-            new = sun_base(missing, site, u / 3600.0)
-            have = new if have is None else pd.concat([have, new]).sort_index()
-            base_cache[u] = have
-        return have if have.index.equals(idx) else have.reindex(idx)
-
-    def sun_at(index: pd.DatetimeIndex, interval_s, plane=None) -> pd.DataFrame:
-        """Sun at each row's own interval midpoint, on the site's plane or ``plane``;
-        computed once per (timestamp, interval, plane)."""
-        cols = ["elev", "aoi", "poa_cs"]
-        out = pd.DataFrame(np.full((len(index), 3), np.nan), index=index, columns=cols)
-        if len(index) == 0:
-            return out
-        if interval_s is None:
-            interval_s = np.full(len(index), float(_tau_s(index)))
-        iv = np.round(np.asarray(interval_s, dtype=float)).astype(np.int64)
-        last = last_sun.get(plane)  # the inverters of a site usually share one grid
-        if last is not None and np.array_equal(last[1], iv) and last[0].equals(index):
-            return last[2].copy()
-        out["interval_s"] = iv.astype(float)
-        for u in np.unique(iv):
-            m = iv == u
-            idx = index[m] if not m.all() else index
-            have = sun_cache.get((int(u), plane))
-            missing = idx if have is None else idx.difference(have.index)
-            if len(missing):
-                new = sun_on_plane(base_at(missing, int(u)), site, plane)
-                have = new if have is None else pd.concat([have, new]).sort_index()
-                sun_cache[(int(u), plane)] = have
-            vals = have.reindex(idx)[cols].to_numpy() if not (
-                len(have) == len(idx) and have.index.equals(idx)) else have[cols].to_numpy()
-            out.iloc[np.flatnonzero(m), :3] = vals
-        last_sun[plane] = (index, iv, out.copy())
-        return out
+    sun_at = SunAt(site)
 
     def expected_grid(x: pd.Series, iv: np.ndarray) -> tuple[pd.DatetimeIndex, np.ndarray]:
         """The device's expected timestamps: its readings, the intervals missing between them
         and out to the site's span, stepping by each neighbouring reading's interval."""
         ts, step = fill_gaps(epoch_s(x.index), iv, span[0], span[1])
         return pd.DatetimeIndex(pd.to_datetime(ts, unit="s", utc=True), name="ts_utc"), step
-
-    def sensor_intervals(entry) -> np.ndarray:
-        x = entry[2]
-        given = entry[3] if len(entry) > 3 and entry[3] is not None else np.full(len(x), np.nan)
-        return fill_unknown_intervals(epoch_s(x.sort_index().index), given)
 
     # span of the site's sensor data: each sensor's dropouts are judged over it
     spans = [(int(epoch_s(e[2].index).min()), int(epoch_s(e[2].index).max()
@@ -1391,12 +1420,7 @@ def compute_flags(site: dict, inverters: pd.DataFrame, frames, sensors, daily: p
     span = (min(a for a, _b in spans), max(b for _a, b in spans)) if spans else (None, None)
     # 1. plausibility of every sensor, before any diagnosis
     planes = planes or {}
-    iv_of = {e[0]: sensor_intervals(e) for e in sensors}
-
-    def sensor_sun(idx: pd.DatetimeIndex, sid: str | None = None) -> pd.DataFrame:
-        iv = iv_of.get(sid)
-        return sun_at(idx, iv if iv is not None and len(iv) == len(idx) else None,
-                      planes.get(sid))
+    iv_of, sensor_sun = sensor_sun_for(sensors, planes, sun_at)
 
     # an incremental run judges the sensors' new days only (unless a sibling jump was found)
     sp = prior if prior is not None and prior.sensor_window else None
@@ -1614,15 +1638,15 @@ def input_mismatch_for_site(engine: sa.Engine, site_id: str, arrays: dict[str, l
                  "not run: no inverter with two or more loaded inputs and their kWp")
 
 
-def read_sensors(engine: sa.Engine, site_id: str, *, quantities: tuple[str, ...] | None = None
-                 ) -> list[tuple]:
-    """Every sensor channel of a site (optionally only of ``quantities``) as
-    ``(sensor id, quantity, Series on ts_utc, interval [s] per reading)``."""
+def read_sensors(engine: sa.Engine, site_id: str, *, quantities: tuple[str, ...] | None = None,
+                 start_s: int | None = None) -> list[tuple]:
+    """Every sensor channel of a site (optionally only of ``quantities``, from ``start_s``)
+    as ``(sensor id, quantity, Series on ts_utc, interval [s] per reading)``."""
     with engine.connect() as conn:
         setup = dict(sensor_rows=sensor_quantities(conn, site_id),
                      channels=site_channels(conn, site_id),
                      instant=instant_channels(conn, site_id))
-        return _read_sensors(conn, setup, quantities)
+        return _read_sensors(conn, setup, quantities, start_s)
 
 
 def sibling_jumps(sensors, site: dict, *, std_offset_s: int, sun_for=None, prior=None,
@@ -1794,19 +1818,9 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
     """The stored state for an incremental run, or None (and why) when the run must be full."""
     from heliaudit import flags_window as fw
 
-    last = last_computation(engine, site_id, "flags")
-    state = (last or {}).get("params", {}).get("window")
-    if not state:
-        return None, "no earlier flags run with a stored window state"
-    if not state.get("sensor_days"):
-        return None, "the stored state predates the sensors' day judgements (store v7)"
-    if {k: v for k, v in last["params"].items() if k != "window"} != json.loads(
-            to_json(setup["params"])):
-        return None, "detector settings changed since the last flags run"
-    if last.get("software_version") != heliaudit.__version__:
-        return None, "another heliaudit version made the stored flags"
-    if state.get("config_sha256") != setup["site"].get("config_sha256"):
-        return None, "the site configuration changed since the last flags run"
+    state, why = _stored_state(engine, site_id, setup)
+    if state is None:
+        return None, why
     new = batches_after(engine, site_id, state.get("through_batch_id") or 0)
     first_new = min([lo for lo, _hi in new] + ([int(since_s)] if since_s is not None else []),
                     default=state.get("through_s"))
@@ -1820,6 +1834,63 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
     return fw.Prior.from_store(cut, cut_day, parts, read_flag_days(engine, site_id, sensor_ids),
                                state, sensor_ids=[sid for sid, _q in setup["sensor_rows"]]
                                ), f"from {dt.datetime.fromtimestamp(cut, dt.UTC):%Y-%m-%d %H:%M} UTC"
+
+
+def _stored_state(engine: sa.Engine, site_id: str, setup: dict) -> tuple[dict | None, str]:
+    """The last flags run's window state when what it stored is valid now (same detector
+    settings, software version and site configuration, sensors' days stored), else None
+    and why."""
+    last = last_computation(engine, site_id, "flags")
+    state = (last or {}).get("params", {}).get("window")
+    if not state:
+        return None, "no earlier flags run with a stored window state"
+    if not state.get("sensor_days"):
+        return None, "the stored state predates the sensors' day judgements (store v7)"
+    if {k: v for k, v in last["params"].items() if k != "window"} != json.loads(
+            to_json(setup["params"])):
+        return None, "detector settings changed since the last flags run"
+    if last.get("software_version") != heliaudit.__version__:
+        return None, "another heliaudit version made the stored flags"
+    if state.get("config_sha256") != setup["site"].get("config_sha256"):
+        return None, "the site configuration changed since the last flags run"
+    return state, ""
+
+
+def stored_poa_days(engine: sa.Engine, site_id: str, first_day: int):
+    """For the daily job's sibling check (issue #16): the POA sensors' day judgements the
+    last flags run stored, before a cut day, so only the readings from the cut (less the
+    sensors' look-back) are read and judged; None when they cannot stand in for a judgement
+    of the whole history (no valid stored state, a sibling jump being judged whole, a POA
+    sensor with readings before the cut but no stored days).
+
+    The cut is the earliest of ``first_day`` (the first day this daily run recomputes), the
+    day of the last reading the flags run saw and the first day of any batch loaded since
+    it, so every stored day was judged on the readings the store holds now. Returns an
+    object with ``cut_day``, ``sensor_days`` (as :class:`heliaudit.flags_window.Prior`
+    holds them) and ``read_from_s`` (UTC s)."""
+    from types import SimpleNamespace
+
+    from heliaudit import flags_window as fw
+
+    setup = _site_setup(engine, site_id)
+    state, _why = _stored_state(engine, site_id, setup)
+    if state is None or state.get("sensors_whole") or state.get("through_s") is None:
+        return None
+    off_s = setup["off_s"]
+    new = batches_after(engine, site_id, state.get("through_batch_id") or 0)
+    first_s = min([int(state["through_s"]), *(int(lo) for lo, _hi in new)])
+    cut_day = min(int(first_day), (first_s + off_s) // 86400)
+    cut_s = cut_day * 86400 - off_s
+    poa = [sid for sid, q in setup["sensor_rows"] if q == "poa_wm2"]
+    days = read_flag_days(engine, site_id, poa, inverters=False)
+    days = days[days["day_no"] < cut_day]
+    sensor_days = {sid: g.reset_index(drop=True) for sid, g in days.groupby("device_id")}
+    spans = state.get("sensor_span", {})
+    if any(sid not in sensor_days and sid in spans and int(spans[sid][0]) < cut_s
+           for sid in poa):
+        return None
+    return SimpleNamespace(cut_day=cut_day, sensor_days=sensor_days,
+                           read_from_s=cut_s - fw.INTERVAL_LOOKBACK_DAYS * 86400)
 
 
 def _sensor_spans(sensors, prior) -> dict:
