@@ -12,9 +12,10 @@ copies of one store, twice each, load 3.0-3.1 on 2 shared CPUs: one new week cos
 of the full compute's wall time and 8.1 / 7.2 % of its CPU before, 5.7 / 5.5 % wall and
 5.4 / 5.4 % CPU after (flags window 3.31 / 3.07 s -> 2.15 / 2.12 s; full compute CPU 43-46 s
 both); again after the soiling clear-day check (588da25 -> 8fb90ee, load 0.5-1.5): CPU
-8.3 / 8.4 % -> 5.7 / 6.2 %, wall 9.9 / 12.6 % -> 6.7 / 6.2 %. The <= 5 % target is not met:
-the whole-history detectors still read the whole daily table (about 0.5 s for 184,000 rows)
-and soiling costs 0.3-0.4 s. Wall-time shares swing with
+8.3 / 8.4 % -> 5.7 / 6.2 %, wall 9.9 / 12.6 % -> 6.7 / 6.2 %; store v9 (the flags job's packed
+copy of the daily columns, line_vs_step by running medians), 4f45e9c -> this version, twice
+each, load 0.7-1.2: CPU 5.1 / 5.7 % -> 4.2 / 4.6 %, wall 6.1 / 6.8 % -> 4.9 / 5.3 % (flags
+window 1.89 / 1.99 s -> 1.29 / 1.48 s). Wall-time shares swing with
 the machine's load (a slowed full run makes the week look cheap): compare the CPU shares.
 Each run appends a week to the store it is given: to compare two versions, run each on its own
 copy of the store (``--db``), as the figures above were.
