@@ -322,3 +322,31 @@ def test_v7_store_packs_the_inverters_days_and_reads_them_back_unchanged(tmp_pat
 def test_v7_store_packs_the_inverters_days_on_postgres(pg_engine):
     _v7_flag_days(pg_engine)
     _assert_v8_keeps_the_days(pg_engine)
+
+
+# ---------------------------------------------------------------- v9: the flags' daily pack (#16)
+
+def _v8_then_upgrade(eng) -> None:
+    """A v8 store (no flag_daily_pack) is brought to v9: the table exists and is empty (a
+    cache the next flags run fills; until then the daily table is read, as before)."""
+    with eng.begin() as conn:
+        schema.flag_daily_pack.drop(conn)
+        conn.execute(schema.schema_version.delete())
+        conn.execute(schema.schema_version.insert().values(version=8, applied_utc="x", note="v8"))
+    assert not sa.inspect(eng).has_table("flag_daily_pack")
+    assert upgrade(eng) == schema.SCHEMA_VERSION
+    assert sa.inspect(eng).has_table("flag_daily_pack")
+    with eng.connect() as conn:
+        assert conn.execute(sa.select(sa.func.count()).select_from(
+            schema.flag_daily_pack)).scalar() == 0
+        note = conn.execute(sa.select(schema.schema_version.c.note).where(
+            schema.schema_version.c.version == 9)).scalar()
+    assert "flag_daily_pack" in note
+
+
+def test_v8_store_gets_the_empty_daily_pack(tmp_path):
+    _v8_then_upgrade(make_engine(tmp_path / "v8.sqlite"))
+
+
+def test_v8_store_gets_the_empty_daily_pack_on_postgres(pg_engine):
+    _v8_then_upgrade(pg_engine)

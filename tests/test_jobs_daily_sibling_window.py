@@ -53,10 +53,9 @@ def _data():
     return ts.as_unit("s").asi8, {"poa1": g1, "poa2": g2, "tmod1": t_mod, "inv1": p, "inv2": p}
 
 
-def _store(tmp_path, boundary_day: int):
+def _store(eng, boundary_day: int):
     """History to ``boundary_day``, daily table and flags computed; then the rest loaded.
     Returns the engine and the UTC s span of the new readings."""
-    eng = make_store(tmp_path)
     ts, v = _data()
     old = ts < ts[0] + boundary_day * 86400
     with eng.begin() as c:
@@ -118,7 +117,7 @@ def _same(window: pd.DataFrame, whole: pd.DataFrame) -> None:
 # whole (as the flags job does after a jump)
 @pytest.mark.parametrize("boundary_day,windowed", [(45, True), (80, False)])
 def test_range_run_equals_whole_history(tmp_path, monkeypatch, boundary_day, windowed):
-    eng, lo, hi = _store(tmp_path, boundary_day)
+    eng, lo, hi = _store(make_store(tmp_path), boundary_day)
     window, whole, starts = _window_then_whole(eng, lo, hi, monkeypatch)
     _same(window, whole)
     # a windowed run read the POA sensors from the cut (the day of the last reading the
@@ -132,7 +131,7 @@ def test_range_run_equals_whole_history(tmp_path, monkeypatch, boundary_day, win
 
 
 def test_untrusted_flags_state_means_the_whole_history(tmp_path, monkeypatch):
-    eng, lo, hi = _store(tmp_path, 45)
+    eng, lo, hi = _store(make_store(tmp_path), 45)
     with eng.begin() as c:  # as if the last flags run had other detector settings
         t = schema.computation
         cid, params = c.execute(sa.select(t.c.computation_id, t.c.params_json).where(
@@ -143,3 +142,11 @@ def test_untrusted_flags_state_means_the_whole_history(tmp_path, monkeypatch):
     window, whole, starts = _window_then_whole(eng, lo, hi, monkeypatch)
     _same(window, whole)
     assert starts == [None, None]
+
+
+def test_range_run_equals_whole_history_on_postgres(pg_engine, monkeypatch):
+    """The same on PostgreSQL: the stored POA days (``flag_day``) read back as on SQLite."""
+    eng, lo, hi = _store(pg_engine, 45)
+    window, whole, starts = _window_then_whole(eng, lo, hi, monkeypatch)
+    _same(window, whole)
+    assert starts == [lo - 3 * 86400, None]
