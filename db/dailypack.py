@@ -42,19 +42,21 @@ def _ordered(frame: pd.DataFrame) -> pd.DataFrame:
 
 
 def _day_numbers(days: pd.Series) -> np.ndarray:
-    """``datetime.date`` values as days since 1970-01-01 (one conversion per distinct day)."""
+    """Days (``datetime64`` midnights, or ``datetime.date`` values, converted once per
+    distinct day) as days since 1970-01-01."""
+    if pd.api.types.is_datetime64_any_dtype(days):
+        return days.to_numpy("datetime64[D]").astype(np.int64)
     codes, uniq = pd.factorize(days.to_numpy(object))
     return np.array([(d - _EPOCH).days for d in uniq], dtype=np.int64)[codes] if len(uniq) \
         else np.empty(0, np.int64)
 
 
-def _dates(day_no: np.ndarray) -> np.ndarray:
-    """Days since 1970-01-01 as an object array of ``datetime.date`` (as :func:`db.daily.
-    daily_table` returns them)."""
-    codes, uniq = pd.factorize(day_no)
-    out = np.empty(len(uniq), dtype=object)
-    out[:] = [_EPOCH + dt.timedelta(days=int(u)) for u in uniq]
-    return out[codes]
+def _as_datetime64(frame: pd.DataFrame) -> pd.DataFrame:
+    """``day`` as ``datetime64[ns]`` midnights (from ``datetime.date``, one conversion per
+    distinct day)."""
+    frame = frame.copy()
+    frame["day"] = (_day_numbers(frame["day"]) * 86400 * 10**9).astype("datetime64[ns]")
+    return frame
 
 
 def _value_columns(columns) -> list[str]:
@@ -68,7 +70,9 @@ def read_daily_inputs(engine: sa.Engine, site_id: str, columns, *,
                       from_day: int | None = None) -> tuple[pd.DataFrame, dict]:
     """The daily rows of a site's inverters with ``columns``, as
     ``daily_table(engine, site_id, with_text=False, columns=columns)`` returns them (same
-    columns, values and types), rows by device (code-point order) and day.
+    columns, values and types, except ``day``: ``datetime64[ns]`` midnights instead of
+    ``datetime.date`` objects, which cost more to build and to compare than the rest of a
+    long history), rows by device (code-point order) and day.
 
     With ``from_day`` (days since 1970-01-01) the days before it come from the pack where
     the pack provably holds them (see the module notes), the rest from ``daily_inverter``.
@@ -82,7 +86,7 @@ def read_daily_inputs(engine: sa.Engine, site_id: str, columns, *,
     if from_day is None:
         frame = daily_table(engine, site_id, with_text=False, columns=columns)
         info["rows_read"] = len(frame)
-        return _ordered(frame), info
+        return _ordered(_as_datetime64(frame)), info
     b = int(from_day)
     ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
     b_arg = (_EPOCH + dt.timedelta(days=b))
@@ -123,27 +127,43 @@ def read_daily_inputs(engine: sa.Engine, site_id: str, columns, *,
             parts.append(daily_table(conn, site_id, device_ids=whole,
                                      end=b_arg - dt.timedelta(days=1), with_text=False,
                                      columns=columns))
+    parts = [_as_datetime64(p) for p in parts]
     info["rows_read"] = sum(len(p) for p in parts)
     info["whole"] = whole
+    # each part's device codes (code-point order) and day numbers, for one sort of the rows
+    names_all = sorted({str(x) for p in parts for x in p["device_id"]} | set(kept))
+    rank = {d: k for k, d in enumerate(names_all)}
+    keys = [(np.array([rank[str(x)] for x in p["device_id"]], dtype=np.int64),
+             _day_numbers(p["day"])) for p in parts]
     if kept:
-        parts.append(_frame_of_packs(kept, names, parts[0].columns))
+        devs = sorted(kept)
+        parts.append(_frame_of_packs(kept, devs, names, parts[0].columns))
         info["packed_days"] = len(parts[-1])
-    parts = [p for p in parts if len(p)]
-    if not parts:
-        return daily_table(engine, site_id, device_ids=[], with_text=False,
-                           columns=columns), info
-    frame = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0]
-    return _ordered(frame), info
+        keys.append((np.repeat(np.array([rank[d] for d in devs], dtype=np.int64),
+                               [len(kept[d][0]) for d in devs]),
+                     np.concatenate([kept[d][0] for d in devs])))
+    keep = [k for k, p in enumerate(parts) if len(p)]
+    if not keep:
+        return _as_datetime64(daily_table(engine, site_id, device_ids=[], with_text=False,
+                                          columns=columns)), info
+    frame = pd.concat([parts[k] for k in keep], ignore_index=True) if len(keep) > 1 \
+        else parts[keep[0]]
+    order = np.lexsort((np.concatenate([keys[k][1] for k in keep]),
+                        np.concatenate([keys[k][0] for k in keep])))
+    if (np.diff(order) == 1).all():
+        return frame.reset_index(drop=True), info
+    return frame.iloc[order].reset_index(drop=True), info
 
 
-def _frame_of_packs(kept: dict, names: list[str], out_cols) -> pd.DataFrame:
-    """Packed days as daily-table rows (the types :func:`db.daily.daily_table` gives)."""
-    devs = list(kept)
+def _frame_of_packs(kept: dict, devs: list[str], names: list[str], out_cols) -> pd.DataFrame:
+    """Packed days of ``devs`` as daily-table rows (the types :func:`db.daily.daily_table`
+    gives)."""
     n = np.array([len(kept[d][0]) for d in devs], dtype=np.int64)
     vals = np.concatenate([kept[d][1] for d in devs], axis=1)
     data: dict[str, object] = {
         "device_id": pd.Series(np.repeat(np.array(devs, dtype=object), n)),
-        "day": pd.Series(_dates(np.concatenate([kept[d][0] for d in devs])), dtype=object)}
+        "day": (np.concatenate([kept[d][0] for d in devs]) * 86400 * 10**9
+                ).astype("datetime64[ns]")}
     for j, c in enumerate(names):
         v = vals[j]
         if c == "day_valid":

@@ -155,13 +155,14 @@ def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
 
 
 def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None, *,
-                   inverters: bool = True) -> pd.DataFrame:
+                   inverters: bool = True, with_packs: bool = True) -> pd.DataFrame:
     """The per-device daily inputs kept by the last flags run: the inverters' daily inputs
     (``flag_day_pack``, and any ``flag_day`` rows of a store not yet migrated) and the
     sensors' day judgements (``flag_day``; arrays as numpy float arrays, None where absent),
     one row per device and day, by device (code-point order) and day. With ``sensor_ids``
     the other devices' ``flag_day`` rows are read without the sensor columns (NULL for an
-    inverter; issue #16); with ``inverters`` False as well, only those sensors' rows are read.
+    inverter; issue #16); with ``inverters`` False as well, only those sensors' rows are read;
+    with ``with_packs`` False the packed days are left to :func:`read_inverter_days`.
     Columns are built whole (:mod:`db.rowcols`), not row by row."""
     ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
     inv_cols = DAY_COLUMNS[:6]
@@ -170,7 +171,7 @@ def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None, *,
         cur = conn.connection.cursor()
         try:
             packs = []
-            if inverters or sensor_ids is None:
+            if with_packs and (inverters or sensor_ids is None):
                 cur.execute(f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
                             f"flag_day_pack WHERE site_id = {ph}", [site_id])
                 packs = cur.fetchall()
@@ -266,6 +267,34 @@ def pack_days(device_days: pd.DataFrame) -> dict:
     have = clear != None  # noqa: E711 - elementwise on an object array
     code[have] = clear[have].astype(bool).astype(np.int8)
     out["clock_clear_blob"] = code.astype("<i1").tobytes()
+    return out
+
+
+def read_inverter_days(engine: sa.Engine, site_id: str) -> dict[str, dict[str, np.ndarray]]:
+    """Each inverter's packed daily inputs (``flag_day_pack``) as arrays sorted by day:
+    ``day_no`` (int64), ``soiling_pi``, ``withheld_kwh``, ``clock_delta_min`` (float, NaN =
+    none) and ``clock_clear`` (int8: 1, 0, -1 = none); no DataFrame of every day is built
+    (issue #16: an incremental run takes each inverter's days before its cut as slices)."""
+    ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
+    with engine.connect() as conn:
+        cur = conn.connection.cursor()
+        try:
+            cur.execute(f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
+                        f"flag_day_pack WHERE site_id = {ph}", [site_id])
+            packs = cur.fetchall()
+        finally:
+            cur.close()
+    out = {}
+    for r in packs:
+        n = int(r[1])
+        cols = {c: np.frombuffer(bytes(r[2 + k]), dtype=_PACK_DTYPES[c])
+                for k, c in enumerate(PACK_COLUMNS)}
+        if any(len(a) != n for a in cols.values()):
+            raise ValueError(f"flag_day_pack: {r[0]} holds arrays of another length than "
+                             f"its {n} days")
+        out[str(r[0])] = {c: (a.astype(np.int64) if c == "day_no" else a.astype(np.int8)
+                              if c == "clock_clear" else a.astype(float))
+                          for c, a in cols.items()}
     return out
 
 

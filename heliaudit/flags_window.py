@@ -238,6 +238,9 @@ class Prior:
     sensor_parts: pd.DataFrame | None = None
     #: sensors whose flags and days this run replaces whole (all of them when sensors_whole)
     whole_sensors: set = field(default_factory=set)
+    #: inverter id -> its packed daily inputs before ``cut_day`` (:func:`db.flags.
+    #: read_inverter_days` arrays), besides any inverter rows in ``days``
+    inverter_days: dict = field(default_factory=dict)
 
     @property
     def sensor_window(self) -> bool:
@@ -245,7 +248,7 @@ class Prior:
 
     @classmethod
     def from_store(cls, cut_s: int, cut_day: int, parts: pd.DataFrame, days: pd.DataFrame,
-                   state: dict, sensor_ids=()) -> Prior:
+                   state: dict, sensor_ids=(), inverter_days: dict | None = None) -> Prior:
         sensors_whole = bool(state.get("sensors_whole", False))
         sensor_ids = set(sensor_ids)
         is_sensor = days["device_id"].isin(list(sensor_ids))
@@ -261,7 +264,12 @@ class Prior:
         kept = kept[~s_kept]
         late = kept["kind"] == "input_mismatch"
         d = days[(days["day_no"] < cut_day) & ~days["device_id"].isin(list(full))]
-        return cls(cut_s=int(cut_s), cut_day=int(cut_day),
+        packed = {}
+        for dev, arr in (inverter_days or {}).items():
+            k = int(np.searchsorted(arr["day_no"], int(cut_day)))
+            if dev not in full and k:
+                packed[dev] = {c: a[:k] for c, a in arr.items()}
+        return cls(cut_s=int(cut_s), cut_day=int(cut_day), inverter_days=packed,
                    parts=kept[~late][list(FLAG_COLUMNS)].reset_index(drop=True),
                    late_parts=kept[late][list(FLAG_COLUMNS)].reset_index(drop=True),
                    days=d.reset_index(drop=True),
@@ -316,7 +324,25 @@ class Prior:
 
     def _stored_by_device(self) -> dict:
         """Inverter id -> its stored (withheld, soiling index, clock offsets) before the cut
-        day, each None when it has no value: slices of whole columns (issue #16)."""
+        day, each None when it has no value: slices of whole columns (issue #16), or of each
+        inverter's packed arrays (``inverter_days``)."""
+        out = self._rows_by_device()
+        for dev, arr in self.inverter_days.items():
+            if dev in out:  # rows and a pack of one inverter (not written by flags runs)
+                raise ValueError(f"flag_day: inverter {dev} has both rows and a packed row")
+            i = _day_ts_index(arr["day_no"])
+            w, so, delta, code = (arr["withheld_kwh"], arr["soiling_pi"],
+                                  arr["clock_delta_min"], arr["clock_clear"])
+            mw, ms, mc = ~np.isnan(w), ~np.isnan(so), code >= 0
+            out[dev] = (
+                pd.Series(w[mw], index=i[mw]) if mw.any() else None,
+                pd.Series(so[ms], index=i[ms]) if ms.any() else None,
+                pd.DataFrame({"delta_min": delta[mc], "clear": code[mc] == 1},
+                             index=i[mc]) if mc.any() else None)
+        return out
+
+    def _rows_by_device(self) -> dict:
+        """:meth:`_stored_by_device` of the inverter rows in ``days``."""
         d = self.days
         if not len(d):
             return {}

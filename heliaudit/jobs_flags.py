@@ -53,7 +53,7 @@ from db.computations import (
 )
 from db.dailypack import read_daily_inputs, write_daily_pack
 from db.degradation import last_computation
-from db.flags import read_flag_days, read_flag_parts, store_flags
+from db.flags import read_flag_days, read_flag_parts, read_inverter_days, store_flags
 from db.jsontext import to_json
 from db.queries import sensor_quantities
 from db.registry import SiteNotFoundError, site_row  # noqa: F401 (re-exported)
@@ -1831,8 +1831,10 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
                       state.get("full_devices", []))
     cut_day = (cut + setup["off_s"]) // 86400
     sensor_ids = [sid for sid, _q in setup["sensor_rows"]]
-    return fw.Prior.from_store(cut, cut_day, parts, read_flag_days(engine, site_id, sensor_ids),
-                               state, sensor_ids=[sid for sid, _q in setup["sensor_rows"]]
+    return fw.Prior.from_store(cut, cut_day, parts,
+                               read_flag_days(engine, site_id, sensor_ids, with_packs=False),
+                               state, sensor_ids=sensor_ids,
+                               inverter_days=read_inverter_days(engine, site_id)
                                ), f"from {dt.datetime.fromtimestamp(cut, dt.UTC):%Y-%m-%d %H:%M} UTC"
 
 
