@@ -9,8 +9,8 @@ arrays (as :mod:`db.daypack` packs readings), written by each flags run from wha
 It is a cache, never the source: :func:`read_daily_inputs` takes a packed day only when the
 ``daily_inverter`` rows before the boundary day are provably the ones packed — per inverter
 the same number of rows, none written by a daily computation newer than the pack (a daily
-recomputation stamps every row it writes with its own, larger ``computation_id``; a deleted
-row lowers the count). Anything else, or a pack of other columns, is read from the table.
+recomputation stamps every row it writes with its own, larger ``computation_id``, and
+computation rows are never deleted, so ids only grow; a deleted row lowers the count). Anything else, or a pack of other columns, is read from the table.
 """
 
 from __future__ import annotations
@@ -53,9 +53,10 @@ def _day_numbers(days: pd.Series) -> np.ndarray:
 
 def _as_datetime64(frame: pd.DataFrame) -> pd.DataFrame:
     """``day`` as ``datetime64[ns]`` midnights (from ``datetime.date``, one conversion per
-    distinct day)."""
+    distinct day), ``computation_id`` numeric (int64, float64 with NaN where unknown)."""
     frame = frame.copy()
     frame["day"] = (_day_numbers(frame["day"]) * 86400 * 10**9).astype("datetime64[ns]")
+    frame["computation_id"] = pd.to_numeric(frame["computation_id"])
     return frame
 
 
@@ -72,7 +73,8 @@ def read_daily_inputs(engine: sa.Engine, site_id: str, columns, *,
     ``daily_table(engine, site_id, with_text=False, columns=columns)`` returns them (same
     columns, values and types, except ``day``: ``datetime64[ns]`` midnights instead of
     ``datetime.date`` objects, which cost more to build and to compare than the rest of a
-    long history), rows by device (code-point order) and day.
+    long history; and ``computation_id`` always numeric), rows by device (code-point order)
+    and day.
 
     With ``from_day`` (days since 1970-01-01) the days before it come from the pack where
     the pack provably holds them (see the module notes), the rest from ``daily_inverter``.
@@ -178,8 +180,9 @@ def _frame_of_packs(kept: dict, devs: list[str], names: list[str], out_cols) -> 
 def write_daily_pack(conn: sa.Connection, site_id: str, frame: pd.DataFrame, columns) -> int:
     """Replace the site's packs by ``frame`` (daily-table rows with ``columns`` and
     ``computation_id``, one row per inverter and day) in ``conn``'s transaction; return the
-    days packed. Raises ``ValueError`` (nothing written) on a day given twice for one
-    inverter or a row without a computation."""
+    days packed. An inverter with a row without its ``computation_id`` is not packed (its
+    rows could not be checked later; it is read from the table). Raises ``ValueError``
+    (nothing written) on a day given twice for one inverter."""
     names = _value_columns(columns)
     t = schema.flag_daily_pack
     rows = []
@@ -193,12 +196,12 @@ def write_daily_pack(conn: sa.Connection, site_id: str, frame: pd.DataFrame, col
         vals = np.empty((len(names), len(frame)), dtype="<f8")
         for j, c in enumerate(names):
             vals[j] = pd.to_numeric(frame[c], errors="coerce").to_numpy(float)[order]
-        if not np.isfinite(vals[-1]).all():
-            raise ValueError("flag_daily_pack: a daily row without its computation_id")
         bounds = np.searchsorted(codes, np.arange(len(devs) + 1))
         cols_json = json.dumps(names)
         for k, dev in enumerate(devs):
             sl = slice(bounds[k], bounds[k + 1])
+            if not np.isfinite(vals[-1, sl]).all():
+                continue  # a row without its computation cannot be checked later: not packed
             rows.append({"site_id": site_id, "device_id": str(dev), "n_days": int(sl.stop - sl.start),
                          "columns_json": cols_json,
                          "day_no_blob": day_no[sl].astype("<i4").tobytes(),
@@ -206,4 +209,4 @@ def write_daily_pack(conn: sa.Connection, site_id: str, frame: pd.DataFrame, col
     conn.execute(t.delete().where(t.c.site_id == site_id))
     if rows:
         conn.execute(t.insert(), rows)
-    return len(frame)
+    return sum(r["n_days"] for r in rows)

@@ -61,9 +61,11 @@ def _store(eng, devs=("inv1", "inv2", "inv3")) -> None:
 
 def _table(eng, cols=COLS) -> pd.DataFrame:
     """The table's rows as the pack reader gives them: by device and day, ``day`` as
-    datetime64[ns] midnights (the one type it changes, on purpose)."""
+    datetime64[ns] midnights and ``computation_id`` numeric (the types it changes, on
+    purpose)."""
     t = daily_table(eng, "s1", with_text=False, columns=cols)
     t["day"] = pd.to_datetime(t["day"]).astype("datetime64[ns]")
+    t["computation_id"] = pd.to_numeric(t["computation_id"])
     return t.sort_values(["device_id", "day"], key=lambda s: s.astype(str)).reset_index(drop=True)
 
 
@@ -145,3 +147,19 @@ def test_pack_refuses_a_day_twice_and_writes_nothing(tmp_path):
     with eng.connect() as conn:
         assert conn.execute(sa.select(sa.func.count()).select_from(
             schema.flag_daily_pack)).scalar() == 0
+
+
+def test_rows_without_a_computation_are_not_packed_but_read(tmp_path):
+    # a row whose computation is unknown (written outside a daily job) could not be checked
+    # against the pack later: that inverter is not packed and is read from the table
+    eng = make_store(tmp_path)
+    _store(eng)
+    write_daily(eng, "s1", _rows(["inv3"], 0, 40, seed=5), first_day=D0,
+                last_day=D0 + dt.timedelta(days=39), computation_id=None)
+    with eng.begin() as conn:
+        n = write_daily_pack(conn, "s1", daily_table(conn, "s1", with_text=False, columns=COLS),
+                             COLS)
+    assert n == 2 * 40
+    got, info = read_daily_inputs(eng, "s1", COLS, from_day=B)
+    _same(got, eng)
+    assert info["whole"] == ["inv3"] and info["packed_days"] == 2 * 24
