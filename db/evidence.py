@@ -60,9 +60,15 @@ def contributing_batches(engine: sa.Engine, site_id: str, device_ids=None,
     return out
 
 
+#: What a flags run keeps for the next incremental one (issue #16): derived from results.
+FLAG_STATE_TABLES = ("flag_part", "flag_day", "flag_day_pack", "flag_daily_pack")
+
+
 def _is_result_table(t: sa.Table) -> bool:
-    """Results are recomputed in the scratch store, not copied."""
-    return t.name in ("computation", "schema_version") or "computation_id" in t.c
+    """Results, and the state flags runs keep for the next run, are recomputed in the
+    scratch store, not copied."""
+    return (t.name in ("computation", "schema_version", *FLAG_STATE_TABLES)
+            or "computation_id" in t.c)
 
 
 def copy_site_window(src: sa.Engine, dst: sa.Engine, site_id: str, start_s: int | None,
@@ -72,8 +78,9 @@ def copy_site_window(src: sa.Engine, dst: sa.Engine, site_id: str, start_s: int 
     Copied: every table keyed by the site, its devices or its channels (site with its stored
     configuration, devices, inverter and sensor rows, channels and any per-device table other
     topics add), the ingest log (batches, not rejected rows) and the readings in
-    ``[start_s, end_s)``. Not copied: results (any table with a ``computation_id`` column and
-    the computation rows), which the caller recomputes. Primary keys are kept, so references
+    ``[start_s, end_s)``. Not copied: results (any table with a ``computation_id`` column, the
+    computation rows and the flags' kept state, :data:`FLAG_STATE_TABLES`), which the caller
+    recomputes. Primary keys are kept, so references
     stay valid. Returns ``{table: rows copied}``.
     """
     counts: dict[str, int] = {}

@@ -421,3 +421,26 @@ def test_report_lays_out_a_large_fleet(store, tmp_path):
     text = " ".join(pg.extract_text() for pg in reader.pages)
     assert len(reader.pages) > 12 and "INV-04-5: recommended rate" in text
     assert f"page {len(reader.pages)} of {len(reader.pages)}" in text
+
+
+def test_copy_leaves_results_and_the_flags_state_behind(store, tmp_path):
+    # the pack recomputes everything in a scratch store from the copied inputs; the state a
+    # flags run keeps for the next one (issue #16: flag_part, flag_day, flag_day_pack and the
+    # v9 flag_daily_pack) is derived from results and must not be carried over stale
+    import sqlalchemy as sa
+
+    from db import schema
+    from db.evidence import FLAG_STATE_TABLES, copy_site_window
+
+    with store["engine"].connect() as c:
+        have = {t: c.execute(sa.select(sa.func.count()).select_from(schema.metadata.tables[t]))
+                .scalar() for t in FLAG_STATE_TABLES}
+    assert have["flag_daily_pack"] > 0 and have["flag_day_pack"] > 0
+    dst = make_engine(tmp_path / "scratch.sqlite")
+    counts = copy_site_window(store["engine"], dst, SITE, None, None)
+    assert not set(FLAG_STATE_TABLES) & set(counts)
+    assert counts["site"] == 1 and counts["channel"] > 0
+    with dst.connect() as c:
+        for t in FLAG_STATE_TABLES:
+            assert c.execute(sa.select(sa.func.count()).select_from(
+                schema.metadata.tables[t])).scalar() == 0
