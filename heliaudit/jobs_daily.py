@@ -119,7 +119,8 @@ def _fleet_sensor_checks(engine: sa.Engine, site_id: str, site: dict, off_s: int
     the readings from the cut are read; the clear-day ratios and the jumps found are the same
     as from the whole history, the sun being taken as the flags job takes it
     (:func:`heliaudit.jobs_flags.sensor_sun_for`). Insolation is then known from the cut on,
-    which covers the recomputed days."""
+    which covers the recomputed days; a site with fewer than two POA sensors has no sibling
+    check, and its insolation is read from the day before ``first_day``."""
     from heliaudit.jobs_flags import (
         SunAt,
         daily_insolation,
@@ -130,6 +131,12 @@ def _fleet_sensor_checks(engine: sa.Engine, site_id: str, site: dict, off_s: int
         stored_poa_days,
     )
 
+    with engine.connect() as conn:
+        n_poa = sum(q == "poa_wm2" for _sid, q in queries.sensor_quantities(conn, site_id))
+    if first_day is not None and n_poa < 2:  # no siblings: insolation of the run's days only
+        sensors = read_sensors(engine, site_id, quantities=("poa_wm2",),
+                               start_s=(int(first_day) - 1) * 86400 - off_s)
+        return {}, {e[0]: daily_insolation(e[2], off_s, e[3]) for e in sensors}
     prior = None if first_day is None else stored_poa_days(engine, site_id, first_day)
     sensors = read_sensors(engine, site_id, quantities=("poa_wm2",),
                            start_s=None if prior is None else prior.read_from_s)

@@ -53,17 +53,18 @@ def _data():
     return ts.as_unit("s").asi8, {"poa1": g1, "poa2": g2, "tmod1": t_mod, "inv1": p, "inv2": p}
 
 
-def _store(eng, boundary_day: int):
+def _store(eng, boundary_day: int, poa=("poa1", "poa2")):
     """History to ``boundary_day``, daily table and flags computed; then the rest loaded.
     Returns the engine and the UTC s span of the new readings."""
     ts, v = _data()
+    v = {k: a for k, a in v.items() if k in poa or not k.startswith("poa")}
     old = ts < ts[0] + boundary_day * 86400
     with eng.begin() as c:
         add_site(c, "s1", timezone="UTC", latitude_deg=LAT, longitude_deg=LON, altitude_m=ALT,
                  tilt_deg=TILT, azimuth_deg=AZ)
-        ch = {q: add_sensor(c, "s1", q, "poa_wm2") for q in ("poa1", "poa2")}
+        ch = {q: add_sensor(c, "s1", q, "poa_wm2") for q in poa}
         ch["tmod1"] = add_sensor(c, "s1", "tmod1", "t_module_c")
-        for inv, sensor in (("inv1", "poa1"), ("inv2", "poa2")):
+        for inv, sensor in (("inv1", poa[0]), ("inv2", poa[-1])):
             ch[inv] = add_inverter(c, "s1", inv, poa_sensor_id=sensor, t_module_sensor_id="tmod1",
                                    p_dc_kwp=100.0, p_ac_max_kw=95.0, eta_inv_nom=0.96)["p_ac_kw"]
         for k, arr in v.items():
@@ -150,3 +151,12 @@ def test_range_run_equals_whole_history_on_postgres(pg_engine, monkeypatch):
     window, whole, starts = _window_then_whole(eng, lo, hi, monkeypatch)
     _same(window, whole)
     assert starts == [lo - 3 * 86400, None]
+
+
+def test_one_poa_sensor_reads_only_the_run_days(tmp_path, monkeypatch):
+    """No sibling to compare with: the range run reads its POA sensor from the day before
+    its first day (its insolation feeds the high-reading check of the run's days only)."""
+    eng, lo, hi = _store(make_store(tmp_path), 45, poa=("poa1",))
+    window, whole, starts = _window_then_whole(eng, lo, hi, monkeypatch)
+    _same(window, whole)
+    assert starts == [lo - 86400, None]
