@@ -129,7 +129,7 @@ def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None
                   and (columns is None or c in columns)]
     cols = ["device_id", "day", *value_cols, "computation_id"]
     # raw DBAPI cursor: a year of a 100-inverter site is ~36 000 rows x 30 columns
-    ph = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+    ph = rowcols.placeholder(conn)
     sql = (f"SELECT d.device_id, t.day, {', '.join('t.' + c for c in value_cols)}, "
            f"t.computation_id FROM daily_inverter t JOIN device d ON d.device_pk = t.device_pk "
            f"WHERE d.site_id = {ph}")
@@ -147,12 +147,7 @@ def daily_table(engine: sa.Engine | sa.Connection, site_id: str, device_ids=None
             sql += f" AND t.day {op} {ph}"
             args.append(val.isoformat() if iso else val)
     sql += " ORDER BY d.device_id, t.day"
-    cur = conn.connection.cursor()
-    try:
-        cur.execute(sql, args)
-        rows = cur.fetchall()
-    finally:
-        cur.close()
+    rows = rowcols.fetchall(conn, sql, args)
     out_cols = ["device_id", "day", *(VALUE_COLUMNS if columns is None else value_cols),
                 "computation_id"]
     if not rows:

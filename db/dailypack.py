@@ -22,23 +22,11 @@ import numpy as np
 import pandas as pd
 import sqlalchemy as sa
 
-from db import schema
+from db import rowcols, schema
 from db.daily import _INT_COLUMNS, VALUE_COLUMNS, daily_table
 from db.engine import is_sqlite
 
 _EPOCH = dt.date(1970, 1, 1)
-
-
-def _ordered(frame: pd.DataFrame) -> pd.DataFrame:
-    """Rows by device (code-point order, whatever the server's collation) and day."""
-    if len(frame) < 2:
-        return frame.reset_index(drop=True)
-    codes, _u = pd.factorize(frame["device_id"].to_numpy(object), sort=True)
-    day_no = _day_numbers(frame["day"])
-    order = np.lexsort((day_no, codes))
-    if (np.diff(order) == 1).all():
-        return frame.reset_index(drop=True)
-    return frame.iloc[order].reset_index(drop=True)
 
 
 def _day_numbers(days: pd.Series) -> np.ndarray:
@@ -85,58 +73,54 @@ def read_daily_inputs(engine: sa.Engine, site_id: str, columns, *,
     """
     names = _value_columns(columns)
     info = {"packed_days": 0, "rows_read": 0, "whole": [], "pack_last_day": None}
+    kept: dict[str, tuple[np.ndarray, np.ndarray]] = {}
     if from_day is None:
-        frame = daily_table(engine, site_id, with_text=False, columns=columns)
-        info["rows_read"] = len(frame)
-        return _ordered(_as_datetime64(frame)), info
-    b = int(from_day)
-    ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
-    b_arg = (_EPOCH + dt.timedelta(days=b))
-    with engine.connect() as conn:
-        cur = conn.connection.cursor()
-        try:
-            cur.execute(f"SELECT device_id, n_days, columns_json, day_no_blob, values_blob "
-                        f"FROM flag_daily_pack WHERE site_id = {ph}", [site_id])
-            packs = cur.fetchall()
+        parts = [daily_table(engine, site_id, with_text=False, columns=columns)]
+    else:
+        b = int(from_day)
+        ph = rowcols.placeholder(engine)
+        b_arg = _EPOCH + dt.timedelta(days=b)
+        with engine.connect() as conn:
+            packs = rowcols.fetchall(
+                conn, f"SELECT device_id, n_days, columns_json, day_no_blob, values_blob "
+                      f"FROM flag_daily_pack WHERE site_id = {ph}", [site_id])
             # per inverter: rows before the boundary, and the newest computation among them
-            cur.execute(f"SELECT d.device_id, COUNT(*), MAX(t.computation_id) FROM "
-                        f"daily_inverter t JOIN device d ON d.device_pk = t.device_pk "
-                        f"WHERE d.site_id = {ph} AND t.day < {ph} GROUP BY d.device_id",
-                        [site_id, b_arg.isoformat() if is_sqlite(engine) else b_arg])
-            before = {str(r[0]): (int(r[1]), r[2]) for r in cur.fetchall()}
-        finally:
-            cur.close()
-        kept: dict[str, tuple[np.ndarray, np.ndarray]] = {}
-        for dev, n_days, cols_json, day_blob, val_blob in packs:
-            dev = str(dev)
-            if dev not in before or json.loads(cols_json) != names:
-                continue
-            day_no = np.frombuffer(bytes(day_blob), dtype="<i4").astype(np.int64)
-            if len(day_no):
-                info["pack_last_day"] = max(int(day_no[-1]), info["pack_last_day"] or -2**31)
-            vals = np.frombuffer(bytes(val_blob), dtype="<f8").reshape(len(names), -1)
-            if len(day_no) != int(n_days) or vals.shape[1] != len(day_no):
-                continue  # a damaged pack: read the table
-            k = int(np.searchsorted(day_no, b))
-            comp = vals[-1]
-            n_table, newest = before[dev]
-            if (k == n_table and np.isfinite(comp).all() and newest is not None
-                    and len(comp) and int(newest) <= int(comp.max())):
-                kept[dev] = (day_no[:k], vals[:, :k])
-        whole = sorted(set(before) - set(kept))
-        parts = [daily_table(conn, site_id, start=b_arg, with_text=False, columns=columns)]
-        if whole:
-            parts.append(daily_table(conn, site_id, device_ids=whole,
-                                     end=b_arg - dt.timedelta(days=1), with_text=False,
-                                     columns=columns))
+            before = {str(r[0]): (int(r[1]), r[2]) for r in rowcols.fetchall(
+                conn, f"SELECT d.device_id, COUNT(*), MAX(t.computation_id) FROM "
+                      f"daily_inverter t JOIN device d ON d.device_pk = t.device_pk "
+                      f"WHERE d.site_id = {ph} AND t.day < {ph} GROUP BY d.device_id",
+                [site_id, b_arg.isoformat() if is_sqlite(engine) else b_arg])}
+            for dev, n_days, cols_json, day_blob, val_blob in packs:
+                dev = str(dev)
+                if dev not in before or json.loads(cols_json) != names:
+                    continue
+                day_no = np.frombuffer(bytes(day_blob), dtype="<i4").astype(np.int64)
+                if len(day_no):
+                    info["pack_last_day"] = max(int(day_no[-1]),
+                                                info["pack_last_day"] or -2**31)
+                vals = np.frombuffer(bytes(val_blob), dtype="<f8").reshape(len(names), -1)
+                if len(day_no) != int(n_days) or vals.shape[1] != len(day_no):
+                    continue  # a damaged pack: read the table
+                k = int(np.searchsorted(day_no, b))
+                comp = vals[-1]
+                n_table, newest = before[dev]
+                if (k == n_table and np.isfinite(comp).all() and newest is not None
+                        and len(comp) and int(newest) <= int(comp.max())):
+                    kept[dev] = (day_no[:k], vals[:, :k])
+            info["whole"] = sorted(set(before) - set(kept))
+            parts = [daily_table(conn, site_id, start=b_arg, with_text=False,
+                                 columns=columns)]
+            if info["whole"]:
+                parts.append(daily_table(conn, site_id, device_ids=info["whole"],
+                                         end=b_arg - dt.timedelta(days=1), with_text=False,
+                                         columns=columns))
     parts = [_as_datetime64(p) for p in parts]
     info["rows_read"] = sum(len(p) for p in parts)
-    info["whole"] = whole
     # each part's device codes (code-point order) and day numbers, for one sort of the rows
-    names_all = sorted({str(x) for p in parts for x in p["device_id"]} | set(kept))
-    rank = {d: k for k, d in enumerate(names_all)}
-    keys = [(np.array([rank[str(x)] for x in p["device_id"]], dtype=np.int64),
-             _day_numbers(p["day"])) for p in parts]
+    rank = {d: k for k, d in enumerate(sorted(
+        {str(x) for p in parts for x in pd.unique(p["device_id"])} | set(kept)))}
+    keys = [(p["device_id"].astype(str).map(rank).to_numpy(np.int64), _day_numbers(p["day"]))
+            for p in parts]
     if kept:
         devs = sorted(kept)
         parts.append(_frame_of_packs(kept, devs, names, parts[0].columns))
@@ -144,10 +128,7 @@ def read_daily_inputs(engine: sa.Engine, site_id: str, columns, *,
         keys.append((np.repeat(np.array([rank[d] for d in devs], dtype=np.int64),
                                [len(kept[d][0]) for d in devs]),
                      np.concatenate([kept[d][0] for d in devs])))
-    keep = [k for k, p in enumerate(parts) if len(p)]
-    if not keep:
-        return _as_datetime64(daily_table(engine, site_id, device_ids=[], with_text=False,
-                                          columns=columns)), info
+    keep = [k for k, p in enumerate(parts) if len(p)] or [0]
     frame = pd.concat([parts[k] for k in keep], ignore_index=True) if len(keep) > 1 \
         else parts[keep[0]]
     order = np.lexsort((np.concatenate([keys[k][1] for k in keep]),

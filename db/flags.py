@@ -155,44 +155,36 @@ def read_flag_parts(engine: sa.Engine, site_id: str) -> pd.DataFrame:
 
 
 def read_flag_days(engine: sa.Engine, site_id: str, sensor_ids=None, *,
-                   inverters: bool = True, with_packs: bool = True) -> pd.DataFrame:
+                   inverters: bool = True) -> pd.DataFrame:
     """The per-device daily inputs kept by the last flags run: the inverters' daily inputs
     (``flag_day_pack``, and any ``flag_day`` rows of a store not yet migrated) and the
     sensors' day judgements (``flag_day``; arrays as numpy float arrays, None where absent),
     one row per device and day, by device (code-point order) and day. With ``sensor_ids``
     the other devices' ``flag_day`` rows are read without the sensor columns (NULL for an
-    inverter; issue #16); with ``inverters`` False as well, only those sensors' rows are read;
-    with ``with_packs`` False the packed days are left to :func:`read_inverter_days`.
+    inverter; issue #16); with ``inverters`` False as well, only those sensors' rows are read
+    (an incremental run takes the inverters' packs with :func:`read_inverter_days`).
     Columns are built whole (:mod:`db.rowcols`), not row by row."""
-    ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
+    ph = rowcols.placeholder(engine)
     inv_cols = DAY_COLUMNS[:6]
     with engine.connect() as conn:
         # raw DBAPI cursor: a 100-inverter site keeps ~37 000 days a year
-        cur = conn.connection.cursor()
-        try:
-            packs = []
-            if with_packs and (inverters or sensor_ids is None):
-                cur.execute(f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
-                            f"flag_day_pack WHERE site_id = {ph}", [site_id])
-                packs = cur.fetchall()
-            if sensor_ids is None:
-                cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = "
-                            f"{ph}", [site_id])
-                got = [(cur.fetchall(), len(DAY_COLUMNS))]
-            else:
-                ids = [str(i) for i in sensor_ids]
-                inl = ", ".join([ph] * len(ids)) if ids else "NULL"
-                got = []
-                if inverters:
-                    cur.execute(f"SELECT {', '.join(inv_cols)} FROM flag_day WHERE site_id = "
-                                f"{ph} AND device_id NOT IN ({inl})", [site_id, *ids])
-                    got.append((cur.fetchall(), len(inv_cols)))
-                if ids:
-                    cur.execute(f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE "
-                                f"site_id = {ph} AND device_id IN ({inl})", [site_id, *ids])
-                    got.append((cur.fetchall(), len(DAY_COLUMNS)))
-        finally:
-            cur.close()
+        packs = _fetch_packs(conn, site_id) if inverters or sensor_ids is None else []
+        if sensor_ids is None:
+            got = [(rowcols.fetchall(conn, f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day "
+                                           f"WHERE site_id = {ph}", [site_id]),
+                    len(DAY_COLUMNS))]
+        else:
+            ids = [str(i) for i in sensor_ids]
+            inl = ", ".join([ph] * len(ids)) if ids else "NULL"
+            got = []
+            if inverters:
+                got.append((rowcols.fetchall(
+                    conn, f"SELECT {', '.join(inv_cols)} FROM flag_day WHERE site_id = {ph} "
+                          f"AND device_id NOT IN ({inl})", [site_id, *ids]), len(inv_cols)))
+            if ids:
+                got.append((rowcols.fetchall(
+                    conn, f"SELECT {', '.join(DAY_COLUMNS)} FROM flag_day WHERE site_id = {ph} "
+                          f"AND device_id IN ({inl})", [site_id, *ids]), len(DAY_COLUMNS)))
     got = got or [([], len(DAY_COLUMNS))]
     # each source as whole columns; columns a source lacks are NULL
     cols: dict[str, list[np.ndarray]] = {c: [] for c in DAY_COLUMNS}
@@ -270,43 +262,46 @@ def pack_days(device_days: pd.DataFrame) -> dict:
     return out
 
 
+def _fetch_packs(conn: sa.Connection, site_id: str) -> list[tuple]:
+    """The site's ``flag_day_pack`` rows as ``(device_id, n_days, *blobs)`` tuples."""
+    return rowcols.fetchall(conn, f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
+                                  f"flag_day_pack WHERE site_id = {rowcols.placeholder(conn)}",
+                            [site_id])
+
+
+def _pack_arrays(r) -> dict[str, np.ndarray]:
+    """One fetched ``(device_id, n_days, *blobs)`` row as its stored arrays (length-checked)."""
+    n = int(r[1])
+    out = {c: np.frombuffer(bytes(r[2 + k]), dtype=_PACK_DTYPES[c])
+           for k, c in enumerate(PACK_COLUMNS)}
+    for c, a in out.items():
+        if len(a) != n:
+            raise ValueError(f"flag_day_pack: {c} of {r[0]} holds {len(a)} values for {n} days")
+    return out
+
+
 def read_inverter_days(engine: sa.Engine, site_id: str) -> dict[str, dict[str, np.ndarray]]:
     """Each inverter's packed daily inputs (``flag_day_pack``) as arrays sorted by day:
     ``day_no`` (int64), ``soiling_pi``, ``withheld_kwh``, ``clock_delta_min`` (float, NaN =
     none) and ``clock_clear`` (int8: 1, 0, -1 = none); no DataFrame of every day is built
     (issue #16: an incremental run takes each inverter's days before its cut as slices)."""
-    ph = "?" if engine.dialect.paramstyle == "qmark" else "%s"
     with engine.connect() as conn:
-        cur = conn.connection.cursor()
-        try:
-            cur.execute(f"SELECT device_id, n_days, {', '.join(_PACK_BLOBS)} FROM "
-                        f"flag_day_pack WHERE site_id = {ph}", [site_id])
-            packs = cur.fetchall()
-        finally:
-            cur.close()
+        packs = _fetch_packs(conn, site_id)
     out = {}
     for r in packs:
-        n = int(r[1])
-        cols = {c: np.frombuffer(bytes(r[2 + k]), dtype=_PACK_DTYPES[c])
-                for k, c in enumerate(PACK_COLUMNS)}
-        if any(len(a) != n for a in cols.values()):
-            raise ValueError(f"flag_day_pack: {r[0]} holds arrays of another length than "
-                             f"its {n} days")
-        out[str(r[0])] = {c: (a.astype(np.int64) if c == "day_no" else a.astype(np.int8)
-                              if c == "clock_clear" else a.astype(float))
-                          for c, a in cols.items()}
+        out[str(r[0])] = {c: a.astype(np.int64 if c == "day_no" else np.int8
+                                      if c == "clock_clear" else float)
+                          for c, a in _pack_arrays(r).items()}
     return out
 
 
 def _unpack_days(packs: list) -> dict:
     """Fetched ``(device_id, n_days, *blobs)`` rows as whole columns of all their days."""
-    n = np.array([int(r[1]) for r in packs], dtype=np.int64)
+    arrays = [_pack_arrays(r) for r in packs]
+    n = [int(r[1]) for r in packs]
     out = {"device_id": np.repeat(np.array([str(r[0]) for r in packs], dtype=object), n)}
-    for k, c in enumerate(PACK_COLUMNS):
-        a = np.concatenate([np.frombuffer(bytes(r[2 + k]), dtype=_PACK_DTYPES[c])
-                            for r in packs])
-        if len(a) != n.sum():
-            raise ValueError(f"flag_day_pack: {c} holds {len(a)} values for {n.sum()} days")
+    for c in PACK_COLUMNS:
+        a = np.concatenate([x[c] for x in arrays])
         out[c] = a.astype(np.int64) if c == "day_no" else (
             _CLEAR_OF_CODE[a.astype(np.int64) + 1] if c == "clock_clear" else a.astype(float))
     return out
@@ -399,8 +394,7 @@ def _store_packs(conn: sa.Connection, site_id: str, days: pd.DataFrame,
         conn.execute(t.delete().where(t.c.site_id == site_id))
         out = {dev: pack_days(g) for dev, g in new.items()}
     else:
-        have = conn.execute(sa.select(t.c.device_id, t.c.n_days, *(t.c[b] for b in _PACK_BLOBS))
-                            .where(t.c.site_id == site_id)).all()
+        have = _fetch_packs(conn, site_id)
         out = {}
         for r in have:
             dev = str(r[0])

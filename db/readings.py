@@ -25,7 +25,7 @@ from __future__ import annotations
 import numpy as np
 import sqlalchemy as sa
 
-from db import daypack, schema
+from db import daypack, rowcols, schema
 from db.daypack import DAY_S, ROW_COLUMNS
 
 TS_BITS = 34  # ts_s < 2**34 s: until the year 2514
@@ -41,15 +41,11 @@ def key(channel_id: np.ndarray, ts_s: np.ndarray) -> np.ndarray:
     return (channel_id.astype(np.int64) << TS_BITS) + ts_s.astype(np.int64)
 
 
-def _ph(conn: sa.Connection) -> str:
-    return "?" if conn.dialect.paramstyle == "qmark" else "%s"
-
-
 def _fetch(conn: sa.Connection, channel_id: int, day_lo: int | None, day_hi: int | None, *,
            desc: bool = False, limit: int | None = None, for_update: bool = False,
            cols: str = _SELECT) -> list[tuple]:
     """Day rows of one channel with ``day_lo <= day_s <= day_hi`` (None: open), key order."""
-    ph = _ph(conn)
+    ph = rowcols.placeholder(conn)
     sql = f"SELECT {cols} FROM {TABLE} WHERE channel_id = {ph}"
     args: list = [int(channel_id)]
     if day_lo is not None:
@@ -63,12 +59,7 @@ def _fetch(conn: sa.Connection, channel_id: int, day_lo: int | None, day_hi: int
         sql += f" LIMIT {int(limit)}"
     if for_update and conn.dialect.name == "postgresql":
         sql += " FOR UPDATE"
-    cur = conn.connection.cursor()
-    try:
-        cur.execute(sql, args)
-        return cur.fetchall()
-    finally:
-        cur.close()
+    return rowcols.fetchall(conn, sql, args)
 
 
 def _decode(rows: list[tuple], *, values: bool = True, batches: bool = False) -> dict:
@@ -318,8 +309,9 @@ def _insert(conn: sa.Connection, packed: daypack.DayRows, select: np.ndarray) ->
 
 def _update(conn: sa.Connection, packed: daypack.DayRows, select: np.ndarray) -> None:
     rows = [(*r[2:], r[0], r[1]) for r in packed.rows(select)]
-    sets = ", ".join(f"{c} = {_ph(conn)}" for c in ROW_COLUMNS[2:])
-    sql = (f"UPDATE {TABLE} SET {sets} WHERE channel_id = {_ph(conn)} AND day_s = {_ph(conn)}")
+    ph = rowcols.placeholder(conn)
+    sets = ", ".join(f"{c} = {ph}" for c in ROW_COLUMNS[2:])
+    sql = f"UPDATE {TABLE} SET {sets} WHERE channel_id = {ph} AND day_s = {ph}"
     if conn.dialect.name in ("sqlite", "postgresql"):
         raw = conn.connection.driver_connection
         cur = raw.cursor()

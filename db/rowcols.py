@@ -14,6 +14,7 @@ import datetime as dt
 
 import numpy as np
 import pandas as pd
+import sqlalchemy as sa
 
 
 def columns(rows: list, n_cols: int) -> list[np.ndarray]:
@@ -51,3 +52,19 @@ def dates(col: np.ndarray) -> np.ndarray:
     parsed = np.empty(len(uniq), dtype=object)
     parsed[:] = [dt.date.fromisoformat(str(u)) for u in uniq]
     return parsed[codes]
+
+
+def placeholder(conn: sa.Connection | sa.Engine) -> str:
+    """The DBAPI's positional parameter marker: ``?`` (sqlite3) or ``%s`` (psycopg)."""
+    return "?" if conn.dialect.paramstyle == "qmark" else "%s"
+
+
+def fetchall(conn: sa.Connection, sql: str, args) -> list[tuple]:
+    """``sql`` (with :func:`placeholder` markers) run on a raw DBAPI cursor of ``conn``, its
+    rows as tuples: no SQLAlchemy result objects for a long history (issue #16)."""
+    cur = conn.connection.cursor()
+    try:
+        cur.execute(sql, list(args))
+        return cur.fetchall()
+    finally:
+        cur.close()

@@ -223,7 +223,6 @@ class Prior:
     cut_day: int
     parts: pd.DataFrame
     late_parts: pd.DataFrame  # input mismatch: added after the site-wide merging
-    days: pd.DataFrame
     last_seen: dict = field(default_factory=dict)
     seen: set = field(default_factory=set)
     full_devices: set = field(default_factory=set)
@@ -239,7 +238,7 @@ class Prior:
     #: sensors whose flags and days this run replaces whole (all of them when sensors_whole)
     whole_sensors: set = field(default_factory=set)
     #: inverter id -> its packed daily inputs before ``cut_day`` (:func:`db.flags.
-    #: read_inverter_days` arrays), besides any inverter rows in ``days``
+    #: read_inverter_days` arrays)
     inverter_days: dict = field(default_factory=dict)
 
     @property
@@ -253,7 +252,6 @@ class Prior:
         sensor_ids = set(sensor_ids)
         is_sensor = days["device_id"].isin(list(sensor_ids))
         sdays = days[is_sensor & (days["day_no"] < cut_day)]
-        days = days[~is_sensor]
         if sensors_whole:  # the sensors' stored parts are replaced whole too
             parts = parts[~parts["device_id"].isin(list(sensor_ids))]
         full = set(state.get("full_devices", []))
@@ -263,7 +261,6 @@ class Prior:
         sensor_parts = kept[s_kept][list(FLAG_COLUMNS)].reset_index(drop=True)
         kept = kept[~s_kept]
         late = kept["kind"] == "input_mismatch"
-        d = days[(days["day_no"] < cut_day) & ~days["device_id"].isin(list(full))]
         packed = {}
         for dev, arr in (inverter_days or {}).items():
             k = int(np.searchsorted(arr["day_no"], int(cut_day)))
@@ -272,7 +269,6 @@ class Prior:
         return cls(cut_s=int(cut_s), cut_day=int(cut_day), inverter_days=packed,
                    parts=kept[~late][list(FLAG_COLUMNS)].reset_index(drop=True),
                    late_parts=kept[late][list(FLAG_COLUMNS)].reset_index(drop=True),
-                   days=d.reset_index(drop=True),
                    last_seen={k: int(v) for k, v in state.get("last_seen", {}).items()},
                    seen=set(state.get("seen", [])), full_devices=full,
                    sensor_days={} if sensors_whole else {
@@ -324,12 +320,9 @@ class Prior:
 
     def _stored_by_device(self) -> dict:
         """Inverter id -> its stored (withheld, soiling index, clock offsets) before the cut
-        day, each None when it has no value: slices of whole columns (issue #16), or of each
-        inverter's packed arrays (``inverter_days``)."""
-        out = self._rows_by_device()
+        day, each None when it has no value: slices of its packed arrays (issue #16)."""
+        out = {}
         for dev, arr in self.inverter_days.items():
-            if dev in out:  # rows and a pack of one inverter (not written by flags runs)
-                raise ValueError(f"flag_day: inverter {dev} has both rows and a packed row")
             i = _day_ts_index(arr["day_no"])
             w, so, delta, code = (arr["withheld_kwh"], arr["soiling_pi"],
                                   arr["clock_delta_min"], arr["clock_clear"])
@@ -338,31 +331,5 @@ class Prior:
                 pd.Series(w[mw], index=i[mw]) if mw.any() else None,
                 pd.Series(so[ms], index=i[ms]) if ms.any() else None,
                 pd.DataFrame({"delta_min": delta[mc], "clear": code[mc] == 1},
-                             index=i[mc]) if mc.any() else None)
-        return out
-
-    def _rows_by_device(self) -> dict:
-        """:meth:`_stored_by_device` of the inverter rows in ``days``."""
-        d = self.days
-        if not len(d):
-            return {}
-        codes, devs = pd.factorize(d["device_id"].to_numpy(object), sort=True)
-        order = np.argsort(codes, kind="stable")
-        bounds = np.searchsorted(codes[order], np.arange(len(devs) + 1))
-        idx = pd.to_datetime(d["day_no"].to_numpy(np.int64)[order] * 86400, unit="s")
-        w = d["withheld_kwh"].to_numpy(float)[order]
-        s = d["soiling_pi"].to_numpy(float)[order]
-        delta = d["clock_delta_min"].to_numpy(float)[order]
-        clear = d["clock_clear"].to_numpy(object)[order]
-        has_w, has_s, has_c = ~np.isnan(w), ~np.isnan(s), pd.notna(clear)
-        out = {}
-        for k, dev in enumerate(devs):
-            sl = slice(bounds[k], bounds[k + 1])
-            mw, ms, mc = has_w[sl], has_s[sl], has_c[sl]
-            i = idx[sl]
-            out[dev] = (
-                pd.Series(w[sl][mw], index=i[mw]) if mw.any() else None,
-                pd.Series(s[sl][ms], index=i[ms]) if ms.any() else None,
-                pd.DataFrame({"delta_min": delta[sl][mc], "clear": clear[sl][mc].astype(bool)},
                              index=i[mc]) if mc.any() else None)
         return out

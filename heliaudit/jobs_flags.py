@@ -1832,7 +1832,7 @@ def _prior(engine: sa.Engine, site_id: str, setup: dict, since_s: int | None = N
     cut_day = (cut + setup["off_s"]) // 86400
     sensor_ids = [sid for sid, _q in setup["sensor_rows"]]
     return fw.Prior.from_store(cut, cut_day, parts,
-                               read_flag_days(engine, site_id, sensor_ids, with_packs=False),
+                               read_flag_days(engine, site_id, sensor_ids, inverters=False),
                                state, sensor_ids=sensor_ids,
                                inverter_days=read_inverter_days(engine, site_id)
                                ), f"from {dt.datetime.fromtimestamp(cut, dt.UTC):%Y-%m-%d %H:%M} UTC"
